@@ -1,0 +1,110 @@
+"""Readable terminal tables for a grade."""
+
+from __future__ import annotations
+
+from placer.score import Grade
+
+__all__ = ["format_grade", "format_table", "CAUTION"]
+
+CAUTION = ("Figures are model estimates under the assumptions above; confirm with the "
+           "foundry's matching guidelines, extraction and the process's mismatch data.")
+
+
+def format_table(header: list[str], rows: list[list[str]]) -> str:
+    """Left-align the first column, right-align the rest.
+
+    Examples
+    --------
+    >>> print(format_table(["a", "bb"], [["x", "1"]]))
+    a  bb
+    x   1
+    """
+    widths = [max(len(r[i]) for r in [header, *rows]) for i in range(len(header))]
+    lines = []
+    for r in [header, *rows]:
+        cells = [r[0].ljust(widths[0])] + [c.rjust(w) for c, w in zip(r[1:], widths[1:],
+                                                                     strict=True)]
+        lines.append("  ".join(cells).rstrip())
+    return "\n".join(lines)
+
+
+def _f(value: float, digits: int = 3) -> str:
+    if value == 0 or abs(value) < 1e-9:
+        return "0"
+    if abs(value) >= 10 ** digits:
+        return f"{value:.0f}"
+    return f"{value:.{digits}g}"
+
+
+def format_grade(grade: Grade, max_pairs: int = 40) -> str:
+    """The grade as text: devices, pairs, worst pairs, assumptions, caution."""
+    a = grade.assumptions
+    rows, cols = grade.shape
+    out = [f"{grade.name}: {grade.kind} array of {rows} x {cols} slots, pitch "
+           f"{grade.pitch_um[0]:g} x {grade.pitch_um[1]:g} um, centre of device units at "
+           f"({grade.centre_um[0]:.4g}, {grade.centre_um[1]:.4g}) um", ""]
+    dev_rows = []
+    for d in grade.devices:
+        right, left, _ = d.orientation
+        dev_rows.append([
+            d.name, str(d.units), f"{d.centroid_um[0]:.4g}", f"{d.centroid_um[1]:.4g}",
+            _f(d.offset_um), _f(d.second_moment_um2[0]), _f(d.second_moment_um2[1]),
+            _f(d.second_moment_um2[2]), str(d.edge_units),
+            f"{right}/{left}" if right + left else "-",
+        ])
+    out.append("Devices (centroid in um; offset from centre in um; second moments about "
+               "the centre in um^2)")
+    out.append(format_table(["device", "units", "x", "y", "offset", "Mxx", "Mxy", "Myy",
+                             "edge", ">/<"], dev_rows))
+    out.append("")
+    if not grade.pairs:
+        out.append("One device only: no ratio to grade.")
+    else:
+        order = len(grade.pairs[0].moment_norms)
+        vt = grade.pairs[0].vt_sigma_mv is not None
+        head = ["pair", "linear", "dir", "quad", "bowl",
+                *[f"|dM{k}|" for k in range(3, order + 1)], "s_corr", "s_white", "s_rand"]
+        if vt:
+            head.append("s_dVT")
+        shown = sorted(grade.pairs, key=lambda p: -p.linear_ppm - p.quadratic_ppm)
+        pair_rows = []
+        for p in shown[:max_pairs]:
+            row = [f"{p.a}/{p.b}", _f(p.linear_ppm), f"{p.linear_worst_angle_deg:.0f}"
+                   if p.linear_ppm > 1e-9 else "-", _f(p.quadratic_ppm), _f(p.bowl_ppm),
+                   *[_f(v) for v in p.moment_norms[2:]], _f(p.correlated_sigma_ppm),
+                   _f(p.white_sigma_ppm), _f(p.random_sigma_ppm)]
+            if vt:
+                row.append(_f(p.vt_sigma_mv or 0.0))
+            pair_rows.append(row)
+        out.append("Pairs (ratio error of first/second in ppm; dir = worst gradient direction "
+                   "in degrees; |dMk| = order-k moment difference in um^k; sigmas in ppm"
+                   + ("; s_dVT in mV" if vt else "") + ")")
+        out.append(format_table(head, pair_rows))
+        if len(shown) > max_pairs:
+            out.append(f"... {len(shown) - max_pairs} more pairs in the JSON output (--json)")
+        out.append("")
+        for label, field in (("linear", "linear_ppm"), ("quadratic", "quadratic_ppm"),
+                             ("random", "random_sigma_ppm")):
+            w = grade.worst(field)
+            assert w is not None
+            out.append(f"Worst {label:<9} {w.a}/{w.b}: {_f(getattr(w, field))} ppm")
+        if grade.monte_carlo is not None:
+            mc = grade.monte_carlo
+            worst = max(range(len(mc.std_ppm)), key=lambda i: mc.exact_std_ppm[i])
+            p = grade.pairs[worst]
+            out.append(f"Monte Carlo ({mc.samples} samples, seed {mc.seed}), {p.a}/{p.b}: "
+                       f"std {_f(mc.std_ppm[worst])} ppm (exact {_f(mc.exact_std_ppm[worst])}),"
+                       f" |error| 99th percentile {_f(mc.abs_p99_ppm[worst])} ppm")
+    out.append("")
+    out.append(
+        "Assumptions: linear gradient {lin:g} ppm/um (worst direction); Hessian norm {q:g} "
+        "ppm/um^2 (Frobenius; bowl = same norm, radial); correlated field sigma {cs:g} ppm, "
+        "{kern} kernel, length {cl:g} um; area coefficient {ap:g} %um{vt}; unit area "
+        "{ua:g} um^2; from {src}.".format(
+            lin=a["linear_gradient_ppm_per_um"], q=a["quadratic_hessian_norm_ppm_per_um2"],
+            cs=a["correlated_sigma_ppm"], kern=a["correlated_kernel"],
+            cl=a["correlated_length_um"], ap=a["area_coefficient_pct_um"],
+            vt="" if a["a_vt_mv_um"] is None else f", A_VT {a['a_vt_mv_um']:g} mV um",
+            ua=a["unit_area_um2"], src=a["spec"]))
+    out.append(CAUTION)
+    return "\n".join(out)

@@ -1,0 +1,189 @@
+"""Score a pattern under a spec's assumptions: per-device and per-pair figures."""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass
+from itertools import combinations
+from typing import Any
+
+import numpy as np
+
+from placer import model
+from placer.pattern import Pattern, unit_positions
+from placer.spec import Spec
+
+__all__ = ["DeviceScore", "PairScore", "MonteCarloSummary", "Grade", "grade_pattern",
+           "assumptions"]
+
+
+@dataclass(frozen=True)
+class DeviceScore:
+    """Placement figures of one device."""
+
+    name: str
+    units: int
+    centroid_um: tuple[float, float]
+    offset_um: float
+    second_moment_um2: tuple[float, float, float]
+    edge_units: int
+    orientation: tuple[int, int, int]
+
+
+@dataclass(frozen=True)
+class PairScore:
+    """Ratio-error figures of one pair of devices (first minus second), ppm of P0."""
+
+    a: str
+    b: str
+    centroid_distance_um: float
+    linear_ppm: float
+    linear_worst_angle_deg: float
+    quadratic_ppm: float
+    bowl_ppm: float
+    moment_norms: tuple[float, ...]
+    correlated_sigma_ppm: float
+    white_sigma_ppm: float
+    random_sigma_ppm: float
+    vt_sigma_mv: float | None
+
+
+@dataclass(frozen=True)
+class MonteCarloSummary:
+    """Sampled ratio error of each pair beside the exact sigma it must match."""
+
+    samples: int
+    seed: int
+    std_ppm: tuple[float, ...]
+    exact_std_ppm: tuple[float, ...]
+    abs_p99_ppm: tuple[float, ...]
+
+
+@dataclass(frozen=True)
+class Grade:
+    """All figures of one pattern; ``pairs`` lists every pair of devices."""
+
+    name: str
+    kind: str
+    shape: tuple[int, int]
+    pitch_um: tuple[float, float]
+    centre_um: tuple[float, float]
+    devices: tuple[DeviceScore, ...]
+    pairs: tuple[PairScore, ...]
+    assumptions: dict[str, Any]
+    monte_carlo: MonteCarloSummary | None = None
+
+    def worst(self, field: str) -> PairScore | None:
+        """The pair with the largest value of ``field`` (absolute), or None."""
+        if not self.pairs:
+            return None
+        return max(self.pairs, key=lambda p: abs(getattr(p, field)))
+
+    def to_dict(self) -> dict[str, Any]:
+        """Plain JSON-ready form."""
+        out = asdict(self)
+        out["worst"] = {f: (w.a + "/" + w.b if (w := self.worst(f)) else None)
+                        for f in ("linear_ppm", "quadratic_ppm", "random_sigma_ppm")}
+        return out
+
+
+def assumptions(spec: Spec) -> dict[str, Any]:
+    """The model assumptions a grade was computed with, for printing beside it."""
+    return {
+        "spec": spec.source,
+        "linear_gradient_ppm_per_um": spec.gradient.linear_ppm_per_um,
+        "quadratic_hessian_norm_ppm_per_um2": spec.gradient.quadratic_ppm_per_um2,
+        "moment_order": spec.gradient.order,
+        "correlated_sigma_ppm": spec.correlated.sigma_ppm,
+        "correlated_length_um": spec.correlated.length_um,
+        "correlated_kernel": spec.correlated.kernel,
+        "area_coefficient_pct_um": spec.mismatch.a_param_pct_um,
+        "a_vt_mv_um": spec.mismatch.a_vt_mv_um,
+        "unit_area_um2": spec.unit.area_um2,
+        "pitch_um": list(spec.array.pitch_um),
+    }
+
+
+def grade_pattern(pattern: Pattern, spec: Spec) -> Grade:
+    """Compute every figure of ``pattern`` (already in the spec's device order)."""
+    n_dev = len(pattern.devices)
+    xy, dev = unit_positions(pattern, spec.array.pitch_um)
+    centre = model.array_centre(xy)
+    xy_c = xy - centre
+    counts = np.bincount(dev, minlength=n_dev)
+    cen = model.centroids(xy, dev, n_dev)
+    off = cen - centre
+    m2 = model.power_moments(xy_c, dev, n_dev, 2)
+    edges = model.edge_units(pattern.ids, n_dev)
+    marks = pattern.orient[pattern.ids >= 0]
+    devices = []
+    for d, name in enumerate(pattern.devices):
+        mine = marks[dev == d]
+        devices.append(DeviceScore(
+            name=name, units=int(counts[d]),
+            centroid_um=(float(cen[d, 0]), float(cen[d, 1])),
+            offset_um=float(np.hypot(*off[d])),
+            second_moment_um2=(float(m2[d, 0]), float(m2[d, 1]), float(m2[d, 2])),
+            edge_units=int(edges[d]),
+            orientation=(int(np.sum(mine > 0)), int(np.sum(mine < 0)), int(np.sum(mine == 0))),
+        ))
+
+    pair_list = list(combinations(range(n_dev), 2))
+    pairs: list[PairScore] = []
+    mc = None
+    if pair_list:
+        pr = np.array(pair_list, dtype=int)
+        g = spec.gradient
+        lin, ang = model.linear_worst(cen[pr[:, 0]] - cen[pr[:, 1]], g.linear_ppm_per_um)
+        dm2 = m2[pr[:, 0]] - m2[pr[:, 1]]
+        quad = model.quadratic_worst(dm2, g.quadratic_ppm_per_um2)
+        bowl = model.bowl_error(dm2, g.quadratic_ppm_per_um2)
+        norms = model.exact_pair_terms(xy_c, dev, n_dev, pr, g.order)
+        c = spec.correlated
+        cov = model.device_covariance(xy_c, dev, n_dev, c.length_um, c.kernel)
+        corr = c.sigma_ppm * np.sqrt(model.pair_variance(cov, pr))
+        area = counts * spec.unit.area_um2
+        white = 1e4 * model.pelgrom_sigma(spec.mismatch.a_param_pct_um, area[pr[:, 0]],
+                                          area[pr[:, 1]])
+        vt = (model.pelgrom_sigma(spec.mismatch.a_vt_mv_um, area[pr[:, 0]], area[pr[:, 1]])
+              if spec.mismatch.a_vt_mv_um is not None else None)
+        for i, (a, b) in enumerate(pair_list):
+            pairs.append(PairScore(
+                a=pattern.devices[a], b=pattern.devices[b],
+                centroid_distance_um=float(norms[1][i]),
+                linear_ppm=float(lin[i]), linear_worst_angle_deg=float(ang[i]),
+                quadratic_ppm=float(quad[i]), bowl_ppm=float(bowl[i]),
+                moment_norms=tuple(float(norms[k][i]) for k in range(1, g.order + 1)),
+                correlated_sigma_ppm=float(corr[i]), white_sigma_ppm=float(white[i]),
+                random_sigma_ppm=float(np.hypot(corr[i], white[i])),
+                vt_sigma_mv=None if vt is None else float(vt[i]),
+            ))
+        if spec.monte_carlo.samples > 0:
+            mc = _monte_carlo(spec, xy_c, dev, n_dev, pr, lin, quad, corr)
+    return Grade(
+        name=spec.name, kind=spec.kind, shape=pattern.shape, pitch_um=spec.array.pitch_um,
+        centre_um=(float(centre[0]), float(centre[1])), devices=tuple(devices),
+        pairs=tuple(pairs), assumptions=assumptions(spec), monte_carlo=mc,
+    )
+
+
+def _monte_carlo(spec: Spec, xy_c: np.ndarray, dev: np.ndarray, n_dev: int, pr: np.ndarray,
+                 lin: np.ndarray, quad: np.ndarray, corr: np.ndarray) -> MonteCarloSummary:
+    """Sample the full field; exact std: linear/sqrt2, quadratic/sqrt3, sigmas as they are."""
+    m = spec.monte_carlo
+    white_unit = 1e4 * spec.mismatch.a_param_pct_um / np.sqrt(2.0 * spec.unit.area_um2)
+    errors = model.monte_carlo_errors(
+        xy_c, dev, n_dev, pr,
+        g_rms_ppm_per_um=spec.gradient.linear_ppm_per_um,
+        h_rms_ppm_per_um2=spec.gradient.quadratic_ppm_per_um2,
+        corr_sigma_ppm=spec.correlated.sigma_ppm, corr_length_um=spec.correlated.length_um,
+        kernel=spec.correlated.kernel, white_unit_sigma_ppm=float(white_unit),
+        samples=m.samples, rng=np.random.default_rng(m.seed))
+    counts = np.bincount(dev, minlength=n_dev).astype(float)
+    white_var = white_unit ** 2 * (1.0 / counts[pr[:, 0]] + 1.0 / counts[pr[:, 1]])
+    exact = np.sqrt(lin ** 2 / 2.0 + quad ** 2 / 3.0 + corr ** 2 + white_var)
+    return MonteCarloSummary(
+        samples=m.samples, seed=m.seed,
+        std_ppm=tuple(float(s) for s in errors.std(axis=0)),
+        exact_std_ppm=tuple(float(s) for s in exact),
+        abs_p99_ppm=tuple(float(s) for s in np.percentile(np.abs(errors), 99, axis=0)),
+    )

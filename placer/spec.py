@@ -1,0 +1,374 @@
+"""Read a spec file (TOML) into plain dataclasses, validating every key once."""
+
+from __future__ import annotations
+
+import difflib
+import re
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from placer.errors import LimitError, SpecError
+
+__all__ = [
+    "NAME_RE",
+    "KINDS",
+    "DUMMY_STYLES",
+    "KERNELS",
+    "MAX_UNITS",
+    "MAX_SLOTS",
+    "MAX_FILE_BYTES",
+    "ArraySpec",
+    "UnitSpec",
+    "GradientSpec",
+    "CorrelatedSpec",
+    "MismatchSpec",
+    "MonteCarloSpec",
+    "Spec",
+    "default_spec",
+    "load_spec",
+    "parse_spec",
+    "check_name",
+]
+
+NAME_RE = re.compile(r"[A-Za-z][A-Za-z0-9_]*\Z")
+KINDS = ("mos", "cap", "res")
+DUMMY_STYLES = ("none", "ends", "ring")
+KERNELS = ("exponential", "gaussian")
+
+#: Limits checked before any work starts, so absurd inputs fail at once.
+MAX_UNITS = 65_536
+MAX_SLOTS = 262_144
+MAX_NAME = 24
+MAX_FILE_BYTES = 4 * 1024 * 1024
+_RESERVED = {"con", "prn", "aux", "nul", *(f"com{i}" for i in range(10)),
+             *(f"lpt{i}" for i in range(10))}
+
+
+@dataclass(frozen=True)
+class ArraySpec:
+    """Shape of the unit array: core rows and columns, dummies and slot pitch."""
+
+    rows: int | None = None
+    columns: int | None = None
+    dummies: str = "ends"
+    pitch_um: tuple[float, float] = (1.0, 1.0)
+    aspect: float = 1.0
+
+
+@dataclass(frozen=True)
+class UnitSpec:
+    """Drawn size of one unit finger or unit cell (its area sets random mismatch)."""
+
+    width_um: float = 1.0
+    length_um: float = 1.0
+
+    @property
+    def area_um2(self) -> float:
+        """Gate (or plate, or body) area of one unit in um^2."""
+        return self.width_um * self.length_um
+
+
+@dataclass(frozen=True)
+class GradientSpec:
+    """Magnitudes of the systematic (deterministic) part of the parameter field."""
+
+    linear_ppm_per_um: float = 10.0
+    quadratic_ppm_per_um2: float = 0.02
+    order: int = 3
+
+
+@dataclass(frozen=True)
+class CorrelatedSpec:
+    """Spatially correlated random part: standard deviation, length, kernel."""
+
+    sigma_ppm: float = 100.0
+    length_um: float = 10.0
+    kernel: str = "exponential"
+
+
+@dataclass(frozen=True)
+class MismatchSpec:
+    """White random part from the area law (Pelgrom)."""
+
+    a_param_pct_um: float = 1.0
+    a_vt_mv_um: float | None = None
+
+
+@dataclass(frozen=True)
+class MonteCarloSpec:
+    """Optional sampled check of the exact figures."""
+
+    samples: int = 0
+    seed: int = 0
+
+
+@dataclass(frozen=True)
+class Spec:
+    """Everything a spec file says: devices, array shape and model assumptions."""
+
+    name: str
+    devices: tuple[str, ...]
+    counts: tuple[int, ...]
+    kind: str = "mos"
+    array: ArraySpec = field(default_factory=ArraySpec)
+    unit: UnitSpec = field(default_factory=UnitSpec)
+    gradient: GradientSpec = field(default_factory=GradientSpec)
+    correlated: CorrelatedSpec = field(default_factory=CorrelatedSpec)
+    mismatch: MismatchSpec = field(default_factory=MismatchSpec)
+    monte_carlo: MonteCarloSpec = field(default_factory=MonteCarloSpec)
+    source: str = "<spec>"
+
+    @property
+    def n_units(self) -> int:
+        """Total number of device units."""
+        return sum(self.counts)
+
+
+def default_spec(name: str, devices: tuple[str, ...], counts: tuple[int, ...]) -> Spec:
+    """Spec with every assumption at its documented default, for a bare pattern."""
+    return Spec(name=name, devices=devices, counts=counts, source="<defaults>")
+
+
+def check_name(name: str, what: str) -> str:
+    """Return ``name`` if it is safe as a device, cell or file name, else raise.
+
+    Examples
+    --------
+    >>> check_name("IOUT_2", "device name")
+    'IOUT_2'
+    """
+    if not NAME_RE.match(name):
+        raise SpecError(f"{what} {name!r} is invalid: use a letter, then letters, digits or _")
+    if len(name) > MAX_NAME:
+        raise SpecError(f"{what} {name!r} is longer than {MAX_NAME} characters")
+    if name.lower() in _RESERVED:
+        raise SpecError(f"{what} {name!r} is a reserved file name on some systems")
+    return name
+
+
+# Every table and key a spec may hold; anything else is refused with a suggestion.
+_SCHEMA: dict[str, tuple[str, ...]] = {
+    "": ("name", "kind", "devices", "array", "unit", "gradient", "correlated", "mismatch",
+         "monte_carlo"),
+    "array": ("rows", "columns", "dummies", "pitch_um", "aspect"),
+    "unit": ("width_um", "length_um"),
+    "gradient": ("linear_ppm_per_um", "quadratic_ppm_per_um2", "order"),
+    "correlated": ("sigma_ppm", "length_um", "kernel"),
+    "mismatch": ("a_param_pct_um", "a_vt_mv_um"),
+    "monte_carlo": ("samples", "seed"),
+}
+
+
+class _Reader:
+    """Pull typed, checked values out of one TOML table, remembering where."""
+
+    def __init__(self, src: str, table: str, data: Any):
+        self.src = src
+        self.table = table
+        self.where = f"{src}: [{table}]" if table else f"{src}:"
+        if not isinstance(data, dict):
+            raise SpecError(f"{self.where} must be a table, got {_typename(data)}")
+        self.data = data
+        allowed = _SCHEMA.get(table)
+        if allowed is not None:
+            for key in data:
+                if key not in allowed:
+                    near = difflib.get_close_matches(key, allowed, n=1)
+                    hint = f" (did you mean {near[0]!r}?)" if near else \
+                        f" (allowed: {', '.join(allowed)})"
+                    raise SpecError(f"{self.where} unknown key {key!r}{hint}")
+
+    def fail(self, key: str, problem: str) -> SpecError:
+        return SpecError(f"{self.where} {key} {problem}")
+
+    def number(self, key: str, default: float | None, *, positive: bool = True,
+               allow_zero: bool = False) -> float | None:
+        if key not in self.data:
+            return default
+        value = self.data[key]
+        if isinstance(value, bool) or not isinstance(value, int | float):
+            raise self.fail(key, f"must be a number, got {_typename(value)}")
+        value = float(value)
+        if value != value or value in (float("inf"), float("-inf")):
+            raise self.fail(key, "must be finite")
+        if positive and (value < 0 or (value == 0 and not allow_zero)):
+            raise self.fail(key, f"must be {'>= 0' if allow_zero else '> 0'}, got {value:g}")
+        return value
+
+    def integer(self, key: str, default: int | None, *, low: int = 1,
+                high: int | None = None) -> int | None:
+        if key not in self.data:
+            return default
+        value = self.data[key]
+        if isinstance(value, bool) or not isinstance(value, int):
+            raise self.fail(key, f"must be a whole number, got {_typename(value)} {value!r}")
+        if value < low:
+            raise self.fail(key, f"must be >= {low}, got {value}")
+        if high is not None and value > high:
+            raise LimitError(f"{self.where} {key} = {value} exceeds the limit of {high}")
+        return value
+
+    def choice(self, key: str, default: str, options: tuple[str, ...]) -> str:
+        if key not in self.data:
+            return default
+        value = self.data[key]
+        if value not in options:
+            allowed = ", ".join(repr(o) for o in options)
+            raise self.fail(key, f"must be one of {allowed}, got {value!r}")
+        return str(value)
+
+
+def _typename(value: Any) -> str:
+    return {bool: "a boolean", int: "an integer", float: "a number", str: "a string",
+            list: "an array", dict: "a table"}.get(type(value), type(value).__name__)
+
+
+def load_spec(path: str | Path) -> Spec:
+    """Read and validate the spec file at ``path``.
+
+    Raises
+    ------
+    SpecError
+        With a one-line message naming the file and the problem.
+    """
+    path = Path(path)
+    try:
+        size = path.stat().st_size
+        if size > MAX_FILE_BYTES:
+            raise LimitError(f"{path}: file is {size} bytes, the limit for a spec is "
+                             f"{MAX_FILE_BYTES}")
+        raw = path.read_bytes()
+    except OSError as err:
+        raise SpecError(f"{path}: cannot read: {err.strerror or err}") from err
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as err:
+        raise SpecError(f"{path}: not a UTF-8 text file (byte {err.start})") from err
+    return parse_spec(text, source=str(path), default_name=path.stem)
+
+
+def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") -> Spec:
+    """Parse spec text; ``source`` names it in error messages."""
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        raise SpecError(f"{source}: invalid TOML: {err}") from err
+    top = _Reader(source, "", data)
+
+    name = data.get("name", _safe_default_name(default_name))
+    if not isinstance(name, str):
+        raise top.fail("name", f"must be a string, got {_typename(name)}")
+    try:
+        check_name(name, "spec name")
+    except SpecError as err:
+        raise SpecError(f"{source}: {err}") from None
+    kind = top.choice("kind", "mos", KINDS)
+
+    if "devices" not in data:
+        raise SpecError(f"{source}: missing [devices] table (name = number of units)")
+    dev = _Reader(source, "devices", data["devices"])
+    if not dev.data:
+        raise SpecError(f"{source}: [devices] is empty: give at least one name = units")
+    names: list[str] = []
+    counts: list[int] = []
+    seen: dict[str, str] = {}
+    for key in dev.data:
+        if not NAME_RE.match(key):
+            raise SpecError(f"{source}: [devices] name {key!r} is invalid: use a letter, "
+                            "then letters, digits or _")
+        if len(key) > MAX_NAME:
+            raise SpecError(f"{source}: [devices] name {key!r} is longer than {MAX_NAME} "
+                            "characters")
+        if key.lower() in seen:
+            raise SpecError(f"{source}: [devices] {key!r} and {seen[key.lower()]!r} differ only "
+                            "by case; names must stay distinct in GDSII and file names")
+        seen[key.lower()] = key
+        count = dev.integer(key, None, low=1, high=MAX_UNITS)
+        assert count is not None
+        names.append(key)
+        counts.append(count)
+    if sum(counts) > MAX_UNITS:
+        raise LimitError(f"{source}: [devices] {sum(counts)} units in all exceed the limit of "
+                         f"{MAX_UNITS}")
+
+    arr = _Reader(source, "array", data.get("array", {}))
+    rows = arr.integer("rows", None, high=MAX_SLOTS)
+    columns = arr.integer("columns", None, high=MAX_SLOTS)
+    dummies = arr.choice("dummies", "ends", DUMMY_STYLES)
+    pitch = _pitch(arr)
+    aspect = arr.number("aspect", 1.0)
+    assert aspect is not None
+    if rows is not None and columns is not None:
+        if rows * columns > MAX_SLOTS:
+            raise LimitError(f"{source}: [array] {rows} x {columns} slots exceed the limit of "
+                             f"{MAX_SLOTS}")
+        if rows * columns < sum(counts):
+            raise SpecError(f"{source}: [array] {rows} x {columns} = {rows * columns} slots "
+                            f"cannot hold {sum(counts)} units; enlarge rows or columns")
+    array = ArraySpec(rows, columns, dummies, pitch, aspect)
+
+    un = _Reader(source, "unit", data.get("unit", {}))
+    unit = UnitSpec(un.number("width_um", 1.0) or 1.0, un.number("length_um", 1.0) or 1.0)
+
+    gr = _Reader(source, "gradient", data.get("gradient", {}))
+    d = GradientSpec()
+    gradient = GradientSpec(
+        _num(gr, "linear_ppm_per_um", d.linear_ppm_per_um),
+        _num(gr, "quadratic_ppm_per_um2", d.quadratic_ppm_per_um2),
+        gr.integer("order", d.order, low=2, high=8) or d.order,
+    )
+
+    co = _Reader(source, "correlated", data.get("correlated", {}))
+    dc = CorrelatedSpec()
+    correlated = CorrelatedSpec(
+        _num(co, "sigma_ppm", dc.sigma_ppm),
+        co.number("length_um", dc.length_um) or dc.length_um,
+        co.choice("kernel", dc.kernel, KERNELS),
+    )
+
+    mm = _Reader(source, "mismatch", data.get("mismatch", {}))
+    mismatch = MismatchSpec(
+        _num(mm, "a_param_pct_um", MismatchSpec.a_param_pct_um),
+        mm.number("a_vt_mv_um", None, allow_zero=True),
+    )
+
+    mc = _Reader(source, "monte_carlo", data.get("monte_carlo", {}))
+    monte_carlo = MonteCarloSpec(
+        mc.integer("samples", 0, low=0, high=1_000_000) or 0,
+        mc.integer("seed", 0, low=0) or 0,
+    )
+
+    return Spec(name=name, devices=tuple(names), counts=tuple(counts), kind=kind, array=array,
+                unit=unit, gradient=gradient, correlated=correlated, mismatch=mismatch,
+                monte_carlo=monte_carlo, source=source)
+
+
+def _num(reader: _Reader, key: str, default: float) -> float:
+    value = reader.number(key, default, allow_zero=True)
+    assert value is not None
+    return value
+
+
+def _pitch(arr: _Reader) -> tuple[float, float]:
+    if "pitch_um" not in arr.data:
+        return (1.0, 1.0)
+    value = arr.data["pitch_um"]
+    if isinstance(value, int | float) and not isinstance(value, bool):
+        value = [value, value]
+    if (not isinstance(value, list) or len(value) != 2
+            or any(isinstance(v, bool) or not isinstance(v, int | float) for v in value)):
+        raise arr.fail("pitch_um", f"must be [x, y] in um (two numbers), got {value!r}")
+    if not all(0 < v < 1e5 for v in value):
+        raise arr.fail("pitch_um", f"must be two numbers > 0 and < 100000 um, got {value!r}")
+    return (float(value[0]), float(value[1]))
+
+
+def _safe_default_name(stem: str) -> str:
+    name = re.sub(r"[^A-Za-z0-9_]", "_", stem)[:MAX_NAME]
+    if not name or not name[0].isalpha():
+        name = ("s" + name)[:MAX_NAME]
+    if name.lower() in _RESERVED:
+        name = name + "_"
+    return name

@@ -1,0 +1,70 @@
+"""Command line: results, JSON and one-line errors with the documented exit codes."""
+
+import json
+
+import pytest
+
+from placer.cli import cli
+
+SPEC = "[devices]\nA = 2\nB = 2\n[unit]\nwidth_um = 2.0\nlength_um = 2.0\n" \
+       "[mismatch]\na_vt_mv_um = 5.0\n"
+
+
+def test_grade_prints_tables_and_assumptions(runner, write):
+    pat = write("p.txt", "A B B A\n")
+    result = runner.invoke(cli, ["grade", str(pat), "--spec", str(write("s.toml", SPEC))])
+    assert result.exit_code == 0, result.output
+    assert "A/B" in result.output and "Assumptions:" in result.output
+    assert "model estimates" in result.output
+
+
+def test_grade_json_reproduces_pelgrom_check_value(runner, write):
+    """Pelgrom et al., IEEE JSSC 1989 (doi:10.1109/JSSC.1989.572629): A_VT = 5 mV um (a typical
+    figure, from memory) over WL = 2 x 2 um^2 per unit, two units per device in parallel:
+    sigma = 5 / sqrt(8) mV."""
+    pat = write("p.txt", "A B B A\n")
+    result = runner.invoke(cli, ["grade", str(pat), "--spec", str(write("s.toml", SPEC)),
+                                 "--json"])
+    assert result.exit_code == 0, result.output
+    data = json.loads(result.output)
+    (pair,) = data["pairs"]
+    assert pair["vt_sigma_mv"] == pytest.approx(5.0 / 8 ** 0.5)
+    assert pair["linear_ppm"] == pytest.approx(0.0, abs=1e-12)
+    assert data["worst"]["linear_ppm"] == "A/B"
+
+
+def test_grade_without_spec_uses_defaults(runner, write):
+    result = runner.invoke(cli, ["grade", str(write("p.txt", "A B\nB A\n")), "--json"])
+    assert result.exit_code == 0, result.output
+    assert json.loads(result.output)["assumptions"]["spec"] == "<defaults>"
+
+
+@pytest.mark.parametrize("spec, pattern, message", [
+    ("[devices\nA = 2", "A A", "s.toml: invalid TOML"),
+    ("[devices]\nA = 2\nB = 2\n[array]\nrowz = 1", "A B B A", "did you mean 'rows'?"),
+    ("[devices]\nA = 3\nB = 2", "A B B A", "device 'A' has 2 units, the spec"),
+    (SPEC, "A B B\nA", "p.txt:2: row has 1 tokens, expected 3"),
+    (SPEC, "A B ? A", "token 3 '?'"),
+])
+def test_grade_bad_input_is_one_line_exit_1(runner, write, spec, pattern, message):
+    result = runner.invoke(cli, ["grade", str(write("p.txt", pattern)), "--spec",
+                                 str(write("s.toml", spec))])
+    assert result.exit_code == 1
+    assert "Traceback" not in result.output
+    lines = [ln for ln in result.output.splitlines() if ln]
+    assert len(lines) == 1 and lines[0].startswith("Error: ") and message in lines[0]
+
+
+def test_missing_file_is_a_usage_error_exit_2(runner, tmp_path):
+    result = runner.invoke(cli, ["grade", str(tmp_path / "nope.txt")])
+    assert result.exit_code == 2
+    assert "does not exist" in result.output
+
+
+def test_python_dash_m_entry_point():
+    import subprocess
+    import sys
+
+    out = subprocess.run([sys.executable, "-m", "placer", "--version"], capture_output=True,
+                         text=True, check=True)
+    assert "placer" in out.stdout

@@ -1,0 +1,83 @@
+"""Spec reader: defaults, and one clear message for each kind of bad input."""
+
+import pytest
+
+from placer.errors import LimitError, SpecError
+from placer.spec import load_spec, parse_spec
+
+GOOD = """
+name = "bias_mirror"
+kind = "mos"
+[devices]
+IREF = 2
+IOUT = 8
+[array]
+rows = 1
+columns = 10
+dummies = "ends"
+pitch_um = [1.0, 2.0]
+"""
+
+
+def test_parse_spec_reads_example_keys():
+    s = parse_spec(GOOD, "s.toml")
+    assert s.devices == ("IREF", "IOUT") and s.counts == (2, 8)
+    assert (s.array.rows, s.array.columns, s.array.dummies) == (1, 10, "ends")
+    assert s.array.pitch_um == (1.0, 2.0)
+    assert s.gradient.order == 3 and s.correlated.kernel == "exponential"
+
+
+def test_default_name_comes_from_file_stem(tmp_path):
+    path = tmp_path / "my-mirror.toml"
+    path.write_text("[devices]\nA = 1\nB = 1\n")
+    assert load_spec(path).name == "my_mirror"
+
+
+@pytest.mark.parametrize("text, match", [
+    ("[devices\nA = 1", r"s.toml: invalid TOML: .*line 1"),
+    ("[devices]\nA = 1\n[array]\ncolums = 3", r"unknown key 'colums' \(did you mean 'columns'\?\)"),
+    ("[devices]\nA = 0", r"\[devices\] A must be >= 1, got 0"),
+    ("[devices]\nA = -3", r"\[devices\] A must be >= 1, got -3"),
+    ("[devices]\nA = 1.5", r"\[devices\] A must be a whole number, got a number 1.5"),
+    ("[devices]\nA = true", r"A must be a whole number, got a boolean"),
+    ("[devices]\nA = 1\nA = 2", r"invalid TOML"),
+    ("[devices]\nA = 1\na = 2", r"'a' and 'A' differ only by case"),
+    ('[devices]\n"2X" = 1', r"name '2X' is invalid"),
+    ('[devices]\n"A/B" = 1', r"name 'A/B' is invalid"),
+    ("[devices]\nA = 4\nB = 4\n[array]\nrows = 1\ncolumns = 7",
+     r"1 x 7 = 7 slots cannot hold 8 units"),
+    ('[devices]\nA = 1\n[array]\ndummies = "edge"',
+     r"dummies must be one of 'none', 'ends', 'ring', got 'edge'"),
+    ("[devices]\nA = 1\n[array]\npitch_um = [1.0]", r"pitch_um must be \[x, y\]"),
+    ("[devices]\nA = 1\n[array]\npitch_um = [1.0, -2]", r"pitch_um must be two numbers > 0"),
+    ("[devices]\nA = 1\n[correlated]\nlength_um = 0", r"length_um must be > 0"),
+    ("[devices]\nA = 1\n[gradient]\nlinear_ppm_per_um = nan", r"must be finite"),
+    ("[devices]\nA = 1\n[gradient]\norder = 1", r"order must be >= 2"),
+    ('[devices]\nA = 1\nkind = "mosfet"',
+     r"\[devices\] kind must be a whole number, got a string 'mosfet'"),
+    ('kind = "mosfet"\n[devices]\nA = 1', r"kind must be one of 'mos', 'cap', 'res'"),
+    ("[array]\nrows = 2", r"missing \[devices\] table"),
+    ("[devices]", r"\[devices\] is empty"),
+    ("devices = 3", r"\[devices\] must be a table, got an integer"),
+    ('name = "a/b"\n[devices]\nA = 1', r"spec name 'a/b' is invalid"),
+    ('name = "CON"\n[devices]\nA = 1', r"reserved file name"),
+])
+def test_parse_spec_rejects_bad_input_with_one_line(text, match):
+    with pytest.raises(SpecError, match=match) as info:
+        parse_spec(text, "s.toml")
+    assert "\n" not in str(info.value)
+    assert str(info.value).startswith("s.toml:")
+
+
+def test_absurd_unit_count_is_refused_with_the_limit_named():
+    with pytest.raises(LimitError, match="exceeds the limit of 65536"):
+        parse_spec("[devices]\nA = 1000000000", "s.toml")
+
+
+def test_unreadable_and_binary_files(tmp_path):
+    with pytest.raises(SpecError, match="cannot read"):
+        load_spec(tmp_path / "missing.toml")
+    bad = tmp_path / "bin.toml"
+    bad.write_bytes(b"\xff\xfe\x00")
+    with pytest.raises(SpecError, match="not a UTF-8 text file"):
+        load_spec(bad)
