@@ -2,9 +2,16 @@
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
+from placer.pattern import format_pattern
 from placer.score import Grade
 
-__all__ = ["format_grade", "format_table", "CAUTION"]
+if TYPE_CHECKING:
+    from placer.arrange import Arrangement
+    from placer.spec import Spec
+
+__all__ = ["format_grade", "format_table", "format_arrangement", "CAUTION"]
 
 CAUTION = ("Figures are model estimates under the assumptions above; confirm with the "
            "foundry's matching guidelines, extraction and the process's mismatch data.")
@@ -107,4 +114,36 @@ def format_grade(grade: Grade, max_pairs: int = 40) -> str:
             vt="" if a["a_vt_mv_um"] is None else f", A_VT {a['a_vt_mv_um']:g} mV um",
             ua=a["unit_area_um2"], src=a["spec"]))
     out.append(CAUTION)
+    return "\n".join(out)
+
+
+def format_arrangement(result: Arrangement, spec: Spec) -> str:
+    """The arrangement, how it was found, its scores beside the baselines, and its grade."""
+    k = result.keys
+    g = spec.gradient.linear_ppm_per_um
+    out = [format_pattern(result.pattern).rstrip(), ""]
+    bound = ("proven optimal" if result.bound_proven and k.linear_um <= result.linear_bound_um
+             + 1e-12 else f"lower bound {result.linear_bound_um:.4g} um")
+    out.append(f"Method {result.method}; {result.shape_reason}.")
+    out.append(f"Search: {result.elapsed_s:.2f} s, {result.iterations} move batches, "
+               f"stopped: {result.stopped}.")
+    out.append(f"Linear: worst pair centroid distance {_f(k.linear_um, 4)} um = "
+               f"{_f(k.linear_um * g)} ppm ({bound}).")
+    r = result.routing
+    breaks = "" if r.diffusion_breaks is None else f", {r.diffusion_breaks} diffusion breaks"
+    out.append(f"Routing: {r.total_tracks} row tracks, spanning trees {r.total_tree_um:.4g} um"
+               f"{breaks}.")
+    out.append("")
+    rows = [["optimised" if result.method not in result.baselines else result.method,
+             _f(k.linear_um, 4), _f(k.quadratic_ppm), _f(k.sigma_ppm), f"{k.edge_imbalance:.2f}",
+             str(k.tracks)]]
+    for name, b in result.baselines.items():
+        rows.append([name, _f(b.linear_um, 4), _f(b.quadratic_ppm), _f(b.sigma_ppm),
+                     f"{b.edge_imbalance:.2f}", str(b.tracks)])
+    out.append("Worst pair on the same core (linear um, quadratic ppm, correlated sigma ppm, "
+               "edge-share gap, row tracks)")
+    out.append(format_table(["arrangement", "linear", "quad", "sigma", "edge", "tracks"], rows))
+    out.append("")
+    out.append(format_grade(result.grade))
+    out.append("The pattern is a starting point, not a design-rule-clean layout.")
     return "\n".join(out)

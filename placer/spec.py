@@ -25,6 +25,8 @@ __all__ = [
     "CorrelatedSpec",
     "MismatchSpec",
     "MonteCarloSpec",
+    "SearchSpec",
+    "OBJECTIVES",
     "Spec",
     "default_spec",
     "load_spec",
@@ -104,6 +106,18 @@ class MonteCarloSpec:
     seed: int = 0
 
 
+OBJECTIVES = ("lexicographic", "weighted")
+
+
+@dataclass(frozen=True)
+class SearchSpec:
+    """How ``arrange`` ranks arrangements."""
+
+    objective: str = "lexicographic"
+    cancel_order: int = 2
+    tie_ppm: float = 0.01
+
+
 @dataclass(frozen=True)
 class Spec:
     """Everything a spec file says: devices, array shape and model assumptions."""
@@ -118,6 +132,7 @@ class Spec:
     correlated: CorrelatedSpec = field(default_factory=CorrelatedSpec)
     mismatch: MismatchSpec = field(default_factory=MismatchSpec)
     monte_carlo: MonteCarloSpec = field(default_factory=MonteCarloSpec)
+    search: SearchSpec = field(default_factory=SearchSpec)
     source: str = "<spec>"
 
     @property
@@ -151,13 +166,14 @@ def check_name(name: str, what: str) -> str:
 # Every table and key a spec may hold; anything else is refused with a suggestion.
 _SCHEMA: dict[str, tuple[str, ...]] = {
     "": ("name", "kind", "devices", "array", "unit", "gradient", "correlated", "mismatch",
-         "monte_carlo"),
+         "monte_carlo", "search"),
     "array": ("rows", "columns", "dummies", "pitch_um", "aspect"),
     "unit": ("width_um", "length_um"),
     "gradient": ("linear_ppm_per_um", "quadratic_ppm_per_um2", "order"),
     "correlated": ("sigma_ppm", "length_um", "kernel"),
     "mismatch": ("a_param_pct_um", "a_vt_mv_um"),
     "monte_carlo": ("samples", "seed"),
+    "search": ("objective", "cancel_order", "tie_ppm"),
 }
 
 
@@ -340,9 +356,17 @@ def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") 
         mc.integer("seed", 0, low=0) or 0,
     )
 
+    se = _Reader(source, "search", data.get("search", {}))
+    ds = SearchSpec()
+    search = SearchSpec(
+        se.choice("objective", ds.objective, OBJECTIVES),
+        se.integer("cancel_order", ds.cancel_order, low=1, high=4) or ds.cancel_order,
+        _num(se, "tie_ppm", ds.tie_ppm),
+    )
+
     return Spec(name=name, devices=tuple(names), counts=tuple(counts), kind=kind, array=array,
                 unit=unit, gradient=gradient, correlated=correlated, mismatch=mismatch,
-                monte_carlo=monte_carlo, source=source)
+                monte_carlo=monte_carlo, search=search, source=source)
 
 
 def _num(reader: _Reader, key: str, default: float) -> float:

@@ -1,0 +1,156 @@
+"""Textbook arrangements for comparison and teaching, and a MILP moment-matching baseline."""
+
+from __future__ import annotations
+
+import time
+
+import numpy as np
+from numpy.typing import NDArray
+
+from placer.search import Problem, core_coords
+
+__all__ = ["BASELINES", "clustered", "interdigitated", "mirrored", "milp", "deal"]
+
+IntArray = NDArray[np.int64]
+
+
+def deal(counts: list[int] | tuple[int, ...], total: int | None = None) -> list[int]:
+    """Device sequence that spreads each device evenly (largest remainder, ties by index).
+
+    Examples
+    --------
+    >>> deal([2, 2])
+    [0, 1, 0, 1]
+    >>> deal([1, 2, 1])
+    [1, 0, 2, 1]
+    """
+    total = sum(counts) if total is None else total
+    given = [0] * len(counts)
+    out = []
+    for i in range(total):
+        d = max(range(len(counts)), key=lambda d: ((i + 1) * counts[d] / total - given[d]
+                                                   if given[d] < counts[d] else -1e9, -d))
+        given[d] += 1
+        out.append(d)
+    return out
+
+
+def _fill(prob: Problem, sequence: list[int]) -> IntArray:
+    assign = np.full(prob.n_slots, -1, dtype=np.int64)
+    assign[:len(sequence)] = sequence
+    return assign
+
+
+def clustered(prob: Problem) -> IntArray:
+    """Each device's units contiguous, in reading order: the arrangement to avoid."""
+    return _fill(prob, [d for d, n in enumerate(prob.counts) for _ in range(n)])
+
+
+def interdigitated(prob: Problem) -> IntArray:
+    """Plain interdigitation A B A B ... in reading order, devices spread by their counts."""
+    return _fill(prob, deal(prob.counts))
+
+
+def mirrored(prob: Problem) -> IntArray:
+    """Interdigitated half mirrored through the core centre (A B B A ...).
+
+    Half of each device's units are dealt over the first half of the slots in reading
+    order; the point reflection of that half fills the second half; odd units left over
+    take the middle slots.
+    """
+    n = prob.n_slots
+    half = [c // 2 for c in prob.counts]
+    seq = deal(half)
+    assign = np.full(n, -1, dtype=np.int64)
+    for i, d in enumerate(seq):
+        assign[i] = d
+        assign[n - 1 - i] = d
+    rest = [d for d, c in enumerate(prob.counts) for _ in range(c % 2)]
+    free = [s for s in np.argsort(np.abs(np.arange(n) - (n - 1) / 2), kind="stable")
+            if assign[s] < 0]
+    for s, d in zip(free, rest, strict=False):
+        assign[s] = d
+    return assign
+
+
+def milp(prob: Problem, time_limit_s: float = 60.0) -> tuple[IntArray, dict[str, float]]:
+    """Moment matching as a mixed-integer linear program, solved with scipy's HiGHS.
+
+    Binary x[s, d] puts device d (or the dummy, d = D) on slot s. For each device and each
+    first- and second-order monomial m of the slot positions, slack variables measure
+    |sum_s x[s, d] m_s - n_d * target_m| where the target is the core's mean monomial;
+    the objective weights the first-order slacks 1000 times the second-order ones, each
+    divided by n_d (a centroid, not a sum). Returns the assignment and solver facts.
+    """
+    from scipy.optimize import Bounds, LinearConstraint
+    from scipy.optimize import milp as scipy_milp
+    from scipy.sparse import coo_matrix, vstack
+
+    t0 = time.monotonic()
+    u, v = core_coords(prob.rows, prob.cols)
+    hx, hy = prob.pitch_um[0] / 2, prob.pitch_um[1] / 2
+    mono = np.column_stack([u * hx, v * hy, (u * hx) ** 2, u * v * hx * hy, (v * hy) ** 2])
+    target = mono.mean(axis=0)
+    target[:2] = 0.0
+    n_slots, n_dev = prob.n_slots, prob.n_dev
+    counts = [*prob.counts, n_slots - sum(prob.counts)]
+    cols = n_dev + 1
+    n_x = n_slots * cols
+    n_e = n_dev * 5 * 2
+    xi = np.arange(n_x).reshape(n_slots, cols)
+
+    rows = []
+    # one device (or dummy) per slot
+    r = np.repeat(np.arange(n_slots), cols)
+    rows.append((coo_matrix((np.ones(n_x), (r, xi.ravel())), shape=(n_slots, n_x + n_e)),
+                 np.ones(n_slots), np.ones(n_slots)))
+    # unit counts
+    r = np.tile(np.arange(cols), n_slots)
+    rows.append((coo_matrix((np.ones(n_x), (r, xi.ravel())), shape=(cols, n_x + n_e)),
+                 np.array(counts, float), np.array(counts, float)))
+    # moment deviations: sum_s x m - e+ + e- = n_d * target
+    data: list[float] = []
+    ri: list[int] = []
+    ci: list[int] = []
+    rhs = []
+    k = 0
+    for d in range(n_dev):
+        for j in range(5):
+            data.extend(mono[:, j])
+            ri.extend([k] * n_slots)
+            ci.extend(xi[:, d])
+            e = n_x + 2 * (d * 5 + j)
+            data.extend([-1.0, 1.0])
+            ri.extend([k, k])
+            ci.extend([e, e + 1])
+            rhs.append(prob.counts[d] * target[j])
+            k += 1
+    rows.append((coo_matrix((data, (ri, ci)), shape=(k, n_x + n_e)), np.array(rhs),
+                 np.array(rhs)))
+    a = vstack([m for m, _, _ in rows]).tocsr()
+    lb = np.concatenate([lo for _, lo, _ in rows])
+    ub = np.concatenate([hi for _, _, hi in rows])
+    c = np.zeros(n_x + n_e)
+    for d in range(n_dev):
+        for j in range(5):
+            e = n_x + 2 * (d * 5 + j)
+            c[e:e + 2] = (1000.0 if j < 2 else 1.0) / prob.counts[d]
+    integrality = np.concatenate([np.ones(n_x), np.zeros(n_e)])
+    bounds = Bounds(np.zeros(n_x + n_e), np.concatenate([np.ones(n_x),
+                                                          np.full(n_e, np.inf)]))
+    res = scipy_milp(c, constraints=LinearConstraint(a, lb, ub), integrality=integrality,
+                     bounds=bounds, options={"time_limit": max(time_limit_s, 0.1),
+                                             "disp": False})
+    facts = {"status": float(res.status), "elapsed_s": time.monotonic() - t0,
+             "objective": float(res.fun) if res.x is not None else float("nan")}
+    if res.x is None:
+        return interdigitated(prob), facts
+    x = res.x[:n_x].reshape(n_slots, cols)
+    choice = np.argmax(x, axis=1)
+    assign = np.where(choice == n_dev, -1, choice).astype(np.int64)
+    if not np.array_equal(np.bincount(assign[assign >= 0], minlength=n_dev), prob.counts):
+        return interdigitated(prob), facts
+    return assign, facts
+
+
+BASELINES = {"clustered": clustered, "interdigitated": interdigitated, "mirrored": mirrored}

@@ -1,0 +1,136 @@
+"""Routing-effort and diffusion estimates of a pattern (no geometry beyond the slot grid)."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+from scipy.sparse.csgraph import minimum_spanning_tree
+from scipy.spatial.distance import pdist, squareform
+
+from placer.pattern import Pattern, unit_positions
+
+__all__ = ["Routing", "estimate_routing", "row_tracks", "diffusion_breaks", "orient_row"]
+
+
+@dataclass(frozen=True)
+class Routing:
+    """Routing effort: tracks per row, and per device its half-perimeter and tree length."""
+
+    row_tracks: tuple[int, ...]
+    total_tracks: int
+    half_perimeter_um: dict[str, float]
+    tree_length_um: dict[str, float]
+    total_tree_um: float
+    diffusion_breaks: int | None
+
+
+def row_tracks(ids: NDArray[np.int_]) -> NDArray[np.int_]:
+    """Distinct device nets in each row: one horizontal track per net.
+
+    Examples
+    --------
+    >>> row_tracks(np.array([[0, 1, 1, -1], [2, 2, 2, 2]])).tolist()
+    [2, 1]
+    """
+    n_dev = int(ids.max()) + 1 if ids.max() >= 0 else 0
+    present = np.zeros((ids.shape[0], max(n_dev, 1)), dtype=bool)
+    r, c = np.nonzero(ids >= 0)
+    present[r, ids[r, c]] = True
+    return present.sum(axis=1).astype(int)
+
+
+def _terminals(device: int, mark: int) -> tuple[int, int]:
+    """(left, right) net of a finger: -1 is the shared source, d the drain of device d."""
+    return (-1, device) if mark >= 0 else (device, -1)
+
+
+def orient_row(row: NDArray[np.int_], balance: dict[int, int] | None = None
+               ) -> tuple[list[int], int]:
+    """Orientations (+1 '>', -1 '<') for one MOS row that need the fewest diffusion breaks.
+
+    Neighbouring fingers share diffusion where their facing terminals are the same net:
+    two sources (a mirror's common source) or the drain of the same device. Dummies and
+    empty slots break the diffusion on their own and constrain nothing. Among equally
+    good choices the one that evens out each device's count of '>' and '<' (running tally
+    in ``balance``) wins.
+
+    Examples
+    --------
+    >>> orient_row(np.array([0, 1, 1, 0]))
+    ([-1, 1, -1, 1], 0)
+    """
+    balance = {} if balance is None else balance
+    n = len(row)
+    inf = 1 << 30
+    # cost[i][o]: fewest breaks up to finger i with orientation o (index 0: '<', 1: '>')
+    cost = [[0, 0] for _ in range(n)]
+    back = [[-1, -1] for _ in range(n)]
+    for i in range(n):
+        d = int(row[i])
+        if d < 0:
+            best = min(cost[i - 1]) if i else 0
+            cost[i] = [best, best]
+            back[i] = [int(np.argmin(cost[i - 1])) if i else -1] * 2
+            continue
+        for o in (0, 1):
+            if i == 0 or row[i - 1] < 0:
+                prev = min(cost[i - 1]) if i else 0
+                cost[i][o] = prev
+                back[i][o] = int(np.argmin(cost[i - 1])) if i else -1
+                continue
+            left = _terminals(d, 1 if o else -1)[0]
+            options = []
+            for p in (0, 1):
+                right = _terminals(int(row[i - 1]), 1 if p else -1)[1]
+                options.append(cost[i - 1][p] + (0 if right == left else 1))
+            p = int(np.argmin(options))
+            cost[i][o] = options[p] if options[p] < inf else inf
+            back[i][o] = p
+    # trace back, preferring the orientation that evens out the tally at each tie
+    marks = [0] * n
+    o = int(np.argmin(cost[-1]))
+    if cost[-1][0] == cost[-1][1] and row[-1] >= 0:
+        o = 1 if balance.get(int(row[-1]), 0) <= 0 else 0
+    for i in range(n - 1, -1, -1):
+        if row[i] >= 0:
+            marks[i] = 1 if o else -1
+            balance[int(row[i])] = balance.get(int(row[i]), 0) + marks[i]
+        o = back[i][o] if back[i][o] >= 0 else 0
+    return marks, int(min(cost[-1]))
+
+
+def diffusion_breaks(ids: NDArray[np.int_], orient: NDArray[np.int8]) -> int:
+    """Diffusion breaks a MOS pattern needs between neighbouring device fingers."""
+    breaks = 0
+    for row, marks in zip(ids, orient, strict=True):
+        for i in range(1, len(row)):
+            a, b = int(row[i - 1]), int(row[i])
+            if a < 0 or b < 0:
+                continue
+            if _terminals(a, int(marks[i - 1]))[1] != _terminals(b, int(marks[i]))[0]:
+                breaks += 1
+    return breaks
+
+
+def estimate_routing(pattern: Pattern, pitch_um: tuple[float, float], mos: bool) -> Routing:
+    """Tracks per row, half-perimeter and spanning-tree length per device, breaks for MOS."""
+    xy, dev = unit_positions(pattern, pitch_um)
+    tracks = row_tracks(pattern.ids)
+    hp: dict[str, float] = {}
+    tree: dict[str, float] = {}
+    for d, name in enumerate(pattern.devices):
+        pts = xy[dev == d]
+        span = pts.max(axis=0) - pts.min(axis=0)
+        hp[name] = float(span.sum())
+        if len(pts) > 1:
+            # duplicate points cannot occur (one unit per slot), so zero = no edge is safe
+            tree[name] = float(minimum_spanning_tree(squareform(pdist(pts))).sum())
+        else:
+            tree[name] = 0.0
+    return Routing(
+        row_tracks=tuple(int(t) for t in tracks), total_tracks=int(tracks.sum()),
+        half_perimeter_um=hp, tree_length_um=tree, total_tree_um=float(sum(tree.values())),
+        diffusion_breaks=diffusion_breaks(pattern.ids, pattern.orient) if mos else None,
+    )

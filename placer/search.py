@@ -1,0 +1,759 @@
+"""Seeded, deterministic search for gradient-cancelling assignments of units to core slots.
+
+The core is a rows x columns grid of slots; an assignment gives each slot a device id or
+``-1`` (a dummy). Positions are kept as integers -- twice the offset from the core centre
+in pitches -- so every moment sum is an exact integer and "zero linear error" means
+exactly zero, not merely small.
+
+The optimiser works in stages, each on the key the objective ranks first:
+
+1. linear: a point-symmetric construction (each device on pairs of slots mirrored through
+   a centre, an odd device on the centre slot) cancels every odd moment by construction;
+   where no such construction fits, exhaustive enumeration (small cores) or annealing on
+   single swaps minimises the worst pair's centroid distance;
+2. quadratic (and higher even orders when asked): annealing with moves that swap whole
+   symmetric orbits, so the linear key cannot move, and single swaps checked against it;
+3. balance and dispersion: annealing on the edge-share imbalance, the correlated-field
+   sigma (exact, updated per swap from the covariance of the device means) and row
+   tracks, without giving back the keys fixed before.
+
+Moves are evaluated in batches with numpy; each accepted swap updates the moment sums
+in O(1) per component. The iteration budget depends only on the problem size, so the same
+seed always gives the same result; the time limit is only a safety cap, and a result cut
+by it is reported as such.
+
+References
+----------
+[1] S. Kirkpatrick, C. D. Gelatt, M. P. Vecchi, "Optimization by simulated annealing",
+    Science 220(4598), 671-680, 1983. doi:10.1126/science.220.4598.671
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from itertools import combinations
+from math import comb, factorial, prod
+
+import numpy as np
+from numpy.typing import NDArray
+
+from placer import model
+
+__all__ = [
+    "Problem",
+    "Keys",
+    "SearchOutcome",
+    "core_coords",
+    "symmetric_assignment",
+    "evaluate",
+    "search",
+    "EXHAUSTIVE_LIMIT",
+]
+
+IntArray = NDArray[np.int64]
+FloatArray = NDArray[np.float64]
+
+#: Cores with at most this many distinct assignments are searched exhaustively.
+EXHAUSTIVE_LIMIT = 60_000
+_BATCH = 48
+
+
+@dataclass(frozen=True)
+class Problem:
+    """What the search needs: counts, core shape, pitch and the objective's magnitudes."""
+
+    counts: tuple[int, ...]
+    rows: int
+    cols: int
+    pitch_um: tuple[float, float] = (1.0, 1.0)
+    linear_ppm_per_um: float = 10.0
+    quadratic_ppm_per_um2: float = 0.02
+    corr_sigma_ppm: float = 100.0
+    corr_length_um: float = 10.0
+    kernel: str = "exponential"
+    cancel_order: int = 2
+    objective: str = "lexicographic"
+    tie_ppm: float = 0.01
+    open_edge: tuple[bool, ...] | None = None
+
+    @property
+    def n_slots(self) -> int:
+        """Slots in the core."""
+        return self.rows * self.cols
+
+    @property
+    def n_dev(self) -> int:
+        """Devices."""
+        return len(self.counts)
+
+
+@dataclass(frozen=True)
+class Keys:
+    """Scores the search ranks by: worst pair of each term (um, ppm), routing tracks."""
+
+    linear_um: float
+    quadratic_ppm: float
+    higher: tuple[float, ...]
+    edge_imbalance: float
+    sigma_ppm: float
+    tracks: int
+
+    def ranked(self, tie_ppm: float) -> tuple[float, ...]:
+        """Lexicographic key: exact linear, then the others rounded to the tie size."""
+        def q(v: float) -> float:
+            return float(np.round(v / tie_ppm)) if tie_ppm > 0 else v
+        # higher orders are asked for explicitly: ranked exactly, not to the tie size
+        return (float(np.round(self.linear_um, 9)), q(self.quadratic_ppm),
+                *(float(np.round(h, 12)) for h in self.higher),
+                float(np.round(self.edge_imbalance, 6)),
+                q(self.sigma_ppm), float(self.tracks))
+
+
+@dataclass
+class SearchOutcome:
+    """The best assignment found, its keys, the linear bound and how the search ended."""
+
+    assign: IntArray
+    keys: Keys
+    linear_bound_um: float
+    bound_proven: bool
+    method: str
+    stopped: str = "converged"
+    elapsed_s: float = 0.0
+    iterations: int = 0
+    archive: list[tuple[IntArray, Keys]] = field(default_factory=list)
+
+
+def core_coords(rows: int, cols: int) -> tuple[IntArray, IntArray]:
+    """Doubled integer offsets (u, v) of each slot from the core centre, y pointing up.
+
+    Slot s = r * cols + c has u = 2c - (cols - 1), v = (rows - 1) - 2r.
+
+    Examples
+    --------
+    >>> core_coords(1, 4)[0].tolist()
+    [-3, -1, 1, 3]
+    """
+    r, c = np.divmod(np.arange(rows * cols), cols)
+    return (2 * c - (cols - 1)).astype(np.int64), ((rows - 1) - 2 * r).astype(np.int64)
+
+
+# ---------------------------------------------------------------- moments and keys
+
+class _Geometry:
+    """Per-slot monomials and the scales that turn integer sums into physical figures."""
+
+    def __init__(self, prob: Problem):
+        self.prob = prob
+        u, v = core_coords(prob.rows, prob.cols)
+        self.u, self.v = u, v
+        self.order = max(2, prob.cancel_order)
+        cols, scale, weight, orders = [], [], [], []
+        hx, hy = prob.pitch_um[0] / 2.0, prob.pitch_um[1] / 2.0
+        for k in range(1, self.order + 1):
+            for j in range(k + 1):
+                cols.append(u ** (k - j) * v ** j)
+                scale.append(hx ** (k - j) * hy ** j)
+                weight.append(comb(k, j))
+                orders.append(k)
+        self.mono = np.column_stack(cols).astype(np.float64)        # (S, C), exact integers
+        self.scale = np.array(scale)
+        self.weight = np.array(weight, dtype=float)
+        self.orders = np.array(orders)
+        self.n = np.array(prob.counts, dtype=np.int64)
+        n_dev = prob.n_dev
+        pairs = np.array(list(combinations(range(n_dev), 2)), dtype=np.int64).reshape(-1, 2)
+        self.pa: IntArray = pairs[:, 0]
+        self.pb: IntArray = pairs[:, 1]
+        radius = max(prob.rows * prob.pitch_um[1], prob.cols * prob.pitch_um[0]) / 2.0
+        self.radius = max(radius, 1e-9)
+        # precomputed factors of the pair differences (see terms)
+        n = self.n.astype(float)
+        self._na = n[self.pa, None]
+        self._nb = n[self.pb, None]
+        self._coef = (self.scale * np.sqrt(self.weight))[None, :] / (self._na * self._nb)
+        self._hq = 0.5 * prob.quadratic_ppm_per_um2
+        self._slices = {k: slice(int(np.argmax(self.orders == k)),
+                                 int(np.argmax(self.orders == k)) + k + 1)
+                        for k in range(1, self.order + 1)}
+        self._hk = {k: prob.quadratic_ppm_per_um2 / factorial(k) / self.radius ** (k - 2)
+                    for k in range(1, self.order + 1)}
+
+    def sums(self, assign: IntArray) -> FloatArray:
+        """Moment sums per device, with the dummies in an extra last row."""
+        out = np.zeros((self.prob.n_dev + 1, self.mono.shape[1]))
+        np.add.at(out, assign, self.mono)   # assign == -1 lands in the last row
+        return out
+
+    def terms(self, sums: FloatArray) -> tuple[FloatArray, FloatArray, FloatArray]:
+        """Smoothed worst-pair linear (um), quadratic (ppm) and higher-order keys.
+
+        ``sums`` has shape (..., n_dev + 1, C); the keys are the worst pair plus 5 % of the
+        mean pair, so the search also improves pairs that are not yet the worst. Sums hold
+        integers below 2**53, so the differences that make a key zero are exact.
+        """
+        pa, pb = self.pa, self.pb
+        if len(pa) == 0:
+            lead = sums.shape[:-2]
+            return np.zeros(lead), np.zeros(lead), np.zeros(lead + (self.order - 2,))
+        num = sums[..., pa, :] * self._nb - sums[..., pb, :] * self._na
+        delta = num * self._coef
+        sq = delta * delta
+        lin = np.sqrt(sq[..., 0] + sq[..., 1])
+        quad = self._hq * np.sqrt(sq[..., 2] + sq[..., 3] + sq[..., 4])
+        mean = 0.05 / len(pa)
+        lin_key = lin.max(-1) + mean * lin.sum(-1)
+        quad_key = quad.max(-1) + mean * quad.sum(-1)
+        hi = [(self._hk[k] * np.sqrt(sq[..., sl].sum(-1))).max(-1)
+              for k, sl in self._slices.items() if k >= 3]
+        higher = np.stack(hi, -1) if hi else np.zeros(lin_key.shape + (0,))
+        return lin_key, quad_key, higher
+
+    def worst(self, sums: FloatArray) -> tuple[float, float, tuple[float, ...]]:
+        """Worst-pair linear (um), quadratic (ppm) and higher-order figures, no smoothing."""
+        n, pa, pb = self.n, self.pa, self.pb
+        if len(pa) == 0:
+            return 0.0, 0.0, tuple(0.0 for _ in range(3, self.order + 1))
+        num = n[pb, None] * sums[pa] - n[pa, None] * sums[pb]
+        delta = num * (self.scale / (n[pa] * n[pb])[:, None])
+        sq = self.weight * delta * delta
+        lin = float(np.sqrt(sq[:, self.orders == 1].sum(-1)).max())
+        quad = float((0.5 * self.prob.quadratic_ppm_per_um2
+                      * np.sqrt(sq[:, self.orders == 2].sum(-1))).max())
+        hi = tuple(float((self.prob.quadratic_ppm_per_um2 / factorial(k)
+                          * np.sqrt(sq[:, self.orders == k].sum(-1))
+                          / self.radius ** (k - 2)).max())
+                   for k in range(3, self.order + 1))
+        return lin, quad, hi
+
+
+class _Field:
+    """Covariance of device means of the correlated field, kept up to date per swap."""
+
+    def __init__(self, prob: Problem, geo: _Geometry, assign: IntArray):
+        xy = np.column_stack([geo.u * prob.pitch_um[0] / 2.0, geo.v * prob.pitch_um[1] / 2.0])
+        diff = xy[:, None, :] - xy[None, :, :]
+        self.k = model.correlation(np.sqrt((diff * diff).sum(-1)), prob.corr_length_um,
+                                   prob.kernel)
+        n_dummy = int(np.sum(assign < 0))
+        self.n = np.array([*prob.counts, max(n_dummy, 1)], dtype=float)
+        self.sigma = prob.corr_sigma_ppm
+        self.pa, self.pb = geo.pa, geo.pb
+        self.reset(assign)
+
+    def reset(self, assign: IntArray) -> None:
+        e = np.zeros((len(assign), len(self.n)))
+        e[np.arange(len(assign)), assign] = 1.0 / self.n[assign]
+        self.g = self.k @ e                      # (S, D+1)
+        self.cov = e.T @ self.g                  # (D+1, D+1)
+
+    def worst(self, cov: FloatArray) -> FloatArray:
+        """Largest pair sigma (ppm) for covariance matrices of shape (..., D+1, D+1)."""
+        if len(self.pa) == 0:
+            return np.zeros(cov.shape[:-2])
+        var = (cov[..., self.pa, self.pa] + cov[..., self.pb, self.pb]
+               - 2.0 * cov[..., self.pa, self.pb])
+        return np.asarray(self.sigma * np.sqrt(np.maximum(var, 0.0)).max(-1))
+
+    def propose(self, a: IntArray, b: IntArray, s: IntArray, t: IntArray, s2: IntArray,
+                t2: IntArray) -> FloatArray:
+        """Covariance after device a gives slots (s, s2) to b for (t, t2), batched.
+
+        With d the signed indicator of the moved slots, e_a' = e_a + d/n_a and
+        e_b' = e_b - d/n_b, so only rows and columns a and b change: by g = d^T K E
+        and by q = d^T K d.
+        """
+        m = len(a)
+        idx = np.arange(m)
+        cov = np.broadcast_to(self.cov, (m, *self.cov.shape)).copy()
+        two = s2 >= 0
+        s2c, t2c = np.where(two, s2, s), np.where(two, t2, t)
+        w = two.astype(float)
+        k = self.k
+        g = self.g[t] - self.g[s] + w[:, None] * (self.g[t2c] - self.g[s2c])
+        q = (2.0 - 2.0 * k[s, t]) + w * (2.0 - 2.0 * k[s2c, t2c]
+                                         + 2.0 * k[t, t2c] + 2.0 * k[s, s2c]
+                                         - 2.0 * k[t, s2c] - 2.0 * k[s, t2c])
+        na, nb = self.n[a], self.n[b]
+        cov[idx, a, :] += g / na[:, None]
+        cov[idx, :, a] += g / na[:, None]
+        cov[idx, b, :] -= g / nb[:, None]
+        cov[idx, :, b] -= g / nb[:, None]
+        cov[idx, a, a] += q / na ** 2
+        cov[idx, b, b] += q / nb ** 2
+        cov[idx, a, b] -= q / (na * nb)
+        cov[idx, b, a] -= q / (na * nb)
+        return cov
+
+    def accept(self, a: int, b: int, s: int, t: int, s2: int, t2: int,
+               cov: FloatArray) -> None:
+        d = self.k[:, t] - self.k[:, s]
+        if s2 >= 0:
+            d = d + self.k[:, t2] - self.k[:, s2]
+        self.g[:, a] += d / self.n[a]
+        self.g[:, b] -= d / self.n[b]
+        self.cov = cov
+
+
+def _edge_imbalance(prob: Problem, assign: IntArray) -> float:
+    """Largest gap between a device's share of open-edge units and the overall share."""
+    if prob.open_edge is None or not any(prob.open_edge):
+        return 0.0
+    edge = np.array(prob.open_edge, dtype=bool)
+    dev = assign[assign >= 0]
+    n = np.bincount(dev, minlength=prob.n_dev)
+    e = np.bincount(assign[edge & (assign >= 0)], minlength=prob.n_dev)
+    return float(np.max(np.abs(e / n - e.sum() / n.sum())))
+
+
+def _tracks(prob: Problem, assign: IntArray) -> int:
+    grid = assign.reshape(prob.rows, prob.cols)
+    present = np.zeros((prob.rows, prob.n_dev + 1), dtype=bool)
+    present[np.repeat(np.arange(prob.rows), prob.cols), grid.ravel()] = True
+    return int(present[:, :prob.n_dev].sum())
+
+
+def evaluate(prob: Problem, assign: IntArray) -> Keys:
+    """All keys of one assignment (the search's own view; ``grade`` is the reference)."""
+    geo = _Geometry(prob)
+    lin, quad, hi = geo.worst(geo.sums(assign))
+    fld = _Field(prob, geo, assign) if prob.corr_sigma_ppm > 0 else None
+    sigma = float(fld.worst(fld.cov)) if fld is not None else 0.0
+    return Keys(lin, quad, hi, _edge_imbalance(prob, assign), sigma, _tracks(prob, assign))
+
+
+# ---------------------------------------------------------------- constructions
+
+def symmetric_assignment(prob: Problem) -> tuple[IntArray, IntArray] | None:
+    """A point-symmetric assignment and its partner map, or None if none fits.
+
+    Every device takes pairs of slots mirrored through a centre; a device with an odd count
+    takes the centre slot. Centres are tried from the core centre outward (half a pitch at
+    a time), slots whose mirror falls outside the core becoming dummies. Orbits are dealt
+    to devices by radius in proportion to their counts, a good start for the second moment.
+    """
+    u, v = core_coords(prob.rows, prob.cols)
+    odd = [d for d, n in enumerate(prob.counts) if n % 2]
+    if len(odd) > 1:
+        return None
+    spare = prob.n_slots - sum(prob.counts)
+    shifts = sorted(((du, dv) for du in range(-3, 4) for dv in range(-3, 4)),
+                    key=lambda s: (abs(s[0]) + abs(s[1]), abs(s[1]), s))
+    index = {(int(a), int(b)): i for i, (a, b) in enumerate(zip(u, v, strict=True))}
+    for du, dv in shifts:
+        partner = np.array([index.get((int(2 * du - a), int(2 * dv - b)), -1)
+                            for a, b in zip(u, v, strict=True)], dtype=np.int64)
+        fixed = np.nonzero(partner == np.arange(prob.n_slots))[0]
+        unpaired = int(np.sum(partner < 0))
+        if unpaired > spare or len(odd) > len(fixed):
+            continue
+        assign = np.full(prob.n_slots, -1, dtype=np.int64)
+        if odd:
+            assign[fixed[0]] = odd[0]
+        # orbits (pairs), nearest the centre first
+        seen: set[int] = set()
+        orbits = []
+        for s in range(prob.n_slots):
+            p = int(partner[s])
+            if p > s and s not in seen:
+                seen.update((s, p))
+                r2 = (u[s] - du) ** 2 + (v[s] - dv) ** 2
+                orbits.append((int(r2), s, p))
+        orbits.sort()
+        need = [n // 2 for n in prob.counts]
+        total = sum(need)
+        if total > len(orbits):
+            continue
+        # deal orbits by radius in proportion to counts (largest remainder first), so each
+        # device samples every radius; leftover orbits (outermost) stay dummies
+        given = [0] * len(need)
+        for i in range(total):
+            d = max(range(len(need)), key=lambda d: ((i + 1) * need[d] / total - given[d]
+                                                     if given[d] < need[d] else -1e9, -d))
+            given[d] += 1
+            _, s, p = orbits[i]
+            assign[s] = assign[p] = d
+        return assign, partner
+    return None
+
+
+def _multiset_assignments(counts: list[int], n_slots: int) -> IntArray:
+    """Every distinct assignment of the counts (dummies last) to n_slots slots."""
+    out = np.full((1, n_slots), -2, dtype=np.int64)
+    for d, n in enumerate(counts):
+        rows = []
+        for row in out:
+            free = np.nonzero(row == -2)[0]
+            for pos in combinations(free, n):
+                r = row.copy()
+                r[list(pos)] = d
+                rows.append(r)
+        out = np.array(rows)
+    out[out == -2] = -1
+    return out
+
+
+def _n_assignments(counts: list[int], n_slots: int) -> int:
+    rest = n_slots - sum(counts)
+    return factorial(n_slots) // (prod(factorial(c) for c in counts) * factorial(rest))
+
+
+def _exhaustive(prob: Problem, geo: _Geometry
+                ) -> tuple[IntArray, Keys, list[tuple[IntArray, Keys]]]:
+    """Best assignment of all, ranked lexicographically by (linear, quadratic, ..., tracks)."""
+    counts = list(prob.counts)
+    every = _multiset_assignments(counts, prob.n_slots)
+    sums = np.zeros((len(every), prob.n_dev + 1, geo.mono.shape[1]))
+    for d in range(prob.n_dev + 1):
+        mask = (every == (d if d < prob.n_dev else -1)).astype(np.float64)
+        sums[:, d] = mask @ geo.mono
+    n, pa, pb = geo.n, geo.pa, geo.pb
+    if len(pa):
+        num = n[pb, None] * sums[:, pa] - n[pa, None] * sums[:, pb]
+        delta = num * (geo.scale / (n[pa] * n[pb])[:, None])
+        sq = geo.weight * delta * delta
+        norms = [np.sqrt(sq[..., geo.orders == k].sum(-1)).max(-1)
+                 for k in range(1, geo.order + 1)]
+    else:
+        norms = [np.zeros(len(every)) for _ in range(geo.order)]
+    lin = norms[0]
+    # rank by linear, then quadratic, then the higher orders asked for (exact zeros first)
+    order = np.lexsort(tuple(np.round(x, 9) for x in reversed(norms)))
+    best_lin = np.round(lin[order[0]], 9)
+    # among the linear optimum and the best quadratic ties, rank the rest fully
+    short = [i for i in order[:400] if np.round(lin[i], 9) == best_lin]
+    ranked = sorted(((evaluate(prob, every[i]), i) for i in short),
+                    key=lambda ki: (ki[0].ranked(prob.tie_ppm), ki[1]))
+    keys, i = ranked[0]
+    archive = [(every[j], k) for k, j in ranked[:50]]
+    return every[i], keys, archive
+
+
+def _linear_bound(prob: Problem) -> float:
+    """A bound no assignment can beat: two single-unit devices never share a centroid."""
+    singles = sum(1 for n in prob.counts if n == 1)
+    if singles >= 2:
+        return float(min(prob.pitch_um[0] if prob.cols > 1 else np.inf,
+                         prob.pitch_um[1] if prob.rows > 1 else np.inf))
+    return 0.0
+
+
+# ---------------------------------------------------------------- annealing
+
+class _Anneal:
+    """Batched annealing over swap moves with exact integer moment updates."""
+
+    def __init__(self, prob: Problem, geo: _Geometry, assign: IntArray,
+                 rng: np.random.Generator, deadline: float,
+                 progress: Callable[[str, Keys], None] | None):
+        self.prob, self.geo, self.rng = prob, geo, rng
+        self.assign = assign.copy()
+        self.sums = geo.sums(self.assign)
+        self.deadline = deadline
+        self.progress = progress
+        self.iterations = 0
+        self.stopped = "converged"
+
+    def _moves(self, partner: IntArray | None, orbit_share: float
+               ) -> tuple[IntArray, IntArray, IntArray, IntArray, IntArray, IntArray]:
+        """Random moves: device a gives slots (s, s2) to b and takes (t, t2); s2 = -1: none."""
+        rng, asg, n = self.rng, self.assign, self.prob.n_slots
+        s = rng.integers(0, n, _BATCH)
+        t = rng.integers(0, n, _BATCH)
+        s2 = np.full(_BATCH, -1, dtype=np.int64)
+        t2 = np.full(_BATCH, -1, dtype=np.int64)
+        if partner is not None and orbit_share > 0:
+            use = rng.random(_BATCH) < orbit_share
+            ps, pt = partner[s], partner[t]
+            ok = (use & (ps >= 0) & (pt >= 0) & (ps != s) & (pt != t) & (ps != t)
+                  & (asg[np.maximum(ps, 0)] == asg[s]) & (asg[np.maximum(pt, 0)] == asg[t]))
+            s2 = np.where(ok, ps, -1)
+            t2 = np.where(ok, pt, -1)
+        a, b = asg[s], asg[t]
+        valid = a != b
+        return s[valid], t[valid], s2[valid], t2[valid], a[valid], b[valid]
+
+    def _delta(self, s: IntArray, t: IntArray, s2: IntArray, t2: IntArray) -> FloatArray:
+        mono = self.geo.mono
+        d = mono[t] - mono[s]
+        two = s2 >= 0
+        d[two] += mono[t2[two]] - mono[s2[two]]
+        return d
+
+    def _apply(self, s: int, t: int, s2: int, t2: int, a: int, b: int, d: FloatArray) -> None:
+        self.assign[s], self.assign[t] = b, a
+        if s2 >= 0:
+            self.assign[s2], self.assign[t2] = b, a
+        self.sums[a] += d
+        self.sums[b] -= d
+
+    def _stop(self) -> bool:
+        if time.monotonic() > self.deadline:
+            self.stopped = "time limit"
+            return True
+        return False
+
+    def run_moments(self, stage: str, budget: int, partner: IntArray | None,
+                    lin_cap: float | None, orbit_share: float = 0.0) -> None:
+        """Anneal the linear key (lin_cap None) or the quadratic keys under a linear cap."""
+        geo = self.geo
+        idx_a = np.arange(_BATCH)
+
+        weighted = self.prob.objective == "weighted"
+        g_lin = self.prob.linear_ppm_per_um
+
+        def energy(sums: FloatArray) -> FloatArray:
+            lin, quad, hi = geo.terms(sums)
+            if weighted:
+                return lin * g_lin + quad + (hi * (1e-3 ** np.arange(1, hi.shape[-1] + 1))).sum(-1)
+            if lin_cap is None:
+                return lin
+            e = quad + (hi * (1e-3 ** np.arange(1, hi.shape[-1] + 1))).sum(-1)
+            return np.where(lin <= lin_cap * (1 + 1e-12) + 1e-15, e, np.inf)
+
+        cur = float(energy(self.sums))
+        best, best_assign, best_sums = cur, self.assign.copy(), self.sums.copy()
+        if best == 0.0:
+            return
+        temp0 = None
+        stale = 0
+        patience = max(400, 3 * self.prob.n_slots)
+        for it in range(budget):
+            self.iterations += 1
+            if it % 64 == 0 and self._stop():
+                break
+            s, t, s2, t2, a, b = self._moves(partner, orbit_share)
+            if len(s) == 0:
+                continue
+            d = self._delta(s, t, s2, t2)
+            m = len(s)
+            trial = np.broadcast_to(self.sums, (m, *self.sums.shape)).copy()
+            trial[idx_a[:m], a] += d
+            trial[idx_a[:m], b] -= d
+            e = energy(trial)
+            i = int(np.argmin(e))
+            de = float(e[i]) - cur
+            if not np.isfinite(e[i]):
+                continue
+            if temp0 is None:
+                pos = e[np.isfinite(e)] - cur
+                pos = pos[pos > 0]
+                temp0 = float(np.median(pos)) if len(pos) else max(abs(cur), 1e-12)
+            frac = it / max(budget - 1, 1)
+            temp = temp0 * (1e-4 ** frac)
+            if de <= 0 or self.rng.random() < np.exp(-de / max(temp, 1e-300)):
+                self._apply(int(s[i]), int(t[i]), int(s2[i]), int(t2[i]), int(a[i]), int(b[i]),
+                            d[i])
+                cur = float(e[i])
+            if cur < best - 1e-15:
+                best, best_assign, best_sums = cur, self.assign.copy(), self.sums.copy()
+                stale = 0
+                if self.progress:
+                    self.progress(stage, evaluate_light(self.prob, geo, best_assign, best_sums))
+                if best == 0.0:
+                    break
+            else:
+                stale += 1
+                if stale > patience and frac > 0.3:
+                    break
+        self.assign, self.sums = best_assign, best_sums
+
+    def run_balance(self, budget: int, lin_cap: float, quad_cap: float,
+                    partner: IntArray | None, orbit_share: float) -> None:
+        """Anneal edge balance, correlated sigma and tracks without losing the moment keys."""
+        prob, geo = self.prob, self.geo
+        fld = _Field(prob, geo, self.assign)
+        edge = np.array(prob.open_edge, dtype=float) if prob.open_edge else None
+        rows = np.arange(prob.n_slots) // prob.cols
+        n_dev = prob.n_dev
+        counts = np.array(prob.counts, dtype=float)
+        idx_a = np.arange(_BATCH)
+        sig_scale = max(float(fld.worst(fld.cov)), 1e-9)
+        row_counts = np.zeros((prob.rows, n_dev + 1), dtype=np.int64)
+        np.add.at(row_counts, (rows, self.assign), 1)
+        edge_counts = np.zeros(n_dev + 1)
+        if edge is not None:
+            np.add.at(edge_counts, self.assign, edge)
+
+        def scores(cov: FloatArray, rc: IntArray, ec: FloatArray) -> FloatArray:
+            e = fld.worst(cov)
+            if edge is not None:
+                share = ec[..., :n_dev] / counts
+                total = ec[..., :n_dev].sum(-1, keepdims=True) / counts.sum()
+                e = e + 10.0 * sig_scale * np.abs(share - total).max(-1)
+            tracks = (rc[..., :n_dev] > 0).sum((-1, -2))
+            return np.asarray(e + prob.tie_ppm * tracks / max(prob.rows, 1))
+
+        cur = float(scores(fld.cov, row_counts, edge_counts))
+        best, best_assign = cur, self.assign.copy()
+        temp0 = None
+        stale = 0
+        patience = max(400, 3 * prob.n_slots)
+        for it in range(budget):
+            self.iterations += 1
+            if it % 64 == 0 and self._stop():
+                break
+            s, t, s2, t2, a, b = self._moves(partner, orbit_share)
+            if len(s) == 0:
+                continue
+            m = len(s)
+            d = self._delta(s, t, s2, t2)
+            trial = np.broadcast_to(self.sums, (m, *self.sums.shape)).copy()
+            trial[idx_a[:m], a] += d
+            trial[idx_a[:m], b] -= d
+            lin, quad, _ = geo.terms(trial)
+            if prob.objective == "weighted":
+                ok = lin * prob.linear_ppm_per_um + quad <= quad_cap
+            else:
+                ok = (lin <= lin_cap * (1 + 1e-12) + 1e-15) & (quad <= quad_cap)
+            if not ok.any():
+                continue
+            sel = np.nonzero(ok)[0]
+            s, t, s2, t2, a, b, d = s[sel], t[sel], s2[sel], t2[sel], a[sel], b[sel], d[sel]
+            m = len(sel)
+            cov = fld.propose(a, b, s, t, s2, t2)
+            rc = np.broadcast_to(row_counts, (m, *row_counts.shape)).copy()
+            ec = np.broadcast_to(edge_counts, (m, n_dev + 1)).copy()
+            for slots, sign_a in ((s, -1), (t, 1), (s2, -1), (t2, 1)):
+                use = slots >= 0
+                k = idx_a[:m][use]
+                r = rows[slots[use]]
+                np.add.at(rc, (k, r, a[use]), sign_a)
+                np.add.at(rc, (k, r, b[use]), -sign_a)
+                if edge is not None:
+                    w = edge[slots[use]]
+                    np.add.at(ec, (k, a[use]), sign_a * w)
+                    np.add.at(ec, (k, b[use]), -sign_a * w)
+            e = scores(cov, rc, ec)
+            i = int(np.argmin(e))
+            de = float(e[i]) - cur
+            if temp0 is None:
+                pos = e - cur
+                pos = pos[pos > 0]
+                temp0 = float(np.median(pos)) if len(pos) else max(abs(cur), 1e-12)
+            frac = it / max(budget - 1, 1)
+            temp = temp0 * (1e-4 ** frac)
+            if de <= 0 or self.rng.random() < np.exp(-de / max(temp, 1e-300)):
+                fld.accept(int(a[i]), int(b[i]), int(s[i]), int(t[i]), int(s2[i]), int(t2[i]),
+                           cov[i])
+                row_counts, edge_counts = rc[i], ec[i]
+                self._apply(int(s[i]), int(t[i]), int(s2[i]), int(t2[i]), int(a[i]), int(b[i]),
+                            d[i])
+                cur = float(e[i])
+            if cur < best - 1e-12:
+                best, best_assign = cur, self.assign.copy()
+                stale = 0
+            else:
+                stale += 1
+                if stale > patience and frac > 0.3:
+                    break
+        self.assign = best_assign
+        self.sums = geo.sums(best_assign)
+
+
+def evaluate_light(prob: Problem, geo: _Geometry, assign: IntArray, sums: FloatArray) -> Keys:
+    """Moment keys only (for progress reports during the moment stages)."""
+    lin, quad, hi = geo.worst(sums)
+    return Keys(lin, quad, hi, 0.0, float("nan"), _tracks(prob, assign))
+
+
+# ---------------------------------------------------------------- driver
+
+def search(prob: Problem, *, seed: int = 0, time_limit_s: float = 30.0, starts: int = 2,
+           progress: Callable[[str, Keys], None] | None = None) -> SearchOutcome:
+    """Find the best assignment of ``prob`` under its objective.
+
+    Stops when every stage has converged or its deterministic budget is spent, or at the
+    time limit, or on KeyboardInterrupt; the best assignment so far is returned each time.
+    """
+    t0 = time.monotonic()
+    deadline = t0 + time_limit_s
+    geo = _Geometry(prob)
+    rng = np.random.default_rng(seed)
+    bound = _linear_bound(prob)
+
+    if _n_assignments(list(prob.counts), prob.n_slots) <= EXHAUSTIVE_LIMIT:
+        assign, keys, found = _exhaustive(prob, geo)
+        return SearchOutcome(assign, keys, keys.linear_um, True, "exhaustive",
+                             elapsed_s=time.monotonic() - t0, archive=found)
+
+    sym = symmetric_assignment(prob)
+    budget = int(np.clip(30 * prob.n_slots, 3000, 30000))
+    best: tuple[tuple[float, ...], IntArray, Keys] | None = None
+    archive: list[tuple[IntArray, Keys]] = []
+    stopped = "converged"
+    iterations = 0
+    try:
+        for start in range(starts):
+            sub = np.random.default_rng(rng.integers(1 << 62))
+            if sym is not None:
+                assign, partner = sym
+                if start:
+                    assign = _shuffle_orbits(assign, partner, sub)
+            else:
+                partner = None
+                assign = _greedy_start(prob, sub)
+            ann = _Anneal(prob, geo, assign, sub, deadline, progress)
+            weighted = prob.objective == "weighted"
+            if sym is None and not weighted:
+                ann.run_moments("linear", budget, None, None)
+            lin_cap = float(geo.terms(ann.sums)[0])
+            share = 0.5 if weighted and sym is not None else (1.0 if sym is not None else 0.0)
+            ann.run_moments("quadratic" if not weighted else "weighted", budget, partner,
+                            lin_cap, share)
+            lin_key, quad_key = (float(x) for x in geo.terms(ann.sums)[:2])
+            if weighted:
+                quad_cap = lin_key * prob.linear_ppm_per_um + quad_key + prob.tie_ppm
+            else:
+                quad_cap = quad_key + prob.tie_ppm
+            if prob.corr_sigma_ppm > 0 or prob.open_edge:
+                ann.run_balance(budget // 2, lin_cap, quad_cap, partner, share)
+            iterations += ann.iterations
+            keys = evaluate(prob, ann.assign)
+            rank = keys.ranked(prob.tie_ppm)
+            archive.append((ann.assign.copy(), keys))
+            if best is None or rank < best[0]:
+                best = (rank, ann.assign.copy(), keys)
+            if ann.stopped != "converged":
+                stopped = ann.stopped
+                break
+    except KeyboardInterrupt:
+        stopped = "interrupted"
+        if best is None:
+            assign = sym[0] if sym is not None else _greedy_start(prob, rng)
+            best = ((), assign, evaluate(prob, assign))
+    assert best is not None
+    _, assign, keys = best
+    proven = keys.linear_um <= bound + 1e-9 * max(1.0, bound)
+    return SearchOutcome(assign, keys, bound if not proven else keys.linear_um, proven,
+                         "symmetric orbits + annealing" if sym is not None else "annealing",
+                         stopped=stopped, elapsed_s=time.monotonic() - t0,
+                         iterations=iterations, archive=archive)
+
+
+def _shuffle_orbits(assign: IntArray, partner: IntArray, rng: np.random.Generator) -> IntArray:
+    """Another symmetric start: the same orbits dealt to devices in a random order."""
+    out = assign.copy()
+    orbits = [s for s in range(len(assign)) if partner[s] > s]
+    labels = [assign[s] for s in orbits]
+    rng.shuffle(labels)
+    for s, d in zip(orbits, labels, strict=True):
+        out[s] = out[partner[s]] = d
+    return out
+
+
+def _greedy_start(prob: Problem, rng: np.random.Generator) -> IntArray:
+    """Units dealt over slots from the centre outward in proportion to counts."""
+    u, v = core_coords(prob.rows, prob.cols)
+    order = np.lexsort((rng.random(prob.n_slots), u * u + v * v))
+    total = sum(prob.counts)
+    given = [0] * prob.n_dev
+    assign = np.full(prob.n_slots, -1, dtype=np.int64)
+    for i in range(total):
+        d = max(range(prob.n_dev), key=lambda d: ((i + 1) * prob.counts[d] / total - given[d]
+                                                  if given[d] < prob.counts[d] else -1e9, -d))
+        given[d] += 1
+        assign[order[i]] = d
+    return assign
