@@ -12,17 +12,18 @@ from pathlib import Path
 from typing import Any, TypeVar
 
 import click
+import numpy as np
 
 from placer import __version__
 from placer.arrange import METHODS
 from placer.arrange import arrange as run_arrange
 from placer.errors import PlacerError
 from placer.output import atomic_write, prepare_out_dir
-from placer.pattern import check_against_spec, format_pattern, read_pattern
-from placer.report import format_arrangement, format_grade
-from placer.score import grade_pattern
+from placer.pattern import Pattern, check_against_spec, format_pattern, read_pattern
+from placer.report import format_arrangement, format_grade, format_table
+from placer.score import Grade, grade_pattern
 from placer.search import Keys
-from placer.spec import Spec, default_spec, load_spec
+from placer.spec import NAME_RE, Spec, default_spec, load_spec
 
 __all__ = ["cli"]
 
@@ -133,7 +134,7 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
             method: str, quiet: bool, force: bool) -> None:
     """Search for the arrangement of SPEC's devices with the least gradient error."""
     spec = load_spec(spec_path)
-    names = ["pattern.txt", "report.json",
+    names = ["pattern.txt", "report.json", "pattern.gds", "pattern.png", "pattern.svg",
              *(f"candidate-{i}.txt" for i in range(1, n_candidates + 1))]
     prepare_out_dir(out_dir, names, force)
     progress = _Progress(not quiet and sys.stderr.isatty())
@@ -157,6 +158,102 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
             f"{spec.name} candidate {i}: systematic {cand.systematic_ppm:.6g} ppm, "
             f"routing {cand.routing_um:.6g} um"]))
     atomic_write(out_dir / "report.json", json.dumps(report, indent=2) + "\n")
+    _draw_outputs(result.pattern, spec, result.grade, out_dir, "pattern", None, None)
     click.echo(format_arrangement(result, spec))
-    click.echo(f"\nWrote {out_dir / 'pattern.txt'}, {out_dir / 'report.json'}"
-               + (f" and {len(result.candidates)} candidates" if result.candidates else ""))
+    click.echo(f"\nWrote {out_dir}/pattern.txt, report.json, pattern.gds, pattern.png, "
+               "pattern.svg" + (f" and {len(result.candidates)} candidates"
+                                if result.candidates else ""))
+
+
+def _draw_outputs(pattern: Pattern, spec: Spec, grade: Grade, out_dir: Path, stem: str,
+                  template: Path | None, layers: Path | None,
+                  gradient: bool = False) -> list[Path]:
+    """Write <stem>.gds, .png and .svg; every file atomically."""
+    from placer.gds import build_library, load_layers, load_template, write_gds
+    from placer.plot import save_preview
+
+    lib = build_library(pattern, spec, load_template(spec, template), load_layers(layers))
+    paths = [out_dir / f"{stem}.gds", out_dir / f"{stem}.png", out_dir / f"{stem}.svg"]
+    write_gds(lib, paths[0])
+    g = spec.gradient.linear_ppm_per_um
+    field = None
+    if gradient and grade.pairs:
+        w = grade.worst("linear_ppm")
+        assert w is not None
+        angle = np.radians(w.linear_worst_angle_deg)
+        field = (g * float(np.cos(angle)), g * float(np.sin(angle)))
+    save_preview(pattern, spec.array.pitch_um, grade, spec.name, paths[1:], gradient=field)
+    return paths
+
+
+@cli.command()
+@click.argument("pattern_path", metavar="PATTERN", type=_FILE)
+@click.option("--spec", "spec_path", type=_FILE, default=None,
+              help="Spec with pitch, unit size, kind and model assumptions.")
+@click.option("--out", "out_dir", type=click.Path(file_okay=False, path_type=Path),
+              required=True, help="Folder for <name>.gds, <name>.png and <name>.svg.")
+@click.option("--template", type=_FILE, default=None,
+              help="Unit-cell template (TOML) instead of the kind's shipped one.")
+@click.option("--layers", type=_FILE, default=None,
+              help="Layer map (TOML: purpose = [layer, datatype]) instead of the generic one.")
+@click.option("--gradient", "overlay", is_flag=True,
+              help="Shade the preview with the worst pair's worst linear gradient.")
+@click.option("--force", is_flag=True, help="Overwrite files already in --out.")
+@_user_errors
+def draw(pattern_path: Path, spec_path: Path | None, out_dir: Path, template: Path | None,
+         layers: Path | None, overlay: bool, force: bool) -> None:
+    """Write a GDSII stick pattern and preview pictures of PATTERN."""
+    pattern, spec = _load_graded(pattern_path, spec_path)
+    stem = pattern_path.stem if NAME_RE.match(pattern_path.stem) else spec.name
+    # read templates and layers before touching the folder: bad ones leave nothing behind
+    from placer.gds import load_layers, load_template
+
+    load_template(spec, template)
+    load_layers(layers)
+    prepare_out_dir(out_dir, [f"{stem}.gds", f"{stem}.png", f"{stem}.svg"], force)
+    grade = grade_pattern(pattern, spec)
+    paths = _draw_outputs(pattern, spec, grade, out_dir, stem, template, layers, overlay)
+    click.echo("Wrote " + ", ".join(str(p) for p in paths))
+    click.echo("The GDSII is a starting pattern, not a design-rule-clean layout.")
+
+
+@cli.command()
+@click.argument("spec_path", metavar="SPEC", type=_FILE)
+@click.option("--out", "out_dir", type=click.Path(file_okay=False, path_type=Path),
+              required=True, help="Folder for <name>-compare.png and .pdf.")
+@click.option("--seed", type=click.IntRange(min=0), default=0, show_default=True,
+              help="Seed of the optimised arrangement.")
+@click.option("--time-limit", "time_limit", type=click.FloatRange(min=0, min_open=True),
+              default=60.0, show_default=True, help="Safety cap on the search in seconds.")
+@click.option("--force", is_flag=True, help="Overwrite files already in --out.")
+@_user_errors
+def compare(spec_path: Path, out_dir: Path, seed: int, time_limit: float, force: bool) -> None:
+    """One page comparing clustered, interdigitated, mirrored and optimised arrangements."""
+    from placer.arrange import baseline_pattern, build_pattern
+    from placer.plot import save_comparison
+    from placer.routing import estimate_routing
+
+    spec = load_spec(spec_path)
+    names = [f"{spec.name}-compare.png", f"{spec.name}-compare.pdf"]
+    prepare_out_dir(out_dir, names, force)
+    best = run_arrange(spec, seed=seed, time_limit_s=time_limit)
+    rows, cols = best.core_shape
+    entries = []
+    for method in ("clustered", "interdigitated", "mirrored"):
+        pat = build_pattern(spec, baseline_pattern(spec, method, rows, cols), rows, cols)
+        route = estimate_routing(pat, spec.array.pitch_um, spec.kind == "mos")
+        entries.append((method, pat, grade_pattern(pat, spec), route.total_tree_um))
+    entries.append(("optimised", best.pattern, best.grade, best.routing.total_tree_um))
+    units = ", ".join(f"{n}={c}" for n, c in zip(spec.devices, spec.counts, strict=True))
+    save_comparison(entries, spec.array.pitch_um, spec.gradient.linear_ppm_per_um,
+                    f"{spec.name}: {units} on a {rows} x {cols} core, pitch "
+                    f"{spec.array.pitch_um[0]:g} x {spec.array.pitch_um[1]:g} um "
+                    "(model estimates)",
+                    [out_dir / n for n in names])
+    rows_txt = [[label, f"{max((p.linear_ppm for p in g.pairs), default=0):.3g}",
+                 f"{max((p.quadratic_ppm for p in g.pairs), default=0):.3g}",
+                 f"{max((p.correlated_sigma_ppm for p in g.pairs), default=0):.3g}",
+                 f"{r:.4g}"] for label, _, g, r in entries]
+    click.echo(format_table(["arrangement", "linear ppm", "quad ppm", "sigma ppm", "wire um"],
+                            rows_txt))
+    click.echo("Wrote " + ", ".join(str(out_dir / n) for n in names))

@@ -11,7 +11,8 @@ from scipy.spatial.distance import pdist, squareform
 
 from placer.pattern import Pattern, unit_positions
 
-__all__ = ["Routing", "estimate_routing", "row_tracks", "diffusion_breaks", "orient_row"]
+__all__ = ["Routing", "estimate_routing", "row_tracks", "diffusion_breaks", "orient_row",
+           "finger_terminals"]
 
 
 @dataclass(frozen=True)
@@ -41,7 +42,7 @@ def row_tracks(ids: NDArray[np.int_]) -> NDArray[np.int_]:
     return present.sum(axis=1).astype(int)
 
 
-def _terminals(device: int, mark: int) -> tuple[int, int]:
+def finger_terminals(device: int, mark: int) -> tuple[int, int]:
     """(left, right) net of a finger: -1 is the shared source, d the drain of device d."""
     return (-1, device) if mark >= 0 else (device, -1)
 
@@ -80,10 +81,10 @@ def orient_row(row: NDArray[np.int_], balance: dict[int, int] | None = None
                 cost[i][o] = prev
                 back[i][o] = int(np.argmin(cost[i - 1])) if i else -1
                 continue
-            left = _terminals(d, 1 if o else -1)[0]
+            left = finger_terminals(d, 1 if o else -1)[0]
             options = []
             for p in (0, 1):
-                right = _terminals(int(row[i - 1]), 1 if p else -1)[1]
+                right = finger_terminals(int(row[i - 1]), 1 if p else -1)[1]
                 options.append(cost[i - 1][p] + (0 if right == left else 1))
             p = int(np.argmin(options))
             cost[i][o] = options[p] if options[p] < inf else inf
@@ -109,7 +110,7 @@ def diffusion_breaks(ids: NDArray[np.int_], orient: NDArray[np.int8]) -> int:
             a, b = int(row[i - 1]), int(row[i])
             if a < 0 or b < 0:
                 continue
-            if _terminals(a, int(marks[i - 1]))[1] != _terminals(b, int(marks[i]))[0]:
+            if finger_terminals(a, int(marks[i - 1]))[1] != finger_terminals(b, int(marks[i]))[0]:
                 breaks += 1
     return breaks
 

@@ -30,11 +30,13 @@ References
 
 from __future__ import annotations
 
+import os
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from itertools import combinations
 from math import comb, factorial, prod
+from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
@@ -432,12 +434,31 @@ def _exhaustive(prob: Problem, geo: _Geometry
 
 
 def _linear_bound(prob: Problem) -> float:
-    """A bound no assignment can beat: two single-unit devices never share a centroid."""
-    singles = sum(1 for n in prob.counts if n == 1)
-    if singles >= 2:
-        return float(min(prob.pitch_um[0] if prob.cols > 1 else np.inf,
-                         prob.pitch_um[1] if prob.rows > 1 else np.inf))
-    return 0.0
+    """A bound no assignment can beat, from the devices of a single unit.
+
+    Each one-unit device's centroid is its slot, so the worst pair among m such devices is
+    at least the smallest diameter of m distinct slots; it is found by enumerating m-slot
+    subsets of an m x m window (m capped at 5; more singles cannot lower it).
+
+    Examples
+    --------
+    >>> _linear_bound(Problem((1, 1, 4), 4, 4, pitch_um=(2.0, 3.0)))
+    2.0
+    >>> round(_linear_bound(Problem((1, 1, 1, 8), 4, 4)), 6)
+    1.414214
+    """
+    m = min(sum(1 for n in prob.counts if n == 1), 5)
+    if m < 2:
+        return 0.0
+    rows, cols = min(prob.rows, m), min(prob.cols, m)
+    pts = np.array([(c * prob.pitch_um[0], r * prob.pitch_um[1])
+                    for r in range(rows) for c in range(cols)])
+    best = np.inf
+    for subset in combinations(range(len(pts)), m):
+        p = pts[list(subset)]
+        diff = p[:, None, :] - p[None, :, :]
+        best = min(best, float(np.sqrt((diff * diff).sum(-1)).max()))
+    return best
 
 
 # ---------------------------------------------------------------- annealing
@@ -447,7 +468,7 @@ class _Anneal:
 
     def __init__(self, prob: Problem, geo: _Geometry, assign: IntArray,
                  rng: np.random.Generator, deadline: float,
-                 progress: Callable[[str, Keys], None] | None):
+                 progress: Callable[[str, Keys], None] | None, stop: object = None):
         self.prob, self.geo, self.rng = prob, geo, rng
         self.assign = assign.copy()
         self.sums = geo.sums(self.assign)
@@ -455,6 +476,7 @@ class _Anneal:
         self.progress = progress
         self.iterations = 0
         self.stopped = "converged"
+        self.stop = stop
 
     def _moves(self, partner: IntArray | None, orbit_share: float
                ) -> tuple[IntArray, IntArray, IntArray, IntArray, IntArray, IntArray]:
@@ -490,6 +512,9 @@ class _Anneal:
         self.sums[b] -= d
 
     def _stop(self) -> bool:
+        if self.stop is not None and self.stop.is_set():  # type: ignore[attr-defined]
+            self.stopped = "interrupted"
+            return True
         if time.monotonic() > self.deadline:
             self.stopped = "time limit"
             return True
@@ -520,44 +545,47 @@ class _Anneal:
         temp0 = None
         stale = 0
         patience = max(400, 3 * self.prob.n_slots)
-        for it in range(budget):
-            self.iterations += 1
-            if it % 64 == 0 and self._stop():
-                break
-            s, t, s2, t2, a, b = self._moves(partner, orbit_share)
-            if len(s) == 0:
-                continue
-            d = self._delta(s, t, s2, t2)
-            m = len(s)
-            trial = np.broadcast_to(self.sums, (m, *self.sums.shape)).copy()
-            trial[idx_a[:m], a] += d
-            trial[idx_a[:m], b] -= d
-            e = energy(trial)
-            i = int(np.argmin(e))
-            de = float(e[i]) - cur
-            if not np.isfinite(e[i]):
-                continue
-            if temp0 is None:
-                pos = e[np.isfinite(e)] - cur
-                pos = pos[pos > 0]
-                temp0 = float(np.median(pos)) if len(pos) else max(abs(cur), 1e-12)
-            frac = it / max(budget - 1, 1)
-            temp = temp0 * (1e-4 ** frac)
-            if de <= 0 or self.rng.random() < np.exp(-de / max(temp, 1e-300)):
-                self._apply(int(s[i]), int(t[i]), int(s2[i]), int(t2[i]), int(a[i]), int(b[i]),
-                            d[i])
-                cur = float(e[i])
-            if cur < best - 1e-15:
-                best, best_assign, best_sums = cur, self.assign.copy(), self.sums.copy()
-                stale = 0
-                if self.progress:
-                    self.progress(stage, evaluate_light(self.prob, geo, best_assign, best_sums))
-                if best == 0.0:
+        try:
+            for it in range(budget):
+                self.iterations += 1
+                if it % 64 == 0 and self._stop():
                     break
-            else:
-                stale += 1
-                if stale > patience and frac > 0.3:
-                    break
+                s, t, s2, t2, a, b = self._moves(partner, orbit_share)
+                if len(s) == 0:
+                    continue
+                d = self._delta(s, t, s2, t2)
+                m = len(s)
+                trial = np.broadcast_to(self.sums, (m, *self.sums.shape)).copy()
+                trial[idx_a[:m], a] += d
+                trial[idx_a[:m], b] -= d
+                e = energy(trial)
+                i = int(np.argmin(e))
+                de = float(e[i]) - cur
+                if not np.isfinite(e[i]):
+                    continue
+                if temp0 is None:
+                    pos = e[np.isfinite(e)] - cur
+                    pos = pos[pos > 0]
+                    temp0 = float(np.median(pos)) if len(pos) else max(abs(cur), 1e-12)
+                frac = it / max(budget - 1, 1)
+                temp = temp0 * (1e-4 ** frac)
+                if de <= 0 or self.rng.random() < np.exp(-de / max(temp, 1e-300)):
+                    self._apply(int(s[i]), int(t[i]), int(s2[i]), int(t2[i]), int(a[i]), int(b[i]),
+                                d[i])
+                    cur = float(e[i])
+                if cur < best - 1e-15:
+                    best, best_assign, best_sums = cur, self.assign.copy(), self.sums.copy()
+                    stale = 0
+                    if self.progress:
+                        self.progress(stage, evaluate_light(self.prob, geo, best_assign, best_sums))
+                    if best == 0.0:
+                        break
+                else:
+                    stale += 1
+                    if stale > patience and frac > 0.3:
+                        break
+        except KeyboardInterrupt:
+            self.stopped = "interrupted"
         self.assign, self.sums = best_assign, best_sums
 
     def run_balance(self, budget: int, lin_cap: float, quad_cap: float,
@@ -591,64 +619,67 @@ class _Anneal:
         temp0 = None
         stale = 0
         patience = max(400, 3 * prob.n_slots)
-        for it in range(budget):
-            self.iterations += 1
-            if it % 64 == 0 and self._stop():
-                break
-            s, t, s2, t2, a, b = self._moves(partner, orbit_share)
-            if len(s) == 0:
-                continue
-            m = len(s)
-            d = self._delta(s, t, s2, t2)
-            trial = np.broadcast_to(self.sums, (m, *self.sums.shape)).copy()
-            trial[idx_a[:m], a] += d
-            trial[idx_a[:m], b] -= d
-            lin, quad, _ = geo.terms(trial)
-            if prob.objective == "weighted":
-                ok = lin * prob.linear_ppm_per_um + quad <= quad_cap
-            else:
-                ok = (lin <= lin_cap * (1 + 1e-12) + 1e-15) & (quad <= quad_cap)
-            if not ok.any():
-                continue
-            sel = np.nonzero(ok)[0]
-            s, t, s2, t2, a, b, d = s[sel], t[sel], s2[sel], t2[sel], a[sel], b[sel], d[sel]
-            m = len(sel)
-            cov = fld.propose(a, b, s, t, s2, t2)
-            rc = np.broadcast_to(row_counts, (m, *row_counts.shape)).copy()
-            ec = np.broadcast_to(edge_counts, (m, n_dev + 1)).copy()
-            for slots, sign_a in ((s, -1), (t, 1), (s2, -1), (t2, 1)):
-                use = slots >= 0
-                k = idx_a[:m][use]
-                r = rows[slots[use]]
-                np.add.at(rc, (k, r, a[use]), sign_a)
-                np.add.at(rc, (k, r, b[use]), -sign_a)
-                if edge is not None:
-                    w = edge[slots[use]]
-                    np.add.at(ec, (k, a[use]), sign_a * w)
-                    np.add.at(ec, (k, b[use]), -sign_a * w)
-            e = scores(cov, rc, ec)
-            i = int(np.argmin(e))
-            de = float(e[i]) - cur
-            if temp0 is None:
-                pos = e - cur
-                pos = pos[pos > 0]
-                temp0 = float(np.median(pos)) if len(pos) else max(abs(cur), 1e-12)
-            frac = it / max(budget - 1, 1)
-            temp = temp0 * (1e-4 ** frac)
-            if de <= 0 or self.rng.random() < np.exp(-de / max(temp, 1e-300)):
-                fld.accept(int(a[i]), int(b[i]), int(s[i]), int(t[i]), int(s2[i]), int(t2[i]),
-                           cov[i])
-                row_counts, edge_counts = rc[i], ec[i]
-                self._apply(int(s[i]), int(t[i]), int(s2[i]), int(t2[i]), int(a[i]), int(b[i]),
-                            d[i])
-                cur = float(e[i])
-            if cur < best - 1e-12:
-                best, best_assign = cur, self.assign.copy()
-                stale = 0
-            else:
-                stale += 1
-                if stale > patience and frac > 0.3:
+        try:
+            for it in range(budget):
+                self.iterations += 1
+                if it % 64 == 0 and self._stop():
                     break
+                s, t, s2, t2, a, b = self._moves(partner, orbit_share)
+                if len(s) == 0:
+                    continue
+                m = len(s)
+                d = self._delta(s, t, s2, t2)
+                trial = np.broadcast_to(self.sums, (m, *self.sums.shape)).copy()
+                trial[idx_a[:m], a] += d
+                trial[idx_a[:m], b] -= d
+                lin, quad, _ = geo.terms(trial)
+                if prob.objective == "weighted":
+                    ok = lin * prob.linear_ppm_per_um + quad <= quad_cap
+                else:
+                    ok = (lin <= lin_cap * (1 + 1e-12) + 1e-15) & (quad <= quad_cap)
+                if not ok.any():
+                    continue
+                sel = np.nonzero(ok)[0]
+                s, t, s2, t2, a, b, d = s[sel], t[sel], s2[sel], t2[sel], a[sel], b[sel], d[sel]
+                m = len(sel)
+                cov = fld.propose(a, b, s, t, s2, t2)
+                rc = np.broadcast_to(row_counts, (m, *row_counts.shape)).copy()
+                ec = np.broadcast_to(edge_counts, (m, n_dev + 1)).copy()
+                for slots, sign_a in ((s, -1), (t, 1), (s2, -1), (t2, 1)):
+                    use = slots >= 0
+                    k = idx_a[:m][use]
+                    r = rows[slots[use]]
+                    np.add.at(rc, (k, r, a[use]), sign_a)
+                    np.add.at(rc, (k, r, b[use]), -sign_a)
+                    if edge is not None:
+                        w = edge[slots[use]]
+                        np.add.at(ec, (k, a[use]), sign_a * w)
+                        np.add.at(ec, (k, b[use]), -sign_a * w)
+                e = scores(cov, rc, ec)
+                i = int(np.argmin(e))
+                de = float(e[i]) - cur
+                if temp0 is None:
+                    pos = e - cur
+                    pos = pos[pos > 0]
+                    temp0 = float(np.median(pos)) if len(pos) else max(abs(cur), 1e-12)
+                frac = it / max(budget - 1, 1)
+                temp = temp0 * (1e-4 ** frac)
+                if de <= 0 or self.rng.random() < np.exp(-de / max(temp, 1e-300)):
+                    fld.accept(int(a[i]), int(b[i]), int(s[i]), int(t[i]), int(s2[i]), int(t2[i]),
+                               cov[i])
+                    row_counts, edge_counts = rc[i], ec[i]
+                    self._apply(int(s[i]), int(t[i]), int(s2[i]), int(t2[i]), int(a[i]), int(b[i]),
+                                d[i])
+                    cur = float(e[i])
+                if cur < best - 1e-12:
+                    best, best_assign = cur, self.assign.copy()
+                    stale = 0
+                else:
+                    stale += 1
+                    if stale > patience and frac > 0.3:
+                        break
+        except KeyboardInterrupt:
+            self.stopped = "interrupted"
         self.assign = best_assign
         self.sums = geo.sums(best_assign)
 
@@ -661,12 +692,59 @@ def evaluate_light(prob: Problem, geo: _Geometry, assign: IntArray, sums: FloatA
 
 # ---------------------------------------------------------------- driver
 
+def _one_start(prob: Problem, sym: tuple[IntArray, IntArray] | None, start: int,
+               seed: int, deadline: float, progress: Callable[[str, Keys], None] | None,
+               stop: object = None) -> tuple[IntArray, Keys, int, str]:
+    """One annealing run from its own start: (assignment, keys, batches, how it stopped)."""
+    geo = _Geometry(prob)
+    sub = np.random.default_rng(seed)
+    budget = int(np.clip(30 * prob.n_slots, 3000, 30000))
+    if sym is not None:
+        assign, partner = sym
+        if start:
+            assign = _shuffle_orbits(assign, partner, sub)
+    else:
+        partner = None
+        assign = _greedy_start(prob, sub)
+    ann = _Anneal(prob, geo, assign, sub, deadline, progress, stop)
+    weighted = prob.objective == "weighted"
+    if sym is None and not weighted:
+        ann.run_moments("linear", budget, None, None)
+    lin_cap = float(geo.terms(ann.sums)[0])
+    share = 0.5 if weighted and sym is not None else (1.0 if sym is not None else 0.0)
+    if ann.stopped == "converged":
+        ann.run_moments("weighted" if weighted else "quadratic", budget, partner, lin_cap,
+                        share)
+    lin_key, quad_key = (float(x) for x in geo.terms(ann.sums)[:2])
+    quad_cap = (lin_key * prob.linear_ppm_per_um if weighted else 0.0) + quad_key \
+        + prob.tie_ppm
+    if ann.stopped == "converged" and (prob.corr_sigma_ppm > 0 or prob.open_edge):
+        ann.run_balance(budget // 2, lin_cap, quad_cap, partner, share)
+    return ann.assign, evaluate(prob, ann.assign), ann.iterations, ann.stopped
+
+
+def _child(send: Any, prob: Problem, sym: tuple[IntArray, IntArray] | None, start: int,
+           seed: int, deadline: float, stop: object) -> None:
+    """Worker process body: one start, result sent back through the pipe."""
+    import signal
+
+    # the parent turns Ctrl-C into a stop request; the worker must not die of it
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    send.send(_one_start(prob, sym, start, seed, deadline, None, stop))
+    send.close()
+
+
 def search(prob: Problem, *, seed: int = 0, time_limit_s: float = 30.0, starts: int = 2,
-           progress: Callable[[str, Keys], None] | None = None) -> SearchOutcome:
+           progress: Callable[[str, Keys], None] | None = None,
+           parallel: bool | None = None) -> SearchOutcome:
     """Find the best assignment of ``prob`` under its objective.
 
-    Stops when every stage has converged or its deterministic budget is spent, or at the
-    time limit, or on KeyboardInterrupt; the best assignment so far is returned each time.
+    Small cores are enumerated. Otherwise ``starts`` annealing runs with seeds drawn from
+    ``seed`` run across the CPU cores (``parallel`` None: when the core is large enough to
+    pay for a worker process) and the best by the ranked keys wins, ties to the lower start;
+    the result does not depend on how the starts were spread. Stops when every stage has
+    converged or spent its deterministic budget, at the time limit, or on Ctrl-C; the best
+    assignment so far is returned each time.
     """
     t0 = time.monotonic()
     deadline = t0 + time_limit_s
@@ -680,57 +758,64 @@ def search(prob: Problem, *, seed: int = 0, time_limit_s: float = 30.0, starts: 
                              elapsed_s=time.monotonic() - t0, archive=found)
 
     sym = symmetric_assignment(prob)
-    budget = int(np.clip(30 * prob.n_slots, 3000, 30000))
-    best: tuple[tuple[float, ...], IntArray, Keys] | None = None
-    archive: list[tuple[IntArray, Keys]] = []
+    seeds = [int(rng.integers(1 << 62)) for _ in range(starts)]
+    cpus = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else 1
+    if parallel is None:
+        parallel = prob.n_slots >= 96 and starts > 1 and cpus > 1
+    results: list[tuple[IntArray, Keys, int, str] | None] = [None] * starts
     stopped = "converged"
-    iterations = 0
-    try:
-        for start in range(starts):
-            sub = np.random.default_rng(rng.integers(1 << 62))
-            if sym is not None:
-                assign, partner = sym
-                if start:
-                    assign = _shuffle_orbits(assign, partner, sub)
-            else:
-                partner = None
-                assign = _greedy_start(prob, sub)
-            ann = _Anneal(prob, geo, assign, sub, deadline, progress)
-            weighted = prob.objective == "weighted"
-            if sym is None and not weighted:
-                ann.run_moments("linear", budget, None, None)
-            lin_cap = float(geo.terms(ann.sums)[0])
-            share = 0.5 if weighted and sym is not None else (1.0 if sym is not None else 0.0)
-            ann.run_moments("quadratic" if not weighted else "weighted", budget, partner,
-                            lin_cap, share)
-            lin_key, quad_key = (float(x) for x in geo.terms(ann.sums)[:2])
-            if weighted:
-                quad_cap = lin_key * prob.linear_ppm_per_um + quad_key + prob.tie_ppm
-            else:
-                quad_cap = quad_key + prob.tie_ppm
-            if prob.corr_sigma_ppm > 0 or prob.open_edge:
-                ann.run_balance(budget // 2, lin_cap, quad_cap, partner, share)
-            iterations += ann.iterations
-            keys = evaluate(prob, ann.assign)
-            rank = keys.ranked(prob.tie_ppm)
-            archive.append((ann.assign.copy(), keys))
-            if best is None or rank < best[0]:
-                best = (rank, ann.assign.copy(), keys)
-            if ann.stopped != "converged":
-                stopped = ann.stopped
+    if parallel:
+        import multiprocessing as mp
+
+        ctx = mp.get_context("fork")
+        stop_event = ctx.Event()
+        children = []
+        for i in range(1, starts):
+            recv, send = ctx.Pipe(duplex=False)
+            proc = ctx.Process(target=_child, args=(send, prob, sym, i, seeds[i], deadline,
+                                                    stop_event), daemon=True)
+            proc.start()
+            send.close()
+            children.append((i, proc, recv))
+        try:
+            first = _one_start(prob, sym, 0, seeds[0], deadline, progress)
+            results[0] = first
+            if first[3] == "interrupted":
+                stop_event.set()
+        except KeyboardInterrupt:
+            stop_event.set()
+            stopped = "interrupted"
+        for i, proc, recv in children:
+            while True:
+                try:
+                    results[i] = recv.recv() if proc.is_alive() or recv.poll() else None
+                    break
+                except KeyboardInterrupt:
+                    stop_event.set()
+                except EOFError:
+                    break
+            proc.join()
+    else:
+        for i in range(starts):
+            results[i] = _one_start(prob, sym, i, seeds[i], deadline, progress)
+            res = results[i]
+            if res is not None and res[3] != "converged":
                 break
-    except KeyboardInterrupt:
-        stopped = "interrupted"
-        if best is None:
-            assign = sym[0] if sym is not None else _greedy_start(prob, rng)
-            best = ((), assign, evaluate(prob, assign))
-    assert best is not None
-    _, assign, keys = best
+    done = [r for r in results if r is not None]
+    if not done:
+        assign = sym[0] if sym is not None else _greedy_start(prob, rng)
+        done = [(assign, evaluate(prob, assign), 0, "interrupted")]
+    for r in done:
+        if r[3] != "converged":
+            stopped = r[3] if stopped == "converged" else stopped
+    best_i = min(range(len(done)), key=lambda i: (done[i][1].ranked(prob.tie_ppm), i))
+    assign, keys = done[best_i][0], done[best_i][1]
     proven = keys.linear_um <= bound + 1e-9 * max(1.0, bound)
     return SearchOutcome(assign, keys, bound if not proven else keys.linear_um, proven,
                          "symmetric orbits + annealing" if sym is not None else "annealing",
                          stopped=stopped, elapsed_s=time.monotonic() - t0,
-                         iterations=iterations, archive=archive)
+                         iterations=sum(r[2] for r in done),
+                         archive=[(r[0], r[1]) for r in done])
 
 
 def _shuffle_orbits(assign: IntArray, partner: IntArray, rng: np.random.Generator) -> IntArray:

@@ -123,3 +123,11 @@ def test_same_seed_same_result_on_annealed_case():
     a = search(prob, seed=11, time_limit_s=30)
     b = search(prob, seed=11, time_limit_s=30)
     assert np.array_equal(a.assign, b.assign)
+
+
+def test_parallel_and_sequential_starts_give_the_same_result():
+    """Determinism: spreading the starts over processes changes nothing."""
+    prob = Problem((1, 1, 2, 4, 8, 16, 32, 64), 8, 16)
+    a = search(prob, seed=2, time_limit_s=60, parallel=True)
+    b = search(prob, seed=2, time_limit_s=60, parallel=False)
+    assert np.array_equal(a.assign, b.assign)

@@ -1,0 +1,1 @@
+"""Unit-cell templates and the generic layer map, shipped as package data."""

@@ -1,0 +1,52 @@
+"""Preview pictures and the comparison sheet."""
+
+import numpy as np
+import pytest
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.colors import to_rgb
+from matplotlib.figure import Figure
+
+from placer.cli import cli
+from placer.pattern import parse_pattern
+from placer.plot import device_colours, draw_pattern
+
+
+def test_unit_centres_have_their_device_colour_and_dummies_the_neutral_one():
+    """Okabe & Ito (2008) palette: each unit's centre pixel shows its device's colour."""
+    pattern = parse_pattern(". A B C A .\n. C B A B .\n")
+    pitch = (1.0, 2.0)
+    fig = Figure(figsize=(6, 4), dpi=100)
+    FigureCanvasAgg(fig)
+    ax = fig.add_subplot()
+    draw_pattern(ax, pattern, pitch, None, markers=False)
+    fig.canvas.draw()
+    img = np.asarray(fig.canvas.buffer_rgba())[..., :3] / 255.0
+    height = img.shape[0]
+    colours = device_colours(3)
+    for r in range(pattern.shape[0]):
+        for c in range(pattern.shape[1]):
+            x, y = ax.transData.transform((c * pitch[0], -r * pitch[1]))
+            pixel = img[int(round(height - y)), int(round(x))]
+            d = pattern.ids[r, c]
+            want = None if d < 0 else to_rgb(colours[d][0])
+            if d < 0:
+                # white under a grey hatch: whatever the hatch, the pixel is a light grey
+                assert np.ptp(pixel) < 0.02 and pixel.min() > 0.5, (r, c, pixel)
+            else:
+                assert np.allclose(pixel, want, atol=0.02), (r, c, pixel, want)
+
+
+def test_palette_colours_are_distinct():
+    cols = [to_rgb(c) for c, _ in device_colours(8)]
+    assert len(set(cols)) == 8
+
+
+@pytest.mark.slow
+def test_compare_writes_png_and_pdf(runner, write, tmp_path):
+    spec = write("s.toml", '[devices]\nA = 4\nB = 4\nC = 8\n[array]\nrows = 2\ncolumns = 8\n')
+    out = tmp_path / "cmp"
+    result = runner.invoke(cli, ["compare", str(spec), "--out", str(out)])
+    assert result.exit_code == 0, result.output
+    assert (out / "s-compare.png").stat().st_size > 10_000
+    assert (out / "s-compare.pdf").read_bytes()[:4] == b"%PDF"
+    assert "optimised" in result.output
