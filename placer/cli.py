@@ -7,6 +7,7 @@ import signal
 import sys
 import time
 from collections.abc import Callable
+from dataclasses import asdict
 from functools import wraps
 from pathlib import Path
 from typing import Any, TypeVar
@@ -20,7 +21,7 @@ from placer.arrange import arrange as run_arrange
 from placer.errors import PlacerError
 from placer.output import atomic_write, prepare_out_dir
 from placer.pattern import Pattern, check_against_spec, format_pattern, read_pattern
-from placer.report import format_arrangement, format_grade, format_table
+from placer.report import format_arrangement, format_budget, format_grade, format_table
 from placer.score import Grade, grade_pattern
 from placer.search import Keys
 from placer.spec import NAME_RE, Spec, default_spec, load_spec
@@ -57,6 +58,16 @@ def cli() -> None:
     """
 
 
+def _budget(pattern: Pattern, spec: Spec, grade: Grade, required: bool) -> Any:
+    """The electrical budget when the spec asks for one (or ``required``), else None."""
+    from placer.budget import budget, check_electrical
+
+    if spec.electrical is None and not required:
+        return None
+    check_electrical(spec)
+    return budget(pattern, spec, grade)
+
+
 def _load_graded(pattern_path: Path, spec_path: Path | None) -> tuple[Any, Spec]:
     pattern = read_pattern(pattern_path)
     if spec_path is None:
@@ -73,15 +84,35 @@ def _load_graded(pattern_path: Path, spec_path: Path | None) -> tuple[Any, Spec]
 @click.option("--spec", "spec_path", type=_FILE, default=None,
               help="Spec file with pitch and model assumptions (defaults apply without it).")
 @click.option("--json", "as_json", is_flag=True, help="Print the figures as JSON on stdout.")
+@click.option("--budget-plot", type=click.Path(dir_okay=False, path_type=Path), default=None,
+              help="Write the electrical budget picture (.png, .svg or .pdf); needs "
+                   "[electrical] in the spec.")
 @_user_errors
-def grade(pattern: Path, spec_path: Path | None, as_json: bool) -> None:
-    """Grade the arrangement in PATTERN: centroids, gradient errors and random sigmas."""
+def grade(pattern: Path, spec_path: Path | None, as_json: bool,
+          budget_plot: Path | None) -> None:
+    """Grade the arrangement in PATTERN: centroids, gradient errors and random sigmas.
+
+    With an [electrical] table in the spec, also the electrical budget: mirror current
+    error, capacitor-array INL/DNL or resistor ratio error.
+    """
     pat, spec = _load_graded(pattern, spec_path)
+    if budget_plot is not None and budget_plot.suffix not in (".png", ".svg", ".pdf"):
+        raise PlacerError(f"{budget_plot}: the picture must end in .png, .svg or .pdf")
     result = grade_pattern(pat, spec)
+    bud = _budget(pat, spec, result, required=budget_plot is not None)
+    if budget_plot is not None and bud is not None:
+        from placer.plot import save_budget
+
+        save_budget(bud, spec.name, [budget_plot])
     if as_json:
-        click.echo(json.dumps(result.to_dict(), indent=2))
+        out = result.to_dict()
+        out["budget"] = asdict(bud) if bud is not None else None
+        click.echo(json.dumps(out, indent=2))
     else:
         click.echo(format_grade(result))
+        if bud is not None:
+            click.echo("")
+            click.echo(format_budget(bud))
 
 
 def _sigterm_as_interrupt() -> None:
@@ -135,6 +166,7 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
     """Search for the arrangement of SPEC's devices with the least gradient error."""
     spec = load_spec(spec_path)
     names = ["pattern.txt", "report.json", "pattern.gds", "pattern.png", "pattern.svg",
+             "budget.png",
              *(f"candidate-{i}.txt" for i in range(1, n_candidates + 1))]
     prepare_out_dir(out_dir, names, force)
     progress = _Progress(not quiet and sys.stderr.isatty())
@@ -157,9 +189,18 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
         atomic_write(out_dir / f"candidate-{i}.txt", format_pattern(cand.pattern, [
             f"{spec.name} candidate {i}: systematic {cand.systematic_ppm:.6g} ppm, "
             f"routing {cand.routing_um:.6g} um"]))
+    bud = _budget(result.pattern, spec, result.grade, required=False)
+    report["budget"] = asdict(bud) if bud is not None else None
     atomic_write(out_dir / "report.json", json.dumps(report, indent=2) + "\n")
     _draw_outputs(result.pattern, spec, result.grade, out_dir, "pattern", None, None)
+    if bud is not None:
+        from placer.plot import save_budget
+
+        save_budget(bud, spec.name, [out_dir / "budget.png"])
     click.echo(format_arrangement(result, spec))
+    if bud is not None:
+        click.echo("")
+        click.echo(format_budget(bud))
     click.echo(f"\nWrote {out_dir}/pattern.txt, report.json, pattern.gds, pattern.png, "
                "pattern.svg" + (f" and {len(result.candidates)} candidates"
                                 if result.candidates else ""))

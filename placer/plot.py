@@ -22,7 +22,7 @@ from placer.pattern import DUMMY, EMPTY, Pattern
 from placer.score import Grade
 
 __all__ = ["PALETTE", "DUMMY_COLOUR", "device_colours", "draw_pattern", "save_preview",
-           "save_comparison", "direction_errors"]
+           "save_comparison", "direction_errors", "save_budget"]
 
 #: Okabe-Ito colours [1] without black (kept for text), most distinct first.
 PALETTE = ("#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#CC79A7",
@@ -83,11 +83,24 @@ def draw_pattern(ax: Any, pattern: Pattern, pitch_um: tuple[float, float],
     for (face, hatch, edge), rects in by_style.items():
         ax.add_collection(PatchCollection(rects, facecolor=face, edgecolor=edge,
                                           hatch=hatch or None, linewidth=0.6, zorder=1))
-    n_slots = rows * cols
+    margin = 0.3 * min(px, py)
+    ax.set_xlim(-0.5 * px - margin, (cols - 0.5) * px + margin)
+    ax.set_ylim(-(rows - 0.5) * py - margin, 0.5 * py + margin)
+    ax.set_aspect("equal")
+    # font size from the slot's size on the page; tall slots (MOS fingers) get upright names
+    fig = ax.get_figure()
+    bbox = ax.get_position()
+    fw, fh = fig.get_size_inches()
+    span = max((cols * px + 2 * margin) / (bbox.width * fw),
+               (rows * py + 2 * margin) / (bbox.height * fh))     # um per inch
+    cell_w, cell_h = 72 * px / span, 72 * py / span                # points
+    upright = py > 1.5 * px
+    longest = max(len(n) for n in pattern.devices)
+    along, across = (cell_h, cell_w) if upright else (cell_w, cell_h)
+    fs = min(9.0, 0.8 * along / (0.62 * longest), 0.45 * across)
     if names is None:
-        names = n_slots <= 400
+        names = fs >= 3.5
     if names or arrows:
-        fs = max(4.0, min(9.0, 260.0 / max(cols, rows * py / px, 1)))
         for r in range(rows):
             for c in range(cols):
                 d = int(pattern.ids[r, c])
@@ -95,12 +108,13 @@ def draw_pattern(ax: Any, pattern: Pattern, pitch_um: tuple[float, float],
                     continue
                 x, y = c * px, -r * py
                 if names:
-                    ax.text(x, y + 0.27 * py, pattern.devices[d], ha="center", va="center",
-                            fontsize=fs, color="black", zorder=3, clip_on=True)
+                    ax.text(x, y + 0.22 * py, pattern.devices[d], ha="center", va="center",
+                            fontsize=fs, color="black", zorder=3, clip_on=True,
+                            rotation=90 if upright else 0)
                 o = int(pattern.orient[r, c])
                 if arrows and o:
-                    ax.annotate("", xy=(x + 0.3 * o * px, y - 0.27 * py),
-                                xytext=(x - 0.3 * o * px, y - 0.27 * py),
+                    ax.annotate("", xy=(x + 0.3 * o * px, y - 0.3 * py),
+                                xytext=(x - 0.3 * o * px, y - 0.3 * py),
                                 arrowprops={"arrowstyle": "->", "lw": 0.8, "color": "black"},
                                 zorder=3)
     if markers and grade is not None:
@@ -108,10 +122,6 @@ def draw_pattern(ax: Any, pattern: Pattern, pitch_um: tuple[float, float],
             ax.plot(*dev.centroid_um, marker="o", markersize=7, markerfacecolor=colours[d][0],
                     markeredgecolor="black", zorder=4, linestyle="none")
         ax.plot(*grade.centre_um, marker="+", markersize=14, color="black", mew=2, zorder=5)
-    margin = 0.3 * min(px, py)
-    ax.set_xlim(-0.5 * px - margin, (cols - 0.5) * px + margin)
-    ax.set_ylim(-(rows - 0.5) * py - margin, 0.5 * py + margin)
-    ax.set_aspect("equal")
     ax.set_xlabel("x (um)")
     ax.set_ylabel("y (um)")
 
@@ -230,8 +240,9 @@ def save_comparison(entries: Sequence[tuple[str, Pattern, Grade, float]],
     styles = ["-", "--", "-.", ":"]
     for i, (label, _, grade, _) in enumerate(entries):
         cents = {d.name: d.centroid_um for d in grade.devices}
-        ax.plot(theta, direction_errors(grade.pairs, theta, g_ppm_per_um, cents),
-                styles[i % len(styles)], color=colours[i], lw=2, label=label)
+        err = direction_errors(grade.pairs, theta, g_ppm_per_um, cents)
+        ax.plot(theta, err, styles[i % len(styles)], color=colours[i], lw=2,
+                label=label + (" (zero in every direction)" if err.max() < 1e-9 else ""))
     ax.set_title(f"worst pair ratio error (ppm) against gradient direction, "
                  f"{g_ppm_per_um:g} ppm/um", fontsize=9)
     ax.legend(loc="upper left", bbox_to_anchor=(1.05, 1.0), fontsize=8)
@@ -243,3 +254,61 @@ def save_comparison(entries: Sequence[tuple[str, Pattern, Grade, float]],
         meta = {"CreationDate": None} if fmt == "pdf" else {}
         fig.savefig(buf, format=fmt, dpi=100, metadata=meta)
         atomic_write(path, buf.getvalue())
+
+
+def _save(fig: Any, paths: Sequence[Path], dpi: int = 100) -> None:
+    import io
+
+    from placer.output import atomic_write
+
+    for path in paths:
+        buf = io.BytesIO()
+        fmt = path.suffix.lstrip(".")
+        meta = {"CreationDate": None} if fmt == "pdf" else ({"Date": None} if fmt == "svg"
+                                                           else {})
+        fig.savefig(buf, format=fmt, dpi=dpi, metadata=meta)
+        atomic_write(path, buf.getvalue())
+
+
+def save_budget(b: Any, name: str, paths: Sequence[Path], seed: int = 0) -> None:
+    """Budget picture: ratio-error histograms (mirrors, resistors) or INL/DNL by code."""
+    from placer.budget import DacBudget
+
+    if isinstance(b, DacBudget):
+        fig = _figure(9.0, 6.0)
+        fig.set_layout_engine("constrained")
+        ax1, ax2 = fig.subplots(2, 1, sharex=True)
+        codes = np.arange(len(b.gradient_inl_lsb))
+        ax1.plot(codes, b.gradient_inl_lsb, color=PALETTE[4], lw=1,
+                 label=f"gradient, worst direction {b.worst_direction_deg:.0f} deg")
+        ax1.fill_between(codes, -np.array(b.mc_inl_p99_lsb), b.mc_inl_p99_lsb,
+                         color=PALETTE[1], alpha=0.35,
+                         label=f"random: 99th percentile of |INL| ({b.mc_samples} samples)")
+        ax1.set_ylabel("INL (LSB)")
+        ax1.legend(fontsize=8, loc="upper right")
+        ax2.plot(codes[:-1], b.gradient_dnl_lsb, color=PALETTE[5], lw=1)
+        ax2.set_ylabel("DNL (LSB)")
+        ax2.set_xlabel("code")
+        ax1.set_title(f"{name}: INL and DNL against the {b.fit} line (model estimates)",
+                      fontsize=10)
+        _save(fig, paths)
+        return
+    n = len(b.lines)
+    fig = _figure(4.0 * max(n, 1), 3.6)
+    fig.set_layout_engine("constrained")
+    axes = np.atleast_1d(fig.subplots(1, max(n, 1)))
+    rng = np.random.default_rng(seed)
+    for ax, ln, colour in zip(axes, b.lines, PALETTE, strict=False):
+        m = 20000
+        theta = rng.uniform(0, 2 * np.pi, m)
+        sample = ln.clm_pct + ln.gradient_pct * np.cos(theta) + rng.normal(0, ln.random_sigma_pct,
+                                                                           m)
+        ax.hist(sample, bins=80, color=colour, edgecolor="none")
+        for v in (-b.tolerance_pct, b.tolerance_pct):
+            ax.axvline(v, color="black", ls="--", lw=1)
+        ax.set_title(f"{ln.device} / {b.reference}: {100 * ln.within_tolerance:.1f}% within "
+                     f"+-{b.tolerance_pct:g}%", fontsize=9)
+        ax.set_xlabel("ratio error (%)")
+    axes[0].set_ylabel("parts (Monte Carlo, random gradient direction)")
+    fig.suptitle(f"{name}: electrical budget (model estimates)", fontsize=10)
+    _save(fig, paths)

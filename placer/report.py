@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 from placer.pattern import format_pattern
 from placer.score import Grade
@@ -11,7 +11,7 @@ if TYPE_CHECKING:
     from placer.arrange import Arrangement
     from placer.spec import Spec
 
-__all__ = ["format_grade", "format_table", "format_arrangement", "CAUTION"]
+__all__ = ["format_grade", "format_table", "format_arrangement", "format_budget", "CAUTION"]
 
 CAUTION = ("Figures are model estimates under the assumptions above; confirm with the "
            "foundry's matching guidelines, extraction and the process's mismatch data.")
@@ -146,4 +146,38 @@ def format_arrangement(result: Arrangement, spec: Spec) -> str:
     out.append("")
     out.append(format_grade(result.grade))
     out.append("The pattern is a starting point, not a design-rule-clean layout.")
+    return "\n".join(out)
+
+
+def format_budget(b: Any) -> str:
+    """The electrical budget section: mirror/resistor lines, or DAC INL/DNL."""
+    from placer.budget import DacBudget
+
+    if isinstance(b, DacBudget):
+        fit = "end-point" if b.fit == "endpoint" else "best-fit"
+        return "\n".join([
+            f"Electrical budget: capacitor array, bits {', '.join(b.bits)} (LSB first), "
+            f"termination {b.termination or 'none'}, INL/DNL in LSB against the {fit} line",
+            f"  gradient (worst direction {b.worst_direction_deg:.0f} deg): |INL| "
+            f"{_f(b.worst_gradient_inl_lsb)} LSB, |DNL| {_f(b.worst_gradient_dnl_lsb)} LSB",
+            f"  random ({b.mc_samples} Monte Carlo samples): worst |INL| mean "
+            f"{_f(b.mc_inl_mean_lsb)}, sigma {_f(b.mc_inl_sigma_lsb)} LSB; worst |DNL| mean "
+            f"{_f(b.mc_dnl_mean_lsb)}, sigma {_f(b.mc_dnl_sigma_lsb)} LSB",
+        ])
+    mos = b.kind == "mos"
+    rows = []
+    for ln in b.lines:
+        rows.append([ln.device, f"{ln.ideal_ratio:g}", _f(ln.gradient_pct),
+                     *([_f(ln.clm_pct)] if mos else []),
+                     _f(ln.random_sigma_pct), f"{ln.total_low_pct:+.3g} .. "
+                     f"{ln.total_high_pct:+.3g}", f"{100 * ln.within_tolerance:.1f}%"])
+    head = ["output" if mos else "resistor", "ratio", "grad %", *(["clm %"] if mos else []),
+            "sigma %", f"total at {b.k_sigma:g} sigma %", f"within +-{b.tolerance_pct:g}%"]
+    out = [f"Electrical budget against {b.reference} (error of I/I_{b.reference}, % of the "
+           "ideal ratio; grad = worst gradient direction, clm = channel-length modulation)"
+           if b.kind == "mos" else
+           f"Electrical budget against {b.reference} (ratio error of R/R_{b.reference}, %)",
+           format_table(head, rows)]
+    for ln in b.lines:
+        out.append(f"  {ln.device}: {ln.dominant} dominates; cure: {ln.cure}.")
     return "\n".join(out)

@@ -27,6 +27,8 @@ __all__ = [
     "MonteCarloSpec",
     "SearchSpec",
     "OBJECTIVES",
+    "ElectricalSpec",
+    "FITS",
     "Spec",
     "default_spec",
     "load_spec",
@@ -118,6 +120,29 @@ class SearchSpec:
     tie_ppm: float = 0.01
 
 
+FITS = ("endpoint", "best")
+
+
+@dataclass(frozen=True)
+class ElectricalSpec:
+    """Electrical parameters for the error budget (table [electrical])."""
+
+    reference: str | None = None
+    gm_id_per_v: float = 10.0
+    lambda_per_v: float = 0.0
+    vds_v: dict[str, float] = field(default_factory=dict)
+    vt_gradient_mv_per_mm: float = 0.5
+    beta_gradient_pct_per_mm: float = 0.5
+    a_vt_mv_um: float = 5.0
+    a_beta_pct_um: float = 1.0
+    k_sigma: float = 3.0
+    tolerance_pct: float = 1.0
+    termination: str | None = None
+    fit: str = "endpoint"
+    mc_samples: int = 2000
+    mc_seed: int = 0
+
+
 @dataclass(frozen=True)
 class Spec:
     """Everything a spec file says: devices, array shape and model assumptions."""
@@ -133,6 +158,7 @@ class Spec:
     mismatch: MismatchSpec = field(default_factory=MismatchSpec)
     monte_carlo: MonteCarloSpec = field(default_factory=MonteCarloSpec)
     search: SearchSpec = field(default_factory=SearchSpec)
+    electrical: ElectricalSpec | None = None
     source: str = "<spec>"
 
     @property
@@ -166,7 +192,7 @@ def check_name(name: str, what: str) -> str:
 # Every table and key a spec may hold; anything else is refused with a suggestion.
 _SCHEMA: dict[str, tuple[str, ...]] = {
     "": ("name", "kind", "devices", "array", "unit", "gradient", "correlated", "mismatch",
-         "monte_carlo", "search"),
+         "monte_carlo", "search", "electrical"),
     "array": ("rows", "columns", "dummies", "pitch_um", "aspect"),
     "unit": ("width_um", "length_um"),
     "gradient": ("linear_ppm_per_um", "quadratic_ppm_per_um2", "order"),
@@ -174,6 +200,10 @@ _SCHEMA: dict[str, tuple[str, ...]] = {
     "mismatch": ("a_param_pct_um", "a_vt_mv_um"),
     "monte_carlo": ("samples", "seed"),
     "search": ("objective", "cancel_order", "tie_ppm"),
+    "electrical": ("reference", "vov_v", "gm_id_per_v", "lambda_per_v", "vds_v",
+                   "vt_gradient_mv_per_mm", "beta_gradient_pct_per_mm", "a_vt_mv_um",
+                   "a_beta_pct_um", "k_sigma", "tolerance_pct", "termination", "weights",
+                   "fit", "mc_samples", "mc_seed"),
 }
 
 
@@ -364,9 +394,106 @@ def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") 
         _num(se, "tie_ppm", ds.tie_ppm),
     )
 
+    electrical = None
+    if "electrical" in data:
+        electrical = _electrical(source, data["electrical"], kind, names, counts, mismatch)
+
     return Spec(name=name, devices=tuple(names), counts=tuple(counts), kind=kind, array=array,
                 unit=unit, gradient=gradient, correlated=correlated, mismatch=mismatch,
-                monte_carlo=monte_carlo, search=search, source=source)
+                monte_carlo=monte_carlo, search=search, electrical=electrical, source=source)
+
+
+def _electrical(source: str, raw: Any, kind: str, names: list[str], counts: list[int],
+                mismatch: MismatchSpec) -> ElectricalSpec:
+    """Validate [electrical]; missing keys are named with their units in one line."""
+    el = _Reader(source, "electrical", raw)
+    d = ElectricalSpec()
+    ref = el.data.get("reference")
+    if ref is not None and ref not in names:
+        raise el.fail("reference", f"must name a device ({', '.join(names)}), got {ref!r}")
+    common = {
+        "reference": ref,
+        "k_sigma": el.number("k_sigma", d.k_sigma) or d.k_sigma,
+        "tolerance_pct": el.number("tolerance_pct", d.tolerance_pct) or d.tolerance_pct,
+        "mc_samples": el.integer("mc_samples", d.mc_samples, low=0, high=200_000),
+        "mc_seed": el.integer("mc_seed", d.mc_seed, low=0),
+        "fit": el.choice("fit", d.fit, FITS),
+    }
+    if kind == "mos":
+        missing = []
+        if "vov_v" not in el.data and "gm_id_per_v" not in el.data:
+            missing.append("vov_v (overdrive, V) or gm_id_per_v (1/V)")
+        if "lambda_per_v" not in el.data:
+            missing.append("lambda_per_v (channel-length modulation, 1/V)")
+        vds_raw = el.data.get("vds_v")
+        if vds_raw is None:
+            missing.append("[electrical.vds_v] (drain voltage of each device, V)")
+        if missing:
+            raise SpecError(f"{source}: [electrical] missing {'; '.join(missing)}")
+        if "vov_v" in el.data and "gm_id_per_v" in el.data:
+            raise SpecError(f"{source}: [electrical] give vov_v or gm_id_per_v, not both")
+        if "vov_v" in el.data:
+            vov = el.number("vov_v", None)
+            assert vov is not None
+            gm_id = 2.0 / vov          # square law: gm/ID = 2 / V_ov
+        else:
+            gm_id = el.number("gm_id_per_v", None) or 0.0
+            if gm_id > 40.0:
+                raise el.fail("gm_id_per_v", f"must be at most 40 1/V (weak inversion "
+                              f"limit, about 1/(n kT/q)), got {gm_id:g}")
+        vr = _Reader(source, "electrical.vds_v", vds_raw)
+        vds: dict[str, float] = {}
+        for key in vr.data:
+            if key not in names:
+                raise vr.fail(key, f"is not a device ({', '.join(names)})")
+            v = vr.number(key, None, positive=True, allow_zero=True)
+            assert v is not None
+            vds[key] = v
+        absent = [n for n in names if n not in vds]
+        if absent:
+            raise SpecError(f"{source}: [electrical.vds_v] missing {', '.join(absent)} "
+                            "(drain voltage, V)")
+        return ElectricalSpec(
+            gm_id_per_v=gm_id,
+            lambda_per_v=_num(el, "lambda_per_v", 0.0), vds_v=vds,
+            vt_gradient_mv_per_mm=_num(el, "vt_gradient_mv_per_mm", d.vt_gradient_mv_per_mm),
+            beta_gradient_pct_per_mm=_num(el, "beta_gradient_pct_per_mm",
+                                          d.beta_gradient_pct_per_mm),
+            a_vt_mv_um=_num(el, "a_vt_mv_um", mismatch.a_vt_mv_um
+                            if mismatch.a_vt_mv_um is not None else d.a_vt_mv_um),
+            a_beta_pct_um=_num(el, "a_beta_pct_um", mismatch.a_param_pct_um),
+            **common,  # type: ignore[arg-type]
+        )
+    for key in ("vov_v", "gm_id_per_v", "lambda_per_v", "vds_v"):
+        if key in el.data:
+            raise el.fail(key, f"applies to kind = \"mos\" only (this spec is {kind!r})")
+    term = el.data.get("termination")
+    if kind == "cap":
+        if term is None:
+            raise SpecError(f"{source}: [electrical] missing termination (the unswitched "
+                            "unit's device name, or \"none\")")
+        if term == "none":
+            term = None
+        elif term not in names:
+            raise el.fail("termination", f"must name a device ({', '.join(names)}) or be "
+                          f"\"none\", got {term!r}")
+        if "weights" in el.data:
+            wr = _Reader(source, "electrical.weights", el.data["weights"])
+            count = dict(zip(names, counts, strict=True))
+            for key in wr.data:
+                w = wr.number(key, None)
+                if key not in count:
+                    raise wr.fail(key, f"is not a device ({', '.join(names)})")
+                if w != count[key]:
+                    raise wr.fail(key, f"weight {w:g} does not match its {count[key]} unit "
+                                  "cells: a capacitor's weight is its number of units")
+        if len(names) - (term is not None) < 1:
+            raise SpecError(f"{source}: [electrical] a capacitor array needs a switched "
+                            "capacitor besides the termination")
+    elif term is not None or "weights" in el.data:
+        raise SpecError(f"{source}: [electrical] termination and weights apply to "
+                        "kind = \"cap\" only")
+    return ElectricalSpec(termination=term, **common)  # type: ignore[arg-type]
 
 
 def _num(reader: _Reader, key: str, default: float) -> float:

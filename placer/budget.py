@@ -1,0 +1,370 @@
+"""Electrical error budget: from a placement to mirror current error, DAC INL/DNL, ratios.
+
+Three device kinds, one per spec:
+
+* ``mos`` current mirrors: each output against the reference, in % of its ideal ratio;
+  systematic gradient part dI/I = dbeta/beta - (gm/ID) dVT in the worst gradient
+  direction, systematic channel-length modulation (1 + lambda V_out)/(1 + lambda V_ref) - 1,
+  random part sigma^2 = sigma^2(dbeta/beta) + (gm/ID)^2 sigma^2(dVT) [1] plus the
+  correlated field of the model (taken as a current-factor variation);
+* ``cap`` weighted capacitor arrays (charge-redistribution DAC): each capacitor's relative
+  error from the model, the transfer over every code, INL and DNL in LSB [2] against an
+  end-point or best-fit line, worst case over gradient direction and the Monte Carlo sigma
+  of the worst INL/DNL over the random parts;
+* ``res`` resistor ratios: each resistor against the reference, gradient and random parts.
+
+References
+----------
+[1] M. J. M. Pelgrom, A. C. J. Duinmaijer, A. P. G. Welbers, "Matching properties of MOS
+    transistors", IEEE J. Solid-State Circuits 24(5), 1433-1439, 1989.
+    doi:10.1109/JSSC.1989.572629
+[2] IEEE Std 1658-2011, "IEEE Standard for Terminology and Test Methods of Digital-to-Analog
+    Converter Devices" (INL and DNL definitions).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from math import erf, sqrt
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from placer import model
+from placer.errors import SpecError
+from placer.pattern import Pattern, unit_positions
+from placer.score import Grade
+from placer.spec import ElectricalSpec, Spec
+
+__all__ = [
+    "MirrorLine",
+    "MirrorBudget",
+    "DacBudget",
+    "clm_error",
+    "current_error",
+    "current_sigma",
+    "dac_levels",
+    "inl_dnl",
+    "within_tolerance",
+    "budget",
+    "check_electrical",
+]
+
+FloatArray = NDArray[np.float64]
+
+
+def clm_error(lam_per_v: float, vds_out: float, vds_ref: float) -> float:
+    """Channel-length-modulation ratio error (1 + lambda V_out)/(1 + lambda V_ref) - 1.
+
+    Examples
+    --------
+    >>> round(1 + clm_error(0.1, 1.5, 0.7), 4)
+    1.0748
+    """
+    return (1.0 + lam_per_v * vds_out) / (1.0 + lam_per_v * vds_ref) - 1.0
+
+
+def current_error(dbeta_rel: float, dvt_v: float, gm_id_per_v: float) -> float:
+    """Relative drain-current change dI/I = dbeta/beta - (gm/ID) dVT (small signal).
+
+    Examples
+    --------
+    >>> round(current_error(0.0, 1e-3, 2 / 0.2), 6)   # square law, V_ov = 0.2 V, 1 mV
+    -0.01
+    """
+    return dbeta_rel - gm_id_per_v * dvt_v
+
+
+def current_sigma(sigma_beta_rel: float, sigma_vt_v: float, gm_id_per_v: float) -> float:
+    """sigma(dI/I) = sqrt(sigma^2(dbeta/beta) + (gm/ID)^2 sigma^2(dVT)) [1]."""
+    return sqrt(sigma_beta_rel ** 2 + (gm_id_per_v * sigma_vt_v) ** 2)
+
+
+def within_tolerance(offset: float, sigma: float, tolerance: float) -> float:
+    """Fraction of parts with |offset + N(0, sigma)| <= tolerance.
+
+    Examples
+    --------
+    >>> round(within_tolerance(0.0, 1.0, 1.96), 3)
+    0.95
+    """
+    if sigma <= 0:
+        return 1.0 if abs(offset) <= tolerance else 0.0
+
+    def phi(z: float) -> float:
+        return 0.5 * (1.0 + erf(z / sqrt(2.0)))
+
+    return phi((tolerance - offset) / sigma) - phi((-tolerance - offset) / sigma)
+
+
+def dac_levels(caps: FloatArray, termination: float | FloatArray) -> FloatArray:
+    """Output of a charge-redistribution DAC for every code, as a fraction of the reference.
+
+    ``caps`` holds the switched capacitors from the least significant bit up (shape
+    (..., n_bits)); ``termination`` the unswitched one. Code k connects bit b to the
+    reference when (k >> b) & 1, so V(k) = sum_b bit_b C_b / (sum C + C_term).
+    """
+    n_bits = caps.shape[-1]
+    codes = np.arange(2 ** n_bits)
+    bits = ((codes[:, None] >> np.arange(n_bits)) & 1).astype(float)   # (codes, bits)
+    total = caps.sum(-1) + np.asarray(termination, dtype=float)
+    return np.asarray((caps @ bits.T) / total[..., None])
+
+
+def inl_dnl(levels: FloatArray, fit: str, ideal: FloatArray | None = None
+            ) -> tuple[FloatArray, FloatArray]:
+    """INL and DNL in LSB of a transfer over codes (last axis), per IEEE Std 1658 [2].
+
+    ``fit`` "endpoint": the LSB and the line run through the first and last level;
+    "best": a least-squares line through all levels (gain and offset). ``ideal`` gives
+    each code's ideal weight (default: the code itself); DNL(k) is the step from k to
+    k + 1 in LSB minus its ideal step.
+    """
+    n = levels.shape[-1]
+    ideal = np.arange(n, dtype=float) if ideal is None else ideal
+    if fit == "endpoint":
+        lsb = (levels[..., -1:] - levels[..., :1]) / (ideal[-1] - ideal[0])
+        line = levels[..., :1] + (ideal - ideal[0]) * lsb
+    elif fit == "best":
+        a = np.column_stack([ideal, np.ones(n)])
+        coef = np.linalg.lstsq(a, np.moveaxis(levels, -1, 0).reshape(n, -1), rcond=None)[0]
+        lsb = coef[0].reshape(levels.shape[:-1] + (1,))
+        line = (a @ coef).T.reshape(levels.shape)
+    else:
+        raise ValueError(f"unknown fit {fit!r}")
+    inl = (levels - line) / lsb
+    dnl = np.diff(levels, axis=-1) / lsb - np.diff(ideal)
+    return inl, dnl
+
+
+@dataclass(frozen=True)
+class MirrorLine:
+    """Error budget of one output (or one resistor) against the reference, in %."""
+
+    device: str
+    ideal_ratio: float
+    gradient_pct: float
+    clm_pct: float
+    random_sigma_pct: float
+    total_low_pct: float
+    total_high_pct: float
+    within_tolerance: float
+    dominant: str
+    cure: str
+    mc_std_pct: float | None = None
+
+
+@dataclass(frozen=True)
+class MirrorBudget:
+    """Mirror or resistor-ratio budget."""
+
+    kind: str
+    reference: str
+    k_sigma: float
+    tolerance_pct: float
+    lines: tuple[MirrorLine, ...]
+    assumptions: dict[str, Any]
+
+
+@dataclass(frozen=True)
+class DacBudget:
+    """Capacitor-array budget: INL/DNL in LSB."""
+
+    bits: tuple[str, ...]
+    termination: str | None
+    fit: str
+    worst_gradient_inl_lsb: float
+    worst_gradient_dnl_lsb: float
+    worst_direction_deg: float
+    mc_samples: int
+    mc_inl_sigma_lsb: float
+    mc_dnl_sigma_lsb: float
+    mc_inl_mean_lsb: float
+    mc_dnl_mean_lsb: float
+    gradient_inl_lsb: tuple[float, ...]
+    gradient_dnl_lsb: tuple[float, ...]
+    mc_inl_p99_lsb: tuple[float, ...]
+    assumptions: dict[str, Any]
+
+
+_CURES = {
+    "gradient": "a better arrangement (common centroid, finer interdigitation)",
+    "clm": "a longer channel (lower lambda) or a cascode that equalises the drain voltages",
+    "random": "more area (larger W x L per unit, or more units in parallel)",
+}
+
+
+def check_electrical(spec: Spec) -> ElectricalSpec:
+    """The spec's [electrical] table, or a one-line error naming what is missing."""
+    e = spec.electrical
+    if e is None:
+        keys = {"mos": "vov_v (V) or gm_id_per_v (1/V), lambda_per_v (1/V), [electrical.vds_v] "
+                       "(V per device)",
+                "cap": "termination (device name or \"none\")",
+                "res": "reference (device name; optional)"}[spec.kind]
+        raise SpecError(f"{spec.source}: an electrical budget needs an [electrical] table with "
+                        f"{keys}")
+    return e
+
+
+def budget(pattern: Pattern, spec: Spec, grade: Grade) -> MirrorBudget | DacBudget:
+    """The electrical budget of ``pattern`` (in the spec's device order) for its kind."""
+    e = check_electrical(spec)
+    if spec.kind == "cap":
+        return _dac_budget(pattern, spec, e)
+    return _ratio_budget(pattern, spec, grade, e)
+
+
+def _pair(grade: Grade, a: str, b: str) -> Any:
+    for p in grade.pairs:
+        if {p.a, p.b} == {a, b}:
+            return p
+    raise KeyError((a, b))
+
+
+def _ratio_budget(pattern: Pattern, spec: Spec, grade: Grade, e: ElectricalSpec
+                  ) -> MirrorBudget:
+    ref = e.reference or spec.devices[0]
+    mos = spec.kind == "mos"
+    area = {n: c * spec.unit.area_um2 for n, c in zip(spec.devices, spec.counts, strict=True)}
+    count = dict(zip(spec.devices, spec.counts, strict=True))
+    cen = {d.name: np.array(d.centroid_um) for d in grade.devices}
+    rng = np.random.default_rng(e.mc_seed)
+    lines = []
+    for name in spec.devices:
+        if name == ref:
+            continue
+        p = _pair(grade, name, ref)
+        dist_mm = float(np.hypot(*(cen[name] - cen[ref]))) / 1000.0
+        if mos:
+            gm_id = e.gm_id_per_v
+            grad = dist_mm * (e.beta_gradient_pct_per_mm + 0.1 * gm_id * e.vt_gradient_mv_per_mm)
+            clm = 100.0 * clm_error(e.lambda_per_v, e.vds_v[name], e.vds_v[ref])
+            s_beta = float(model.pelgrom_sigma(e.a_beta_pct_um, area[name], area[ref]))
+            s_vt = float(model.pelgrom_sigma(e.a_vt_mv_um, area[name], area[ref]))
+            white = current_sigma(s_beta, 0.1 * s_vt, gm_id)
+            # Monte Carlo of the random part: device-level VT and beta, each device's
+            # variance A^2 / (2 area), then the output's current error against the ref
+            n_mc = e.mc_samples
+            sig_dev_vt = e.a_vt_mv_um / np.sqrt(2.0 * np.array([area[name], area[ref]]))
+            sig_dev_b = e.a_beta_pct_um / np.sqrt(2.0 * np.array([area[name], area[ref]]))
+            vt = rng.normal(0.0, 1.0, (n_mc, 2)) * sig_dev_vt
+            beta = rng.normal(0.0, 1.0, (n_mc, 2)) * sig_dev_b
+            mc = (beta[:, 0] - beta[:, 1]) - 0.1 * gm_id * (vt[:, 0] - vt[:, 1])
+            mc_std = float(mc.std()) if n_mc > 1 else None
+        else:
+            grad = 1e-4 * spec.gradient.linear_ppm_per_um * dist_mm * 1000.0
+            clm = 0.0
+            white = 1e-4 * p.white_sigma_ppm
+            mc_std = None
+        corr = 1e-4 * p.correlated_sigma_ppm
+        sigma = sqrt(white ** 2 + corr ** 2)
+        k = e.k_sigma
+        low = clm - grad - k * sigma
+        high = clm + grad + k * sigma
+        offset = abs(clm) + grad
+        terms = {"gradient": grad, "clm": abs(clm), "random": k * sigma}
+        dominant = max(terms, key=lambda t: terms[t])
+        lines.append(MirrorLine(
+            device=name, ideal_ratio=count[name] / count[ref], gradient_pct=grad, clm_pct=clm,
+            random_sigma_pct=sigma, total_low_pct=low, total_high_pct=high,
+            within_tolerance=within_tolerance(offset, sigma, e.tolerance_pct),
+            dominant=dominant, cure=_CURES[dominant], mc_std_pct=mc_std,
+        ))
+    assumptions: dict[str, Any] = {"k_sigma": e.k_sigma, "tolerance_pct": e.tolerance_pct}
+    if mos:
+        assumptions.update({
+            "gm_id_per_v": e.gm_id_per_v, "lambda_per_v": e.lambda_per_v,
+            "vt_gradient_mv_per_mm": e.vt_gradient_mv_per_mm,
+            "beta_gradient_pct_per_mm": e.beta_gradient_pct_per_mm,
+            "a_vt_mv_um": e.a_vt_mv_um, "a_beta_pct_um": e.a_beta_pct_um,
+            "vds_v": dict(e.vds_v), "unit_w_um": spec.unit.width_um,
+            "unit_l_um": spec.unit.length_um,
+        })
+    else:
+        assumptions.update({"gradient_ppm_per_um": spec.gradient.linear_ppm_per_um,
+                            "a_param_pct_um": spec.mismatch.a_param_pct_um})
+    return MirrorBudget(spec.kind, ref, e.k_sigma, e.tolerance_pct, tuple(lines), assumptions)
+
+
+def _dac_budget(pattern: Pattern, spec: Spec, e: ElectricalSpec) -> DacBudget:
+    names = list(spec.devices)
+    term = e.termination
+    switched = [n for n in names if n != term]
+    weights = {n: c for n, c in zip(names, spec.counts, strict=True)}
+    bits = sorted(switched, key=lambda n: (weights[n], names.index(n)))
+    if len(bits) > 16:
+        raise SpecError(f"{spec.source}: [electrical] {len(bits)} switched capacitors; the "
+                        "budget evaluates every code and handles at most 16 bits")
+    n_dev = len(names)
+    idx = [names.index(n) for n in bits]
+    t_idx = names.index(term) if term else None
+    w = np.array([weights[n] for n in bits], dtype=float)
+    w_term = float(weights[term]) if term else 0.0
+    codes = np.arange(2 ** len(bits))
+    ideal = ((codes[:, None] >> np.arange(len(bits))) & 1) @ w
+
+    xy, dev = unit_positions(pattern, spec.array.pitch_um)
+    centre = model.array_centre(xy)
+    xy_c = xy - centre
+    cen = model.centroids(xy_c, dev, n_dev)
+    m2 = model.second_moments(xy_c, dev, n_dev)
+
+    def levels_for(err: FloatArray) -> FloatArray:
+        caps = w * (1.0 + err[..., idx])
+        t = w_term * (1.0 + err[..., t_idx]) if t_idx is not None else 0.0
+        return dac_levels(caps, t)
+
+    # gradient: linear field in every direction plus the bowl, in relative units
+    g = spec.gradient.linear_ppm_per_um * 1e-6
+    h = spec.gradient.quadratic_ppm_per_um2 * 1e-6 / np.sqrt(2.0)
+    theta = np.radians(np.arange(0, 360, 1.0))
+    lin = g * (np.cos(theta)[:, None] * cen[None, :, 0] + np.sin(theta)[:, None] * cen[None, :, 1])
+    bowl = 0.5 * h * (m2[:, 0, 0] + m2[:, 1, 1])
+    inl, dnl = inl_dnl(levels_for(lin + bowl), e.fit, ideal)
+    worst = np.abs(inl).max(-1)
+    k = int(np.argmax(worst))
+
+    # random parts: correlated device means (exact covariance) and white per device
+    c = spec.correlated
+    cov = (c.sigma_ppm * 1e-6) ** 2 * model.device_covariance(xy_c, dev, n_dev, c.length_um,
+                                                              c.kernel)
+    white_unit = spec.mismatch.a_param_pct_um * 1e-2 / np.sqrt(2.0 * spec.unit.area_um2)
+    counts = np.bincount(dev, minlength=n_dev)
+    cov = cov + np.diag(white_unit ** 2 / counts)
+    vals, vecs = np.linalg.eigh(cov)
+    factor = vecs * np.sqrt(np.clip(vals, 0.0, None))
+    rng = np.random.default_rng(e.mc_seed)
+    n = e.mc_samples
+    inl_w, dnl_w, inl_all = [], [], []
+    batch = max(1, 2_000_000 // max(len(codes), 1))
+    for start in range(0, n, batch):
+        m = min(batch, n - start)
+        err = rng.standard_normal((m, n_dev)) @ factor.T
+        i_mc, d_mc = inl_dnl(levels_for(err), e.fit, ideal)
+        inl_w.append(np.abs(i_mc).max(-1))
+        dnl_w.append(np.abs(d_mc).max(-1))
+        inl_all.append(np.abs(i_mc))
+    iw = np.concatenate(inl_w) if inl_w else np.zeros(0)
+    dw = np.concatenate(dnl_w) if dnl_w else np.zeros(0)
+    p99 = (np.percentile(np.concatenate(inl_all), 99, axis=0) if inl_all
+           else np.zeros(len(codes)))
+    return DacBudget(
+        bits=tuple(bits), termination=term, fit=e.fit,
+        worst_gradient_inl_lsb=float(np.abs(inl[k]).max()),
+        worst_gradient_dnl_lsb=float(np.abs(dnl[k]).max()),
+        worst_direction_deg=float(np.degrees(theta[k])),
+        mc_samples=n, mc_inl_sigma_lsb=float(iw.std()) if n > 1 else 0.0,
+        mc_dnl_sigma_lsb=float(dw.std()) if n > 1 else 0.0,
+        mc_inl_mean_lsb=float(iw.mean()) if n else 0.0,
+        mc_dnl_mean_lsb=float(dw.mean()) if n else 0.0,
+        gradient_inl_lsb=tuple(float(v) for v in inl[k]),
+        gradient_dnl_lsb=tuple(float(v) for v in dnl[k]),
+        mc_inl_p99_lsb=tuple(float(v) for v in p99),
+        assumptions={"fit": e.fit, "gradient_ppm_per_um": spec.gradient.linear_ppm_per_um,
+                     "bowl_hessian_norm_ppm_per_um2": spec.gradient.quadratic_ppm_per_um2,
+                     "correlated_sigma_ppm": c.sigma_ppm, "a_param_pct_um":
+                     spec.mismatch.a_param_pct_um, "unit_area_um2": spec.unit.area_um2,
+                     "mc_seed": e.mc_seed},
+    )

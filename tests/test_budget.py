@@ -1,0 +1,166 @@
+"""Electrical budget against textbook formulas, IEEE 1658 definitions and Monte Carlo."""
+
+import numpy as np
+import pytest
+
+from placer.budget import (
+    budget,
+    clm_error,
+    current_error,
+    current_sigma,
+    dac_levels,
+    inl_dnl,
+    within_tolerance,
+)
+from placer.errors import SpecError
+from placer.pattern import parse_pattern
+from placer.score import grade_pattern
+from placer.spec import parse_spec
+
+MIRROR = """
+[devices]
+MREF = 2
+MOUT = 4
+[unit]
+width_um = 2.0
+length_um = 1.0
+[electrical]
+vov_v = 0.2
+lambda_per_v = {lam}
+a_vt_mv_um = 5.0
+a_beta_pct_um = 1.0
+mc_samples = 40000
+[electrical.vds_v]
+MREF = 0.7
+MOUT = 1.5
+"""
+
+
+def _mirror(lam=0.1):
+    spec = parse_spec(MIRROR.format(lam=lam), "m.toml")
+    pattern = parse_pattern("MOUT MREF MOUT MOUT MREF MOUT").reordered(spec.devices)
+    return budget(pattern, spec, grade_pattern(pattern, spec))
+
+
+def test_clm_check_value_razavi():
+    """Square-law mirror with channel-length modulation (Razavi, Design of Analog CMOS
+    Integrated Circuits, current-mirror chapter): I_out/I_ref = (1 + lambda V_out) /
+    (1 + lambda V_ref) for equal W/L; lambda 0.1 /V, 1.5 V against 0.7 V gives 1.0748
+    (computed from the formula)."""
+    assert 1 + clm_error(0.1, 1.5, 0.7) == pytest.approx(1.0748, abs=5e-5)
+    (line,) = _mirror().lines
+    assert line.clm_pct == pytest.approx(7.4766, abs=1e-3)
+
+
+def test_square_law_current_error_check_value():
+    """Square law (textbook): gm/ID = 2 / V_ov, so dI/I = -2 dVT / V_ov; V_ov = 0.2 V and
+    dVT = 1 mV give -1 %."""
+    assert current_error(0.0, 1e-3, 2 / 0.2) == pytest.approx(-0.01)
+
+
+def test_longer_channel_lowers_the_clm_term_common_practice():
+    """Common practice (no source): a longer channel lowers lambda and so the mirror error."""
+    assert abs(_mirror(0.05).lines[0].clm_pct) < abs(_mirror(0.1).lines[0].clm_pct)
+    assert _mirror(0.0).lines[0].clm_pct == 0.0
+
+
+def test_random_part_follows_pelgrom_for_the_current():
+    """Pelgrom et al., IEEE JSSC 1989 (doi:10.1109/JSSC.1989.572629), for the current:
+    sigma^2(dI/I) = sigma^2(dbeta/beta) + (gm/ID)^2 sigma^2(dVT); A_VT 5 mV um and A_beta
+    1 % um are typical figures (from memory); areas 4 and 8 um^2."""
+    (line,) = _mirror(lam=0.0).lines
+    s_vt = 5.0 * np.sqrt((1 / 4 + 1 / 8) / 2)      # mV
+    s_b = 1.0 * np.sqrt((1 / 4 + 1 / 8) / 2)       # %
+    white = current_sigma(s_b, 0.1 * s_vt, 10.0)   # gm/ID = 10 /V; mV x /V = 0.1 %
+    corr = line.random_sigma_pct ** 2 - white ** 2
+    assert corr >= 0 and corr < 0.01 * white ** 2   # the correlated field is a small add-on
+    assert line.random_sigma_pct == pytest.approx(white, rel=0.01)
+
+
+def test_monte_carlo_sigma_agrees_with_exact():
+    """Statistics: a sample std of N normal draws has standard error sigma / sqrt(2N); the
+    device-level Monte Carlo must land within 5 of them of the pair formula."""
+    spec = parse_spec(MIRROR.format(lam=0.0), "m.toml")
+    pattern = parse_pattern("MOUT MREF MOUT MOUT MREF MOUT").reordered(spec.devices)
+    (line,) = budget(pattern, spec, grade_pattern(pattern, spec)).lines
+    s_vt = 5.0 * np.sqrt((1 / 4 + 1 / 8) / 2)
+    s_b = 1.0 * np.sqrt((1 / 4 + 1 / 8) / 2)
+    exact = current_sigma(s_b, 0.1 * s_vt, 10.0)
+    assert abs(line.mc_std_pct - exact) < 5 * exact / np.sqrt(2 * 40000)
+
+
+def test_dominant_term_and_cure():
+    (line,) = _mirror(0.1).lines
+    assert line.dominant == "clm" and "cascode" in line.cure
+    (line,) = _mirror(0.0).lines
+    assert line.dominant == "random" and "area" in line.cure
+
+
+def test_within_tolerance_is_the_normal_probability():
+    """Normal distribution: P(|N(0,1)| <= 1.96) = 0.95 (standard table)."""
+    assert within_tolerance(0.0, 1.0, 1.96) == pytest.approx(0.95, abs=5e-4)
+    assert within_tolerance(5.0, 0.0, 1.0) == 0.0
+
+
+def test_three_bit_dac_hand_worked_ieee_1658():
+    """IEEE Std 1658-2011 (DAC terminology; definitions cited from memory): INL(k) is the
+    deviation of level k from the end-point line in LSB, DNL(k) the step k -> k+1 in LSB
+    minus 1.
+
+    Hand-worked: units 1, 2, 4 plus a termination unit of 1, the 4-unit capacitor 1 % large:
+    C = 1, 2, 4.04, total 8.04. V(k) = sum of switched C / 8.04; end-point LSB
+    = V(7)/7 = 7.04 / (8.04 * 7).
+      step 3 -> 4: (4.04 - 3) / 8.04 / LSB = 1.04 * 7 / 7.04 = 1.034091  -> DNL +0.034091
+      other steps: 1 * 7 / 7.04 = 0.994318                              -> DNL -0.005682
+      INL(3) = 3 * 7 / 7.04 - 3 = -0.017045, INL(4) = 4.04 * 7 / 7.04 - 4 = +0.017045,
+      INL(0) = INL(7) = 0.
+    """
+    levels = dac_levels(np.array([1.0, 2.0, 4.04]), 1.0)
+    inl, dnl = inl_dnl(levels, "endpoint")
+    assert dnl[3] == pytest.approx(1.04 * 7 / 7.04 - 1, abs=1e-9)
+    assert dnl[0] == pytest.approx(7 / 7.04 - 1, abs=1e-9)
+    assert inl[3] == pytest.approx(3 * 7 / 7.04 - 3, abs=1e-9)
+    assert inl[4] == pytest.approx(4.04 * 7 / 7.04 - 4, abs=1e-9)
+    assert inl[0] == 0.0 and inl[7] == pytest.approx(0.0, abs=1e-12)
+    assert np.max(np.abs(inl)) == pytest.approx(0.017045, abs=1e-6)
+    assert np.max(np.abs(dnl)) == pytest.approx(0.034091, abs=1e-6)
+
+
+def test_best_fit_inl_has_zero_mean_and_slope():
+    """Least squares (identity): residuals of a best-fit line are orthogonal to 1 and k."""
+    inl, _ = inl_dnl(dac_levels(np.array([1.0, 2.0, 4.04]), 1.0), "best")
+    k = np.arange(8)
+    assert abs(inl.sum()) < 1e-9 and abs((inl * k).sum()) < 1e-9
+
+
+def test_cap_array_budget_runs_on_a_common_centroid_array():
+    spec = parse_spec('kind = "cap"\n[devices]\nCT = 1\nC0 = 1\nC1 = 2\nC2 = 4\n'
+                      '[electrical]\ntermination = "CT"\nmc_samples = 500\n', "c.toml")
+    pattern = parse_pattern("C2 C1 C2\nCT . C0\nC2 C1 C2").reordered(spec.devices)
+    b = budget(pattern, spec, grade_pattern(pattern, spec))
+    assert b.bits == ("C0", "C1", "C2") and len(b.gradient_inl_lsb) == 8
+    assert b.mc_inl_sigma_lsb > 0 and b.worst_gradient_inl_lsb >= 0
+
+
+@pytest.mark.parametrize("text, match", [
+    ("[devices]\nA = 1\nB = 1\n[electrical]\nlambda_per_v = 0.1\n",
+     r"missing vov_v \(overdrive, V\) or gm_id_per_v \(1/V\); \[electrical.vds_v\]"),
+    ("[devices]\nA = 1\n[electrical]\nvov_v = 0\nlambda_per_v = 0\n[electrical.vds_v]\nA = 1\n",
+     "vov_v must be > 0"),
+    ("[devices]\nA = 1\nB = 1\n[electrical]\nvov_v = 0.2\nlambda_per_v = 0\n"
+     "[electrical.vds_v]\nA = 1\n", r"\[electrical.vds_v\] missing B"),
+    ('kind = "cap"\n[devices]\nA = 1\nB = 2\n[electrical]\n', "missing termination"),
+    ('kind = "cap"\n[devices]\nA = 1\nB = 2\n[electrical]\ntermination = "A"\n'
+     "weights = { B = 3 }\n", "weight 3 does not match its 2 unit cells"),
+    ("[devices]\nA = 1\n[unit]\nlength_um = -1\n", "length_um must be > 0"),
+])
+def test_meaningless_or_missing_electrical_values_are_refused(text, match):
+    with pytest.raises(SpecError, match=match):
+        parse_spec(text, "e.toml")
+
+
+def test_budget_without_electrical_table_names_the_keys():
+    spec = parse_spec("[devices]\nA = 1\nB = 1\n", "e.toml")
+    pattern = parse_pattern("A B")
+    with pytest.raises(SpecError, match=r"needs an \[electrical\] table with vov_v"):
+        budget(pattern, spec, grade_pattern(pattern, spec))
