@@ -7,7 +7,7 @@ import signal
 import sys
 import time
 from collections.abc import Callable
-from dataclasses import asdict
+from dataclasses import asdict, replace
 from functools import wraps
 from pathlib import Path
 from typing import Any, TypeVar
@@ -19,8 +19,11 @@ from placer import __version__
 from placer.arrange import METHODS
 from placer.arrange import arrange as run_arrange
 from placer.errors import PlacerError
+from placer.layout import Recognised, read_layout
 from placer.output import atomic_write, prepare_out_dir
-from placer.pattern import Pattern, check_against_spec, format_pattern, read_pattern
+from placer.pattern import Pattern, check_against_spec, format_pattern
+from placer.repair import repair as run_repair
+from placer.repair import sensitivity
 from placer.report import format_arrangement, format_budget, format_grade, format_table
 from placer.score import Grade, grade_pattern
 from placer.search import Keys
@@ -68,37 +71,103 @@ def _budget(pattern: Pattern, spec: Spec, grade: Grade, required: bool) -> Any:
     return budget(pattern, spec, grade)
 
 
-def _load_graded(pattern_path: Path, spec_path: Path | None) -> tuple[Any, Spec]:
-    pattern = read_pattern(pattern_path)
-    if spec_path is None:
-        stem = pattern_path.stem
-        spec = default_spec(stem if stem.isidentifier() else "pattern", pattern.devices,
-                            pattern.counts())
-        return pattern, spec
-    spec = load_spec(spec_path)
-    return check_against_spec(pattern, spec, str(pattern_path)), spec
+def _layout_options(func: F) -> F:
+    """Options for reading a GDSII or CSV hand layout (shared by grade, draw, repair)."""
+    opts = [
+        click.option("--cell", default=None,
+                     help="GDSII: the cell holding the array (default: the one top cell)."),
+        click.option("--map", "mapping", multiple=True, metavar="CELL=DEVICE",
+                     help="GDSII: unlabelled units of CELL belong to DEVICE (repeatable)."),
+        click.option("--dummy-cell", "dummy_cells", multiple=True, metavar="CELL",
+                     help="GDSII: unlabelled units of CELL are dummies (cells named *DUMMY* "
+                          "always are)."),
+        click.option("--layers", "layers_path", type=_FILE, default=None,
+                     help="Layer map (TOML); its label layer is where device labels are read "
+                          "and, for draw, where everything is written."),
+    ]
+    for opt in reversed(opts):
+        func = opt(func)
+    return func
+
+
+def _parse_map(items: tuple[str, ...]) -> dict[str, str]:
+    out = {}
+    for item in items:
+        cell, sep, device = item.partition("=")
+        if not sep or not cell or not NAME_RE.match(device):
+            raise PlacerError(f"--map {item!r}: use CELL=DEVICE with a device name")
+        out[cell] = device
+    return out
+
+
+def _load_graded(path: Path, spec_path: Path | None, *, cell: str | None = None,
+                 mapping: tuple[str, ...] = (), dummy_cells: tuple[str, ...] = (),
+                 layers_path: Path | None = None, echo_notes: bool = False
+                 ) -> tuple[Pattern, Spec, Recognised]:
+    """Read a pattern, CSV or GDSII layout and the spec that grades it."""
+    from placer.gds import load_layers
+
+    spec = load_spec(spec_path) if spec_path is not None else None
+    label = load_layers(layers_path)["label"]
+    rec = read_layout(path, spec=spec, cell=cell, mapping=_parse_map(mapping),
+                      label_layer=label, dummy_cells=set(dummy_cells))
+    if echo_notes and rec.fmt != "pattern":
+        click.echo(f"Recognised ({rec.fmt}): " + "; ".join(rec.notes), err=True)
+    if spec is None:
+        stem = path.stem
+        spec = default_spec(stem if NAME_RE.match(stem) else "layout", rec.pattern.devices,
+                            rec.pattern.counts())
+        spec = replace(spec, array=replace(spec.array, pitch_um=rec.pitch_um))
+        return rec.pattern, spec, rec
+    if rec.fmt != "pattern" and tuple(rec.pitch_um) != tuple(spec.array.pitch_um):
+        click.echo(f"Note: {path} has pitch {rec.pitch_um[0]:g} x {rec.pitch_um[1]:g} um; "
+                   f"grading with it, not the spec's {spec.array.pitch_um[0]:g} x "
+                   f"{spec.array.pitch_um[1]:g} um", err=True)
+        spec = replace(spec, array=replace(spec.array, pitch_um=rec.pitch_um))
+    return check_against_spec(rec.pattern, spec, str(path)), spec, rec
+
+
+def _picture_path(path: Path | None) -> None:
+    if path is not None and path.suffix not in (".png", ".svg", ".pdf"):
+        raise PlacerError(f"{path}: the picture must end in .png, .svg or .pdf")
 
 
 @cli.command()
-@click.argument("pattern", type=_FILE)
+@click.argument("layout", type=_FILE)
 @click.option("--spec", "spec_path", type=_FILE, default=None,
               help="Spec file with pitch and model assumptions (defaults apply without it).")
 @click.option("--json", "as_json", is_flag=True, help="Print the figures as JSON on stdout.")
 @click.option("--budget-plot", type=click.Path(dir_okay=False, path_type=Path), default=None,
               help="Write the electrical budget picture (.png, .svg or .pdf); needs "
                    "[electrical] in the spec.")
+@click.option("--sensitivity-plot", type=click.Path(dir_okay=False, path_type=Path),
+              default=None, help="Write a picture shading each unit by how much it adds to "
+                                 "the worst pair's linear error.")
+@_layout_options
 @_user_errors
-def grade(pattern: Path, spec_path: Path | None, as_json: bool,
-          budget_plot: Path | None) -> None:
-    """Grade the arrangement in PATTERN: centroids, gradient errors and random sigmas.
+def grade(layout: Path, spec_path: Path | None, as_json: bool, budget_plot: Path | None,
+          sensitivity_plot: Path | None, cell: str | None, mapping: tuple[str, ...],
+          dummy_cells: tuple[str, ...], layers_path: Path | None) -> None:
+    """Grade the arrangement in LAYOUT: centroids, gradient errors and random sigmas.
 
-    With an [electrical] table in the spec, also the electrical budget: mirror current
-    error, capacitor-array INL/DNL or resistor ratio error.
+    LAYOUT is a pattern file, a GDSII layout or a CSV of unit centres
+    (x_um,y_um,device[,orientation]), told apart by content. With an [electrical] table
+    in the spec, also the electrical budget: mirror current error, capacitor-array
+    INL/DNL or resistor ratio error.
     """
-    pat, spec = _load_graded(pattern, spec_path)
-    if budget_plot is not None and budget_plot.suffix not in (".png", ".svg", ".pdf"):
-        raise PlacerError(f"{budget_plot}: the picture must end in .png, .svg or .pdf")
+    _picture_path(budget_plot)
+    _picture_path(sensitivity_plot)
+    pat, spec, rec = _load_graded(layout, spec_path, cell=cell, mapping=mapping,
+                                  dummy_cells=dummy_cells, layers_path=layers_path,
+                                  echo_notes=not as_json)
     result = grade_pattern(pat, spec)
+    worst_pair, sens = sensitivity(pat, spec.array.pitch_um, result,
+                                   spec.gradient.linear_ppm_per_um)
+    if sensitivity_plot is not None:
+        from placer.plot import save_sensitivity
+
+        save_sensitivity(pat, spec.array.pitch_um, sens, worst_pair, spec.name,
+                         [sensitivity_plot])
     bud = _budget(pat, spec, result, required=budget_plot is not None)
     if budget_plot is not None and bud is not None:
         from placer.plot import save_budget
@@ -107,9 +176,17 @@ def grade(pattern: Path, spec_path: Path | None, as_json: bool,
     if as_json:
         out = result.to_dict()
         out["budget"] = asdict(bud) if bud is not None else None
+        out["recognised"] = {"format": rec.fmt, "notes": rec.notes,
+                             "pitch_um": list(rec.pitch_um)}
+        out["sensitivity"] = {"pair": worst_pair, "units": [asdict(u) for u in sens]}
         click.echo(json.dumps(out, indent=2))
     else:
         click.echo(format_grade(result))
+        if sens:
+            top = ", ".join(f"{u.device} at row {u.row} col {u.col} "
+                            f"({u.x_um + rec.origin_um[0]:.4g}, {u.y_um + rec.origin_um[1]:.4g}"
+                            f" um): {u.contribution_ppm:+.3g} ppm" for u in sens[:3])
+            click.echo(f"Units adding most to the worst linear pair {worst_pair}: {top}")
         if bud is not None:
             click.echo("")
             click.echo(format_budget(bud))
@@ -244,7 +321,7 @@ def _draw_outputs(pattern: Pattern, spec: Spec, grade: Grade, out_dir: Path, ste
 def draw(pattern_path: Path, spec_path: Path | None, out_dir: Path, template: Path | None,
          layers: Path | None, overlay: bool, force: bool) -> None:
     """Write a GDSII stick pattern and preview pictures of PATTERN."""
-    pattern, spec = _load_graded(pattern_path, spec_path)
+    pattern, spec, _ = _load_graded(pattern_path, spec_path)
     stem = pattern_path.stem if NAME_RE.match(pattern_path.stem) else spec.name
     # read templates and layers before touching the folder: bad ones leave nothing behind
     from placer.gds import load_layers, load_template
@@ -298,3 +375,71 @@ def compare(spec_path: Path, out_dir: Path, seed: int, time_limit: float, force:
     click.echo(format_table(["arrangement", "linear ppm", "quad ppm", "sigma ppm", "wire um"],
                             rows_txt))
     click.echo("Wrote " + ", ".join(str(out_dir / n) for n in names))
+
+
+@cli.command()
+@click.argument("layout", type=_FILE)
+@click.option("--out", "out_dir", type=click.Path(file_okay=False, path_type=Path),
+              required=True, help="Folder for repaired.txt, .gds, .png, .svg and repair.json.")
+@click.option("--spec", "spec_path", type=_FILE, default=None,
+              help="Spec with the model assumptions (defaults apply without it).")
+@click.option("--max-swaps", type=click.IntRange(min=1, max=64), default=4, show_default=True,
+              help="At most this many pairwise unit swaps.")
+@click.option("--seed", type=click.IntRange(min=0), default=0, show_default=True,
+              help="Seed of the search that sets the target.")
+@click.option("--time-limit", "time_limit", type=click.FloatRange(min=0, min_open=True),
+              default=30.0, show_default=True, help="Safety cap on that search in seconds.")
+@click.option("--force", is_flag=True, help="Overwrite files already in --out.")
+@_layout_options
+@_user_errors
+def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, seed: int,
+           time_limit: float, force: bool, cell: str | None, mapping: tuple[str, ...],
+           dummy_cells: tuple[str, ...], layers_path: Path | None) -> None:
+    """Find the fewest unit swaps that bring LAYOUT's linear error to its best.
+
+    The target is the linear error the search reaches on the same slots; within
+    --max-swaps the quadratic error is lowered next. Prints the swaps by slot (row,
+    column, coordinates) with the scores before and after, and writes the repaired
+    pattern with its drawing.
+    """
+    pat, spec, rec = _load_graded(layout, spec_path, cell=cell, mapping=mapping,
+                                  dummy_cells=dummy_cells, layers_path=layers_path,
+                                  echo_notes=True)
+    names = ["repaired.txt", "repaired.gds", "repaired.png", "repaired.svg", "repair.json"]
+    prepare_out_dir(out_dir, names, force)
+    res = run_repair(pat, spec, spec.array.pitch_um, max_swaps, seed=seed,
+                     time_limit_s=time_limit)
+    px, py = spec.array.pitch_um
+    ox, oy = rec.origin_um
+
+    def where(slot: tuple[int, int]) -> str:
+        r, c = slot
+        return f"row {r}, col {c} ({ox + c * px:.4g}, {oy - r * py:.4g} um)"
+
+    lines = []
+    for i, sw in enumerate(res.swaps, start=1):
+        lines.append(f"  {i}. swap {sw.first_device} at {where(sw.first)} with "
+                     f"{sw.second_device} at {where(sw.second)}")
+    g = spec.gradient.linear_ppm_per_um
+    b, a = res.before, res.after
+    head = (f"{len(res.swaps)} swap(s)" if res.swaps else "No swap improves this layout")
+    click.echo(head + (":" if res.swaps else "."))
+    for ln in lines:
+        click.echo(ln)
+    click.echo(f"Linear worst pair: {b.linear_um:.4g} um ({b.linear_um * g:.4g} ppm) -> "
+               f"{a.linear_um:.4g} um ({a.linear_um * g:.4g} ppm); target "
+               f"{res.target_linear_um:.4g} um " + ("reached" if res.reached_target else
+                                                   f"not reached in {max_swaps} swaps"))
+    click.echo(f"Quadratic worst pair: {b.quadratic_ppm:.4g} ppm -> {a.quadratic_ppm:.4g} ppm")
+    header = [f"{spec.name} repaired from {layout.name} with {len(res.swaps)} swap(s)",
+              *(ln.strip() for ln in lines)]
+    atomic_write(out_dir / "repaired.txt", format_pattern(res.pattern, header))
+    grade = grade_pattern(res.pattern, spec)
+    _draw_outputs(res.pattern, spec, grade, out_dir, "repaired", None, layers_path)
+    report = {"layout": str(layout), "recognised": rec.notes,
+              "swaps": [asdict(sw) for sw in res.swaps], "before": asdict(b),
+              "after": asdict(a), "target_linear_um": res.target_linear_um,
+              "reached_target": res.reached_target, "grade": grade.to_dict()}
+    atomic_write(out_dir / "repair.json", json.dumps(report, indent=2) + "\n")
+    click.echo(f"Wrote {out_dir}/repaired.txt, repaired.gds, repaired.png, repaired.svg, "
+               "repair.json")

@@ -22,7 +22,7 @@ from placer.pattern import DUMMY, EMPTY, Pattern
 from placer.score import Grade
 
 __all__ = ["PALETTE", "DUMMY_COLOUR", "device_colours", "draw_pattern", "save_preview",
-           "save_comparison", "direction_errors", "save_budget"]
+           "save_comparison", "direction_errors", "save_budget", "save_sensitivity"]
 
 #: Okabe-Ito colours [1] without black (kept for text), most distinct first.
 PALETTE = ("#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#CC79A7",
@@ -311,4 +311,48 @@ def save_budget(b: Any, name: str, paths: Sequence[Path], seed: int = 0) -> None
         ax.set_xlabel("ratio error (%)")
     axes[0].set_ylabel("parts (Monte Carlo, random gradient direction)")
     fig.suptitle(f"{name}: electrical budget (model estimates)", fontsize=10)
+    _save(fig, paths)
+
+
+def save_sensitivity(pattern: Pattern, pitch_um: tuple[float, float], units: Sequence[Any],
+                     pair: str, name: str, paths: Sequence[Path]) -> None:
+    """Shade every unit of the worst pair by its share of that pair's linear error."""
+    from matplotlib.collections import PatchCollection
+    from matplotlib.colors import TwoSlopeNorm
+    from matplotlib.patches import Rectangle
+
+    px, py = pitch_um
+    rows, cols = pattern.shape
+    fig = _figure(float(np.clip(cols * px / max(cols * px, rows * py) * 7, 3, 9)) + 2.0,
+                  float(np.clip(rows * py / max(cols * px, rows * py) * 7, 2, 9)) + 1.2)
+    fig.set_layout_engine("constrained")
+    ax = fig.add_subplot()
+    grey = []
+    for r in range(rows):
+        for c in range(cols):
+            if pattern.ids[r, c] != EMPTY:
+                grey.append(Rectangle((c * px - 0.46 * px, -r * py - 0.46 * py), 0.92 * px,
+                                      0.92 * py))
+    ax.add_collection(PatchCollection(grey, facecolor="#eeeeee", edgecolor="#bbbbbb",
+                                      linewidth=0.5))
+    if units:
+        vals = np.array([u.contribution_ppm for u in units])
+        lim = max(float(np.abs(vals).max()), 1e-12)
+        rects = [Rectangle((u.col * px - 0.46 * px, -u.row * py - 0.46 * py), 0.92 * px,
+                           0.92 * py) for u in units]
+        coll = PatchCollection(rects, cmap="RdBu_r", norm=TwoSlopeNorm(0.0, -lim, lim),
+                               edgecolor="black", linewidth=0.5)
+        coll.set_array(vals)
+        ax.add_collection(coll)
+        fig.colorbar(coll, ax=ax, label="contribution to the error (ppm)", shrink=0.8)
+        if rows * cols <= 400:
+            for u in units:
+                ax.text(u.col * px, -u.row * py, u.device, ha="center", va="center",
+                        fontsize=7)
+    margin = 0.3 * min(px, py)
+    ax.set_xlim(-0.5 * px - margin, (cols - 0.5) * px + margin)
+    ax.set_ylim(-(rows - 0.5) * py - margin, 0.5 * py + margin)
+    ax.set_aspect("equal")
+    ax.set_title(f"{name}: units shaded by their share of the {pair} linear error "
+                 "(red adds, blue cancels)", fontsize=9)
     _save(fig, paths)

@@ -189,46 +189,51 @@ class _Geometry:
         np.add.at(out, assign, self.mono)   # assign == -1 lands in the last row
         return out
 
-    def terms(self, sums: FloatArray) -> tuple[FloatArray, FloatArray, FloatArray]:
-        """Smoothed worst-pair linear (um), quadratic (ppm) and higher-order keys.
+    def pair_terms(self, sums: FloatArray) -> tuple[FloatArray, FloatArray, list[FloatArray]]:
+        """Per-pair linear (um), quadratic (ppm) and higher-order terms, shape (..., pairs).
 
-        ``sums`` has shape (..., n_dev + 1, C); the keys are the worst pair plus 5 % of the
-        mean pair, so the search also improves pairs that are not yet the worst. Sums hold
-        integers below 2**53, so the differences that make a key zero are exact.
+        ``sums`` has shape (..., n_dev + 1, C). Sums hold integers below 2**53, so the
+        differences n_b S_a - n_a S_b that make a term zero are exact.
         """
-        pa, pb = self.pa, self.pb
-        if len(pa) == 0:
-            lead = sums.shape[:-2]
-            return np.zeros(lead), np.zeros(lead), np.zeros(lead + (self.order - 2,))
-        num = sums[..., pa, :] * self._nb - sums[..., pb, :] * self._na
+        num = sums[..., self.pa, :] * self._nb - sums[..., self.pb, :] * self._na
         delta = num * self._coef
         sq = delta * delta
         lin = np.sqrt(sq[..., 0] + sq[..., 1])
         quad = self._hq * np.sqrt(sq[..., 2] + sq[..., 3] + sq[..., 4])
-        mean = 0.05 / len(pa)
+        hi = [self._hk[k] * np.sqrt(sq[..., sl].sum(-1))
+              for k, sl in self._slices.items() if k >= 3]
+        return lin, quad, hi
+
+    def terms(self, sums: FloatArray) -> tuple[FloatArray, FloatArray, FloatArray]:
+        """Smoothed worst-pair keys: the worst pair plus 5 % of the mean pair.
+
+        The smoothing lets the search improve pairs that are not yet the worst.
+        """
+        if len(self.pa) == 0:
+            lead = sums.shape[:-2]
+            return np.zeros(lead), np.zeros(lead), np.zeros(lead + (self.order - 2,))
+        lin, quad, hi = self.pair_terms(sums)
+        mean = 0.05 / len(self.pa)
         lin_key = lin.max(-1) + mean * lin.sum(-1)
         quad_key = quad.max(-1) + mean * quad.sum(-1)
-        hi = [(self._hk[k] * np.sqrt(sq[..., sl].sum(-1))).max(-1)
-              for k, sl in self._slices.items() if k >= 3]
-        higher = np.stack(hi, -1) if hi else np.zeros(lin_key.shape + (0,))
+        higher = (np.stack([h.max(-1) for h in hi], -1) if hi
+                  else np.zeros(lin_key.shape + (0,)))
         return lin_key, quad_key, higher
+
+    def worst_batch(self, sums: FloatArray) -> tuple[FloatArray, FloatArray]:
+        """Unsmoothed worst-pair linear (um) and quadratic (ppm) over leading axes."""
+        if len(self.pa) == 0:
+            lead = sums.shape[:-2]
+            return np.zeros(lead), np.zeros(lead)
+        lin, quad, _ = self.pair_terms(sums)
+        return lin.max(-1), quad.max(-1)
 
     def worst(self, sums: FloatArray) -> tuple[float, float, tuple[float, ...]]:
         """Worst-pair linear (um), quadratic (ppm) and higher-order figures, no smoothing."""
-        n, pa, pb = self.n, self.pa, self.pb
-        if len(pa) == 0:
+        if len(self.pa) == 0:
             return 0.0, 0.0, tuple(0.0 for _ in range(3, self.order + 1))
-        num = n[pb, None] * sums[pa] - n[pa, None] * sums[pb]
-        delta = num * (self.scale / (n[pa] * n[pb])[:, None])
-        sq = self.weight * delta * delta
-        lin = float(np.sqrt(sq[:, self.orders == 1].sum(-1)).max())
-        quad = float((0.5 * self.prob.quadratic_ppm_per_um2
-                      * np.sqrt(sq[:, self.orders == 2].sum(-1))).max())
-        hi = tuple(float((self.prob.quadratic_ppm_per_um2 / factorial(k)
-                          * np.sqrt(sq[:, self.orders == k].sum(-1))
-                          / self.radius ** (k - 2)).max())
-                   for k in range(3, self.order + 1))
-        return lin, quad, hi
+        lin, quad, hi = self.pair_terms(sums)
+        return float(lin.max()), float(quad.max()), tuple(float(h.max()) for h in hi)
 
 
 class _Field:
@@ -411,13 +416,9 @@ def _exhaustive(prob: Problem, geo: _Geometry
     for d in range(prob.n_dev + 1):
         mask = (every == (d if d < prob.n_dev else -1)).astype(np.float64)
         sums[:, d] = mask @ geo.mono
-    n, pa, pb = geo.n, geo.pa, geo.pb
-    if len(pa):
-        num = n[pb, None] * sums[:, pa] - n[pa, None] * sums[:, pb]
-        delta = num * (geo.scale / (n[pa] * n[pb])[:, None])
-        sq = geo.weight * delta * delta
-        norms = [np.sqrt(sq[..., geo.orders == k].sum(-1)).max(-1)
-                 for k in range(1, geo.order + 1)]
+    if len(geo.pa):
+        lin_p, quad_p, hi_p = geo.pair_terms(sums)
+        norms = [lin_p.max(-1), quad_p.max(-1), *(h.max(-1) for h in hi_p)]
     else:
         norms = [np.zeros(len(every)) for _ in range(geo.order)]
     lin = norms[0]
