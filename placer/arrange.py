@@ -66,7 +66,6 @@ class Arrangement:
             "linear_bound_um": self.linear_bound_um,
             "bound_proven": self.bound_proven,
             "stopped": self.stopped,
-            "elapsed_s": self.elapsed_s,
             "iterations": self.iterations,
             "baselines": {k: asdict(v) for k, v in self.baselines.items()},
             "routing": asdict(self.routing),

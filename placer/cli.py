@@ -6,7 +6,8 @@ import json
 import signal
 import sys
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
 from dataclasses import asdict, replace
 from functools import wraps
 from pathlib import Path
@@ -200,6 +201,22 @@ def _sigterm_as_interrupt() -> None:
     signal.signal(signal.SIGTERM, handler)
 
 
+@contextmanager
+def _deferred_signals() -> Iterator[list[int]]:
+    """Hold SIGINT and SIGTERM until the block ends; yields the signals that came."""
+    caught: list[int] = []
+
+    def hold(signum: int, frame: object) -> None:
+        caught.append(signum)
+
+    old = {sig: signal.signal(sig, hold) for sig in (signal.SIGINT, signal.SIGTERM)}
+    try:
+        yield caught
+    finally:
+        for sig, handler in old.items():
+            signal.signal(sig, handler)
+
+
 class _Progress:
     """One self-overwriting stderr line with the best keys so far (terminals only)."""
 
@@ -253,27 +270,29 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
                              n_candidates=n_candidates, progress=progress)
     finally:
         progress.done()
-    header = [f"{spec.name}: {result.method}, core {result.core_shape[0]} x "
-              f"{result.core_shape[1]}, seed {seed}",
-              f"linear {result.keys.linear_um:.6g} um (bound {result.linear_bound_um:.6g}), "
-              f"quadratic {result.keys.quadratic_ppm:.6g} ppm, sigma "
-              f"{result.keys.sigma_ppm:.6g} ppm"]
-    atomic_write(out_dir / "pattern.txt", format_pattern(result.pattern, header))
-    report = {"spec": str(spec_path), "name": spec.name, "seed": seed,
-              "time_limit_s": time_limit, **result.to_dict(),
-              "pattern": format_pattern(result.pattern)}
-    for i, cand in enumerate(result.candidates, start=1):
-        atomic_write(out_dir / f"candidate-{i}.txt", format_pattern(cand.pattern, [
-            f"{spec.name} candidate {i}: systematic {cand.systematic_ppm:.6g} ppm, "
-            f"routing {cand.routing_um:.6g} um"]))
-    bud = _budget(result.pattern, spec, result.grade, required=False)
-    report["budget"] = asdict(bud) if bud is not None else None
-    atomic_write(out_dir / "report.json", json.dumps(report, indent=2) + "\n")
-    _draw_outputs(result.pattern, spec, result.grade, out_dir, "pattern", None, None)
-    if bud is not None:
-        from placer.plot import save_budget
+    # the search is over: finish the outputs as one set before honouring a signal
+    with _deferred_signals() as caught:
+        header = [f"{spec.name}: {result.method}, core {result.core_shape[0]} x "
+                  f"{result.core_shape[1]}, seed {seed}",
+                  f"linear {result.keys.linear_um:.6g} um (bound {result.linear_bound_um:.6g}), "
+                  f"quadratic {result.keys.quadratic_ppm:.6g} ppm, sigma "
+                  f"{result.keys.sigma_ppm:.6g} ppm"]
+        atomic_write(out_dir / "pattern.txt", format_pattern(result.pattern, header))
+        report = {"spec": str(spec_path), "name": spec.name, "seed": seed,
+                  "time_limit_s": time_limit, **result.to_dict(),
+                  "pattern": format_pattern(result.pattern)}
+        for i, cand in enumerate(result.candidates, start=1):
+            atomic_write(out_dir / f"candidate-{i}.txt", format_pattern(cand.pattern, [
+                f"{spec.name} candidate {i}: systematic {cand.systematic_ppm:.6g} ppm, "
+                f"routing {cand.routing_um:.6g} um"]))
+        bud = _budget(result.pattern, spec, result.grade, required=False)
+        report["budget"] = asdict(bud) if bud is not None else None
+        atomic_write(out_dir / "report.json", json.dumps(report, indent=2) + "\n")
+        _draw_outputs(result.pattern, spec, result.grade, out_dir, "pattern", None, None)
+        if bud is not None:
+            from placer.plot import save_budget
 
-        save_budget(bud, spec.name, [out_dir / "budget.png"])
+            save_budget(bud, spec.name, [out_dir / "budget.png"])
     click.echo(format_arrangement(result, spec))
     if bud is not None:
         click.echo("")
@@ -281,6 +300,9 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
     click.echo(f"\nWrote {out_dir}/pattern.txt, report.json, pattern.gds, pattern.png, "
                "pattern.svg" + (f" and {len(result.candidates)} candidates"
                                 if result.candidates else ""))
+    if caught:
+        click.echo("Interrupted after the search; the outputs above are complete.", err=True)
+        sys.exit(130)
 
 
 def _draw_outputs(pattern: Pattern, spec: Spec, grade: Grade, out_dir: Path, stem: str,

@@ -43,6 +43,23 @@ def _figure(width_in: float, height_in: float) -> Any:
     return Figure(figsize=(width_in, height_in))
 
 
+def _write_figure(fig: Any, path: Path, dpi: int) -> None:
+    """Save with no dates and fixed SVG ids, so the same input gives the same bytes."""
+    import io
+
+    import matplotlib
+
+    from placer.output import atomic_write
+
+    buf = io.BytesIO()
+    fmt = path.suffix.lstrip(".")
+    meta = {"CreationDate": None} if fmt == "pdf" else ({"Date": None} if fmt == "svg"
+                                                       else {})
+    with matplotlib.rc_context({"svg.hashsalt": "placer"}):
+        fig.savefig(buf, format=fmt, dpi=dpi, metadata=meta)
+    atomic_write(path, buf.getvalue())
+
+
 def draw_pattern(ax: Any, pattern: Pattern, pitch_um: tuple[float, float],
                  grade: Grade | None = None, *, names: bool | None = None,
                  markers: bool = True, arrows: bool = True,
@@ -161,7 +178,6 @@ def save_preview(pattern: Pattern, pitch_um: tuple[float, float], grade: Grade |
                  name: str, paths: Sequence[Path], *, dpi: int = 110,
                  gradient: tuple[float, float] | None = None) -> None:
     """Write the preview picture to each of ``paths`` (format from the suffix)."""
-    from placer.output import atomic_write
 
     rows, cols = pattern.shape
     px, py = pitch_um
@@ -175,14 +191,7 @@ def save_preview(pattern: Pattern, pitch_um: tuple[float, float], grade: Grade |
     _legend(ax, pattern, grade)
     ax.set_title(_title(name, grade), fontsize=9, loc="left")
     for path in paths:
-        import io
-
-        buf = io.BytesIO()
-        fmt = path.suffix.lstrip(".")
-        meta = {"Date": None} if fmt == "svg" else ({"CreationDate": None} if fmt == "pdf"
-                                                      else {})
-        fig.savefig(buf, format=fmt, dpi=dpi, metadata=meta)
-        atomic_write(path, buf.getvalue())
+        _write_figure(fig, path, dpi)
 
 
 def direction_errors(grade_pairs: Sequence[Any], theta: np.ndarray, g_ppm_per_um: float,
@@ -202,7 +211,6 @@ def save_comparison(entries: Sequence[tuple[str, Pattern, Grade, float]],
                     paths: Sequence[Path]) -> None:
     """One page: the arrangements side by side, a bar chart of their scores and the ratio
     error against gradient direction. ``entries`` holds (label, pattern, grade, routing)."""
-    from placer.output import atomic_write
 
     n = len(entries)
     fig = _figure(4.2 * n, 10.5)
@@ -247,27 +255,12 @@ def save_comparison(entries: Sequence[tuple[str, Pattern, Grade, float]],
                  f"{g_ppm_per_um:g} ppm/um", fontsize=9)
     ax.legend(loc="upper left", bbox_to_anchor=(1.05, 1.0), fontsize=8)
     for path in paths:
-        import io
-
-        buf = io.BytesIO()
-        fmt = path.suffix.lstrip(".")
-        meta = {"CreationDate": None} if fmt == "pdf" else {}
-        fig.savefig(buf, format=fmt, dpi=100, metadata=meta)
-        atomic_write(path, buf.getvalue())
+        _write_figure(fig, path, 100)
 
 
 def _save(fig: Any, paths: Sequence[Path], dpi: int = 100) -> None:
-    import io
-
-    from placer.output import atomic_write
-
     for path in paths:
-        buf = io.BytesIO()
-        fmt = path.suffix.lstrip(".")
-        meta = {"CreationDate": None} if fmt == "pdf" else ({"Date": None} if fmt == "svg"
-                                                           else {})
-        fig.savefig(buf, format=fmt, dpi=dpi, metadata=meta)
-        atomic_write(path, buf.getvalue())
+        _write_figure(fig, path, dpi)
 
 
 def save_budget(b: Any, name: str, paths: Sequence[Path], seed: int = 0) -> None:

@@ -237,23 +237,42 @@ class _Geometry:
 
 
 class _Field:
-    """Covariance of device means of the correlated field, kept up to date per swap."""
+    """Covariance of device means of the correlated field, kept up to date per swap.
+
+    The slots' correlation matrix K is never stored: G = K E (slots x devices) is built
+    in row blocks, single entries and columns of K are computed when needed, so memory
+    grows linearly with the number of slots.
+    """
 
     def __init__(self, prob: Problem, geo: _Geometry, assign: IntArray):
-        xy = np.column_stack([geo.u * prob.pitch_um[0] / 2.0, geo.v * prob.pitch_um[1] / 2.0])
-        diff = xy[:, None, :] - xy[None, :, :]
-        self.k = model.correlation(np.sqrt((diff * diff).sum(-1)), prob.corr_length_um,
-                                   prob.kernel)
+        self.xy = np.column_stack([geo.u * prob.pitch_um[0] / 2.0,
+                                   geo.v * prob.pitch_um[1] / 2.0])
+        self.length, self.kernel = prob.corr_length_um, prob.kernel
         n_dummy = int(np.sum(assign < 0))
         self.n = np.array([*prob.counts, max(n_dummy, 1)], dtype=float)
         self.sigma = prob.corr_sigma_ppm
         self.pa, self.pb = geo.pa, geo.pb
         self.reset(assign)
 
+    def k_at(self, i: IntArray, j: IntArray) -> FloatArray:
+        """Correlation of slot pairs (i, j), elementwise."""
+        d = self.xy[i] - self.xy[j]
+        return model.correlation(np.sqrt((d * d).sum(-1)), self.length, self.kernel)
+
+    def k_col(self, j: int) -> FloatArray:
+        """Column j of the slots' correlation matrix."""
+        d = self.xy - self.xy[j]
+        return model.correlation(np.sqrt((d * d).sum(-1)), self.length, self.kernel)
+
     def reset(self, assign: IntArray) -> None:
         e = np.zeros((len(assign), len(self.n)))
         e[np.arange(len(assign)), assign] = 1.0 / self.n[assign]
-        self.g = self.k @ e                      # (S, D+1)
+        self.g = np.empty_like(e)               # (S, D+1) = K E, in row blocks
+        for start in range(0, len(assign), 512):
+            stop = min(start + 512, len(assign))
+            d = self.xy[start:stop, None, :] - self.xy[None, :, :]
+            k = model.correlation(np.sqrt((d * d).sum(-1)), self.length, self.kernel)
+            self.g[start:stop] = k @ e
         self.cov = e.T @ self.g                  # (D+1, D+1)
 
     def worst(self, cov: FloatArray) -> FloatArray:
@@ -278,11 +297,11 @@ class _Field:
         two = s2 >= 0
         s2c, t2c = np.where(two, s2, s), np.where(two, t2, t)
         w = two.astype(float)
-        k = self.k
+        k = self.k_at
         g = self.g[t] - self.g[s] + w[:, None] * (self.g[t2c] - self.g[s2c])
-        q = (2.0 - 2.0 * k[s, t]) + w * (2.0 - 2.0 * k[s2c, t2c]
-                                         + 2.0 * k[t, t2c] + 2.0 * k[s, s2c]
-                                         - 2.0 * k[t, s2c] - 2.0 * k[s, t2c])
+        q = (2.0 - 2.0 * k(s, t)) + w * (2.0 - 2.0 * k(s2c, t2c)
+                                         + 2.0 * k(t, t2c) + 2.0 * k(s, s2c)
+                                         - 2.0 * k(t, s2c) - 2.0 * k(s, t2c))
         na, nb = self.n[a], self.n[b]
         cov[idx, a, :] += g / na[:, None]
         cov[idx, :, a] += g / na[:, None]
@@ -296,9 +315,9 @@ class _Field:
 
     def accept(self, a: int, b: int, s: int, t: int, s2: int, t2: int,
                cov: FloatArray) -> None:
-        d = self.k[:, t] - self.k[:, s]
+        d = self.k_col(t) - self.k_col(s)
         if s2 >= 0:
-            d = d + self.k[:, t2] - self.k[:, s2]
+            d = d + self.k_col(t2) - self.k_col(s2)
         self.g[:, a] += d / self.n[a]
         self.g[:, b] -= d / self.n[b]
         self.cov = cov
