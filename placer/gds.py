@@ -266,22 +266,44 @@ def _track_pitch(px: float) -> float:
 
 def _shared_diffusion(top: Any, pattern: Pattern, spec: Spec, template: Template,
                       rect: Any) -> None:
-    """Join the diffusion of neighbouring fingers whose facing terminals share a net."""
+    """Draw each run of fingers that share diffusion as one continuous polygon.
+
+    Neighbouring fingers share diffusion where their facing terminals are the same net
+    (a common source, or the same device's drain) or one of them is a dummy; elsewhere
+    the run breaks. Each run is the union (shapely) of its fingers' diffusion and the
+    joins between them.
+    """
+    from shapely.geometry import box
+    from shapely.ops import unary_union
+
     diff = [s for s in template.shapes if s.purpose == "diffusion"]
     if not diff:
         return
     px, py = spec.array.pitch_um
-    y0, y1 = diff[0].y0, diff[0].y1
+    d0 = diff[0]
     for r in range(pattern.shape[0]):
         ids, marks = pattern.ids[r], pattern.orient[r]
-        for c in range(1, pattern.shape[1]):
+        y = -r * py
+        pieces = []
+        for c in range(pattern.shape[1]):
+            if ids[c] == -2:
+                continue
+            pieces.append(box(c * px + d0.x0, y + d0.y0, c * px + d0.x1, y + d0.y1))
+            if c == 0:
+                continue
             a, b = int(ids[c - 1]), int(ids[c])
-            if a == -2 or b == -2:
+            if a == -2:
                 continue
             joined = (a < 0 or b < 0 or finger_terminals(a, int(marks[c - 1]))[1]
                       == finger_terminals(b, int(marks[c]))[0])
             if joined:
-                rect(top, "diffusion", (c - 1) * px, -r * py + y0, c * px, -r * py + y1)
+                pieces.append(box((c - 1) * px, y + d0.y0, c * px, y + d0.y1))
+        merged = unary_union(pieces)
+        for poly in getattr(merged, "geoms", [merged]):
+            if poly.is_empty:
+                continue
+            x0, y0, x1, y1 = poly.bounds
+            rect(top, "diffusion", x0, y0, x1, y1)
 
 
 def _stick_wiring(top: Any, pattern: Pattern, spec: Spec, layers: LayerMap) -> None:

@@ -11,7 +11,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from placer.errors import LimitError, PatternError
-from placer.spec import MAX_FILE_BYTES, MAX_SLOTS, Spec
+from placer.spec import MAX_SLOTS, Spec, read_text
 
 __all__ = [
     "DUMMY",
@@ -169,19 +169,7 @@ def _token(pattern: Pattern, i: int, o: int) -> str:
 def read_pattern(path: str | Path) -> Pattern:
     """Read the pattern file at ``path``."""
     path = Path(path)
-    try:
-        size = path.stat().st_size
-        if size > MAX_FILE_BYTES:
-            raise LimitError(f"{path}: file is {size} bytes, the limit for a pattern is "
-                             f"{MAX_FILE_BYTES}")
-        raw = path.read_bytes()
-    except OSError as err:
-        raise PatternError(f"{path}: cannot read: {err.strerror or err}") from err
-    try:
-        text = raw.decode("utf-8")
-    except UnicodeDecodeError as err:
-        raise PatternError(f"{path}: not a UTF-8 text file (byte {err.start})") from err
-    return parse_pattern(text, source=str(path))
+    return parse_pattern(read_text(path, "pattern", PatternError), source=str(path))
 
 
 def check_against_spec(pattern: Pattern, spec: Spec, source: str) -> Pattern:

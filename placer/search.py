@@ -540,26 +540,33 @@ class _Anneal:
             return True
         return False
 
-    def run_moments(self, stage: str, budget: int, partner: IntArray | None,
-                    lin_cap: float | None, orbit_share: float = 0.0) -> None:
-        """Anneal the linear key (lin_cap None) or the quadratic keys under a linear cap."""
-        geo = self.geo
-        idx_a = np.arange(_BATCH)
+    def _propose(self, partner: IntArray | None, orbit_share: float) -> _Batch | None:
+        """A batch of random moves with the moment sums each would give."""
+        s, t, s2, t2, a, b = self._moves(partner, orbit_share)
+        if len(s) == 0:
+            return None
+        d = self._delta(s, t, s2, t2)
+        m = len(s)
+        trial = np.broadcast_to(self.sums, (m, *self.sums.shape)).copy()
+        idx = np.arange(m)
+        trial[idx, a] += d
+        trial[idx, b] -= d
+        return _Batch(s, t, s2, t2, a, b, d, trial)
 
-        weighted = self.prob.objective == "weighted"
-        g_lin = self.prob.linear_ppm_per_um
+    def _anneal(self, budget: int, partner: IntArray | None, orbit_share: float,
+                current: float, score: Callable[[_Batch], FloatArray],
+                commit: Callable[[_Batch, int], None],
+                on_best: Callable[[], None] | None = None) -> None:
+        """The annealing loop both stages share [1].
 
-        def energy(sums: FloatArray) -> FloatArray:
-            lin, quad, hi = geo.terms(sums)
-            if weighted:
-                return lin * g_lin + quad + (hi * (1e-3 ** np.arange(1, hi.shape[-1] + 1))).sum(-1)
-            if lin_cap is None:
-                return lin
-            e = quad + (hi * (1e-3 ** np.arange(1, hi.shape[-1] + 1))).sum(-1)
-            return np.where(lin <= lin_cap * (1 + 1e-12) + 1e-15, e, np.inf)
-
-        cur = float(energy(self.sums))
-        best, best_assign, best_sums = cur, self.assign.copy(), self.sums.copy()
+        Each step draws a batch, scores it (inf = not allowed), takes the best move if it
+        improves or with the Metropolis probability at a temperature falling geometrically
+        from the first batch's median uphill step to 1e-4 of it. Stops at the budget, after
+        ``patience`` steps without a new best once 30 % of the budget is spent, at a zero
+        energy, at the time limit or on Ctrl-C; leaves the best state found.
+        """
+        cur = best = current
+        best_assign, best_sums = self.assign.copy(), self.sums.copy()
         if best == 0.0:
             return
         temp0 = None
@@ -570,19 +577,14 @@ class _Anneal:
                 self.iterations += 1
                 if it % 64 == 0 and self._stop():
                     break
-                s, t, s2, t2, a, b = self._moves(partner, orbit_share)
-                if len(s) == 0:
+                batch = self._propose(partner, orbit_share)
+                if batch is None:
                     continue
-                d = self._delta(s, t, s2, t2)
-                m = len(s)
-                trial = np.broadcast_to(self.sums, (m, *self.sums.shape)).copy()
-                trial[idx_a[:m], a] += d
-                trial[idx_a[:m], b] -= d
-                e = energy(trial)
+                e = score(batch)
                 i = int(np.argmin(e))
-                de = float(e[i]) - cur
                 if not np.isfinite(e[i]):
                     continue
+                de = float(e[i]) - cur
                 if temp0 is None:
                     pos = e[np.isfinite(e)] - cur
                     pos = pos[pos > 0]
@@ -590,14 +592,15 @@ class _Anneal:
                 frac = it / max(budget - 1, 1)
                 temp = temp0 * (1e-4 ** frac)
                 if de <= 0 or self.rng.random() < np.exp(-de / max(temp, 1e-300)):
-                    self._apply(int(s[i]), int(t[i]), int(s2[i]), int(t2[i]), int(a[i]), int(b[i]),
-                                d[i])
+                    commit(batch, i)
+                    self._apply(int(batch.s[i]), int(batch.t[i]), int(batch.s2[i]),
+                                int(batch.t2[i]), int(batch.a[i]), int(batch.b[i]), batch.d[i])
                     cur = float(e[i])
-                if cur < best - 1e-15:
+                if cur < best - 1e-12 * max(1.0, abs(best)):
                     best, best_assign, best_sums = cur, self.assign.copy(), self.sums.copy()
                     stale = 0
-                    if self.progress:
-                        self.progress(stage, evaluate_light(self.prob, geo, best_assign, best_sums))
+                    if on_best is not None:
+                        on_best()
                     if best == 0.0:
                         break
                 else:
@@ -608,6 +611,29 @@ class _Anneal:
             self.stopped = "interrupted"
         self.assign, self.sums = best_assign, best_sums
 
+    def run_moments(self, stage: str, budget: int, partner: IntArray | None,
+                    lin_cap: float | None, orbit_share: float = 0.0) -> None:
+        """Anneal the linear key (lin_cap None) or the quadratic keys under a linear cap."""
+        geo = self.geo
+        weighted = self.prob.objective == "weighted"
+        g_lin = self.prob.linear_ppm_per_um
+
+        def energy(sums: FloatArray) -> FloatArray:
+            lin, quad, hi = geo.terms(sums)
+            higher = (hi * (1e-3 ** np.arange(1, hi.shape[-1] + 1))).sum(-1)
+            if weighted:
+                return np.asarray(lin * g_lin + quad + higher)
+            if lin_cap is None:
+                return lin
+            return np.where(lin <= lin_cap * (1 + 1e-12) + 1e-15, quad + higher, np.inf)
+
+        def report() -> None:
+            if self.progress:
+                self.progress(stage, evaluate_light(self.prob, geo, self.assign, self.sums))
+
+        self._anneal(budget, partner, orbit_share, float(energy(self.sums)),
+                     lambda batch: energy(batch.trial), lambda batch, i: None, report)
+
     def run_balance(self, budget: int, lin_cap: float, quad_cap: float,
                     partner: IntArray | None, orbit_share: float) -> None:
         """Anneal edge balance, correlated sigma and tracks without losing the moment keys."""
@@ -617,15 +643,15 @@ class _Anneal:
         rows = np.arange(prob.n_slots) // prob.cols
         n_dev = prob.n_dev
         counts = np.array(prob.counts, dtype=float)
-        idx_a = np.arange(_BATCH)
         sig_scale = max(float(fld.worst(fld.cov)), 1e-9)
-        row_counts = np.zeros((prob.rows, n_dev + 1), dtype=np.int64)
-        np.add.at(row_counts, (rows, self.assign), 1)
-        edge_counts = np.zeros(n_dev + 1)
+        state: dict[str, Any] = {"rc": np.zeros((prob.rows, n_dev + 1), dtype=np.int64),
+                                 "ec": np.zeros(n_dev + 1)}
+        np.add.at(state["rc"], (rows, self.assign), 1)
         if edge is not None:
-            np.add.at(edge_counts, self.assign, edge)
+            np.add.at(state["ec"], self.assign, edge)
+        pending: dict[int, tuple[FloatArray, IntArray, FloatArray]] = {}
 
-        def scores(cov: FloatArray, rc: IntArray, ec: FloatArray) -> FloatArray:
+        def scores(cov: FloatArray, rc: Any, ec: Any) -> FloatArray:
             e = fld.worst(cov)
             if edge is not None:
                 share = ec[..., :n_dev] / counts
@@ -634,74 +660,60 @@ class _Anneal:
             tracks = (rc[..., :n_dev] > 0).sum((-1, -2))
             return np.asarray(e + prob.tie_ppm * tracks / max(prob.rows, 1))
 
-        cur = float(scores(fld.cov, row_counts, edge_counts))
-        best, best_assign = cur, self.assign.copy()
-        temp0 = None
-        stale = 0
-        patience = max(400, 3 * prob.n_slots)
-        try:
-            for it in range(budget):
-                self.iterations += 1
-                if it % 64 == 0 and self._stop():
-                    break
-                s, t, s2, t2, a, b = self._moves(partner, orbit_share)
-                if len(s) == 0:
-                    continue
-                m = len(s)
-                d = self._delta(s, t, s2, t2)
-                trial = np.broadcast_to(self.sums, (m, *self.sums.shape)).copy()
-                trial[idx_a[:m], a] += d
-                trial[idx_a[:m], b] -= d
-                lin, quad, _ = geo.terms(trial)
-                if prob.objective == "weighted":
-                    ok = lin * prob.linear_ppm_per_um + quad <= quad_cap
-                else:
-                    ok = (lin <= lin_cap * (1 + 1e-12) + 1e-15) & (quad <= quad_cap)
-                if not ok.any():
-                    continue
-                sel = np.nonzero(ok)[0]
-                s, t, s2, t2, a, b, d = s[sel], t[sel], s2[sel], t2[sel], a[sel], b[sel], d[sel]
-                m = len(sel)
-                cov = fld.propose(a, b, s, t, s2, t2)
-                rc = np.broadcast_to(row_counts, (m, *row_counts.shape)).copy()
-                ec = np.broadcast_to(edge_counts, (m, n_dev + 1)).copy()
-                for slots, sign_a in ((s, -1), (t, 1), (s2, -1), (t2, 1)):
-                    use = slots >= 0
-                    k = idx_a[:m][use]
-                    r = rows[slots[use]]
-                    np.add.at(rc, (k, r, a[use]), sign_a)
-                    np.add.at(rc, (k, r, b[use]), -sign_a)
-                    if edge is not None:
-                        w = edge[slots[use]]
-                        np.add.at(ec, (k, a[use]), sign_a * w)
-                        np.add.at(ec, (k, b[use]), -sign_a * w)
-                e = scores(cov, rc, ec)
-                i = int(np.argmin(e))
-                de = float(e[i]) - cur
-                if temp0 is None:
-                    pos = e - cur
-                    pos = pos[pos > 0]
-                    temp0 = float(np.median(pos)) if len(pos) else max(abs(cur), 1e-12)
-                frac = it / max(budget - 1, 1)
-                temp = temp0 * (1e-4 ** frac)
-                if de <= 0 or self.rng.random() < np.exp(-de / max(temp, 1e-300)):
-                    fld.accept(int(a[i]), int(b[i]), int(s[i]), int(t[i]), int(s2[i]), int(t2[i]),
-                               cov[i])
-                    row_counts, edge_counts = rc[i], ec[i]
-                    self._apply(int(s[i]), int(t[i]), int(s2[i]), int(t2[i]), int(a[i]), int(b[i]),
-                                d[i])
-                    cur = float(e[i])
-                if cur < best - 1e-12:
-                    best, best_assign = cur, self.assign.copy()
-                    stale = 0
-                else:
-                    stale += 1
-                    if stale > patience and frac > 0.3:
-                        break
-        except KeyboardInterrupt:
-            self.stopped = "interrupted"
-        self.assign = best_assign
-        self.sums = geo.sums(best_assign)
+        def score(batch: _Batch) -> FloatArray:
+            lin, quad, _ = geo.terms(batch.trial)
+            if prob.objective == "weighted":
+                ok = lin * prob.linear_ppm_per_um + quad <= quad_cap
+            else:
+                ok = (lin <= lin_cap * (1 + 1e-12) + 1e-15) & (quad <= quad_cap)
+            out = np.full(len(ok), np.inf)
+            sel = np.nonzero(ok)[0]
+            pending.clear()
+            if len(sel) == 0:
+                return out
+            a, b = batch.a[sel], batch.b[sel]
+            cov = fld.propose(a, b, batch.s[sel], batch.t[sel], batch.s2[sel], batch.t2[sel])
+            m = len(sel)
+            idx = np.arange(m)
+            rc = np.broadcast_to(state["rc"], (m, *state["rc"].shape)).copy()
+            ec = np.broadcast_to(state["ec"], (m, n_dev + 1)).copy()
+            for slots, sign in ((batch.s[sel], -1), (batch.t[sel], 1), (batch.s2[sel], -1),
+                                (batch.t2[sel], 1)):
+                use = slots >= 0
+                r = rows[slots[use]]
+                np.add.at(rc, (idx[use], r, a[use]), sign)
+                np.add.at(rc, (idx[use], r, b[use]), -sign)
+                if edge is not None:
+                    w = edge[slots[use]]
+                    np.add.at(ec, (idx[use], a[use]), sign * w)
+                    np.add.at(ec, (idx[use], b[use]), -sign * w)
+            out[sel] = scores(cov, rc, ec)
+            for k, j in enumerate(sel):
+                pending[int(j)] = (cov[k], rc[k], ec[k])
+            return out
+
+        def commit(batch: _Batch, i: int) -> None:
+            cov, rc, ec = pending[i]
+            fld.accept(int(batch.a[i]), int(batch.b[i]), int(batch.s[i]), int(batch.t[i]),
+                       int(batch.s2[i]), int(batch.t2[i]), cov)
+            state["rc"], state["ec"] = rc, ec
+
+        current = float(scores(fld.cov, state["rc"], state["ec"]))
+        self._anneal(budget, partner, orbit_share, current, score, commit)
+
+
+@dataclass
+class _Batch:
+    """Moves of one annealing step: device a gives slots (s, s2) to b for (t, t2)."""
+
+    s: IntArray
+    t: IntArray
+    s2: IntArray
+    t2: IntArray
+    a: IntArray
+    b: IntArray
+    d: FloatArray
+    trial: FloatArray
 
 
 def evaluate_light(prob: Problem, geo: _Geometry, assign: IntArray, sums: FloatArray) -> Keys:

@@ -9,7 +9,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from placer.errors import LimitError, SpecError
+from placer.errors import LimitError, PlacerError, SpecError
 
 __all__ = [
     "NAME_RE",
@@ -34,6 +34,7 @@ __all__ = [
     "load_spec",
     "parse_spec",
     "check_name",
+    "read_text",
 ]
 
 NAME_RE = re.compile(r"[A-Za-z][A-Za-z0-9_]*\Z")
@@ -280,19 +281,24 @@ def load_spec(path: str | Path) -> Spec:
         With a one-line message naming the file and the problem.
     """
     path = Path(path)
+    text = read_text(path, "spec", SpecError)
+    return parse_spec(text, source=str(path), default_name=path.stem)
+
+
+def read_text(path: Path, what: str, error: type[PlacerError]) -> str:
+    """A UTF-8 text file of at most MAX_FILE_BYTES, or ``error`` with one line."""
     try:
         size = path.stat().st_size
         if size > MAX_FILE_BYTES:
-            raise LimitError(f"{path}: file is {size} bytes, the limit for a spec is "
+            raise LimitError(f"{path}: file is {size} bytes, the limit for a {what} is "
                              f"{MAX_FILE_BYTES}")
         raw = path.read_bytes()
     except OSError as err:
-        raise SpecError(f"{path}: cannot read: {err.strerror or err}") from err
+        raise error(f"{path}: cannot read: {err.strerror or err}") from err
     try:
-        text = raw.decode("utf-8")
+        return raw.decode("utf-8")
     except UnicodeDecodeError as err:
-        raise SpecError(f"{path}: not a UTF-8 text file (byte {err.start})") from err
-    return parse_spec(text, source=str(path), default_name=path.stem)
+        raise error(f"{path}: not a UTF-8 text file (byte {err.start})") from err
 
 
 def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") -> Spec:

@@ -14,16 +14,14 @@ from __future__ import annotations
 import argparse
 import os
 import platform
-import re
 import sys
 import time
-from pathlib import Path
+
+from readme_block import replace_block  # this script's folder
 
 from placer.arrange import arrange, baseline_pattern, problem_for
 from placer.search import evaluate
 from placer.spec import parse_spec
-
-ROOT = Path(__file__).resolve().parents[2]
 
 
 def _binary(bits: int) -> str:
@@ -110,11 +108,7 @@ def main() -> int:
     table = "\n".join(lines)
     print(table)
     if args.update_readme:
-        readme = ROOT / "README.md"
-        text = readme.read_text()
-        new = re.sub(r"(<!-- bench:arrange -->\n).*?(\n<!-- /bench:arrange -->)",
-                     lambda m: m.group(1) + table + m.group(2), text, flags=re.S)
-        readme.write_text(new)
+        replace_block("bench:arrange", table)
     return 1 if failures else 0
 
 

@@ -13,7 +13,6 @@ from __future__ import annotations
 import argparse
 import hashlib
 import os
-import re
 import shutil
 import signal
 import sys
@@ -27,6 +26,7 @@ from pathlib import Path
 import numpy as np
 
 from placer.errors import PlacerError
+from tests.bench.readme_block import replace_block
 
 ROOT = Path(__file__).resolve().parents[2]
 SAMPLES = ROOT / "samples"
@@ -239,10 +239,7 @@ def main() -> int:
     table = "\n".join(rows)
     print(table)
     if args.update_readme:
-        readme = ROOT / "README.md"
-        text = readme.read_text()
-        readme.write_text(re.sub(r"(<!-- robustness -->\n).*?(\n<!-- /robustness -->)",
-                                 lambda m: m.group(1) + table + m.group(2), text, flags=re.S))
+        replace_block("robustness", table)
     return 1 if bad else 0
 
 

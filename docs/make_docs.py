@@ -1,0 +1,75 @@
+"""Regenerate the README's pictures and sample outputs from the tool itself.
+
+    python docs/make_docs.py
+
+Writes docs/bias_mirror.png (arrange's preview) and docs/bias_mirror-compare.png (the
+comparison sheet), and replaces the README blocks between <!-- sample:NAME --> markers
+with what the commands print, so no figure in the README is typed by hand.
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+import sys
+import tempfile
+from pathlib import Path
+
+from click.testing import CliRunner
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))   # run as a script from docs/: make tests.bench importable
+
+from placer.cli import cli  # noqa: E402
+from tests.bench.readme_block import replace_block  # noqa: E402
+
+
+def run(args: list[str]) -> str:
+    result = CliRunner().invoke(cli, args)
+    if result.exit_code != 0:
+        raise SystemExit(f"placer {' '.join(args)} failed:\n{result.output}")
+    return result.output
+
+
+def block(text: str) -> str:
+    return "```text\n" + text.rstrip() + "\n```"
+
+
+def section(output: str, start: str, stop: str | None = None) -> str:
+    lines = output.splitlines()
+    i = next(k for k, ln in enumerate(lines) if ln.startswith(start))
+    j = next((k for k, ln in enumerate(lines[i + 1:], i + 1)
+              if stop is not None and ln.startswith(stop)),
+             len(lines))
+    return "\n".join(lines[i:j])
+
+
+def main() -> None:
+    os.chdir(ROOT)          # relative paths in what the commands print
+    hand = "samples/bias_mirror_hand.gds"
+    spec = "samples/bias_mirror.toml"
+    blocks = {}
+    with tempfile.TemporaryDirectory() as tmp:
+        t = Path(tmp)
+        run(["arrange", spec, "--out", str(t / "a"), "--quiet"])
+        shutil.copy(t / "a" / "pattern.png", ROOT / "docs" / "bias_mirror.png")
+        run(["compare", spec, "--out", str(t / "c")])
+        shutil.copy(t / "c" / "bias_mirror-compare.png", ROOT / "docs"
+                    / "bias_mirror-compare.png")
+        graded = run(["grade", hand, "--spec", spec, "--sensitivity-plot", str(t / "s.png")])
+        blocks["grade"] = block(
+            section(graded, "Recognised", "bias_mirror:") + "\n...\n"
+            + section(graded, "Pairs", "Worst linear")
+            + "\n" + section(graded, "Units adding most", ""))
+        repaired = run(["repair", hand, "--spec", spec, "--out", str(t / "r")])
+        blocks["repair"] = block("\n".join(ln for ln in repaired.splitlines()
+                                           if not ln.startswith(("Recognised", "Wrote"))))
+        blocks["budget"] = block(section(graded, "Electrical budget"))
+        cdac = run(["arrange", "samples/sar_cdac.toml", "--out", str(t / "d"), "--quiet"])
+        blocks["cdac"] = block(section(cdac, "Electrical budget", "Wrote"))
+    for name, body in blocks.items():
+        replace_block(f"sample:{name}", body)
+
+
+if __name__ == "__main__":
+    main()
