@@ -83,10 +83,13 @@ def _read_bytes(path: Path, limit: int) -> bytes:
 
 def read_csv_units(text: str, source: str) -> list[Unit]:
     """Units from CSV rows ``x_um,y_um,device[,orientation]``; device '.' is a dummy."""
-    reader = csv.reader(io.StringIO(text.lstrip("\ufeff")))
+    try:
+        rows = list(csv.reader(io.StringIO(text.lstrip("\ufeff"), newline="")))
+    except csv.Error as err:
+        raise LayoutError(f"{source}: not a readable CSV: {err}") from err
     units: list[Unit] = []
     header_seen = False
-    for lineno, row in enumerate(reader, start=1):
+    for lineno, row in enumerate(rows, start=1):
         cells = [c.strip() for c in row]
         if not cells or not any(cells) or cells[0].startswith("#"):
             continue

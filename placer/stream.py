@@ -123,8 +123,8 @@ def parse_stream(data: bytes, source: str) -> StreamLibrary:
             raise fail("non-ASCII name or text", at) from err
 
     def ints(body: bytes, size: int, at: int) -> tuple[int, ...]:
-        if len(body) % size:
-            raise fail("integer record of odd size", at)
+        if not body or len(body) % size:
+            raise fail(f"integer record of {len(body)} bytes", at)
         return struct.unpack(f">{len(body) // size}{'h' if size == 2 else 'i'}", body)
 
     rtype, _, _, at = record()

@@ -244,3 +244,23 @@ def test_importer_rejects_non_device_names_without_spec(tmp_path):
     path.write_text("x_um,y_um,device\n0,0,A\n1,0,2B\n")
     with pytest.raises(PlacerError, match="device '2B' is not a name"):
         read_layout(path)
+
+
+def test_empty_integer_record_is_a_clear_error(tmp_path):
+    """Found by the robustness run: a LAYER record with no data must not crash."""
+    path, _ = _gds(tmp_path, CC)
+    data = bytearray(path.read_bytes())
+    at = data.find(b"\x00\x06\x0d\x02")          # first LAYER record (6 bytes, int2)
+    damaged = data[:at] + b"\x00\x04\x0d\x02" + data[at + 6:]
+    bad = tmp_path / "empty.gds"
+    bad.write_bytes(bytes(damaged))
+    with pytest.raises(PlacerError, match="integer record of 0 bytes"):
+        read_layout(bad)
+
+
+def test_csv_with_a_stray_carriage_return_is_a_clear_error(tmp_path):
+    """Found by the robustness run: the csv module's own errors become one line."""
+    path = tmp_path / "u.csv"
+    path.write_bytes(b'x_um,y_um,device\n0,0,"A\n1,0,B\n')
+    with pytest.raises(PlacerError):
+        read_layout(path)
