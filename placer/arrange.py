@@ -63,7 +63,8 @@ class Arrangement:
             "core_shape": list(self.core_shape),
             "shape_reason": self.shape_reason,
             "keys": asdict(self.keys),
-            "linear_bound_um": self.linear_bound_um,
+            "linear_bound_um": (None if self.linear_bound_um != self.linear_bound_um
+                                else self.linear_bound_um),
             "bound_proven": self.bound_proven,
             "stopped": self.stopped,
             "iterations": self.iterations,
@@ -216,10 +217,12 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0, time_limit_s: fl
                         f"{MAX_SLOTS} slots")
     share = time_limit_s / len(shapes)
     tried: list[tuple[tuple[float, ...], int, tuple[int, int], SearchOutcome, Problem]] = []
-    base_keys: dict[str, Keys] = {}
+    textbook: dict[tuple[int, int], dict[str, tuple[IntArray, Keys]]] = {}
     interrupted = False
     for i, (rows, cols) in enumerate(shapes):
         prob = problem_for(spec, rows, cols)
+        textbook[rows, cols] = {name: (a, evaluate(prob, a)) for name, fn in
+                                baselines.BASELINES.items() for a in [fn(prob)]}
         if method == "auto":
             try:
                 out = search(prob, seed=seed, time_limit_s=share, progress=progress)
@@ -227,10 +230,8 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0, time_limit_s: fl
                 interrupted = True
                 break
             # never return worse than a textbook arrangement on the same core
-            for name, fn in baselines.BASELINES.items():
-                assign = fn(prob)
-                keys = evaluate(prob, assign)
-                if keys.ranked(prob.tie_ppm) < out.keys.ranked(prob.tie_ppm):
+            for name, (assign, keys) in textbook[rows, cols].items():
+                if keys.ranked(prob) < out.keys.ranked(prob):
                     out.assign, out.keys, out.method = assign, keys, name
                     out.linear_bound_um = min(out.linear_bound_um, keys.linear_um)
             if out.stopped == "interrupted":
@@ -239,7 +240,7 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0, time_limit_s: fl
             assign = baseline_pattern(spec, method, rows, cols, share)
             keys = evaluate(prob, assign)
             out = SearchOutcome(assign, keys, float("nan"), False, method)
-        tried.append((out.keys.ranked(prob.tie_ppm), i, (rows, cols), out, prob))
+        tried.append((out.keys.ranked(prob), i, (rows, cols), out, prob))
         if interrupted:
             break
     if not tried:
@@ -248,8 +249,7 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0, time_limit_s: fl
     _, _, (rows, cols), out, prob = tried[0]
     if out.stopped == "converged" and interrupted:
         out.stopped = "interrupted"
-    for name, fn in baselines.BASELINES.items():
-        base_keys[name] = evaluate(prob, fn(prob))
+    base_keys = {name: keys for name, (_, keys) in textbook[rows, cols].items()}
     reason = _shape_reason(spec, tried)
     pattern = build_pattern(spec, out.assign, rows, cols)
     grade = grade_pattern(pattern, spec)

@@ -180,7 +180,7 @@ def grade(layout: Path, spec_path: Path | None, as_json: bool, budget_plot: Path
         out["recognised"] = {"format": rec.fmt, "notes": rec.notes,
                              "pitch_um": list(rec.pitch_um)}
         out["sensitivity"] = {"pair": worst_pair, "units": [asdict(u) for u in sens]}
-        click.echo(json.dumps(out, indent=2))
+        click.echo(json.dumps(out, indent=2, allow_nan=False))
     else:
         click.echo(format_grade(result))
         if sens:
@@ -287,7 +287,7 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
                 f"routing {cand.routing_um:.6g} um"]))
         bud = _budget(result.pattern, spec, result.grade, required=False)
         report["budget"] = asdict(bud) if bud is not None else None
-        atomic_write(out_dir / "report.json", json.dumps(report, indent=2) + "\n")
+        atomic_write(out_dir / "report.json", json.dumps(report, indent=2, allow_nan=False) + "\n")
         _draw_outputs(result.pattern, spec, result.grade, out_dir, "pattern", None, None)
         if bud is not None:
             from placer.plot import save_budget
@@ -462,6 +462,6 @@ def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, 
               "swaps": [asdict(sw) for sw in res.swaps], "before": asdict(b),
               "after": asdict(a), "target_linear_um": res.target_linear_um,
               "reached_target": res.reached_target, "grade": grade.to_dict()}
-    atomic_write(out_dir / "repair.json", json.dumps(report, indent=2) + "\n")
+    atomic_write(out_dir / "repair.json", json.dumps(report, indent=2, allow_nan=False) + "\n")
     click.echo(f"Wrote {out_dir}/repaired.txt, repaired.gds, repaired.png, repaired.svg, "
                "repair.json")

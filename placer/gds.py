@@ -83,8 +83,7 @@ class Template:
 
 def _read_toml(path: Path | None, fallback: str) -> tuple[dict[str, Any], str]:
     if path is None:
-        ref = resources.files("placer.templates").joinpath(fallback)
-        return tomllib.loads(ref.read_text(encoding="utf-8")), f"templates/{fallback}"
+        return tomllib.loads(_shipped(fallback)), f"templates/{fallback}"
     try:
         text = Path(path).read_text(encoding="utf-8")
     except (OSError, UnicodeDecodeError) as err:
@@ -94,6 +93,15 @@ def _read_toml(path: Path | None, fallback: str) -> tuple[dict[str, Any], str]:
         return tomllib.loads(text), str(path)
     except tomllib.TOMLDecodeError as err:
         raise TemplateError(f"{path}: invalid TOML: {err}") from err
+
+
+def _shipped(name: str) -> str:
+    """A shipped template: from the source tree's templates/ when running from a checkout,
+    else from the installed package data (placer.templates)."""
+    local = Path(__file__).resolve().parent.parent / "templates" / name
+    if local.is_file():
+        return local.read_text(encoding="utf-8")
+    return resources.files("placer.templates").joinpath(name).read_text(encoding="utf-8")
 
 
 def load_layers(path: Path | None = None) -> LayerMap:

@@ -122,8 +122,12 @@ def format_arrangement(result: Arrangement, spec: Spec) -> str:
     k = result.keys
     g = spec.gradient.linear_ppm_per_um
     out = [format_pattern(result.pattern).rstrip(), ""]
-    bound = ("proven optimal" if result.bound_proven and k.linear_um <= result.linear_bound_um
-             + 1e-12 else f"lower bound {result.linear_bound_um:.4g} um")
+    if result.linear_bound_um != result.linear_bound_um:     # nan: a baseline, no search
+        bound = "no search, no bound"
+    elif result.bound_proven and k.linear_um <= result.linear_bound_um + 1e-12:
+        bound = "proven optimal"
+    else:
+        bound = f"lower bound {result.linear_bound_um:.4g} um"
     out.append(f"Method {result.method}; {result.shape_reason}.")
     out.append(f"Search: {result.elapsed_s:.2f} s, {result.iterations} move batches, "
                f"stopped: {result.stopped}.")

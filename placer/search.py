@@ -102,11 +102,23 @@ class Keys:
     sigma_ppm: float
     tracks: int
 
-    def ranked(self, tie_ppm: float) -> tuple[float, ...]:
-        """Lexicographic key: exact linear, then the others rounded to the tie size."""
+    def ranked(self, prob: Problem) -> tuple[float, ...]:
+        """The key the objective sorts by (smaller is better).
+
+        Lexicographic: exact linear, quadratic to the tie size, the higher orders asked for
+        (exactly), edge balance, sigma to the tie size, tracks. Weighted: the worst linear
+        plus quadratic error in ppm (spec magnitudes) to the tie size, then the same tail.
+        """
+        tie_ppm = prob.tie_ppm
+
         def q(v: float) -> float:
             return float(np.round(v / tie_ppm)) if tie_ppm > 0 else v
-        # higher orders are asked for explicitly: ranked exactly, not to the tie size
+
+        if prob.objective == "weighted":
+            return (q(self.linear_um * prob.linear_ppm_per_um + self.quadratic_ppm),
+                    *(float(np.round(h, 12)) for h in self.higher),
+                    float(np.round(self.edge_imbalance, 6)), q(self.sigma_ppm),
+                    float(self.tracks))
         return (float(np.round(self.linear_um, 9)), q(self.quadratic_ppm),
                 *(float(np.round(h, 12)) for h in self.higher),
                 float(np.round(self.edge_imbalance, 6)),
@@ -176,6 +188,9 @@ class _Geometry:
         self._na = n[self.pa, None]
         self._nb = n[self.pb, None]
         self._coef = (self.scale * np.sqrt(self.weight))[None, :] / (self._na * self._nb)
+        self._q = np.zeros((len(self.pa), n_dev))
+        self._q[np.arange(len(self.pa)), self.pa] = n[self.pb]
+        self._q[np.arange(len(self.pa)), self.pb] = -n[self.pa]
         self._hq = 0.5 * prob.quadratic_ppm_per_um2
         self._slices = {k: slice(int(np.argmax(self.orders == k)),
                                  int(np.argmax(self.orders == k)) + k + 1)
@@ -195,7 +210,8 @@ class _Geometry:
         ``sums`` has shape (..., n_dev + 1, C). Sums hold integers below 2**53, so the
         differences n_b S_a - n_a S_b that make a term zero are exact.
         """
-        num = sums[..., self.pa, :] * self._nb - sums[..., self.pb, :] * self._na
+        # Q holds n_b at a and -n_a at b: integer weights, so the matmul stays exact
+        num = np.matmul(self._q, sums[..., :-1, :])
         delta = num * self._coef
         sq = delta * delta
         lin = np.sqrt(sq[..., 0] + sq[..., 1])
@@ -441,13 +457,17 @@ def _exhaustive(prob: Problem, geo: _Geometry
     else:
         norms = [np.zeros(len(every)) for _ in range(geo.order)]
     lin = norms[0]
-    # rank by linear, then quadratic, then the higher orders asked for (exact zeros first)
-    order = np.lexsort(tuple(np.round(x, 9) for x in reversed(norms)))
-    best_lin = np.round(lin[order[0]], 9)
-    # among the linear optimum and the best quadratic ties, rank the rest fully
-    short = [i for i in order[:400] if np.round(lin[i], 9) == best_lin]
+    if prob.objective == "weighted":
+        order = np.argsort(lin * prob.linear_ppm_per_um + norms[1], kind="stable")
+        short = list(order[:400])
+    else:
+        # rank by linear, then quadratic, then the higher orders asked for (exact zeros
+        # first); among the linear optimum's best, rank the rest fully
+        order = np.lexsort(tuple(np.round(x, 9) for x in reversed(norms)))
+        best_lin = np.round(lin[order[0]], 9)
+        short = [i for i in order[:400] if np.round(lin[i], 9) == best_lin]
     ranked = sorted(((evaluate(prob, every[i]), i) for i in short),
-                    key=lambda ki: (ki[0].ranked(prob.tie_ppm), ki[1]))
+                    key=lambda ki: (ki[0].ranked(prob), ki[1]))
     keys, i = ranked[0]
     archive = [(every[j], k) for k, j in ranked[:50]]
     return every[i], keys, archive
@@ -556,14 +576,15 @@ class _Anneal:
     def _anneal(self, budget: int, partner: IntArray | None, orbit_share: float,
                 current: float, score: Callable[[_Batch], FloatArray],
                 commit: Callable[[_Batch, int], None],
-                on_best: Callable[[], None] | None = None) -> None:
+                on_best: Callable[[], bool] | None = None) -> None:
         """The annealing loop both stages share [1].
 
         Each step draws a batch, scores it (inf = not allowed), takes the best move if it
         improves or with the Metropolis probability at a temperature falling geometrically
         from the first batch's median uphill step to 1e-4 of it. Stops at the budget, after
         ``patience`` steps without a new best once 30 % of the budget is spent, at a zero
-        energy, at the time limit or on Ctrl-C; leaves the best state found.
+        energy, when ``on_best`` (called at each new best) says the floor is reached, at the
+        time limit or on Ctrl-C; leaves the best state found.
         """
         cur = best = current
         best_assign, best_sums = self.assign.copy(), self.sums.copy()
@@ -599,9 +620,7 @@ class _Anneal:
                 if cur < best - 1e-12 * max(1.0, abs(best)):
                     best, best_assign, best_sums = cur, self.assign.copy(), self.sums.copy()
                     stale = 0
-                    if on_best is not None:
-                        on_best()
-                    if best == 0.0:
+                    if (on_best is not None and on_best()) or best == 0.0:
                         break
                 else:
                     stale += 1
@@ -612,8 +631,13 @@ class _Anneal:
         self.assign, self.sums = best_assign, best_sums
 
     def run_moments(self, stage: str, budget: int, partner: IntArray | None,
-                    lin_cap: float | None, orbit_share: float = 0.0) -> None:
-        """Anneal the linear key (lin_cap None) or the quadratic keys under a linear cap."""
+                    lin_cap: float | None, orbit_share: float = 0.0,
+                    lin_floor: float = 0.0) -> None:
+        """Anneal the linear key (lin_cap None) or the quadratic keys under a linear cap.
+
+        The linear stage ends as soon as its worst pair reaches ``lin_floor``, a bound no
+        assignment beats: only the worst pair counts in the ranking.
+        """
         geo = self.geo
         weighted = self.prob.objective == "weighted"
         g_lin = self.prob.linear_ppm_per_um
@@ -627,9 +651,12 @@ class _Anneal:
                 return lin
             return np.where(lin <= lin_cap * (1 + 1e-12) + 1e-15, quad + higher, np.inf)
 
-        def report() -> None:
+        def report() -> bool:
             if self.progress:
                 self.progress(stage, evaluate_light(self.prob, geo, self.assign, self.sums))
+            if lin_cap is None and lin_floor > 0 and not weighted:
+                return float(geo.worst_batch(self.sums)[0]) <= lin_floor * (1 + 1e-9)
+            return False
 
         self._anneal(budget, partner, orbit_share, float(energy(self.sums)),
                      lambda batch: energy(batch.trial), lambda batch, i: None, report)
@@ -741,7 +768,7 @@ def _one_start(prob: Problem, sym: tuple[IntArray, IntArray] | None, start: int,
     ann = _Anneal(prob, geo, assign, sub, deadline, progress, stop)
     weighted = prob.objective == "weighted"
     if sym is None and not weighted:
-        ann.run_moments("linear", budget, None, None)
+        ann.run_moments("linear", budget, None, None, lin_floor=_linear_bound(prob))
     lin_cap = float(geo.terms(ann.sums)[0])
     share = 0.5 if weighted and sym is not None else (1.0 if sym is not None else 0.0)
     if ann.stopped == "converged":
@@ -840,7 +867,7 @@ def search(prob: Problem, *, seed: int = 0, time_limit_s: float = 30.0, starts: 
     for r in done:
         if r[3] != "converged":
             stopped = r[3] if stopped == "converged" else stopped
-    best_i = min(range(len(done)), key=lambda i: (done[i][1].ranked(prob.tie_ppm), i))
+    best_i = min(range(len(done)), key=lambda i: (done[i][1].ranked(prob), i))
     assign, keys = done[best_i][0], done[best_i][1]
     proven = keys.linear_um <= bound + 1e-9 * max(1.0, bound)
     return SearchOutcome(assign, keys, bound if not proven else keys.linear_um, proven,

@@ -50,3 +50,27 @@ def test_compare_writes_png_and_pdf(runner, write, tmp_path):
     assert (out / "s-compare.png").stat().st_size > 10_000
     assert (out / "s-compare.pdf").read_bytes()[:4] == b"%PDF"
     assert "optimised" in result.output
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("sample", ["bias_mirror.toml", "sar_cdac.toml", "ref_ladder.toml"])
+def test_arrange_and_compare_work_on_every_sample_spec(runner, tmp_path, sample):
+    for extra in (["arrange", "--quiet"], ["compare"]):
+        result = runner.invoke(cli, [extra[0], f"samples/{sample}", "--out",
+                                     str(tmp_path / extra[0]), *extra[1:]])
+        assert result.exit_code == 0, result.output
+    assert (tmp_path / "arrange" / "pattern.gds").exists()
+    assert "Electrical budget" in runner.invoke(
+        cli, ["grade", str(tmp_path / "arrange" / "pattern.txt"), "--spec",
+              f"samples/{sample}"]).output
+
+
+@pytest.mark.parametrize("sample", ["bias_mirror_hand.txt", "bias_mirror_hand.gds",
+                                    "bias_mirror_hand.csv"])
+def test_draw_works_on_every_sample_layout(runner, tmp_path, sample):
+    result = runner.invoke(cli, ["draw", f"samples/{sample}", "--spec",
+                                 "samples/bias_mirror.toml", "--out", str(tmp_path)])
+    assert result.exit_code == 0, result.output
+    stem = sample.rsplit(".", 1)[0]
+    for ext in ("gds", "png", "svg"):
+        assert (tmp_path / f"{stem}.{ext}").stat().st_size > 0

@@ -75,7 +75,7 @@ def main() -> int:
         for name in ("clustered", "interdigitated", "mirrored"):
             keys = evaluate(prob, baseline_pattern(spec, name, rows, cols))
             lines.append(f"| | | {name} | - | {_fmt(keys)} |")
-            if keys.ranked(prob.tie_ppm) < res.keys.ranked(prob.tie_ppm):
+            if keys.ranked(prob) < res.keys.ranked(prob):
                 failures.append(f"{label}: {name} beats the default")
         milp = {}
         for budget in (max(t_default, 0.5), args.milp_long):
@@ -93,7 +93,7 @@ def main() -> int:
             failures.append(f"{label}: linear {res.keys.linear_um} above its bound")
         if n >= 64:
             long = milp[args.milp_long]
-            if long.ranked(prob.tie_ppm) < res.keys.ranked(prob.tie_ppm):
+            if long.ranked(prob) < res.keys.ranked(prob):
                 failures.append(f"{label}: MILP at {args.milp_long} s beats the default")
             short = milp[max(t_default, 0.5)]
             if not ((res.keys.linear_um, res.keys.quadratic_ppm)
