@@ -98,8 +98,9 @@ def _read_toml(path: Path | None, fallback: str) -> tuple[dict[str, Any], str]:
 def _shipped(name: str) -> str:
     """A shipped template: from the source tree's templates/ when running from a checkout,
     else from the installed package data (placer.templates)."""
-    local = Path(__file__).resolve().parent.parent / "templates" / name
-    if local.is_file():
+    checkout = Path(__file__).resolve().parent.parent
+    local = checkout / "templates" / name
+    if (checkout / "pyproject.toml").is_file() and local.is_file():
         return local.read_text(encoding="utf-8")
     return resources.files("placer.templates").joinpath(name).read_text(encoding="utf-8")
 
