@@ -134,7 +134,7 @@ def problem_for(spec: Spec, rows: int, cols: int) -> Problem:
         corr_sigma_ppm=spec.correlated.sigma_ppm, corr_length_um=spec.correlated.length_um,
         kernel=spec.correlated.kernel, cancel_order=spec.search.cancel_order,
         objective=spec.search.objective, tie_ppm=spec.search.tie_ppm,
-        open_edge=_open_edge(rows, cols, spec.array.dummies),
+        open_edge=_open_edge(rows, cols, spec.array.dummies), mos=spec.kind == "mos",
     )
 
 

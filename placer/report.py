@@ -138,15 +138,16 @@ def format_arrangement(result: Arrangement, spec: Spec) -> str:
     out.append(f"Routing: {r.total_tracks} row tracks, spanning trees {r.total_tree_um:.4g} um"
                f"{breaks}.")
     out.append("")
-    rows = [["optimised" if result.method not in result.baselines else result.method,
-             _f(k.linear_um, 4), _f(k.quadratic_ppm), _f(k.sigma_ppm), f"{k.edge_imbalance:.2f}",
-             str(k.tracks)]]
-    for name, b in result.baselines.items():
+    mos = spec.kind == "mos"
+    rows = []
+    for name, b in [("optimised" if result.method not in result.baselines else result.method,
+                     k), *result.baselines.items()]:
         rows.append([name, _f(b.linear_um, 4), _f(b.quadratic_ppm), _f(b.sigma_ppm),
-                     f"{b.edge_imbalance:.2f}", str(b.tracks)])
+                     f"{b.edge_imbalance:.2f}", str(b.tracks), *([str(b.breaks)] if mos else [])])
     out.append("Worst pair on the same core (linear um, quadratic ppm, correlated sigma ppm, "
-               "edge-share gap, row tracks)")
-    out.append(format_table(["arrangement", "linear", "quad", "sigma", "edge", "tracks"], rows))
+               "edge-share gap, row tracks" + (", diffusion breaks)" if mos else ")"))
+    out.append(format_table(["arrangement", "linear", "quad", "sigma", "edge", "tracks",
+                             *(["breaks"] if mos else [])], rows))
     out.append("")
     out.append(format_grade(result.grade))
     out.append("The pattern is a starting point, not a design-rule-clean layout.")

@@ -79,6 +79,7 @@ class Problem:
     objective: str = "lexicographic"
     tie_ppm: float = 0.01
     open_edge: tuple[bool, ...] | None = None
+    mos: bool = False
 
     @property
     def n_slots(self) -> int:
@@ -101,12 +102,14 @@ class Keys:
     edge_imbalance: float
     sigma_ppm: float
     tracks: int
+    breaks: int = 0
 
     def ranked(self, prob: Problem) -> tuple[float, ...]:
         """The key the objective sorts by (smaller is better).
 
         Lexicographic: exact linear, quadratic to the tie size, the higher orders asked for
-        (exactly), edge balance, sigma to the tie size, tracks. Weighted: the worst linear
+        (exactly), edge balance, sigma to the tie size, routing effort (row tracks plus, for
+        MOS rows, diffusion breaks). Weighted: the worst linear
         plus quadratic error in ppm (spec magnitudes) to the tie size, then the same tail.
         """
         tie_ppm = prob.tie_ppm
@@ -118,11 +121,11 @@ class Keys:
             return (q(self.linear_um * prob.linear_ppm_per_um + self.quadratic_ppm),
                     *(float(np.round(h, 12)) for h in self.higher),
                     float(np.round(self.edge_imbalance, 6)), q(self.sigma_ppm),
-                    float(self.tracks))
+                    float(self.tracks + self.breaks))
         return (float(np.round(self.linear_um, 9)), q(self.quadratic_ppm),
                 *(float(np.round(h, 12)) for h in self.higher),
                 float(np.round(self.edge_imbalance, 6)),
-                q(self.sigma_ppm), float(self.tracks))
+                q(self.sigma_ppm), float(self.tracks + self.breaks))
 
 
 @dataclass
@@ -357,13 +360,24 @@ def _tracks(prob: Problem, assign: IntArray) -> int:
     return int(present[:, :prob.n_dev].sum())
 
 
+def _breaks(prob: Problem, assign: IntArray) -> int:
+    """Fewest diffusion breaks the MOS rows need (0 for other kinds)."""
+    if not prob.mos:
+        return 0
+    from placer.routing import orient_row
+
+    grid = assign.reshape(prob.rows, prob.cols)
+    return sum(orient_row(row)[1] for row in grid)
+
+
 def evaluate(prob: Problem, assign: IntArray) -> Keys:
     """All keys of one assignment (the search's own view; ``grade`` is the reference)."""
     geo = _Geometry(prob)
     lin, quad, hi = geo.worst(geo.sums(assign))
     fld = _Field(prob, geo, assign) if prob.corr_sigma_ppm > 0 else None
     sigma = float(fld.worst(fld.cov)) if fld is not None else 0.0
-    return Keys(lin, quad, hi, _edge_imbalance(prob, assign), sigma, _tracks(prob, assign))
+    return Keys(lin, quad, hi, _edge_imbalance(prob, assign), sigma, _tracks(prob, assign),
+                _breaks(prob, assign))
 
 
 # ---------------------------------------------------------------- constructions
