@@ -49,6 +49,7 @@ __all__ = [
     "SearchOutcome",
     "core_coords",
     "symmetric_assignment",
+    "near_symmetric_assignments",
     "evaluate",
     "search",
     "EXHAUSTIVE_LIMIT",
@@ -408,31 +409,101 @@ def symmetric_assignment(prob: Problem) -> tuple[IntArray, IntArray] | None:
         assign = np.full(prob.n_slots, -1, dtype=np.int64)
         if odd:
             assign[fixed[0]] = odd[0]
-        # orbits (pairs), nearest the centre first
-        seen: set[int] = set()
-        orbits = []
-        for s in range(prob.n_slots):
-            p = int(partner[s])
-            if p > s and s not in seen:
-                seen.update((s, p))
-                r2 = (u[s] - du) ** 2 + (v[s] - dv) ** 2
-                orbits.append((int(r2), s, p))
-        orbits.sort()
+        orbits = _orbits(u, v, partner, du, dv)
         need = [n // 2 for n in prob.counts]
-        total = sum(need)
-        if total > len(orbits):
+        if sum(need) > len(orbits):
             continue
-        # deal orbits by radius in proportion to counts (largest remainder first), so each
-        # device samples every radius; leftover orbits (outermost) stay dummies
-        given = [0] * len(need)
-        for i in range(total):
-            d = max(range(len(need)), key=lambda d: ((i + 1) * need[d] / total - given[d]
-                                                     if given[d] < need[d] else -1e9, -d))
-            given[d] += 1
-            _, s, p = orbits[i]
-            assign[s] = assign[p] = d
+        _deal(assign, orbits, need)
         return assign, partner
     return None
+
+
+def _orbits(u: IntArray, v: IntArray, partner: IntArray, du: int = 0, dv: int = 0
+            ) -> list[tuple[int, int, int]]:
+    """Pairs of mirrored slots (r^2, s, partner) about (du, dv), nearest the centre first."""
+    orbits = []
+    for s in range(len(u)):
+        p = int(partner[s])
+        if p > s:
+            orbits.append((int((u[s] - du) ** 2 + (v[s] - dv) ** 2), s, p))
+    orbits.sort()
+    return orbits
+
+
+def _deal(assign: IntArray, orbits: list[tuple[int, int, int]], need: list[int]) -> None:
+    """Deal orbits to devices by radius in proportion to ``need`` (largest remainder).
+
+    Each device so samples every radius, a good start for the second moment; orbits left
+    over (the outermost) stay dummies.
+    """
+    total = sum(need)
+    given = [0] * len(need)
+    for i in range(total):
+        d = max(range(len(need)), key=lambda d: ((i + 1) * need[d] / total - given[d]
+                                                 if given[d] < need[d] else -1e9, -d))
+        given[d] += 1
+        _, s, p = orbits[i]
+        assign[s] = assign[p] = d
+
+
+def near_symmetric_assignments(prob: Problem) -> list[tuple[IntArray, IntArray]]:
+    """Point-symmetric starts for exactly two odd devices on a core without a centre slot.
+
+    Each odd device keeps one unit off its orbits, on a slot next to the centre; every
+    other unit sits on mirrored pairs, so only those two slots (and, in the second variant,
+    their mirrors) move any centroid. Variant 1 puts the two odd units on one orbit;
+    variant 2 puts them side by side and gives their mirrors to the largest even device.
+    With two single-unit devices variant 2 reaches the bound of one pitch exactly.
+    """
+    odd = [d for d, n in enumerate(prob.counts) if n % 2]
+    if len(odd) != 2:
+        return []
+    u, v = core_coords(prob.rows, prob.cols)
+    index = {(int(a), int(b)): i for i, (a, b) in enumerate(zip(u, v, strict=True))}
+    partner = np.array([index.get((int(-a), int(-b)), -1) for a, b in zip(u, v, strict=True)],
+                       dtype=np.int64)
+    fixed = np.nonzero(partner == np.arange(prob.n_slots))[0]
+    spare = prob.n_slots - sum(prob.counts)
+    if spare < len(fixed) + int(np.sum(partner < 0)):
+        return []
+    orbits = _orbits(u, v, partner)
+    a, b = odd
+    need = [n // 2 for n in prob.counts]
+    out = []
+    # variant 1: the odd units share the innermost orbit
+    assign = np.full(prob.n_slots, -1, dtype=np.int64)
+    _, s, p = orbits[0]
+    assign[s], assign[p] = a, b
+    if sum(need) <= len(orbits) - 1:
+        _deal(assign, orbits[1:], need)
+        out.append((assign, partner))
+    # variant 2: side by side, their mirrors to the largest even device
+    even = [d for d, n in enumerate(prob.counts) if n % 2 == 0 and n >= 2]
+    if even and len(orbits) >= 2:
+        c = max(even, key=lambda d: (prob.counts[d], -d))
+        hx, hy = prob.pitch_um[0] / 2, prob.pitch_um[1] / 2
+        _, s, p = orbits[0]
+
+        def phys(i: int, j: int) -> float:
+            return float(np.hypot((u[i] - u[j]) * hx, (v[i] - v[j]) * hy))
+
+        # the partner for s: the slot (either end of an orbit) that keeps the pair tight
+        # and close to the centre, where every other device's centroid sits
+        choices = []
+        for k, (_, t0, q0) in enumerate(orbits[1:], start=1):
+            for t, q in ((t0, q0), (q0, t0)):
+                choices.append((max(phys(s, t), phys(s, p) / 2, phys(t, q) / 2), k, t, q))
+        _, k, t, q = min(choices)
+        rest = [o for i, o in enumerate(orbits) if i not in (0, k)]
+        need2 = list(need)
+        need2[c] -= 1
+        if sum(need2) <= len(rest):
+            assign = np.full(prob.n_slots, -1, dtype=np.int64)
+            assign[s], assign[t] = a, b
+            assign[p] = assign[q] = c
+            _deal(assign, rest, need2)
+            out.append((assign, partner))
+    return out
 
 
 def _multiset_assignments(counts: list[int], n_slots: int) -> IntArray:
@@ -781,10 +852,12 @@ def _one_start(prob: Problem, sym: tuple[IntArray, IntArray] | None, start: int,
         assign = _greedy_start(prob, sub)
     ann = _Anneal(prob, geo, assign, sub, deadline, progress, stop)
     weighted = prob.objective == "weighted"
-    if sym is None and not weighted:
-        ann.run_moments("linear", budget, None, None, lin_floor=_linear_bound(prob))
+    bound = _linear_bound(prob)
+    exact = sym is not None and float(geo.worst_batch(ann.sums)[0]) <= bound * (1 + 1e-9)
+    if not exact and not weighted:
+        ann.run_moments("linear", budget, None, None, lin_floor=bound)
     lin_cap = float(geo.terms(ann.sums)[0])
-    share = 0.5 if weighted and sym is not None else (1.0 if sym is not None else 0.0)
+    share = 0.5 if weighted and sym is not None else (1.0 if exact else 0.0)
     if ann.stopped == "converged":
         ann.run_moments("weighted" if weighted else "quadratic", budget, partner, lin_cap,
                         share)
@@ -831,6 +904,14 @@ def search(prob: Problem, *, seed: int = 0, time_limit_s: float = 30.0, starts: 
                              elapsed_s=time.monotonic() - t0, archive=found)
 
     sym = symmetric_assignment(prob)
+    method = "symmetric orbits + annealing"
+    if sym is None:
+        near = near_symmetric_assignments(prob)
+        if near:
+            sym = min(near, key=lambda ap: evaluate(prob, ap[0]).ranked(prob))
+            method = "near-symmetric orbits + annealing"
+        else:
+            method = "annealing"
     seeds = [int(rng.integers(1 << 62)) for _ in range(starts)]
     cpus = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else 1
     if parallel is None:
@@ -884,17 +965,17 @@ def search(prob: Problem, *, seed: int = 0, time_limit_s: float = 30.0, starts: 
     best_i = min(range(len(done)), key=lambda i: (done[i][1].ranked(prob), i))
     assign, keys = done[best_i][0], done[best_i][1]
     proven = keys.linear_um <= bound + 1e-9 * max(1.0, bound)
-    return SearchOutcome(assign, keys, bound if not proven else keys.linear_um, proven,
-                         "symmetric orbits + annealing" if sym is not None else "annealing",
+    return SearchOutcome(assign, keys, bound if not proven else keys.linear_um, proven, method,
                          stopped=stopped, elapsed_s=time.monotonic() - t0,
                          iterations=sum(r[2] for r in done),
                          archive=[(r[0], r[1]) for r in done])
 
 
 def _shuffle_orbits(assign: IntArray, partner: IntArray, rng: np.random.Generator) -> IntArray:
-    """Another symmetric start: the same orbits dealt to devices in a random order."""
+    """Another symmetric start: the same whole orbits dealt to devices in a random order
+    (slots whose mirror holds another device stay where they are)."""
     out = assign.copy()
-    orbits = [s for s in range(len(assign)) if partner[s] > s]
+    orbits = [s for s in range(len(assign)) if partner[s] > s and assign[partner[s]] == assign[s]]
     labels = [assign[s] for s in orbits]
     rng.shuffle(labels)
     for s, d in zip(orbits, labels, strict=True):

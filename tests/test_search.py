@@ -150,3 +150,19 @@ def test_weighted_and_lexicographic_each_win_on_their_own_terms(devices, shape):
 
     assert total(wtd) <= total(lex) + 0.01
     assert lex.linear_um <= wtd.linear_um + 1e-12
+
+
+def test_near_symmetric_construction_reaches_the_single_unit_bound():
+    """Two one-unit devices on an even grid: side by side at the centre, mirrors to the
+    largest device, everything else on mirrored pairs, gives a worst pair of exactly one
+    pitch, the bound (two distinct slots are at least a pitch apart)."""
+    from placer.search import near_symmetric_assignments
+
+    counts = (1, 1, *(2 ** b for b in range(1, 10)))
+    prob = Problem(counts, 32, 32, pitch_um=(3.0, 2.0), corr_sigma_ppm=0.0)
+    starts = near_symmetric_assignments(prob)
+    assert len(starts) == 2
+    best = min(evaluate(prob, a).linear_um for a, _ in starts)
+    assert best == pytest.approx(2.0, abs=1e-12)
+    for assign, _ in starts:
+        assert np.array_equal(np.bincount(assign[assign >= 0]), counts)
