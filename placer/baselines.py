@@ -47,8 +47,22 @@ def clustered(prob: Problem) -> IntArray:
 
 
 def interdigitated(prob: Problem) -> IntArray:
-    """Plain interdigitation A B A B ... in reading order, devices spread by their counts."""
-    return _fill(prob, deal(prob.counts))
+    """Plain interdigitation in reading order: A B C A B C ..., each device in turn until
+    its units run out (so the larger devices fill the tail).
+
+    Examples
+    --------
+    >>> interdigitated(Problem((2, 3), 1, 6)).tolist()
+    [0, 1, 0, 1, 1, -1]
+    """
+    left = list(prob.counts)
+    seq = []
+    while any(left):
+        for d in range(len(left)):
+            if left[d]:
+                seq.append(d)
+                left[d] -= 1
+    return _fill(prob, seq)
 
 
 def mirrored(prob: Problem) -> IntArray:
