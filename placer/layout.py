@@ -328,11 +328,13 @@ def units_to_pattern(units: list[Unit], source: str, notes: list[str],
     if not np.any(ids >= 0):
         raise LayoutError(f"{source}: no device units, only dummies")
     empties = int(np.sum(ids == EMPTY))
+    pattern = Pattern(devices, ids, orient)
+    found = ", ".join(f"{n} ({c})" for n, c in zip(devices, pattern.counts(), strict=True))
     notes.append(f"grid {rows} x {cols} slots, pitch {px:.4g} x {py:.4g} um, origin "
-                 f"({x0:.4g}, {y0:.4g}) um; {int(np.sum(ids >= 0))} device units, "
+                 f"({x0:.4g}, {y0:.4g}) um; {int(np.sum(ids >= 0))} device units: {found}; "
                  f"{int(np.sum(ids == DUMMY))} dummies" + (f", {empties} empty slots"
                                                            if empties else ""))
-    return Pattern(devices, ids, orient), (px, py), (float(x0), float(y0))
+    return pattern, (px, py), (float(x0), float(y0))
 
 
 def read_layout(path: Path, *, spec: Spec | None = None, cell: str | None = None,
