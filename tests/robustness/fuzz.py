@@ -151,14 +151,22 @@ def reader_cases(name: str, n: int, seed: int) -> Counter[str]:
 
 # ------------------------------------------------------------------ command line
 
-_WORDS = ["grade", "arrange", "draw", "compare", "repair", "--spec", "--out", "--json",
-          "--seed", "--time-limit", "--candidates", "--method", "--quiet", "--force",
-          "--max-swaps", "--cell", "--map", "--layers", "--template", "--budget-plot",
-          "--sensitivity-plot", "--gradient", "-1", "0", "0.2", "1e9", "nan", "abc", "=",
-          "A=B", "out", "out/x", "x.png", "x.txt", "milp", "auto", "", "--", "-x", "--help"]
+_OPTIONS = {
+    "grade": ["--spec", "--json", "--budget-plot", "--sensitivity-plot", "--cell", "--map",
+              "--dummy-cell", "--layers"],
+    "arrange": ["--seed", "--candidates", "--method", "--quiet", "--force", "--time-limit"],
+    "draw": ["--spec", "--template", "--layers", "--gradient", "--force"],
+    "compare": ["--seed", "--force", "--time-limit"],
+    "repair": ["--spec", "--max-swaps", "--seed", "--force", "--cell", "--map"],
+}
+_VALUES = ["-1", "0", "0.2", "3", "1e9", "nan", "abc", "A=B", "MREF", "x.png", "x.txt",
+           "milp", "auto", "", "--", "-x"]
 
 
-def cli_case(rng: np.random.Generator, work: Path) -> Callable[[], object]:
+def cli_case(rng: np.random.Generator, work: Path,
+             exits: Counter[int] | None = None) -> Callable[[], object]:
+    """One command line: a real command and file most of the time, options and values
+    drawn at random (valid or not), sometimes pure garbage."""
     from click.testing import CliRunner
 
     from placer.cli import cli
@@ -166,9 +174,23 @@ def cli_case(rng: np.random.Generator, work: Path) -> Callable[[], object]:
     files = [str(work / n) for n in ("bias_mirror.toml", "bias_mirror_hand.txt",
                                      "bias_mirror_hand.gds", "bias_mirror_hand.csv",
                                      "missing.toml")]
-    vocab = _WORDS + files
-    argv = [vocab[int(i)] for i in rng.integers(0, len(vocab), int(rng.integers(0, 8)))]
-    if "arrange" in argv or "compare" in argv or "repair" in argv:
+
+    def pick(seq: list[str]) -> str:
+        return seq[int(rng.integers(0, len(seq)))]
+
+    if rng.random() < 0.1:
+        argv = [pick(_VALUES + files + list(_OPTIONS)) for _ in range(int(rng.integers(0, 6)))]
+    else:
+        command = pick(list(_OPTIONS))
+        argv = [command, pick(files)]
+        if command != "grade" and rng.random() < 0.9:
+            argv += ["--out", f"out/{int(rng.integers(0, 4))}"]
+        for _ in range(int(rng.integers(0, 4))):
+            option = pick(_OPTIONS[command])
+            argv.append(option)
+            if option not in ("--json", "--quiet", "--force", "--gradient"):
+                argv.append(pick(_VALUES + files))
+    if any(c in argv for c in ("arrange", "compare", "repair")):
         argv += ["--time-limit", "2"]
 
     def run() -> None:
@@ -178,6 +200,8 @@ def cli_case(rng: np.random.Generator, work: Path) -> Callable[[], object]:
             result = CliRunner().invoke(cli, argv, catch_exceptions=True)
         finally:
             os.chdir(old)
+        if exits is not None:
+            exits[result.exit_code] += 1
         if result.exception is not None and not isinstance(result.exception, SystemExit):
             raise RuntimeError(f"{argv}: {result.exception!r}")
         if result.exit_code not in (0, 1, 2) or "Traceback" in result.output:
@@ -193,7 +217,8 @@ def _digest(folder: Path, names: list[str]) -> dict[str, str]:
     return {n: hashlib.sha256((folder / n).read_bytes()).hexdigest() for n in names}
 
 
-def cli_cases(n: int, seed: int) -> tuple[Counter[str], int]:
+def cli_cases(n: int, seed: int, exits: Counter[int] | None = None
+              ) -> tuple[Counter[str], int]:
     rng = np.random.default_rng(seed)
     tally: Counter[str] = Counter()
     lost = 0
@@ -205,7 +230,7 @@ def cli_cases(n: int, seed: int) -> tuple[Counter[str], int]:
             shutil.copy(SAMPLES / name, work / name)
         before = _digest(work, names)
         for _ in range(n):
-            tally[classify(cli_case(rng, work))] += 1
+            tally[classify(cli_case(rng, work, exits))] += 1
             if _digest(work, names) != before:
                 lost += 1
                 before = _digest(work, names)
@@ -228,9 +253,11 @@ def main() -> int:
         rows.append(f"| {name} | {sum(t.values())} | {t['ok']} | {t['clear']} | "
                     f"{t['traceback']} | {t['hang']} | 0 |")
         bad += t["traceback"] + t["hang"]
-    t, lost = cli_cases(args.cli_cases, args.seed + 99)
-    rows.append(f"| command line (random arguments) | {sum(t.values())} | {t['ok']} | - | "
-                f"{t['traceback']} | {t['hang']} | {lost} |")
+    exits: Counter[int] = Counter()
+    t, lost = cli_cases(args.cli_cases, args.seed + 99, exits)
+    rows.append(f"| command line (random arguments) | {sum(t.values())} | exit 0: {exits[0]} | "
+                f"exit 1: {exits[1]}, exit 2: {exits[2]} | {t['traceback']} | {t['hang']} | "
+                f"{lost} |")
     bad += t["traceback"] + t["hang"] + lost
     rows.append("")
     rows.append(f"`python -m tests.robustness.fuzz --cases {args.cases} --cli-cases "
