@@ -68,3 +68,33 @@ def test_python_dash_m_entry_point():
     out = subprocess.run([sys.executable, "-m", "placer", "--version"], capture_output=True,
                          text=True, check=True)
     assert "placer" in out.stdout
+
+
+def test_grade_writes_budget_and_sensitivity_pictures(runner, tmp_path):
+    result = runner.invoke(cli, ["grade", "samples/bias_mirror_hand.gds", "--spec",
+                                 "samples/bias_mirror.toml", "--budget-plot",
+                                 str(tmp_path / "b.png"), "--sensitivity-plot",
+                                 str(tmp_path / "s.svg")])
+    assert result.exit_code == 0, result.output
+    assert (tmp_path / "b.png").read_bytes()[:4] == b"\x89PNG"
+    assert b"<svg" in (tmp_path / "s.svg").read_bytes()[:400]
+    result = runner.invoke(cli, ["grade", "samples/bias_mirror_hand.txt", "--budget-plot",
+                                 str(tmp_path / "b.bmp")])
+    assert result.exit_code == 1 and "must end in .png, .svg or .pdf" in result.output
+
+
+def test_budget_plot_without_electrical_table_names_the_keys(runner, tmp_path):
+    result = runner.invoke(cli, ["grade", "samples/bias_mirror_hand.txt", "--budget-plot",
+                                 str(tmp_path / "b.png")])
+    assert result.exit_code == 1
+    assert "needs an [electrical] table with vov_v" in result.output
+    assert not (tmp_path / "b.png").exists()
+
+
+def test_repair_reads_a_csv_export(runner, tmp_path):
+    result = runner.invoke(cli, ["repair", "samples/bias_mirror_hand.csv", "--spec",
+                                 "samples/bias_mirror.toml", "--out", str(tmp_path / "r"),
+                                 "--max-swaps", "3"])
+    assert result.exit_code == 0, result.output
+    assert "Linear worst pair" in result.output
+    assert (tmp_path / "r" / "repaired.txt").exists()
