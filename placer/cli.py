@@ -58,7 +58,8 @@ def _user_errors(func: F) -> F:
 def cli() -> None:
     """Arrange matched devices as unit arrays that cancel process gradients, and grade them.
 
-    Exit codes: 0 success, 1 a problem with the input, 2 a usage error.
+    Exit codes: 0 success, 1 a problem with the input, 2 a usage error, 130
+    interrupted before the outputs were complete.
     """
 
 
@@ -83,8 +84,8 @@ def _layout_options(func: F) -> F:
                      help="GDSII: unlabelled units of CELL are dummies (cells named *DUMMY* "
                           "always are)."),
         click.option("--layers", "layers_path", type=_FILE, default=None,
-                     help="Layer map (TOML); its label layer is where device labels are read "
-                          "and, for draw, where everything is written."),
+                     help="Layer map (TOML); its label layer is where device labels are "
+                          "read (repair also draws its result with it)."),
     ]
     for opt in reversed(opts):
         func = opt(func)
