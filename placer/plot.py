@@ -279,7 +279,9 @@ def save_budget(b: Any, name: str, paths: Sequence[Path], seed: int = 0) -> None
                          label=f"random: 99th percentile of |INL| ({b.mc_samples} samples)")
         ax1.set_ylabel("INL (LSB)")
         ax1.legend(fontsize=8, loc="upper right")
-        ax2.plot(codes[:-1], b.gradient_dnl_lsb, color=PALETTE[5], lw=1)
+        ax2.plot(codes[:-1], b.gradient_dnl_lsb, color=PALETTE[5], lw=1,
+                 label=f"gradient, worst direction {b.worst_direction_deg:.0f} deg (step k to k+1)")
+        ax2.legend(fontsize=8, loc="upper right")
         ax2.set_ylabel("DNL (LSB)")
         ax2.set_xlabel("code")
         ax1.set_title(f"{name}: INL and DNL against the {b.fit} line (model estimates)",
