@@ -20,6 +20,7 @@ from placer import __version__
 from placer.arrange import METHODS
 from placer.arrange import arrange as run_arrange
 from placer.errors import PlacerError
+from placer.gds import LayerMap, Template, load_layers, load_template
 from placer.layout import Recognised, read_layout
 from placer.output import atomic_write, prepare_out_dir
 from placer.pattern import Pattern, check_against_spec, format_pattern
@@ -107,8 +108,6 @@ def _load_graded(path: Path, spec_path: Path | None, *, cell: str | None = None,
                  layers_path: Path | None = None, echo_notes: bool = False
                  ) -> tuple[Pattern, Spec, Recognised]:
     """Read a pattern, CSV or GDSII layout and the spec that grades it."""
-    from placer.gds import load_layers
-
     spec = load_spec(spec_path) if spec_path is not None else None
     label = load_layers(layers_path)["label"]
     rec = read_layout(path, spec=spec, cell=cell, mapping=_parse_map(mapping),
@@ -289,7 +288,7 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
         bud = _budget(result.pattern, spec, result.grade, required=False)
         report["budget"] = asdict(bud) if bud is not None else None
         atomic_write(out_dir / "report.json", json.dumps(report, indent=2, allow_nan=False) + "\n")
-        _draw_outputs(result.pattern, spec, result.grade, out_dir, "pattern", None, None)
+        _draw_outputs(result.pattern, spec, result.grade, out_dir, "pattern")
         if bud is not None:
             from placer.plot import save_budget
 
@@ -307,13 +306,14 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
 
 
 def _draw_outputs(pattern: Pattern, spec: Spec, grade: Grade, out_dir: Path, stem: str,
-                  template: Path | None, layers: Path | None,
+                  template: Template | None = None, layers: LayerMap | None = None,
                   gradient: bool = False) -> list[Path]:
     """Write <stem>.gds, .png and .svg; every file atomically."""
-    from placer.gds import build_library, load_layers, load_template, write_gds
+    from placer.gds import build_library, write_gds
     from placer.plot import save_preview
 
-    lib = build_library(pattern, spec, load_template(spec, template), load_layers(layers))
+    lib = build_library(pattern, spec, template or load_template(spec),
+                        layers or load_layers())
     paths = [out_dir / f"{stem}.gds", out_dir / f"{stem}.png", out_dir / f"{stem}.svg"]
     write_gds(lib, paths[0])
     g = spec.gradient.linear_ppm_per_um
@@ -347,13 +347,12 @@ def draw(pattern_path: Path, spec_path: Path | None, out_dir: Path, template: Pa
     pattern, spec, _ = _load_graded(pattern_path, spec_path)
     stem = pattern_path.stem if NAME_RE.match(pattern_path.stem) else spec.name
     # read templates and layers before touching the folder: bad ones leave nothing behind
-    from placer.gds import load_layers, load_template
-
-    load_template(spec, template)
-    load_layers(layers)
+    cell_template = load_template(spec, template)
+    layer_map = load_layers(layers)
     prepare_out_dir(out_dir, [f"{stem}.gds", f"{stem}.png", f"{stem}.svg"], force)
     grade = grade_pattern(pattern, spec)
-    paths = _draw_outputs(pattern, spec, grade, out_dir, stem, template, layers, overlay)
+    paths = _draw_outputs(pattern, spec, grade, out_dir, stem, cell_template, layer_map,
+                          overlay)
     click.echo("Wrote " + ", ".join(str(p) for p in paths))
     click.echo("The GDSII is a starting pattern, not a design-rule-clean layout.")
 
@@ -458,7 +457,8 @@ def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, 
               *(ln.strip() for ln in lines)]
     atomic_write(out_dir / "repaired.txt", format_pattern(res.pattern, header))
     grade = grade_pattern(res.pattern, spec)
-    _draw_outputs(res.pattern, spec, grade, out_dir, "repaired", None, layers_path)
+    _draw_outputs(res.pattern, spec, grade, out_dir, "repaired",
+                  layers=load_layers(layers_path) if layers_path is not None else None)
     report = {"layout": str(layout), "recognised": rec.notes,
               "swaps": [asdict(sw) for sw in res.swaps], "before": asdict(b),
               "after": asdict(a), "target_linear_um": res.target_linear_um,

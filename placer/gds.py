@@ -31,7 +31,6 @@ __all__ = [
     "PURPOSES",
     "load_layers",
     "load_template",
-    "default_template",
     "cell_name",
     "build_library",
     "write_gds",
@@ -179,11 +178,6 @@ def load_template(spec: Spec, path: Path | None = None) -> Template:
         x, y = cx * px, cy * py
         shapes.append(Shape(str(layer), x - w / 2, y - h / 2, x + w / 2, y + h / 2))
     return Template(str(kind), tuple(shapes), src)
-
-
-def default_template(spec: Spec) -> Template:
-    """The shipped template of the spec's device kind."""
-    return load_template(spec, None)
 
 
 def cell_name(base: str, suffix: str, taken: set[str]) -> str:

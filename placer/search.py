@@ -751,7 +751,8 @@ class _Anneal:
         """Anneal edge balance, correlated sigma and tracks without losing the moment keys."""
         prob, geo = self.prob, self.geo
         fld = _Field(prob, geo, self.assign)
-        edge = np.array(prob.open_edge, dtype=float) if prob.open_edge else None
+        edge = (np.array(prob.open_edge, dtype=float) if any(prob.open_edge or ())
+                else None)
         rows = np.arange(prob.n_slots) // prob.cols
         n_dev = prob.n_dev
         counts = np.array(prob.counts, dtype=float)
@@ -838,7 +839,7 @@ def evaluate_light(prob: Problem, geo: _Geometry, assign: IntArray, sums: FloatA
 
 def _one_start(prob: Problem, sym: tuple[IntArray, IntArray] | None, start: int,
                seed: int, deadline: float, progress: Callable[[str, Keys], None] | None,
-               stop: object = None) -> tuple[IntArray, Keys, int, str]:
+               bound: float, stop: object = None) -> tuple[IntArray, Keys, int, str]:
     """One annealing run from its own start: (assignment, keys, batches, how it stopped)."""
     geo = _Geometry(prob)
     sub = np.random.default_rng(seed)
@@ -852,7 +853,6 @@ def _one_start(prob: Problem, sym: tuple[IntArray, IntArray] | None, start: int,
         assign = _greedy_start(prob, sub)
     ann = _Anneal(prob, geo, assign, sub, deadline, progress, stop)
     weighted = prob.objective == "weighted"
-    bound = _linear_bound(prob)
     exact = sym is not None and float(geo.worst_batch(ann.sums)[0]) <= bound * (1 + 1e-9)
     if not exact and not weighted:
         ann.run_moments("linear", budget, None, None, lin_floor=bound)
@@ -864,19 +864,19 @@ def _one_start(prob: Problem, sym: tuple[IntArray, IntArray] | None, start: int,
     lin_key, quad_key = (float(x) for x in geo.terms(ann.sums)[:2])
     quad_cap = (lin_key * prob.linear_ppm_per_um if weighted else 0.0) + quad_key \
         + prob.tie_ppm
-    if ann.stopped == "converged" and (prob.corr_sigma_ppm > 0 or prob.open_edge):
+    if ann.stopped == "converged" and (prob.corr_sigma_ppm > 0 or any(prob.open_edge or ())):
         ann.run_balance(budget // 2, lin_cap, quad_cap, partner, share)
     return ann.assign, evaluate(prob, ann.assign), ann.iterations, ann.stopped
 
 
 def _child(send: Any, prob: Problem, sym: tuple[IntArray, IntArray] | None, start: int,
-           seed: int, deadline: float, stop: object) -> None:
+           seed: int, deadline: float, bound: float, stop: object) -> None:
     """Worker process body: one start, result sent back through the pipe."""
     import signal
 
     # the parent turns Ctrl-C into a stop request; the worker must not die of it
     signal.signal(signal.SIGINT, signal.SIG_IGN)
-    send.send(_one_start(prob, sym, start, seed, deadline, None, stop))
+    send.send(_one_start(prob, sym, start, seed, deadline, None, bound, stop))
     send.close()
 
 
@@ -927,12 +927,12 @@ def search(prob: Problem, *, seed: int = 0, time_limit_s: float = 30.0, starts: 
         for i in range(1, starts):
             recv, send = ctx.Pipe(duplex=False)
             proc = ctx.Process(target=_child, args=(send, prob, sym, i, seeds[i], deadline,
-                                                    stop_event), daemon=True)
+                                                    bound, stop_event), daemon=True)
             proc.start()
             send.close()
             children.append((i, proc, recv))
         try:
-            first = _one_start(prob, sym, 0, seeds[0], deadline, progress)
+            first = _one_start(prob, sym, 0, seeds[0], deadline, progress, bound)
             results[0] = first
             if first[3] == "interrupted":
                 stop_event.set()
@@ -951,7 +951,7 @@ def search(prob: Problem, *, seed: int = 0, time_limit_s: float = 30.0, starts: 
             proc.join()
     else:
         for i in range(starts):
-            results[i] = _one_start(prob, sym, i, seeds[i], deadline, progress)
+            results[i] = _one_start(prob, sym, i, seeds[i], deadline, progress, bound)
             res = results[i]
             if res is not None and res[3] != "converged":
                 break
