@@ -67,6 +67,13 @@ def main() -> None:
         blocks["budget"] = block(section(graded, "Electrical budget"))
         cdac = run(["arrange", "samples/sar_cdac.toml", "--out", str(t / "d"), "--quiet"])
         blocks["cdac"] = block(section(cdac, "Electrical budget", "Wrote"))
+        for name, sample in (("diffpair", "input_pair"), ("splitmirror", "split_mirror")):
+            out = run(["arrange", f"samples/{sample}.toml", "--out", str(t / sample),
+                       "--quiet"])
+            pattern = (t / sample / "pattern.txt").read_text().splitlines()
+            blocks[name] = block("\n".join(ln for ln in pattern if not ln.startswith("#"))
+                                 + "\n\n" + section(out, "Linear:", "Routing:") + "\n"
+                                 + section(out, "Layout:", "Wrote").rstrip())
     for name, body in blocks.items():
         replace_block(f"sample:{name}", body)
 

@@ -13,7 +13,14 @@ from numpy.typing import NDArray
 from placer import baselines
 from placer.errors import SpecError
 from placer.pattern import DUMMY, Pattern
-from placer.routing import Routing, diffusion_breaks, estimate_routing, orient_row
+from placer.routing import (
+    FingerNets,
+    Routing,
+    diffusion_breaks,
+    estimate_routing,
+    mos_finger_nets,
+    orient_row,
+)
 from placer.score import Grade, grade_pattern
 from placer.search import Keys, Problem, SearchOutcome, evaluate, search
 from placer.spec import MAX_SLOTS, Spec
@@ -134,7 +141,8 @@ def problem_for(spec: Spec, rows: int, cols: int) -> Problem:
         corr_sigma_ppm=spec.correlated.sigma_ppm, corr_length_um=spec.correlated.length_um,
         kernel=spec.correlated.kernel, cancel_order=spec.search.cancel_order,
         objective=spec.search.objective, tie_ppm=spec.search.tie_ppm,
-        open_edge=_open_edge(rows, cols, spec.array.dummies), mos=spec.kind == "mos",
+        open_edge=_open_edge(rows, cols, spec.array.dummies),
+        finger_nets=mos_finger_nets(spec) if spec.kind == "mos" else None,
     )
 
 
@@ -149,15 +157,17 @@ def build_pattern(spec: Spec, assign: IntArray, rows: int, cols: int) -> Pattern
     ids = core.astype(int)
     orient = np.zeros(ids.shape, dtype=np.int8)
     if spec.kind == "mos":
+        nets = mos_finger_nets(spec)
         tally: dict[int, int] = {}
         for r in range(ids.shape[0]):
-            marks, _ = orient_row(ids[r], tally)
+            marks, _ = orient_row(ids[r], tally, nets)
             orient[r] = marks
-        orient = balance_orientations(ids, orient)
+        orient = balance_orientations(ids, orient, nets)
     return Pattern(spec.devices, ids, orient)
 
 
-def balance_orientations(ids: NDArray[np.int_], orient: NDArray[np.int8]) -> NDArray[np.int8]:
+def balance_orientations(ids: NDArray[np.int_], orient: NDArray[np.int8],
+                         nets: FingerNets = None) -> NDArray[np.int8]:
     """Flip single fingers, or neighbouring pairs, to even out each device's > and < counts.
 
     A flip is kept only if it adds no diffusion break and lowers the total imbalance
@@ -171,7 +181,7 @@ def balance_orientations(ids: NDArray[np.int_], orient: NDArray[np.int8]) -> NDA
         return int(np.abs(tally).sum())
 
     def row_breaks(r: int) -> int:
-        return diffusion_breaks(ids[r:r + 1], orient[r:r + 1])
+        return diffusion_breaks(ids[r:r + 1], orient[r:r + 1], nets)
 
     improved = True
     while improved:
@@ -201,6 +211,10 @@ def baseline_pattern(spec: Spec, method: str, rows: int, cols: int,
     if method == "milp":
         return baselines.milp(prob, time_limit_s)[0]
     return baselines.BASELINES[method](prob)
+
+
+def _nets(spec: Spec) -> FingerNets:
+    return mos_finger_nets(spec) if spec.kind == "mos" else None
 
 
 def _systematic(prob: Problem, keys: Keys) -> float:
@@ -253,7 +267,8 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0, time_limit_s: fl
     reason = _shape_reason(spec, tried)
     pattern = build_pattern(spec, out.assign, rows, cols)
     grade = grade_pattern(pattern, spec)
-    routing = estimate_routing(pattern, spec.array.pitch_um, spec.kind == "mos")
+    routing = estimate_routing(pattern, spec.array.pitch_um, spec.kind == "mos",
+                               _nets(spec))
     cands = _candidates(spec, prob, rows, cols, out, n_candidates) if n_candidates else ()
     return Arrangement(
         pattern=pattern, grade=grade, routing=routing, keys=out.keys, method=out.method,
@@ -293,7 +308,8 @@ def _candidates(spec: Spec, prob: Problem, rows: int, cols: int, out: SearchOutc
     for assign in pool.values():
         keys = evaluate(prob, assign)
         pattern = build_pattern(spec, assign, rows, cols)
-        route = estimate_routing(pattern, spec.array.pitch_um, spec.kind == "mos")
+        route = estimate_routing(pattern, spec.array.pitch_um, spec.kind == "mos",
+                                 _nets(spec))
         scored.append(Candidate(pattern, keys, _systematic(prob, keys), route.total_tree_um))
     front = [c for c in scored
              if not any((o.systematic_ppm <= c.systematic_ppm and o.routing_um <= c.routing_um

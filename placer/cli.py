@@ -20,13 +20,12 @@ from placer import __version__
 from placer.arrange import METHODS
 from placer.arrange import arrange as run_arrange
 from placer.errors import PlacerError
-from placer.gds import LayerMap, Template, load_layers, load_template
 from placer.layout import Recognised, read_layout
-from placer.output import atomic_write, prepare_out_dir
+from placer.output import OutputSet
 from placer.pattern import Pattern, check_against_spec, format_pattern
 from placer.repair import repair as run_repair
 from placer.repair import sensitivity
-from placer.report import format_arrangement, format_budget, format_grade, format_table
+from placer.report import format_arrangement, format_budget, format_grade, format_nets
 from placer.score import Grade, grade_pattern
 from placer.search import Keys
 from placer.spec import NAME_RE, Spec, default_spec, load_spec
@@ -75,7 +74,7 @@ def _budget(pattern: Pattern, spec: Spec, grade: Grade, required: bool) -> Any:
 
 
 def _layout_options(func: F) -> F:
-    """Options for reading a GDSII or CSV hand layout (shared by grade, draw, repair)."""
+    """Options for reading a GDSII or CSV hand layout (shared by grade and repair)."""
     opts = [
         click.option("--cell", default=None,
                      help="GDSII: the cell holding the array (default: the one top cell)."),
@@ -93,12 +92,28 @@ def _layout_options(func: F) -> F:
     return func
 
 
+def _drawing_options(func: F) -> F:
+    """Options for the drawn layout (arrange, draw, repair)."""
+    opts = [
+        click.option("--template", "template_path", type=_FILE, default=None,
+                     help="Unit-cell rules (TOML) instead of the kind's shipped template."),
+        click.option("--unit-gds", "unit_gds", type=_FILE, default=None,
+                     help="Place your own unit cell from this GDSII library; its terminals "
+                          "are text labels named after them (see the README)."),
+        click.option("--unit-cell", "unit_cell", default=None, metavar="NAME",
+                     help="The cell of --unit-gds to place (default: its one top cell)."),
+    ]
+    for opt in reversed(opts):
+        func = opt(func)
+    return func
+
+
 def _parse_map(items: tuple[str, ...]) -> dict[str, str]:
     out = {}
     for item in items:
         cell, sep, device = item.partition("=")
         if not sep or not cell or not NAME_RE.match(device):
-            raise PlacerError(f"--map {item!r}: use CELL=DEVICE with a device name")
+            raise PlacerError(f"--map {item[:80]!r}: use CELL=DEVICE with a device name")
         out[cell] = device
     return out
 
@@ -108,6 +123,8 @@ def _load_graded(path: Path, spec_path: Path | None, *, cell: str | None = None,
                  layers_path: Path | None = None, echo_notes: bool = False
                  ) -> tuple[Pattern, Spec, Recognised]:
     """Read a pattern, CSV or GDSII layout and the spec that grades it."""
+    from placer.layers import load_layers
+
     spec = load_spec(spec_path) if spec_path is not None else None
     label = load_layers(layers_path)["label"]
     rec = read_layout(path, spec=spec, cell=cell, mapping=_parse_map(mapping),
@@ -118,13 +135,15 @@ def _load_graded(path: Path, spec_path: Path | None, *, cell: str | None = None,
         stem = path.stem
         spec = default_spec(stem if NAME_RE.match(stem) else "layout", rec.pattern.devices,
                             rec.pattern.counts())
-        spec = replace(spec, array=replace(spec.array, pitch_um=rec.pitch_um))
+        if rec.fmt != "pattern":
+            spec = replace(spec, array=replace(spec.array, pitch_um=rec.pitch_um,
+                                               pitch_given=True))
         return rec.pattern, spec, rec
     if rec.fmt != "pattern" and tuple(rec.pitch_um) != tuple(spec.array.pitch_um):
         click.echo(f"Note: {path} has pitch {rec.pitch_um[0]:g} x {rec.pitch_um[1]:g} um; "
                    f"grading with it, not the spec's {spec.array.pitch_um[0]:g} x "
                    f"{spec.array.pitch_um[1]:g} um", err=True)
-        spec = replace(spec, array=replace(spec.array, pitch_um=rec.pitch_um))
+        spec = replace(spec, array=replace(spec.array, pitch_um=rec.pitch_um, pitch_given=True))
     return check_against_spec(rec.pattern, spec, str(path)), spec, rec
 
 
@@ -164,12 +183,12 @@ def grade(layout: Path, spec_path: Path | None, as_json: bool, budget_plot: Path
     result = grade_pattern(pat, spec)
     worst_pair, sens = sensitivity(pat, spec.array.pitch_um, result,
                                    spec.gradient.linear_ppm_per_um)
+    bud = _budget(pat, spec, result, required=budget_plot is not None)
     if sensitivity_plot is not None:
         from placer.plot import save_sensitivity
 
         save_sensitivity(pat, spec.array.pitch_um, sens, worst_pair, spec.name,
                          [sensitivity_plot])
-    bud = _budget(pat, spec, result, required=budget_plot is not None)
     if budget_plot is not None and bud is not None:
         from placer.plot import save_budget
 
@@ -178,7 +197,7 @@ def grade(layout: Path, spec_path: Path | None, as_json: bool, budget_plot: Path
         out = result.to_dict()
         out["budget"] = asdict(bud) if bud is not None else None
         out["recognised"] = {"format": rec.fmt, "notes": rec.notes,
-                             "pitch_um": list(rec.pitch_um)}
+                             "pitch_um": list(spec.array.pitch_um)}
         out["sensitivity"] = {"pair": worst_pair, "units": [asdict(u) for u in sens]}
         click.echo(json.dumps(out, indent=2, allow_nan=False))
     else:
@@ -238,10 +257,34 @@ class _Progress:
             click.echo("\r" + " " * 72 + "\r", err=True, nl=False)
 
 
+def _tools(spec: Spec, template_path: Path | None, layers_path: Path | None,
+           unit_gds: Path | None, unit_cell: str | None) -> tuple[Spec, Any]:
+    from placer.drawing import load_tools
+
+    if unit_cell is not None and unit_gds is None:
+        raise PlacerError("--unit-cell names a cell of --unit-gds; give --unit-gds too")
+    return load_tools(spec, template_path, layers_path, unit_gds, unit_cell)
+
+
+def _gradient_field(spec: Spec, grade: Grade) -> tuple[float, float] | None:
+    w = grade.worst("linear_ppm")
+    if w is None:
+        return None
+    g = spec.gradient.linear_ppm_per_um
+    angle = np.radians(w.linear_worst_angle_deg)
+    return (g * float(np.cos(angle)), g * float(np.sin(angle)))
+
+
+_ARRANGE_FILES = ("pattern.txt", "report.json", "pattern.gds", "pattern.png", "pattern.svg",
+                  "budget.png", "candidate-*.txt")
+
+
 @cli.command()
 @click.argument("spec_path", metavar="SPEC", type=_FILE)
 @click.option("--out", "out_dir", type=click.Path(file_okay=False, path_type=Path),
-              required=True, help="Folder for pattern.txt, report.json and candidates.")
+              required=True,
+              help="Folder for pattern.txt, report.json, pattern.gds, pattern.png, "
+                   "pattern.svg, budget.png (with [electrical]) and candidate-K.txt.")
 @click.option("--time-limit", "time_limit", type=click.FloatRange(min=0, min_open=True),
               default=60.0, show_default=True,
               help="Safety cap on the search in seconds; the search usually ends sooner.")
@@ -252,108 +295,113 @@ class _Progress:
               help="Also write the K best arrangements on the error/routing trade-off.")
 @click.option("--method", type=click.Choice(METHODS), default="auto", show_default=True,
               help="auto is the optimiser; the others are baselines for comparison.")
+@click.option("--layers", "layers_path", type=_FILE, default=None,
+              help="Layer map (TOML: [layers] role = [layer, datatype]) for the GDSII.")
+@_drawing_options
 @click.option("--quiet", is_flag=True, help="No progress display.")
-@click.option("--force", is_flag=True, help="Overwrite files already in --out.")
+@click.option("--force", is_flag=True, help="Replace a previous run's files in --out.")
 @_user_errors
 def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_candidates: int,
-            method: str, quiet: bool, force: bool) -> None:
-    """Search for the arrangement of SPEC's devices with the least gradient error."""
-    spec = load_spec(spec_path)
-    names = ["pattern.txt", "report.json", "pattern.gds", "pattern.png", "pattern.svg",
-             "budget.png",
-             *(f"candidate-{i}.txt" for i in range(1, n_candidates + 1))]
-    prepare_out_dir(out_dir, names, force)
-    progress = _Progress(not quiet and sys.stderr.isatty())
-    _sigterm_as_interrupt()
-    try:
-        result = run_arrange(spec, method=method, seed=seed, time_limit_s=time_limit,
-                             n_candidates=n_candidates, progress=progress)
-    finally:
-        progress.done()
-    # the search is over: finish the outputs as one set before honouring a signal
-    with _deferred_signals() as caught:
-        header = [f"{spec.name}: {result.method}, core {result.core_shape[0]} x "
-                  f"{result.core_shape[1]}, seed {seed}",
-                  f"linear {result.keys.linear_um:.6g} um (bound {result.linear_bound_um:.6g}), "
-                  f"quadratic {result.keys.quadratic_ppm:.6g} ppm, sigma "
-                  f"{result.keys.sigma_ppm:.6g} ppm"]
-        atomic_write(out_dir / "pattern.txt", format_pattern(result.pattern, header))
-        report = {"spec": str(spec_path), "name": spec.name, "seed": seed,
-                  "time_limit_s": time_limit, **result.to_dict(),
-                  "pattern": format_pattern(result.pattern)}
-        for i, cand in enumerate(result.candidates, start=1):
-            atomic_write(out_dir / f"candidate-{i}.txt", format_pattern(cand.pattern, [
-                f"{spec.name} candidate {i}: systematic {cand.systematic_ppm:.6g} ppm, "
-                f"routing {cand.routing_um:.6g} um"]))
-        bud = _budget(result.pattern, spec, result.grade, required=False)
-        report["budget"] = asdict(bud) if bud is not None else None
-        atomic_write(out_dir / "report.json", json.dumps(report, indent=2, allow_nan=False) + "\n")
-        _draw_outputs(result.pattern, spec, result.grade, out_dir, "pattern")
-        if bud is not None:
-            from placer.plot import save_budget
+            method: str, layers_path: Path | None, template_path: Path | None,
+            unit_gds: Path | None, unit_cell: str | None, quiet: bool, force: bool) -> None:
+    """Search for the arrangement of SPEC's devices with the least gradient error.
 
-            save_budget(bud, spec.name, [out_dir / "budget.png"])
+    Writes the arrangement (pattern.txt), every figure (report.json), the routed GDSII
+    layout (pattern.gds), preview pictures (pattern.png, pattern.svg) and, with an
+    [electrical] table, the budget picture (budget.png).
+    """
+    from placer import drawing
+
+    spec = load_spec(spec_path)
+    spec, tools = _tools(spec, template_path, layers_path, unit_gds, unit_cell)
+    names = ["pattern.txt", "report.json", "pattern.gds", "pattern.png", "pattern.svg",
+             *(["budget.png"] if spec.electrical is not None else []),
+             *(f"candidate-{i}.txt" for i in range(1, n_candidates + 1))]
+    with OutputSet(out_dir, names, force, _ARRANGE_FILES) as out:
+        progress = _Progress(not quiet and sys.stderr.isatty())
+        _sigterm_as_interrupt()
+        try:
+            result = run_arrange(spec, method=method, seed=seed, time_limit_s=time_limit,
+                                 n_candidates=n_candidates, progress=progress)
+        finally:
+            progress.done()
+        # the search is over: finish the outputs as one set before honouring a signal
+        with _deferred_signals() as caught:
+            block = drawing.prepare(result.pattern, spec, tools)
+            bud = _budget(result.pattern, spec, result.grade, required=False)
+            header = [f"{spec.name}: {result.method}, core {result.core_shape[0]} x "
+                      f"{result.core_shape[1]}, seed {seed}",
+                      f"linear {result.keys.linear_um:.6g} um, quadratic "
+                      f"{result.keys.quadratic_ppm:.6g} ppm, sigma "
+                      f"{result.keys.sigma_ppm:.6g} ppm"]
+            out.write("pattern.txt", format_pattern(result.pattern, header))
+            for i, cand in enumerate(result.candidates, start=1):
+                out.write(f"candidate-{i}.txt", format_pattern(cand.pattern, [
+                    f"{spec.name} candidate {i}: systematic {cand.systematic_ppm:.6g} ppm, "
+                    f"routing {cand.routing_um:.6g} um"]))
+            report = {"spec": str(spec_path), "name": spec.name, "seed": seed,
+                      "time_limit_s": time_limit, **result.to_dict(),
+                      "pattern": format_pattern(result.pattern),
+                      "layout": _layout_report(block),
+                      "budget": asdict(bud) if bud is not None else None}
+            out.write("report.json", json.dumps(report, indent=2, allow_nan=False) + "\n")
+            drawing.write(block, result.grade, out, "pattern")
+            if bud is not None:
+                from placer.plot import save_budget
+
+                save_budget(bud, spec.name, [out.path("budget.png")])
+            written = out.commit()
     click.echo(format_arrangement(result, spec))
+    click.echo("")
+    click.echo(format_nets(block.wiring))
     if bud is not None:
         click.echo("")
         click.echo(format_budget(bud))
-    click.echo(f"\nWrote {out_dir}/pattern.txt, report.json, pattern.gds, pattern.png, "
-               "pattern.svg" + (f" and {len(result.candidates)} candidates"
-                                if result.candidates else ""))
+    click.echo(f"\nWrote {out_dir}/" + ", ".join(p.name for p in written))
     if caught:
         click.echo("Interrupted after the search; the outputs above are complete.", err=True)
         sys.exit(130)
 
 
-def _draw_outputs(pattern: Pattern, spec: Spec, grade: Grade, out_dir: Path, stem: str,
-                  template: Template | None = None, layers: LayerMap | None = None,
-                  gradient: bool = False) -> list[Path]:
-    """Write <stem>.gds, .png and .svg; every file atomically."""
-    from placer.gds import build_library, write_gds
-    from placer.plot import save_preview
-
-    lib = build_library(pattern, spec, template or load_template(spec),
-                        layers or load_layers())
-    paths = [out_dir / f"{stem}.gds", out_dir / f"{stem}.png", out_dir / f"{stem}.svg"]
-    write_gds(lib, paths[0])
-    g = spec.gradient.linear_ppm_per_um
-    field = None
-    if gradient and grade.pairs:
-        w = grade.worst("linear_ppm")
-        assert w is not None
-        angle = np.radians(w.linear_worst_angle_deg)
-        field = (g * float(np.cos(angle)), g * float(np.sin(angle)))
-    save_preview(pattern, spec.array.pitch_um, grade, spec.name, paths[1:], gradient=field)
-    return paths
+def _layout_report(block: Any) -> dict[str, Any]:
+    w = block.wiring
+    return {"size_um": list(w.size_um), "pitch_um": list(block.spec.array.pitch_um),
+            "pitch_given": block.spec.array.pitch_given,
+            "channel_tracks": w.channel_tracks, "tracks_per_row": list(w.tracks_per_row),
+            "nets": [asdict(n) for n in w.nets]}
 
 
 @cli.command()
 @click.argument("pattern_path", metavar="PATTERN", type=_FILE)
 @click.option("--spec", "spec_path", type=_FILE, default=None,
-              help="Spec with pitch, unit size, kind and model assumptions.")
+              help="Spec with pitch, unit size, kind, nets and model assumptions.")
 @click.option("--out", "out_dir", type=click.Path(file_okay=False, path_type=Path),
               required=True, help="Folder for <name>.gds, <name>.png and <name>.svg.")
-@click.option("--template", type=_FILE, default=None,
-              help="Unit-cell template (TOML) instead of the kind's shipped one.")
-@click.option("--layers", type=_FILE, default=None,
-              help="Layer map (TOML: purpose = [layer, datatype]) instead of the generic one.")
+@click.option("--layers", "layers_path", type=_FILE, default=None,
+              help="Layer map (TOML: [layers] role = [layer, datatype]) for the GDSII.")
+@_drawing_options
 @click.option("--gradient", "overlay", is_flag=True,
               help="Shade the preview with the worst pair's worst linear gradient.")
 @click.option("--force", is_flag=True, help="Overwrite files already in --out.")
 @_user_errors
-def draw(pattern_path: Path, spec_path: Path | None, out_dir: Path, template: Path | None,
-         layers: Path | None, overlay: bool, force: bool) -> None:
-    """Write a GDSII stick pattern and preview pictures of PATTERN."""
+def draw(pattern_path: Path, spec_path: Path | None, out_dir: Path, layers_path: Path | None,
+         template_path: Path | None, unit_gds: Path | None, unit_cell: str | None,
+         overlay: bool, force: bool) -> None:
+    """Write the routed GDSII layout and preview pictures of PATTERN."""
+    from placer import drawing
+
     pattern, spec, _ = _load_graded(pattern_path, spec_path)
+    spec, tools = _tools(spec, template_path, layers_path, unit_gds, unit_cell)
     stem = pattern_path.stem if NAME_RE.match(pattern_path.stem) else spec.name
-    # read templates and layers before touching the folder: bad ones leave nothing behind
-    cell_template = load_template(spec, template)
-    layer_map = load_layers(layers)
-    prepare_out_dir(out_dir, [f"{stem}.gds", f"{stem}.png", f"{stem}.svg"], force)
-    grade = grade_pattern(pattern, spec)
-    paths = _draw_outputs(pattern, spec, grade, out_dir, stem, cell_template, layer_map,
-                          overlay)
-    click.echo("Wrote " + ", ".join(str(p) for p in paths))
+    grade_ = grade_pattern(pattern, spec)
+    block = drawing.prepare(pattern, spec, tools)
+    names = [f"{stem}.gds", f"{stem}.png", f"{stem}.svg"]
+    with OutputSet(out_dir, names, force) as out:
+        drawing.write(block, grade_, out, stem,
+                      _gradient_field(spec, grade_) if overlay else None)
+        written = out.commit()
+    click.echo(format_nets(block.wiring))
+    click.echo("Wrote " + ", ".join(str(p) for p in written))
     click.echo("The GDSII is a starting pattern, not a design-rule-clean layout.")
 
 
@@ -371,32 +419,35 @@ def compare(spec_path: Path, out_dir: Path, seed: int, time_limit: float, force:
     """One page comparing clustered, interdigitated, mirrored and optimised arrangements."""
     from placer.arrange import baseline_pattern, build_pattern
     from placer.plot import save_comparison
-    from placer.routing import estimate_routing
+    from placer.report import format_table
+    from placer.routing import estimate_routing, mos_finger_nets
 
     spec = load_spec(spec_path)
     names = [f"{spec.name}-compare.png", f"{spec.name}-compare.pdf"]
-    prepare_out_dir(out_dir, names, force)
-    best = run_arrange(spec, seed=seed, time_limit_s=time_limit)
-    rows, cols = best.core_shape
-    entries = []
-    for method in ("clustered", "interdigitated", "mirrored"):
-        pat = build_pattern(spec, baseline_pattern(spec, method, rows, cols), rows, cols)
-        route = estimate_routing(pat, spec.array.pitch_um, spec.kind == "mos")
-        entries.append((method, pat, grade_pattern(pat, spec), route.total_tree_um))
-    entries.append(("optimised", best.pattern, best.grade, best.routing.total_tree_um))
-    units = ", ".join(f"{n}={c}" for n, c in zip(spec.devices, spec.counts, strict=True))
-    save_comparison(entries, spec.array.pitch_um, spec.gradient.linear_ppm_per_um,
-                    f"{spec.name}: {units} on a {rows} x {cols} core, pitch "
-                    f"{spec.array.pitch_um[0]:g} x {spec.array.pitch_um[1]:g} um "
-                    "(model estimates)",
-                    [out_dir / n for n in names])
+    with OutputSet(out_dir, names, force) as out:
+        best = run_arrange(spec, seed=seed, time_limit_s=time_limit)
+        rows, cols = best.core_shape
+        nets = mos_finger_nets(spec) if spec.kind == "mos" else None
+        entries = []
+        for method in ("clustered", "interdigitated", "mirrored"):
+            pat = build_pattern(spec, baseline_pattern(spec, method, rows, cols), rows, cols)
+            route = estimate_routing(pat, spec.array.pitch_um, spec.kind == "mos", nets)
+            entries.append((method, pat, grade_pattern(pat, spec), route.total_tree_um))
+        entries.append(("optimised", best.pattern, best.grade, best.routing.total_tree_um))
+        units = ", ".join(f"{n}={c}" for n, c in zip(spec.devices, spec.counts, strict=True))
+        save_comparison(entries, spec.array.pitch_um, spec.gradient.linear_ppm_per_um,
+                        f"{spec.name}: {units} on a {rows} x {cols} core, pitch "
+                        f"{spec.array.pitch_um[0]:g} x {spec.array.pitch_um[1]:g} um "
+                        "(model estimates)",
+                        [out.path(n) for n in names])
+        written = out.commit()
     rows_txt = [[label, f"{max((p.linear_ppm for p in g.pairs), default=0):.3g}",
                  f"{max((p.quadratic_ppm for p in g.pairs), default=0):.3g}",
                  f"{max((p.correlated_sigma_ppm for p in g.pairs), default=0):.3g}",
                  f"{r:.4g}"] for label, _, g, r in entries]
     click.echo(format_table(["arrangement", "linear ppm", "quad ppm", "sigma ppm", "wire um"],
                             rows_txt))
-    click.echo("Wrote " + ", ".join(str(out_dir / n) for n in names))
+    click.echo("Wrote " + ", ".join(str(p) for p in written))
 
 
 @cli.command()
@@ -413,39 +464,72 @@ def compare(spec_path: Path, out_dir: Path, seed: int, time_limit: float, force:
               default=30.0, show_default=True, help="Safety cap on that search in seconds.")
 @click.option("--force", is_flag=True, help="Overwrite files already in --out.")
 @_layout_options
+@_drawing_options
 @_user_errors
 def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, seed: int,
            time_limit: float, force: bool, cell: str | None, mapping: tuple[str, ...],
-           dummy_cells: tuple[str, ...], layers_path: Path | None) -> None:
+           dummy_cells: tuple[str, ...], layers_path: Path | None, template_path: Path | None,
+           unit_gds: Path | None, unit_cell: str | None) -> None:
     """Find the fewest unit swaps that bring LAYOUT's linear error to its best.
 
     The target is the linear error the search reaches on the same slots; within
     --max-swaps the quadratic error is lowered next. Prints the swaps by slot (row,
     column, coordinates) with the scores before and after, and writes the repaired
-    pattern with its drawing.
+    pattern with its routed drawing.
     """
+    from placer import drawing
+
     pat, spec, rec = _load_graded(layout, spec_path, cell=cell, mapping=mapping,
                                   dummy_cells=dummy_cells, layers_path=layers_path,
                                   echo_notes=True)
-    names = ["repaired.txt", "repaired.gds", "repaired.png", "repaired.svg", "repair.json"]
-    prepare_out_dir(out_dir, names, force)
-    res = run_repair(pat, spec, spec.array.pitch_um, max_swaps, seed=seed,
-                     time_limit_s=time_limit)
-    px, py = spec.array.pitch_um
-    ox, oy = rec.origin_um
+    from placer.router import RouteError
 
-    def where(slot: tuple[int, int]) -> str:
-        r, c = slot
-        return f"row {r}, col {c} ({ox + c * px:.4g}, {oy - r * py:.4g} um)"
+    note = None
+    try:
+        spec, tools = _tools(replace(spec, array=replace(spec.array, pitch_given=True)),
+                             template_path, layers_path, unit_gds, unit_cell)
+    except RouteError as err:      # a hand layout's pitch may not hold placer's unit cell
+        if unit_gds is not None or template_path is not None:
+            raise
+        tools, note = None, f"repaired.gds not written: {err}"
+    names = ["repaired.txt", *(["repaired.gds"] if tools is not None else []),
+             "repaired.png", "repaired.svg", "repair.json"]
+    with OutputSet(out_dir, names, force) as out:
+        res = run_repair(pat, spec, spec.array.pitch_um, max_swaps, seed=seed,
+                         time_limit_s=time_limit)
+        grade_ = grade_pattern(res.pattern, spec)
+        block = drawing.prepare(res.pattern, spec, tools) if tools is not None else None
+        px, py = spec.array.pitch_um
+        ox, oy = rec.origin_um
 
-    lines = []
-    for i, sw in enumerate(res.swaps, start=1):
-        lines.append(f"  {i}. swap {sw.first_device} at {where(sw.first)} with "
-                     f"{sw.second_device} at {where(sw.second)}")
+        def where(slot: tuple[int, int]) -> str:
+            r, c = slot
+            return f"row {r}, col {c} ({ox + c * px:.4g}, {oy - r * py:.4g} um)"
+
+        lines = [f"  {i}. swap {sw.first_device} at {where(sw.first)} with "
+                 f"{sw.second_device} at {where(sw.second)}"
+                 for i, sw in enumerate(res.swaps, start=1)]
+        header = [f"{spec.name} repaired from {layout.name} with {len(res.swaps)} swap(s)",
+                  *(ln.strip() for ln in lines)]
+        out.write("repaired.txt", format_pattern(res.pattern, header))
+        if block is not None:
+            drawing.write(block, grade_, out, "repaired")
+        else:
+            from placer.plot import save_preview
+
+            save_preview(res.pattern, spec.array.pitch_um, grade_, spec.name,
+                         [out.path("repaired.png"), out.path("repaired.svg")])
+        b, a = res.before, res.after
+        report = {"layout": str(layout), "recognised": rec.notes,
+                  "swaps": [asdict(sw) for sw in res.swaps], "before": asdict(b),
+                  "after": asdict(a), "target_linear_um": res.target_linear_um,
+                  "reached_target": res.reached_target, "grade": grade_.to_dict(),
+                  "layout_nets": _layout_report(block) if block is not None else None}
+        out.write("repair.json", json.dumps(report, indent=2, allow_nan=False) + "\n")
+        written = out.commit()
     g = spec.gradient.linear_ppm_per_um
-    b, a = res.before, res.after
-    head = (f"{len(res.swaps)} swap(s)" if res.swaps else "No swap improves this layout")
-    click.echo(head + (":" if res.swaps else "."))
+    click.echo(f"{len(res.swaps)} swap(s):" if res.swaps
+                else "No swap improves this layout.")
     for ln in lines:
         click.echo(ln)
     click.echo(f"Linear worst pair: {b.linear_um:.4g} um ({b.linear_um * g:.4g} ppm) -> "
@@ -453,16 +537,6 @@ def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, 
                f"{res.target_linear_um:.4g} um " + ("reached" if res.reached_target else
                                                    f"not reached in {max_swaps} swaps"))
     click.echo(f"Quadratic worst pair: {b.quadratic_ppm:.4g} ppm -> {a.quadratic_ppm:.4g} ppm")
-    header = [f"{spec.name} repaired from {layout.name} with {len(res.swaps)} swap(s)",
-              *(ln.strip() for ln in lines)]
-    atomic_write(out_dir / "repaired.txt", format_pattern(res.pattern, header))
-    grade = grade_pattern(res.pattern, spec)
-    _draw_outputs(res.pattern, spec, grade, out_dir, "repaired",
-                  layers=load_layers(layers_path) if layers_path is not None else None)
-    report = {"layout": str(layout), "recognised": rec.notes,
-              "swaps": [asdict(sw) for sw in res.swaps], "before": asdict(b),
-              "after": asdict(a), "target_linear_um": res.target_linear_um,
-              "reached_target": res.reached_target, "grade": grade.to_dict()}
-    atomic_write(out_dir / "repair.json", json.dumps(report, indent=2, allow_nan=False) + "\n")
-    click.echo(f"Wrote {out_dir}/repaired.txt, repaired.gds, repaired.png, repaired.svg, "
-               "repair.json")
+    click.echo("Wrote " + ", ".join(str(p) for p in written))
+    if note is not None:
+        click.echo(f"Note: {note}", err=True)

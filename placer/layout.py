@@ -354,7 +354,7 @@ def read_layout(path: Path, *, spec: Spec | None = None, cell: str | None = None
             raise LayoutError(f"{path}: neither GDSII nor UTF-8 text (byte {err.start})"
                               ) from err
         pattern = parse_pattern(text, source=str(path))
-        pitch = spec.array.pitch_um if spec is not None else (1.0, 1.0)
+        pitch = spec.array.pitch_um if spec is not None else (0.0, 0.0)   # from the spec
         return Recognised(pattern, pitch, (0.0, 0.0), fmt, notes)
     mos = spec is None or spec.kind == "mos"
     if fmt == "csv":

@@ -63,14 +63,17 @@ def _write_figure(fig: Any, path: Path, dpi: int) -> None:
 def draw_pattern(ax: Any, pattern: Pattern, pitch_um: tuple[float, float],
                  grade: Grade | None = None, *, names: bool | None = None,
                  markers: bool = True, arrows: bool = True,
-                 gradient: tuple[float, float] | None = None) -> None:
+                 gradient: tuple[float, float] | None = None,
+                 cell_extent: tuple[float, float, float, float] | None = None) -> None:
     """Draw every slot as a rectangle at true pitch on ``ax``.
 
     Units are filled in their device's colour with the device name in the upper part
     (the centre stays clear, so a test can read the fill there); dummies are white with
     a grey hatch; empty slots are left blank. Markers show each device's centroid and
     the centre of all device units; arrows show MOS finger orientation. ``gradient``
-    (gx, gy) in ppm/um shades the background with that linear field.
+    (gx, gy) in ppm/um shades the background with that linear field. With
+    ``cell_extent`` (x0, y0, x1, y1 of the unit cell about its centre) each unit is drawn
+    at its drawn size and the routing channel below each row is shaded.
     """
     from matplotlib.collections import PatchCollection
     from matplotlib.patches import Rectangle
@@ -79,6 +82,16 @@ def draw_pattern(ax: Any, pattern: Pattern, pitch_um: tuple[float, float],
     rows, cols = pattern.shape
     colours = device_colours(len(pattern.devices))
     w, h = 0.92 * px, 0.92 * py
+    ox, oy = -w / 2, -h / 2
+    if cell_extent is not None:
+        ex0, ey0, ex1, ey1 = cell_extent
+        w, h, ox, oy = ex1 - ex0, ey1 - ey0, ex0, ey0
+        from matplotlib.patches import Rectangle as _R
+
+        for r in range(rows):
+            top = -r * py + ey0
+            ax.add_patch(_R((-0.5 * px, top - (py - h)), cols * px, py - h,
+                            facecolor="#f2f2f2", edgecolor="none", zorder=0.5))
     if gradient is not None:
         xs = np.linspace(-px, cols * px, 64)
         ys = np.linspace(-rows * py, py, 64)
@@ -96,7 +109,7 @@ def draw_pattern(ax: Any, pattern: Pattern, pitch_um: tuple[float, float],
                 key = (DUMMY_COLOUR, "///", "#888888")
             else:
                 key = (colours[d][0], colours[d][1], "#222222")
-            by_style.setdefault(key, []).append(Rectangle((x - w / 2, y - h / 2), w, h))
+            by_style.setdefault(key, []).append(Rectangle((x + ox, y + oy), w, h))
     for (face, hatch, edge), rects in by_style.items():
         ax.add_collection(PatchCollection(rects, facecolor=face, edgecolor=edge,
                                           hatch=hatch or None, linewidth=0.6, zorder=1))
@@ -176,7 +189,8 @@ def _title(name: str, grade: Grade | None) -> str:
 
 def save_preview(pattern: Pattern, pitch_um: tuple[float, float], grade: Grade | None,
                  name: str, paths: Sequence[Path], *, dpi: int = 110,
-                 gradient: tuple[float, float] | None = None) -> None:
+                 gradient: tuple[float, float] | None = None,
+                 cell_extent: tuple[float, float, float, float] | None = None) -> None:
     """Write the preview picture to each of ``paths`` (format from the suffix)."""
 
     rows, cols = pattern.shape
@@ -187,7 +201,7 @@ def save_preview(pattern: Pattern, pitch_um: tuple[float, float], grade: Grade |
     fig = _figure(width, height)
     fig.set_layout_engine("constrained")
     ax = fig.add_subplot()
-    draw_pattern(ax, pattern, pitch_um, grade, gradient=gradient)
+    draw_pattern(ax, pattern, pitch_um, grade, gradient=gradient, cell_extent=cell_extent)
     _legend(ax, pattern, grade)
     ax.set_title(_title(name, grade), fontsize=9, loc="left")
     for path in paths:

@@ -11,7 +11,8 @@ if TYPE_CHECKING:
     from placer.arrange import Arrangement
     from placer.spec import Spec
 
-__all__ = ["format_grade", "format_table", "format_arrangement", "format_budget", "CAUTION"]
+__all__ = ["format_grade", "format_table", "format_arrangement", "format_budget",
+           "format_nets", "CAUTION"]
 
 CAUTION = ("Figures are model estimates under the assumptions above; confirm with the "
            "foundry's matching guidelines, extraction and the process's mismatch data.")
@@ -185,4 +186,23 @@ def format_budget(b: Any) -> str:
            format_table(head, rows)]
     for ln in b.lines:
         out.append(f"  {ln.device}: {ln.dominant} dominates; cure: {ln.cure}.")
+    return "\n".join(out)
+
+
+def format_nets(wiring: Any, max_rows: int = 40) -> str:
+    """The routed nets: terminals, wire length, vias and the wire's R and C."""
+    w, h = wiring.size_um
+    rows = []
+    for n in wiring.nets[:max_rows]:
+        terms = ", ".join(f"{d}.{t}" for d, t in n.terminals)
+        rows.append([n.name, terms if len(terms) <= 40 else terms[:37] + "...", str(n.units),
+                     f"{n.wire_um:.4g}", str(n.vias), f"{n.resistance_ohm:.3g}",
+                     f"{n.capacitance_ff:.3g}"])
+    out = [f"Layout: {w:.4g} x {h:.4g} um, {wiring.channel_tracks} tracks in the fullest "
+           f"channel; every net routed to a pin at the array's top right edge (wire R and C "
+           "from the spec's [routing] figures, illustrative by default)",
+           format_table(["net", "terminals", "units", "wire um", "vias", "R ohm", "C fF"],
+                        rows)]
+    if len(wiring.nets) > max_rows:
+        out.append(f"... {len(wiring.nets) - max_rows} more nets in report.json")
     return "\n".join(out)

@@ -3,16 +3,19 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
-from scipy.sparse.csgraph import minimum_spanning_tree
-from scipy.spatial.distance import pdist, squareform
 
 from placer.pattern import Pattern, unit_positions
 
 __all__ = ["Routing", "estimate_routing", "row_tracks", "diffusion_breaks", "orient_row",
-           "finger_terminals"]
+           "finger_terminals", "FingerNets", "mos_finger_nets"]
+
+#: (source net, drain net) of each MOS device as integers; None: a mirror's nets (shared
+#: source, own drain).
+FingerNets = tuple[tuple[int, int], ...] | None
 
 
 @dataclass(frozen=True)
@@ -42,17 +45,35 @@ def row_tracks(ids: NDArray[np.int_]) -> NDArray[np.int_]:
     return present.sum(axis=1).astype(int)
 
 
-def finger_terminals(device: int, mark: int) -> tuple[int, int]:
-    """(left, right) net of a finger: -1 is the shared source, d the drain of device d."""
-    return (-1, device) if mark >= 0 else (device, -1)
+def mos_finger_nets(spec: Any) -> FingerNets:
+    """The spec's (source, drain) nets of each MOS device, numbered by first appearance.
+
+    Examples
+    --------
+    >>> from placer.spec import parse_spec
+    >>> mos_finger_nets(parse_spec("[devices]\\nA = 2\\nB = 2\\n"))
+    ((0, 1), (0, 2))
+    """
+    ids: dict[str, int] = {}
+    return tuple((ids.setdefault(n["source"], len(ids)), ids.setdefault(n["drain"], len(ids)))
+                 for n in spec.nets)
 
 
-def orient_row(row: NDArray[np.int_], balance: dict[int, int] | None = None
-               ) -> tuple[list[int], int]:
+def finger_terminals(device: int, mark: int, nets: FingerNets = None) -> tuple[int, int]:
+    """(left, right) diffusion net of a finger: source then drain for '>', reversed for '<'.
+
+    Without ``nets``, -1 is a shared source and d the drain of device d.
+    """
+    s, d = (-1, device) if nets is None else nets[device]
+    return (s, d) if mark >= 0 else (d, s)
+
+
+def orient_row(row: NDArray[np.int_], balance: dict[int, int] | None = None,
+               nets: FingerNets = None) -> tuple[list[int], int]:
     """Orientations (+1 '>', -1 '<') for one MOS row that need the fewest diffusion breaks.
 
-    Neighbouring fingers share diffusion where their facing terminals are the same net:
-    two sources (a mirror's common source) or the drain of the same device. Dummies and
+    Neighbouring fingers share diffusion where their facing terminals are the same net
+    (``nets``; by default a mirror's common source, or the drain of the same device). Dummies and
     empty slots break the diffusion on their own and constrain nothing. Among equally
     good choices the one that evens out each device's count of '>' and '<' (running tally
     in ``balance``) wins.
@@ -81,10 +102,10 @@ def orient_row(row: NDArray[np.int_], balance: dict[int, int] | None = None
                 cost[i][o] = prev
                 back[i][o] = int(np.argmin(cost[i - 1])) if i else -1
                 continue
-            left = finger_terminals(d, 1 if o else -1)[0]
+            left = finger_terminals(d, 1 if o else -1, nets)[0]
             options = []
             for p in (0, 1):
-                right = finger_terminals(int(row[i - 1]), 1 if p else -1)[1]
+                right = finger_terminals(int(row[i - 1]), 1 if p else -1, nets)[1]
                 options.append(cost[i - 1][p] + (0 if right == left else 1))
             p = int(np.argmin(options))
             cost[i][o] = options[p] if options[p] < inf else inf
@@ -102,7 +123,8 @@ def orient_row(row: NDArray[np.int_], balance: dict[int, int] | None = None
     return marks, int(min(cost[-1]))
 
 
-def diffusion_breaks(ids: NDArray[np.int_], orient: NDArray[np.int8]) -> int:
+def diffusion_breaks(ids: NDArray[np.int_], orient: NDArray[np.int8],
+                     nets: FingerNets = None) -> int:
     """Diffusion breaks a MOS pattern needs between neighbouring device fingers."""
     breaks = 0
     for row, marks in zip(ids, orient, strict=True):
@@ -110,13 +132,18 @@ def diffusion_breaks(ids: NDArray[np.int_], orient: NDArray[np.int8]) -> int:
             a, b = int(row[i - 1]), int(row[i])
             if a < 0 or b < 0:
                 continue
-            if finger_terminals(a, int(marks[i - 1]))[1] != finger_terminals(b, int(marks[i]))[0]:
+            if (finger_terminals(a, int(marks[i - 1]), nets)[1]
+                    != finger_terminals(b, int(marks[i]), nets)[0]):
                 breaks += 1
     return breaks
 
 
-def estimate_routing(pattern: Pattern, pitch_um: tuple[float, float], mos: bool) -> Routing:
+def estimate_routing(pattern: Pattern, pitch_um: tuple[float, float], mos: bool,
+                     nets: FingerNets = None) -> Routing:
     """Tracks per row, half-perimeter and spanning-tree length per device, breaks for MOS."""
+    from scipy.sparse.csgraph import minimum_spanning_tree
+    from scipy.spatial.distance import pdist, squareform
+
     xy, dev = unit_positions(pattern, pitch_um)
     tracks = row_tracks(pattern.ids)
     hp: dict[str, float] = {}
@@ -133,5 +160,5 @@ def estimate_routing(pattern: Pattern, pitch_um: tuple[float, float], mos: bool)
     return Routing(
         row_tracks=tuple(int(t) for t in tracks), total_tracks=int(tracks.sum()),
         half_perimeter_um=hp, tree_length_um=tree, total_tree_um=float(sum(tree.values())),
-        diffusion_breaks=diffusion_breaks(pattern.ids, pattern.orient) if mos else None,
+        diffusion_breaks=diffusion_breaks(pattern.ids, pattern.orient, nets) if mos else None,
     )

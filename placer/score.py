@@ -9,6 +9,7 @@ from typing import Any
 import numpy as np
 
 from placer import model
+from placer.moments import grid_sums, pair_linear, pair_second
 from placer.pattern import Pattern, unit_positions
 from placer.spec import Spec
 
@@ -133,11 +134,17 @@ def grade_pattern(pattern: Pattern, spec: Spec) -> Grade:
     if pair_list:
         pr = np.array(pair_list, dtype=int)
         g = spec.gradient
-        lin, ang = model.linear_worst(cen[pr[:, 0]] - cen[pr[:, 1]], g.linear_ppm_per_um)
-        dm2 = m2[pr[:, 0]] - m2[pr[:, 1]]
+        # exact integer moments on the slot grid (placer.moments): zeros are exact zeros
+        r_idx, c_idx = np.nonzero(pattern.ids >= 0)
+        sums = grid_sums(r_idx, c_idx, dev, n_dev)
+        dc = pair_linear(sums, pr, spec.array.pitch_um)
+        lin, ang = model.linear_worst(dc, g.linear_ppm_per_um)
+        dm2 = pair_second(sums, pr, spec.array.pitch_um)
         quad = model.quadratic_worst(dm2, g.quadratic_ppm_per_um2)
         bowl = model.bowl_error(dm2, g.quadratic_ppm_per_um2)
         norms = model.exact_pair_terms(xy_c, dev, n_dev, pr, g.order)
+        norms[1] = np.hypot(dc[:, 0], dc[:, 1])
+        norms[2] = model.moment_norm(dm2)
         c = spec.correlated
         cov = model.device_covariance(xy_c, dev, n_dev, c.length_um, c.kernel)
         corr = c.sigma_ppm * np.sqrt(model.pair_variance(cov, pr))

@@ -80,7 +80,7 @@ class Problem:
     objective: str = "lexicographic"
     tie_ppm: float = 0.01
     open_edge: tuple[bool, ...] | None = None
-    mos: bool = False
+    finger_nets: tuple[tuple[int, int], ...] | None = None
 
     @property
     def n_slots(self) -> int:
@@ -363,12 +363,12 @@ def _tracks(prob: Problem, assign: IntArray) -> int:
 
 def _breaks(prob: Problem, assign: IntArray) -> int:
     """Fewest diffusion breaks the MOS rows need (0 for other kinds)."""
-    if not prob.mos:
+    if prob.finger_nets is None:
         return 0
     from placer.routing import orient_row
 
     grid = assign.reshape(prob.rows, prob.cols)
-    return sum(orient_row(row)[1] for row in grid)
+    return sum(orient_row(row, None, prob.finger_nets)[1] for row in grid)
 
 
 def evaluate(prob: Problem, assign: IntArray) -> Keys:

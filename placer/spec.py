@@ -28,6 +28,7 @@ __all__ = [
     "SearchSpec",
     "OBJECTIVES",
     "ElectricalSpec",
+    "RoutingSpec",
     "FITS",
     "Spec",
     "default_spec",
@@ -46,6 +47,7 @@ KERNELS = ("exponential", "gaussian")
 MAX_UNITS = 65_536
 MAX_SLOTS = 262_144
 MAX_NAME = 24
+MAX_NET = 32
 MAX_FILE_BYTES = 4 * 1024 * 1024
 _RESERVED = {"con", "prn", "aux", "nul", *(f"com{i}" for i in range(10)),
              *(f"lpt{i}" for i in range(10))}
@@ -53,13 +55,19 @@ _RESERVED = {"con", "prn", "aux", "nul", *(f"com{i}" for i in range(10)),
 
 @dataclass(frozen=True)
 class ArraySpec:
-    """Shape of the unit array: core rows and columns, dummies and slot pitch."""
+    """Shape of the unit array: core rows and columns, dummies and slot pitch.
+
+    ``pitch_um`` is the slot pitch: in x one unit cell, in y one row of cells with the
+    routing channel below it. ``pitch_given`` is False when placer computed it (the
+    smallest pitch that holds the unit cell and the channel).
+    """
 
     rows: int | None = None
     columns: int | None = None
     dummies: str = "ends"
     pitch_um: tuple[float, float] = (1.0, 1.0)
     aspect: float = 1.0
+    pitch_given: bool = True
 
 
 @dataclass(frozen=True)
@@ -125,6 +133,16 @@ FITS = ("endpoint", "best")
 
 
 @dataclass(frozen=True)
+class RoutingSpec:
+    """Per-micrometre wire figures for the routing summary (illustrative defaults)."""
+
+    metal1_ohm_per_um: float = 0.3
+    metal2_ohm_per_um: float = 0.2
+    via_ohm: float = 5.0
+    wire_ff_per_um: float = 0.2
+
+
+@dataclass(frozen=True)
 class ElectricalSpec:
     """Electrical parameters for the error budget (table [electrical])."""
 
@@ -161,16 +179,58 @@ class Spec:
     search: SearchSpec = field(default_factory=SearchSpec)
     electrical: ElectricalSpec | None = None
     source: str = "<spec>"
+    nets: tuple[dict[str, str], ...] = ()
+    joins: tuple[str, ...] = ()
+    dummy_net: str = "TIE"
+    routing: RoutingSpec = field(default_factory=RoutingSpec)
 
     @property
     def n_units(self) -> int:
         """Total number of device units."""
         return sum(self.counts)
 
+    def net_names(self) -> list[str]:
+        """Every net of the block: terminal nets in device order, the dummy net, then the
+        inner nodes of series resistors."""
+        from placer.kinds import series_node
 
-def default_spec(name: str, devices: tuple[str, ...], counts: tuple[int, ...]) -> Spec:
+        out: dict[str, None] = {}
+        for nets in self.nets:
+            for net in nets.values():
+                out.setdefault(net)
+        out.setdefault(self.dummy_net)
+        for name, count, join in zip(self.devices, self.counts, self.joins, strict=True):
+            if join == "series":
+                for i in range(1, count):
+                    out.setdefault(series_node(name, i))
+        return list(out)
+
+
+def default_spec(name: str, devices: tuple[str, ...], counts: tuple[int, ...],
+                 kind: str = "mos") -> Spec:
     """Spec with every assumption at its documented default, for a bare pattern."""
-    return Spec(name=name, devices=devices, counts=counts, source="<defaults>")
+    from placer.kinds import default_dummy_net, default_nets
+
+    nets = tuple(default_nets(kind, d) for d in devices)
+    spec = Spec(name=name, devices=devices, counts=counts, kind=kind, source="<defaults>",
+                nets=nets, joins=tuple("series" if kind == "res" else "parallel"
+                                       for _ in devices),
+                dummy_net=default_dummy_net(kind, list(nets)),
+                array=ArraySpec(pitch_given=False))
+    return with_computed_pitch(spec)
+
+
+def with_computed_pitch(spec: Spec, rules: Any = None) -> Spec:
+    """``spec`` with the smallest pitch its unit cell and routing channel need, unless the
+    spec gives its own pitch. ``rules`` is a template's rules (default: the kind's)."""
+    if spec.array.pitch_given:
+        return spec
+    from dataclasses import replace
+
+    from placer.router import pitch_needed
+
+    pitch = pitch_needed(spec, rules)
+    return replace(spec, array=replace(spec.array, pitch_um=pitch))
 
 
 def check_name(name: str, what: str) -> str:
@@ -193,14 +253,15 @@ def check_name(name: str, what: str) -> str:
 # Every table and key a spec may hold; anything else is refused with a suggestion.
 _SCHEMA: dict[str, tuple[str, ...]] = {
     "": ("name", "kind", "devices", "array", "unit", "gradient", "correlated", "mismatch",
-         "monte_carlo", "search", "electrical"),
-    "array": ("rows", "columns", "dummies", "pitch_um", "aspect"),
+         "monte_carlo", "search", "electrical", "terminals", "routing"),
+    "array": ("rows", "columns", "dummies", "pitch_um", "aspect", "dummy_net"),
     "unit": ("width_um", "length_um"),
     "gradient": ("linear_ppm_per_um", "quadratic_ppm_per_um2", "order"),
     "correlated": ("sigma_ppm", "length_um", "kernel"),
     "mismatch": ("a_param_pct_um", "a_vt_mv_um"),
     "monte_carlo": ("samples", "seed"),
     "search": ("objective", "cancel_order", "tie_ppm"),
+    "routing": ("metal1_ohm_per_um", "metal2_ohm_per_um", "via_ohm", "wire_ff_per_um"),
     "electrical": ("reference", "vov_v", "gm_id_per_v", "lambda_per_v", "vds_v",
                    "vt_gradient_mv_per_mm", "beta_gradient_pct_per_mm", "a_vt_mv_um",
                    "a_beta_pct_um", "k_sigma", "tolerance_pct", "termination", "weights",
@@ -349,6 +410,7 @@ def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") 
     rows = arr.integer("rows", None, high=MAX_SLOTS)
     columns = arr.integer("columns", None, high=MAX_SLOTS)
     dummies = arr.choice("dummies", "ends", DUMMY_STYLES)
+    pitch_given = "pitch_um" in arr.data
     pitch = _pitch(arr)
     aspect = arr.number("aspect", 1.0)
     assert aspect is not None
@@ -359,7 +421,7 @@ def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") 
         if rows * columns < sum(counts):
             raise SpecError(f"{source}: [array] {rows} x {columns} = {rows * columns} slots "
                             f"cannot hold {sum(counts)} units; enlarge rows or columns")
-    array = ArraySpec(rows, columns, dummies, pitch, aspect)
+    array = ArraySpec(rows, columns, dummies, pitch, aspect, pitch_given)
 
     un = _Reader(source, "unit", data.get("unit", {}))
     unit = UnitSpec(un.number("width_um", 1.0) or 1.0, un.number("length_um", 1.0) or 1.0)
@@ -404,9 +466,89 @@ def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") 
     if "electrical" in data:
         electrical = _electrical(source, data["electrical"], kind, names, counts, mismatch)
 
-    return Spec(name=name, devices=tuple(names), counts=tuple(counts), kind=kind, array=array,
+    nets, joins, dummy_net = _terminals(source, data.get("terminals", {}), kind, names,
+                                        counts, arr.data.get("dummy_net"))
+
+    ro = _Reader(source, "routing", data.get("routing", {}))
+    dr = RoutingSpec()
+    routing = RoutingSpec(*(_num(ro, k, getattr(dr, k)) for k in _SCHEMA["routing"]))
+
+    spec = Spec(name=name, devices=tuple(names), counts=tuple(counts), kind=kind, array=array,
                 unit=unit, gradient=gradient, correlated=correlated, mismatch=mismatch,
-                monte_carlo=monte_carlo, search=search, electrical=electrical, source=source)
+                monte_carlo=monte_carlo, search=search, electrical=electrical, source=source,
+                nets=nets, joins=joins, dummy_net=dummy_net, routing=routing)
+    try:
+        return with_computed_pitch(spec)
+    except PlacerError as err:
+        raise SpecError(f"{source}: {err}") from None
+
+
+def _net_name(where: str, key: str, value: Any) -> str:
+    if not isinstance(value, str):
+        raise SpecError(f"{where} {key} must be a net name (a string), got "
+                        f"{_typename(value)}")
+    if not NAME_RE.match(value) or len(value) > MAX_NET:
+        raise SpecError(f"{where} {key} net {value[:40]!r} is invalid: use a letter, then "
+                        f"letters, digits or _ (at most {MAX_NET} characters)")
+    return value
+
+
+def _terminals(source: str, raw: Any, kind: str, names: list[str], counts: list[int],
+               dummy_raw: Any) -> tuple[tuple[dict[str, str], ...], tuple[str, ...], str]:
+    """Validate [terminals] and [array] dummy_net; fill the kind's defaults."""
+    from placer.kinds import JOINS, KINDS_INFO, default_dummy_net, default_nets, series_node
+
+    info = KINDS_INFO[kind]
+    if not isinstance(raw, dict):
+        raise SpecError(f"{source}: [terminals] must be a table, got {_typename(raw)}")
+    for key in raw:
+        if key not in names:
+            near = difflib.get_close_matches(key, names, n=1)
+            hint = f" (did you mean {near[0]!r}?)" if near else f" (devices: {', '.join(names)})"
+            raise SpecError(f"{source}: [terminals] {key!r} is not a device{hint}")
+    allowed = info.terminals + (("join",) if kind == "res" else ())
+    nets: list[dict[str, str]] = []
+    joins: list[str] = []
+    for name in names:
+        given = raw.get(name, {})
+        where = f"{source}: [terminals] {name}"
+        if not isinstance(given, dict):
+            raise SpecError(f"{where} must be a table of terminal = net, e.g. "
+                            f"{{ {info.drawn[0]} = \"NET\" }}, got {_typename(given)}")
+        for key in given:
+            if key not in allowed:
+                near = difflib.get_close_matches(key, allowed, n=1)
+                hint = f" (did you mean {near[0]!r}?)" if near else ""
+                raise SpecError(f"{where}: unknown terminal {key!r} of a {kind} unit{hint} "
+                                f"(terminals: {', '.join(allowed)})")
+        mine = default_nets(kind, name)
+        for t in info.terminals:
+            if t in given:
+                mine[t] = _net_name(where, t, given[t])
+        join = given.get("join", "series" if kind == "res" else "parallel")
+        if join not in JOINS:
+            raise SpecError(f"{where} join must be 'series' or 'parallel', got {join!r}")
+        nets.append(mine)
+        joins.append(str(join))
+    dummy = (default_dummy_net(kind, nets) if dummy_raw is None
+             else _net_name(f"{source}: [array]", "dummy_net", dummy_raw))
+    lowered = {n.lower(): f"device {n!r}" for n in names}
+    inner = {series_node(n, i).lower(): n for n, c, j in zip(names, counts, joins, strict=True)
+             if j == "series" for i in range(1, c)}
+    seen: dict[str, str] = {}
+    for net in [*(v for m in nets for v in m.values()), dummy]:
+        low = net.lower()
+        if low in lowered:
+            raise SpecError(f"{source}: net {net!r} clashes with the {lowered[low]}: device "
+                            "and net names must differ (labels of both are written)")
+        if low in inner:
+            raise SpecError(f"{source}: net {net!r} clashes with an inner node of the series "
+                            f"resistor {inner[low]!r}; choose another net name")
+        if low in seen and seen[low] != net:
+            raise SpecError(f"{source}: nets {seen[low]!r} and {net!r} differ only by case; "
+                            "net names must stay distinct in GDSII")
+        seen[low] = net
+    return tuple(nets), tuple(joins), dummy
 
 
 def _electrical(source: str, raw: Any, kind: str, names: list[str], counts: list[int],

@@ -5,15 +5,18 @@ import re
 import gdstk
 import pytest
 
+from placer.cells import load_rules
 from placer.cli import cli
+from placer.drawing import layout_of
 from placer.errors import PlacerError
-from placer.gds import build_library, cell_name, load_layers, load_template, write_gds
+from placer.gds import cell_name, write_gds
+from placer.layers import load_layers
 from placer.pattern import parse_pattern
 from placer.spec import parse_spec
 from tests import streamread
 
 PATTERN = ". IREF> IOUT< IOUT> IREF< .\n. IOUT> IREF< IREF> IOUT< .\n"
-SPEC = ('name = "tail_pair"\n[devices]\nIREF = 4\nIOUT = 4\n[array]\npitch_um = [1.25, 3.0]\n'
+SPEC = ('name = "tail_pair"\n[devices]\nIREF = 4\nIOUT = 4\n[array]\npitch_um = [2.5, 6.0]\n'
         "[unit]\nwidth_um = 2.0\nlength_um = 0.5\n")
 
 
@@ -21,7 +24,7 @@ SPEC = ('name = "tail_pair"\n[devices]\nIREF = 4\nIOUT = 4\n[array]\npitch_um = 
 def written(tmp_path):
     spec = parse_spec(SPEC, "s.toml")
     pattern = parse_pattern(PATTERN).reordered(spec.devices)
-    lib = build_library(pattern, spec, load_template(spec), load_layers())
+    lib, _ = layout_of(pattern, spec)
     data = write_gds(lib, tmp_path / "t.gds")
     return spec, pattern, data, tmp_path / "t.gds"
 
@@ -86,13 +89,27 @@ def test_gdstk_reader_sees_the_same_cells_references_and_labels(written):
     assert sorted(c.name for c in lib.cells) == sorted(ours.order)
     (top,) = lib.top_level()
     assert len(top.references) == pattern.shape[0] * pattern.shape[1]
-    assert sorted(lb.text for lb in top.labels) == sorted(
+    label = load_layers()["label"]
+    assert sorted(lb.text for lb in top.labels if (lb.layer, lb.texttype) == label) == sorted(
         pattern.devices[d] for d in pattern.ids.ravel() if d >= 0)
+
+
+def test_one_top_cell_and_no_dummy_cell_without_dummies(tmp_path):
+    """Stream format (Calma manual, release 6.0): a library may hold several top cells;
+    placer's holds exactly one, and no unused dummy cell."""
+    spec = parse_spec(SPEC, "s.toml")
+    pattern = parse_pattern("IREF> IOUT< IOUT> IREF< IOUT> IREF< IREF> IOUT<\n"
+                            ).reordered(spec.devices)
+    lib, _ = layout_of(pattern, spec)
+    write_gds(lib, tmp_path / "n.gds")
+    back = gdstk.read_gds(str(tmp_path / "n.gds"))
+    assert len(back.top_level()) == 1
+    assert not any(c.name.endswith("_DUMMY") for c in back.cells)
 
 
 def test_same_input_gives_the_same_bytes(tmp_path, written):
     spec, pattern, data, _ = written
-    lib = build_library(pattern, spec, load_template(spec), load_layers())
+    lib, _ = layout_of(pattern, spec)
     assert write_gds(lib, tmp_path / "again.gds") == data
 
 
@@ -107,31 +124,54 @@ def test_cell_names_follow_the_stream_rules(base):
         assert len(n) <= 32 and re.fullmatch(r"[A-Za-z][A-Za-z0-9_]*", n)
 
 
-@pytest.mark.parametrize("text, match", [
-    ("diffusion = [1, 0]", "missing purpose"),
-    ("diffusion = [40000, 0]\n", "outside 0..32767"),
-    ("diffusion = [1]\n", r"must be \[layer, datatype\]"),
-    ("difusion = [1, 0]\n", "unknown purpose 'difusion'"),
+def _shipped_layers() -> str:
+    from placer.cells import shipped_text
+
+    return shipped_text("layers.toml")
+
+
+@pytest.mark.parametrize("edit, match", [
+    (lambda t: t.replace("diffusion = [1, 0]", ""), "missing role"),
+    (lambda t: t.replace("diffusion = [1, 0]", "diffusion = [40000, 0]"), "outside 0..32767"),
+    (lambda t: t.replace("diffusion = [1, 0]", "diffusion = [1]"),
+     r"must be \[layer, datatype\]"),
+    (lambda t: t.replace("diffusion = [1, 0]", "difusion = [1, 0]"), "unknown role 'difusion'"),
+    (lambda t: t.replace("metal2    = [5, 0]", "metal2    = [4, 0]"), "share 4/0"),
+    (lambda t: t.replace('"metal1", "metal2"]\n', '"metal1"]\n'), r"\[connect\] must state"),
 ])
-def test_bad_layer_maps_are_refused(tmp_path, text, match):
+def test_bad_layer_maps_are_refused(tmp_path, edit, match):
     path = tmp_path / "layers.toml"
-    path.write_text(text)
+    path.write_text(edit(_shipped_layers()))
     with pytest.raises(PlacerError, match=match):
         load_layers(path)
 
 
+def test_the_generic_layer_map_states_the_contract_exactly():
+    """The layout contract in the README: the generic map's [connect] table, word for word."""
+    import tomllib
+
+    data = tomllib.loads(_shipped_layers())
+    assert data["connect"] == {
+        "conductors": ["diffusion", "gate", "metal1", "metal2"],
+        "cuts": {"contact": ["diffusion", "gate", "metal1"], "via1": ["metal1", "metal2"]},
+        "splits": {"gate": ["diffusion"]}}
+
+
 @pytest.mark.parametrize("text, match", [
-    ('[[shape]]\nlayer = "gate"\nh_frac = 0.5\n', "exactly one of w_frac, w_um, w_of"),
-    ('[[shape]]\nlayer = "poly"\nw_frac = 0.5\nh_frac = 0.5\n', "layer must be one of"),
-    ('[[shape]]\nlayer = "gate"\nw_of = "area"\nh_frac = 0.5\n', "must be 'width' or 'length'"),
-    ('kind = "mos"\n', "needs at least one"),
-    ('[[shape]]\nlayer = "gate"\nw_frac = -1\nh_frac = 0.5\n', "must be a number > 0"),
+    ('kind = "mos"\n', "needs a \\[rules\\] table"),
+    ('kind = "cap"\n[rules]\ncontact = 0.2\n', "does not match the spec's kind"),
+    ('[rules]\ncontact = 0.2\n', "missing contact_space"),
+    ('[rules]\ncontakt = 0.2\n', "did you mean 'contact'"),
+    ('[rules]\ncontact = -1\n', "must be a number > 0"),
+    ('[rules]\ncontact = inf\n', "must be a number > 0"),
+    ('[rules]\ncontact = nan\n', "must be a number > 0"),
+    ('shape = 1\n', "unknown key 'shape'"),
 ])
 def test_bad_templates_are_refused(tmp_path, text, match):
     path = tmp_path / "t.toml"
     path.write_text(text)
     with pytest.raises(PlacerError, match=match):
-        load_template(parse_spec(SPEC), path)
+        load_rules("mos", path)
 
 
 def test_draw_cli_writes_three_files_and_refuses_bad_layers(runner, write, tmp_path):
@@ -141,11 +181,11 @@ def test_draw_cli_writes_three_files_and_refuses_bad_layers(runner, write, tmp_p
     result = runner.invoke(cli, ["draw", str(pat), "--spec", str(spec), "--out", str(out)])
     assert result.exit_code == 0, result.output
     assert {p.name for p in out.iterdir()} == {"pair.gds", "pair.png", "pair.svg"}
-    bad = write("l.toml", "diffusion = [1, 0]\n")
+    bad = write("l.toml", "[layers]\ndiffusion = [1, 0]\n")
     out2 = tmp_path / "out2"
     result = runner.invoke(cli, ["draw", str(pat), "--spec", str(spec), "--out", str(out2),
                                  "--layers", str(bad)])
-    assert result.exit_code == 1 and "missing purpose" in result.output
+    assert result.exit_code == 1 and "missing role" in result.output
     assert not out2.exists()
 
 

@@ -7,8 +7,9 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from placer.cli import cli
+from placer.drawing import layout_of
 from placer.errors import PlacerError
-from placer.gds import build_library, load_layers, load_template, write_gds
+from placer.gds import write_gds
 from placer.layout import read_layout
 from placer.pattern import parse_pattern
 from placer.repair import repair, sensitivity
@@ -16,7 +17,7 @@ from placer.score import grade_pattern
 from placer.spec import parse_spec
 from tests import streamread
 
-SPEC = ('name = "pair"\n[devices]\nA = 4\nB = 4\n[array]\npitch_um = [1.5, 2.5]\n'
+SPEC = ('name = "pair"\n[devices]\nA = 4\nB = 4\n[array]\npitch_um = [2.5, 5.5]\n'
         '[unit]\nwidth_um = 1.0\nlength_um = 0.5\n')
 CC = ". A> B< B> A< .\n. B> A< A> B< .\n"          # common centroid
 
@@ -29,7 +30,7 @@ def _gds(tmp_path, text, name="t.gds", spec=None):
     spec = spec or _spec()
     pattern = parse_pattern(text).reordered(spec.devices)
     path = tmp_path / name
-    write_gds(build_library(pattern, spec, load_template(spec), load_layers()), path)
+    write_gds(layout_of(pattern, spec)[0], path)
     return path, pattern
 
 

@@ -61,6 +61,24 @@ def test_default_name_comes_from_file_stem(tmp_path):
     ("devices = 3", r"\[devices\] must be a table, got an integer"),
     ('name = "a/b"\n[devices]\nA = 1', r"spec name 'a/b' is invalid"),
     ('name = "CON"\n[devices]\nA = 1', r"reserved file name"),
+    ('[devices]\nA = 1\n[terminals]\nA = { gat = "G" }',
+     r"\[terminals\] A: unknown terminal 'gat' of a mos unit \(did you mean 'gate'\?\)"),
+    ('[devices]\nA = 1\n[terminals]\nB = { gate = "G" }', r"'B' is not a device"),
+    ('[devices]\nA = 1\n[terminals]\nA = { gate = "G", gate = "H" }', r"invalid TOML"),
+    ('[devices]\nA = 1\n[terminals]\nA = "G"', r"must be a table of terminal = net"),
+    ('[devices]\nA = 1\n[terminals]\nA = { gate = 3 }', r"gate must be a net name"),
+    ('[devices]\nA = 1\n[terminals]\nA = { gate = "a b" }', r"net 'a b' is invalid"),
+    ('[devices]\nA = 1\nB = 1\n[terminals]\nA = { drain = "b" }',
+     r"net 'b' clashes with the device 'B'"),
+    ('[devices]\nA = 1\nB = 1\n[terminals]\nA = { drain = "X" }\nB = { drain = "x" }',
+     r"nets 'X' and 'x' differ only by case"),
+    ('kind = "res"\n[devices]\nR = 3\nS = 1\n[terminals]\nS = { a = "R_N1" }',
+     r"clashes with an inner node of the series resistor 'R'"),
+    ('kind = "res"\n[devices]\nR = 3\n[terminals]\nR = { join = "chain" }',
+     r"join must be 'series' or 'parallel'"),
+    ('kind = "cap"\n[devices]\nC = 3\n[terminals]\nC = { join = "series" }',
+     r"unknown terminal 'join' of a cap unit"),
+    ('[devices]\nA = 1\n[array]\ndummy_net = "9"', r"dummy_net net '9' is invalid"),
 ])
 def test_parse_spec_rejects_bad_input_with_one_line(text, match):
     with pytest.raises(SpecError, match=match) as info:
@@ -81,3 +99,46 @@ def test_unreadable_and_binary_files(tmp_path):
     bad.write_bytes(b"\xff\xfe\x00")
     with pytest.raises(SpecError, match="not a UTF-8 text file"):
         load_spec(bad)
+
+
+def test_default_nets_reproduce_each_kinds_usual_circuit():
+    """Common practice: a mirror shares gate and source and keeps its own drain; a capacitor
+    array shares the top plate; resistors keep their own ends, units in series; dummies
+    tie to the shared source or top plate."""
+    mos = parse_spec("[devices]\nA = 1\nB = 2\n", "s.toml")
+    assert mos.nets == ({"gate": "GATE", "source": "SOURCE", "drain": "A_D"},
+                        {"gate": "GATE", "source": "SOURCE", "drain": "B_D"})
+    assert mos.dummy_net == "SOURCE"
+    cap = parse_spec('kind = "cap"\n[devices]\nA = 1\nB = 2\n', "s.toml")
+    assert [n["top"] for n in cap.nets] == ["TOP", "TOP"] and cap.dummy_net == "TOP"
+    res = parse_spec('kind = "res"\n[devices]\nR = 3\n', "s.toml")
+    assert res.joins == ("series",) and res.dummy_net == "TIE"
+    assert res.net_names() == ["R_A", "R_B", "TIE", "R_N1", "R_N2"]
+
+
+def test_a_differential_pair_and_separate_sources_are_expressible():
+    spec = parse_spec('[devices]\nP = 2\nN = 2\n[terminals]\n'
+                      'P = { gate = "INP", drain = "ON", source = "TAIL" }\n'
+                      'N = { gate = "INN", drain = "OP", source = "TAIL" }\n', "s.toml")
+    assert spec.net_names() == ["INP", "TAIL", "ON", "INN", "OP"]
+    assert spec.dummy_net == "TAIL"
+    split = parse_spec('[devices]\nA = 2\nB = 2\n[terminals]\nA = { source = "SA" }\n'
+                       'B = { source = "SB" }\n', "s.toml")
+    assert split.dummy_net == "TIE"
+
+
+def test_a_pitch_left_out_is_the_smallest_that_holds_cell_and_channel():
+    """The computed pitch is exactly the router's minimum: one nanometre less in y is
+    refused by the drawing check."""
+    from dataclasses import replace
+
+    from placer.router import RouteError, check_pitch
+
+    spec = parse_spec("[devices]\nA = 2\nB = 2\n[unit]\nwidth_um = 2\nlength_um = 1\n", "s")
+    assert not spec.array.pitch_given
+    check_pitch(spec)
+    px, py = spec.array.pitch_um
+    tight = replace(spec, array=replace(spec.array, pitch_um=(px - 0.001, py),
+                                        pitch_given=True))
+    with pytest.raises(RouteError, match="leaves no room for the unit cell"):
+        check_pitch(tight)

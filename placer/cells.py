@@ -1,0 +1,423 @@
+"""Unit cells drawn from the spec's W and L and a template's rules, and the pitch they need.
+
+Every cell is a set of rectangles about the unit's centre (the centre of its active
+area: the gate over the diffusion, the top plate, the resistor body) plus its terminals:
+for each, the pad the router labels, the point where a vertical metal2 stub leaves it
+(through a via1 when the pad is metal1) and runs down into the routing channel below the
+row. Below each row lies a channel of horizontal metal1 tracks; the row pitch holds the
+cell and that channel, so the slot grid of the spec is where the units are drawn.
+
+All numbers are micrometres. The rules are placeholders of placer's own (see the shipped
+templates); a user's template gives a process's values.
+"""
+
+from __future__ import annotations
+
+import math
+import tomllib
+from dataclasses import dataclass
+from importlib import resources
+from pathlib import Path
+from typing import Any
+
+from placer.errors import PlacerError
+
+__all__ = [
+    "TemplateError",
+    "Rect",
+    "Terminal",
+    "UnitCell",
+    "Channel",
+    "Rules",
+    "RULES",
+    "load_rules",
+    "shipped_text",
+    "unit_cell",
+    "channel",
+    "min_pitch",
+    "snap",
+    "DB_UNIT_UM",
+]
+
+DB_UNIT_UM = 1e-3          # 1 nm database unit, micrometre user unit
+_PER_UM = 1000             # database units per micrometre
+MAX_RULE_UM = 1000.0
+
+#: Rules every kind reads, then the kind's own.
+_COMMON = ("contact", "contact_space", "metal1_width", "metal1_space", "metal1_enclosure",
+           "via1", "metal2_width", "metal2_space", "metal2_enclosure")
+RULES = {
+    "mos": _COMMON + ("diffusion_enclosure", "gate_contact_space", "gate_extension",
+                      "gate_enclosure", "contact_diffusion_space", "diffusion_space",
+                      "gate_space"),
+    "cap": _COMMON + ("plate_margin",),
+    "res": _COMMON + ("gate_enclosure", "gate_space"),
+}
+
+
+class TemplateError(PlacerError):
+    """A template or layer map is malformed."""
+
+
+def snap(v: float) -> float:
+    """Round to a whole database unit (1 nm) so GDSII truncation cannot move it.
+
+    Examples
+    --------
+    >>> snap(2.3000000000000003)
+    2.3
+    """
+    return round(v * _PER_UM) / _PER_UM
+
+
+def _up(v: float) -> float:
+    """Round up to a whole database unit (a minimum stays a minimum)."""
+    return math.ceil(v * _PER_UM - 1e-6) / _PER_UM
+
+
+@dataclass(frozen=True)
+class Rect:
+    """An axis-parallel rectangle of one role (layer), in micrometres."""
+
+    role: str
+    x0: float
+    y0: float
+    x1: float
+    y1: float
+
+    def moved(self, dx: float, dy: float, flip: bool = False) -> Rect:
+        """The rectangle reflected left to right (if ``flip``) and then moved."""
+        x0, x1 = (-self.x1, -self.x0) if flip else (self.x0, self.x1)
+        return Rect(self.role, x0 + dx, self.y0 + dy, x1 + dx, self.y1 + dy)
+
+    @property
+    def centre(self) -> tuple[float, float]:
+        """Centre point."""
+        return ((self.x0 + self.x1) / 2, (self.y0 + self.y1) / 2)
+
+
+@dataclass(frozen=True)
+class Terminal:
+    """A unit terminal: its pad, and where the stub to the channel leaves it."""
+
+    name: str
+    pad: Rect
+    exit_x: float
+    exit_y: float
+    via: bool
+
+
+@dataclass(frozen=True)
+class Rules:
+    """A template's drawing rules (micrometres), with the sizes derived from them."""
+
+    kind: str
+    values: dict[str, float]
+    source: str
+
+    def __getattr__(self, key: str) -> float:
+        try:
+            return self.values[key]
+        except KeyError:
+            raise AttributeError(key) from None
+
+    @property
+    def land1(self) -> float:
+        """Metal1 landing of a via1."""
+        return self.values["via1"] + 2 * self.values["metal1_enclosure"]
+
+    @property
+    def land2(self) -> float:
+        """Metal2 landing of a via1."""
+        return self.values["via1"] + 2 * self.values["metal2_enclosure"]
+
+    @property
+    def stub_width(self) -> float:
+        """Width of a vertical metal2 wire (stub or trunk)."""
+        return _up(max(self.values["metal2_width"], self.land2))
+
+    @property
+    def track_width(self) -> float:
+        """Width of a horizontal metal1 track."""
+        return _up(max(self.values["metal1_width"], self.land1))
+
+
+@dataclass(frozen=True)
+class UnitCell:
+    """One unit's drawing: shapes and terminals about its centre, and its extents."""
+
+    kind: str
+    shapes: tuple[Rect, ...]
+    terminals: tuple[Terminal, ...]
+    extent: tuple[float, float, float, float]
+    metal1_top: float
+    metal1_bottom: float
+    metal2_top: float
+    min_pitch_x: float
+    diffusion: tuple[float, float, float, float] | None
+    source: str
+
+    def terminal(self, name: str) -> Terminal:
+        """The terminal called ``name``."""
+        for t in self.terminals:
+            if t.name == name:
+                return t
+        raise KeyError(name)
+
+
+@dataclass(frozen=True)
+class Channel:
+    """Geometry of the routing channel below a row, relative to the row's centre."""
+
+    track_width: float
+    track_pitch: float
+    first_track_y: float
+    stub_width: float
+    stub_pitch: float
+    via: float
+
+    def track_y(self, k: int) -> float:
+        """Centre y of track k (0 is nearest the row above)."""
+        return snap(self.first_track_y - k * self.track_pitch)
+
+
+def shipped_text(name: str) -> str:
+    """A shipped template: the checkout's templates/ when running from one, else the
+    installed package data (placer.templates)."""
+    checkout = Path(__file__).resolve().parent.parent
+    local = checkout / "templates" / name
+    if (checkout / "pyproject.toml").is_file() and local.is_file():
+        return local.read_text(encoding="utf-8")
+    return resources.files("placer.templates").joinpath(name).read_text(encoding="utf-8")
+
+
+def read_toml(path: Path | None, fallback: str) -> tuple[dict[str, Any], str]:
+    """A template or layer-map file as a dict, with the name to quote in messages."""
+    from placer.spec import MAX_FILE_BYTES
+
+    if path is None:
+        return tomllib.loads(shipped_text(fallback)), f"templates/{fallback}"
+    try:
+        if Path(path).stat().st_size > MAX_FILE_BYTES:
+            raise TemplateError(f"{path}: larger than {MAX_FILE_BYTES} bytes")
+        text = Path(path).read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as err:
+        raise TemplateError(f"{path}: cannot read: {getattr(err, 'strerror', None) or err}"
+                            ) from err
+    try:
+        return tomllib.loads(text.lstrip("\ufeff")), str(path)
+    except (tomllib.TOMLDecodeError, RecursionError) as err:
+        raise TemplateError(f"{path}: invalid TOML: {str(err)[:200]}") from None
+
+
+def load_rules(kind: str, path: Path | None = None) -> Rules:
+    """The drawing rules of ``kind``'s unit cell: the shipped template or ``path``."""
+    from placer.kinds import KINDS_INFO
+
+    data, src = read_toml(path, KINDS_INFO[kind].template)
+    for key in data:
+        if key not in ("kind", "rules"):
+            raise TemplateError(f"{src}: unknown key {key!r} (allowed: kind, rules)")
+    if data.get("kind", kind) != kind:
+        raise TemplateError(f"{src}: kind = {data.get('kind')!r} does not match the spec's "
+                            f"kind {kind!r}")
+    raw = data.get("rules")
+    if not isinstance(raw, dict):
+        raise TemplateError(f"{src}: needs a [rules] table")
+    values: dict[str, float] = {}
+    for key in raw:
+        if key not in RULES[kind]:
+            import difflib
+
+            near = difflib.get_close_matches(key, RULES[kind], n=1)
+            hint = f" (did you mean {near[0]!r}?)" if near else ""
+            raise TemplateError(f"{src}: [rules] unknown rule {key!r}{hint}")
+    for key in RULES[kind]:
+        if key not in raw:
+            raise TemplateError(f"{src}: [rules] missing {key} (micrometres)")
+        v = raw[key]
+        if (isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v)
+                or not 0 < v <= MAX_RULE_UM):
+            raise TemplateError(f"{src}: [rules] {key} must be a number > 0 and at most "
+                                f"{MAX_RULE_UM:g} um, got {v!r}")
+        values[key] = float(v)
+    return Rules(kind, values, src)
+
+
+def _column(span0: float, span1: float, size: float, space: float) -> list[float]:
+    """Centres of as many cuts of ``size`` as fit in [span0, span1], spaced and centred."""
+    n = int((span1 - span0 + space + 1e-9) // (size + space))
+    if n < 1:
+        return []
+    mid = (span0 + span1) / 2
+    return [snap(mid + (i - (n - 1) / 2) * (size + space)) for i in range(n)]
+
+
+def _square(role: str, x: float, y: float, size: float) -> Rect:
+    h = size / 2
+    return Rect(role, snap(x - h), snap(y - h), snap(x + h), snap(y + h))
+
+
+def unit_cell(kind: str, width_um: float, length_um: float, pitch_x: float | None,
+              rules: Rules) -> UnitCell:
+    """The unit cell of ``kind`` for W = ``width_um`` and L = ``length_um``.
+
+    ``pitch_x`` sets how far a MOS finger's diffusion reaches (up to half the diffusion
+    space from the slot edge); None draws the narrowest cell. Raises TemplateError with
+    the smallest size that works when W or L leave no room for the rules.
+    """
+    builder = {"mos": _mos, "cap": _cap, "res": _res}[kind]
+    return builder(width_um, length_um, pitch_x, rules)
+
+
+def _too_small(what: str, have: float, need: float, rules: Rules) -> TemplateError:
+    return TemplateError(f"unit {what} {have:g} um leaves no room for the rules of "
+                         f"{rules.source}: it must be at least {_up(need):g} um")
+
+
+def _mos(w: float, length: float, pitch_x: float | None, r: Rules) -> UnitCell:
+    """A gate finger over its diffusion: contact columns and metal1 straps at both sides,
+    the gate contacted on a pad below the diffusion. Drawn for '>' (source left)."""
+    c, cs, de = r.contact, r.contact_space, r.diffusion_enclosure
+    sw, land1, land2 = r.stub_width, r.land1, r.land2
+    if w < c + 2 * de:
+        raise _too_small("width W", w, c + 2 * de, r)
+    strap_w = _up(max(r.metal1_width, c + 2 * r.metal1_enclosure, land1))
+    # contact column centre: clear of the gate, and far enough from the gate's stub
+    xc = _up(max(length / 2 + r.gate_contact_space + c / 2, sw + r.metal2_space))
+    xd_need = xc + c / 2 + de
+    pad_poly = _up(max(length, c + 2 * r.gate_enclosure))
+    pad_m1 = _up(max(r.metal1_width, c + 2 * r.metal1_enclosure, land1))
+    min_px = _up(max(2 * xd_need + r.diffusion_space, 2 * xc + sw + r.metal2_space,
+                     2 * xc + strap_w + r.metal1_space, pad_poly + r.gate_space,
+                     length + r.gate_space))
+    px = min_px if pitch_x is None else pitch_x
+    xd = snap(max(px / 2 - r.diffusion_space / 2, xd_need))
+    ys = _column(-w / 2 + de, w / 2 - de, c, cs)
+    y_lo, y_hi = ys[0] - c / 2, ys[-1] + c / 2
+    s0 = snap(min(y_lo - r.metal1_enclosure, y_hi + r.metal1_enclosure - land1))
+    s1 = snap(y_hi + r.metal1_enclosure)
+    yv = snap(s0 + land1 / 2)                               # via1 at the strap's foot
+    # gate contact below the diffusion, its metal1 pad clear of the straps
+    yg = snap(min(-w / 2 - r.contact_diffusion_space - c / 2,
+                  -w / 2 - c / 2 - r.gate_enclosure,
+                  s0 - r.metal1_space - pad_m1 / 2))
+    hw = pad_poly / 2
+    shapes = [
+        Rect("diffusion", -xd, snap(-w / 2), xd, snap(w / 2)),
+        Rect("gate", snap(-length / 2), snap(yg - c / 2 - r.gate_enclosure), snap(length / 2),
+             snap(w / 2 + r.gate_extension)),
+        Rect("gate", snap(-hw), snap(yg - c / 2 - r.gate_enclosure), snap(hw),
+             snap(yg + c / 2 + r.gate_enclosure)),
+        _square("contact", 0.0, yg, c),
+        Rect("marker", -xd, snap(-w / 2), snap(-length / 2), snap(w / 2)),
+    ]
+    pads = {}
+    for name, x in (("source", -xc), ("drain", xc)):
+        for y in ys:
+            shapes.append(_square("contact", x, y, c))
+        pads[name] = Rect("metal1", snap(x - strap_w / 2), s0, snap(x + strap_w / 2), s1)
+    pads["gate"] = _square("metal1", 0.0, yg, pad_m1)
+    shapes.extend(pads.values())
+    terminals = (Terminal("gate", pads["gate"], 0.0, yg, True),
+                 Terminal("source", pads["source"], -xc, yv, True),
+                 Terminal("drain", pads["drain"], xc, yv, True))
+    bottom = snap(min(yg - pad_m1 / 2, yg - c / 2 - r.gate_enclosure))
+    top = snap(w / 2 + r.gate_extension)
+    return UnitCell("mos", tuple(shapes), terminals, (-xd, bottom, xd, top), s1,
+                    snap(yg - pad_m1 / 2), snap(yv + land2 / 2), min_px,
+                    (-xd, snap(-w / 2), xd, snap(w / 2)), r.source)
+
+
+def _cap(w: float, length: float, pitch_x: float | None, r: Rules) -> UnitCell:
+    """Top plate (metal2, W x L) over a larger bottom plate (metal1) whose ear carries a
+    via1 below the top plate; the top plate's own stub leaves its lower edge."""
+    pm, sw, land1, land2, m2s = r.plate_margin, r.stub_width, r.land1, r.land2, r.metal2_space
+    a = _up(max(w / 4, (sw / 2 + land2 / 2 + m2s) / 2))
+    if w < 2 * a + sw:
+        raise _too_small("width W", w, 2 * ((sw / 2 + land2 / 2 + m2s) / 2) + sw, r)
+    if length < land2:
+        raise _too_small("length L", length, land2, r)
+    yv = snap(-length / 2 - m2s - land2 / 2)
+    top = Rect("metal2", snap(-w / 2), snap(-length / 2), snap(w / 2), snap(length / 2))
+    bottom = Rect("metal1", snap(-w / 2 - pm), snap(-length / 2 - pm), snap(w / 2 + pm),
+                  snap(length / 2 + pm))
+    ear = Rect("metal1", snap(a - land1 / 2), snap(yv - land1 / 2), snap(a + land1 / 2),
+               snap(-length / 2))
+    shapes = (bottom, ear, top)
+    terminals = (Terminal("top", top, -a, snap(-length / 2), False),
+                 Terminal("bottom", bottom, a, yv, True))
+    min_px = _up(max(w + 2 * pm + r.metal1_space, w + m2s, 2 * a + sw + m2s))
+    y_lo = snap(min(yv - land1 / 2, yv - land2 / 2))
+    return UnitCell("cap", shapes, terminals,
+                    (snap(-w / 2 - pm), y_lo, snap(w / 2 + pm), snap(length / 2 + pm)),
+                    snap(length / 2 + pm), snap(yv - land1 / 2), snap(length / 2), min_px,
+                    None, r.source)
+
+
+def _res(w: float, length: float, pitch_x: float | None, r: Rules) -> UnitCell:
+    """A vertical body with a contacted head (gate layer) at each end; terminal a at the
+    top head, b at the bottom head, both stubs leaving downwards at opposite sides.
+
+    The body is drawn on the resistor role: it is a device between the heads, not a wire,
+    so an extraction by the layout contract sees the two heads as two nets."""
+    c, cs, ge = r.contact, r.contact_space, r.gate_enclosure
+    sw, land1, land2, m1e = r.stub_width, r.land1, r.land2, r.metal1_enclosure
+    head_w = _up(max(w, c + 2 * ge))
+    head_h = _up(c + 2 * ge)
+    a = _up(max((sw / 2 + land2 / 2 + r.metal2_space) / 2, land1 / 2))
+    xs = _column(-head_w / 2 + ge, head_w / 2 - ge, c, cs)
+    pad_h = _up(max(c + 2 * m1e, land1))
+    cx0, cx1 = xs[0] - c / 2 - m1e, xs[-1] + c / 2 + m1e
+    yt = snap(length / 2 + head_h / 2)
+    yb = snap(-length / 2 - head_h / 2)
+    shapes = [
+        Rect("resistor", snap(-w / 2), snap(-length / 2), snap(w / 2), snap(length / 2)),
+        Rect("gate", snap(-head_w / 2), snap(length / 2), snap(head_w / 2),
+             snap(length / 2 + head_h)),
+        Rect("gate", snap(-head_w / 2), snap(-length / 2 - head_h), snap(head_w / 2),
+             snap(-length / 2)),
+    ]
+    for x in xs:
+        shapes.append(_square("contact", x, yt, c))
+        shapes.append(_square("contact", x, yb, c))
+    pad_a = Rect("metal1", snap(min(-a - land1 / 2, cx0)), snap(yt - pad_h / 2),
+                 snap(cx1), snap(yt + pad_h / 2))
+    pad_b = Rect("metal1", snap(cx0), snap(yb - pad_h / 2), snap(max(a + land1 / 2, cx1)),
+                 snap(yb + pad_h / 2))
+    shapes += [pad_a, pad_b]
+    x0 = min(pad_a.x0, -head_w / 2)
+    x1 = max(pad_b.x1, head_w / 2)
+    min_px = _up(max(head_w + r.gate_space, max(pad_a.x1 - pad_a.x0, pad_b.x1 - pad_b.x0,
+                                                 x1 - x0) + r.metal1_space,
+                     2 * a + sw + r.metal2_space))
+    terminals = (Terminal("a", pad_a, -a, yt, True), Terminal("b", pad_b, a, yb, True))
+    bottom = snap(min(yb - pad_h / 2, -length / 2 - head_h))
+    top = snap(max(yt + pad_h / 2, length / 2 + head_h))
+    return UnitCell("res", tuple(shapes), terminals, (snap(x0), bottom, snap(x1), top),
+                    pad_a.y1, pad_b.y0, snap(yt + land2 / 2), min_px, None, r.source)
+
+
+def channel(cell: UnitCell, rules: Rules) -> Channel:
+    """The channel below a row of ``cell``: its first track just clear of the cell."""
+    tw = rules.track_width
+    first = snap(cell.metal1_bottom - rules.metal1_space - tw / 2)
+    return Channel(tw, _up(tw + rules.metal1_space), first, rules.stub_width,
+                   _up(rules.stub_width + rules.metal2_space), rules.via1)
+
+
+def min_pitch(cell: UnitCell, rules: Rules, tracks: int) -> tuple[float, float]:
+    """Smallest slot pitch (x, y) for ``cell`` with a channel of ``tracks`` tracks.
+
+    In y the row must hold the cell, then its channel, then clear the next row's cell:
+    the lowest track stays one metal1 space above the next row's highest metal1, and its
+    via landings one metal2 space above that row's highest metal2.
+    """
+    ch = channel(cell, rules)
+    last = ch.track_y(max(tracks, 1) - 1)
+    need_m1 = cell.metal1_top + rules.metal1_space + ch.track_width / 2 - last
+    need_m2 = cell.metal2_top + rules.metal2_space + rules.land2 / 2 - last
+    x0, y0, x1, y1 = cell.extent
+    others = max(rules.values.get("gate_space", 0.0), rules.values.get("diffusion_space", 0.0))
+    need_shapes = (y1 - y0) + others
+    return (_up(cell.min_pitch_x), _up(max(need_m1, need_m2, need_shapes)))

@@ -1,0 +1,107 @@
+"""A pattern turned into its layout: unit cell, routing, GDSII and preview pictures.
+
+:func:`prepare` does everything that can fail (the cell at the spec's sizes, the routing
+of every net) without writing anything; :func:`write` then stages the GDSII and the
+previews in an output set.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from placer.cells import Rules, UnitCell, load_rules, unit_cell
+from placer.layers import LayerMap, load_layers
+from placer.output import OutputSet
+from placer.pattern import Pattern
+from placer.router import Wiring, check_pitch, route
+from placer.score import Grade
+from placer.spec import Spec, with_computed_pitch
+
+__all__ = ["Block", "Tools", "load_tools", "prepare", "library", "write", "layout_of"]
+
+
+@dataclass(frozen=True)
+class Tools:
+    """What drawing needs besides the spec: the template's rules, the layer map and, when
+    the user brings one, their unit cell."""
+
+    rules: Rules
+    layers: LayerMap
+    user: Any = None
+
+
+@dataclass(frozen=True)
+class Block:
+    """A routed pattern, ready to write."""
+
+    pattern: Pattern
+    spec: Spec
+    cell: UnitCell
+    wiring: Wiring
+    tools: Tools
+
+
+def load_tools(spec: Spec, template: Path | None = None, layers: Path | None = None,
+               user_gds: Path | None = None, user_cell: str | None = None
+               ) -> tuple[Spec, Tools]:
+    """Read the template, the layer map and the user's unit cell; give the spec the pitch
+    they need when it gives none, and refuse a pitch too small for the cell."""
+    rules = load_rules(spec.kind, template)
+    layer_map = load_layers(layers)
+    user = None
+    if user_gds is not None:
+        from placer.usercell import load_user_cell
+
+        user = load_user_cell(user_gds, user_cell, spec, rules, layer_map)
+        spec = user.fit_spec(spec)
+    else:
+        spec = with_computed_pitch(spec, rules)
+        check_pitch(spec, rules)
+    return spec, Tools(rules, layer_map, user)
+
+
+def prepare(pattern: Pattern, spec: Spec, tools: Tools) -> Block:
+    """Draw and route ``pattern``; raises before anything is written."""
+    if tools.user is not None:
+        cell = tools.user.cell
+    else:
+        cell = unit_cell(spec.kind, spec.unit.width_um, spec.unit.length_um,
+                         spec.array.pitch_um[0], tools.rules)
+    wiring = route(pattern, spec, tools.rules, cell)
+    return Block(pattern, spec, cell, wiring, tools)
+
+
+def library(block: Block) -> Any:
+    """The gdstk library of a routed block."""
+    from placer.gds import build_library
+
+    user = block.tools.user
+    return build_library(block.pattern, block.spec, block.cell, block.wiring,
+                         block.tools.layers, block.tools.rules,
+                         user.gds_cell if user is not None else None)
+
+
+def layout_of(pattern: Pattern, spec: Spec, template: Path | None = None,
+              layers: Path | None = None) -> tuple[Any, Block]:
+    """Library and block of ``pattern`` with the shipped (or given) template and layers:
+    the short way for scripts and tests."""
+    spec, tools = load_tools(spec, template, layers)
+    block = prepare(pattern, spec, tools)
+    return library(block), block
+
+
+def write(block: Block, grade: Grade, out: OutputSet, stem: str,
+          gradient: tuple[float, float] | None = None) -> list[str]:
+    """Stage ``<stem>.gds``, ``.png`` and ``.svg``; return the names written."""
+    from placer.gds import write_gds
+    from placer.plot import save_preview
+
+    lib = library(block)
+    names = [f"{stem}.gds", f"{stem}.png", f"{stem}.svg"]
+    write_gds(lib, out.path(names[0]))
+    save_preview(block.pattern, block.spec.array.pitch_um, grade, block.spec.name,
+                 [out.path(names[1]), out.path(names[2])], gradient=gradient,
+                 cell_extent=block.cell.extent)
+    return names

@@ -1,0 +1,84 @@
+"""The layer map: each role's GDSII layer and datatype, and how the roles conduct.
+
+A role is placer's word for what a layer does in its cells (diffusion, gate, metal1 ...).
+The ``[connect]`` table states which roles conduct, which cut roles join which
+conductors, and which role splits another under it; it is the part of the layout
+contract that lets any checker extract connectivity from the GDSII and this file alone.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+from placer.cells import TemplateError, read_toml
+
+__all__ = ["ROLES", "LayerMap", "load_layers", "MAX_LAYER"]
+
+ROLES = ("diffusion", "gate", "contact", "metal1", "metal2", "via1", "label", "outline",
+         "dummy", "marker", "resistor")
+MAX_LAYER = 32767          # layer and datatype are 2-byte signed integers in the stream
+_CONDUCTORS = ("diffusion", "gate", "metal1", "metal2")
+_CUTS = {"contact": ("diffusion", "gate", "metal1"), "via1": ("metal1", "metal2")}
+_SPLITS = {"gate": ("diffusion",)}
+
+
+@dataclass(frozen=True)
+class LayerMap:
+    """Role -> (layer, datatype), with the connectivity of the roles."""
+
+    layers: dict[str, tuple[int, int]]
+    source: str
+    conductors: tuple[str, ...] = _CONDUCTORS
+
+    def __getitem__(self, role: str) -> tuple[int, int]:
+        return self.layers[role]
+
+
+def load_layers(path: Path | None = None) -> LayerMap:
+    """Read a layer map; without a path, placer's generic one.
+
+    The file holds ``[layers]`` (role = [layer, datatype]) and ``[connect]``. placer's
+    cells conduct as the generic ``[connect]`` says, so a map may change the numbers
+    but not the connectivity: a different ``[connect]`` is refused.
+    """
+    data, src = read_toml(path, "layers.toml")
+    for key in data:
+        if key not in ("layers", "connect"):
+            raise TemplateError(f"{src}: unknown table {key!r} (allowed: layers, connect)")
+    raw = data.get("layers")
+    if not isinstance(raw, dict):
+        raise TemplateError(f"{src}: needs a [layers] table (role = [layer, datatype])")
+    layers: dict[str, tuple[int, int]] = {}
+    for key, value in raw.items():
+        if key not in ROLES:
+            raise TemplateError(f"{src}: [layers] unknown role {key!r} (allowed: "
+                                f"{', '.join(ROLES)})")
+        if (not isinstance(value, list) or len(value) != 2
+                or any(isinstance(v, bool) or not isinstance(v, int) for v in value)):
+            raise TemplateError(f"{src}: [layers] {key} must be [layer, datatype] (two whole "
+                                f"numbers), got {str(value)[:60]}")
+        if not all(0 <= v <= MAX_LAYER for v in value):
+            raise TemplateError(f"{src}: [layers] {key} = {value} is outside 0..{MAX_LAYER}, "
+                                "the range a GDSII stream stores unchanged")
+        layers[key] = (value[0], value[1])
+    missing = [p for p in ROLES if p not in layers]
+    if missing:
+        raise TemplateError(f"{src}: [layers] missing role(s) {', '.join(missing)}")
+    seen: dict[tuple[int, int], str] = {}
+    for role, ld in layers.items():
+        if ld in seen and (role in _CONDUCTORS or role in _CUTS or seen[ld] in _CONDUCTORS
+                           or seen[ld] in _CUTS):
+            raise TemplateError(f"{src}: [layers] {role} and {seen[ld]} share {ld[0]}/{ld[1]}; "
+                                "a conducting or cut role needs a layer of its own")
+        seen.setdefault(ld, role)
+    conn = data.get("connect")
+    if conn is not None:
+        want = {"conductors": list(_CONDUCTORS),
+                "cuts": {k: list(v) for k, v in _CUTS.items()},
+                "splits": {k: list(v) for k, v in _SPLITS.items()}}
+        if not isinstance(conn, dict) or conn != want:
+            raise TemplateError(f"{src}: [connect] must state placer's connectivity as the "
+                                "generic layers.toml does (conductors, cuts, splits); a map "
+                                "changes layer numbers, not how the cells conduct")
+    return LayerMap(layers, src)

@@ -1,0 +1,170 @@
+"""The user's own unit cell, taken from their GDSII library instead of placer's generic one.
+
+Convention: the cell's origin is the unit's centre (the point the gradient model uses);
+each terminal of the kind (``gate``, ``source``, ``drain`` for MOS; ``top``, ``bottom``
+for capacitors; ``a``, ``b`` for resistors; any case) is a text label in the cell itself
+(not in a sub-cell) on the layer and texttype of metal1 or metal2 (as the layer map
+numbers them), placed on that terminal's pad. The copy of the cell written to the layout
+leaves these labels out: there each terminal carries the label of its net instead.
+The router leaves each terminal by a vertical metal2 stub straight down from the label
+(through a via1 when the pad is metal1), so nothing of metal2 in the cell may lie below
+a label except that terminal's own pad. The pitch is the cell's
+bounding box in x, and in y the box plus the routing channel, unless the spec gives one.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+from pathlib import Path
+from typing import Any
+
+from placer.cells import Rect, Rules, TemplateError, Terminal, UnitCell, min_pitch, snap
+from placer.kinds import KINDS_INFO
+from placer.layers import LayerMap
+from placer.spec import Spec
+
+__all__ = ["UserCell", "load_user_cell"]
+
+MAX_USER_BYTES = 64 * 1024 * 1024
+
+
+@dataclass(frozen=True)
+class UserCell:
+    """A unit cell from the user's library: the gdstk cell and its terminals."""
+
+    gds_cell: Any
+    cell: UnitCell
+    rules: Rules
+    source: str
+
+    def fit_spec(self, spec: Spec) -> Spec:
+        """The spec with the pitch this cell needs (or its own, checked)."""
+        from placer.router import track_bound
+
+        need = min_pitch(self.cell, self.rules, track_bound(spec))
+        if not spec.array.pitch_given:
+            return replace(spec, array=replace(spec.array, pitch_um=need, pitch_given=False))
+        px, py = spec.array.pitch_um
+        one = min_pitch(self.cell, self.rules, 1)
+        if px + 1e-9 < one[0] or py + 1e-9 < one[1]:
+            raise TemplateError(
+                f"{spec.source}: [array] pitch_um = [{px:g}, {py:g}] is smaller than the unit "
+                f"cell {self.source} with one routing track needs: at least [{one[0]:g}, "
+                f"{one[1]:g}] um ([{need[0]:g}, {need[1]:g}] for any arrangement)")
+        return spec
+
+
+def _bbox(cell: Any) -> tuple[float, float, float, float]:
+    box = None
+    for poly in cell.get_polygons():
+        (x0, y0), (x1, y1) = poly.bounding_box()
+        box = (x0, y0, x1, y1) if box is None else (min(box[0], x0), min(box[1], y0),
+                                                     max(box[2], x1), max(box[3], y1))
+    if box is None:
+        raise TemplateError("holds no shapes")
+    return box
+
+
+def load_user_cell(path: Path, name: str | None, spec: Spec, rules: Rules,
+                   layers: LayerMap) -> UserCell:
+    """Read cell ``name`` (default: the one top cell) of the GDSII file ``path``."""
+    import gdstk
+
+    from placer.stream import parse_stream
+
+    src = str(path)
+    try:
+        size = path.stat().st_size
+        if size > MAX_USER_BYTES:
+            raise TemplateError(f"{src}: file is {size} bytes, the limit for a unit-cell "
+                                f"library is {MAX_USER_BYTES}")
+        data = path.read_bytes()
+    except OSError as err:
+        raise TemplateError(f"{src}: cannot read: {err.strerror or err}") from err
+    parsed = parse_stream(data, src)          # placer's strict reader first: a damaged
+    if abs(parsed.user_in_m - 1e-6) > 1e-15:  # file ends in a message, not a crash
+        raise TemplateError(f"{src}: user unit is {parsed.user_in_m:g} m; a unit-cell "
+                            "library must be drawn in micrometres")
+    lib = gdstk.read_gds(src)
+    cells = {c.name: c for c in lib.cells if isinstance(c, gdstk.Cell)}
+    if name is None:
+        tops = lib.top_level()
+        if len(tops) != 1:
+            raise TemplateError(f"{src}: {len(tops)} top cells ("
+                                f"{', '.join(sorted(c.name for c in tops))[:200]}); name the "
+                                "unit cell with --unit-cell")
+        gcell = tops[0]
+        if not isinstance(gcell, gdstk.Cell):
+            raise TemplateError(f"{src}: the top cell is not a readable cell")
+    elif name not in cells:
+        raise TemplateError(f"{src}: no cell {name!r} (cells: "
+                            f"{', '.join(sorted(cells))[:200]})")
+    else:
+        gcell = cells[name]
+    where = f"{src}: cell {gcell.name!r}"
+    try:
+        x0, y0, x1, y1 = (snap(v) for v in _bbox(gcell))
+    except TemplateError as err:
+        raise TemplateError(f"{where} {err}") from None
+    flat = gcell.copy("_flat").flatten()
+    by_layer = {role: layers[role] for role in ("metal1", "metal2")}
+    polys = {role: [p for p in flat.polygons if (p.layer, p.datatype) == ld]
+             for role, ld in by_layer.items()}
+    wanted = KINDS_INFO[spec.kind].drawn
+    found: dict[str, tuple[str, float, float]] = {}
+    placed = gcell.copy(gcell.name)
+    for lab in gcell.labels:
+        role = next((r for r, ld in by_layer.items() if (lab.layer, lab.texttype) == ld), None)
+        text = lab.text.strip().lower()
+        if role is None or text not in wanted:
+            continue
+        if text in found:
+            raise TemplateError(f"{where}: terminal {text!r} is labelled twice; label each "
+                                "terminal once")
+        found[text] = (role, snap(lab.origin[0]), snap(lab.origin[1]))
+        placed.remove(*[x for x in placed.labels if x.text == lab.text
+                        and tuple(x.origin) == tuple(lab.origin)])
+    missing = [t for t in wanted if t not in found]
+    if missing:
+        raise TemplateError(
+            f"{where}: no label for terminal(s) {', '.join(missing)}: put a text with the "
+            f"terminal's name on its metal1 or metal2 pad (layer/texttype "
+            f"{by_layer['metal1'][0]}/{by_layer['metal1'][1]} or {by_layer['metal2'][0]}/"
+            f"{by_layer['metal2'][1]})")
+    terminals = []
+    sw, m2s = rules.stub_width, rules.metal2_space
+    for t in wanted:
+        role, x, y = found[t]
+        pad = next((p for p in polys[role] if p.contain(x, y) or _on_edge(p, x, y)), None)
+        if pad is None:
+            raise TemplateError(f"{where}: label {t!r} at ({x:g}, {y:g}) is not on a {role} "
+                                "shape")
+        (px0, py0), (px1, py1) = pad.bounding_box()
+        pad_rect = Rect(role, snap(px0), snap(py0), snap(px1), snap(py1))
+        # nothing of metal2 but the terminal's own pad below the label, within a stub's reach
+        for p in polys["metal2"]:
+            if role == "metal2" and p is pad:
+                continue
+            (qx0, qy0), (qx1, qy1) = p.bounding_box()
+            if qx0 < x + sw / 2 + m2s and qx1 > x - sw / 2 - m2s and qy0 < y:
+                raise TemplateError(f"{where}: metal2 at ({qx0:g}, {qy0:g})..({qx1:g}, {qy1:g}) "
+                                    f"lies in the path of the stub that leaves terminal {t!r} "
+                                    "straight down; keep metal2 clear below each label")
+        terminals.append(Terminal(t, pad_rect, x, y, role == "metal1"))
+    xs = sorted(t.exit_x for t in terminals)
+    for a, b in zip(xs, xs[1:], strict=False):
+        if b - a < sw + m2s - 1e-9:
+            raise TemplateError(f"{where}: terminal labels at x = {a:g} and {b:g} um are closer "
+                                f"than a metal2 stub pitch ({sw + m2s:g} um); spread them")
+    width = x1 - x0
+    if width - (xs[-1] - xs[0]) < sw + m2s - 1e-9:
+        raise TemplateError(f"{where}: the outermost terminal labels are too close to the "
+                            "cell's sides for the stubs of neighbouring units")
+    cell = UnitCell(spec.kind, (), tuple(terminals), (x0, y0, x1, y1), y1, y0, y1,
+                    snap(width), None, src)
+    return UserCell(placed, cell, rules, f"{src}:{gcell.name}")
+
+
+def _on_edge(poly: Any, x: float, y: float) -> bool:
+    (x0, y0), (x1, y1) = poly.bounding_box()
+    return x0 - 1e-9 <= x <= x1 + 1e-9 and y0 - 1e-9 <= y <= y1 + 1e-9

@@ -1,0 +1,381 @@
+"""Routed layouts checked by an extraction written apart from the writer.
+
+Every layout here is written by placer and read back by ``tests/extraction.py``, which
+knows only the GDSII file and the layer map (the layout contract in the README). Besides
+placer's own net labels, the tests add *probe* labels of their own: the net each device
+region must carry by the spec (a finger's source and drain diffusion, its gate, a
+capacitor's plates, a resistor's heads), placed from the unit's centre and its W and L
+alone. A probe on the wrong region shows as a short; a probe on nothing as a stray label.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import gdstk
+import numpy as np
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from placer.cells import load_rules
+from placer.cli import cli
+from placer.drawing import layout_of
+from placer.gds import write_gds
+from placer.layers import load_layers
+from placer.pattern import DUMMY, EMPTY, Pattern, parse_pattern
+from placer.spec import parse_spec
+from tests import extraction
+
+LAYERS = Path("templates/layers.toml")
+SAMPLES = sorted(Path("samples").glob("*.toml"))
+CASES_PER_KIND = 300
+
+
+def _spacing(kind: str) -> dict[str, float]:
+    """The template's own spacing rules, per conductor (what 'no shape of one net comes
+    closer than the stated spacing to another net's' is checked against)."""
+    r = load_rules(kind).values
+    out = {"metal1": r["metal1_space"], "metal2": r["metal2_space"]}
+    if kind == "mos":
+        out.update(diffusion=r["diffusion_space"], gate=r["gate_space"])
+    if kind == "res":
+        out["gate"] = r["gate_space"]
+    return out
+
+
+def _snake(ids: np.ndarray) -> list[tuple[int, int]]:
+    """Snake order, as the README documents for series resistors."""
+    out = []
+    for r in range(ids.shape[0]):
+        cols = range(ids.shape[1]) if r % 2 == 0 else range(ids.shape[1] - 1, -1, -1)
+        out.extend((r, c) for c in cols)
+    return out
+
+
+def _probes(pattern: Pattern, spec) -> list[tuple[str, str, float, float]]:
+    """(net, role, x, y) the spec demands at device regions, from geometry alone."""
+    px, py = spec.array.pitch_um
+    w, length = spec.unit.width_um, spec.unit.length_um
+    out = []
+    seen = [0] * len(spec.devices)
+    for r, c in _snake(pattern.ids):
+        d = int(pattern.ids[r, c])
+        if d == EMPTY:
+            continue
+        x, y = c * px, -r * py
+        if spec.kind == "mos":
+            if d == DUMMY:
+                nets = {"gate": spec.dummy_net, "source": spec.dummy_net,
+                        "drain": spec.dummy_net}
+            else:
+                nets = spec.nets[d]
+            s = -1 if int(pattern.orient[r, c]) < 0 else 1
+            off = length / 2 + 0.02
+            out += [(nets["source"], "diffusion", x - s * off, y),
+                    (nets["drain"], "diffusion", x + s * off, y),
+                    (nets["gate"], "gate", x, y)]
+        elif spec.kind == "cap":
+            nets = ({"top": spec.dummy_net, "bottom": spec.dummy_net} if d == DUMMY
+                    else spec.nets[d])
+            out += [(nets["top"], "metal2", x, y),
+                    (nets["bottom"], "metal1", x - w / 2 - 0.05, y)]
+        else:
+            if d == DUMMY:
+                a = b = spec.dummy_net
+            elif spec.joins[d] == "parallel":
+                a, b = spec.nets[d]["a"], spec.nets[d]["b"]
+            else:
+                k, n, name = seen[d], spec.counts[d], spec.devices[d]
+                a = spec.nets[d]["a"] if k == 0 else f"{name}_N{k}"
+                b = spec.nets[d]["b"] if k == n - 1 else f"{name}_N{k + 1}"
+                seen[d] += 1
+            out += [(a, "gate", x, y + length / 2 + 0.05),
+                    (b, "gate", x, y - length / 2 - 0.05)]
+    return out
+
+
+def _write_and_check(tmp_path: Path, pattern: Pattern, spec, name: str = "t",
+                     probes: bool = True) -> extraction.Report:
+    lib, block = layout_of(pattern.reordered(spec.devices), spec)
+    if probes:
+        layers = load_layers()
+        top = lib.top_level()[0]
+        for net, role, x, y in _probes(pattern.reordered(spec.devices), block.spec):
+            layer, dtype = layers[role]
+            top.add(gdstk.Label(net, (round(x, 3), round(y, 3)), layer=layer, texttype=dtype))
+    path = tmp_path / f"{name}.gds"
+    write_gds(lib, path)
+    return extraction.check(path, LAYERS, spacing_um=_spacing(spec.kind))
+
+
+def _assert_clean(report: extraction.Report) -> None:
+    assert report.ok(), report.summary() + "\n" + "\n".join(report.details()[:8])
+
+
+# ---------------------------------------------------------------- samples and named cases
+
+@pytest.mark.parametrize("sample", SAMPLES, ids=[p.stem for p in SAMPLES])
+def test_every_sample_arranges_into_a_layout_without_shorts_opens_or_strays(runner, tmp_path,
+                                                                           sample):
+    out = tmp_path / "out"
+    result = runner.invoke(cli, ["arrange", str(sample), "--out", str(out), "--quiet",
+                                 "--time-limit", "20"])
+    assert result.exit_code == 0, result.output
+    spec = parse_spec(sample.read_text(), str(sample), sample.stem)
+    report = extraction.check(out / "pattern.gds", LAYERS, spacing_um=_spacing(spec.kind))
+    _assert_clean(report)
+    # every net of the spec reaches the layout, each of its terminals labelled
+    assert set(report.nets) == set(spec.net_names()) - (
+        set() if "." in (out / "pattern.txt").read_text() else {spec.dummy_net})
+
+
+DIFF_PAIR = """name = "inpair"
+[devices]
+MINP = 4
+MINN = 4
+[array]
+rows = 2
+dummies = "ends"
+[unit]
+width_um = 3.0
+length_um = 0.5
+[terminals]
+MINP = { gate = "INP", drain = "OUTN", source = "TAIL" }
+MINN = { gate = "INN", drain = "OUTP", source = "TAIL" }
+"""
+
+SPLIT_SOURCES = """name = "degen_mirror"
+[devices]
+MA = 3
+MB = 3
+[array]
+rows = 1
+dummies = "ends"
+dummy_net = "VSS"
+[terminals]
+MA = { gate = "VG", source = "SA", drain = "DA" }
+MB = { gate = "VG", source = "SB", drain = "DB" }
+"""
+
+
+@pytest.mark.parametrize("text, pattern", [
+    (DIFF_PAIR, ". MINP> MINN< MINN> MINP< .\n. MINN> MINP< MINP> MINN< .\n"),
+    (SPLIT_SOURCES, ". MA> MB< MA> MB< MA> MB< .\n"),
+])
+def test_differential_pair_and_separate_sources_route_cleanly(tmp_path, text, pattern):
+    """Common practice: a differential pair has its own gates and drains and a shared
+    tail; a degenerated mirror has separate sources. Every region carries its own net."""
+    spec = parse_spec(text, "s.toml")
+    report = _write_and_check(tmp_path, parse_pattern(pattern), spec)
+    _assert_clean(report)
+    names = set(report.nets)
+    assert {"INP", "INN", "OUTN", "OUTP", "TAIL"} <= names or {"SA", "SB", "DA", "DB"} <= names
+
+
+def test_separate_sources_never_share_diffusion(tmp_path):
+    """Fingers of MA and MB side by side with their sources facing: SA and SB differ, so the
+    diffusion must break between them (a join would short them)."""
+    spec = parse_spec(SPLIT_SOURCES, "s.toml")
+    report = _write_and_check(tmp_path, parse_pattern(". MA< MB> MA< MB> MA< MB> .\n"), spec)
+    _assert_clean(report)
+
+
+def test_a_probe_on_the_wrong_region_is_caught(tmp_path):
+    """The probes have teeth: swap a finger's source and drain probes and the check fails."""
+    spec = parse_spec(DIFF_PAIR, "s.toml")
+    pattern = parse_pattern(". MINP> MINN< MINN> MINP< .\n. MINN> MINP< MINP> MINN< .\n")
+    lib, block = layout_of(pattern.reordered(spec.devices), spec)
+    layers = load_layers()
+    top = lib.top_level()[0]
+    px = block.spec.array.pitch_um[0]
+    top.add(gdstk.Label("TAIL", (px + 0.27, 0.0), layer=layers["diffusion"][0],
+                        texttype=layers["diffusion"][1]))          # MINP> drain side
+    write_gds(lib, tmp_path / "w.gds")
+    report = extraction.check(tmp_path / "w.gds", LAYERS)
+    assert report.shorts
+
+
+# ---------------------------------------------------------------- generated patterns
+
+NET_POOL = ["N0", "N1", "N2", "N3", "N4", "N5"]
+
+
+@st.composite
+def _cases(draw, kind: str):
+    n_dev = draw(st.integers(1, 8))
+    counts = [draw(st.integers(1, 5)) for _ in range(n_dev)]
+    total = sum(counts)
+    rows = draw(st.integers(1, min(12, total)))
+    cols = -(-total // rows) + draw(st.integers(0, 2))
+    dummies = draw(st.sampled_from(["none", "ends", "ring"]))
+    seq = [d for d, n in enumerate(counts) for _ in range(n)]
+    spare = rows * cols - total
+    seq += [draw(st.sampled_from([DUMMY, EMPTY])) for _ in range(spare)]
+    order = draw(st.permutations(range(rows * cols)))
+    ids = np.array([seq[i] for i in order], dtype=int).reshape(rows, cols)
+    if dummies == "ends":
+        ids = np.pad(ids, ((0, 0), (1, 1)), constant_values=DUMMY)
+    elif dummies == "ring":
+        ids = np.pad(ids, 1, constant_values=DUMMY)
+    orient = np.zeros(ids.shape, dtype=np.int8)
+    if kind == "mos":
+        flips = draw(st.lists(st.booleans(), min_size=ids.size, max_size=ids.size))
+        orient = np.where(ids >= 0, np.where(np.array(flips).reshape(ids.shape), -1, 1), 0
+                          ).astype(np.int8)
+    names = [f"D{i}" for i in range(n_dev)]
+    if kind == "mos":
+        w = draw(st.sampled_from([0.5, 1.0, 2.0, 4.5]))
+        length = draw(st.sampled_from([0.15, 0.5, 1.0, 3.0]))
+    elif kind == "cap":
+        w = draw(st.sampled_from([1.0, 2.5, 5.0]))
+        length = draw(st.sampled_from([1.0, 3.0, 6.0]))
+    else:
+        w = draw(st.sampled_from([0.4, 1.0, 2.0]))
+        length = draw(st.sampled_from([2.0, 8.0, 20.0]))
+    terms = {"mos": ("gate", "source", "drain"), "cap": ("top", "bottom"),
+             "res": ("a", "b")}[kind]
+    lines = []
+    for name in names:
+        nets = {t: draw(st.sampled_from(NET_POOL)) for t in terms}
+        if kind == "res":
+            nets["join"] = draw(st.sampled_from(["series", "parallel"]))
+        lines.append(f"{name} = {{ " + ", ".join(f'{k} = "{v}"' for k, v in nets.items())
+                     + " }")
+    dummy_net = draw(st.sampled_from([*NET_POOL, "TIE"]))
+    extra = draw(st.sampled_from([None, (0.3, 0.0), (0.0, 1.1), (0.75, 2.3)]))
+    text = (f'kind = "{kind}"\n[devices]\n'
+            + "".join(f"{n} = {c}\n" for n, c in zip(names, counts, strict=True))
+            + f'[array]\ndummies = "{dummies}"\ndummy_net = "{dummy_net}"\n'
+            + f"[unit]\nwidth_um = {w}\nlength_um = {length}\n[terminals]\n"
+            + "\n".join(lines) + "\n")
+    spec = parse_spec(text, "gen.toml")
+    if extra is not None:       # a larger, non-square pitch given explicitly
+        px, py = spec.array.pitch_um
+        text = text.replace("[array]\n", f"[array]\npitch_um = [{px + extra[0]:.3f}, "
+                                         f"{py + extra[1]:.3f}]\n")
+        spec = parse_spec(text, "gen.toml")
+    return spec, Pattern(tuple(names), ids, orient)
+
+
+@pytest.mark.parametrize("kind", ["mos", "cap", "res"])
+def test_generated_patterns_route_without_shorts_opens_strays_or_spacing(tmp_path, kind):
+    """300 generated patterns per kind: 1-8 devices, 1-12 rows, dummies none/ends/ring, both
+    finger orientations, random nets shared across terminals and devices (diode
+    connections, common sources, resistor chains in series or parallel), empty slots,
+    computed and larger non-square pitches. Each layout must extract with 0 shorts,
+    0 opens, 0 stray labels and no spacing below the template's rules."""
+    seen = []
+
+    @settings(max_examples=CASES_PER_KIND, deadline=None, derandomize=True,
+              suppress_health_check=list(HealthCheck))
+    @given(_cases(kind))
+    def run(case):
+        spec, pattern = case
+        report = _write_and_check(tmp_path, pattern, spec, name=kind)
+        _assert_clean(report)
+        seen.append(1)
+
+    run()
+    assert len(seen) >= CASES_PER_KIND
+
+
+# ---------------------------------------------------------------- the user's own unit cell
+
+def _user_cell_gds(path: Path, *, labels: bool = True) -> None:
+    """A MOS unit cell of the test's own making (not placer's): gate over diffusion, contact
+    columns with metal1 straps, a gate pad below; terminals labelled by name on metal1;
+    an outline rectangle sets its bounding box, so abutted cells keep their spacing."""
+    layers = load_layers()
+
+    def rect(cell, role, x0, y0, x1, y1):
+        layer, dtype = layers[role]
+        cell.add(gdstk.rectangle((x0, y0), (x1, y1), layer=layer, datatype=dtype))
+
+    lib = gdstk.Library("userlib", unit=1e-6, precision=1e-9)
+    cell = lib.new_cell("MYFINGER")
+    rect(cell, "outline", -1.3, -2.4, 1.3, 1.6)
+    rect(cell, "diffusion", -1.0, -1.0, 1.0, 1.0)
+    rect(cell, "gate", -0.25, -1.75, 0.25, 1.3)
+    rect(cell, "gate", -0.3, -2.1, 0.3, -1.5)
+    rect(cell, "contact", -0.1, -1.9, 0.1, -1.7)
+    rect(cell, "metal1", -0.2, -2.0, 0.2, -1.6)
+    for x in (-0.75, 0.75):
+        for y in (-0.6, 0.0, 0.6):
+            rect(cell, "contact", x - 0.1, y - 0.1, x + 0.1, y + 0.1)
+        rect(cell, "metal1", x - 0.15, -0.75, x + 0.15, 0.75)
+    if labels:
+        m1 = layers["metal1"]
+        for text, x, y in (("gate", 0.0, -1.8), ("source", -0.75, -0.5),
+                           ("drain", 0.75, -0.5)):
+            cell.add(gdstk.Label(text, (x, y), layer=m1[0], texttype=m1[1]))
+    lib.write_gds(str(path))
+
+
+def test_user_unit_cell_is_placed_and_routed_without_shorts_or_opens(runner, tmp_path):
+    """A unit cell built here with gdstk, placed with --unit-gds: its terminals are found
+    from their labels and routed; the extraction, with probes on the cell's own source and
+    drain regions, finds 0 shorts, 0 opens and 0 stray labels."""
+    _user_cell_gds(tmp_path / "cell.gds")
+    spec = tmp_path / "s.toml"
+    spec.write_text(DIFF_PAIR)
+    pat = tmp_path / "p.txt"
+    pat.write_text(". MINP> MINN< MINN> MINP< .\n. MINN> MINP< MINP> MINN< .\n")
+    out = tmp_path / "o"
+    result = runner.invoke(cli, ["draw", str(pat), "--spec", str(spec), "--out", str(out),
+                                 "--unit-gds", str(tmp_path / "cell.gds")])
+    assert result.exit_code == 0, result.output
+    lib = gdstk.read_gds(str(out / "p.gds"))
+    assert "MYFINGER_UNIT" in {c.name for c in lib.cells}
+    top = lib.top_level()[0]
+    px = top.references[1].origin[0] - top.references[0].origin[0]
+    assert px == pytest.approx(2.6)                      # the cell's bounding box
+    layers = load_layers()
+    d = layers["diffusion"]
+    p = parse_pattern(pat.read_text())
+    nets = {"MINP": ("TAIL", "OUTN"), "MINN": ("TAIL", "OUTP")}
+    py = -top.references[p.shape[1]].origin[1]
+    for r in range(p.shape[0]):
+        for c in range(p.shape[1]):
+            i = int(p.ids[r, c])
+            if i < 0:
+                continue
+            s = -1 if p.orient[r, c] < 0 else 1
+            src, drn = nets[p.devices[i]]
+            for net, x in ((src, c * px - s * 0.5), (drn, c * px + s * 0.5)):
+                top.add(gdstk.Label(net, (x, -r * py), layer=d[0], texttype=d[1]))
+    lib.write_gds(str(tmp_path / "probed.gds"))
+    report = extraction.check(tmp_path / "probed.gds", LAYERS,
+                              spacing_um={"metal1": 0.25, "metal2": 0.3})
+    _assert_clean(report)
+
+
+def test_user_unit_cell_without_terminal_labels_is_refused_in_one_line(runner, tmp_path):
+    _user_cell_gds(tmp_path / "cell.gds", labels=False)
+    spec = tmp_path / "s.toml"
+    spec.write_text(DIFF_PAIR)
+    pat = tmp_path / "p.txt"
+    pat.write_text("MINP> MINN< MINN> MINP<\nMINN> MINP< MINP> MINN<\n")
+    result = runner.invoke(cli, ["draw", str(pat), "--spec", str(spec), "--out",
+                                 str(tmp_path / "o"), "--unit-gds", str(tmp_path / "cell.gds")])
+    assert result.exit_code == 1 and "Traceback" not in result.output
+    assert "no label for terminal(s) gate, source, drain" in result.output
+    assert not (tmp_path / "o").exists()
+
+
+def test_outputs_get_the_users_usual_permissions(runner, tmp_path):
+    """POSIX umask: new files get 0666 less the umask (0644 under the usual 022)."""
+    import os
+
+    old = os.umask(0o022)
+    try:
+        spec = tmp_path / "s.toml"
+        spec.write_text(DIFF_PAIR)
+        out = tmp_path / "o"
+        result = runner.invoke(cli, ["arrange", str(spec), "--out", str(out), "--quiet",
+                                     "--time-limit", "5"])
+        assert result.exit_code == 0, result.output
+    finally:
+        os.umask(old)
+    modes = {p.name: p.stat().st_mode & 0o777 for p in out.iterdir()}
+    assert modes and all(m == 0o644 for m in modes.values()), modes
