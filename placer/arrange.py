@@ -12,7 +12,7 @@ from numpy.typing import NDArray
 
 from placer import baselines
 from placer.errors import SpecError
-from placer.pattern import DUMMY, Pattern
+from placer.pattern import DUMMY, EMPTY, Pattern
 from placer.routing import (
     FingerNets,
     Routing,
@@ -22,14 +22,19 @@ from placer.routing import (
     orient_row,
 )
 from placer.score import Grade, grade_pattern
-from placer.search import Keys, Problem, SearchOutcome, evaluate, search
+from placer.search import Keys, Problem, SearchResult, compare, keys_of, rank_key, search
 from placer.spec import MAX_SLOTS, Spec
 
 __all__ = ["METHODS", "Arrangement", "Candidate", "candidate_shapes", "build_pattern",
-           "problem_for", "arrange", "baseline_pattern"]
+           "problem_for", "arrange", "baseline_pattern", "HOLE_MARGIN", "DEFAULT_TIME_LIMIT_S"]
 
 METHODS = ("auto", "clustered", "interdigitated", "mirrored", "milp")
 IntArray = NDArray[np.int64]
+#: A core with spare (empty) slots beats one without them only when its worst-pair
+#: linear + quadratic error is below this fraction of the full core's.
+HOLE_MARGIN = 0.9
+#: The search's time limit when none is given (the command line's default too).
+DEFAULT_TIME_LIMIT_S = 60.0
 
 
 @dataclass(frozen=True)
@@ -40,6 +45,7 @@ class Candidate:
     keys: Keys
     systematic_ppm: float
     routing_um: float
+    source: str = ""
 
 
 @dataclass(frozen=True)
@@ -54,12 +60,14 @@ class Arrangement:
     core_shape: tuple[int, int]
     shape_reason: str
     linear_bound_um: float
-    bound_proven: bool
+    proven: str
     stopped: str
     elapsed_s: float
-    iterations: int
+    moves: int
+    nodes: int
     baselines: dict[str, Keys]
     candidates: tuple[Candidate, ...] = field(default=())
+    solver: dict[str, Any] | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready summary (the grade and routing in full)."""
@@ -72,14 +80,17 @@ class Arrangement:
             "keys": asdict(self.keys),
             "linear_bound_um": (None if self.linear_bound_um != self.linear_bound_um
                                 else self.linear_bound_um),
-            "bound_proven": self.bound_proven,
+            "proven_optimal": self.proven,
             "stopped": self.stopped,
-            "iterations": self.iterations,
+            "moves": self.moves,
+            "nodes": self.nodes,
+            "solver": self.solver,
             "baselines": {k: asdict(v) for k, v in self.baselines.items()},
             "routing": asdict(self.routing),
             "grade": self.grade.to_dict(),
             "candidates": [{"systematic_ppm": c.systematic_ppm, "routing_um": c.routing_um,
-                            "keys": asdict(c.keys)} for c in self.candidates],
+                            "keys": asdict(c.keys), "source": c.source}
+                           for c in self.candidates],
         }
 
 
@@ -105,7 +116,7 @@ def candidate_shapes(spec: Spec, limit: int = 4) -> list[tuple[int, int]]:
     if cols is not None:
         return [(math.ceil(n / cols), cols)]
     px, py = spec.array.pitch_um
-    slack = max(1, n // 8)
+    slack = 0 if not spec.array.holes else max(1, n // 8)
     options = []
     for r in range(1, n + 1):
         for c in {math.ceil(n / r), math.ceil(n / r) + 1}:
@@ -115,7 +126,11 @@ def candidate_shapes(spec: Spec, limit: int = 4) -> list[tuple[int, int]]:
             aspect = (c * px) / (r * py)
             options.append((abs(math.log(aspect / spec.array.aspect)), spare, r, c))
     options.sort()
-    return [(r, c) for _, _, r, c in options[:limit]]
+    chosen = [(r, c) for _, _, r, c in options[:limit]]
+    full = [(r, c) for _, spare, r, c in options if spare == 0]
+    if full and not any(r * c == n for r, c in chosen):
+        chosen[-1] = full[0]           # a full rectangle is always among the tries
+    return chosen
 
 
 def _open_edge(rows: int, cols: int, dummies: str) -> tuple[bool, ...]:
@@ -130,8 +145,11 @@ def _open_edge(rows: int, cols: int, dummies: str) -> tuple[bool, ...]:
     return tuple(bool(x) for x in top_bottom | sides)
 
 
-def problem_for(spec: Spec, rows: int, cols: int) -> Problem:
-    """The search problem of ``spec`` on a core of ``rows`` x ``cols`` slots."""
+def problem_for(spec: Spec, rows: int, cols: int,
+                usable: NDArray[np.bool_] | None = None) -> Problem:
+    """The search problem of ``spec`` on a core of ``rows`` x ``cols`` slots (``usable``:
+    the slots units may take, default all). ``arrange`` and ``repair`` both build their
+    problem here."""
     if rows * cols < spec.n_units:
         raise SpecError(f"{spec.source}: {rows} x {cols} slots cannot hold {spec.n_units} units")
     return Problem(
@@ -140,15 +158,29 @@ def problem_for(spec: Spec, rows: int, cols: int) -> Problem:
         quadratic_ppm_per_um2=spec.gradient.quadratic_ppm_per_um2,
         corr_sigma_ppm=spec.correlated.sigma_ppm, corr_length_um=spec.correlated.length_um,
         kernel=spec.correlated.kernel, cancel_order=spec.search.cancel_order,
-        objective=spec.search.objective, tie_ppm=spec.search.tie_ppm,
-        open_edge=_open_edge(rows, cols, spec.array.dummies),
+        objective=spec.search.objective, relative_tie=spec.search.relative_tie,
+        open_edge=_open_edge(rows, cols, spec.array.dummies) if usable is None else
+        _open_edge_masked(usable, rows, cols, spec.array.dummies),
         finger_nets=mos_finger_nets(spec) if spec.kind == "mos" else None,
+        usable=None if usable is None else tuple(bool(x) for x in usable),
     )
 
 
+def _open_edge_masked(usable: NDArray[np.bool_], rows: int, cols: int,
+                      dummies: str) -> tuple[bool, ...]:
+    """Usable slots with a side open to an unusable slot or, past the dummies, outside."""
+    grid = np.asarray(usable, dtype=bool).reshape(rows, cols)
+    pad = np.pad(grid, 1, constant_values=dummies == "ring")
+    if dummies == "ends":
+        pad[1:-1, 0] = pad[1:-1, -1] = True
+    near = ~(pad[:-2, 1:-1] & pad[2:, 1:-1] & pad[1:-1, :-2] & pad[1:-1, 2:])
+    return tuple(bool(x) for x in (grid & near).ravel())
+
+
 def build_pattern(spec: Spec, assign: IntArray, rows: int, cols: int) -> Pattern:
-    """The full pattern: core assignment, dummies as the spec asks, MOS orientations."""
-    core = assign.reshape(rows, cols)
+    """The full pattern: core assignment (-1 a dummy, -2 an unused slot), dummies as the
+    spec asks, MOS orientations."""
+    core = np.where(np.asarray(assign) == -2, EMPTY, assign).reshape(rows, cols)
     style = spec.array.dummies
     if style == "ends":
         core = np.pad(core, ((0, 0), (1, 1)), constant_values=DUMMY)
@@ -205,7 +237,7 @@ def balance_orientations(ids: NDArray[np.int_], orient: NDArray[np.int8],
 
 
 def baseline_pattern(spec: Spec, method: str, rows: int, cols: int,
-                     time_limit_s: float = 60.0) -> IntArray:
+                     time_limit_s: float = DEFAULT_TIME_LIMIT_S) -> IntArray:
     """Core assignment of one baseline method on the given core."""
     prob = problem_for(spec, rows, cols)
     if method == "milp":
@@ -221,102 +253,167 @@ def _systematic(prob: Problem, keys: Keys) -> float:
     return keys.linear_um * prob.linear_ppm_per_um + keys.quadratic_ppm
 
 
-def arrange(spec: Spec, *, method: str = "auto", seed: int = 0, time_limit_s: float = 30.0,
-            n_candidates: int = 0,
+@dataclass
+class _Tried:
+    """One core shape: its problem, the result there and the baselines on it."""
+
+    shape: tuple[int, int]
+    prob: Problem
+    result: SearchResult | None
+    assign: IntArray
+    keys: Keys
+    method: str
+    baselines: dict[str, tuple[IntArray, Keys]]
+    solver: dict[str, Any] | None = None
+
+
+def _run_shape(spec: Spec, rows: int, cols: int, method: str, seed: int, deadline: float,
+               progress: Callable[[str, Keys], None] | None) -> _Tried:
+    import time
+
+    prob = problem_for(spec, rows, cols)
+    base = {name: (a, keys_of(prob, a)) for name, fn in baselines.BASELINES.items()
+            for a in [fn(prob)]}
+    time_limit_s = max(deadline - time.monotonic(), 1e-3)
+    if method == "milp":
+        assign, facts = baselines.milp(prob, time_limit_s)
+        return _Tried((rows, cols), prob, None, assign, keys_of(prob, assign),
+                      "MILP (scipy HiGHS, moment matching)", base, facts)
+    if method != "auto":
+        assign, keys = base[method]
+        return _Tried((rows, cols), prob, None, assign, keys, method, base)
+    out = search(prob, seed=seed, time_limit_s=time_limit_s, progress=progress)
+    assign, keys, label = out.assign, out.keys, out.method
+    for name, (a, k) in base.items():            # never worse than a textbook arrangement
+        if compare(prob, k, keys) < 0:
+            assign, keys, label = a, k, f"{name} (better than the search here)"
+    return _Tried((rows, cols), prob, out, assign, keys, label, base)
+
+
+def _holes(t: _Tried) -> bool:
+    return t.prob.n_spare() > 0
+
+
+def _pick(tried: list[_Tried]) -> _Tried:
+    """The best shape; one with spare slots must beat the best full one by HOLE_MARGIN."""
+    order = sorted(range(len(tried)), key=lambda i: (rank_key(tried[i].prob)(tried[i].keys), i))
+    best = tried[order[0]]
+    full = [tried[i] for i in order if not _holes(tried[i])]
+    if _holes(best) and full:
+        f = full[0]
+        if _systematic(best.prob, best.keys) > HOLE_MARGIN * _systematic(f.prob, f.keys):
+            return f
+    return best
+
+
+def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
+            time_limit_s: float = DEFAULT_TIME_LIMIT_S, n_candidates: int = 0,
             progress: Callable[[str, Keys], None] | None = None) -> Arrangement:
-    """Search the spec's shapes for the best arrangement and score it in full."""
+    """Search the spec's shapes for the best arrangement and score it in full.
+
+    Parameters
+    ----------
+    spec : Spec
+        What to arrange (``load_spec``).
+    method : str
+        ``auto`` (the search) or a baseline: ``clustered``, ``interdigitated``,
+        ``mirrored``, ``milp``.
+    seed : int
+        The same spec and seed give the same result (when the time limit is not hit).
+    time_limit_s : float
+        Shared by the core shapes tried.
+    n_candidates : int
+        Also return up to this many arrangements on the error / routing front.
+
+    Examples
+    --------
+    >>> from placer.spec import parse_spec
+    >>> res = arrange(parse_spec("[devices]\\nA = 2\\nB = 2\\n[array]\\nrows = 1\\n"))
+    >>> res.keys.linear_um, res.proven
+    (0.0, 'linear and quadratic')
+    """
+    import time
+
     shapes = candidate_shapes(spec)
     if not shapes:
         raise SpecError(f"{spec.source}: no core shape holds {spec.n_units} units within "
                         f"{MAX_SLOTS} slots")
+    t0 = time.monotonic()
     share = time_limit_s / len(shapes)
-    tried: list[tuple[tuple[float, ...], int, tuple[int, int], SearchOutcome, Problem]] = []
-    textbook: dict[tuple[int, int], dict[str, tuple[IntArray, Keys]]] = {}
+    tried: list[_Tried] = []
     interrupted = False
     for i, (rows, cols) in enumerate(shapes):
-        prob = problem_for(spec, rows, cols)
-        textbook[rows, cols] = {name: (a, evaluate(prob, a)) for name, fn in
-                                baselines.BASELINES.items() for a in [fn(prob)]}
-        if method == "auto":
-            try:
-                out = search(prob, seed=seed, time_limit_s=share, progress=progress)
-            except KeyboardInterrupt:
-                interrupted = True
-                break
-            # never return worse than a textbook arrangement on the same core
-            for name, (assign, keys) in textbook[rows, cols].items():
-                if keys.ranked(prob) < out.keys.ranked(prob):
-                    out.assign, out.keys, out.method = assign, keys, name
-                    out.linear_bound_um = min(out.linear_bound_um, keys.linear_um)
-            if out.stopped == "interrupted":
-                interrupted = True
-        else:
-            assign = baseline_pattern(spec, method, rows, cols, share)
-            keys = evaluate(prob, assign)
-            out = SearchOutcome(assign, keys, float("nan"), False, method)
-        tried.append((out.keys.ranked(prob), i, (rows, cols), out, prob))
-        if interrupted:
+        try:
+            t = _run_shape(spec, rows, cols, method, seed, t0 + (i + 1) * share, progress)
+        except KeyboardInterrupt:
+            interrupted = True
+            break
+        tried.append(t)
+        if t.result is not None and t.result.stopped == "interrupted":
+            interrupted = True
             break
     if not tried:
         raise KeyboardInterrupt
-    tried.sort(key=lambda t: (t[0], t[1]))
-    _, _, (rows, cols), out, prob = tried[0]
-    if out.stopped == "converged" and interrupted:
-        out.stopped = "interrupted"
-    base_keys = {name: keys for name, (_, keys) in textbook[rows, cols].items()}
-    reason = _shape_reason(spec, tried)
-    pattern = build_pattern(spec, out.assign, rows, cols)
+    best = _pick(tried)
+    rows, cols = best.shape
+    out = best.result
+    stopped = "interrupted" if interrupted else (out.stopped if out else "converged")
+    pattern = build_pattern(spec, best.assign, rows, cols)
     grade = grade_pattern(pattern, spec)
-    routing = estimate_routing(pattern, spec.array.pitch_um, spec.kind == "mos",
-                               _nets(spec))
-    cands = _candidates(spec, prob, rows, cols, out, n_candidates) if n_candidates else ()
+    routing = estimate_routing(pattern, spec.array.pitch_um, spec.kind == "mos", _nets(spec))
+    cands = _candidates(spec, best, n_candidates) if n_candidates else ()
+    lin_bound = out.linear_bound_um if out is not None else float("nan")
     return Arrangement(
-        pattern=pattern, grade=grade, routing=routing, keys=out.keys, method=out.method,
-        core_shape=(rows, cols), shape_reason=reason, linear_bound_um=out.linear_bound_um,
-        bound_proven=out.bound_proven, stopped=out.stopped,
-        elapsed_s=sum(t[3].elapsed_s for t in tried), iterations=sum(t[3].iterations
-                                                                     for t in tried),
-        baselines=base_keys, candidates=cands,
+        pattern=pattern, grade=grade, routing=routing, keys=best.keys, method=best.method,
+        core_shape=(rows, cols), shape_reason=_shape_reason(spec, tried, best),
+        linear_bound_um=lin_bound,
+        proven=out.proven if out is not None and best.method == out.method else "",
+        stopped=stopped, elapsed_s=time.monotonic() - t0,
+        moves=sum(t.result.moves for t in tried if t.result),
+        nodes=sum(t.result.nodes for t in tried if t.result),
+        baselines={name: k for name, (_, k) in best.baselines.items()},
+        candidates=cands, solver=best.solver,
     )
 
 
-def _shape_reason(spec: Spec, tried: list) -> str:
+def _shape_reason(spec: Spec, tried: list[_Tried], best: _Tried) -> str:
     if len(tried) == 1:
-        r, c = tried[0][2]
+        r, c = tried[0].shape
         given = spec.array.rows is not None or spec.array.columns is not None
         return f"core {r} x {c}" + (" as the spec gives" if given else "")
-    best = tried[0]
-    others = ", ".join(f"{r}x{c}: linear {o.keys.linear_um:.3g} um, quad "
-                       f"{o.keys.quadratic_ppm:.3g} ppm" for _, _, (r, c), o, _ in tried[1:])
-    r, c = best[2]
-    o = best[3]
+    others = ", ".join(f"{t.shape[0]}x{t.shape[1]}: linear {t.keys.linear_um:.3g} um, quad "
+                       f"{t.keys.quadratic_ppm:.3g} ppm" + (" (spare slots)" if _holes(t) else "")
+                       for t in tried if t is not best)
+    r, c = best.shape
     return (f"tried {len(tried)} shapes near aspect {spec.array.aspect:g}; chose {r} x {c} "
-            f"(linear {o.keys.linear_um:.3g} um, quad {o.keys.quadratic_ppm:.3g} ppm) over "
-            f"{others}")
+            f"(linear {best.keys.linear_um:.3g} um, quad {best.keys.quadratic_ppm:.3g} ppm) "
+            f"over {others}")
 
 
-def _candidates(spec: Spec, prob: Problem, rows: int, cols: int, out: SearchOutcome,
-                k: int) -> tuple[Candidate, ...]:
-    """The K best arrangements on the gradient-error / routing front, best first."""
-    pool: dict[bytes, IntArray] = {out.assign.tobytes(): out.assign}
-    for assign, _ in out.archive:
-        pool.setdefault(assign.tobytes(), assign)
-    for fn in baselines.BASELINES.values():
-        a = fn(prob)
-        pool.setdefault(a.tobytes(), a)
+def _candidates(spec: Spec, best: _Tried, k: int) -> tuple[Candidate, ...]:
+    """Up to K arrangements on the front of gradient error against routing effort: none
+    is worse on both than another. Each names where it came from."""
+    prob = best.prob
+    rows, cols = best.shape
+    pool: dict[bytes, tuple[IntArray, str]] = {best.assign.tobytes(): (best.assign, "result")}
+    if best.result is not None:
+        for i, (assign, _) in enumerate(best.result.archive):
+            pool.setdefault(assign.tobytes(), (assign, f"search, chain result {i + 1}"))
+    for name, (a, _) in best.baselines.items():
+        pool.setdefault(a.tobytes(), (a, f"baseline {name}"))
     scored = []
-    for assign in pool.values():
-        keys = evaluate(prob, assign)
+    for assign, source in pool.values():
+        keys = keys_of(prob, assign)
         pattern = build_pattern(spec, assign, rows, cols)
-        route = estimate_routing(pattern, spec.array.pitch_um, spec.kind == "mos",
-                                 _nets(spec))
-        scored.append(Candidate(pattern, keys, _systematic(prob, keys), route.total_tree_um))
+        route = estimate_routing(pattern, spec.array.pitch_um, spec.kind == "mos", _nets(spec))
+        scored.append(Candidate(pattern, keys, _systematic(prob, keys), route.total_tree_um,
+                                source))
     front = [c for c in scored
              if not any((o.systematic_ppm <= c.systematic_ppm and o.routing_um <= c.routing_um
                          and (o.systematic_ppm, o.routing_um) != (c.systematic_ppm,
                                                                   c.routing_um))
                         for o in scored)]
-    rest = sorted((c for c in scored if c not in front),
-                  key=lambda c: (c.systematic_ppm, c.routing_um))
-    ordered = sorted(front, key=lambda c: (c.systematic_ppm, c.routing_um)) + rest
-    return tuple(ordered[:k])
+    uniq: dict[tuple[float, float], Candidate] = {}
+    for c in sorted(front, key=lambda c: (c.systematic_ppm, c.routing_um)):
+        uniq.setdefault((round(c.systematic_ppm, 9), round(c.routing_um, 6)), c)
+    return tuple(list(uniq.values())[:k])

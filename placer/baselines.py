@@ -3,41 +3,24 @@
 from __future__ import annotations
 
 import time
+from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
 
-from placer.search import Problem, core_coords
+from placer.search import Problem, core_coords, deal
 
-__all__ = ["BASELINES", "clustered", "interdigitated", "mirrored", "milp", "deal"]
+__all__ = ["BASELINES", "clustered", "interdigitated", "mirrored", "milp"]
 
 IntArray = NDArray[np.int64]
 
 
-def deal(counts: list[int] | tuple[int, ...], total: int | None = None) -> list[int]:
-    """Device sequence that spreads each device evenly (largest remainder, ties by index).
-
-    Examples
-    --------
-    >>> deal([2, 2])
-    [0, 1, 0, 1]
-    >>> deal([1, 2, 1])
-    [1, 0, 2, 1]
-    """
-    total = sum(counts) if total is None else total
-    given = [0] * len(counts)
-    out = []
-    for i in range(total):
-        d = max(range(len(counts)), key=lambda d: ((i + 1) * counts[d] / total - given[d]
-                                                   if given[d] < counts[d] else -1e9, -d))
-        given[d] += 1
-        out.append(d)
-    return out
-
-
 def _fill(prob: Problem, sequence: list[int]) -> IntArray:
-    assign = np.full(prob.n_slots, -1, dtype=np.int64)
-    assign[:len(sequence)] = sequence
+    """Units in reading order over the usable slots; the rest spare (-1) or unused (-2)."""
+    usable = prob.usable_mask()
+    assign = np.where(usable, -1, -2).astype(np.int64)
+    slots = np.nonzero(usable)[0]
+    assign[slots[:len(sequence)]] = sequence
     return assign
 
 
@@ -68,26 +51,28 @@ def interdigitated(prob: Problem) -> IntArray:
 def mirrored(prob: Problem) -> IntArray:
     """Interdigitated half mirrored through the core centre (A B B A ...).
 
-    Half of each device's units are dealt over the first half of the slots in reading
-    order; the point reflection of that half fills the second half; odd units left over
-    take the middle slots.
+    Half of each device's units are dealt over the first half of the usable slots in
+    reading order; the point reflection of that half fills the second half; odd units
+    left over take the middle slots.
     """
-    n = prob.n_slots
+    usable = prob.usable_mask()
+    slots = np.nonzero(usable)[0]
+    n = len(slots)
     half = [c // 2 for c in prob.counts]
     seq = deal(half)
-    assign = np.full(n, -1, dtype=np.int64)
+    assign = np.where(usable, -1, -2).astype(np.int64)
     for i, d in enumerate(seq):
-        assign[i] = d
-        assign[n - 1 - i] = d
+        assign[slots[i]] = d
+        assign[slots[n - 1 - i]] = d
     rest = [d for d, c in enumerate(prob.counts) for _ in range(c % 2)]
-    free = [s for s in np.argsort(np.abs(np.arange(n) - (n - 1) / 2), kind="stable")
-            if assign[s] < 0]
+    free = [slots[k] for k in np.argsort(np.abs(np.arange(n) - (n - 1) / 2), kind="stable")
+            if assign[slots[k]] < 0]
     for s, d in zip(free, rest, strict=False):
         assign[s] = d
     return assign
 
 
-def milp(prob: Problem, time_limit_s: float = 60.0) -> tuple[IntArray, dict[str, float]]:
+def milp(prob: Problem, time_limit_s: float = 60.0) -> tuple[IntArray, dict[str, Any]]:
     """Moment matching as a mixed-integer linear program, solved with scipy's HiGHS.
 
     Binary x[s, d] puts device d (or the dummy, d = D) on slot s. For each device and each
@@ -155,8 +140,12 @@ def milp(prob: Problem, time_limit_s: float = 60.0) -> tuple[IntArray, dict[str,
     res = scipy_milp(c, constraints=LinearConstraint(a, lb, ub), integrality=integrality,
                      bounds=bounds, options={"time_limit": max(time_limit_s, 0.1),
                                              "disp": False})
-    facts = {"status": float(res.status), "elapsed_s": time.monotonic() - t0,
-             "objective": float(res.fun) if res.x is not None else float("nan")}
+    gap = getattr(res, "mip_gap", None)
+    facts = {"status": {0: "optimal", 1: "time limit", 2: "infeasible", 3: "unbounded",
+                        4: "other"}.get(int(res.status), str(res.status)),
+             "solver_s": round(time.monotonic() - t0, 3),
+             "objective": float(res.fun) if res.x is not None else None,
+             "gap": float(gap) if gap is not None and np.isfinite(gap) else None}
     if res.x is None:
         return interdigitated(prob), facts
     x = res.x[:n_x].reshape(n_slots, cols)

@@ -328,8 +328,9 @@ def _dac_budget(pattern: Pattern, spec: Spec, e: ElectricalSpec) -> DacBudget:
 
     # random parts: correlated device means (exact covariance) and white per device
     c = spec.correlated
-    cov = (c.sigma_ppm * 1e-6) ** 2 * model.device_covariance(xy_c, dev, n_dev, c.length_um,
-                                                              c.kernel)
+    cov = (c.sigma_ppm * 1e-6) ** 2 * model.grid_device_covariance(
+        np.where(pattern.ids >= 0, pattern.ids, -1), spec.array.pitch_um, n_dev, c.length_um,
+        c.kernel)
     white_unit = spec.mismatch.a_param_pct_um * 1e-2 / np.sqrt(2.0 * spec.unit.area_um2)
     counts = np.bincount(dev, minlength=n_dev)
     cov = cov + np.diag(white_unit ** 2 / counts)

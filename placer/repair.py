@@ -9,7 +9,7 @@ from numpy.typing import NDArray
 
 from placer.pattern import Pattern, unit_positions
 from placer.score import Grade
-from placer.search import Keys, Problem, evaluate, search
+from placer.search import Keys, Problem, keys_of, search
 from placer.spec import Spec
 
 __all__ = ["UnitSensitivity", "Swap", "RepairResult", "sensitivity", "repair"]
@@ -79,13 +79,43 @@ class RepairResult:
 
 
 def _problem(pattern: Pattern, spec: Spec, pitch_um: tuple[float, float]) -> Problem:
+    """The pattern's slots as a search problem: only the slots that hold device units are
+    usable, so the search reaches its best on the same slots as the layout."""
+    from dataclasses import replace
+
+    from placer.arrange import problem_for
+
     rows, cols = pattern.shape
-    return Problem(counts=tuple(pattern.counts()), rows=rows, cols=cols, pitch_um=pitch_um,
-                   linear_ppm_per_um=spec.gradient.linear_ppm_per_um,
-                   quadratic_ppm_per_um2=spec.gradient.quadratic_ppm_per_um2,
-                   corr_sigma_ppm=spec.correlated.sigma_ppm,
-                   corr_length_um=spec.correlated.length_um, kernel=spec.correlated.kernel,
-                   tie_ppm=spec.search.tie_ppm)
+    spec = replace(spec, counts=tuple(pattern.counts()),
+                   array=replace(spec.array, pitch_um=pitch_um, dummies="none"))
+    prob = problem_for(spec, rows, cols, usable=(pattern.ids >= 0).ravel())
+    return replace(prob, open_edge=None, corr_sigma_ppm=0.0, finger_nets=None)
+
+
+def _batch_worst(prob: Problem, sums: NDArray[np.int64], pairs: NDArray[np.int64],
+                 total: NDArray[np.int64], n_units: int) -> tuple[NDArray[np.float64],
+                                                                  NDArray[np.float64]]:
+    """Worst-pair linear (um) and quadratic (ppm) of a batch of states, (K,) each.
+
+    ``sums`` (K, D, 6) holds each device's sums of 1, u, v, uu, uv, vv in doubled
+    offsets; the formulas are placer.moments' (about the centre of the device units).
+    """
+    hx, hy = prob.pitch_um[0] / 2, prob.pitch_um[1] / 2
+    a, b = pairs[:, 0], pairs[:, 1]
+    sa, sb = sums[:, a, :].astype(float), sums[:, b, :].astype(float)
+    na, nb = sa[..., 0], sb[..., 0]
+    du = nb * sa[..., 1] - na * sb[..., 1]
+    dv = nb * sa[..., 2] - na * sb[..., 2]
+    den = na * nb
+    lin = np.sqrt((hx * du) ** 2 + (hy * dv) ** 2) / den
+    tu, tv = float(total[0]), float(total[1])
+    qxx = n_units * (nb * sa[..., 3] - na * sb[..., 3]) - 2 * du * tu
+    qxy = n_units * (nb * sa[..., 4] - na * sb[..., 4]) - (du * tv + dv * tu)
+    qyy = n_units * (nb * sa[..., 5] - na * sb[..., 5]) - 2 * dv * tv
+    quad = (0.5 * prob.quadratic_ppm_per_um2
+            * np.sqrt((hx * hx * qxx) ** 2 + 2 * (hx * hy * qxy) ** 2 + (hy * hy * qyy) ** 2)
+            / (n_units * den))
+    return lin.max(-1), quad.max(-1)
 
 
 def repair(pattern: Pattern, spec: Spec, pitch_um: tuple[float, float], max_swaps: int,
@@ -100,42 +130,50 @@ def repair(pattern: Pattern, spec: Spec, pitch_um: tuple[float, float], max_swap
     """
     prob = _problem(pattern, spec, pitch_um)
     flat = pattern.ids.ravel().astype(np.int64)
-    assign = np.where(flat >= 0, flat, -1)
+    assign = np.where(flat >= 0, flat, -2)
     movable = np.nonzero(flat >= 0)[0]
-    before = evaluate(prob, assign)
+    before = keys_of(prob, assign)
     target = search(prob, seed=seed, time_limit_s=time_limit_s).keys.linear_um
     target = min(target, before.linear_um)
 
-    from placer.search import _Geometry
-
-    geo = _Geometry(prob)
+    rows, cols = pattern.shape
+    r_idx, c_idx = np.divmod(np.arange(rows * cols), cols)
+    u = (2 * c_idx - (cols - 1)).astype(np.int64)
+    v = ((rows - 1) - 2 * r_idx).astype(np.int64)
+    mono = np.column_stack([np.ones_like(u), u, v, u * u, u * v, v * v]).astype(np.int64)
+    n_dev = len(pattern.devices)
+    pairs = prob.pair_array()
+    n_units = len(movable)
+    total = mono[movable, 1:3].sum(axis=0)
     tol = 1e-9 * max(1.0, target)
-    # all unordered pairs of movable slots
     si, ti = np.triu_indices(len(movable), 1)
     s_all, t_all = movable[si], movable[ti]
 
     def expand(state: IntArray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         keep = state[s_all] != state[t_all]
         s, t = s_all[keep], t_all[keep]
-        sums = geo.sums(state)
+        sums = np.zeros((n_dev, 6), dtype=np.int64)
+        np.add.at(sums, state[movable], mono[movable])
         lin = np.empty(len(s))
         quad = np.empty(len(s))
         for k in range(0, len(s), 4096):
             ss, tt = s[k:k + 4096], t[k:k + 4096]
             a, b = state[ss], state[tt]
-            d = geo.mono[tt] - geo.mono[ss]
+            d = mono[tt] - mono[ss]
             trial = np.broadcast_to(sums, (len(ss), *sums.shape)).copy()
             idx = np.arange(len(ss))
             trial[idx, a] += d
             trial[idx, b] -= d
-            lw, qw = geo.worst_batch(trial)
-            lin[k:k + 4096], quad[k:k + 4096] = lw, qw
+            lin[k:k + 4096], quad[k:k + 4096] = _batch_worst(prob, trial, pairs, total,
+                                                             n_units)
         return s, t, lin, quad
 
     states: list[tuple[float, float, IntArray, tuple[tuple[int, int], ...]]] = [
         (before.linear_um, before.quadratic_ppm, assign, ())]
     best = states[0]
     for _depth in range(max_swaps):
+        if best[0] <= target + tol or len(pairs) == 0:
+            break
         pool: dict[bytes, tuple[float, float, IntArray, tuple[tuple[int, int], ...]]] = {}
         for _lin0, _quad0, state, path in states:
             s, t, lin, quad = expand(state)
@@ -153,10 +191,7 @@ def repair(pattern: Pattern, spec: Spec, pitch_um: tuple[float, float], max_swap
         top = states[0]
         if (round(top[0], 9), top[1]) < (round(best[0], 9), best[1]):
             best = top
-        if best[0] <= target + tol:
-            break
     _, _, final, path = best
-    cols = pattern.shape[1]
     flat_ids = pattern.ids.copy().ravel()
     orient = pattern.orient.copy().ravel()
     swaps = []
@@ -167,6 +202,6 @@ def repair(pattern: Pattern, spec: Spec, pitch_um: tuple[float, float], max_swap
         orient[p], orient[q] = orient[q], orient[p]
     repaired = Pattern(pattern.devices, flat_ids.reshape(pattern.shape),
                        orient.reshape(pattern.shape))
-    after = evaluate(prob, final)
+    after = keys_of(prob, final)
     return RepairResult(tuple(swaps), repaired, before, after, target,
                         after.linear_um <= target + tol)

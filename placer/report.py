@@ -123,17 +123,29 @@ def format_arrangement(result: Arrangement, spec: Spec) -> str:
     k = result.keys
     g = spec.gradient.linear_ppm_per_um
     out = [format_pattern(result.pattern).rstrip(), ""]
-    if result.linear_bound_um != result.linear_bound_um:     # nan: a baseline, no search
-        bound = "no search, no bound"
-    elif result.bound_proven and k.linear_um <= result.linear_bound_um + 1e-12:
-        bound = "proven optimal"
-    else:
-        bound = f"lower bound {result.linear_bound_um:.4g} um"
+    searched = result.moves > 0 or result.nodes > 0 or bool(result.proven)
     out.append(f"Method {result.method}; {result.shape_reason}.")
-    out.append(f"Search: {result.elapsed_s:.2f} s, {result.iterations} move batches, "
-               f"stopped: {result.stopped}.")
+    if result.solver is not None:
+        sv = result.solver
+        gap = "n/a" if sv.get("gap") is None else f"{100 * sv['gap']:.3g} %"
+        out.append(f"MILP: solver {sv['solver_s']:.2f} s, status {sv['status']}, gap {gap}; "
+                   "no bound is claimed.")
+    elif searched:
+        out.append(f"Search: {result.elapsed_s:.2f} s, {result.moves} moves, "
+                   f"{result.nodes} branch-and-bound nodes, stopped: {result.stopped}.")
+    else:
+        out.append("A baseline arrangement: no search, no bound.")
+    if result.proven:
+        bound = "proven optimal"
+    elif result.linear_bound_um == result.linear_bound_um and searched:
+        bound = f"lower bound {result.linear_bound_um:.4g} um"
+    else:
+        bound = "no bound"
     out.append(f"Linear: worst pair centroid distance {_f(k.linear_um, 4)} um = "
                f"{_f(k.linear_um * g)} ppm ({bound}).")
+    quad_note = (" (proven optimal at that linear error)"
+                 if result.proven == "linear and quadratic" else "")
+    out.append(f"Quadratic: worst pair {_f(k.quadratic_ppm, 4)} ppm{quad_note}.")
     r = result.routing
     breaks = "" if r.diffusion_breaks is None else f", {r.diffusion_breaks} diffusion breaks"
     out.append(f"Routing: {r.total_tracks} row tracks, spanning trees {r.total_tree_um:.4g} um"
@@ -141,8 +153,9 @@ def format_arrangement(result: Arrangement, spec: Spec) -> str:
     out.append("")
     mos = spec.kind == "mos"
     rows = []
-    for name, b in [("optimised" if result.method not in result.baselines else result.method,
-                     k), *result.baselines.items()]:
+    label = "this result" if result.method not in result.baselines else result.method
+    for name, b in [(label, k), *((n, v) for n, v in result.baselines.items()
+                                  if n != result.method)]:
         rows.append([name, _f(b.linear_um, 4), _f(b.quadratic_ppm), _f(b.sigma_ppm),
                      f"{b.edge_imbalance:.2f}", str(b.tracks), *([str(b.breaks)] if mos else [])])
     out.append("Worst pair on the same core (linear um, quadratic ppm, correlated sigma ppm, "

@@ -138,12 +138,44 @@ def diffusion_breaks(ids: NDArray[np.int_], orient: NDArray[np.int8],
     return breaks
 
 
+#: Up to this many points the spanning tree is taken over all pairs; beyond, over the
+#: Delaunay edges (the Euclidean minimum spanning tree is one of their subgraphs).
+ALL_PAIRS_MAX = 1500
+
+
+def spanning_tree_length(pts: NDArray[np.float64]) -> float:
+    """Length (um) of the Euclidean minimum spanning tree of ``pts`` (n, 2).
+
+    Examples
+    --------
+    >>> spanning_tree_length(np.array([[0.0, 0.0], [3.0, 0.0], [3.0, 4.0]]))
+    7.0
+    """
+    from scipy.sparse import coo_matrix
+    from scipy.sparse.csgraph import minimum_spanning_tree
+
+    n = len(pts)
+    if n < 2:
+        return 0.0
+    if n <= ALL_PAIRS_MAX:
+        i, j = np.triu_indices(n, 1)
+    else:
+        from scipy.spatial import Delaunay
+
+        tri = Delaunay(pts, qhull_options="QJ")   # joggled: rows of collinear units too
+        s = tri.simplices
+        e = np.vstack([s[:, [0, 1]], s[:, [1, 2]], s[:, [0, 2]]])
+        e = np.unique(np.sort(e, axis=1), axis=0)
+        i, j = e[:, 0], e[:, 1]
+    w = np.hypot(*(pts[i] - pts[j]).T)
+    # distinct slots: no zero-length edge, so a stored 0 never stands for "no edge"
+    graph = coo_matrix((w, (i, j)), shape=(n, n)).tocsr()
+    return float(minimum_spanning_tree(graph).sum())
+
+
 def estimate_routing(pattern: Pattern, pitch_um: tuple[float, float], mos: bool,
                      nets: FingerNets = None) -> Routing:
     """Tracks per row, half-perimeter and spanning-tree length per device, breaks for MOS."""
-    from scipy.sparse.csgraph import minimum_spanning_tree
-    from scipy.spatial.distance import pdist, squareform
-
     xy, dev = unit_positions(pattern, pitch_um)
     tracks = row_tracks(pattern.ids)
     hp: dict[str, float] = {}
@@ -152,11 +184,7 @@ def estimate_routing(pattern: Pattern, pitch_um: tuple[float, float], mos: bool,
         pts = xy[dev == d]
         span = pts.max(axis=0) - pts.min(axis=0)
         hp[name] = float(span.sum())
-        if len(pts) > 1:
-            # duplicate points cannot occur (one unit per slot), so zero = no edge is safe
-            tree[name] = float(minimum_spanning_tree(squareform(pdist(pts))).sum())
-        else:
-            tree[name] = 0.0
+        tree[name] = spanning_tree_length(pts)
     return Routing(
         row_tracks=tuple(int(t) for t in tracks), total_tracks=int(tracks.sum()),
         half_perimeter_um=hp, tree_length_um=tree, total_tree_um=float(sum(tree.values())),

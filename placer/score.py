@@ -146,7 +146,8 @@ def grade_pattern(pattern: Pattern, spec: Spec) -> Grade:
         norms[1] = np.hypot(dc[:, 0], dc[:, 1])
         norms[2] = model.moment_norm(dm2)
         c = spec.correlated
-        cov = model.device_covariance(xy_c, dev, n_dev, c.length_um, c.kernel)
+        cov = model.grid_device_covariance(np.where(pattern.ids >= 0, pattern.ids, -1),
+                                           spec.array.pitch_um, n_dev, c.length_um, c.kernel)
         corr = c.sigma_ppm * np.sqrt(model.pair_variance(cov, pr))
         area = counts * spec.unit.area_um2
         white = 1e4 * model.pelgrom_sigma(spec.mismatch.a_param_pct_um, area[pr[:, 0]],

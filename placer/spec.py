@@ -68,6 +68,7 @@ class ArraySpec:
     pitch_um: tuple[float, float] = (1.0, 1.0)
     aspect: float = 1.0
     pitch_given: bool = True
+    holes: bool = True
 
 
 @dataclass(frozen=True)
@@ -122,11 +123,12 @@ OBJECTIVES = ("lexicographic", "weighted")
 
 @dataclass(frozen=True)
 class SearchSpec:
-    """How ``arrange`` ranks arrangements."""
+    """How ``arrange`` ranks arrangements: the objective, the moment orders it cancels and
+    the relative tie below which two values of a key count as equal."""
 
     objective: str = "lexicographic"
     cancel_order: int = 2
-    tie_ppm: float = 0.01
+    relative_tie: float = 1e-9
 
 
 FITS = ("endpoint", "best")
@@ -254,13 +256,13 @@ def check_name(name: str, what: str) -> str:
 _SCHEMA: dict[str, tuple[str, ...]] = {
     "": ("name", "kind", "devices", "array", "unit", "gradient", "correlated", "mismatch",
          "monte_carlo", "search", "electrical", "terminals", "routing"),
-    "array": ("rows", "columns", "dummies", "pitch_um", "aspect", "dummy_net"),
+    "array": ("rows", "columns", "dummies", "pitch_um", "aspect", "dummy_net", "holes"),
     "unit": ("width_um", "length_um"),
     "gradient": ("linear_ppm_per_um", "quadratic_ppm_per_um2", "order"),
     "correlated": ("sigma_ppm", "length_um", "kernel"),
     "mismatch": ("a_param_pct_um", "a_vt_mv_um"),
     "monte_carlo": ("samples", "seed"),
-    "search": ("objective", "cancel_order", "tie_ppm"),
+    "search": ("objective", "cancel_order", "relative_tie"),
     "routing": ("metal1_ohm_per_um", "metal2_ohm_per_um", "via_ohm", "wire_ff_per_um"),
     "electrical": ("reference", "vov_v", "gm_id_per_v", "lambda_per_v", "vds_v",
                    "vt_gradient_mv_per_mm", "beta_gradient_pct_per_mm", "a_vt_mv_um",
@@ -316,6 +318,14 @@ class _Reader:
             raise self.fail(key, f"must be >= {low}, got {value}")
         if high is not None and value > high:
             raise LimitError(f"{self.where} {key} = {value} exceeds the limit of {high}")
+        return value
+
+    def flag(self, key: str, default: bool) -> bool:
+        if key not in self.data:
+            return default
+        value = self.data[key]
+        if not isinstance(value, bool):
+            raise self.fail(key, f"must be true or false, got {_typename(value)}")
         return value
 
     def choice(self, key: str, default: str, options: tuple[str, ...]) -> str:
@@ -421,7 +431,12 @@ def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") 
         if rows * columns < sum(counts):
             raise SpecError(f"{source}: [array] {rows} x {columns} = {rows * columns} slots "
                             f"cannot hold {sum(counts)} units; enlarge rows or columns")
-    array = ArraySpec(rows, columns, dummies, pitch, aspect, pitch_given)
+    holes = arr.flag("holes", True)
+    if not holes and rows is not None and columns is not None and rows * columns > sum(counts):
+        raise SpecError(f"{source}: [array] {rows} x {columns} slots leave "
+                        f"{rows * columns - sum(counts)} spare, but holes = false; give a "
+                        "shape the units fill exactly")
+    array = ArraySpec(rows, columns, dummies, pitch, aspect, pitch_given, holes)
 
     un = _Reader(source, "unit", data.get("unit", {}))
     unit = UnitSpec(un.number("width_um", 1.0) or 1.0, un.number("length_um", 1.0) or 1.0)
@@ -454,12 +469,20 @@ def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") 
         mc.integer("seed", 0, low=0) or 0,
     )
 
-    se = _Reader(source, "search", data.get("search", {}))
+    raw_search = data.get("search", {})
+    if isinstance(raw_search, dict) and "tie_ppm" in raw_search:
+        raise SpecError(f"{source}: [search] tie_ppm is gone: ties are now relative "
+                        "(relative_tie, default 1e-9); for a trade-off between linear and "
+                        "quadratic error use objective = \"weighted\"")
+    se = _Reader(source, "search", raw_search)
     ds = SearchSpec()
+    tie = _num(se, "relative_tie", ds.relative_tie)
+    if not 0 <= tie <= 0.1:
+        raise se.fail("relative_tie", f"must be between 0 and 0.1, got {tie:g}")
     search = SearchSpec(
         se.choice("objective", ds.objective, OBJECTIVES),
         se.integer("cancel_order", ds.cancel_order, low=1, high=4) or ds.cancel_order,
-        _num(se, "tie_ppm", ds.tie_ppm),
+        tie,
     )
 
     electrical = None

@@ -1,4 +1,6 @@
-"""Search: exactness, known optima, bounds, determinism, and never worse than a baseline."""
+"""Search: exactness against enumeration, known patterns, bounds, one scorer, determinism."""
+
+from itertools import combinations
 
 import numpy as np
 import pytest
@@ -6,14 +8,92 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from placer import baselines
-from placer.arrange import arrange
-from placer.search import Problem, evaluate, search, symmetric_assignment
+from placer.arrange import arrange, problem_for
+from placer.model import moment_norm
+from placer.moments import grid_sums, pair_linear, pair_second
+from placer.score import grade_pattern
+from placer.search import Keys, Problem, compare, keys_of, search
+from placer.search._construct import near_symmetric_assignments, symmetric_assignment
 from placer.spec import parse_spec
 
 
 def _arrange(toml: str, **kw):
     return arrange(parse_spec(toml, "s.toml"), time_limit_s=kw.pop("time_limit_s", 20), **kw)
 
+
+# ---------------------------------------------------------------- an independent reference
+
+def _every_assignment(counts: list[int], n_slots: int):
+    """Every distinct assignment of the counts to n_slots slots (-1 spare), by itertools."""
+    def rec(d: int, free: tuple[int, ...], assign: list[int]):
+        if d == len(counts):
+            yield list(assign)
+            return
+        for pos in combinations(free, counts[d]):
+            for s in pos:
+                assign[s] = d
+            rest = tuple(s for s in free if s not in pos)
+            yield from rec(d + 1, rest, assign)
+            for s in pos:
+                assign[s] = -1
+
+    yield from rec(0, tuple(range(n_slots)), [-1] * n_slots)
+
+
+def _reference(counts, rows, cols, pitch, h):
+    """The lexicographic optimum (worst linear, then worst quadratic) by enumeration, with
+    placer.moments (grade's scorer), not the search's compiled arithmetic."""
+    pairs = np.array(list(combinations(range(len(counts)), 2)))
+    best = None
+    for assign in _every_assignment(list(counts), rows * cols):
+        a = np.array(assign)
+        r, c = np.divmod(np.nonzero(a >= 0)[0], cols)
+        sums = grid_sums(r, c, a[a >= 0], len(counts))
+        lin = float(np.hypot(*pair_linear(sums, pairs, pitch).T).max())
+        quad = float((0.5 * h * moment_norm(pair_second(sums, pairs, pitch))).max())
+        key = (lin, quad)
+        if best is None or lin < best[0] * (1 - 1e-12) or (
+                lin <= best[0] * (1 + 1e-12) and quad < best[1] * (1 - 1e-9)):
+            best = key
+    return best
+
+
+def _n(counts, n_slots):
+    from math import factorial, prod
+
+    return factorial(n_slots) // (prod(factorial(c) for c in counts)
+                                  * factorial(n_slots - sum(counts)))
+
+
+@st.composite
+def _small(draw):
+    n_dev = draw(st.integers(2, 4))
+    counts = [draw(st.integers(1, 4)) for _ in range(n_dev)]
+    total = sum(counts)
+    rows = draw(st.integers(1, 3))
+    cols = -(-total // rows) + draw(st.integers(0, 1))
+    pitch = draw(st.sampled_from([(1.0, 1.0), (2.0, 1.0), (0.5, 2.0), (1.3, 0.7)]))
+    return counts, rows, cols, pitch
+
+
+@settings(max_examples=60, deadline=None)
+@given(_small())
+def test_exact_search_agrees_with_plain_enumeration(case):
+    """Proven optima (computed): on every core of at most 10^4 assignments, with spare slots
+    and non-square pitches, the search's proven linear and quadratic optimum equals the one
+    found by enumerating every assignment with itertools and grade's moment arithmetic."""
+    counts, rows, cols, pitch = case
+    if _n(counts, rows * cols) > 10_000:
+        return
+    prob = Problem(tuple(counts), rows, cols, pitch_um=pitch, corr_sigma_ppm=0.0)
+    res = search(prob, seed=1, time_limit_s=30)
+    lin, quad = _reference(counts, rows, cols, pitch, prob.quadratic_ppm_per_um2)
+    assert res.proven == "linear and quadratic"
+    assert res.keys.linear_um == pytest.approx(lin, rel=1e-12, abs=1e-12)
+    assert res.keys.quadratic_ppm == pytest.approx(quad, rel=1e-9, abs=1e-15)
+
+
+# ---------------------------------------------------------------- published and common patterns
 
 @pytest.mark.parametrize("k", [1, 2, 3])
 def test_search_finds_thue_morse_order_cancellation_prouhet_1851(k):
@@ -22,7 +102,8 @@ def test_search_finds_thue_morse_order_cancellation_prouhet_1851(k):
     order, must return zero moment differences up to order k."""
     n = 2 ** k
     toml = (f"[devices]\nA = {n}\nB = {n}\n[array]\nrows = 1\ncolumns = {2 * n}\n"
-            f'dummies = "none"\n[gradient]\norder = {k + 1}\n[search]\ncancel_order = {k}\n')
+            f'dummies = "none"\npitch_um = [1.0, 1.0]\n[gradient]\norder = {k + 1}\n'
+            f"[search]\ncancel_order = {k}\n")
     (pair,) = _arrange(toml).grade.pairs
     scale = (2.0 * n) ** np.arange(1, k + 2)
     assert np.all(np.array(pair.moment_norms[:k]) / scale[:k] < 1e-12)
@@ -44,10 +125,9 @@ def test_one_to_one_in_a_row_of_four_gives_abba_common_practice():
 def test_large_even_counts_get_exactly_zero_linear_error():
     """Point symmetry (mathematical identity): mirrored pairs of units share their centroid,
     so all-even counts on a core too big for enumeration cancel linear gradients exactly."""
-    prob = Problem((8, 8, 8, 8), 4, 8)
+    prob = Problem((8, 8, 8, 8, 8, 8, 8, 8, 8, 8), 8, 10)
     out = search(prob, seed=3, time_limit_s=20)
-    assert out.method.startswith("symmetric")
-    assert out.keys.linear_um == 0.0
+    assert out.keys.linear_um == 0.0 and out.proven
 
 
 def test_two_single_units_bound_is_one_pitch_and_is_reached():
@@ -57,27 +137,130 @@ def test_two_single_units_bound_is_one_pitch_and_is_reached():
     out = search(prob, seed=0, time_limit_s=30)
     assert out.linear_bound_um == pytest.approx(2.0)
     assert out.keys.linear_um == pytest.approx(2.0)
-    assert out.bound_proven
+    assert "linear" in out.proven
 
 
-def test_impossible_zero_reports_the_exhaustive_optimum_as_bound():
-    """1:3:4 on 3 x 3 cannot cancel (enumeration over all 2520 assignments, computed)."""
+def test_impossible_zero_is_proven_by_branch_and_bound():
+    """1:3:4 on 3 x 3 cannot cancel (enumeration over all 2520 assignments, computed): the
+    exact search proves its positive optimum."""
     res = _arrange('[devices]\nA = 1\nB = 3\nC = 4\n[array]\nrows = 3\ncolumns = 3\n'
-                   'dummies = "none"')
-    assert res.bound_proven and res.keys.linear_um > 0
-    assert res.linear_bound_um == pytest.approx(res.keys.linear_um)
-
-
-def test_shape_is_chosen_when_omitted_and_explained():
-    res = _arrange("[devices]\nA = 1\nB = 3\nC = 4\n")
-    assert "chose" in res.shape_reason
-    assert res.pattern.counts() == (1, 3, 4)
+                   'dummies = "none"\npitch_um = [1.0, 1.0]')
+    lin, _ = _reference([1, 3, 4], 3, 3, (1.0, 1.0), 0.02)
+    assert res.proven == "linear and quadratic" and res.keys.linear_um > 0
+    assert res.keys.linear_um == pytest.approx(lin, rel=1e-12)
 
 
 def test_symmetric_construction_uses_centre_for_one_odd_device():
     assign, partner = symmetric_assignment(Problem((3, 2, 4), 3, 3))
     assert assign[4] == 0  # the centre slot of 3 x 3
     assert np.all(assign[partner[partner >= 0]] == assign[partner >= 0])
+
+
+def test_near_symmetric_construction_reaches_the_single_unit_bound():
+    """Two one-unit devices on an even grid: side by side at the centre, mirrors to the
+    largest device, everything else on mirrored pairs, gives a worst pair of exactly one
+    pitch, the bound (two distinct slots are at least a pitch apart)."""
+    counts = (1, 1, *(2 ** b for b in range(1, 10)))
+    prob = Problem(counts, 32, 32, pitch_um=(3.0, 2.0), corr_sigma_ppm=0.0)
+    starts = near_symmetric_assignments(prob)
+    assert len(starts) == 2
+    best = min(keys_of(prob, a).linear_um for a, _ in starts)
+    assert best == pytest.approx(2.0, abs=1e-12)
+    for assign, _ in starts:
+        assert np.array_equal(np.bincount(assign[assign >= 0]), counts)
+
+
+# ---------------------------------------------------------------- one scorer
+
+@settings(max_examples=25, deadline=None)
+@given(st.lists(st.integers(1, 7), min_size=2, max_size=5), st.integers(1, 4),
+       st.integers(1, 3), st.sampled_from([(1.0, 1.0), (2.3, 5.15), (0.7, 1.9)]))
+def test_arrange_keys_equal_grade_figures_with_spare_slots(counts, rows, extra, pitch):
+    """One scorer: the keys arrange ranks are the figures grade reports for the same
+    pattern (moments about the centre of the device units), with spare slots and, where
+    the counts force it, non-zero linear error."""
+    n = sum(counts)
+    cols = -(-n // rows) + extra
+    names = [f"D{i}" for i in range(len(counts))]
+    toml = ("[devices]\n" + "".join(f"{a} = {c}\n" for a, c in zip(names, counts, strict=True))
+            + f'[array]\nrows = {rows}\ncolumns = {cols}\ndummies = "none"\n'
+            f"pitch_um = [{pitch[0]}, {pitch[1]}]\n")
+    spec = parse_spec(toml, "s.toml")
+    res = arrange(spec, seed=2, time_limit_s=10)
+    grade = grade_pattern(res.pattern, spec)
+    assert res.keys.linear_um * spec.gradient.linear_ppm_per_um == pytest.approx(
+        max(p.linear_ppm for p in grade.pairs), rel=1e-12, abs=1e-12)
+    assert res.keys.quadratic_ppm == pytest.approx(max(p.quadratic_ppm for p in grade.pairs),
+                                                   rel=1e-9, abs=1e-15)
+    assert res.keys.sigma_ppm == pytest.approx(max(p.correlated_sigma_ppm
+                                                   for p in grade.pairs), rel=1e-9)
+
+
+def test_keys_of_a_baseline_equal_grade_with_an_offset_centre():
+    """A clustered arrangement with a spare slot: linear error non-zero, so the centre of
+    the device units differs from the core centre; both views agree on every figure."""
+    spec = parse_spec("[devices]\nA = 3\nB = 4\n[array]\nrows = 2\ncolumns = 4\n"
+                      'dummies = "none"\npitch_um = [1.5, 2.5]\n', "s.toml")
+    prob = problem_for(spec, 2, 4)
+    assign = baselines.clustered(prob)
+    keys = keys_of(prob, assign)
+    from placer.arrange import build_pattern
+
+    grade = grade_pattern(build_pattern(spec, assign, 2, 4), spec)
+    (pair,) = grade.pairs
+    assert keys.linear_um * 10.0 == pytest.approx(pair.linear_ppm, rel=1e-12)
+    assert keys.quadratic_ppm == pytest.approx(pair.quadratic_ppm, rel=1e-12)
+    assert keys.higher == ()
+
+
+# ---------------------------------------------------------------- ties and objectives
+
+def test_relative_ties_keep_the_quadratic_order():
+    """A quadratic difference of one part in a million decides; one part in 10^12 ties."""
+    p = Problem((2, 2), 1, 4)
+    a = Keys(0.0, 0.500000, (), 0.0, 90.0, 2)
+    b = Keys(0.0, 0.500001, (), 0.0, 10.0, 2)
+    c = Keys(0.0, 0.500000000000001, (), 0.0, 10.0, 2)
+    assert compare(p, a, b) < 0
+    assert compare(p, c, a) < 0          # tied quadratic: sigma decides
+
+
+@pytest.mark.parametrize("devices, shape", [("A = 2\nB = 4\n", (2, 3)),
+                                            ("A = 1\nB = 3\nC = 4\n", (3, 3)),
+                                            ("A = 3\nB = 5\n", (2, 4))])
+def test_weighted_and_lexicographic_each_win_on_their_own_terms(devices, shape):
+    """The weighted result has the least linear + quadratic ppm among the two, the
+    lexicographic one the least linear error (proven by branch and bound)."""
+    base = (f"[devices]\n{devices}[array]\nrows = {shape[0]}\ncolumns = {shape[1]}\n"
+            'dummies = "none"\npitch_um = [1.0, 1.0]\n[gradient]\nlinear_ppm_per_um = 0.5\n'
+            "quadratic_ppm_per_um2 = 20\n")
+    lex = _arrange(base).keys
+    wtd = _arrange(base + '[search]\nobjective = "weighted"\n').keys
+
+    def total(k):
+        return k.linear_um * 0.5 + k.quadratic_ppm
+
+    assert total(wtd) <= total(lex) + 1e-9
+    assert lex.linear_um <= wtd.linear_um + 1e-12
+
+
+# ---------------------------------------------------------------- determinism and stops
+
+def test_same_seed_same_result_on_an_annealed_case():
+    prob = Problem((1, 1, 2, 4, 8, 16, 32, 64), 8, 16)
+    a = search(prob, seed=11, time_limit_s=60)
+    b = search(prob, seed=11, time_limit_s=60)
+    assert a.stopped == "converged"
+    assert np.array_equal(a.assign, b.assign)
+
+
+def test_one_or_two_workers_give_each_a_deterministic_result():
+    """Determinism: the result depends on the seed and the worker count, not the timing."""
+    prob = Problem((1, 1, 2, 4, 8, 16, 32, 64), 8, 16)
+    for workers in (1, 2):
+        a = search(prob, seed=2, time_limit_s=60, workers=workers)
+        b = search(prob, seed=2, time_limit_s=60, workers=workers)
+        assert np.array_equal(a.assign, b.assign)
 
 
 def test_interrupt_keeps_the_best_so_far():
@@ -90,6 +273,13 @@ def test_interrupt_keeps_the_best_so_far():
     prob = Problem((1, 1, 2, 4, 8, 16, 32), 8, 8)
     out = search(prob, seed=0, time_limit_s=30, progress=progress)
     assert out.stopped == "interrupted" and calls
+    assert np.array_equal(np.bincount(out.assign[out.assign >= 0]), prob.counts)
+
+
+def test_time_limit_is_reported_when_it_cuts_the_search():
+    prob = Problem((1, 1, *(2 ** b for b in range(1, 12))), 64, 64)
+    out = search(prob, seed=0, time_limit_s=0.2)
+    assert out.stopped == "time limit"
     assert np.array_equal(np.bincount(out.assign[out.assign >= 0]), prob.counts)
 
 
@@ -110,59 +300,7 @@ def test_properties_counts_names_baselines_and_determinism(counts, rows, extra):
     first = arrange(spec, seed=5, time_limit_s=20)
     assert first.pattern.counts() == tuple(counts)
     assert set(first.pattern.devices) == set(names)
-    prob = Problem(tuple(counts), rows, cols, open_edge=None)
-    core = first.pattern.ids[1:-1, 1:-1].ravel()
-    mine = evaluate(prob, core.astype(np.int64)).ranked(prob)
+    prob = problem_for(spec, rows, cols)
     for fn in baselines.BASELINES.values():
-        assert mine <= evaluate(prob, fn(prob)).ranked(prob)
+        assert compare(prob, first.keys, keys_of(prob, fn(prob))) <= 0
     assert arrange(spec, seed=5, time_limit_s=20).pattern == first.pattern
-
-
-def test_same_seed_same_result_on_annealed_case():
-    prob = Problem((1, 1, 2, 4, 8, 16, 32), 8, 8)
-    a = search(prob, seed=11, time_limit_s=30)
-    b = search(prob, seed=11, time_limit_s=30)
-    assert np.array_equal(a.assign, b.assign)
-
-
-def test_parallel_and_sequential_starts_give_the_same_result():
-    """Determinism: spreading the starts over processes changes nothing."""
-    prob = Problem((1, 1, 2, 4, 8, 16, 32, 64), 8, 16)
-    a = search(prob, seed=2, time_limit_s=60, parallel=True)
-    b = search(prob, seed=2, time_limit_s=60, parallel=False)
-    assert np.array_equal(a.assign, b.assign)
-
-
-@pytest.mark.parametrize("devices, shape", [("A = 2\nB = 4\n", (2, 3)),
-                                            ("A = 1\nB = 3\nC = 4\n", (3, 3)),
-                                            ("A = 3\nB = 5\n", (2, 4))])
-def test_weighted_and_lexicographic_each_win_on_their_own_terms(devices, shape):
-    """Enumeration is exact for both objectives: the weighted result has the least
-    linear + quadratic ppm, the lexicographic one the least linear error."""
-    base = (f"[devices]\n{devices}[array]\nrows = {shape[0]}\ncolumns = {shape[1]}\n"
-            'dummies = "none"\n[gradient]\nlinear_ppm_per_um = 0.5\n'
-            "quadratic_ppm_per_um2 = 20\n")
-    lex = _arrange(base).keys
-    wtd = _arrange(base + '[search]\nobjective = "weighted"\n').keys
-
-    def total(k):
-        return k.linear_um * 0.5 + k.quadratic_ppm
-
-    assert total(wtd) <= total(lex) + 0.01
-    assert lex.linear_um <= wtd.linear_um + 1e-12
-
-
-def test_near_symmetric_construction_reaches_the_single_unit_bound():
-    """Two one-unit devices on an even grid: side by side at the centre, mirrors to the
-    largest device, everything else on mirrored pairs, gives a worst pair of exactly one
-    pitch, the bound (two distinct slots are at least a pitch apart)."""
-    from placer.search import near_symmetric_assignments
-
-    counts = (1, 1, *(2 ** b for b in range(1, 10)))
-    prob = Problem(counts, 32, 32, pitch_um=(3.0, 2.0), corr_sigma_ppm=0.0)
-    starts = near_symmetric_assignments(prob)
-    assert len(starts) == 2
-    best = min(evaluate(prob, a).linear_um for a, _ in starts)
-    assert best == pytest.approx(2.0, abs=1e-12)
-    for assign, _ in starts:
-        assert np.array_equal(np.bincount(assign[assign >= 0]), counts)

@@ -1,0 +1,36 @@
+"""The search for arrangements that cancel gradients, ranked as ``grade`` reports them.
+
+One public entry, :func:`search`, takes a :class:`Problem` and returns a frozen
+:class:`SearchResult`. Inside, one private module per job:
+
+``_problem``    the problem, the keys and the one objective that orders them
+``_moments``    exact integer moments of orbits and the keys of an assignment
+``_construct``  symmetric and near-symmetric starts, the fair deal
+``_local``      the compiled Metropolis loop (``_native.c``), one stage at a time
+``_exact``      branch and bound, the linear bound, assignment counts
+``_driver``     stages, chains, the exact path and the worker process
+"""
+
+from placer.search._construct import core_coords, deal
+from placer.search._driver import SearchResult, search
+from placer.search._moments import compile_problem, evaluate, orbit_assignment
+from placer.search._problem import (
+    DEFAULT_RELATIVE_TIE,
+    SYMMETRIES,
+    Keys,
+    Problem,
+    compare,
+    rank_key,
+)
+
+__all__ = ["Problem", "Keys", "SearchResult", "search", "compare", "rank_key",
+           "keys_of", "core_coords", "deal", "DEFAULT_RELATIVE_TIE", "SYMMETRIES",
+           "compile_problem", "evaluate", "orbit_assignment"]
+
+
+def keys_of(prob: Problem, assign: object) -> Keys:
+    """Every key of a slot assignment (device ids, -1 spare) of ``prob``'s core."""
+    import numpy as np
+
+    comp = compile_problem(prob)
+    return evaluate(comp, orbit_assignment(comp, np.asarray(assign, dtype=np.int64)))

@@ -1,0 +1,328 @@
+"""The search driver: starts, staged local-search chains, the exact search, workers.
+
+A *chain* runs the stages in the objective's order -- linear, quadratic, the higher
+orders asked for, edge balance, correlated sigma (or, weighted, the ppm sum then sigma)
+-- each stage minimising its key while the keys before it keep their values. Chains run
+with budgets doubling from one to the next, each from the best state so far, until two
+chains in a row bring nothing better (or every key sits at its bound, or the time limit
+comes). Budgets are counts of moves, never seconds, so a run that ends before its time
+limit gives the same result for the same spec and seed on any machine.
+
+Cores small enough are then searched exactly from the local search's result: branch and
+bound proves the linear optimum and then the quadratic optimum at that linear value.
+"""
+
+from __future__ import annotations
+
+import os
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from placer.search._construct import starts
+from placer.search._exact import branch_and_bound, linear_bound, n_assignments
+from placer.search._local import STAGE, caps_none, run_stage
+from placer.search._moments import (
+    Compiled,
+    compile_problem,
+    evaluate,
+    slot_assignment,
+)
+from placer.search._problem import LINEAR_REL, Keys, Problem, best_of, compare, progressed
+
+__all__ = ["SearchResult", "search", "MOVES_PER_ORBIT", "QUIET_CHAINS", "MAX_CHAINS",
+           "EXACT_MAX_ORBITS", "EXACT_MAX_ASSIGNMENTS"]
+
+IntArray = NDArray[np.int64]
+
+#: Moves per stage of the first chain, per free orbit (within the two limits below).
+MOVES_PER_ORBIT = 300
+MIN_MOVES = 20_000
+MAX_FIRST_MOVES = 3_000_000
+#: Chains stop after this many in a row bring no progress: a result better than the best
+#: by more than PROGRESS (relative, at the first key that differs).
+QUIET_CHAINS = 2
+PROGRESS = 1e-3
+MAX_CHAINS = 12
+#: Branch and bound runs on cores with at most this many free orbits and assignments;
+#: up to EXACT_ALWAYS assignments it runs to the end (or the time limit), beyond that
+#: within a budget of nodes, so that whether it finishes does not depend on the machine.
+EXACT_MAX_ORBITS = 80
+EXACT_MAX_ASSIGNMENTS = 10 ** 15
+EXACT_ALWAYS = 10 ** 8
+EXACT_NODE_BUDGET = 3_000_000
+#: A second worker process runs its own chains on cores at least this large.
+PARALLEL_MIN_ORBITS = 96
+#: Two values of a key closer than this (absolute) are equal, whatever the relative tie.
+ABS_EPS = 1e-15
+
+
+@dataclass(frozen=True, eq=False)
+class SearchResult:
+    """The best arrangement found and how it was found.
+
+    ``assign`` holds each grid slot's device, -1 for a spare slot (a dummy), -2 for a
+    slot the core does not use. ``proven`` names the keys proven optimal ("linear and
+    quadratic", "linear", or ""). ``stopped`` is "converged", "time limit" or
+    "interrupted".
+    """
+
+    assign: IntArray
+    keys: Keys
+    linear_bound_um: float
+    proven: str
+    method: str
+    stopped: str
+    elapsed_s: float
+    moves: int
+    nodes: int
+    chains: int
+    archive: tuple[tuple[IntArray, Keys], ...] = field(default=())
+
+
+@dataclass
+class _Run:
+    """Work done and how it ended, accumulated across stages and chains."""
+
+    moves: int = 0
+    status: int = 0           # 0 fine, 1 deadline, 2 interrupted
+
+    def note(self, status: int) -> None:
+        self.status = max(self.status, status)
+
+
+def _cap(value: float, rel: float) -> float:
+    return value * (1 + rel) + ABS_EPS
+
+
+def _stage_plan(prob: Problem) -> list[str]:
+    plan = []
+    if prob.objective == "weighted":
+        plan.append("weighted")
+    else:
+        plan += ["linear", "quadratic"]
+        plan += [f"order{k}" for k in range(3, min(prob.cancel_order, 4) + 1)]
+    if prob.open_edge is not None and any(prob.open_edge):
+        plan.append("edge")
+    if prob.corr_sigma_ppm > 0:
+        plan.append("sigma")
+    return plan
+
+
+def _chain(comp: Compiled, dev_of: IntArray, moves: int, seed: int, deadline: float,
+           floor: float, run: _Run, skip_linear: bool = False,
+           fixed: dict[str, float] | None = None) -> IntArray:
+    """One pass of the stages on a copy of ``dev_of``; returns the result."""
+    prob = comp.prob
+    dev = dev_of.copy()
+    caps = caps_none()
+    for name, value in (fixed or {}).items():
+        caps[STAGE[name]] = value
+    rng = np.random.default_rng(seed)
+    for stage in _stage_plan(prob):
+        if stage in (fixed or {}):
+            continue
+        if stage == "linear" and skip_linear:
+            res = run_stage(comp, dev, stage, 0, 0, deadline, caps)
+        else:
+            res = run_stage(comp, dev, stage, moves, int(rng.integers(1 << 62)), deadline,
+                            caps, floor=floor if stage == "linear" else -1.0,
+                            field=stage == "sigma")
+        run.moves += res.tried
+        run.note(res.status)
+        rel = LINEAR_REL if stage == "linear" else prob.relative_tie
+        caps[STAGE[stage]] = _cap(res.keys[STAGE[stage]], rel)
+        if res.status:
+            break
+    return dev
+
+
+def _chains(comp: Compiled, start: IntArray, seed: int, deadline: float, floor: float,
+            progress: Callable[[str, Keys], None] | None, run: _Run
+            ) -> list[tuple[IntArray, Keys]]:
+    """Chains with doubling budgets from ``start`` until they stop improving."""
+    prob = comp.prob
+    rng = np.random.default_rng(seed)
+    base = int(np.clip(MOVES_PER_ORBIT * max(comp.n_orb, 1), MIN_MOVES, MAX_FIRST_MOVES))
+    best_dev, best_keys = start, evaluate(comp, start)
+    found = [(start, best_keys)]
+    quiet = 0
+    for k in range(MAX_CHAINS):
+        at_floor = best_keys.linear_um <= floor * (1 + LINEAR_REL) + ABS_EPS
+        dev = _chain(comp, best_dev, base << k, int(rng.integers(1 << 62)), deadline, floor,
+                     run, skip_linear=at_floor and k > 0)
+        keys = evaluate(comp, dev)
+        found.append((dev, keys))
+        if progress is not None:
+            progress(f"chain {k + 1}", keys)
+        quiet = 0 if progressed(prob, keys, best_keys, PROGRESS) else quiet + 1
+        if compare(prob, keys, best_keys) < 0:
+            best_dev, best_keys = dev, keys
+        if run.status or quiet >= QUIET_CHAINS:
+            break
+        if (best_keys.linear_um <= floor * (1 + LINEAR_REL) + ABS_EPS
+                and best_keys.quadratic_ppm <= ABS_EPS and all(h <= ABS_EPS
+                                                               for h in best_keys.higher)
+                and "sigma" not in _stage_plan(prob) and "edge" not in _stage_plan(prob)):
+            break
+    return found
+
+
+def _worker(send: Any, comp: Compiled, start: IntArray, seed: int, deadline: float,
+            floor: float) -> None:
+    """Second process: its own chains, sent back through the pipe."""
+    import signal
+
+    signal.signal(signal.SIGINT, signal.SIG_IGN)   # the parent handles Ctrl-C
+    run = _Run()
+    found = _chains(comp, start, seed, deadline, floor, None, run)
+    send.send((found, run.moves, run.status))
+    send.close()
+
+
+def search(prob: Problem, *, seed: int = 0, time_limit_s: float = 60.0,
+           progress: Callable[[str, Keys], None] | None = None,
+           workers: int | None = None) -> SearchResult:
+    """Find the best arrangement of ``prob`` under its objective.
+
+    Parameters
+    ----------
+    prob : Problem
+        Units, core, constraints and objective.
+    seed : int
+        Seed of every random choice; the same seed gives the same result when the time
+        limit is not reached.
+    time_limit_s : float
+        Wall-clock cap; a result it cut says so in ``stopped``.
+    progress : callable, optional
+        Called with a stage name and the keys reached so far.
+    workers : int, optional
+        Processes running chains (default: two on cores of at least 96 free orbits
+        when the machine has two CPUs, else one).
+
+    Returns
+    -------
+    SearchResult
+    """
+    t0 = time.monotonic()
+    deadline = t0 + time_limit_s
+    comp = compile_problem(prob)
+    rng = np.random.default_rng(seed)
+    floor = linear_bound(prob)
+    run = _Run()
+    nodes = 0
+    proven = ""
+    named = starts(comp, rng)
+    if not named:
+        raise ValueError("no start fits the problem's counts")
+    scored = [(name, dev, evaluate(comp, dev)) for name, dev in named]
+    name0, start, _ = best_of(prob, scored, lambda x: x[2])
+    method = f"{name0} + local search"
+    seeds = [int(rng.integers(1 << 62)) for _ in range(2)]
+    cpus = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else 1
+    if workers is None:
+        workers = 2 if comp.n_orb >= PARALLEL_MIN_ORBITS and cpus > 1 else 1
+    found: list[tuple[IntArray, Keys]] = []
+    child = None
+    try:
+        if workers > 1:
+            import multiprocessing as mp
+
+            ctx = mp.get_context("fork")
+            recv, send = ctx.Pipe(duplex=False)
+            child = (ctx.Process(target=_worker, args=(send, comp, start, seeds[1], deadline,
+                                                      floor), daemon=True), recv)
+            child[0].start()
+            send.close()
+        found += _chains(comp, start, seeds[0], deadline, floor, progress, run)
+        if child is not None:
+            proc, recv = child
+            try:
+                more, moves, status = recv.recv()
+                found += more
+                run.moves += moves
+                run.note(status)
+            except EOFError:
+                pass
+            proc.join()
+            child = None
+        best_dev, best_keys = best_of(prob, found, lambda x: x[1])
+        exact_ok = (comp.n_orb <= EXACT_MAX_ORBITS and prob.objective == "lexicographic"
+                    and n_assignments(comp) <= EXACT_MAX_ASSIGNMENTS and run.status == 0)
+        if exact_ok:
+            budget = 0 if n_assignments(comp) <= EXACT_ALWAYS else EXACT_NODE_BUDGET
+            best_dev, best_keys, proven, nodes = _exact(comp, best_dev, best_keys, floor,
+                                                        deadline, run, seeds[0], budget)
+            found.append((best_dev, best_keys))
+            if proven:
+                method = "branch and bound (exact)"
+    except KeyboardInterrupt:
+        run.note(2)
+    finally:
+        if child is not None:
+            child[0].terminate()
+            child[0].join()
+    if not found:
+        found = [(start, evaluate(comp, start))]
+    best_dev, best_keys = best_of(prob, found, lambda x: x[1])
+    bound = best_keys.linear_um if proven else min(floor, best_keys.linear_um)
+    if best_keys.linear_um <= floor * (1 + LINEAR_REL) + ABS_EPS and not proven:
+        proven = "linear"
+    ranked = sorted(range(len(found)), key=lambda i: (_rank_pos(prob, found, i), i))
+    archive = tuple((slot_assignment(comp, found[i][0]), found[i][1]) for i in ranked[:50])
+    return SearchResult(
+        assign=slot_assignment(comp, best_dev), keys=best_keys, linear_bound_um=bound,
+        proven=proven, method=method,
+        stopped={0: "converged", 1: "time limit", 2: "interrupted"}[run.status],
+        elapsed_s=time.monotonic() - t0, moves=run.moves, nodes=nodes,
+        chains=len(found), archive=archive)
+
+
+def _rank_pos(prob: Problem, found: list[tuple[IntArray, Keys]], i: int) -> int:
+    return sum(1 for j in range(len(found)) if compare(prob, found[j][1], found[i][1]) < 0)
+
+
+def _inc(keys: Keys) -> tuple[float, ...]:
+    return (keys.linear_um, keys.quadratic_ppm, *keys.higher)
+
+
+def _exact(comp: Compiled, dev: IntArray, keys: Keys, floor: float, deadline: float,
+           run: _Run, seed: int, budget: int) -> tuple[IntArray, Keys, str, int]:
+    """Prove the linear, then the quadratic optimum; polish the later keys under both."""
+    prob = comp.prob
+    nodes = 0
+    if keys.linear_um > floor * (1 + LINEAR_REL) + ABS_EPS:
+        res = branch_and_bound(comp, dev, _inc(keys), deadline, mode=1, node_limit=budget)
+        nodes += res.nodes
+        if res.status in (1, 2):
+            run.note(res.status)
+        if res.linear_um < keys.linear_um * (1 - LINEAR_REL):
+            dev, keys = res.dev_of, evaluate(comp, res.dev_of)
+        if not res.proven:
+            return dev, keys, "", nodes
+    left = max(budget - nodes, 1) if budget else 0
+    res = branch_and_bound(comp, dev, _inc(keys), deadline, mode=2, lin_cap=keys.linear_um,
+                           node_limit=left)
+    nodes += res.nodes
+    if res.status in (1, 2):
+        run.note(res.status)
+    k2 = evaluate(comp, res.dev_of)
+    if compare(prob, k2, keys) < 0:
+        dev, keys = res.dev_of, k2
+    if not res.proven:
+        return dev, keys, "linear", nodes
+    # the later keys (edge, sigma) under the proven linear, quadratic and higher orders
+    fixed = {"linear": _cap(keys.linear_um, LINEAR_REL),
+             "quadratic": _cap(keys.quadratic_ppm, prob.relative_tie)}
+    for k, h in zip(range(3, 5), keys.higher, strict=False):
+        fixed[f"order{k}"] = _cap(h, prob.relative_tie)
+    base = int(np.clip(MOVES_PER_ORBIT * max(comp.n_orb, 1), MIN_MOVES, MAX_FIRST_MOVES))
+    polished = _chain(comp, dev, base, seed, deadline, floor, run, fixed=fixed)
+    k3 = evaluate(comp, polished)
+    if compare(prob, k3, keys) < 0:
+        dev, keys = polished, k3
+    return dev, keys, "linear and quadratic", nodes

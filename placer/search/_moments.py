@@ -1,0 +1,236 @@
+"""Exact integer moments of a problem's orbits, and the keys of an assignment.
+
+Positions are doubled offsets from the core centre in pitches (integers), so moment sums
+are exact. An *orbit* is a group of slots that always takes one device: a single slot,
+or a mirrored pair under a symmetry constraint. Pinned slots are not orbits; their
+units enter as fixed base sums.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+
+from placer.search._problem import Keys, Problem
+
+__all__ = ["Compiled", "compile_problem", "pair_terms", "evaluate", "slot_assignment",
+           "orbit_assignment", "row_tracks", "mos_breaks", "field_products"]
+
+IntArray = NDArray[np.int64]
+FloatArray = NDArray[np.float64]
+SPARE = -1
+UNUSABLE = -2
+
+
+def _mirror(prob: Problem, r: int, c: int) -> tuple[int, int]:
+    if prob.symmetry == "x":
+        return r, prob.cols - 1 - c
+    if prob.symmetry == "y":
+        return prob.rows - 1 - r, c
+    if prob.symmetry == "point":
+        return prob.rows - 1 - r, prob.cols - 1 - c
+    return r, c
+
+
+@dataclass(frozen=True, eq=False)
+class Compiled:
+    """A problem as the compiled loops take it (see ``_native.c``)."""
+
+    prob: Problem
+    u: IntArray                 # doubled x offset of every grid slot
+    v: IntArray                 # doubled y offset (up)
+    orb_slot: IntArray          # (n_orb, 2): slots of each orbit, -1 pads
+    orb_size: IntArray
+    orb_m: IntArray             # (n_orb, 6): sums of 1, u, v, uu, uv, vv
+    orb_h: FloatArray           # (n_orb, 9): order 3 and 4 monomial sums
+    orb_hi: IntArray            # the same, as integers (branch and bound)
+    orb_key: IntArray           # (n_orb, 2): grid (col, row) of a single-slot orbit
+    key_grid: IntArray          # grid -> single-slot orbit, -1
+    orb_edge: NDArray[np.uint8] | None
+    base: IntArray              # (n_dev + 1, 6): pinned units' sums (spare last)
+    base_h: FloatArray
+    base_hi: IntArray
+    counts: IntArray            # (n_dev + 1): units of each device, spare slots last
+    left: IntArray              # (n_dev + 1): what the orbits must take
+    pairs: IntArray
+    pinned_slot: IntArray       # grid -> pinned device, or -1
+    n_units: int
+    hx: float
+    hy: float
+    g2half: float
+    slot_xy: FloatArray         # (2, n_slots) positions in um about the core centre
+
+    @property
+    def n_orb(self) -> int:
+        """Orbits."""
+        return len(self.orb_size)
+
+
+def _monomials(u: IntArray, v: IntArray) -> tuple[IntArray, IntArray]:
+    one = np.ones_like(u)
+    ints = np.column_stack([one, u, v, u * u, u * v, v * v]).astype(np.int64)
+    hi = np.column_stack([u ** 3, u ** 2 * v, u * v ** 2, v ** 3, u ** 4, u ** 3 * v,
+                          u ** 2 * v ** 2, u * v ** 3, v ** 4]).astype(np.int64)
+    return ints, hi
+
+
+def compile_problem(prob: Problem) -> Compiled:
+    """Orbits, monomials and base sums of ``prob``."""
+    rows, cols = prob.rows, prob.cols
+    r_idx, c_idx = np.divmod(np.arange(rows * cols), cols)
+    u = (2 * c_idx - (cols - 1)).astype(np.int64)
+    v = ((rows - 1) - 2 * r_idx).astype(np.int64)
+    ints, hi = _monomials(u, v)
+    usable = prob.usable_mask()
+    pinned = np.full(rows * cols, -1, dtype=np.int64)
+    for s, d in prob.pinned:
+        pinned[s] = d
+    n_dev = prob.n_dev
+    base = np.zeros((n_dev + 1, 6), dtype=np.int64)
+    base_hi = np.zeros((n_dev + 1, 9), dtype=np.int64)
+    for slot in np.nonzero(pinned >= 0)[0]:
+        base[pinned[slot]] += ints[slot]
+        base_hi[pinned[slot]] += hi[slot]
+    seen = np.zeros(rows * cols, dtype=bool)
+    orbits: list[list[int]] = []
+    for s in range(rows * cols):
+        if seen[s] or not usable[s] or pinned[s] >= 0:
+            continue
+        r, c = divmod(s, cols)
+        mr, mc = _mirror(prob, r, c)
+        t = mr * cols + mc
+        seen[s] = seen[t] = True
+        orbits.append([s] if t == s else [s, t])
+    n_orb = len(orbits)
+    orb_slot = np.full((max(n_orb, 1), 2), -1, dtype=np.int64)[:n_orb]
+    for i, o in enumerate(orbits):
+        orb_slot[i, :len(o)] = o
+    orb_size = np.array([len(o) for o in orbits], dtype=np.int64)
+    orb_m = np.array([ints[o].sum(axis=0) for o in orbits], dtype=np.int64).reshape(-1, 6)
+    orb_hi = np.array([hi[o].sum(axis=0) for o in orbits], dtype=np.int64).reshape(-1, 9)
+    key_grid = np.full(rows * cols, -1, dtype=np.int64)
+    orb_key = np.zeros((n_orb, 2), dtype=np.int64)
+    for i, o in enumerate(orbits):
+        orb_key[i] = (o[0] % cols, o[0] // cols)
+        if len(o) == 1:
+            key_grid[o[0]] = i
+    orb_edge = None
+    if prob.open_edge is not None and any(prob.open_edge):
+        edge = np.array(prob.open_edge, dtype=np.uint8)
+        orb_edge = np.array([edge[o].sum() for o in orbits], dtype=np.uint8)
+    n_units = sum(prob.counts)
+    counts = np.array([*prob.counts, int(usable.sum()) - n_units], dtype=np.int64)
+    left = counts.copy()
+    for d in range(n_dev):
+        left[d] -= int(np.sum(pinned == d))
+    hx, hy = prob.pitch_um[0] / 2.0, prob.pitch_um[1] / 2.0
+    return Compiled(
+        prob=prob, u=u, v=v, orb_slot=orb_slot, orb_size=orb_size, orb_m=orb_m,
+        orb_h=orb_hi.astype(float), orb_hi=orb_hi, orb_key=orb_key, key_grid=key_grid,
+        orb_edge=orb_edge, base=base, base_h=base_hi.astype(float), base_hi=base_hi,
+        counts=counts, left=left, pairs=prob.pair_array(), pinned_slot=pinned,
+        n_units=n_units, hx=hx, hy=hy, g2half=0.5 * prob.quadratic_ppm_per_um2,
+        slot_xy=np.vstack([u * hx, v * hy]).astype(float))
+
+
+def slot_assignment(comp: Compiled, dev_of: IntArray) -> IntArray:
+    """Device of every grid slot: device ids, SPARE (-1) or UNUSABLE (-2)."""
+    prob = comp.prob
+    out = np.where(prob.usable_mask(), SPARE, UNUSABLE).astype(np.int64)
+    pinned = comp.pinned_slot >= 0
+    out[pinned] = comp.pinned_slot[pinned]
+    for i in range(comp.n_orb):
+        d = int(dev_of[i])
+        out[comp.orb_slot[i, :comp.orb_size[i]]] = SPARE if d == prob.n_dev else d
+    return out
+
+
+def orbit_assignment(comp: Compiled, assign: IntArray) -> IntArray:
+    """Device of every orbit (spare = n_dev) from a slot assignment."""
+    first = comp.orb_slot[:, 0]
+    d = np.asarray(assign)[first]
+    return np.where(d >= 0, d, comp.prob.n_dev).astype(np.int64)
+
+
+def pair_terms(comp: Compiled, dev_of: IntArray) -> FloatArray:
+    """Per ranked pair: linear (um), quadratic (ppm), order-3 and order-4 moment
+    differences (um^k), shape (n_pairs, 4) -- the arithmetic the compiled loops rank."""
+    from placer.search import _native
+
+    out = np.zeros((len(comp.pairs), 4))
+    if len(comp.pairs) == 0:
+        return out
+    fp = np.array([comp.hx, comp.hy, comp.g2half, comp.prob.linear_ppm_per_um])
+    ip = np.array([comp.n_orb, comp.prob.n_dev, len(comp.pairs), max(comp.prob.cancel_order, 2),
+                   comp.n_units], dtype=np.int64)
+    _native.keys(np.ascontiguousarray(comp.orb_m), np.ascontiguousarray(comp.orb_h),
+                 comp.counts, np.ascontiguousarray(comp.pairs),
+                 np.ascontiguousarray(dev_of, dtype=np.int64), np.ascontiguousarray(comp.base),
+                 fp, ip, out)
+    return out
+
+
+def row_tracks(prob: Problem, assign: IntArray) -> int:
+    """Row tracks: distinct devices in each row, summed."""
+    grid = assign.reshape(prob.rows, prob.cols)
+    total = 0
+    for row in grid:
+        total += len(set(int(d) for d in row if d >= 0))
+    return total
+
+
+def mos_breaks(prob: Problem, assign: IntArray) -> int:
+    """Fewest diffusion breaks the MOS rows need (0 for other kinds)."""
+    if prob.finger_nets is None:
+        return 0
+    from placer.routing import orient_row
+
+    grid = assign.reshape(prob.rows, prob.cols)
+    return sum(orient_row(row, None, prob.finger_nets)[1] for row in grid)
+
+
+def _sigma(comp: Compiled, assign: IntArray) -> float:
+    prob = comp.prob
+    if prob.corr_sigma_ppm <= 0 or len(comp.pairs) == 0:
+        return 0.0
+    from placer import model
+
+    ids = np.where(assign >= 0, assign, -1).reshape(prob.rows, prob.cols)
+    cov = model.grid_device_covariance(ids, prob.pitch_um, prob.n_dev, prob.corr_length_um,
+                                       prob.kernel)
+    return float(prob.corr_sigma_ppm * np.sqrt(model.pair_variance(cov, comp.pairs)).max())
+
+
+def _edge(comp: Compiled, assign: IntArray) -> float:
+    prob = comp.prob
+    if prob.open_edge is None or not any(prob.open_edge):
+        return 0.0
+    edge = np.array(prob.open_edge, dtype=bool)
+    n = np.array(prob.counts, dtype=float)
+    e = np.bincount(assign[edge & (assign >= 0)], minlength=prob.n_dev)
+    return float(np.max(np.abs(e / n - e.sum() / n.sum())))
+
+
+def evaluate(comp: Compiled, dev_of: IntArray) -> Keys:
+    """Every key of one assignment (per orbit), the worst pair of each."""
+    prob = comp.prob
+    terms = pair_terms(comp, dev_of)
+    assign = slot_assignment(comp, dev_of)
+    worst = terms.max(axis=0) if len(terms) else np.zeros(4)
+    higher = tuple(float(worst[2 + k - 3]) for k in range(3, prob.cancel_order + 1))
+    return Keys(float(worst[0]), float(worst[1]), higher, _edge(comp, assign),
+                _sigma(comp, assign), row_tracks(prob, assign), mos_breaks(prob, assign))
+
+
+def field_products(comp: Compiled, dev_of: IntArray) -> FloatArray:
+    """K E of the correlated field for a state: per grid slot, its correlation with each
+    device's units (and the spare slots, last) over their number, (n_slots, n_dev + 1)."""
+    from placer import model
+
+    prob = comp.prob
+    assign = slot_assignment(comp, dev_of)
+    groups = np.where(assign >= 0, assign, np.where(assign == SPARE, prob.n_dev, -1))
+    return model.grid_kernel_products(groups.reshape(prob.rows, prob.cols), prob.pitch_um,
+                                      prob.n_dev + 1, prob.corr_length_um, prob.kernel)
