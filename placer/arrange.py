@@ -12,7 +12,7 @@ from numpy.typing import NDArray
 
 from placer import baselines
 from placer.errors import SpecError
-from placer.pattern import DUMMY, EMPTY, Pattern
+from placer.pattern import Pattern
 from placer.routing import (
     FingerNets,
     Routing,
@@ -133,25 +133,18 @@ def candidate_shapes(spec: Spec, limit: int = 4) -> list[tuple[int, int]]:
     return chosen
 
 
-def _open_edge(rows: int, cols: int, dummies: str) -> tuple[bool, ...]:
-    """Core slots with a side open to the outside once the dummies are added."""
-    r, c = np.divmod(np.arange(rows * cols), cols)
-    top_bottom = (r == 0) | (r == rows - 1)
-    sides = (c == 0) | (c == cols - 1)
-    if dummies == "ring":
-        return tuple(False for _ in r)
-    if dummies == "ends":
-        return tuple(bool(x) for x in top_bottom)
-    return tuple(bool(x) for x in top_bottom | sides)
-
-
 def problem_for(spec: Spec, rows: int, cols: int,
                 usable: NDArray[np.bool_] | None = None) -> Problem:
-    """The search problem of ``spec`` on a core of ``rows`` x ``cols`` slots (``usable``:
-    the slots units may take, default all). ``arrange`` and ``repair`` both build their
-    problem here."""
-    if rows * cols < spec.n_units:
-        raise SpecError(f"{spec.source}: {rows} x {cols} slots cannot hold {spec.n_units} units")
+    """The search problem of ``spec`` on a core of ``rows`` x ``cols`` slots: the mask's
+    usable slots (or ``usable``), pins, groups' row bands, symmetry and ranked pairs.
+    ``arrange`` and ``repair`` both build their problem here."""
+    from placer import grid
+
+    use = usable if usable is not None else grid.usable(spec, rows, cols)
+    n_use = rows * cols if use is None else int(np.sum(use))
+    if n_use < spec.n_units:
+        raise SpecError(f"{spec.source}: {rows} x {cols} slots ({n_use} usable) cannot hold "
+                        f"{spec.n_units} units")
     return Problem(
         counts=spec.counts, rows=rows, cols=cols, pitch_um=spec.array.pitch_um,
         linear_ppm_per_um=spec.gradient.linear_ppm_per_um,
@@ -159,34 +152,22 @@ def problem_for(spec: Spec, rows: int, cols: int,
         corr_sigma_ppm=spec.correlated.sigma_ppm, corr_length_um=spec.correlated.length_um,
         kernel=spec.correlated.kernel, cancel_order=spec.search.cancel_order,
         objective=spec.search.objective, relative_tie=spec.search.relative_tie,
-        open_edge=_open_edge(rows, cols, spec.array.dummies) if usable is None else
-        _open_edge_masked(usable, rows, cols, spec.array.dummies),
+        open_edge=grid.open_edge(spec, rows, cols, use),
         finger_nets=mos_finger_nets(spec) if spec.kind == "mos" else None,
-        usable=None if usable is None else tuple(bool(x) for x in usable),
+        usable=None if use is None else tuple(bool(x) for x in use),
+        pinned=grid.pinned_slots(spec, cols) if usable is None else (),
+        pairs=tuple(spec.ranked_pairs()),
+        symmetry=spec.placement.symmetry if usable is None else "none",
+        device_rows=grid.device_rows(spec) if usable is None else None,
     )
 
 
-def _open_edge_masked(usable: NDArray[np.bool_], rows: int, cols: int,
-                      dummies: str) -> tuple[bool, ...]:
-    """Usable slots with a side open to an unusable slot or, past the dummies, outside."""
-    grid = np.asarray(usable, dtype=bool).reshape(rows, cols)
-    pad = np.pad(grid, 1, constant_values=dummies == "ring")
-    if dummies == "ends":
-        pad[1:-1, 0] = pad[1:-1, -1] = True
-    near = ~(pad[:-2, 1:-1] & pad[2:, 1:-1] & pad[1:-1, :-2] & pad[1:-1, 2:])
-    return tuple(bool(x) for x in (grid & near).ravel())
-
-
 def build_pattern(spec: Spec, assign: IntArray, rows: int, cols: int) -> Pattern:
-    """The full pattern: core assignment (-1 a dummy, -2 an unused slot), dummies as the
-    spec asks, MOS orientations."""
-    core = np.where(np.asarray(assign) == -2, EMPTY, assign).reshape(rows, cols)
-    style = spec.array.dummies
-    if style == "ends":
-        core = np.pad(core, ((0, 0), (1, 1)), constant_values=DUMMY)
-    elif style == "ring":
-        core = np.pad(core, 1, constant_values=DUMMY)
-    ids = core.astype(int)
+    """The full pattern: core assignment (-1 a spare slot, -2 an unused one), dummies as
+    the spec asks around the footprint, MOS orientations."""
+    from placer import grid
+
+    ids = grid.full_pattern_ids(spec, np.asarray(assign), rows, cols)
     orient = np.zeros(ids.shape, dtype=np.int8)
     if spec.kind == "mos":
         nets = mos_finger_nets(spec)

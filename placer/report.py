@@ -66,7 +66,8 @@ def format_grade(grade: Grade, max_pairs: int = 40) -> str:
                              "edge", ">/<"], dev_rows))
     out.append("")
     if not grade.pairs:
-        out.append("One device only: no ratio to grade.")
+        out.append("No pair of devices is ranked (one device, or groups of one device each "
+                   "with no [match]): no ratio to grade.")
     else:
         order = len(grade.pairs[0].moment_norms)
         vt = grade.pairs[0].vt_sigma_mv is not None
@@ -96,6 +97,16 @@ def format_grade(grade: Grade, max_pairs: int = 40) -> str:
             w = grade.worst(field)
             assert w is not None
             out.append(f"Worst {label:<9} {w.a}/{w.b}: {_f(getattr(w, field))} ppm")
+        groups = grade.groups()
+        if groups != [""]:
+            for g in groups:
+                wl, wq, wr = (grade.worst(f, g) for f in ("linear_ppm", "quadratic_ppm",
+                                                         "random_sigma_ppm"))
+                assert wl is not None and wq is not None and wr is not None
+                name = "across groups (matched pairs)" if g == "match" else f"group {g}"
+                out.append(f"  {name}: linear {wl.a}/{wl.b} {_f(wl.linear_ppm)} ppm, "
+                           f"quadratic {wq.a}/{wq.b} {_f(wq.quadratic_ppm)} ppm, random "
+                           f"{wr.a}/{wr.b} {_f(wr.random_sigma_ppm)} ppm")
         if grade.monte_carlo is not None:
             mc = grade.monte_carlo
             worst = max(range(len(mc.std_ppm)), key=lambda i: mc.exact_std_ppm[i])

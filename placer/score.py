@@ -32,7 +32,11 @@ class DeviceScore:
 
 @dataclass(frozen=True)
 class PairScore:
-    """Ratio-error figures of one pair of devices (first minus second), ppm of P0."""
+    """Ratio-error figures of one pair of devices (first minus second), ppm of P0.
+
+    ``group`` names the group both devices belong to ('' with no groups), or is
+    "match" for a pair the spec matches across groups.
+    """
 
     a: str
     b: str
@@ -46,6 +50,7 @@ class PairScore:
     white_sigma_ppm: float
     random_sigma_ppm: float
     vt_sigma_mv: float | None
+    group: str = ""
 
 
 @dataclass(frozen=True)
@@ -73,17 +78,26 @@ class Grade:
     assumptions: dict[str, Any]
     monte_carlo: MonteCarloSummary | None = None
 
-    def worst(self, field: str) -> PairScore | None:
-        """The pair with the largest value of ``field`` (absolute), or None."""
-        if not self.pairs:
+    def worst(self, field: str, group: str | None = None) -> PairScore | None:
+        """The pair with the largest value of ``field`` (absolute), or None; with
+        ``group``, among that group's pairs only."""
+        pairs = [p for p in self.pairs if group is None or p.group == group]
+        if not pairs:
             return None
-        return max(self.pairs, key=lambda p: abs(getattr(p, field)))
+        return max(pairs, key=lambda p: abs(getattr(p, field)))
+
+    def groups(self) -> list[str]:
+        """Group names of the pairs, in order of first appearance."""
+        return list(dict.fromkeys(p.group for p in self.pairs))
 
     def to_dict(self) -> dict[str, Any]:
         """Plain JSON-ready form."""
         out = asdict(self)
+        fields = ("linear_ppm", "quadratic_ppm", "random_sigma_ppm")
         out["worst"] = {f: (w.a + "/" + w.b if (w := self.worst(f)) else None)
-                        for f in ("linear_ppm", "quadratic_ppm", "random_sigma_ppm")}
+                        for f in fields}
+        out["worst_per_group"] = {g: {f: (w.a + "/" + w.b if (w := self.worst(f, g)) else None)
+                                      for f in fields} for g in self.groups()}
         return out
 
 
@@ -128,7 +142,8 @@ def grade_pattern(pattern: Pattern, spec: Spec) -> Grade:
             orientation=(int(np.sum(mine > 0)), int(np.sum(mine < 0)), int(np.sum(mine == 0))),
         ))
 
-    pair_list = list(combinations(range(n_dev), 2))
+    pair_list = (spec.ranked_pairs() if tuple(spec.devices) == tuple(pattern.devices)
+                 else list(combinations(range(n_dev), 2)))
     pairs: list[PairScore] = []
     mc = None
     if pair_list:
@@ -154,8 +169,11 @@ def grade_pattern(pattern: Pattern, spec: Spec) -> Grade:
                                           area[pr[:, 1]])
         vt = (model.pelgrom_sigma(spec.mismatch.a_vt_mv_um, area[pr[:, 0]], area[pr[:, 1]])
               if spec.mismatch.a_vt_mv_um is not None else None)
+        group_of = spec.group_of()
         for i, (a, b) in enumerate(pair_list):
+            ga, gb = group_of.get(pattern.devices[a], ""), group_of.get(pattern.devices[b], "")
             pairs.append(PairScore(
+                group=ga if ga == gb else "match",
                 a=pattern.devices[a], b=pattern.devices[b],
                 centroid_distance_um=float(norms[1][i]),
                 linear_ppm=float(lin[i]), linear_worst_angle_deg=float(ang[i]),

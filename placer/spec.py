@@ -29,6 +29,10 @@ __all__ = [
     "OBJECTIVES",
     "ElectricalSpec",
     "RoutingSpec",
+    "GroupSpec",
+    "Placement",
+    "SYMMETRY_CHOICES",
+    "MASK_CHARS",
     "FITS",
     "Spec",
     "default_spec",
@@ -69,6 +73,39 @@ class ArraySpec:
     aspect: float = 1.0
     pitch_given: bool = True
     holes: bool = True
+
+
+#: Symmetry a result must obey: none; mirror about a vertical axis (x: left-right), about
+#: a horizontal axis (y: top-bottom); through the centre (point).
+SYMMETRY_CHOICES = ("none", "x", "y", "point")
+#: Mask text: a usable slot, a keep-out slot (stays empty, no dummy), outside the
+#: footprint (may take an outline dummy).
+MASK_CHARS = {".": "usable", "#": "keep-out", "-": "outside"}
+
+
+@dataclass(frozen=True)
+class GroupSpec:
+    """Devices matched with each other; optionally confined to some core rows."""
+
+    name: str
+    devices: tuple[str, ...]
+    rows: tuple[int, ...] | None = None
+
+
+@dataclass(frozen=True)
+class Placement:
+    """Constraints of the core: footprint mask, pinned units, symmetry, groups, matches.
+
+    ``mask`` holds one string per core row ('.', '#', '-'); ``pins`` (device, row,
+    column) fixes one unit each; ``groups`` partitions the devices (empty: one group of
+    all); ``match`` adds device pairs across groups whose ratio also counts.
+    """
+
+    mask: tuple[str, ...] | None = None
+    pins: tuple[tuple[str, int, int], ...] = ()
+    symmetry: str = "none"
+    groups: tuple[GroupSpec, ...] = ()
+    match: tuple[tuple[str, str], ...] = ()
 
 
 @dataclass(frozen=True)
@@ -185,11 +222,31 @@ class Spec:
     joins: tuple[str, ...] = ()
     dummy_net: str = "TIE"
     routing: RoutingSpec = field(default_factory=RoutingSpec)
+    placement: Placement = field(default_factory=Placement)
 
     @property
     def n_units(self) -> int:
         """Total number of device units."""
         return sum(self.counts)
+
+    def ranked_pairs(self) -> list[tuple[int, int]]:
+        """Device pairs whose ratio errors count: every pair inside a group (all devices
+        form one group when the spec names none), then the spec's matches."""
+        index = {n: i for i, n in enumerate(self.devices)}
+        groups = ([[index[d] for d in g.devices] for g in self.placement.groups]
+                  or [list(range(len(self.devices)))])
+        out: list[tuple[int, int]] = []
+        for g in groups:
+            out += [(a, b) for i, a in enumerate(sorted(g)) for b in sorted(g)[i + 1:]]
+        for a, b in self.placement.match:
+            pair = (min(index[a], index[b]), max(index[a], index[b]))
+            if pair not in out:
+                out.append(pair)
+        return out
+
+    def group_of(self) -> dict[str, str]:
+        """Group name of every device ('' when the spec names no groups)."""
+        return {d: g.name for g in self.placement.groups for d in g.devices}
 
     def net_names(self) -> list[str]:
         """Every net of the block: terminal nets in device order, the dummy net, then the
@@ -255,8 +312,11 @@ def check_name(name: str, what: str) -> str:
 # Every table and key a spec may hold; anything else is refused with a suggestion.
 _SCHEMA: dict[str, tuple[str, ...]] = {
     "": ("name", "kind", "devices", "array", "unit", "gradient", "correlated", "mismatch",
-         "monte_carlo", "search", "electrical", "terminals", "routing"),
-    "array": ("rows", "columns", "dummies", "pitch_um", "aspect", "dummy_net", "holes"),
+         "monte_carlo", "search", "electrical", "terminals", "routing", "pins", "groups",
+         "match"),
+    "array": ("rows", "columns", "dummies", "pitch_um", "aspect", "dummy_net", "holes", "mask",
+              "keep_out", "symmetry"),
+    "match": ("pairs",),
     "unit": ("width_um", "length_um"),
     "gradient": ("linear_ppm_per_um", "quadratic_ppm_per_um2", "order"),
     "correlated": ("sigma_ppm", "length_um", "kernel"),
@@ -419,6 +479,9 @@ def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") 
     arr = _Reader(source, "array", data.get("array", {}))
     rows = arr.integer("rows", None, high=MAX_SLOTS)
     columns = arr.integer("columns", None, high=MAX_SLOTS)
+    mask = _mask(arr, rows, columns)
+    if mask is not None:
+        rows, columns = len(mask), len(mask[0])
     dummies = arr.choice("dummies", "ends", DUMMY_STYLES)
     pitch_given = "pitch_um" in arr.data
     pitch = _pitch(arr)
@@ -428,10 +491,17 @@ def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") 
         if rows * columns > MAX_SLOTS:
             raise LimitError(f"{source}: [array] {rows} x {columns} slots exceed the limit of "
                              f"{MAX_SLOTS}")
-        if rows * columns < sum(counts):
-            raise SpecError(f"{source}: [array] {rows} x {columns} = {rows * columns} slots "
-                            f"cannot hold {sum(counts)} units; enlarge rows or columns")
+        usable = (rows * columns if mask is None
+                  else sum(row.count(".") for row in mask))
+        if usable < sum(counts):
+            what = f"{rows} x {columns} = {rows * columns} slots" if mask is None else \
+                f"the mask's {usable} usable slots"
+            raise SpecError(f"{source}: [array] {what} cannot hold {sum(counts)} units; "
+                            "enlarge rows or columns" if mask is None else
+                            f"{source}: [array] {what} cannot hold {sum(counts)} units; "
+                            "free more slots")
     holes = arr.flag("holes", True)
+    symmetry = arr.choice("symmetry", "none", SYMMETRY_CHOICES)
     if not holes and rows is not None and columns is not None and rows * columns > sum(counts):
         raise SpecError(f"{source}: [array] {rows} x {columns} slots leave "
                         f"{rows * columns - sum(counts)} spare, but holes = false; give a "
@@ -496,14 +566,217 @@ def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") 
     dr = RoutingSpec()
     routing = RoutingSpec(*(_num(ro, k, getattr(dr, k)) for k in _SCHEMA["routing"]))
 
+    placement = _placement(source, data, names, counts, rows, columns, mask, symmetry)
+
     spec = Spec(name=name, devices=tuple(names), counts=tuple(counts), kind=kind, array=array,
                 unit=unit, gradient=gradient, correlated=correlated, mismatch=mismatch,
                 monte_carlo=monte_carlo, search=search, electrical=electrical, source=source,
-                nets=nets, joins=joins, dummy_net=dummy_net, routing=routing)
+                nets=nets, joins=joins, dummy_net=dummy_net, routing=routing,
+                placement=placement)
     try:
         return with_computed_pitch(spec)
     except PlacerError as err:
         raise SpecError(f"{source}: {err}") from None
+
+
+def _mask(arr: _Reader, rows: int | None, columns: int | None) -> tuple[str, ...] | None:
+    """[array] mask (rows of '.', '#', '-') and keep_out rectangles, as mask rows."""
+    raw = arr.data.get("mask")
+    keep = arr.data.get("keep_out")
+    if raw is None and keep is None:
+        return None
+    if raw is not None:
+        if not isinstance(raw, str):
+            raise arr.fail("mask", "must be text: one line per core row of '.' (usable), "
+                                   "'#' (keep-out) or '-' (outside the footprint)")
+        lines = [ln.strip() for ln in raw.strip("\n").splitlines() if ln.strip()]
+        if not lines:
+            raise arr.fail("mask", "is empty")
+        width = len(lines[0])
+        for i, ln in enumerate(lines, start=1):
+            bad = sorted(set(ln) - set(MASK_CHARS))
+            if bad:
+                raise arr.fail("mask", f"line {i} holds {bad[0]!r}; use '.' (usable), '#' "
+                                       "(keep-out) or '-' (outside the footprint)")
+            if len(ln) != width:
+                raise arr.fail("mask", f"line {i} has {len(ln)} slots, line 1 has {width}")
+        if len(lines) * width > MAX_SLOTS:
+            raise LimitError(f"{arr.where} mask has {len(lines) * width} slots, the limit is "
+                             f"{MAX_SLOTS}")
+        if rows is not None and rows != len(lines):
+            raise arr.fail("mask", f"has {len(lines)} rows, rows = {rows}")
+        if columns is not None and columns != width:
+            raise arr.fail("mask", f"has {width} columns, columns = {columns}")
+        grid = [list(ln) for ln in lines]
+    else:
+        if rows is None or columns is None:
+            raise arr.fail("keep_out", "needs rows and columns (or a mask)")
+        grid = [["."] * columns for _ in range(rows)]
+    if keep is not None:
+        if not isinstance(keep, list) or not all(
+                isinstance(r, list) and len(r) == 4 and all(isinstance(v, int)
+                                                            and not isinstance(v, bool)
+                                                            for v in r) for r in keep):
+            raise arr.fail("keep_out", "must be a list of [row0, col0, row1, col1] "
+                                       "rectangles (inclusive, row 0 on top)")
+        for r0, c0, r1, c1 in keep:
+            if not (0 <= r0 <= r1 < len(grid) and 0 <= c0 <= c1 < len(grid[0])):
+                raise arr.fail("keep_out", f"[{r0}, {c0}, {r1}, {c1}] lies outside the "
+                                           f"{len(grid)} x {len(grid[0])} core")
+            for r in range(r0, r1 + 1):
+                for c in range(c0, c1 + 1):
+                    grid[r][c] = "#"
+    if not any("." in row for row in grid):
+        raise arr.fail("mask", "leaves no usable slot")
+    return tuple("".join(row) for row in grid)
+
+
+def _placement(source: str, data: dict[str, Any], names: list[str], counts: list[int],
+               rows: int | None, columns: int | None, mask: tuple[str, ...] | None,
+               symmetry: str) -> Placement:
+    """[pins], [groups] and [match], checked against the core."""
+    index = {n: i for i, n in enumerate(names)}
+    pins: list[tuple[str, int, int]] = []
+    raw_pins = data.get("pins", {})
+    if not isinstance(raw_pins, dict):
+        raise SpecError(f"{source}: [pins] must be a table: device = [[row, column], ...]")
+    taken: dict[tuple[int, int], str] = {}
+    for dev, slots in raw_pins.items():
+        where = f"{source}: [pins] {dev}"
+        if dev not in index:
+            raise SpecError(f"{where} is not a device ({', '.join(names)})")
+        if (not isinstance(slots, list) or not all(
+                isinstance(p, list) and len(p) == 2 and all(isinstance(v, int)
+                                                            and not isinstance(v, bool)
+                                                            for v in p) for p in slots)):
+            raise SpecError(f"{where} must be a list of [row, column] slots of the core "
+                            "(row 0 on top)")
+        if len(slots) > counts[index[dev]]:
+            raise SpecError(f"{where} pins {len(slots)} units, the device has "
+                            f"{counts[index[dev]]}")
+        if rows is None or columns is None:
+            raise SpecError(f"{where}: pins need the core's rows and columns (or a mask)")
+        for r, c in slots:
+            if not (0 <= r < rows and 0 <= c < columns):
+                raise SpecError(f"{where} slot [{r}, {c}] lies outside the {rows} x {columns} "
+                                "core")
+            if mask is not None and mask[r][c] != ".":
+                raise SpecError(f"{where} slot [{r}, {c}] is not usable in the mask")
+            if (r, c) in taken:
+                raise SpecError(f"{where} slot [{r}, {c}] is already pinned to "
+                                f"{taken[r, c]!r}")
+            taken[r, c] = dev
+            pins.append((dev, r, c))
+    groups: list[GroupSpec] = []
+    raw_groups = data.get("groups", {})
+    if not isinstance(raw_groups, dict):
+        raise SpecError(f"{source}: [groups] must hold tables [groups.NAME] with devices")
+    seen: dict[str, str] = {}
+    for gname, g in raw_groups.items():
+        where = f"{source}: [groups.{gname}]"
+        if not NAME_RE.match(gname):
+            raise SpecError(f"{where}: the group name must be a name (letters, digits, _)")
+        if not isinstance(g, dict):
+            raise SpecError(f"{where} must be a table with devices = [...]")
+        for key in g:
+            if key not in ("devices", "rows"):
+                hint = (" (one kind per spec: every group shares the spec's unit cell)"
+                        if key == "kind" else "")
+                raise SpecError(f"{where} unknown key {key!r} (allowed: devices, rows){hint}")
+        devs = g.get("devices")
+        if not isinstance(devs, list) or not devs or not all(isinstance(d, str) for d in devs):
+            raise SpecError(f"{where} devices must be a list of device names")
+        for d in devs:
+            if d not in index:
+                raise SpecError(f"{where} device {d!r} is not in [devices]")
+            if d in seen:
+                raise SpecError(f"{where} device {d!r} is already in group {seen[d]!r}; a "
+                                "device belongs to one group")
+            seen[d] = gname
+        grows = g.get("rows")
+        if grows is not None:
+            if (not isinstance(grows, list) or not grows
+                    or not all(isinstance(r, int) and not isinstance(r, bool) for r in grows)):
+                raise SpecError(f"{where} rows must be a list of core row numbers (0 on top)")
+            if rows is None:
+                raise SpecError(f"{where} rows need the core's rows (give rows or a mask)")
+            bad = [r for r in grows if not 0 <= r < rows]
+            if bad:
+                raise SpecError(f"{where} row {bad[0]} is outside the core's rows 0..{rows - 1}")
+            cap = sum((mask[r].count(".") if mask is not None else (columns or 0))
+                      for r in set(grows))
+            need = sum(counts[index[d]] for d in devs)
+            if columns is not None and need > cap:
+                raise SpecError(f"{where} needs {need} slots, its rows hold {cap}")
+            grows = sorted(set(grows))
+        groups.append(GroupSpec(gname, tuple(devs), None if grows is None else tuple(grows)))
+    for g in groups:
+        if g.rows is None:
+            continue
+        for dev, r, c in pins:
+            if dev in g.devices and r not in g.rows:
+                raise SpecError(f"{source}: [pins] {dev} at [{r}, {c}] lies outside the rows "
+                                f"{list(g.rows)} of its group {g.name!r}")
+    if groups:
+        loose = [n for n in names if n not in seen]
+        if loose:
+            raise SpecError(f"{source}: [groups] device {loose[0]!r} is in no group; give "
+                            "every device a group")
+    match: list[tuple[str, str]] = []
+    raw_match = data.get("match", {})
+    if not isinstance(raw_match, dict):
+        raise SpecError(f"{source}: [match] must be a table with pairs = [[A, B], ...]")
+    for key in raw_match:
+        if key != "pairs":
+            raise SpecError(f"{source}: [match] unknown key {key!r} (allowed: pairs)")
+    for p in raw_match.get("pairs", []):
+        if (not isinstance(p, list) or len(p) != 2
+                or not all(isinstance(d, str) and d in index for d in p) or p[0] == p[1]):
+            raise SpecError(f"{source}: [match] pairs must be pairs of two different devices, "
+                            f"got {str(p)[:60]}")
+        match.append((p[0], p[1]))
+    placement = Placement(mask, tuple(pins), symmetry, tuple(groups), tuple(match))
+    if symmetry != "none":
+        _check_symmetry(source, placement, names, counts, rows, columns)
+    return placement
+
+
+def _check_symmetry(source: str, pl: Placement, names: list[str], counts: list[int],
+                    rows: int | None, columns: int | None) -> None:
+    """The footprint and pins must be their own mirror image, and odd counts fit."""
+    if rows is None or columns is None:
+        raise SpecError(f"{source}: [array] symmetry needs rows and columns (or a mask)")
+
+    def mirror(r: int, c: int) -> tuple[int, int]:
+        if pl.symmetry == "x":
+            return r, columns - 1 - c
+        if pl.symmetry == "y":
+            return rows - 1 - r, c
+        return rows - 1 - r, columns - 1 - c
+
+    mask = pl.mask or tuple("." * columns for _ in range(rows))
+    for r in range(rows):
+        for c in range(columns):
+            mr, mc = mirror(r, c)
+            if (mask[r][c] == ".") != (mask[mr][mc] == "."):
+                raise SpecError(f"{source}: [array] symmetry = {pl.symmetry!r}, but slot "
+                                f"[{r}, {c}] is usable and its mirror [{mr}, {mc}] is not")
+    pinned = {(r, c): d for d, r, c in pl.pins}
+    for (r, c), d in pinned.items():
+        m = mirror(r, c)
+        if m != (r, c) and pinned.get(m) != d:
+            raise SpecError(f"{source}: [pins] {d} at [{r}, {c}] under symmetry = "
+                            f"{pl.symmetry!r} needs its mirror [{m[0]}, {m[1]}] pinned to "
+                            f"{d} too")
+    centre = sum(1 for r in range(rows) for c in range(columns)
+                 if mask[r][c] == "." and mirror(r, c) == (r, c) and (r, c) not in pinned)
+    free = [n - sum(1 for d, _, _ in pl.pins if d == name) for name, n in
+            zip(names, counts, strict=True)]
+    odd = sum(1 for n in free if n % 2)
+    if odd > centre:
+        raise SpecError(f"{source}: [array] symmetry = {pl.symmetry!r} leaves {centre} slots "
+                        f"on the axis, but {odd} devices have an odd number of free units: "
+                        "each needs one; make the counts even or the core odd across the axis")
 
 
 def _net_name(where: str, key: str, value: Any) -> str:

@@ -177,38 +177,94 @@ def near_symmetric_assignments(prob: Problem) -> list[tuple[IntArray, IntArray]]
 
 
 def greedy_start(comp: Compiled, rng: np.random.Generator) -> IntArray:
-    """Units dealt over the free orbits from the centre outward in proportion to what
-    each device has left (spare orbits outermost); per orbit, spare = n_dev."""
-    prob = comp.prob
-    n_dev = prob.n_dev
+    """A starting state (per orbit; spare = n_dev) that obeys orbit sizes and row bands.
+
+    First the units are dealt over the orbits from the centre outward in proportion to
+    what each device has left; if that strands a device (its allowed orbits taken), the
+    devices with the fewest allowed orbits are placed first instead. Raises ValueError
+    when no state exists.
+    """
     r2 = (comp.orb_m[:, 3] + comp.orb_m[:, 5]) / np.maximum(comp.orb_size, 1)
     order = np.lexsort((rng.random(comp.n_orb), r2))
+    dev = _deal_orbits(comp, order)
+    if dev is None:
+        dev = _tight_first(comp, order)
+    if dev is None:
+        from placer.errors import SpecError
+
+        raise SpecError("no arrangement fits the pins, row bands, symmetry and counts "
+                        "together; loosen one of them")
+    return dev
+
+
+def _allows(comp: Compiled, o: int, d: int) -> bool:
+    return bool((int(comp.orb_allow[o]) >> d) & 1)
+
+
+def _deal_orbits(comp: Compiled, order: IntArray) -> IntArray | None:
+    n_dev = comp.prob.n_dev
     left = [int(x) for x in comp.left]
-    dev_of = np.full(comp.n_orb, n_dev, dtype=np.int64)
-    size = comp.orb_size
-    need_units = sum(left[:n_dev])
+    total = max(sum(left[:n_dev]), 1)
     given = [0] * n_dev
     placed = 0
+    dev_of = np.full(comp.n_orb, n_dev, dtype=np.int64)
     for o in order:
-        k = int(size[o])
-        options = [d for d in range(n_dev) if left[d] >= k]
-        if not options or placed >= need_units:
-            left[n_dev] -= k
-            continue
-        d = max(options, key=lambda d: ((placed + k) * comp.left[d] / max(need_units, 1)
-                                        - given[d], -d))
+        k = int(comp.orb_size[o])
+        options = [d for d in range(n_dev) if left[d] >= k and _allows(comp, o, d)
+                   and (k == 1 or left[d] % 2 == 0 or left[d] > 2)]
+        if not options or placed >= sum(comp.left[:n_dev]):
+            if left[n_dev] < k or not _allows(comp, o, n_dev):
+                if not options:
+                    return None
+            else:
+                left[n_dev] -= k
+                continue
+        d = max(options, key=lambda d: ((placed + k) * comp.left[d] / total - given[d], -d))
         dev_of[o] = d
         left[d] -= k
         given[d] += k
         placed += k
-    return dev_of
+    return dev_of if all(x == 0 for x in left) else None
+
+
+def _tight_first(comp: Compiled, order: IntArray) -> IntArray | None:
+    """Devices with the fewest allowed orbits first, each taking (innermost first) one
+    single-slot orbit if its count is odd, then mirrored pairs, then single slots."""
+    n_dev = comp.prob.n_dev
+    left = [int(x) for x in comp.left]
+    dev_of = np.full(comp.n_orb, -1, dtype=np.int64)
+    room = [sum(1 for o in order if _allows(comp, int(o), d)) for d in range(n_dev)]
+
+    def take(d: int, size: int, most: int) -> int:
+        got = 0
+        for o in order:
+            if got >= most:
+                break
+            if dev_of[o] < 0 and comp.orb_size[o] == size and _allows(comp, int(o), d):
+                dev_of[o] = d
+                got += 1
+        return got * size
+
+    for d in sorted(range(n_dev), key=lambda d: (room[d], d)):
+        if left[d] % 2:
+            left[d] -= take(d, 1, 1)
+        left[d] -= take(d, 2, left[d] // 2)
+        left[d] -= take(d, 1, left[d])
+        if left[d]:
+            return None
+    for o in order:
+        if dev_of[o] < 0:
+            dev_of[o] = n_dev
+            left[n_dev] -= int(comp.orb_size[o])
+    return dev_of if left[n_dev] == 0 else None
 
 
 def starts(comp: Compiled, rng: np.random.Generator) -> list[tuple[str, IntArray]]:
     """Named starting states (per orbit): the constructions that fit, else a deal."""
     prob = comp.prob
     out: list[tuple[str, IntArray]] = []
-    plain = prob.usable is None and not prob.pinned and prob.symmetry == "none"
+    plain = (prob.usable is None and not prob.pinned and prob.symmetry == "none"
+             and prob.device_rows is None)
     if plain:
         sym = symmetric_assignment(prob)
         if sym is not None:

@@ -186,7 +186,7 @@ def _worker(send: Any, comp: Compiled, start: IntArray, seed: int, deadline: flo
 
 def search(prob: Problem, *, seed: int = 0, time_limit_s: float = 60.0,
            progress: Callable[[str, Keys], None] | None = None,
-           workers: int | None = None) -> SearchResult:
+           workers: int | None = None, exact_nodes: int | None = None) -> SearchResult:
     """Find the best arrangement of ``prob`` under its objective.
 
     Parameters
@@ -203,6 +203,9 @@ def search(prob: Problem, *, seed: int = 0, time_limit_s: float = 60.0,
     workers : int, optional
         Processes running chains (default: two on cores of at least 96 free orbits
         when the machine has two CPUs, else one).
+    exact_nodes : int, optional
+        Node budget of the branch and bound (0: none, only the time limit); default: none
+        up to 10^8 assignments, EXACT_NODE_BUDGET above.
 
     Returns
     -------
@@ -254,7 +257,8 @@ def search(prob: Problem, *, seed: int = 0, time_limit_s: float = 60.0,
         exact_ok = (comp.n_orb <= EXACT_MAX_ORBITS and prob.objective == "lexicographic"
                     and n_assignments(comp) <= EXACT_MAX_ASSIGNMENTS and run.status == 0)
         if exact_ok:
-            budget = 0 if n_assignments(comp) <= EXACT_ALWAYS else EXACT_NODE_BUDGET
+            budget = (exact_nodes if exact_nodes is not None else
+                      0 if n_assignments(comp) <= EXACT_ALWAYS else EXACT_NODE_BUDGET)
             best_dev, best_keys, proven, nodes = _exact(comp, best_dev, best_keys, floor,
                                                         deadline, run, seeds[0], budget)
             found.append((best_dev, best_keys))

@@ -129,13 +129,21 @@ def branch_and_bound(comp: Compiled, incumbent: IntArray, inc: tuple[float, ...]
     hi = [*inc[2:], 0.0, 0.0][:2]
     fp = np.array([comp.hx, comp.hy, comp.g2half, inc[0], inc[1], prob.relative_tie, deadline,
                    lin_cap * (1 + LINEAR_REL), hi[0], hi[1]])
+    usable = prob.usable_mask()
+    par = []
+    for coord in (comp.u, comp.v):
+        p = np.unique(coord[usable] % 2)
+        par.append(int(p[0]) if len(p) == 1 else -1)
+    every = int(len(comp.pairs) == prob.n_dev * (prob.n_dev - 1) // 2)
     ip = np.array([comp.n_orb, prob.n_dev, len(comp.pairs), len(levels), comp.n_units,
-                   node_limit, mode, max(2, min(prob.cancel_order, 4))], dtype=np.int64)
+                   node_limit, mode, max(2, min(prob.cancel_order, 4)), every, *par],
+                  dtype=np.int64)
     out = np.zeros(5)
     status = _native.bnb(np.ascontiguousarray(comp.orb_m), np.ascontiguousarray(comp.orb_hi),
                          comp.orb_size, levels, comp.left, np.ascontiguousarray(comp.pairs),
                          classes, np.ascontiguousarray(comp.base),
-                         np.ascontiguousarray(comp.base_hi), best_dev, fp, ip, out)
+                         np.ascontiguousarray(comp.base_hi), best_dev, fp, ip, out,
+                         comp.orb_allow)
     dev_of = np.empty(comp.n_orb, dtype=np.int64)
     dev_of[levels] = best_dev
     return ExactResult(dev_of, float(out[0]), float(out[1]), status == 0, int(status),

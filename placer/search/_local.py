@@ -83,6 +83,6 @@ def run_stage(comp: Compiled, dev_of: IntArray, stage: str, n_moves: int, seed: 
         np.ascontiguousarray(comp.base), np.ascontiguousarray(comp.base_h), dev_of, fp, ip,
         np.ascontiguousarray(caps, dtype=float), out,
         np.ascontiguousarray(field_products(comp, dev_of)) if field else None,
-        comp.pinned_slot)
+        comp.pinned_slot, comp.orb_allow)
     return StageResult(float(out[0]), int(out[1]), int(out[2]),
                        tuple(float(x) for x in out[3:]), int(status))

@@ -56,6 +56,7 @@ class Compiled:
     left: IntArray              # (n_dev + 1): what the orbits must take
     pairs: IntArray
     pinned_slot: IntArray       # grid -> pinned device, or -1
+    orb_allow: IntArray         # per orbit: a bit for each device (and spare) allowed
     n_units: int
     hx: float
     hy: float
@@ -120,6 +121,9 @@ def compile_problem(prob: Problem) -> Compiled:
     if prob.open_edge is not None and any(prob.open_edge):
         edge = np.array(prob.open_edge, dtype=np.uint8)
         orb_edge = np.array([edge[o].sum() for o in orbits], dtype=np.uint8)
+    allowed = prob.allowed_mask()
+    orb_allow = np.array([np.bitwise_and.reduce(allowed[o]) for o in orbits],
+                         dtype=np.int64).reshape(-1)
     n_units = sum(prob.counts)
     counts = np.array([*prob.counts, int(usable.sum()) - n_units], dtype=np.int64)
     left = counts.copy()
@@ -131,6 +135,7 @@ def compile_problem(prob: Problem) -> Compiled:
         orb_h=orb_hi.astype(float), orb_hi=orb_hi, orb_key=orb_key, key_grid=key_grid,
         orb_edge=orb_edge, base=base, base_h=base_hi.astype(float), base_hi=base_hi,
         counts=counts, left=left, pairs=prob.pair_array(), pinned_slot=pinned,
+        orb_allow=orb_allow,
         n_units=n_units, hx=hx, hy=hy, g2half=0.5 * prob.quadratic_ppm_per_um2,
         slot_xy=np.vstack([u * hx, v * hy]).astype(float))
 

@@ -354,7 +354,8 @@ static void apply_move(state_t *st, const move_t *mv) {
  *        pinned) -> status
  *
  * field: K E of the start state (n_slots x (n_dev + 1)) when the sigma key is used;
- * pinned: the device pinned to each grid slot, -1.
+ * pinned: the device pinned to each grid slot, -1; allow: per orbit, a bit for each
+ * device (bit n_dev: spare) that may take it.
  *
  * Metropolis on one stage: minimise key `stage` (smoothed worst pair) while every key
  * with a finite cap stays within it. dev_of (per orbit) is the start and, on return,
@@ -362,15 +363,15 @@ static void apply_move(state_t *st, const move_t *mv) {
  * out: [best worst key, moves tried, moves accepted, keys of the best state (NK)].
  */
 static PyObject *py_anneal(PyObject *self, PyObject *args) {
-    PyObject *o[20];
-    if (!PyArg_ParseTuple(args, "OOOOOOOOOOOOOOOOOOOO", &o[0], &o[1], &o[2], &o[3], &o[4],
+    PyObject *o[21];
+    if (!PyArg_ParseTuple(args, "OOOOOOOOOOOOOOOOOOOOO", &o[0], &o[1], &o[2], &o[3], &o[4],
                           &o[5], &o[6], &o[7], &o[8], &o[9], &o[10], &o[11], &o[12], &o[13],
-                          &o[14], &o[15], &o[16], &o[17], &o[18], &o[19]))
+                          &o[14], &o[15], &o[16], &o[17], &o[18], &o[19], &o[20]))
         return NULL;
-    buf_t bf[20];
+    buf_t bf[21];
     memset(bf, 0, sizeof(bf));
     if (get_buf(o[15], &bf[15], 0, 8, 1, "iparams") < 0 || get_buf(o[14], &bf[14], 0, 8, 16, "fparams") < 0)
-        { drop(bf, 20); return NULL; }
+        { drop(bf, 21); return NULL; }
     const int64_t *ip = bf[15].b.buf;
     const double *fp = bf[14].b.buf;
     int64_t n_orb = ip[0], n_dev = ip[1], n_pairs = ip[2], n_slots = ip[3], order = ip[4];
@@ -393,15 +394,17 @@ static PyObject *py_anneal(PyObject *self, PyObject *args) {
         get_buf(o[13], &bf[13], 1, 8, n_orb, "dev_of") < 0 ||
         get_buf(o[16], &bf[16], 0, 8, NK, "caps") < 0 ||
         get_buf(o[17], &bf[17], 1, 8, 3 + NK, "out") < 0 ||
-        get_buf(o[19], &bf[19], 0, 8, n_slots, "pinned") < 0) { drop(bf, 20); return NULL; }
+        get_buf(o[19], &bf[19], 0, 8, n_slots, "pinned") < 0 ||
+        get_buf(o[20], &bf[20], 0, 8, n_orb, "allow") < 0) { drop(bf, 21); return NULL; }
+    const int64_t *allow = bf[20].b.buf;
     const uint8_t *orb_edge = NULL;
     if (o[7] != Py_None) {
-        if (get_buf(o[7], &bf[7], 0, 1, n_orb, "orb_edge") < 0) { drop(bf, 20); return NULL; }
+        if (get_buf(o[7], &bf[7], 0, 1, n_orb, "orb_edge") < 0) { drop(bf, 21); return NULL; }
         orb_edge = bf[7].b.buf;
     }
     const double *G0 = NULL;
     if (use_field) {
-        if (get_buf(o[18], &bf[18], 0, 8, n_slots * D1, "field") < 0) { drop(bf, 20); return NULL; }
+        if (get_buf(o[18], &bf[18], 0, 8, n_slots * D1, "field") < 0) { drop(bf, 21); return NULL; }
         G0 = bf[18].b.buf;
     }
     prob_t P = {n_orb, n_dev, n_pairs, n_slots, order, N, bf[0].b.buf, bf[1].b.buf,
@@ -509,6 +512,12 @@ static PyObject *py_anneal(PyObject *self, PyObject *args) {
             }
             if (!found) continue;
         }
+        {   /* every orbit must allow the device it receives (row bands) */
+            int ok = 1;
+            for (int64_t i = 0; i < mv.ns; i++)
+                if (!((allow[mv.t[i]] >> a) & 1) || !((allow[mv.s[i]] >> b) & 1)) ok = 0;
+            if (!ok) continue;
+        }
         tried++;
         /* trial sums: apply, evaluate, undo */
         apply_move(&st, &mv);
@@ -599,7 +608,7 @@ static PyObject *py_anneal(PyObject *self, PyObject *args) {
     free(st.dev_of); free(st.S); free(st.H); free(st.pk); free(st.edge_cnt); free(pk2);
     free(best); free(mov); free(lst); free(lst_len); free(where); free(cnt2);
     if (use_field) { free(st.G); free(st.cov); free(cov2); free(st.ncount); }
-    drop(bf, 20);
+    drop(bf, 21);
     return PyLong_FromLong(status);
 }
 
@@ -612,6 +621,7 @@ typedef struct {
     int64_t n_lev;              /* free orbits, in branching order */
     const int64_t *lev_orb;     /* orbit at each level */
     const int64_t *orb_hi;      /* n_orb x 9 integer higher monomials */
+    const int64_t *allow;       /* per orbit: a bit for each device that may take it */
     int64_t *S;                 /* (n_dev + 1) x NM running sums */
     int64_t *Sh;                /* (n_dev + 1) x 9 running higher sums */
     int64_t T[2];
@@ -630,6 +640,9 @@ typedef struct {
     int status;                 /* 0 running/proven, 1 deadline, 2 signal, 3 node limit */
     int mode;                   /* 0 lexicographic, 1 linear only, 2 the rest under lin_cap */
     double lin_cap;
+    int centre_bound;           /* every pair ranked and the centre fixed (see bounds) */
+    int par[2];                 /* parity of every slot's doubled offset in x, y (-1: mixed) */
+    int64_t Tall[2];            /* first-moment sum of all device units (fixed centre) */
 } bnb_t;
 
 static inline int64_t *SM(const bnb_t *B, int64_t lev, int64_t r, int c, int mx) {
@@ -698,11 +711,50 @@ static double central_bound(const bnb_t *B, int64_t lev, int64_t a, int64_t b, i
     return sqrt(acc);
 }
 
+/* Nearest distance from t to a value in [lo, hi] with parity p (-1: any integer). */
+static double gap_to(double lo, double hi, double t, int p) {
+    double v = t < lo ? lo : (t > hi ? hi : t);
+    if (p < 0) {
+        double f = floor(v), c = ceil(v);
+        double best = INFINITY;
+        if (f >= lo) best = fabs(f - t);
+        if (c <= hi) best = fmin(best, fabs(c - t));
+        return best == INFINITY ? fabs(v - t) : best;
+    }
+    /* integers of parity p nearest to v, kept inside [lo, hi] (lo, hi have parity p) */
+    double k = floor(v);
+    if (((int64_t)k % 2 + 2) % 2 != p) k -= 1;
+    double best = INFINITY;
+    for (int i = 0; i < 3; i++) {
+        double x = k + 2 * i;
+        if (x >= lo - 1e-9 && x <= hi + 1e-9) best = fmin(best, fabs(x - t));
+    }
+    if (best == INFINITY) best = fmin(fabs(lo - t), fabs(hi - t));
+    return best;
+}
+
 /* Lower bounds of the worst linear term and of the later keys over every completion. */
 static void bounds(const bnb_t *B, int64_t lev, double *lb_lin, double *lb) {
     const prob_t *P = B->P;
     double hx = P->hx, hy = P->hy, N = (double)P->N;
     double wl = 0.0, w[3] = {0.0, 0.0, 0.0};
+    if (B->centre_bound) {
+        /* the centre C of all units is a weighted mean of the centroids, so every pair
+         * of device d is at least |c_d - C| apart for one partner: the worst pair is at
+         * least max_d |c_d - C|; each coordinate sum of d lies in its interval and has a
+         * known parity (every slot's doubled offset shares it) */
+        for (int64_t d = 0; d < P->n_dev; d++) {
+            double n = (double)P->counts[d], g[2];
+            for (int c = 0; c < 2; c++) {
+                double lo, hi;
+                range_of(B, lev, d, c, &lo, &hi);
+                int p = B->par[c] < 0 ? -1 : (int)((P->counts[d] * B->par[c]) % 2);
+                g[c] = gap_to(lo, hi, n * (double)B->Tall[c] / N, p) / n;
+            }
+            double dist = sqrt(hx * hx * g[0] * g[0] + hy * hy * g[1] * g[1]);
+            if (dist > wl) wl = dist;
+        }
+    }
     int64_t rem = 0;
     for (int64_t d = 0; d < P->n_dev; d++) rem += B->left[d];
     if (rem > B->maxr) rem = B->maxr;
@@ -824,6 +876,7 @@ static void descend(bnb_t *B, int64_t lev) {
         int64_t d = k < 0 ? first : k;
         if (k >= 0 && d == first) continue;
         if (d < 0 || d >= D1 || B->left[d] < size) continue;
+        if (!((B->allow[o] >> d) & 1)) continue;
         if (d < P->n_dev && B->cls[d] >= 0 && B->first_seen[d] < 0) {
             int ok = 1;                       /* interchangeable devices appear in order */
             for (int64_t e = 0; e < d; e++)
@@ -858,7 +911,7 @@ static void descend(bnb_t *B, int64_t lev) {
 
 /*
  * bnb(orb_m, orb_hi, orb_size, lev_orb, counts_left, pairs, classes, base, base_hi,
- *     best_dev, fparams, iparams, out) -> status
+ *     best_dev, fparams, iparams, out, allow) -> status
  *
  * Depth-first branch and bound over the free orbits in the order lev_orb, each level
  * giving its orbit to a device (or the spare) with units left. best_dev holds the
@@ -868,18 +921,19 @@ static void descend(bnb_t *B, int64_t lev) {
  *          linear cap (mode 2), incumbent order 3, incumbent order 4
  * iparams: n_orb_total, n_dev, n_pairs, n_levels, N, node_limit, mode (0 lexicographic:
  *          linear then the rest; 1 the linear optimum only; 2 the rest among completions
- *          whose linear term is at most the cap), order (2..4)
+ *          whose linear term is at most the cap), order (2..4), every pair ranked (0/1),
+ *          parity of the doubled x and y offsets of every usable slot (-1: mixed)
  * out: best linear, best quadratic, nodes, best order 3, best order 4
  */
 static PyObject *py_bnb(PyObject *self, PyObject *args) {
-    PyObject *o[13];
-    if (!PyArg_ParseTuple(args, "OOOOOOOOOOOOO", &o[0], &o[1], &o[2], &o[3], &o[4], &o[5],
-                          &o[6], &o[7], &o[8], &o[9], &o[10], &o[11], &o[12]))
+    PyObject *o[14];
+    if (!PyArg_ParseTuple(args, "OOOOOOOOOOOOOO", &o[0], &o[1], &o[2], &o[3], &o[4], &o[5],
+                          &o[6], &o[7], &o[8], &o[9], &o[10], &o[11], &o[12], &o[13]))
         return NULL;
-    buf_t bf[13];
+    buf_t bf[14];
     memset(bf, 0, sizeof(bf));
-    if (get_buf(o[11], &bf[11], 0, 8, 8, "iparams") < 0 ||
-        get_buf(o[10], &bf[10], 0, 8, 10, "fparams") < 0) { drop(bf, 13); return NULL; }
+    if (get_buf(o[11], &bf[11], 0, 8, 11, "iparams") < 0 ||
+        get_buf(o[10], &bf[10], 0, 8, 10, "fparams") < 0) { drop(bf, 14); return NULL; }
     const int64_t *ip = bf[11].b.buf;
     const double *fp = bf[10].b.buf;
     int64_t n_orb = ip[0], n_dev = ip[1], n_pairs = ip[2], n_lev = ip[3], N = ip[4];
@@ -895,7 +949,8 @@ static PyObject *py_bnb(PyObject *self, PyObject *args) {
         get_buf(o[7], &bf[7], 0, 8, NM * D1, "base") < 0 ||
         get_buf(o[8], &bf[8], 0, 8, 9 * D1, "base_hi") < 0 ||
         get_buf(o[9], &bf[9], 1, 8, n_lev, "best_dev") < 0 ||
-        get_buf(o[12], &bf[12], 1, 8, 5, "out") < 0) { drop(bf, 13); return NULL; }
+        get_buf(o[12], &bf[12], 1, 8, 5, "out") < 0 ||
+        get_buf(o[13], &bf[13], 0, 8, n_orb, "allow") < 0) { drop(bf, 14); return NULL; }
     const int64_t *left0 = bf[4].b.buf, *base = bf[7].b.buf, *base_hi = bf[8].b.buf;
     int64_t *counts = malloc(sizeof(int64_t) * D1);
     for (int64_t d = 0; d < D1; d++) counts[d] = base[NM * d] + left0[d];
@@ -907,6 +962,7 @@ static PyObject *py_bnb(PyObject *self, PyObject *args) {
     B.n_lev = n_lev;
     B.lev_orb = bf[3].b.buf;
     B.orb_hi = bf[1].b.buf;
+    B.allow = bf[13].b.buf;
     B.cls = bf[6].b.buf;
     B.S = malloc(sizeof(int64_t) * NM * D1);
     memcpy(B.S, base, sizeof(int64_t) * NM * D1);
@@ -927,6 +983,9 @@ static PyObject *py_bnb(PyObject *self, PyObject *args) {
     }
     B.cx = (double)Tall[0] / (double)N;
     B.cy = (double)Tall[1] / (double)N;
+    B.Tall[0] = Tall[0]; B.Tall[1] = Tall[1];
+    B.centre_bound = B.fixed_centre && ip[8];
+    B.par[0] = (int)ip[9]; B.par[1] = (int)ip[10];
     B.maxr = 0;
     for (int64_t lev = 0; lev < n_lev; lev++) B.maxr += P.orb_size[B.lev_orb[lev]];
     int64_t R = B.maxr + 1;
@@ -976,7 +1035,7 @@ static PyObject *py_bnb(PyObject *self, PyObject *args) {
     int status = B.status;
     free(counts); free(B.S); free(B.Sh); free(B.left); free(B.first_seen); free(B.smin);
     free(B.smax); free(B.cur);
-    drop(bf, 13);
+    drop(bf, 14);
     return PyLong_FromLong(status);
 }
 

@@ -24,6 +24,7 @@ __all__ = [
     "rank_key",
     "best_of",
     "SYMMETRIES",
+    "MAX_BANDED_DEVICES",
 ]
 
 IntArray = NDArray[np.int64]
@@ -36,6 +37,9 @@ DEFAULT_RELATIVE_TIE = 1e-9
 #: about a horizontal axis ("y": top-bottom), or through the centre ("point").
 SYMMETRIES = ("none", "x", "y", "point")
 
+#: Devices beyond this count cannot carry row bands (they are bit masks per slot).
+MAX_BANDED_DEVICES = 62
+
 
 @dataclass(frozen=True, eq=False)
 class Problem:
@@ -44,7 +48,8 @@ class Problem:
     Slots are numbered in reading order over a ``rows`` x ``cols`` grid; ``usable``
     masks out keep-out slots (None: all usable); ``pinned`` fixes (slot, device) pairs;
     ``pairs`` lists the device pairs whose errors are ranked (None: every pair);
-    ``symmetry`` is a constraint every result obeys.
+    ``symmetry`` is a constraint every result obeys; ``device_rows`` confines each device
+    to some rows (None: anywhere).
     """
 
     counts: tuple[int, ...]
@@ -65,6 +70,7 @@ class Problem:
     pinned: tuple[tuple[int, int], ...] = ()
     pairs: tuple[tuple[int, int], ...] | None = None
     symmetry: str = "none"
+    device_rows: tuple[tuple[int, ...] | None, ...] | None = None
     holes: bool = True
     meta: dict[str, Any] = field(default_factory=dict)
 
@@ -89,6 +95,21 @@ class Problem:
         pairs = (self.pairs if self.pairs is not None
                  else tuple(combinations(range(self.n_dev), 2)))
         return np.array(pairs, dtype=np.int64).reshape(-1, 2)
+
+    def allowed_mask(self) -> NDArray[np.int64]:
+        """Per slot, a bit for each device allowed there (bit n_dev: a spare slot)."""
+        n = self.n_slots
+        full = (1 << (self.n_dev + 1)) - 1 if self.n_dev < MAX_BANDED_DEVICES else -1
+        out = np.full(n, full, dtype=np.int64)
+        if self.device_rows is None:
+            return out
+        if self.n_dev >= MAX_BANDED_DEVICES:
+            raise ValueError(f"row bands need at most {MAX_BANDED_DEVICES - 1} devices")
+        rows = np.arange(n) // self.cols
+        for d, band in enumerate(self.device_rows):
+            if band is not None:
+                out[~np.isin(rows, band)] &= ~(1 << d)
+        return out
 
     def n_spare(self) -> int:
         """Usable slots no unit takes (they become dummies)."""
