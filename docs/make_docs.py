@@ -67,6 +67,15 @@ def main() -> None:
         blocks["budget"] = block(section(graded, "Electrical budget"))
         cdac = run(["arrange", "samples/sar_cdac.toml", "--out", str(t / "d"), "--quiet"])
         blocks["cdac"] = block(section(cdac, "Electrical budget", "Wrote"))
+        for name, sample in (("fcamp", "fc_amp"), ("lshape", "lshape_cdac"),
+                             ("pinned", "pinned_mirror")):
+            out = run(["arrange", f"samples/{sample}.toml", "--out", str(t / sample),
+                       "--quiet"])
+            pattern = (t / sample / "pattern.txt").read_text().splitlines()
+            blocks[name] = block("\n".join(ln for ln in pattern if not ln.startswith("#"))
+                                 + "\n\n" + section(out, "Linear:", "Routing:").rstrip()
+                                 + "\n" + section(out, "Worst linear", "Assumptions")
+                                 .rstrip())
         for name, sample in (("diffpair", "input_pair"), ("splitmirror", "split_mirror")):
             out = run(["arrange", f"samples/{sample}.toml", "--out", str(t / sample),
                        "--quiet"])

@@ -48,6 +48,7 @@ __all__ = [
     "inl_dnl",
     "within_tolerance",
     "budget",
+    "budget_devices",
     "check_electrical",
 ]
 
@@ -208,6 +209,19 @@ def check_electrical(spec: Spec) -> ElectricalSpec:
     return e
 
 
+def budget_devices(spec: Spec) -> list[str]:
+    """The devices the budget covers: all of them, or with groups the group holding the
+    reference (mirrors, resistors) or the termination (capacitor arrays)."""
+    e = spec.electrical
+    if not spec.placement.groups or e is None:
+        return list(spec.devices)
+    anchor = (e.termination if spec.kind == "cap" else e.reference) or spec.devices[0]
+    for g in spec.placement.groups:
+        if anchor in g.devices:
+            return [d for d in spec.devices if d in g.devices]
+    return list(spec.devices)
+
+
 def budget(pattern: Pattern, spec: Spec, grade: Grade) -> MirrorBudget | DacBudget:
     """The electrical budget of ``pattern`` (in the spec's device order) for its kind."""
     e = check_electrical(spec)
@@ -232,7 +246,7 @@ def _ratio_budget(pattern: Pattern, spec: Spec, grade: Grade, e: ElectricalSpec
     cen = {d.name: np.array(d.centroid_um) for d in grade.devices}
     rng = np.random.default_rng(e.mc_seed)
     lines = []
-    for name in spec.devices:
+    for name in budget_devices(spec):
         if name == ref:
             continue
         p = _pair(grade, name, ref)
@@ -290,8 +304,9 @@ def _ratio_budget(pattern: Pattern, spec: Spec, grade: Grade, e: ElectricalSpec
 
 def _dac_budget(pattern: Pattern, spec: Spec, e: ElectricalSpec) -> DacBudget:
     names = list(spec.devices)
+    covered = budget_devices(spec)
     term = e.termination
-    switched = [n for n in names if n != term]
+    switched = [n for n in covered if n != term]
     weights = {n: c for n, c in zip(names, spec.counts, strict=True)}
     bits = sorted(switched, key=lambda n: (weights[n], names.index(n)))
     if len(bits) > 16:

@@ -7,8 +7,6 @@ inferred from them, and what was recognised (and skipped, and why) is reported.
 
 from __future__ import annotations
 
-import csv
-import io
 import math
 from collections import Counter
 from dataclasses import dataclass, field
@@ -49,12 +47,39 @@ class Recognised:
     notes: list[str] = field(default_factory=list)
 
 
+_X = ("x_um", "x", "xum", "x(um)", "x [um]", "x (um)")
+_Y = ("y_um", "y", "yum", "y(um)", "y [um]", "y (um)")
+_DEV = ("device", "name", "dev", "unit")
+_ORI = ("orientation", "orient", "dir", "direction")
+
+
+def _split(line: str) -> list[str]:
+    """Fields of one CSV line, whichever of ',', ';' or tab separates them."""
+    for sep in (",", ";", "\t"):
+        if sep in line:
+            return [c.strip() for c in line.split(sep)]
+    return [line.strip()]
+
+
+def _is_number(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
+
+
 def detect_format(head: bytes) -> str:
     """'gds', 'csv' or 'pattern' from a file's first bytes.
+
+    A CSV has three or more fields separated by ',', ';' or a tab, and either a header
+    naming x and y or two numbers first.
 
     Examples
     --------
     >>> detect_format(b"x_um,y_um,device\\n0,0,A\\n")
+    'csv'
+    >>> detect_format(b"1.0;2.0;A\\n")
     'csv'
     >>> detect_format(b"A B B A\\n")
     'pattern'
@@ -66,8 +91,11 @@ def detect_format(head: bytes) -> str:
         s = line.strip()
         if not s or s.startswith("#"):
             continue
-        cells = [c.strip().lower() for c in s.split(",")]
-        return "csv" if cells[:2] == ["x_um", "y_um"] else "pattern"
+        cells = [c.lower() for c in _split(s)]
+        if len(cells) < 3:
+            return "pattern"
+        header = any(c in _X for c in cells) and any(c in _Y for c in cells)
+        return "csv" if header or (_is_number(cells[0]) and _is_number(cells[1])) else "pattern"
     return "pattern"
 
 
@@ -82,68 +110,89 @@ def _read_bytes(path: Path, limit: int) -> bytes:
 
 
 def read_csv_units(text: str, source: str) -> list[Unit]:
-    """Units from CSV rows ``x_um,y_um,device[,orientation]``; device '.' is a dummy."""
-    try:
-        rows = list(csv.reader(io.StringIO(text.lstrip("\ufeff"), newline="")))
-    except csv.Error as err:
-        raise LayoutError(f"{source}: not a readable CSV: {err}") from err
+    """Units from CSV rows of x (um), y (um), device and an optional orientation.
+
+    The first row may be a header naming the columns in any case and order (x_um or x,
+    y_um or y, device or name, orientation); without one the columns are taken in that
+    order. Fields are separated by ',', ';' or a tab; device '.' is a dummy.
+    """
     units: list[Unit] = []
-    header_seen = False
-    for lineno, row in enumerate(rows, start=1):
-        cells = [c.strip() for c in row]
-        if not cells or not any(cells) or cells[0].startswith("#"):
+    cols: dict[str, int] | None = None
+    for lineno, line in enumerate(text.lstrip("\ufeff").splitlines(), start=1):
+        s = line.strip()
+        if not s or s.startswith("#"):
             continue
-        if not header_seen:
-            if [c.lower() for c in cells[:3]] != ["x_um", "y_um", "device"]:
-                raise LayoutError(f"{source}:{lineno}: the first row must be the header "
-                                  "x_um,y_um,device[,orientation]")
-            header_seen = True
-            continue
-        if len(cells) not in (3, 4):
-            raise LayoutError(f"{source}:{lineno}: expected 3 or 4 fields "
-                              f"(x_um,y_um,device[,orientation]), got {len(cells)}")
+        cells = _split(s)
+        if cols is None:
+            low = [c.lower() for c in cells]
+            if _is_number(cells[0]) and len(cells) > 1 and _is_number(cells[1]):
+                cols = {"x": 0, "y": 1, "device": 2, "orientation": 3}
+            else:
+                cols = {}
+                for key, names in (("x", _X), ("y", _Y), ("device", _DEV),
+                                   ("orientation", _ORI)):
+                    hit = [i for i, c in enumerate(low) if c in names]
+                    if hit:
+                        cols[key] = hit[0]
+                missing = [k for k in ("x", "y", "device") if k not in cols]
+                if missing:
+                    raise LayoutError(f"{source}:{lineno}: the header names no {missing[0]} "
+                                      "column (use x_um, y_um, device[, orientation])")
+                continue
+        need = max(cols["x"], cols["y"], cols["device"]) + 1
+        if len(cells) < need:
+            raise LayoutError(f"{source}:{lineno}: expected at least {need} fields (x, y, "
+                              f"device[, orientation]), got {len(cells)}")
+        xs, ys = cells[cols["x"]], cells[cols["y"]]
         try:
-            x, y = float(cells[0]), float(cells[1])
+            x, y = float(xs), float(ys)
         except ValueError:
-            raise LayoutError(f"{source}:{lineno}: x_um and y_um must be numbers, got "
-                              f"{cells[0]!r}, {cells[1]!r}") from None
+            raise LayoutError(f"{source}:{lineno}: x and y must be numbers, got "
+                              f"{xs[:20]!r}, {ys[:20]!r}") from None
         if not (math.isfinite(x) and math.isfinite(y)) or max(abs(x), abs(y)) > 1e6:
             raise LayoutError(f"{source}:{lineno}: coordinates must be finite and within "
-                              "1 m, got {x}, {y}")
-        name = cells[2]
+                              f"1 m, got {x:g}, {y:g}")
+        name = cells[cols["device"]]
         if name != "." and not NAME_RE.match(name):
-            raise LayoutError(f"{source}:{lineno}: device {name!r} is not a name (letter, then "
-                              "letters, digits, _) or '.' for a dummy")
-        mark_text = cells[3] if len(cells) == 4 else ""
+            raise LayoutError(f"{source}:{lineno}: device {name[:40]!r} is not a name (letter, "
+                              "then letters, digits, _) or '.' for a dummy")
+        o = cols.get("orientation")
+        mark_text = cells[o] if o is not None and o < len(cells) else ""
         if mark_text not in ("", ">", "<"):
             raise LayoutError(f"{source}:{lineno}: orientation must be '>', '<' or empty, got "
-                              f"{mark_text!r}")
+                              f"{mark_text[:10]!r}")
         units.append(Unit(x, y, None if name == "." else name,
                           {"": 0, ">": 1, "<": -1}[mark_text]))
         if len(units) > MAX_SLOTS:
             raise LimitError(f"{source}: more than {MAX_SLOTS} units, the limit")
-    if not header_seen:
-        raise LayoutError(f"{source}: empty CSV: give the header x_um,y_um,device and a row "
-                          "per unit")
+    if not units:
+        raise LayoutError(f"{source}: empty CSV: give a row per unit (x_um, y_um, device"
+                          "[, orientation])")
     return units
 
 
 def gds_units(lib: StreamLibrary, source: str, *, cell: str | None,
               mapping: dict[str, str], label_layer: tuple[int, int],
               dummy_cells: set[str], mos: bool, notes: list[str]) -> list[Unit]:
-    """Units of a GDSII library: leaf cells placed by reference below the top cell.
+    """Units of a GDSII library, below its top cell.
 
-    A unit is placed where its reference's origin lands after the hierarchy is flattened;
-    its device comes from a label on the label layer lying on it, else from ``mapping``
-    (cell name -> device); unlabelled units of a dummy cell (``dummy_cells``, or any cell
-    whose name contains DUMMY) are dummies. Orientation comes from the reference's
-    transform: a finger whose x axis points left is '<'.
+    Going down the hierarchy, a placed cell is a unit when one device label lies on it,
+    when ``mapping`` or ``dummy_cells`` names it (or its name contains DUMMY), or when it
+    places no cell; a cell covering several labels (an array, a row, a wrapper) is
+    looked through. So a unit cell may place sub-cells of its own (contacts, say). A
+    unit sits at the centre of its bounding box after the hierarchy is flattened (cells
+    drawn about a corner land where they are drawn); its device comes from a label on
+    the label layer lying on it,
+    else from ``mapping`` (cell name -> device); unlabelled units of a dummy cell
+    (``dummy_cells``, or any cell whose name contains DUMMY) are dummies. Orientation
+    comes from the reference's transform, by the nearest quarter turn: a finger whose x
+    axis points left is '<'; one turned by 90 or 270 degrees keeps no orientation (noted).
     """
     cells = lib.structures
     if cell is not None:
         if cell not in cells:
-            raise LayoutError(f"{source}: no cell {cell!r} (cells: "
-                              f"{', '.join(sorted(cells)[:10])})")
+            raise LayoutError(f"{source}: no cell {cell[:64]!r} (cells: "
+                              f"{', '.join(sorted(cells)[:10])[:300]})")
         top = cell
     else:
         referenced = {r.cell for s in cells.values() for r in s.refs}
@@ -152,42 +201,130 @@ def gds_units(lib: StreamLibrary, source: str, *, cell: str | None,
         if not with_refs and len(tops) == 1:
             with_refs = tops
         if len(with_refs) != 1:
-            found = ", ".join(with_refs or tops) or "none"
+            found = ", ".join(with_refs or tops)[:300] or "none"
             raise LayoutError(f"{source}: cannot tell the top cell (candidates: {found}); "
                               "name it with --cell")
         top = with_refs[0]
     if not cells[top].refs:
-        raise LayoutError(f"{source}: cell {top!r} places no unit cells by reference")
+        raise LayoutError(f"{source}: cell {top[:64]!r} places no unit cells by reference")
+    boxes = _full_boxes(lib, source)
+    labelled: dict[str, bool] = {}
+
+    def has_label(name: str, depth: int = 0) -> bool:
+        if name not in labelled:
+            if depth > 64:
+                raise LayoutError(f"{source}: references nest deeper than 64 levels (a cycle?)")
+            c = cells[name]
+            labelled[name] = (any((t.layer, t.texttype) == label_layer for t in c.texts)
+                              or any(has_label(r.cell, depth + 1) for r in c.refs))
+        return labelled[name]
 
     placed: list[tuple[str, float, float, bool, float]] = []
     texts: list[tuple[str, float, float]] = []
     skipped_texts: Counter[tuple[int, int]] = Counter()
+    visits = [0]
 
-    def walk(name: str, tx: float, ty: float, refl: bool, ang: float, mag: float,
-             depth: int) -> None:
-        if depth > 64:
-            raise LayoutError(f"{source}: references nest deeper than 64 levels (a cycle?)")
+    def count(what: str) -> None:
+        visits[0] += 1
+        if visits[0] > 4 * MAX_SLOTS:
+            raise LimitError(f"{source}: the hierarchy places more than {4 * MAX_SLOTS} "
+                             f"{what} once flattened, the limit")
+
+    def gather(name: str, tx: float, ty: float, refl: bool, ang: float, mag: float,
+               depth: int) -> None:
+        """Every device label, flattened (only subtrees that hold one are visited)."""
         s = cells[name]
         for t in s.texts:
             x, y = _apply(t.x, t.y, tx, ty, refl, ang, mag)
             if (t.layer, t.texttype) == label_layer:
                 texts.append((t.text, x, y))
-            else:
+            elif depth == 0:
                 skipped_texts[(t.layer, t.texttype)] += 1
         for r in s.refs:
+            if not has_label(r.cell):
+                continue
+            count("labelled cells")
             x, y = _apply(r.x, r.y, tx, ty, refl, ang, mag)
             a = ang + (-r.angle_deg if refl else r.angle_deg)
-            if not cells[r.cell].refs:
-                placed.append((r.cell, x, y, refl ^ r.reflect, a))
+            gather(r.cell, x, y, refl ^ r.reflect, a, mag * r.mag, depth + 1)
+
+    gather(top, 0.0, 0.0, False, 0.0, 1.0, 0)
+    lab_xy = np.array([(x, y) for _, x, y in texts]).reshape(-1, 2)
+    order = np.argsort(lab_xy[:, 0], kind="stable")
+    lab_sorted = lab_xy[order]
+
+    def labels_in(box: tuple[float, float, float, float]) -> int:
+        lo = np.searchsorted(lab_sorted[:, 0], box[0] - 1e-9, side="left")
+        hi = np.searchsorted(lab_sorted[:, 0], box[2] + 1e-9, side="right")
+        ys = lab_sorted[lo:hi, 1]
+        return int(np.sum((ys >= box[1] - 1e-9) & (ys <= box[3] + 1e-9)))
+
+    named = set(mapping) | set(dummy_cells)
+
+    def walk(name: str, tx: float, ty: float, refl: bool, ang: float, mag: float,
+             depth: int) -> None:
+        if depth > 64:
+            raise LayoutError(f"{source}: references nest deeper than 64 levels (a cycle?)")
+        for r in cells[name].refs:
+            count("cells")
+            x, y = _apply(r.x, r.y, tx, ty, refl, ang, mag)
+            a = ang + (-r.angle_deg if refl else r.angle_deg)
+            rf, m = refl ^ r.reflect, mag * r.mag
+            child = cells[r.cell]
+            box = boxes.get(r.cell)
+            if box is None:                          # nothing drawn: not a unit
+                continue
+            corners = [_apply(cx, cy, x, y, rf, a, m) for cx in (box[0], box[2])
+                       for cy in (box[1], box[3])]
+            inst = (min(c[0] for c in corners), min(c[1] for c in corners),
+                    max(c[0] for c in corners), max(c[1] for c in corners))
+            n_labels = labels_in(inst)
+            unit = (not child.refs or r.cell in named or "DUMMY" in r.cell.upper()
+                    or n_labels == 1)
+            if unit:
+                placed.append((r.cell, (inst[0] + inst[2]) / 2, (inst[1] + inst[3]) / 2, rf, a))
+                if len(placed) > MAX_SLOTS:
+                    raise LimitError(f"{source}: more than {MAX_SLOTS} unit cells, the limit")
             else:
-                walk(r.cell, x, y, refl ^ r.reflect, a, mag * r.mag, depth + 1)
+                walk(r.cell, x, y, rf, a, m, depth + 1)
 
     walk(top, 0.0, 0.0, False, 0.0, 1.0, 0)
-    notes.append(f"top cell {top!r}: {len(placed)} unit references")
+    notes.append(f"top cell {top[:64]!r}: {len(placed)} unit references")
     for (layer, dtype), k in sorted(skipped_texts.items()):
         notes.append(f"skipped {k} labels on layer {layer}/{dtype} (labels are read on "
                      f"{label_layer[0]}/{label_layer[1]})")
     return _label_units(placed, texts, mapping, dummy_cells, mos, source, notes)
+
+
+def _full_boxes(lib: StreamLibrary, source: str) -> dict[str, tuple[float, float, float,
+                                                                      float]]:
+    """Each cell's bounding box with its sub-cells, in its own user units."""
+    cells = lib.structures
+    out: dict[str, tuple[float, float, float, float] | None] = {}
+
+    def box(name: str, depth: int) -> tuple[float, float, float, float] | None:
+        if name in out:
+            return out[name]
+        if depth > 64:
+            raise LayoutError(f"{source}: references nest deeper than 64 levels (a cycle?)")
+        s = cells[name]
+        b = s.bbox
+        for r in s.refs:
+            child = box(r.cell, depth + 1)
+            if child is None:
+                continue
+            corners = [_apply(cx, cy, r.x, r.y, r.reflect, r.angle_deg, r.mag)
+                       for cx in (child[0], child[2]) for cy in (child[1], child[3])]
+            xs, ys = [c[0] for c in corners], [c[1] for c in corners]
+            cb = (min(xs), min(ys), max(xs), max(ys))
+            b = cb if b is None else (min(b[0], cb[0]), min(b[1], cb[1]), max(b[2], cb[2]),
+                                      max(b[3], cb[3]))
+        out[name] = b
+        return b
+
+    for name in cells:
+        box(name, 0)
+    return {k: v for k, v in out.items() if v is not None}
 
 
 def _apply(x: float, y: float, tx: float, ty: float, refl: bool, ang: float,
@@ -225,6 +362,7 @@ def _label_units(placed: list[tuple[str, float, float, bool, float]],
     units = []
     doubles = []
     unknown = []
+    turned: list[str] = []
     for i, (cell, x, y, _refl, ang) in enumerate(placed):
         labels = sorted(set(owner.get(i, [])))
         if len(labels) > 1:
@@ -240,11 +378,15 @@ def _label_units(placed: list[tuple[str, float, float, bool, float]],
             unknown.append(f"({x:.4g}, {y:.4g}) um [{cell}]")
             continue
         if name is not None and not NAME_RE.match(name):
-            raise LayoutError(f"{source}: label {name!r} at ({x:.4g}, {y:.4g}) um is not a "
-                              "device name")
+            raise LayoutError(f"{source}: label {name[:40]!r} at ({x:.4g}, {y:.4g}) um is "
+                              "not a device name")
         mark = 0
+        turn = round((ang % 360.0) / 90.0) % 4          # nearest quarter turn
         if mos and name is not None:
-            mark = -1 if math.cos(math.radians(ang)) < 0 else 1
+            if turn in (1, 3):                   # along y: no '>' or '<' to keep
+                turned.append(f"({x:.4g}, {y:.4g}) um")
+            else:
+                mark = -1 if turn == 2 else 1
         units.append(Unit(x, y, name, mark, cell))
     if doubles:
         raise LayoutError(f"{source}: {len(doubles)} units carry two labels: "
@@ -252,21 +394,78 @@ def _label_units(placed: list[tuple[str, float, float, bool, float]],
     if unknown:
         raise LayoutError(f"{source}: {len(unknown)} units have no label and no --map "
                           f"CELL=DEVICE: " + "; ".join(unknown[:5]))
+    if turned:
+        notes.append(f"{len(turned)} MOS fingers are turned by 90 or 270 degrees (placer's "
+                     "patterns hold fingers along x): their orientation is not recorded, e.g. "
+                     + "; ".join(turned[:2]))
+    lowered: dict[str, str] = {}
+    for u in units:
+        if u.device is None:
+            continue
+        low = u.device.lower()
+        if low in lowered and lowered[low] != u.device:
+            raise LayoutError(f"{source}: device labels {lowered[low]!r} and {u.device!r} "
+                              "differ only by case; name them apart (or alike) in the layout")
+        lowered[low] = u.device
     return units
 
 
-def _pitch(values: np.ndarray) -> float:
-    """Smallest spacing (over 1 nm) of the distinct coordinates, 0 if there is only one.
+#: A unit within this fraction of a pitch of a grid point is snapped to it (and listed
+#: when it is off by more than SNAP_NOTE); beyond, it is reported as off the grid.
+SNAP_TOLERANCE = 0.25
+SNAP_NOTE = 0.01
+
+
+def _lattice(values: np.ndarray) -> tuple[float, float]:
+    """Pitch and one grid point of coordinates on a lattice with some units a little off.
+
+    Candidate pitches are the most common spacings between neighbouring coordinates;
+    each lattice is placed where most coordinates sit, and scored by the share of
+    coordinates within SNAP_NOTE of it; the largest pitch scoring at least 90 % of the
+    best wins. So one stray unit neither shrinks the pitch nor moves the grid, and a
+    staggered layout gets the finer grid it needs.
 
     Examples
     --------
-    >>> _pitch(np.array([0.0, 2.5, 5.0, 10.0]))
+    >>> _lattice(np.array([0.0, 1.0, 2.0, 3.05, 4.0, 5.0]))
+    (1.0, 0.0)
+    >>> _lattice(np.array([10.0, 12.5, 15.0, 20.0]))[0]
     2.5
     """
-    u = np.unique(np.round(values, 3))
+    v = np.asarray(values, dtype=float)
+    u = np.unique(np.round(v, 4))
+    if len(u) < 2:
+        return 0.0, float(u[0]) if len(u) else 0.0
     diffs = np.diff(u)
-    diffs = diffs[diffs > 0.001]
-    return float(np.round(diffs.min(), 3)) if len(diffs) else 0.0
+    diffs = diffs[diffs > 1e-3]
+    if len(diffs) == 0:
+        return 0.0, float(u[0])
+    vals, freq = np.unique(np.round(diffs, 3), return_counts=True)
+    cands = [float(x) for x in vals[np.argsort(-freq, kind="stable")][:12]]
+    scored = []
+    for p in cands:
+        frac = ((v - v.min()) / p) % 1.0
+        bins, counts = np.unique(np.round(frac, 3) % 1.0, return_counts=True)
+        shift = float(bins[np.argmax(counts)])             # where most units sit
+        resid = ((v - v.min()) / p - shift + 0.5) % 1.0 - 0.5
+        scored.append((float(np.mean(np.abs(resid) <= SNAP_NOTE)), p, shift))
+    top = max(t for t, _, _ in scored)
+    # the largest pitch that fits (almost) as many units as tightly as the best does: a
+    # fraction of the true pitch fits just as well, a stray spacing does not
+    _, p, shift = max((x for x in scored if x[0] >= 0.9 * top), key=lambda x: x[1])
+    origin = v.min() + shift * p
+    # refine: a least-squares line through the units the lattice explains
+    k = np.round((v - origin) / p)
+    inl = np.abs((v - origin) / p - k) <= SNAP_NOTE
+    if len(np.unique(k[inl])) >= 2:
+        slope, icept = np.polyfit(k[inl], v[inl], 1)
+        p, origin = float(slope), float(icept)
+    return round(p, 6), round(float(origin), 6) + 0.0
+
+
+def _pitch(values: np.ndarray) -> float:
+    """The lattice pitch of ``values`` (0 if there is only one distinct value)."""
+    return _lattice(values)[0]
 
 
 def units_to_pattern(units: list[Unit], source: str, notes: list[str],
@@ -276,22 +475,33 @@ def units_to_pattern(units: list[Unit], source: str, notes: list[str],
     if not units:
         raise LayoutError(f"{source}: no units")
     xy = np.array([(u.x, u.y) for u in units])
-    px, py = _pitch(xy[:, 0]), _pitch(xy[:, 1])
+    (px, gx), (py, gy) = _lattice(xy[:, 0]), _lattice(xy[:, 1])
     if spec is not None:
         sx, sy = spec.array.pitch_um
         px = px or sx
         py = py or sy
     px, py = px or 1.0, py or 1.0
-    x0, y0 = xy[:, 0].min(), xy[:, 1].max()
-    col = np.round((xy[:, 0] - x0) / px).astype(int)
-    row = np.round((y0 - xy[:, 1]) / py).astype(int)
-    tol = 0.01
-    off = np.hypot((xy[:, 0] - x0) / px - col, (y0 - xy[:, 1]) / py - row) > tol
-    if off.any():
-        where = "; ".join(f"({units[i].x:.4g}, {units[i].y:.4g}) um"
-                          for i in np.nonzero(off)[0][:5])
-        raise LayoutError(f"{source}: {int(off.sum())} units are off the {px:.4g} x "
-                          f"{py:.4g} um grid (mixed pitches?): {where}")
+    fx = (xy[:, 0] - gx) / px
+    fy = (gy - xy[:, 1]) / py
+    col = np.round(fx).astype(int)
+    row = np.round(fy).astype(int)
+    col -= col.min()
+    row -= row.min()
+    x0 = float(np.round(gx + (np.round(fx).min()) * px, 6))
+    y0 = float(np.round(gy - (np.round(fy).min()) * py, 6))
+    off = np.hypot(fx - np.round(fx), fy - np.round(fy))
+    far = off > SNAP_TOLERANCE
+    if far.any():
+        where = "; ".join(f"({units[i].x:.4g}, {units[i].y:.4g}) um" for i in
+                          np.nonzero(far)[0][:5])
+        raise LayoutError(f"{source}: {int(far.sum())} units lie more than "
+                          f"{SNAP_TOLERANCE:.0%} of a pitch off the {px:.4g} x {py:.4g} um "
+                          f"grid the others share: {where}")
+    near = np.nonzero(off > SNAP_NOTE)[0]
+    if len(near):
+        notes.append(f"snapped {len(near)} units onto the grid: " + "; ".join(
+            f"({units[i].x:.4g}, {units[i].y:.4g}) um by {off[i]:.1%} of a pitch"
+            for i in near[:5]) + (" ..." if len(near) > 5 else ""))
     rows, cols = int(row.max()) + 1, int(col.max()) + 1
     if rows * cols > MAX_SLOTS:
         raise LimitError(f"{source}: the units span {rows} x {cols} slots, more than the "

@@ -12,7 +12,7 @@ from __future__ import annotations
 import struct
 from dataclasses import dataclass, field
 
-from placer.errors import PlacerError
+from placer.errors import LimitError, PlacerError
 
 __all__ = ["LayoutError", "Ref", "Text", "Structure", "StreamLibrary", "parse_stream",
            "is_gdsii"]
@@ -27,6 +27,11 @@ _PATHTYPE, _BOX, _ELFLAGS, _PLEX, _PROPATTR, _PROPVALUE = 0x21, 0x2D, 0x26, 0x2F
 _ELEMENTS = {_BOUNDARY, _PATH, _SREF, _AREF, _TEXT, _BOX, _NODE}
 _MAX_STRUCTURES = 100_000
 _MAX_ELEMENTS = 5_000_000
+#: References after expanding arrays, over the whole file.
+MAX_REFS = 400_000
+#: Sane database units: 1 pm to 1 mm per database unit, user unit 1 pm to 1 m.
+_DB_M = (1e-12, 1e-3)
+_USER_M = (1e-12, 1.0)
 
 
 class LayoutError(PlacerError):
@@ -58,12 +63,14 @@ class Text:
 
 @dataclass
 class Structure:
-    """One cell: its references, labels and whether it holds any geometry."""
+    """One cell: its references, labels, how many shapes it holds and their bounding box
+    (user units; None without shapes)."""
 
     name: str
     refs: list[Ref] = field(default_factory=list)
     texts: list[Text] = field(default_factory=list)
     shapes: int = 0
+    bbox: tuple[float, float, float, float] | None = None
 
 
 @dataclass
@@ -138,6 +145,7 @@ def parse_stream(data: bytes, source: str) -> StreamLibrary:
     structures: dict[str, Structure] = {}
     current: Structure | None = None
     elements = 0
+    total_refs = 0
     while True:
         rtype, dtype, body, at = record()
         if rtype == _LIBNAME:
@@ -149,6 +157,9 @@ def parse_stream(data: bytes, source: str) -> StreamLibrary:
             if not (db_in_user > 0 and db_in_m > 0):
                 raise fail("UNITS are not positive", at)
             user_in_m = db_in_m / db_in_user
+            if not (_DB_M[0] <= db_in_m <= _DB_M[1] and _USER_M[0] <= user_in_m <= _USER_M[1]):
+                raise fail(f"UNITS of {db_in_m:.3g} m per database unit and {user_in_m:.3g} "
+                           "m per user unit are outside 1 pm..1 mm and 1 pm..1 m", at)
         elif rtype == _ENDLIB:
             if current is not None:
                 raise fail(f"ENDLIB inside structure {current.name}", at)
@@ -176,7 +187,12 @@ def parse_stream(data: bytes, source: str) -> StreamLibrary:
             elements += 1
             if elements > _MAX_ELEMENTS:
                 raise LayoutError(f"{source}: more than {_MAX_ELEMENTS} elements, the limit")
-            _element(rtype, current, record, ascii_of, ints, fail, db_in_user)
+            before = len(current.refs)
+            _element(rtype, current, record, ascii_of, ints, fail, db_in_user, source)
+            total_refs += len(current.refs) - before
+            if total_refs > MAX_REFS:
+                raise LayoutError(f"{source}: more than {MAX_REFS} references after "
+                                  "expanding arrays, the limit")
         elif rtype in (_PROPATTR, _PROPVALUE):
             continue
         else:
@@ -191,7 +207,8 @@ def parse_stream(data: bytes, source: str) -> StreamLibrary:
     return StreamLibrary(name, db_in_user, user_in_m, structures)
 
 
-def _element(kind: int, cell: Structure, record, ascii_of, ints, fail, db: float) -> None:
+def _element(kind: int, cell: Structure, record, ascii_of, ints, fail, db: float,
+             source: str) -> None:
     """Read one element up to ENDEL into ``cell``."""
     layer = texttype = 0
     xy: tuple[int, ...] = ()
@@ -201,6 +218,7 @@ def _element(kind: int, cell: Structure, record, ascii_of, ints, fail, db: float
     angle = 0.0
     mag = 1.0
     colrow = (1, 1)
+    width = 0
     while True:
         rtype, _, body, at = record()
         if rtype == _ENDEL:
@@ -216,7 +234,10 @@ def _element(kind: int, cell: Structure, record, ascii_of, ints, fail, db: float
         elif rtype == _SNAME:
             sname = ascii_of(body, at)
         elif rtype == _STRING:
-            text = ascii_of(body, at)
+            # a text on any layer may hold any bytes; only names that match matter
+            text = body.rstrip(b"\0").decode("latin-1")
+        elif rtype == _WIDTH:
+            width = ints(body, 4, at)[0]
         elif rtype == _STRANS:
             if len(body) != 2:
                 raise fail("STRANS is not 2 bytes", at)
@@ -245,8 +266,9 @@ def _element(kind: int, cell: Structure, record, ascii_of, ints, fail, db: float
             if len(xy) != 6:
                 raise fail("AREF needs three XY points", at)
             cols, rows = colrow
-            if cols * rows > 1_000_000:
-                raise fail("AREF with more than a million instances", at)
+            if cols * rows > MAX_REFS:
+                raise LimitError(f"{source}: an AREF of {cols} x {rows} instances exceeds the "
+                                 f"limit of {MAX_REFS} references")
             ox, oy = xy[0], xy[1]
             cx, cy = (xy[2] - ox) / cols, (xy[3] - oy) / cols
             rx, ry = (xy[4] - ox) / rows, (xy[5] - oy) / rows
@@ -260,3 +282,11 @@ def _element(kind: int, cell: Structure, record, ascii_of, ints, fail, db: float
         cell.texts.append(Text(text, layer, texttype, xy[0] * db, xy[1] * db))
     else:
         cell.shapes += 1
+        if len(xy) >= 2:
+            xs, ys = xy[0::2], xy[1::2]
+            grow = abs(width) / 2 if kind == _PATH else 0
+            box = (min(xs) - grow) * db, (min(ys) - grow) * db, (max(xs) + grow) * db, \
+                (max(ys) + grow) * db
+            b = cell.bbox
+            cell.bbox = box if b is None else (min(b[0], box[0]), min(b[1], box[1]),
+                                               max(b[2], box[2]), max(b[3], box[3]))

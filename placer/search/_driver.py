@@ -44,8 +44,11 @@ MOVES_PER_ORBIT = 300
 MIN_MOVES = 20_000
 MAX_FIRST_MOVES = 3_000_000
 #: Chains stop after this many in a row bring no progress: a result better than the best
-#: by more than PROGRESS (relative, at the first key that differs).
+#: by more than PROGRESS (relative, at the first key that differs). Small cores (up to
+#: SMALL_ORBITS free orbits) are cheap and get more patience.
 QUIET_CHAINS = 2
+QUIET_CHAINS_SMALL = 4
+SMALL_ORBITS = 80
 PROGRESS = 1e-3
 MAX_CHAINS = 12
 #: Branch and bound runs on cores with at most this many free orbits and assignments;
@@ -54,7 +57,7 @@ MAX_CHAINS = 12
 EXACT_MAX_ORBITS = 80
 EXACT_MAX_ASSIGNMENTS = 10 ** 15
 EXACT_ALWAYS = 10 ** 8
-EXACT_NODE_BUDGET = 3_000_000
+EXACT_NODE_BUDGET = 1_000_000
 #: A second worker process runs its own chains on cores at least this large.
 PARALLEL_MIN_ORBITS = 96
 #: Two values of a key closer than this (absolute) are equal, whatever the relative tie.
@@ -162,7 +165,8 @@ def _chains(comp: Compiled, start: IntArray, seed: int, deadline: float, floor: 
         quiet = 0 if progressed(prob, keys, best_keys, PROGRESS) else quiet + 1
         if compare(prob, keys, best_keys) < 0:
             best_dev, best_keys = dev, keys
-        if run.status or quiet >= QUIET_CHAINS:
+        if run.status or quiet >= (QUIET_CHAINS_SMALL if comp.n_orb <= SMALL_ORBITS
+                                   else QUIET_CHAINS):
             break
         if (best_keys.linear_um <= floor * (1 + LINEAR_REL) + ABS_EPS
                 and best_keys.quadratic_ppm <= ABS_EPS and all(h <= ABS_EPS

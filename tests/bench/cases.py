@@ -19,9 +19,24 @@ def ratio(counts: list[int], prefix: str = "M") -> str:
 
 def _core(rows: int, cols: int, dummies: str = "none", pitch: tuple[float, float] = (1.0, 1.0),
           kind: str = "mos") -> str:
-    return (f'kind = "{kind}"\n' if kind != "mos" else "") + (
+    # [array] after [devices]; the kind goes first (see _spec)
+    return (f"#kind {kind}\n" if kind != "mos" else "") + (
         f'[array]\nrows = {rows}\ncolumns = {cols}\ndummies = "{dummies}"\n'
         f"pitch_um = [{pitch[0]}, {pitch[1]}]\n")
+
+
+def _spec(text: str) -> str:
+    """Move a '#kind K' marker line to a top-level kind = "K" line."""
+    lines = text.splitlines()
+    kinds = [ln.split()[1] for ln in lines if ln.startswith("#kind ")]
+    body = "\n".join(ln for ln in lines if not ln.startswith("#kind "))
+    return (f'kind = "{kinds[0]}"\n' if kinds else "") + body + "\n"
+
+
+def _sample(name: str) -> str:
+    from pathlib import Path
+
+    return (Path(__file__).resolve().parents[2] / "samples" / f"{name}.toml").read_text()
 
 
 # (label, spec text, seconds the targets allow)
@@ -57,7 +72,12 @@ CASES: list[tuple[str, str, float]] = [
      + _core(32, 32, "ring", kind="cap"), 10.0),
     ("12-bit cap array 64x64 + ring", "[devices]\n" + binary(12) + "\n"
      + _core(64, 64, "ring", kind="cap"), 30.0),
+    ("groups: amplifier pair, tail, load (samples/fc_amp)", "@fc_amp", 2.0),
+    ("pinned: mirror with a pinned finger (samples/pinned_mirror)", "@pinned_mirror", 2.0),
+    ("masked: 5-bit DAC in an L (samples/lshape_cdac)", "@lshape_cdac", 2.0),
 ]
+CASES = [(label, _sample(text[1:]) if text.startswith("@") else _spec(text), t)
+         for label, text, t in CASES]
 
 
 def n_assignments(counts: list[int], slots: int) -> int:

@@ -21,9 +21,10 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parents[1]))
 
 from placer.arrange import candidate_shapes, problem_for  # noqa: E402
-from placer.search import search  # noqa: E402
+from placer.search import compile_problem, search  # noqa: E402
+from placer.search._exact import n_assignments  # noqa: E402
 from placer.spec import parse_spec  # noqa: E402
-from tests.bench.cases import CASES, n_assignments  # noqa: E402
+from tests.bench.cases import CASES  # noqa: E402
 
 OUT = HERE / "optima.json"
 
@@ -35,33 +36,48 @@ def main() -> int:
     ap.add_argument("--seeds", type=int, default=8)
     ap.add_argument("--long", type=float, default=60.0, help="seconds per best-known search")
     ap.add_argument("--only", default=None)
+    ap.add_argument("--skip-known", action="store_true", help="skip cases already proven")
+    ap.add_argument("--patience", type=int, default=8,
+                    help="chains without progress before a best-known search stops")
     args = ap.parse_args()
     known = json.loads(OUT.read_text()) if OUT.exists() else {}
     for label, text, _ in CASES:
         if args.only and args.only != label:
             continue
+        if args.skip_known and label in known and known[label]["proven"]:
+            print(f"{label}: known, proven", flush=True)
+            continue
         spec = parse_spec(text, label)
         (rows, cols), = candidate_shapes(spec)
         prob = problem_for(spec, rows, cols)
-        n = n_assignments(list(spec.counts), rows * cols)
+        n = n_assignments(compile_problem(prob))
         entry = None
         t0 = time.perf_counter()
         if n <= args.max_assignments:
+            import placer.search._driver as driver
+
+            driver.QUIET_CHAINS, driver.QUIET_CHAINS_SMALL = 2, 4
             res = search(prob, seed=0, time_limit_s=args.per_case, exact_nodes=0)
             if res.proven == "linear and quadratic":
                 entry = {"linear_um": res.keys.linear_um, "quadratic_ppm": res.keys.quadratic_ppm,
                          "proven": True, "how": f"branch and bound, {res.nodes} nodes, "
                                                 f"{time.perf_counter() - t0:.0f} s"}
         if entry is None:
+            import placer.search._driver as driver
+
+            # a long search: many more chains before giving up on progress
+            driver.QUIET_CHAINS = driver.QUIET_CHAINS_SMALL = args.patience
+            driver.MAX_CHAINS = 40
             best = None
             for seed in range(args.seeds):
-                res = search(prob, seed=seed, time_limit_s=args.long)
+                res = search(prob, seed=seed, time_limit_s=args.long, exact_nodes=1)
                 key = (res.keys.linear_um, res.keys.quadratic_ppm)
                 if best is None or key < best:
                     best = key
             assert best is not None
             entry = {"linear_um": best[0], "quadratic_ppm": best[1], "proven": False,
-                     "how": f"best of {args.seeds} searches at {args.long:g} s"}
+                     "how": f"best of {args.seeds} searches of up to {args.long:g} s, "
+                            f"{args.patience} chains without progress"}
         old = known.get(label)
         if old is not None and not entry["proven"] and (old["linear_um"], old["quadratic_ppm"]) \
                 < (entry["linear_um"], entry["quadratic_ppm"]):
