@@ -146,6 +146,7 @@ class MirrorLine:
     device: str
     ideal_ratio: float
     gradient_pct: float
+    quadratic_pct: float
     clm_pct: float
     random_sigma_pct: float
     total_low_pct: float
@@ -177,6 +178,8 @@ class DacBudget:
     fit: str
     worst_gradient_inl_lsb: float
     worst_gradient_dnl_lsb: float
+    quadratic_inl_lsb: float
+    quadratic_dnl_lsb: float
     worst_direction_deg: float
     mc_samples: int
     mc_inl_sigma_lsb: float
@@ -243,17 +246,18 @@ def _ratio_budget(pattern: Pattern, spec: Spec, grade: Grade, e: ElectricalSpec
     mos = spec.kind == "mos"
     area = {n: c * spec.unit.area_um2 for n, c in zip(spec.devices, spec.counts, strict=True)}
     count = dict(zip(spec.devices, spec.counts, strict=True))
-    cen = {d.name: np.array(d.centroid_um) for d in grade.devices}
     rng = np.random.default_rng(e.mc_seed)
     lines = []
     for name in budget_devices(spec):
         if name == ref:
             continue
         p = _pair(grade, name, ref)
-        dist_mm = float(np.hypot(*(cen[name] - cen[ref]))) / 1000.0
+        # the one gradient of [gradient]: grade's worst-direction linear error and worst
+        # curvature error of the pair, ppm -> %
+        grad = 1e-4 * p.linear_ppm
+        quad = 1e-4 * p.quadratic_ppm
         if mos:
             gm_id = e.gm_id_per_v
-            grad = dist_mm * (e.beta_gradient_pct_per_mm + 0.1 * gm_id * e.vt_gradient_mv_per_mm)
             clm = 100.0 * clm_error(e.lambda_per_v, e.vds_v[name], e.vds_v[ref])
             s_beta = float(model.pelgrom_sigma(e.a_beta_pct_um, area[name], area[ref]))
             s_vt = float(model.pelgrom_sigma(e.a_vt_mv_um, area[name], area[ref]))
@@ -268,37 +272,38 @@ def _ratio_budget(pattern: Pattern, spec: Spec, grade: Grade, e: ElectricalSpec
             mc = (beta[:, 0] - beta[:, 1]) - 0.1 * gm_id * (vt[:, 0] - vt[:, 1])
             mc_std = float(mc.std()) if n_mc > 1 else None
         else:
-            grad = 1e-4 * spec.gradient.linear_ppm_per_um * dist_mm * 1000.0
             clm = 0.0
             white = 1e-4 * p.white_sigma_ppm
             mc_std = None
         corr = 1e-4 * p.correlated_sigma_ppm
         sigma = sqrt(white ** 2 + corr ** 2)
         k = e.k_sigma
-        low = clm - grad - k * sigma
-        high = clm + grad + k * sigma
-        offset = abs(clm) + grad
-        terms = {"gradient": grad, "clm": abs(clm), "random": k * sigma}
+        low = clm - grad - quad - k * sigma
+        high = clm + grad + quad + k * sigma
+        offset = abs(clm) + grad + quad
+        terms = {"gradient": grad + quad, "clm": abs(clm), "random": k * sigma}
         dominant = max(terms, key=lambda t: terms[t])
         lines.append(MirrorLine(
-            device=name, ideal_ratio=count[name] / count[ref], gradient_pct=grad, clm_pct=clm,
+            device=name, ideal_ratio=count[name] / count[ref], gradient_pct=grad,
+            quadratic_pct=quad, clm_pct=clm,
             random_sigma_pct=sigma, total_low_pct=low, total_high_pct=high,
             within_tolerance=within_tolerance(offset, sigma, e.tolerance_pct),
             dominant=dominant, cure=_CURES[dominant], mc_std_pct=mc_std,
         ))
-    assumptions: dict[str, Any] = {"k_sigma": e.k_sigma, "tolerance_pct": e.tolerance_pct}
+    assumptions: dict[str, Any] = {"k_sigma": e.k_sigma, "tolerance_pct": e.tolerance_pct,
+                                   "gradient": spec.gradient.described,
+                                   "gradient_ppm_per_um": spec.gradient.linear_ppm_per_um,
+                                   "hessian_norm_ppm_per_um2":
+                                       spec.gradient.quadratic_ppm_per_um2}
     if mos:
         assumptions.update({
             "gm_id_per_v": e.gm_id_per_v, "lambda_per_v": e.lambda_per_v,
-            "vt_gradient_mv_per_mm": e.vt_gradient_mv_per_mm,
-            "beta_gradient_pct_per_mm": e.beta_gradient_pct_per_mm,
             "a_vt_mv_um": e.a_vt_mv_um, "a_beta_pct_um": e.a_beta_pct_um,
             "vds_v": dict(e.vds_v), "unit_w_um": spec.unit.width_um,
             "unit_l_um": spec.unit.length_um,
         })
     else:
-        assumptions.update({"gradient_ppm_per_um": spec.gradient.linear_ppm_per_um,
-                            "a_param_pct_um": spec.mismatch.a_param_pct_um})
+        assumptions.update({"a_param_pct_um": spec.mismatch.a_param_pct_um})
     return MirrorBudget(spec.kind, ref, e.k_sigma, e.tolerance_pct, tuple(lines), assumptions)
 
 
@@ -331,13 +336,15 @@ def _dac_budget(pattern: Pattern, spec: Spec, e: ElectricalSpec) -> DacBudget:
         t = w_term * (1.0 + err[..., t_idx]) if t_idx is not None else 0.0
         return dac_levels(caps, t)
 
-    # gradient: linear field in every direction plus the bowl, in relative units
+    # the gradient of [gradient], its two parts apart: a linear field in every direction
+    # (the worst one kept) and the bowl of the same Hessian norm, in relative units
     g = spec.gradient.linear_ppm_per_um * 1e-6
     h = spec.gradient.quadratic_ppm_per_um2 * 1e-6 / np.sqrt(2.0)
     theta = np.radians(np.arange(0, 360, 1.0))
     lin = g * (np.cos(theta)[:, None] * cen[None, :, 0] + np.sin(theta)[:, None] * cen[None, :, 1])
     bowl = 0.5 * h * (m2[:, 0, 0] + m2[:, 1, 1])
-    inl, dnl = inl_dnl(levels_for(lin + bowl), e.fit, ideal)
+    inl, dnl = inl_dnl(levels_for(lin), e.fit, ideal)
+    q_inl, q_dnl = inl_dnl(levels_for(bowl[None, :]), e.fit, ideal)
     worst = np.abs(inl).max(-1)
     k = int(np.argmax(worst))
 
@@ -370,6 +377,8 @@ def _dac_budget(pattern: Pattern, spec: Spec, e: ElectricalSpec) -> DacBudget:
         bits=tuple(bits), termination=term, fit=e.fit,
         worst_gradient_inl_lsb=float(np.abs(inl[k]).max()),
         worst_gradient_dnl_lsb=float(np.abs(dnl[k]).max()),
+        quadratic_inl_lsb=float(np.abs(q_inl).max()),
+        quadratic_dnl_lsb=float(np.abs(q_dnl).max()),
         worst_direction_deg=float(np.degrees(theta[k])),
         mc_samples=n, mc_inl_sigma_lsb=float(iw.std()) if n > 1 else 0.0,
         mc_dnl_sigma_lsb=float(dw.std()) if n > 1 else 0.0,

@@ -182,7 +182,7 @@ def grade(layout: Path, spec_path: Path | None, as_json: bool, budget_plot: Path
                                   echo_notes=not as_json)
     result = grade_pattern(pat, spec)
     worst_pair, sens = sensitivity(pat, spec.array.pitch_um, result,
-                                   spec.gradient.linear_ppm_per_um)
+                                   spec.gradient.linear_ppm_per_um, spec.gradient)
     bud = _budget(pat, spec, result, required=budget_plot is not None)
     if sensitivity_plot is not None:
         from placer.plot import save_sensitivity
@@ -206,7 +206,7 @@ def grade(layout: Path, spec_path: Path | None, as_json: bool, budget_plot: Path
             top = ", ".join(f"{u.device} at row {u.row} col {u.col} "
                             f"({u.x_um + rec.origin_um[0]:.4g}, {u.y_um + rec.origin_um[1]:.4g}"
                             f" um): {u.contribution_ppm:+.3g} ppm" for u in sens[:3])
-            click.echo(f"Units adding most to the worst linear pair {worst_pair}: {top}")
+            click.echo(f"Units adding most to {worst_pair}: {top}")
         if bud is not None:
             click.echo("")
             click.echo(format_budget(bud))

@@ -10,7 +10,7 @@ from numpy.typing import NDArray
 from placer.pattern import Pattern, unit_positions
 from placer.score import Grade
 from placer.search import Keys, Problem, keys_of, search
-from placer.spec import Spec
+from placer.spec import GradientSpec, Spec
 
 __all__ = ["UnitSensitivity", "Swap", "RepairResult", "sensitivity", "repair"]
 
@@ -30,30 +30,50 @@ class UnitSensitivity:
 
 
 def sensitivity(pattern: Pattern, pitch_um: tuple[float, float], grade: Grade,
-                g_ppm_per_um: float) -> tuple[str, list[UnitSensitivity]]:
-    """Each unit's contribution to the worst pair's linear error, largest first.
+                g_ppm_per_um: float, gradient: GradientSpec | None = None
+                ) -> tuple[str, list[UnitSensitivity]]:
+    """Each unit's contribution to a pair's error under a field, largest first.
 
-    With the worst pair (a, b) and u the worst gradient direction, the error is
-    G u.(c_a - c_b) = sum_i G w_i u.(r_i - C), w_i = +1/n_a on a's units, -1/n_b on b's,
-    C the centre of all device units; the terms add up to the pair's error exactly.
+    By default the field is the linear gradient in the worst pair's worst direction:
+    with (a, b) that pair and u the direction, the error is G u.(c_a - c_b) =
+    sum_i G w_i u.(r_i - C), w_i = +1/n_a on a's units, -1/n_b on b's, C the centre of
+    all device units. With ``gradient`` giving a hot spot (or a known direction) the
+    field is that one, and the pair the one it hurts most. The terms add up to the
+    pair's error exactly. Returns a description of the pair and field, and the units.
     """
-    worst = grade.worst("linear_ppm")
-    if worst is None or worst.linear_ppm == 0:
-        return ("no linear error", [])
     xy, dev = unit_positions(pattern, pitch_um)
     r, c = np.nonzero(pattern.ids >= 0)
     centre = xy.mean(axis=0)
-    a, b = pattern.devices.index(worst.a), pattern.devices.index(worst.b)
-    angle = np.radians(worst.linear_worst_angle_deg)
-    u = np.array([np.cos(angle), np.sin(angle)])
     n = np.bincount(dev, minlength=len(pattern.devices))
+    if gradient is not None and gradient.hot_spot is not None and grade.pairs:
+        hs = gradient.hot_spot
+        field = hs.ppm * np.exp(-np.hypot(xy[:, 0] - hs.x_um, xy[:, 1] - hs.y_um)
+                                / hs.fall_off_um)
+        worst = max(grade.pairs, key=lambda p: abs(p.hot_spot_ppm or 0.0))
+        what = "hot spot"
+    elif gradient is not None and gradient.direction_deg is not None and grade.pairs:
+        worst = max(grade.pairs, key=lambda p: abs(p.known_direction_ppm or 0.0))
+        angle = np.radians(gradient.direction_deg)
+        field = g_ppm_per_um * ((xy - centre) @ np.array([np.cos(angle), np.sin(angle)]))
+        what = f"gradient at {gradient.direction_deg:g} deg"
+    else:
+        w0 = grade.worst("linear_ppm")
+        if w0 is None or w0.linear_ppm == 0:
+            return ("no linear error", [])
+        worst = w0
+        angle = np.radians(worst.linear_worst_angle_deg)
+        field = g_ppm_per_um * ((xy - centre) @ np.array([np.cos(angle), np.sin(angle)]))
+        what = "worst linear gradient"
+    a, b = pattern.devices.index(worst.a), pattern.devices.index(worst.b)
     w = np.where(dev == a, 1.0 / n[a], np.where(dev == b, -1.0 / n[b], 0.0))
-    contrib = g_ppm_per_um * w * ((xy - centre) @ u)
+    contrib = w * field
+    if what != "hot spot":                  # a constant adds nothing: about the centre
+        contrib = w * (field - field.mean())
     order = np.argsort(-contrib, kind="stable")
     out = [UnitSensitivity(int(r[i]), int(c[i]), float(xy[i, 0]), float(xy[i, 1]),
                            pattern.devices[dev[i]], float(contrib[i]))
            for i in order if w[i] != 0]
-    return (f"{worst.a}/{worst.b}", out)
+    return (f"{worst.a}/{worst.b} under the {what}", out)
 
 
 @dataclass(frozen=True)

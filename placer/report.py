@@ -71,7 +71,10 @@ def format_grade(grade: Grade, max_pairs: int = 40) -> str:
     else:
         order = len(grade.pairs[0].moment_norms)
         vt = grade.pairs[0].vt_sigma_mv is not None
-        head = ["pair", "linear", "dir", "quad", "bowl",
+        known = grade.pairs[0].known_direction_ppm is not None
+        spot = grade.pairs[0].hot_spot_ppm is not None
+        head = ["pair", "linear", "dir", *(["known"] if known else []),
+                *(["spot"] if spot else []), "quad", "bowl",
                 *[f"|dM{k}|" for k in range(3, order + 1)], "s_corr", "s_white", "s_rand"]
         if vt:
             head.append("s_dVT")
@@ -79,14 +82,19 @@ def format_grade(grade: Grade, max_pairs: int = 40) -> str:
         pair_rows = []
         for p in shown[:max_pairs]:
             row = [f"{p.a}/{p.b}", _f(p.linear_ppm), f"{p.linear_worst_angle_deg:.0f}"
-                   if p.linear_ppm > 1e-9 else "-", _f(p.quadratic_ppm), _f(p.bowl_ppm),
+                   if p.linear_ppm > 1e-9 else "-",
+                   *([_f(p.known_direction_ppm or 0.0)] if known else []),
+                   *([_f(p.hot_spot_ppm or 0.0)] if spot else []),
+                   _f(p.quadratic_ppm), _f(p.bowl_ppm),
                    *[_f(v) for v in p.moment_norms[2:]], _f(p.correlated_sigma_ppm),
                    _f(p.white_sigma_ppm), _f(p.random_sigma_ppm)]
             if vt:
                 row.append(_f(p.vt_sigma_mv or 0.0))
             pair_rows.append(row)
         out.append("Pairs (ratio error of first/second in ppm; dir = worst gradient direction "
-                   "in degrees; |dMk| = order-k moment difference in um^k; sigmas in ppm"
+                   "in degrees; " + ("known = along the spec's direction; " if known else "")
+                   + ("spot = the spec's hot spot; " if spot else "")
+                   + "|dMk| = order-k moment difference in um^k; sigmas in ppm"
                    + ("; s_dVT in mV" if vt else "") + ")")
         out.append(format_table(head, pair_rows))
         if len(shown) > max_pairs:
@@ -116,11 +124,11 @@ def format_grade(grade: Grade, max_pairs: int = 40) -> str:
                        f" |error| 99th percentile {_f(mc.abs_p99_ppm[worst])} ppm")
     out.append("")
     out.append(
-        "Assumptions: linear gradient {lin:g} ppm/um (worst direction); Hessian norm {q:g} "
+        "Assumptions: linear gradient {desc} (worst direction); Hessian norm {q:g} "
         "ppm/um^2 (Frobenius; bowl = same norm, radial); correlated field sigma {cs:g} ppm, "
         "{kern} kernel, length {cl:g} um; area coefficient {ap:g} %um{vt}; unit area "
         "{ua:g} um^2; from {src}.".format(
-            lin=a["linear_gradient_ppm_per_um"], q=a["quadratic_hessian_norm_ppm_per_um2"],
+            desc=a["gradient"], q=a["quadratic_hessian_norm_ppm_per_um2"],
             cs=a["correlated_sigma_ppm"], kern=a["correlated_kernel"],
             cl=a["correlated_length_um"], ap=a["area_coefficient_pct_um"],
             vt="" if a["a_vt_mv_um"] is None else f", A_VT {a['a_vt_mv_um']:g} mV um",
@@ -188,25 +196,33 @@ def format_budget(b: Any) -> str:
         return "\n".join([
             f"Electrical budget: capacitor array, bits {', '.join(b.bits)} (LSB first), "
             f"termination {b.termination or 'none'}, INL/DNL in LSB against the {fit} line",
-            f"  gradient (worst direction {b.worst_direction_deg:.0f} deg): |INL| "
+            f"  linear gradient (worst direction {b.worst_direction_deg:.0f} deg): |INL| "
             f"{_f(b.worst_gradient_inl_lsb)} LSB, |DNL| {_f(b.worst_gradient_dnl_lsb)} LSB",
+            f"  quadratic (bowl of the spec's Hessian norm): |INL| {_f(b.quadratic_inl_lsb)} "
+            f"LSB, |DNL| {_f(b.quadratic_dnl_lsb)} LSB",
             f"  random ({b.mc_samples} Monte Carlo samples): worst |INL| mean "
             f"{_f(b.mc_inl_mean_lsb)}, sigma {_f(b.mc_inl_sigma_lsb)} LSB; worst |DNL| mean "
             f"{_f(b.mc_dnl_mean_lsb)}, sigma {_f(b.mc_dnl_sigma_lsb)} LSB",
         ])
     mos = b.kind == "mos"
+    if not b.lines:
+        return (f"Electrical budget: {b.reference} is the only device it covers, so there is no "
+                "ratio to budget.")
     rows = []
     for ln in b.lines:
         rows.append([ln.device, f"{ln.ideal_ratio:g}", _f(ln.gradient_pct),
-                     *([_f(ln.clm_pct)] if mos else []),
+                     _f(ln.quadratic_pct), *([_f(ln.clm_pct)] if mos else []),
                      _f(ln.random_sigma_pct), f"{ln.total_low_pct:+.3g} .. "
                      f"{ln.total_high_pct:+.3g}", f"{100 * ln.within_tolerance:.1f}%"])
-    head = ["output" if mos else "resistor", "ratio", "grad %", *(["clm %"] if mos else []),
+    head = ["output" if mos else "resistor", "ratio", "grad %", "quad %",
+            *(["clm %"] if mos else []),
             "sigma %", f"total at {b.k_sigma:g} sigma %", f"within +-{b.tolerance_pct:g}%"]
     out = [f"Electrical budget against {b.reference} (error of I/I_{b.reference}, % of the "
-           "ideal ratio; grad = worst gradient direction, clm = channel-length modulation)"
+           "ideal ratio; grad = linear gradient in its worst direction, quad = curvature, "
+           "clm = channel-length modulation; gradient: {b.assumptions['gradient']})"
            if b.kind == "mos" else
-           f"Electrical budget against {b.reference} (ratio error of R/R_{b.reference}, %)",
+           f"Electrical budget against {b.reference} (ratio error of R/R_{b.reference}, %; "
+           f"gradient: {b.assumptions['gradient']})",
            format_table(head, rows)]
     for ln in b.lines:
         out.append(f"  {ln.device}: {ln.dominant} dominates; cure: {ln.cure}.")

@@ -51,6 +51,8 @@ class PairScore:
     random_sigma_ppm: float
     vt_sigma_mv: float | None
     group: str = ""
+    known_direction_ppm: float | None = None
+    hot_spot_ppm: float | None = None
 
 
 @dataclass(frozen=True)
@@ -105,7 +107,11 @@ def assumptions(spec: Spec) -> dict[str, Any]:
     """The model assumptions a grade was computed with, for printing beside it."""
     return {
         "spec": spec.source,
+        "gradient": spec.gradient.described,
         "linear_gradient_ppm_per_um": spec.gradient.linear_ppm_per_um,
+        "known_direction_deg": spec.gradient.direction_deg,
+        "hot_spot": (None if spec.gradient.hot_spot is None
+                     else asdict(spec.gradient.hot_spot)),
         "quadratic_hessian_norm_ppm_per_um2": spec.gradient.quadratic_ppm_per_um2,
         "moment_order": spec.gradient.order,
         "correlated_sigma_ppm": spec.correlated.sigma_ppm,
@@ -169,6 +175,16 @@ def grade_pattern(pattern: Pattern, spec: Spec) -> Grade:
                                           area[pr[:, 1]])
         vt = (model.pelgrom_sigma(spec.mismatch.a_vt_mv_um, area[pr[:, 0]], area[pr[:, 1]])
               if spec.mismatch.a_vt_mv_um is not None else None)
+        known = None
+        if g.direction_deg is not None:          # the gradient along the given direction
+            u = np.array([np.cos(np.radians(g.direction_deg)), np.sin(np.radians(g.direction_deg))])
+            known = g.linear_ppm_per_um * (dc @ u)
+        spot = None
+        if g.hot_spot is not None:               # mean of the spot's field, a minus b
+            hs = g.hot_spot
+            field = hs.ppm * np.exp(-np.hypot(xy[:, 0] - hs.x_um, xy[:, 1] - hs.y_um)
+                                    / hs.fall_off_um)
+            spot = model.field_errors(field, dev, n_dev, pr)
         group_of = spec.group_of()
         for i, (a, b) in enumerate(pair_list):
             ga, gb = group_of.get(pattern.devices[a], ""), group_of.get(pattern.devices[b], "")
@@ -182,6 +198,8 @@ def grade_pattern(pattern: Pattern, spec: Spec) -> Grade:
                 correlated_sigma_ppm=float(corr[i]), white_sigma_ppm=float(white[i]),
                 random_sigma_ppm=float(np.hypot(corr[i], white[i])),
                 vt_sigma_mv=None if vt is None else float(vt[i]),
+                known_direction_ppm=None if known is None else float(known[i]),
+                hot_spot_ppm=None if spot is None else float(spot[i]),
             ))
         if spec.monte_carlo.samples > 0:
             mc = _monte_carlo(spec, xy_c, dev, n_dev, pr, lin, quad, corr)

@@ -28,6 +28,7 @@ __all__ = [
     "SearchSpec",
     "OBJECTIVES",
     "ElectricalSpec",
+    "HotSpot",
     "RoutingSpec",
     "GroupSpec",
     "Placement",
@@ -122,12 +123,34 @@ class UnitSpec:
 
 
 @dataclass(frozen=True)
+class HotSpot:
+    """A known local disturbance: peak ppm at (x, y), falling off as exp(-d / fall-off)."""
+
+    x_um: float
+    y_um: float
+    ppm: float
+    fall_off_um: float
+
+
+@dataclass(frozen=True)
 class GradientSpec:
-    """Magnitudes of the systematic (deterministic) part of the parameter field."""
+    """The one description of the systematic (deterministic) part of the field.
+
+    ``linear_ppm_per_um`` is the gradient of the matched quantity (capacitance density,
+    sheet resistance, or a MOS finger's drain current), whatever the spec gave: for MOS
+    it may come from ``vt_mv_per_mm`` and ``beta_pct_per_mm`` through gm/ID, combined in
+    the worst case (their effects add). ``direction_deg`` and ``hot_spot`` describe a
+    known field besides the worst direction.
+    """
 
     linear_ppm_per_um: float = 10.0
     quadratic_ppm_per_um2: float = 0.02
     order: int = 3
+    vt_mv_per_mm: float | None = None
+    beta_pct_per_mm: float | None = None
+    direction_deg: float | None = None
+    hot_spot: HotSpot | None = None
+    described: str = "10 ppm/um (the default)"
 
 
 @dataclass(frozen=True)
@@ -189,8 +212,6 @@ class ElectricalSpec:
     gm_id_per_v: float = 10.0
     lambda_per_v: float = 0.0
     vds_v: dict[str, float] = field(default_factory=dict)
-    vt_gradient_mv_per_mm: float = 0.5
-    beta_gradient_pct_per_mm: float = 0.5
     a_vt_mv_um: float = 5.0
     a_beta_pct_um: float = 1.0
     k_sigma: float = 3.0
@@ -318,14 +339,16 @@ _SCHEMA: dict[str, tuple[str, ...]] = {
               "keep_out", "symmetry"),
     "match": ("pairs",),
     "unit": ("width_um", "length_um"),
-    "gradient": ("linear_ppm_per_um", "quadratic_ppm_per_um2", "order"),
+    "gradient": ("linear_ppm_per_um", "linear_pct_per_mm", "quadratic_ppm_per_um2", "order",
+                 "vt_mv_per_mm", "beta_pct_per_mm", "direction_deg", "hot_spot"),
+    "gradient.hot_spot": ("x_um", "y_um", "ppm", "fall_off_um"),
     "correlated": ("sigma_ppm", "length_um", "kernel"),
     "mismatch": ("a_param_pct_um", "a_vt_mv_um"),
     "monte_carlo": ("samples", "seed"),
     "search": ("objective", "cancel_order", "relative_tie"),
     "routing": ("metal1_ohm_per_um", "metal2_ohm_per_um", "via_ohm", "wire_ff_per_um"),
     "electrical": ("reference", "vov_v", "gm_id_per_v", "lambda_per_v", "vds_v",
-                   "vt_gradient_mv_per_mm", "beta_gradient_pct_per_mm", "a_vt_mv_um",
+                   "a_vt_mv_um",
                    "a_beta_pct_um", "k_sigma", "tolerance_pct", "termination", "weights",
                    "fit", "mc_samples", "mc_seed"),
 }
@@ -511,13 +534,14 @@ def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") 
     un = _Reader(source, "unit", data.get("unit", {}))
     unit = UnitSpec(un.number("width_um", 1.0) or 1.0, un.number("length_um", 1.0) or 1.0)
 
+    raw_el = data.get("electrical")
+    if isinstance(raw_el, dict):
+        for old, new in (("vt_gradient_mv_per_mm", "vt_mv_per_mm"),
+                         ("beta_gradient_pct_per_mm", "beta_pct_per_mm")):
+            if old in raw_el:
+                raise SpecError(f"{source}: [electrical] {old} moved to [gradient] {new}: the "
+                                "spec describes the systematic field once, in [gradient]")
     gr = _Reader(source, "gradient", data.get("gradient", {}))
-    d = GradientSpec()
-    gradient = GradientSpec(
-        _num(gr, "linear_ppm_per_um", d.linear_ppm_per_um),
-        _num(gr, "quadratic_ppm_per_um2", d.quadratic_ppm_per_um2),
-        gr.integer("order", d.order, low=2, high=8) or d.order,
-    )
 
     co = _Reader(source, "correlated", data.get("correlated", {}))
     dc = CorrelatedSpec()
@@ -558,6 +582,7 @@ def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") 
     electrical = None
     if "electrical" in data:
         electrical = _electrical(source, data["electrical"], kind, names, counts, mismatch)
+    gradient = _gradient(source, gr, kind, electrical)
 
     nets, joins, dummy_net = _terminals(source, data.get("terminals", {}), kind, names,
                                         counts, arr.data.get("dummy_net"))
@@ -577,6 +602,52 @@ def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") 
         return with_computed_pitch(spec)
     except PlacerError as err:
         raise SpecError(f"{source}: {err}") from None
+
+
+def _gradient(source: str, gr: _Reader, kind: str, el: ElectricalSpec | None) -> GradientSpec:
+    """[gradient]: one description of the systematic field, in the trade's units."""
+    d = GradientSpec()
+    order = gr.integer("order", d.order, low=2, high=8) or d.order
+    quad = _num(gr, "quadratic_ppm_per_um2", d.quadratic_ppm_per_um2)
+    given = [k for k in ("linear_ppm_per_um", "linear_pct_per_mm") if k in gr.data]
+    mos_keys = [k for k in ("vt_mv_per_mm", "beta_pct_per_mm") if k in gr.data]
+    if len(given) > 1 or (given and mos_keys):
+        raise SpecError(f"{source}: [gradient] give the linear gradient once: "
+                        f"{' and '.join(given + mos_keys)} both describe it")
+    vt = beta = None
+    if mos_keys:
+        if kind != "mos":
+            raise gr.fail(mos_keys[0], f"applies to kind = \"mos\" only (this spec is {kind!r})")
+        if el is None:
+            raise gr.fail(mos_keys[0], "needs gm/ID to combine the threshold and current-factor "
+                                       "gradients: give [electrical] vov_v or gm_id_per_v")
+        vt = _num(gr, "vt_mv_per_mm", 0.0)
+        beta = _num(gr, "beta_pct_per_mm", 0.0)
+        # drain current: dI/I = dbeta/beta - (gm/ID) dVT; worst case, the effects add.
+        # 1 %/mm = 10 ppm/um; (gm/ID) [1/V] x VT [mV/mm] = 0.1 x gm/ID x VT %/mm
+        pct = beta + 0.1 * el.gm_id_per_v * vt
+        linear = 10.0 * pct
+        described = (f"{pct:.4g} %/mm of drain current = beta {beta:g} %/mm + gm/ID "
+                     f"{el.gm_id_per_v:g}/V x VT {vt:g} mV/mm (effects added: the worst case)")
+    elif given == ["linear_pct_per_mm"]:
+        pct = _num(gr, "linear_pct_per_mm", 1.0)
+        linear = 10.0 * pct
+        described = f"{pct:g} %/mm = {linear:g} ppm/um"
+    else:
+        linear = _num(gr, "linear_ppm_per_um", d.linear_ppm_per_um)
+        described = f"{linear:g} ppm/um" + ("" if given else " (the default)")
+    direction = gr.number("direction_deg", None, positive=False)
+    hot = None
+    if "hot_spot" in gr.data:
+        hs = _Reader(source, "gradient.hot_spot", gr.data["hot_spot"])
+        missing = [k for k in ("x_um", "y_um", "ppm", "fall_off_um") if k not in hs.data]
+        if missing:
+            raise hs.fail(missing[0], "is missing (x_um, y_um, ppm, fall_off_um)")
+        hot = HotSpot(*(float(hs.number(k, None, positive=k == "fall_off_um") or 0.0)
+                        for k in ("x_um", "y_um", "ppm", "fall_off_um")))
+    return GradientSpec(linear, quad, order, vt, beta,
+                        None if direction is None else float(direction) % 360.0, hot,
+                        described)
 
 
 def _mask(arr: _Reader, rows: int | None, columns: int | None) -> tuple[str, ...] | None:
@@ -900,9 +971,6 @@ def _electrical(source: str, raw: Any, kind: str, names: list[str], counts: list
         return ElectricalSpec(
             gm_id_per_v=gm_id,
             lambda_per_v=_num(el, "lambda_per_v", 0.0), vds_v=vds,
-            vt_gradient_mv_per_mm=_num(el, "vt_gradient_mv_per_mm", d.vt_gradient_mv_per_mm),
-            beta_gradient_pct_per_mm=_num(el, "beta_gradient_pct_per_mm",
-                                          d.beta_gradient_pct_per_mm),
             a_vt_mv_um=_num(el, "a_vt_mv_um", mismatch.a_vt_mv_um
                             if mismatch.a_vt_mv_um is not None else d.a_vt_mv_um),
             a_beta_pct_um=_num(el, "a_beta_pct_um", mismatch.a_param_pct_um),

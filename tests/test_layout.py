@@ -126,8 +126,21 @@ def test_sensitivity_contributions_add_up_to_the_worst_pair_error():
     grade = grade_pattern(pattern, spec)
     pair, units = sensitivity(pattern, spec.array.pitch_um, grade, 10.0)
     worst = grade.worst("linear_ppm")
-    assert pair == f"{worst.a}/{worst.b}"
+    assert pair.startswith(f"{worst.a}/{worst.b}")
     assert sum(u.contribution_ppm for u in units) == pytest.approx(worst.linear_ppm)
+
+
+def test_hot_spot_contributions_add_up_to_the_pairs_hot_spot_error():
+    """Linearity again, for a known hot spot: the terms w_i f(r_i) sum to the error the
+    grade reports under that field (mean of the field over a's units minus b's)."""
+    text = SPEC + "[gradient]\nhot_spot = { x_um = 0, y_um = 0, ppm = 300, fall_off_um = 3 }\n"
+    spec = parse_spec(text, "s.toml")
+    pattern = parse_pattern(". A A B A .\n. B A B B .").reordered(spec.devices)
+    grade = grade_pattern(pattern, spec)
+    pair, units = sensitivity(pattern, spec.array.pitch_um, grade, 10.0, spec.gradient)
+    (p,) = grade.pairs
+    assert "hot spot" in pair
+    assert sum(u.contribution_ppm for u in units) == pytest.approx(p.hot_spot_ppm)
 
 
 def test_two_swapped_units_are_repaired_with_exactly_one_swap_common_practice():
