@@ -1,21 +1,42 @@
-"""placer: arrange and grade matched analog devices as arrays of unit fingers or cells."""
+"""placer: arrange and grade matched analog devices as arrays of unit fingers or cells.
+
+The names below load on first use, so ``import placer`` (and the command's start-up, which
+must install its interrupt handler first) costs nothing until they are needed.
+"""
+
+from __future__ import annotations
+
+import importlib
+from typing import TYPE_CHECKING, Any
 
 __version__ = "0.1.0"
 
-from placer.errors import LimitError as LimitError
-from placer.errors import PatternError as PatternError
-from placer.errors import PlacerError as PlacerError
-from placer.errors import SpecError as SpecError
-from placer.pattern import Pattern as Pattern
-from placer.pattern import format_pattern as format_pattern
-from placer.pattern import parse_pattern as parse_pattern
-from placer.pattern import read_pattern as read_pattern
-from placer.score import Grade as Grade
-from placer.score import grade_pattern as grade_pattern
-from placer.spec import Spec as Spec
-from placer.spec import load_spec as load_spec
-from placer.spec import parse_spec as parse_spec
+_EXPORTS = {
+    "LimitError": "placer.errors", "PatternError": "placer.errors",
+    "PlacerError": "placer.errors", "SpecError": "placer.errors",
+    "Pattern": "placer.pattern", "format_pattern": "placer.pattern",
+    "parse_pattern": "placer.pattern", "read_pattern": "placer.pattern",
+    "Grade": "placer.score", "grade_pattern": "placer.score",
+    "Spec": "placer.spec", "load_spec": "placer.spec", "parse_spec": "placer.spec",
+}
 
-__all__ = ["__version__", "LimitError", "PatternError", "PlacerError", "SpecError", "Pattern",
-           "format_pattern", "parse_pattern", "read_pattern", "Grade", "grade_pattern", "Spec",
-           "load_spec", "parse_spec"]
+__all__ = ["__version__", *_EXPORTS]
+
+if TYPE_CHECKING:  # the names as static checkers see them
+    from placer.errors import LimitError, PatternError, PlacerError, SpecError  # noqa: F401
+    from placer.pattern import (  # noqa: F401
+        Pattern,
+        format_pattern,
+        parse_pattern,
+        read_pattern,
+    )
+    from placer.score import Grade, grade_pattern  # noqa: F401
+    from placer.spec import Spec, load_spec, parse_spec  # noqa: F401
+
+
+def __getattr__(name: str) -> Any:
+    if name in _EXPORTS:
+        value = getattr(importlib.import_module(_EXPORTS[name]), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'placer' has no attribute {name!r}")

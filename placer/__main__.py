@@ -1,5 +1,5 @@
 """Run the command line as ``python -m placer``."""
 
-from placer.cli import cli
+from placer._entry import main
 
-cli(prog_name="placer")
+main()

@@ -16,14 +16,14 @@ from placer.pattern import Pattern
 from placer.routing import (
     FingerNets,
     Routing,
-    diffusion_breaks,
     estimate_routing,
+    finger_terminals,
     mos_finger_nets,
     orient_row,
 )
 from placer.score import Grade, grade_pattern
 from placer.search import Keys, Problem, SearchResult, compare, keys_of, rank_key, search
-from placer.spec import MAX_SLOTS, Spec
+from placer.spec import MAX_SIDE, MAX_SLOT_DEVICES, MAX_SLOTS, Spec
 
 __all__ = ["METHODS", "Arrangement", "Candidate", "candidate_shapes", "build_pattern",
            "problem_for", "arrange", "baseline_pattern", "HOLE_MARGIN", "DEFAULT_TIME_LIMIT_S"]
@@ -68,6 +68,7 @@ class Arrangement:
     baselines: dict[str, Keys]
     candidates: tuple[Candidate, ...] = field(default=())
     solver: dict[str, Any] | None = None
+    front_reference: str = ""
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready summary (the grade and routing in full)."""
@@ -91,6 +92,7 @@ class Arrangement:
             "candidates": [{"systematic_ppm": c.systematic_ppm, "routing_um": c.routing_um,
                             "keys": asdict(c.keys), "source": c.source}
                            for c in self.candidates],
+            "candidates_against": self.front_reference or None,
         }
 
 
@@ -118,10 +120,11 @@ def candidate_shapes(spec: Spec, limit: int = 4) -> list[tuple[int, int]]:
     px, py = spec.array.pitch_um
     slack = 0 if not spec.array.holes else max(1, n // 8)
     options = []
-    for r in range(1, n + 1):
+    for r in range(1, min(n, MAX_SIDE) + 1):
         for c in {math.ceil(n / r), math.ceil(n / r) + 1}:
             spare = r * c - n
-            if spare > slack or r * c > MAX_SLOTS:
+            if (spare > slack or r * c > MAX_SLOTS or c > MAX_SIDE
+                    or r * c * len(spec.devices) > MAX_SLOT_DEVICES):
                 continue
             aspect = (c * px) / (r * py)
             options.append((abs(math.log(aspect / spec.array.aspect)), spare, r, c))
@@ -186,35 +189,58 @@ def balance_orientations(ids: NDArray[np.int_], orient: NDArray[np.int8],
     A flip is kept only if it adds no diffusion break and lowers the total imbalance
     sum_d |#> - #<|, so the row stays as drawable as the DP left it.
     """
-    orient = orient.copy()
+    if not np.any(ids >= 0):
+        return orient.copy()
     n_dev = int(ids.max()) + 1
+    tally = [int(t) for t in np.bincount(ids[ids >= 0], weights=orient[ids >= 0],
+                                         minlength=n_dev)]
+    grid = ids.tolist()
+    marks = orient.astype(int).tolist()
+    n_cols = ids.shape[1]
 
-    def imbalance(o: NDArray[np.int8]) -> int:
-        tally = np.bincount(ids[ids >= 0], weights=o[ids >= 0], minlength=n_dev)
-        return int(np.abs(tally).sum())
+    def edge_breaks(row: list[int], mk: list[int], lo: int, hi: int) -> int:
+        """Breaks between neighbours (c-1, c) for c in lo..hi of one row."""
+        out = 0
+        for c in range(max(lo, 1), min(hi, n_cols - 1) + 1):
+            a, b = row[c - 1], row[c]
+            if a >= 0 and b >= 0 and (finger_terminals(a, mk[c - 1], nets)[1]
+                                      != finger_terminals(b, mk[c], nets)[0]):
+                out += 1
+        return out
 
-    def row_breaks(r: int) -> int:
-        return diffusion_breaks(ids[r:r + 1], orient[r:r + 1], nets)
-
+    # a flip changes only its devices' tallies and the breaks next to it: O(1) a try
     improved = True
     while improved:
         improved = False
-        best = imbalance(orient)
-        for r in range(ids.shape[0]):
-            base = row_breaks(r)
-            for c in range(ids.shape[1]):
+        for row, mk in zip(grid, marks, strict=True):
+            for c in range(n_cols):
                 for width in (1, 2):
-                    cols = [x for x in range(c, min(c + width, ids.shape[1])) if ids[r, x] >= 0]
-                    if len(cols) != width:
+                    if c + width > n_cols or any(row[x] < 0 for x in range(c, c + width)):
                         continue
-                    orient[r, cols] *= -1
-                    new = imbalance(orient)
-                    if new < best and row_breaks(r) <= base:
-                        best, improved = new, True
-                        base = row_breaks(r)
+                    change: dict[int, int] = {}
+                    for x in range(c, c + width):
+                        change[row[x]] = change.get(row[x], 0) - 2 * mk[x]
+                    if (sum(abs(tally[d] + dt) for d, dt in change.items())
+                            >= sum(abs(tally[d]) for d in change)):
+                        continue
+                    before = edge_breaks(row, mk, c, c + width)
+                    for x in range(c, c + width):
+                        mk[x] = -mk[x]
+                    if edge_breaks(row, mk, c, c + width) <= before:
+                        for d, dt in change.items():
+                            tally[d] += dt
+                        improved = True
                     else:
-                        orient[r, cols] *= -1
-    return orient
+                        for x in range(c, c + width):
+                            mk[x] = -mk[x]
+    return np.array(marks, dtype=np.int8).reshape(orient.shape)
+
+
+def baseline_patterns(spec: Spec, rows: int, cols: int) -> list[tuple[str, Pattern]]:
+    """The textbook arrangements (clustered, interdigitated, mirrored) on one core, as
+    full patterns: what ``compare`` and the lesson page set beside the search's result."""
+    return [(m, build_pattern(spec, baseline_pattern(spec, m, rows, cols), rows, cols))
+            for m in ("clustered", "interdigitated", "mirrored")]
 
 
 def baseline_pattern(spec: Spec, method: str, rows: int, cols: int,
@@ -324,6 +350,8 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
     tried: list[_Tried] = []
     interrupted = False
     for i, (rows, cols) in enumerate(shapes):
+        if tried and time.monotonic() >= t0 + time_limit_s:
+            break                     # the time is spent: the shapes left are not tried
         try:
             t = _run_shape(spec, rows, cols, method, seed, t0 + (i + 1) * share, progress)
         except KeyboardInterrupt:
@@ -342,38 +370,42 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
     pattern = build_pattern(spec, best.assign, rows, cols)
     grade = grade_pattern(pattern, spec)
     routing = estimate_routing(pattern, spec.array.pitch_um, spec.kind == "mos", _nets(spec))
-    cands = _candidates(spec, best, n_candidates) if n_candidates else ()
+    cands, against = _candidates(spec, best, n_candidates) if n_candidates else ((), "")
     lin_bound = out.linear_bound_um if out is not None else float("nan")
     return Arrangement(
         pattern=pattern, grade=grade, routing=routing, keys=best.keys, method=best.method,
-        core_shape=(rows, cols), shape_reason=_shape_reason(spec, tried, best),
+        core_shape=(rows, cols),
+        shape_reason=_shape_reason(spec, tried, best, len(shapes) - len(tried)),
         linear_bound_um=lin_bound,
         proven=out.proven if out is not None and best.method == out.method else "",
         stopped=stopped, elapsed_s=time.monotonic() - t0,
         moves=sum(t.result.moves for t in tried if t.result),
         nodes=sum(t.result.nodes for t in tried if t.result),
         baselines={name: k for name, (_, k) in best.baselines.items()},
-        candidates=cands, solver=best.solver,
+        candidates=cands, solver=best.solver, front_reference=against,
     )
 
 
-def _shape_reason(spec: Spec, tried: list[_Tried], best: _Tried) -> str:
+def _shape_reason(spec: Spec, tried: list[_Tried], best: _Tried, untried: int = 0) -> str:
+    late = (f"; {untried} more shape{'s' if untried > 1 else ''} not tried: the time limit "
+            "was spent" if untried else "")
     if len(tried) == 1:
         r, c = tried[0].shape
         given = spec.array.rows is not None or spec.array.columns is not None
-        return f"core {r} x {c}" + (" as the spec gives" if given else "")
+        return f"core {r} x {c}" + (" as the spec gives" if given else "") + late
     others = ", ".join(f"{t.shape[0]}x{t.shape[1]}: linear {t.keys.linear_um:.3g} um, quad "
                        f"{t.keys.quadratic_ppm:.3g} ppm" + (" (spare slots)" if _holes(t) else "")
                        for t in tried if t is not best)
     r, c = best.shape
     return (f"tried {len(tried)} shapes near aspect {spec.array.aspect:g}; chose {r} x {c} "
             f"(linear {best.keys.linear_um:.3g} um, quad {best.keys.quadratic_ppm:.3g} ppm) "
-            f"over {others}")
+            f"over {others}{late}")
 
 
-def _candidates(spec: Spec, best: _Tried, k: int) -> tuple[Candidate, ...]:
+def _candidates(spec: Spec, best: _Tried, k: int) -> tuple[tuple[Candidate, ...], str]:
     """Up to K arrangements on the front of gradient error against routing effort: none
-    is worse on both than another. Each names where it came from."""
+    is worse on both than another. Each names where it came from; the text returned
+    names the baseline that does best on each axis, the yardstick of the front."""
     prob = best.prob
     rows, cols = best.shape
     pool: dict[bytes, tuple[IntArray, str]] = {best.assign.tobytes(): (best.assign, "result")}
@@ -397,4 +429,12 @@ def _candidates(spec: Spec, best: _Tried, k: int) -> tuple[Candidate, ...]:
     uniq: dict[tuple[float, float], Candidate] = {}
     for c in sorted(front, key=lambda c: (c.systematic_ppm, c.routing_um)):
         uniq.setdefault((round(c.systematic_ppm, 9), round(c.routing_um, 6)), c)
-    return tuple(list(uniq.values())[:k])
+    base = [c for c in scored if c.source.startswith("baseline ")]
+    against = ""
+    if base:
+        err = min(base, key=lambda c: (c.systematic_ppm, c.routing_um))
+        wire = min(base, key=lambda c: (c.routing_um, c.systematic_ppm))
+        against = (f"best baseline for gradient error: {err.source[9:]} "
+                   f"({err.systematic_ppm:.4g} ppm); for routing: {wire.source[9:]} "
+                   f"({wire.routing_um:.4g} um)")
+    return tuple(list(uniq.values())[:k]), against

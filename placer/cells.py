@@ -20,7 +20,7 @@ from importlib import resources
 from pathlib import Path
 from typing import Any
 
-from placer.errors import PlacerError
+from placer.errors import PlacerError, shown
 
 __all__ = [
     "TemplateError",
@@ -193,7 +193,7 @@ def shipped_text(name: str) -> str:
 
 def read_toml(path: Path | None, fallback: str) -> tuple[dict[str, Any], str]:
     """A template or layer-map file as a dict, with the name to quote in messages."""
-    from placer.spec import MAX_FILE_BYTES
+    from placer.spec import MAX_FILE_BYTES, MAX_TOML_DEPTH, toml_depth
 
     if path is None:
         return tomllib.loads(shipped_text(fallback)), f"templates/{fallback}"
@@ -204,8 +204,11 @@ def read_toml(path: Path | None, fallback: str) -> tuple[dict[str, Any], str]:
     except (OSError, UnicodeDecodeError) as err:
         raise TemplateError(f"{path}: cannot read: {getattr(err, 'strerror', None) or err}"
                             ) from err
+    if toml_depth(text) > MAX_TOML_DEPTH:
+        raise TemplateError(f"{path}: tables, arrays or dotted keys nest deeper than "
+                            f"{MAX_TOML_DEPTH} levels")
     try:
-        return tomllib.loads(text.lstrip("\ufeff")), str(path)
+        return tomllib.loads(text.removeprefix("\ufeff")), str(path)
     except (tomllib.TOMLDecodeError, RecursionError) as err:
         raise TemplateError(f"{path}: invalid TOML: {str(err)[:200]}") from None
 
@@ -217,10 +220,10 @@ def load_rules(kind: str, path: Path | None = None) -> Rules:
     data, src = read_toml(path, KINDS_INFO[kind].template)
     for key in data:
         if key not in ("kind", "rules"):
-            raise TemplateError(f"{src}: unknown key {key!r} (allowed: kind, rules)")
+            raise TemplateError(f"{src}: unknown key {shown(key)} (allowed: kind, rules)")
     if data.get("kind", kind) != kind:
-        raise TemplateError(f"{src}: kind = {data.get('kind')!r} does not match the spec's "
-                            f"kind {kind!r}")
+        raise TemplateError(f"{src}: kind = {shown(data.get('kind'))} does not match the spec's "
+                            f"kind {shown(kind)}")
     raw = data.get("rules")
     if not isinstance(raw, dict):
         raise TemplateError(f"{src}: needs a [rules] table")
@@ -230,8 +233,8 @@ def load_rules(kind: str, path: Path | None = None) -> Rules:
             import difflib
 
             near = difflib.get_close_matches(key, RULES[kind], n=1)
-            hint = f" (did you mean {near[0]!r}?)" if near else ""
-            raise TemplateError(f"{src}: [rules] unknown rule {key!r}{hint}")
+            hint = f" (did you mean {shown(near[0])}?)" if near else ""
+            raise TemplateError(f"{src}: [rules] unknown rule {shown(key)}{hint}")
     for key in RULES[kind]:
         if key not in raw:
             raise TemplateError(f"{src}: [rules] missing {key} (micrometres)")
@@ -239,7 +242,7 @@ def load_rules(kind: str, path: Path | None = None) -> Rules:
         if (isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v)
                 or not 0 < v <= MAX_RULE_UM):
             raise TemplateError(f"{src}: [rules] {key} must be a number > 0 and at most "
-                                f"{MAX_RULE_UM:g} um, got {v!r}")
+                                f"{MAX_RULE_UM:g} um, got {shown(v)}")
         values[key] = float(v)
     return Rules(kind, values, src)
 

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import json
 import signal
 import sys
 import time
@@ -25,7 +24,13 @@ from placer.output import OutputSet
 from placer.pattern import Pattern, check_against_spec, format_pattern
 from placer.repair import repair as run_repair
 from placer.repair import sensitivity
-from placer.report import format_arrangement, format_budget, format_grade, format_nets
+from placer.report import (
+    format_arrangement,
+    format_budget,
+    format_grade,
+    format_nets,
+    json_text,
+)
 from placer.score import Grade, grade_pattern
 from placer.search import Keys
 from placer.spec import NAME_RE, Spec, default_spec, load_spec
@@ -35,6 +40,27 @@ __all__ = ["cli"]
 F = TypeVar("F", bound=Callable[..., Any])
 
 _FILE = click.Path(exists=True, dir_okay=False, path_type=Path)
+MAX_TIME_LIMIT_S = 86_400.0       # a day: any real search ends far sooner
+
+
+class _Seconds(click.ParamType):
+    """A time limit: a finite number of seconds, more than 0 and at most a day."""
+
+    name = "seconds"
+
+    def convert(self, value: Any, param: Any, ctx: Any) -> float:
+        try:
+            v = float(value)
+        except (TypeError, ValueError):
+            self.fail(f"{str(value)[:40]!r} is not a number of seconds", param, ctx)
+        if not (0.0 < v <= MAX_TIME_LIMIT_S):        # also refuses nan
+            self.fail(f"{str(value)[:40]} is not in 0 < seconds <= {MAX_TIME_LIMIT_S:g}",
+                      param, ctx)
+        return v
+
+
+_TIME = _Seconds()
+_SEED = click.IntRange(min=0, max=2**63 - 1)
 
 
 def _user_errors(func: F) -> F:
@@ -42,8 +68,14 @@ def _user_errors(func: F) -> F:
 
     @wraps(func)
     def wrapper(*args: Any, **kwargs: Any) -> Any:
+        import warnings
+
         try:
-            return func(*args, **kwargs)
+            # overflow and 0/0 inside a model are handled where they matter (figures are
+            # checked finite before they are written); numpy's warnings are not for users
+            with np.errstate(all="ignore"), warnings.catch_warnings():
+                warnings.simplefilter("ignore", RuntimeWarning)
+                return func(*args, **kwargs)
         except PlacerError as err:
             raise click.ClickException(str(err)) from None
         except KeyboardInterrupt:
@@ -192,14 +224,14 @@ def grade(layout: Path, spec_path: Path | None, as_json: bool, budget_plot: Path
     if budget_plot is not None and bud is not None:
         from placer.plot import save_budget
 
-        save_budget(bud, spec.name, [budget_plot])
+        save_budget(bud, spec.name, [budget_plot], devices=spec.devices)
     if as_json:
         out = result.to_dict()
         out["budget"] = asdict(bud) if bud is not None else None
         out["recognised"] = {"format": rec.fmt, "notes": rec.notes,
                              "pitch_um": list(spec.array.pitch_um)}
         out["sensitivity"] = {"pair": worst_pair, "units": [asdict(u) for u in sens]}
-        click.echo(json.dumps(out, indent=2, allow_nan=False))
+        click.echo(json_text(out))
     else:
         click.echo(format_grade(result))
         if sens:
@@ -276,7 +308,7 @@ def _gradient_field(spec: Spec, grade: Grade) -> tuple[float, float] | None:
 
 
 _ARRANGE_FILES = ("pattern.txt", "report.json", "pattern.gds", "pattern.png", "pattern.svg",
-                  "budget.png", "candidate-*.txt")
+                  "budget.png", "candidate-*.txt", "candidate-*.png")
 
 
 @cli.command()
@@ -285,10 +317,10 @@ _ARRANGE_FILES = ("pattern.txt", "report.json", "pattern.gds", "pattern.png", "p
               required=True,
               help="Folder for pattern.txt, report.json, pattern.gds, pattern.png, "
                    "pattern.svg, budget.png (with [electrical]) and candidate-K.txt.")
-@click.option("--time-limit", "time_limit", type=click.FloatRange(min=0, min_open=True),
+@click.option("--time-limit", "time_limit", type=_TIME,
               default=60.0, show_default=True,
               help="Safety cap on the search in seconds; the search usually ends sooner.")
-@click.option("--seed", type=click.IntRange(min=0), default=0, show_default=True,
+@click.option("--seed", type=_SEED, default=0, show_default=True,
               help="Random seed; the same spec and seed give the same result.")
 @click.option("--candidates", "n_candidates", type=click.IntRange(min=0, max=50), default=0,
               show_default=True,
@@ -316,7 +348,7 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
     spec, tools = _tools(spec, template_path, layers_path, unit_gds, unit_cell)
     names = ["pattern.txt", "report.json", "pattern.gds", "pattern.png", "pattern.svg",
              *(["budget.png"] if spec.electrical is not None else []),
-             *(f"candidate-{i}.txt" for i in range(1, n_candidates + 1))]
+             *(f"candidate-{i}.{x}" for i in range(1, n_candidates + 1) for x in ("txt", "png"))]
     with OutputSet(out_dir, names, force, _ARRANGE_FILES) as out:
         progress = _Progress(not quiet and sys.stderr.isatty())
         _sigterm_as_interrupt()
@@ -336,20 +368,28 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
                       f"{result.keys.sigma_ppm:.6g} ppm"]
             out.write("pattern.txt", format_pattern(result.pattern, header))
             for i, cand in enumerate(result.candidates, start=1):
+                from placer.plot import save_preview
+
                 out.write(f"candidate-{i}.txt", format_pattern(cand.pattern, [
-                    f"{spec.name} candidate {i}: systematic {cand.systematic_ppm:.6g} ppm, "
-                    f"routing {cand.routing_um:.6g} um"]))
+                    f"{spec.name} candidate {i} ({cand.source}): systematic "
+                    f"{cand.systematic_ppm:.6g} ppm, routing {cand.routing_um:.6g} um",
+                    result.front_reference]))
+                save_preview(cand.pattern, spec.array.pitch_um,
+                             grade_pattern(cand.pattern, spec),
+                             f"{spec.name} candidate {i} ({cand.source}): routing "
+                             f"{cand.routing_um:.4g} um", [out.path(f"candidate-{i}.png")],
+                             cell_extent=block.cell.extent)
             report = {"spec": str(spec_path), "name": spec.name, "seed": seed,
                       "time_limit_s": time_limit, **result.to_dict(),
                       "pattern": format_pattern(result.pattern),
                       "layout": _layout_report(block),
                       "budget": asdict(bud) if bud is not None else None}
-            out.write("report.json", json.dumps(report, indent=2, allow_nan=False) + "\n")
+            out.write("report.json", json_text(report) + "\n")
             drawing.write(block, result.grade, out, "pattern")
             if bud is not None:
                 from placer.plot import save_budget
 
-                save_budget(bud, spec.name, [out.path("budget.png")])
+                save_budget(bud, spec.name, [out.path("budget.png")], devices=spec.devices)
             written = out.commit()
     click.echo(format_arrangement(result, spec))
     click.echo("")
@@ -409,15 +449,22 @@ def draw(pattern_path: Path, spec_path: Path | None, out_dir: Path, layers_path:
 @click.argument("spec_path", metavar="SPEC", type=_FILE)
 @click.option("--out", "out_dir", type=click.Path(file_okay=False, path_type=Path),
               required=True, help="Folder for <name>-compare.png and .pdf.")
-@click.option("--seed", type=click.IntRange(min=0), default=0, show_default=True,
+@click.option("--seed", type=_SEED, default=0, show_default=True,
               help="Seed of the optimised arrangement.")
-@click.option("--time-limit", "time_limit", type=click.FloatRange(min=0, min_open=True),
+@click.option("--time-limit", "time_limit", type=_TIME,
               default=60.0, show_default=True, help="Safety cap on the search in seconds.")
+@click.option("--paper", type=click.Choice(["a4", "letter"]), default="a4", show_default=True,
+              help="Page size of the sheet (landscape).")
 @click.option("--force", is_flag=True, help="Overwrite files already in --out.")
 @_user_errors
-def compare(spec_path: Path, out_dir: Path, seed: int, time_limit: float, force: bool) -> None:
-    """One page comparing clustered, interdigitated, mirrored and optimised arrangements."""
-    from placer.arrange import baseline_pattern, build_pattern
+def compare(spec_path: Path, out_dir: Path, seed: int, time_limit: float, paper: str,
+            force: bool) -> None:
+    """One page comparing clustered, interdigitated, mirrored and optimised arrangements.
+
+    Every arrangement is made on the core the search chose, so the figures differ by
+    arrangement alone.
+    """
+    from placer.arrange import baseline_patterns
     from placer.plot import save_comparison
     from placer.report import format_table
     from placer.routing import estimate_routing, mos_finger_nets
@@ -429,8 +476,7 @@ def compare(spec_path: Path, out_dir: Path, seed: int, time_limit: float, force:
         rows, cols = best.core_shape
         nets = mos_finger_nets(spec) if spec.kind == "mos" else None
         entries = []
-        for method in ("clustered", "interdigitated", "mirrored"):
-            pat = build_pattern(spec, baseline_pattern(spec, method, rows, cols), rows, cols)
+        for method, pat in baseline_patterns(spec, rows, cols):
             route = estimate_routing(pat, spec.array.pitch_um, spec.kind == "mos", nets)
             entries.append((method, pat, grade_pattern(pat, spec), route.total_tree_um))
         entries.append(("optimised", best.pattern, best.grade, best.routing.total_tree_um))
@@ -439,15 +485,68 @@ def compare(spec_path: Path, out_dir: Path, seed: int, time_limit: float, force:
                         f"{spec.name}: {units} on a {rows} x {cols} core, pitch "
                         f"{spec.array.pitch_um[0]:g} x {spec.array.pitch_um[1]:g} um "
                         "(model estimates)",
-                        [out.path(n) for n in names])
+                        [out.path(n) for n in names], paper=paper)
         written = out.commit()
     rows_txt = [[label, f"{max((p.linear_ppm for p in g.pairs), default=0):.3g}",
                  f"{max((p.quadratic_ppm for p in g.pairs), default=0):.3g}",
                  f"{max((p.correlated_sigma_ppm for p in g.pairs), default=0):.3g}",
                  f"{r:.4g}"] for label, _, g, r in entries]
+    click.echo(f"All four on the {rows} x {cols} core the search chose "
+               f"({best.shape_reason}).")
     click.echo(format_table(["arrangement", "linear ppm", "quad ppm", "sigma ppm", "wire um"],
                             rows_txt))
     click.echo("Wrote " + ", ".join(str(p) for p in written))
+
+
+@cli.command()
+@click.argument("spec_path", metavar="SPEC", type=_FILE)
+@click.option("--out", "out_dir", type=click.Path(file_okay=False, path_type=Path),
+              required=True, help="Folder for <name>-lesson.html.")
+@click.option("--pattern", "pattern_path", type=_FILE, default=None,
+              help="Open the page on this arrangement (a pattern of the spec's devices).")
+@click.option("--seed", type=_SEED, default=0, show_default=True,
+              help="Seed of the optimised arrangement.")
+@click.option("--time-limit", "time_limit", type=_TIME,
+              default=60.0, show_default=True, help="Safety cap on the search in seconds.")
+@click.option("--force", is_flag=True, help="Overwrite files already in --out.")
+@_user_errors
+def lesson(spec_path: Path, out_dir: Path, pattern_path: Path | None, seed: int,
+           time_limit: float, force: bool) -> None:
+    """One self-contained HTML page for teaching: swap units and watch every figure.
+
+    The page opens from disk in a browser (nothing to fetch); its buttons load the
+    clustered, interdigitated, mirrored and optimised arrangements (and yours, with
+    --pattern), and it exports the board as pattern text for grade.
+    """
+    from placer.arrange import baseline_patterns
+    from placer.lesson import MAX_LESSON_UNITS, LessonArrangement, lesson_data, render_page
+    from placer.pattern import read_pattern
+
+    spec = load_spec(spec_path)
+    if spec.n_units > MAX_LESSON_UNITS:
+        raise PlacerError(f"{spec_path}: {spec.n_units} units; the lesson page recomputes "
+                          f"every figure on each swap and handles at most "
+                          f"{MAX_LESSON_UNITS}")
+    own = None
+    if pattern_path is not None:
+        own = check_against_spec(read_pattern(pattern_path), spec, str(pattern_path))
+    name = f"{spec.name}-lesson.html"
+    with OutputSet(out_dir, [name], force) as out:
+        best = run_arrange(spec, seed=seed, time_limit_s=time_limit)
+        rows, cols = best.core_shape
+        notes = {"clustered": "each device's units side by side",
+                 "interdigitated": "devices alternating along the rows",
+                 "mirrored": "each row mirrored about the array's centre"}
+        items = [LessonArrangement(m, f"{notes[m]} ({rows} x {cols} core)", p)
+                 for m, p in baseline_patterns(spec, rows, cols)]
+        items.append(LessonArrangement("optimised", f"placer's search: {best.method}",
+                                       best.pattern))
+        if own is not None and pattern_path is not None:      # the page opens on it
+            items.insert(0, LessonArrangement(pattern_path.stem, f"from {pattern_path.name}",
+                                              own))
+        out.write(name, render_page(lesson_data(spec, items)))
+        written = out.commit()
+    click.echo(f"Wrote {written[0]}: open it in a browser (no network needed).")
 
 
 @cli.command()
@@ -458,9 +557,9 @@ def compare(spec_path: Path, out_dir: Path, seed: int, time_limit: float, force:
               help="Spec with the model assumptions (defaults apply without it).")
 @click.option("--max-swaps", type=click.IntRange(min=1, max=64), default=4, show_default=True,
               help="At most this many pairwise unit swaps.")
-@click.option("--seed", type=click.IntRange(min=0), default=0, show_default=True,
+@click.option("--seed", type=_SEED, default=0, show_default=True,
               help="Seed of the search that sets the target.")
-@click.option("--time-limit", "time_limit", type=click.FloatRange(min=0, min_open=True),
+@click.option("--time-limit", "time_limit", type=_TIME,
               default=30.0, show_default=True, help="Safety cap on that search in seconds.")
 @click.option("--force", is_flag=True, help="Overwrite files already in --out.")
 @_layout_options
@@ -512,20 +611,21 @@ def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, 
         header = [f"{spec.name} repaired from {layout.name} with {len(res.swaps)} swap(s)",
                   *(ln.strip() for ln in lines)]
         out.write("repaired.txt", format_pattern(res.pattern, header))
+        moved = tuple(sorted({s for sw in res.swaps for s in (sw.first, sw.second)}))
         if block is not None:
-            drawing.write(block, grade_, out, "repaired")
+            drawing.write(block, grade_, out, "repaired", moved=moved)
         else:
             from placer.plot import save_preview
 
             save_preview(res.pattern, spec.array.pitch_um, grade_, spec.name,
-                         [out.path("repaired.png"), out.path("repaired.svg")])
+                         [out.path("repaired.png"), out.path("repaired.svg")], moved=moved)
         b, a = res.before, res.after
         report = {"layout": str(layout), "recognised": rec.notes,
                   "swaps": [asdict(sw) for sw in res.swaps], "before": asdict(b),
                   "after": asdict(a), "target_linear_um": res.target_linear_um,
                   "reached_target": res.reached_target, "grade": grade_.to_dict(),
                   "layout_nets": _layout_report(block) if block is not None else None}
-        out.write("repair.json", json.dumps(report, indent=2, allow_nan=False) + "\n")
+        out.write("repair.json", json_text(report) + "\n")
         written = out.commit()
     g = spec.gradient.linear_ppm_per_um
     click.echo(f"{len(res.swaps)} swap(s):" if res.swaps

@@ -12,14 +12,16 @@ from pathlib import Path
 from typing import Any
 
 from placer.cells import Rules, UnitCell, load_rules, unit_cell
+from placer.errors import LimitError
 from placer.layers import LayerMap, load_layers
 from placer.output import OutputSet
 from placer.pattern import Pattern
 from placer.router import Wiring, check_pitch, route
 from placer.score import Grade
-from placer.spec import Spec, with_computed_pitch
+from placer.spec import MAX_EXTENT_UM, Spec, with_computed_pitch
 
-__all__ = ["Block", "Tools", "load_tools", "prepare", "library", "write", "layout_of"]
+__all__ = ["Block", "Tools", "load_tools", "prepare", "library", "write", "layout_of",
+           "MAX_EXTENT_UM"]
 
 
 @dataclass(frozen=True)
@@ -69,6 +71,12 @@ def prepare(pattern: Pattern, spec: Spec, tools: Tools) -> Block:
     else:
         cell = unit_cell(spec.kind, spec.unit.width_um, spec.unit.length_um,
                          spec.array.pitch_um[0], tools.rules)
+    rows, cols = pattern.shape
+    px, py = spec.array.pitch_um
+    if max((cols + 2) * px, (rows + 2) * py) > MAX_EXTENT_UM:
+        raise LimitError(f"{spec.source}: the drawn array would span "
+                         f"{(cols + 2) * px:.4g} x {(rows + 2) * py:.4g} um, more than the "
+                         f"{MAX_EXTENT_UM:g} um a GDSII coordinate holds at 1 nm (int32)")
     wiring = route(pattern, spec, tools.rules, cell)
     return Block(pattern, spec, cell, wiring, tools)
 
@@ -93,8 +101,10 @@ def layout_of(pattern: Pattern, spec: Spec, template: Path | None = None,
 
 
 def write(block: Block, grade: Grade, out: OutputSet, stem: str,
-          gradient: tuple[float, float] | None = None) -> list[str]:
-    """Stage ``<stem>.gds``, ``.png`` and ``.svg``; return the names written."""
+          gradient: tuple[float, float] | None = None,
+          moved: tuple[tuple[int, int], ...] = ()) -> list[str]:
+    """Stage ``<stem>.gds``, ``.png`` and ``.svg``; return the names written. ``moved``
+    slots are outlined in the pictures."""
     from placer.gds import write_gds
     from placer.plot import save_preview
 
@@ -103,5 +113,5 @@ def write(block: Block, grade: Grade, out: OutputSet, stem: str,
     write_gds(lib, out.path(names[0]))
     save_preview(block.pattern, block.spec.array.pitch_um, grade, block.spec.name,
                  [out.path(names[1]), out.path(names[2])], gradient=gradient,
-                 cell_extent=block.cell.extent)
+                 cell_extent=block.cell.extent, moved=moved)
     return names

@@ -12,6 +12,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from placer.cells import TemplateError, read_toml
+from placer.errors import shown
 
 __all__ = ["ROLES", "LayerMap", "load_layers", "MAX_LAYER"]
 
@@ -45,14 +46,14 @@ def load_layers(path: Path | None = None) -> LayerMap:
     data, src = read_toml(path, "layers.toml")
     for key in data:
         if key not in ("layers", "connect"):
-            raise TemplateError(f"{src}: unknown table {key!r} (allowed: layers, connect)")
+            raise TemplateError(f"{src}: unknown table {shown(key)} (allowed: layers, connect)")
     raw = data.get("layers")
     if not isinstance(raw, dict):
         raise TemplateError(f"{src}: needs a [layers] table (role = [layer, datatype])")
     layers: dict[str, tuple[int, int]] = {}
     for key, value in raw.items():
         if key not in ROLES:
-            raise TemplateError(f"{src}: [layers] unknown role {key!r} (allowed: "
+            raise TemplateError(f"{src}: [layers] unknown role {shown(key)} (allowed: "
                                 f"{', '.join(ROLES)})")
         if (not isinstance(value, list) or len(value) != 2
                 or any(isinstance(v, bool) or not isinstance(v, int) for v in value)):

@@ -14,7 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
-from placer.errors import LimitError
+from placer.errors import LimitError, shown
 from placer.pattern import DUMMY, EMPTY, Pattern, parse_pattern
 from placer.spec import MAX_FILE_BYTES, MAX_SLOTS, NAME_RE, Spec
 from placer.stream import LayoutError, StreamLibrary, is_gdsii, parse_stream
@@ -86,7 +86,7 @@ def detect_format(head: bytes) -> str:
     """
     if is_gdsii(head):
         return "gds"
-    text = head.decode("utf-8", errors="replace").lstrip("\ufeff")
+    text = head.decode("utf-8", errors="replace").removeprefix("\ufeff")
     for line in text.splitlines():
         s = line.strip()
         if not s or s.startswith("#"):
@@ -118,7 +118,7 @@ def read_csv_units(text: str, source: str) -> list[Unit]:
     """
     units: list[Unit] = []
     cols: dict[str, int] | None = None
-    for lineno, line in enumerate(text.lstrip("\ufeff").splitlines(), start=1):
+    for lineno, line in enumerate(text.removeprefix("\ufeff").splitlines(), start=1):
         s = line.strip()
         if not s or s.startswith("#"):
             continue
@@ -148,19 +148,19 @@ def read_csv_units(text: str, source: str) -> list[Unit]:
             x, y = float(xs), float(ys)
         except ValueError:
             raise LayoutError(f"{source}:{lineno}: x and y must be numbers, got "
-                              f"{xs[:20]!r}, {ys[:20]!r}") from None
+                              f"{shown(xs, 20)}, {shown(ys, 20)}") from None
         if not (math.isfinite(x) and math.isfinite(y)) or max(abs(x), abs(y)) > 1e6:
             raise LayoutError(f"{source}:{lineno}: coordinates must be finite and within "
                               f"1 m, got {x:g}, {y:g}")
         name = cells[cols["device"]]
         if name != "." and not NAME_RE.match(name):
-            raise LayoutError(f"{source}:{lineno}: device {name[:40]!r} is not a name (letter, "
-                              "then letters, digits, _) or '.' for a dummy")
+            raise LayoutError(f"{source}:{lineno}: device {shown(name)} is not a name "
+                              "(letter, then letters, digits, _) or '.' for a dummy")
         o = cols.get("orientation")
         mark_text = cells[o] if o is not None and o < len(cells) else ""
         if mark_text not in ("", ">", "<"):
             raise LayoutError(f"{source}:{lineno}: orientation must be '>', '<' or empty, got "
-                              f"{mark_text[:10]!r}")
+                              f"{shown(mark_text[:10])}")
         units.append(Unit(x, y, None if name == "." else name,
                           {"": 0, ">": 1, "<": -1}[mark_text]))
         if len(units) > MAX_SLOTS:
@@ -191,7 +191,7 @@ def gds_units(lib: StreamLibrary, source: str, *, cell: str | None,
     cells = lib.structures
     if cell is not None:
         if cell not in cells:
-            raise LayoutError(f"{source}: no cell {cell[:64]!r} (cells: "
+            raise LayoutError(f"{source}: no cell {shown(cell[:64])} (cells: "
                               f"{', '.join(sorted(cells)[:10])[:300]})")
         top = cell
     else:
@@ -206,7 +206,7 @@ def gds_units(lib: StreamLibrary, source: str, *, cell: str | None,
                               "name it with --cell")
         top = with_refs[0]
     if not cells[top].refs:
-        raise LayoutError(f"{source}: cell {top[:64]!r} places no unit cells by reference")
+        raise LayoutError(f"{source}: cell {shown(top[:64])} places no unit cells by reference")
     boxes = _full_boxes(lib, source)
     labelled: dict[str, bool] = {}
 
@@ -289,7 +289,7 @@ def gds_units(lib: StreamLibrary, source: str, *, cell: str | None,
                 walk(r.cell, x, y, rf, a, m, depth + 1)
 
     walk(top, 0.0, 0.0, False, 0.0, 1.0, 0)
-    notes.append(f"top cell {top[:64]!r}: {len(placed)} unit references")
+    notes.append(f"top cell {shown(top[:64])}: {len(placed)} unit references")
     for (layer, dtype), k in sorted(skipped_texts.items()):
         notes.append(f"skipped {k} labels on layer {layer}/{dtype} (labels are read on "
                      f"{label_layer[0]}/{label_layer[1]})")
@@ -357,7 +357,7 @@ def _label_units(placed: list[tuple[str, float, float, bool, float]],
         i = int(inside[np.argmin(np.hypot(*(d[inside].T)))])
         owner.setdefault(i, []).append(text)
     if stray:
-        notes.append(f"skipped {len(stray)} labels lying on no unit, e.g. {stray[0][0]!r} at "
+        notes.append(f"skipped {len(stray)} labels lying on no unit, e.g. {shown(stray[0][0])} at "
                      f"({stray[0][1]:.4g}, {stray[0][2]:.4g}) um")
     units = []
     doubles = []
@@ -378,7 +378,7 @@ def _label_units(placed: list[tuple[str, float, float, bool, float]],
             unknown.append(f"({x:.4g}, {y:.4g}) um [{cell}]")
             continue
         if name is not None and not NAME_RE.match(name):
-            raise LayoutError(f"{source}: label {name[:40]!r} at ({x:.4g}, {y:.4g}) um is "
+            raise LayoutError(f"{source}: label {shown(name[:40])} at ({x:.4g}, {y:.4g}) um is "
                               "not a device name")
         mark = 0
         turn = round((ang % 360.0) / 90.0) % 4          # nearest quarter turn
@@ -404,8 +404,9 @@ def _label_units(placed: list[tuple[str, float, float, bool, float]],
             continue
         low = u.device.lower()
         if low in lowered and lowered[low] != u.device:
-            raise LayoutError(f"{source}: device labels {lowered[low]!r} and {u.device!r} "
-                              "differ only by case; name them apart (or alike) in the layout")
+            raise LayoutError(f"{source}: device labels {shown(lowered[low])} and "
+                              f"{shown(u.device)} differ only by case; name them apart (or "
+                              "alike) in the layout")
         lowered[low] = u.device
     return units
 
@@ -526,7 +527,7 @@ def units_to_pattern(units: list[Unit], source: str, notes: list[str],
             continue
         if u.device not in names:
             if spec is not None:
-                raise LayoutError(f"{source}: label {u.device!r} at ({u.x:.4g}, {u.y:.4g}) um "
+                raise LayoutError(f"{source}: label {shown(u.device)} at ({u.x:.4g}, {u.y:.4g}) um "
                                   f"matches no device of {spec.source} "
                                   f"({', '.join(spec.devices)})")
             names[u.device] = len(names)
@@ -576,7 +577,7 @@ def read_layout(path: Path, *, spec: Spec | None = None, cell: str | None = None
         notes.append(f"{len(units)} units from CSV rows")
     else:
         lib = parse_stream(data, str(path))
-        notes.append(f"GDSII library {lib.name!r}, {len(lib.structures)} cells, user unit "
+        notes.append(f"GDSII library {shown(lib.name)}, {len(lib.structures)} cells, user unit "
                      f"{lib.user_in_m:g} m")
         if abs(lib.user_in_m - 1e-6) > 1e-12:
             scale = lib.user_in_m / 1e-6

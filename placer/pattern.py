@@ -10,7 +10,7 @@ from pathlib import Path
 import numpy as np
 from numpy.typing import NDArray
 
-from placer.errors import LimitError, PatternError
+from placer.errors import LimitError, PatternError, shown
 from placer.spec import MAX_SLOTS, Spec, read_text
 
 __all__ = [
@@ -92,7 +92,7 @@ def parse_pattern(text: str, source: str = "<pattern>") -> Pattern:
     names: dict[str, int] = {}
     width = None
     first_line = 0
-    for lineno, line in enumerate(text.splitlines(), start=1):
+    for lineno, line in enumerate(text.removeprefix("\ufeff").splitlines(), start=1):
         stripped = line.strip()
         if not stripped or stripped.startswith("#"):
             continue
@@ -121,7 +121,7 @@ def parse_pattern(text: str, source: str = "<pattern>") -> Pattern:
             m = _TOKEN.match(token)
             if not m:
                 raise PatternError(
-                    f"{source}:{lineno}: token {col} {token!r} is not a device name (letter, "
+                    f"{source}:{lineno}: token {col} {shown(token)} is not a device name (letter, "
                     "then letters, digits, _; optionally > or <), '.' (dummy) or '-' (empty)")
             name = m.group(1)
             row.append(names.setdefault(name, len(names)))
@@ -135,8 +135,8 @@ def parse_pattern(text: str, source: str = "<pattern>") -> Pattern:
     lowered: dict[str, str] = {}
     for name in names:
         if name.lower() in lowered:
-            raise PatternError(f"{source}: device names {lowered[name.lower()]!r} and {name!r} "
-                               "differ only by case; names must stay distinct")
+            raise PatternError(f"{source}: device names {shown(lowered[name.lower()])} and "
+                               f"{shown(name)} differ only by case; names must stay distinct")
         lowered[name.lower()] = name
     return Pattern(tuple(names), np.array(rows, dtype=int), np.array(marks, dtype=np.int8))
 
@@ -176,12 +176,12 @@ def check_against_spec(pattern: Pattern, spec: Spec, source: str) -> Pattern:
     """Check the pattern holds exactly the spec's units; return it in spec device order."""
     unknown = [n for n in pattern.devices if n not in spec.devices]
     if unknown:
-        raise PatternError(f"{source}: device {unknown[0]!r} is not in the spec {spec.source} "
+        raise PatternError(f"{source}: device {shown(unknown[0])} is not in the spec {spec.source} "
                            f"(devices: {', '.join(spec.devices)})")
     ordered = pattern.reordered(spec.devices)
     for name, want, have in zip(spec.devices, spec.counts, ordered.counts(), strict=True):
         if want != have:
-            raise PatternError(f"{source}: device {name!r} has {have} units, the spec "
+            raise PatternError(f"{source}: device {shown(name)} has {have} units, the spec "
                                f"{spec.source} says {want}")
     return ordered
 

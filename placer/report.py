@@ -18,6 +18,37 @@ CAUTION = ("Figures are model estimates under the assumptions above; confirm wit
            "foundry's matching guidelines, extraction and the process's mismatch data.")
 
 
+def json_text(obj: Any) -> str:
+    """``obj`` as indented JSON; a NaN (a figure not computed, e.g. no bound without a
+    search) becomes null, and an infinite number is an internal error, never written.
+
+    Examples
+    --------
+    >>> print(json_text({"bound": float("nan"), "n": 2.5}))
+    {
+      "bound": null,
+      "n": 2.5
+    }
+    """
+    import json
+    import math
+
+    def clean(x: Any, where: str) -> Any:
+        if isinstance(x, float):
+            if math.isnan(x):
+                return None
+            if math.isinf(x):
+                raise ValueError(f"internal error: {where} is infinite")
+            return x
+        if isinstance(x, dict):
+            return {k: clean(v, f"{where}.{k}") for k, v in x.items()}
+        if isinstance(x, list | tuple):
+            return [clean(v, f"{where}[{i}]") for i, v in enumerate(x)]
+        return x
+
+    return json.dumps(clean(obj, "report"), indent=2, allow_nan=False)
+
+
 def format_table(header: list[str], rows: list[list[str]]) -> str:
     """Left-align the first column, right-align the rest.
 

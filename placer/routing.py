@@ -84,41 +84,43 @@ def orient_row(row: NDArray[np.int_], balance: dict[int, int] | None = None,
     ([-1, 1, -1, 1], 0)
     """
     balance = {} if balance is None else balance
-    n = len(row)
-    inf = 1 << 30
+    ids = [int(v) for v in row]
+    n = len(ids)
+    # (left, right) net of each device's finger: [device][0] for '<', [device][1] for '>'
+    ends = {d: (finger_terminals(d, -1, nets), finger_terminals(d, 1, nets))
+            for d in set(ids) if d >= 0}
     # cost[i][o]: fewest breaks up to finger i with orientation o (index 0: '<', 1: '>')
     cost = [[0, 0] for _ in range(n)]
     back = [[-1, -1] for _ in range(n)]
     for i in range(n):
-        d = int(row[i])
-        if d < 0:
-            best = min(cost[i - 1]) if i else 0
+        d = ids[i]
+        if i == 0:
+            continue                                   # nothing before: no breaks, no link
+        c0, c1 = cost[i - 1]
+        arg = 0 if c0 <= c1 else 1
+        if d < 0 or ids[i - 1] < 0:
+            best = c0 if arg == 0 else c1
             cost[i] = [best, best]
-            back[i] = [int(np.argmin(cost[i - 1])) if i else -1] * 2
+            back[i] = [arg, arg]
             continue
+        pe, de = ends[ids[i - 1]], ends[d]
+        r0, r1 = pe[0][1], pe[1][1]
         for o in (0, 1):
-            if i == 0 or row[i - 1] < 0:
-                prev = min(cost[i - 1]) if i else 0
-                cost[i][o] = prev
-                back[i][o] = int(np.argmin(cost[i - 1])) if i else -1
-                continue
-            left = finger_terminals(d, 1 if o else -1, nets)[0]
-            options = []
-            for p in (0, 1):
-                right = finger_terminals(int(row[i - 1]), 1 if p else -1, nets)[1]
-                options.append(cost[i - 1][p] + (0 if right == left else 1))
-            p = int(np.argmin(options))
-            cost[i][o] = options[p] if options[p] < inf else inf
+            left = de[o][0]
+            opt0 = c0 + (r0 != left)
+            opt1 = c1 + (r1 != left)
+            p = 0 if opt0 <= opt1 else 1
+            cost[i][o] = opt0 if p == 0 else opt1
             back[i][o] = p
     # trace back, preferring the orientation that evens out the tally at each tie
     marks = [0] * n
-    o = int(np.argmin(cost[-1]))
-    if cost[-1][0] == cost[-1][1] and row[-1] >= 0:
-        o = 1 if balance.get(int(row[-1]), 0) <= 0 else 0
+    o = 0 if cost[-1][0] <= cost[-1][1] else 1
+    if cost[-1][0] == cost[-1][1] and ids[-1] >= 0:
+        o = 1 if balance.get(ids[-1], 0) <= 0 else 0
     for i in range(n - 1, -1, -1):
-        if row[i] >= 0:
+        if ids[i] >= 0:
             marks[i] = 1 if o else -1
-            balance[int(row[i])] = balance.get(int(row[i]), 0) + marks[i]
+            balance[ids[i]] = balance.get(ids[i], 0) + marks[i]
         o = back[i][o] if back[i][o] >= 0 else 0
     return marks, int(min(cost[-1]))
 

@@ -9,7 +9,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from placer.errors import LimitError, PlacerError, SpecError
+from placer.errors import LimitError, PlacerError, SpecError, shown
 
 __all__ = [
     "NAME_RE",
@@ -18,6 +18,9 @@ __all__ = [
     "KERNELS",
     "MAX_UNITS",
     "MAX_SLOTS",
+    "MAX_SIDE",
+    "MAX_DEVICES",
+    "MAX_SLOT_DEVICES",
     "MAX_FILE_BYTES",
     "ArraySpec",
     "UnitSpec",
@@ -51,6 +54,14 @@ KERNELS = ("exponential", "gaussian")
 #: Limits checked before any work starts, so absurd inputs fail at once.
 MAX_UNITS = 65_536
 MAX_SLOTS = 262_144
+MAX_SIDE = 1024            # rows or columns of a core (a pattern adds its dummy ring)
+MAX_DEVICES = 256          # 32 640 pairs
+MAX_SLOT_DEVICES = 1 << 24  # slots x devices: the size of the search's per-device fields
+MAX_EXTENT_UM = 1e6        # drawn span: GDSII coordinates are int32 of 1 nm (2.1 m)
+MAX_DAC_BITS = 16          # the capacitor budget evaluates all 2^bits codes
+MAX_DAC_WORK = 1 << 27     # [electrical] mc_samples x 2^bits
+MAX_MC_UNITS = 2048        # [monte_carlo] factorises the units' correlation (units^2)
+MAX_MC_WORK = 1 << 25      # [monte_carlo] samples x pairs and units x pairs
 MAX_NAME = 24
 MAX_NET = 32
 MAX_FILE_BYTES = 4 * 1024 * 1024
@@ -265,6 +276,19 @@ class Spec:
                 out.append(pair)
         return out
 
+    def budget_devices(self) -> list[str]:
+        """The devices the electrical budget covers: all of them, or with groups the
+        group holding the reference (mirrors, resistors) or the termination (capacitor
+        arrays)."""
+        e = self.electrical
+        if not self.placement.groups or e is None:
+            return list(self.devices)
+        anchor = (e.termination if self.kind == "cap" else e.reference) or self.devices[0]
+        for g in self.placement.groups:
+            if anchor in g.devices:
+                return [d for d in self.devices if d in g.devices]
+        return list(self.devices)
+
     def group_of(self) -> dict[str, str]:
         """Group name of every device ('' when the spec names no groups)."""
         return {d: g.name for g in self.placement.groups for d in g.devices}
@@ -322,11 +346,11 @@ def check_name(name: str, what: str) -> str:
     'IOUT_2'
     """
     if not NAME_RE.match(name):
-        raise SpecError(f"{what} {name!r} is invalid: use a letter, then letters, digits or _")
+        raise SpecError(f"{what} {shown(name)} is invalid: use a letter, then letters, digits or _")
     if len(name) > MAX_NAME:
-        raise SpecError(f"{what} {name!r} is longer than {MAX_NAME} characters")
+        raise SpecError(f"{what} {shown(name)} is longer than {MAX_NAME} characters")
     if name.lower() in _RESERVED:
-        raise SpecError(f"{what} {name!r} is a reserved file name on some systems")
+        raise SpecError(f"{what} {shown(name)} is a reserved file name on some systems")
     return name
 
 
@@ -354,6 +378,51 @@ _SCHEMA: dict[str, tuple[str, ...]] = {
 }
 
 
+# The range every number of a spec must lie in, by table and key ("*" = any table); the
+# bounds are generous for any real process but keep every later product finite. A number
+# outside is refused with its key and this range.
+_RANGES: dict[tuple[str, str], tuple[float, float, str]] = {
+    ("array", "aspect"): (0.01, 100.0, ""),
+    ("unit", "width_um"): (0.001, 10_000.0, " um"),
+    ("unit", "length_um"): (0.001, 10_000.0, " um"),
+    ("correlated", "sigma_ppm"): (0.0, 1e6, " ppm"),
+    ("correlated", "length_um"): (0.001, 1e6, " um"),
+    ("mismatch", "a_param_pct_um"): (0.0, 100.0, " %um"),
+    ("mismatch", "a_vt_mv_um"): (0.0, 1000.0, " mV um"),
+    ("search", "relative_tie"): (0.0, 0.1, ""),
+    ("routing", "metal1_ohm_per_um"): (0.0, 1e6, " ohm/um"),
+    ("routing", "metal2_ohm_per_um"): (0.0, 1e6, " ohm/um"),
+    ("routing", "via_ohm"): (0.0, 1e6, " ohm"),
+    ("routing", "wire_ff_per_um"): (0.0, 1e3, " fF/um"),
+    ("gradient", "linear_ppm_per_um"): (0.0, 1e5, " ppm/um"),
+    ("gradient", "linear_pct_per_mm"): (0.0, 1e4, " %/mm"),
+    ("gradient", "quadratic_ppm_per_um2"): (0.0, 1e4, " ppm/um2"),
+    ("gradient", "vt_mv_per_mm"): (0.0, 1e4, " mV/mm"),
+    ("gradient", "beta_pct_per_mm"): (0.0, 1e4, " %/mm"),
+    ("gradient", "direction_deg"): (-360.0, 360.0, " degrees"),
+    ("gradient.hot_spot", "x_um"): (-1e6, 1e6, " um"),
+    ("gradient.hot_spot", "y_um"): (-1e6, 1e6, " um"),
+    ("gradient.hot_spot", "ppm"): (-1e6, 1e6, " ppm"),
+    ("gradient.hot_spot", "fall_off_um"): (0.001, 1e6, " um"),
+    ("electrical", "k_sigma"): (0.1, 10.0, ""),
+    ("electrical", "tolerance_pct"): (1e-6, 100.0, " %"),
+    ("electrical", "vov_v"): (0.05, 5.0, " V (square law; below 50 mV give gm_id_per_v)"),
+    ("electrical", "gm_id_per_v"): (0.1, 40.0, " 1/V (weak inversion limit, about "
+                                    "1/(n kT/q))"),
+    ("electrical", "lambda_per_v"): (0.0, 10.0, " 1/V"),
+    ("electrical", "a_vt_mv_um"): (0.0, 1000.0, " mV um"),
+    ("electrical", "a_beta_pct_um"): (0.0, 100.0, " %um"),
+    ("electrical.vds_v", "*"): (0.0, 1000.0, " V"),
+    ("electrical.weights", "*"): (0.0, 1e9, ""),
+}
+MAX_SEED = 2**63 - 1
+
+
+def number_range(table: str, key: str) -> tuple[float, float, str]:
+    """The (low, high, unit) a spec number at [table] key must lie in."""
+    return _RANGES.get((table, key)) or _RANGES.get((table, "*")) or (-1e12, 1e12, "")
+
+
 class _Reader:
     """Pull typed, checked values out of one TOML table, remembering where."""
 
@@ -369,9 +438,9 @@ class _Reader:
             for key in data:
                 if key not in allowed:
                     near = difflib.get_close_matches(key, allowed, n=1)
-                    hint = f" (did you mean {near[0]!r}?)" if near else \
+                    hint = f" (did you mean {shown(near[0])}?)" if near else \
                         f" (allowed: {', '.join(allowed)})"
-                    raise SpecError(f"{self.where} unknown key {key!r}{hint}")
+                    raise SpecError(f"{self.where} unknown key {shown(key)}{hint}")
 
     def fail(self, key: str, problem: str) -> SpecError:
         return SpecError(f"{self.where} {key} {problem}")
@@ -383,9 +452,13 @@ class _Reader:
         value = self.data[key]
         if isinstance(value, bool) or not isinstance(value, int | float):
             raise self.fail(key, f"must be a number, got {_typename(value)}")
-        value = float(value)
-        if value != value or value in (float("inf"), float("-inf")):
+        if isinstance(value, float) and (value != value or abs(value) == float("inf")):
             raise self.fail(key, "must be finite")
+        low, high, unit = number_range(self.table, key)
+        if not low <= value <= high:        # exact for any int: no float overflow here
+            raise self.fail(key, f"must be between {low:g} and {high:g}{unit}, got "
+                                 f"{shown(value)}")
+        value = float(value)
         if positive and (value < 0 or (value == 0 and not allow_zero)):
             raise self.fail(key, f"must be {'>= 0' if allow_zero else '> 0'}, got {value:g}")
         return value
@@ -396,11 +469,13 @@ class _Reader:
             return default
         value = self.data[key]
         if isinstance(value, bool) or not isinstance(value, int):
-            raise self.fail(key, f"must be a whole number, got {_typename(value)} {value!r}")
+            raise self.fail(key, f"must be a whole number, got {shown(value)}")
         if value < low:
-            raise self.fail(key, f"must be >= {low}, got {value}")
+            raise self.fail(key, f"must be >= {low}, got {shown(value)}")
+        if high is None and key in ("seed", "mc_seed"):
+            high = MAX_SEED
         if high is not None and value > high:
-            raise LimitError(f"{self.where} {key} = {value} exceeds the limit of {high}")
+            raise LimitError(f"{self.where} {key} = {shown(value)} exceeds the limit of {high}")
         return value
 
     def flag(self, key: str, default: bool) -> bool:
@@ -417,7 +492,7 @@ class _Reader:
         value = self.data[key]
         if value not in options:
             allowed = ", ".join(repr(o) for o in options)
-            raise self.fail(key, f"must be one of {allowed}, got {value!r}")
+            raise self.fail(key, f"must be one of {allowed}, got {shown(value)}")
         return str(value)
 
 
@@ -450,17 +525,80 @@ def read_text(path: Path, what: str, error: type[PlacerError]) -> str:
     except OSError as err:
         raise error(f"{path}: cannot read: {err.strerror or err}") from err
     try:
-        return raw.decode("utf-8")
+        return raw.decode("utf-8").removeprefix("\ufeff")   # one byte-order mark: allowed
     except UnicodeDecodeError as err:
         raise error(f"{path}: not a UTF-8 text file (byte {err.start})") from err
 
 
+MAX_TOML_DEPTH = 32        # tables, arrays and dotted keys: a spec needs 4
+
+
+def toml_depth(text: str) -> int:
+    """How deeply TOML ``text`` nests (brackets plus dotted-key parts), found by one pass
+    over the characters outside strings and comments -- before the parser, whose cost
+    grows faster than the text on hostile nesting.
+
+    Examples
+    --------
+    >>> toml_depth('a = 1.5\\n[b.c]\\nd = [[1, 2], {e.f = "x.y"}]\\n')
+    3
+    """
+    depth = 0
+    deepest = 0
+    dots = 0
+    stack: list[str] = []
+    in_key = True
+    i, n = 0, len(text)
+    while i < n:
+        ch = text[i]
+        if text.startswith('"""', i) or text.startswith("'''", i):
+            end = text.find(text[i:i + 3], i + 3)
+            i = n if end < 0 else end + 3
+            continue
+        if ch in "\"'":
+            j = i + 1
+            while j < n and text[j] != ch and text[j] != "\n":
+                j += 2 if (ch == '"' and text[j] == "\\") else 1
+            i = j + 1
+            continue
+        if ch == "#":
+            end = text.find("\n", i)
+            i = n if end < 0 else end
+            continue
+        if ch == "\n":
+            if not stack:
+                in_key, dots = True, 0
+        elif ch in "[{":
+            stack.append(ch)
+            depth += 1
+            in_key = ch == "{" or (in_key and len(stack) <= 2)
+        elif ch in "]}":
+            if stack:
+                stack.pop()
+            depth = max(depth - 1, 0)
+        elif ch == "=":
+            in_key = False
+        elif ch == "," and stack and stack[-1] == "{":
+            in_key, dots = True, 0
+        elif ch == "." and in_key:
+            dots += 1
+        deepest = max(deepest, depth + dots)
+        i += 1
+    return deepest
+
+
 def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") -> Spec:
     """Parse spec text; ``source`` names it in error messages."""
+    if toml_depth(text) > MAX_TOML_DEPTH:
+        raise LimitError(f"{source}: tables, arrays or dotted keys nest deeper than "
+                         f"{MAX_TOML_DEPTH} levels; a spec needs at most 4")
     try:
-        data = tomllib.loads(text)
+        data = tomllib.loads(text.removeprefix("\ufeff"))
     except tomllib.TOMLDecodeError as err:
         raise SpecError(f"{source}: invalid TOML: {err}") from err
+    except RecursionError:
+        raise SpecError(f"{source}: invalid TOML: nested too deeply (a spec needs at most "
+                        "3 levels)") from None
     top = _Reader(source, "", data)
 
     name = data.get("name", _safe_default_name(default_name))
@@ -482,15 +620,18 @@ def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") 
     seen: dict[str, str] = {}
     for key in dev.data:
         if not NAME_RE.match(key):
-            raise SpecError(f"{source}: [devices] name {key!r} is invalid: use a letter, "
+            raise SpecError(f"{source}: [devices] name {shown(key)} is invalid: use a letter, "
                             "then letters, digits or _")
         if len(key) > MAX_NAME:
-            raise SpecError(f"{source}: [devices] name {key!r} is longer than {MAX_NAME} "
+            raise SpecError(f"{source}: [devices] name {shown(key)} is longer than {MAX_NAME} "
                             "characters")
         if key.lower() in seen:
-            raise SpecError(f"{source}: [devices] {key!r} and {seen[key.lower()]!r} differ only "
-                            "by case; names must stay distinct in GDSII and file names")
+            raise SpecError(f"{source}: [devices] {shown(key)} and {shown(seen[key.lower()])} "
+                            "differ only by case; names must stay distinct in GDSII and file "
+                            "names")
         seen[key.lower()] = key
+        if len(names) == MAX_DEVICES:
+            raise LimitError(f"{source}: [devices] more than {MAX_DEVICES} devices, the limit")
         count = dev.integer(key, None, low=1, high=MAX_UNITS)
         assert count is not None
         names.append(key)
@@ -500,8 +641,8 @@ def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") 
                          f"{MAX_UNITS}")
 
     arr = _Reader(source, "array", data.get("array", {}))
-    rows = arr.integer("rows", None, high=MAX_SLOTS)
-    columns = arr.integer("columns", None, high=MAX_SLOTS)
+    rows = arr.integer("rows", None, high=MAX_SIDE)
+    columns = arr.integer("columns", None, high=MAX_SIDE)
     mask = _mask(arr, rows, columns)
     if mask is not None:
         rows, columns = len(mask), len(mask[0])
@@ -514,6 +655,10 @@ def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") 
         if rows * columns > MAX_SLOTS:
             raise LimitError(f"{source}: [array] {rows} x {columns} slots exceed the limit of "
                              f"{MAX_SLOTS}")
+        if rows * columns * len(names) > MAX_SLOT_DEVICES:
+            raise LimitError(f"{source}: [array] {rows} x {columns} slots for {len(names)} "
+                             f"devices exceed the limit of {MAX_SLOT_DEVICES} slot-devices "
+                             "(slots x devices); use fewer devices or a smaller array")
         usable = (rows * columns if mask is None
                   else sum(row.count(".") for row in mask))
         if usable < sum(counts):
@@ -523,6 +668,12 @@ def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") 
                             "enlarge rows or columns" if mask is None else
                             f"{source}: [array] {what} cannot hold {sum(counts)} units; "
                             "free more slots")
+    n_units = sum(counts)
+    for given, other, what in ((rows, columns, "columns"), (columns, rows, "rows")):
+        if given is not None and other is None and -(-n_units // given) > MAX_SIDE:
+            raise LimitError(f"{source}: [array] {n_units} units need "
+                             f"{-(-n_units // given)} {what}, more than the limit of "
+                             f"{MAX_SIDE}; give more {'rows' if what == 'columns' else 'columns'}")
     holes = arr.flag("holes", True)
     symmetry = arr.choice("symmetry", "none", SYMMETRY_CHOICES)
     if not holes and rows is not None and columns is not None and rows * columns > sum(counts):
@@ -571,8 +722,6 @@ def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") 
     se = _Reader(source, "search", raw_search)
     ds = SearchSpec()
     tie = _num(se, "relative_tie", ds.relative_tie)
-    if not 0 <= tie <= 0.1:
-        raise se.fail("relative_tie", f"must be between 0 and 0.1, got {tie:g}")
     search = SearchSpec(
         se.choice("objective", ds.objective, OBJECTIVES),
         se.integer("cancel_order", ds.cancel_order, low=1, high=4) or ds.cancel_order,
@@ -599,9 +748,46 @@ def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") 
                 nets=nets, joins=joins, dummy_net=dummy_net, routing=routing,
                 placement=placement)
     try:
-        return with_computed_pitch(spec)
+        spec = with_computed_pitch(spec)
     except PlacerError as err:
         raise SpecError(f"{source}: {err}") from None
+    _check_work(spec)
+    return spec
+
+
+def _check_work(spec: Spec) -> None:
+    """Refuse, before any work, budgets and Monte Carlo runs too large to finish."""
+    src = spec.source
+    rows, cols = spec.array.rows, spec.array.columns
+    px, py = spec.array.pitch_um
+    if rows is not None and cols is not None and max((cols + 2) * px,
+                                                      (rows + 2) * py) > MAX_EXTENT_UM:
+        raise LimitError(f"{src}: [array] {rows} x {cols} slots at pitch [{px:g}, {py:g}] um "
+                         f"would span {(cols + 2) * px:.4g} x {(rows + 2) * py:.4g} um, more "
+                         f"than the {MAX_EXTENT_UM:g} um a GDSII coordinate holds at 1 nm")
+    e = spec.electrical
+    if e is not None and spec.kind == "cap":
+        bits = len([d for d in spec.budget_devices() if d != e.termination])
+        if bits > MAX_DAC_BITS:
+            raise LimitError(f"{src}: [electrical] {bits} switched capacitors; the budget "
+                             f"evaluates every code and handles at most {MAX_DAC_BITS} bits "
+                             "(name a termination, or group the devices)")
+        if e.mc_samples * 2 ** bits > MAX_DAC_WORK:
+            raise LimitError(f"{src}: [electrical] mc_samples = {e.mc_samples} over "
+                             f"{2 ** bits} codes exceeds the limit of {MAX_DAC_WORK} "
+                             f"code samples; use at most {MAX_DAC_WORK >> bits} samples")
+    m = spec.monte_carlo
+    if m.samples > 0:
+        pairs = max(len(spec.ranked_pairs()), 1)
+        if spec.n_units > MAX_MC_UNITS:
+            raise LimitError(f"{src}: [monte_carlo] samples the correlation of every unit "
+                             f"pair; {spec.n_units} units exceed its limit of {MAX_MC_UNITS} "
+                             "(remove [monte_carlo]: the exact figures need no sampling)")
+        if m.samples * pairs > MAX_MC_WORK or spec.n_units * pairs > MAX_MC_WORK:
+            raise LimitError(f"{src}: [monte_carlo] samples = {m.samples} for {pairs} device "
+                             f"pairs and {spec.n_units} units exceed the limit of "
+                             f"{MAX_MC_WORK} values; use at most "
+                             f"{max(MAX_MC_WORK // pairs, 1)} samples or fewer devices")
 
 
 def _gradient(source: str, gr: _Reader, kind: str, el: ElectricalSpec | None) -> GradientSpec:
@@ -617,7 +803,8 @@ def _gradient(source: str, gr: _Reader, kind: str, el: ElectricalSpec | None) ->
     vt = beta = None
     if mos_keys:
         if kind != "mos":
-            raise gr.fail(mos_keys[0], f"applies to kind = \"mos\" only (this spec is {kind!r})")
+            raise gr.fail(mos_keys[0],
+                          f"applies to kind = \"mos\" only (this spec is {shown(kind)})")
         if el is None:
             raise gr.fail(mos_keys[0], "needs gm/ID to combine the threshold and current-factor "
                                        "gradients: give [electrical] vov_v or gm_id_per_v")
@@ -667,13 +854,13 @@ def _mask(arr: _Reader, rows: int | None, columns: int | None) -> tuple[str, ...
         for i, ln in enumerate(lines, start=1):
             bad = sorted(set(ln) - set(MASK_CHARS))
             if bad:
-                raise arr.fail("mask", f"line {i} holds {bad[0]!r}; use '.' (usable), '#' "
+                raise arr.fail("mask", f"line {i} holds {shown(bad[0])}; use '.' (usable), '#' "
                                        "(keep-out) or '-' (outside the footprint)")
             if len(ln) != width:
                 raise arr.fail("mask", f"line {i} has {len(ln)} slots, line 1 has {width}")
-        if len(lines) * width > MAX_SLOTS:
-            raise LimitError(f"{arr.where} mask has {len(lines) * width} slots, the limit is "
-                             f"{MAX_SLOTS}")
+        if len(lines) * width > MAX_SLOTS or max(len(lines), width) > MAX_SIDE:
+            raise LimitError(f"{arr.where} mask has {len(lines)} x {width} slots, the limit "
+                             f"is {MAX_SLOTS} slots and {MAX_SIDE} a side")
         if rows is not None and rows != len(lines):
             raise arr.fail("mask", f"has {len(lines)} rows, rows = {rows}")
         if columns is not None and columns != width:
@@ -735,7 +922,7 @@ def _placement(source: str, data: dict[str, Any], names: list[str], counts: list
                 raise SpecError(f"{where} slot [{r}, {c}] is not usable in the mask")
             if (r, c) in taken:
                 raise SpecError(f"{where} slot [{r}, {c}] is already pinned to "
-                                f"{taken[r, c]!r}")
+                                f"{shown(taken[r, c])}")
             taken[r, c] = dev
             pins.append((dev, r, c))
     groups: list[GroupSpec] = []
@@ -753,16 +940,16 @@ def _placement(source: str, data: dict[str, Any], names: list[str], counts: list
             if key not in ("devices", "rows"):
                 hint = (" (one kind per spec: every group shares the spec's unit cell)"
                         if key == "kind" else "")
-                raise SpecError(f"{where} unknown key {key!r} (allowed: devices, rows){hint}")
+                raise SpecError(f"{where} unknown key {shown(key)} (allowed: devices, rows){hint}")
         devs = g.get("devices")
         if not isinstance(devs, list) or not devs or not all(isinstance(d, str) for d in devs):
             raise SpecError(f"{where} devices must be a list of device names")
         for d in devs:
             if d not in index:
-                raise SpecError(f"{where} device {d!r} is not in [devices]")
+                raise SpecError(f"{where} device {shown(d)} is not in [devices]")
             if d in seen:
-                raise SpecError(f"{where} device {d!r} is already in group {seen[d]!r}; a "
-                                "device belongs to one group")
+                raise SpecError(f"{where} device {shown(d)} is already in group "
+                                f"{shown(seen[d])}; a device belongs to one group")
             seen[d] = gname
         grows = g.get("rows")
         if grows is not None:
@@ -787,11 +974,11 @@ def _placement(source: str, data: dict[str, Any], names: list[str], counts: list
         for dev, r, c in pins:
             if dev in g.devices and r not in g.rows:
                 raise SpecError(f"{source}: [pins] {dev} at [{r}, {c}] lies outside the rows "
-                                f"{list(g.rows)} of its group {g.name!r}")
+                                f"{list(g.rows)} of its group {shown(g.name)}")
     if groups:
         loose = [n for n in names if n not in seen]
         if loose:
-            raise SpecError(f"{source}: [groups] device {loose[0]!r} is in no group; give "
+            raise SpecError(f"{source}: [groups] device {shown(loose[0])} is in no group; give "
                             "every device a group")
     match: list[tuple[str, str]] = []
     raw_match = data.get("match", {})
@@ -799,7 +986,7 @@ def _placement(source: str, data: dict[str, Any], names: list[str], counts: list
         raise SpecError(f"{source}: [match] must be a table with pairs = [[A, B], ...]")
     for key in raw_match:
         if key != "pairs":
-            raise SpecError(f"{source}: [match] unknown key {key!r} (allowed: pairs)")
+            raise SpecError(f"{source}: [match] unknown key {shown(key)} (allowed: pairs)")
     for p in raw_match.get("pairs", []):
         if (not isinstance(p, list) or len(p) != 2
                 or not all(isinstance(d, str) and d in index for d in p) or p[0] == p[1]):
@@ -830,14 +1017,14 @@ def _check_symmetry(source: str, pl: Placement, names: list[str], counts: list[i
         for c in range(columns):
             mr, mc = mirror(r, c)
             if (mask[r][c] == ".") != (mask[mr][mc] == "."):
-                raise SpecError(f"{source}: [array] symmetry = {pl.symmetry!r}, but slot "
+                raise SpecError(f"{source}: [array] symmetry = {shown(pl.symmetry)}, but slot "
                                 f"[{r}, {c}] is usable and its mirror [{mr}, {mc}] is not")
     pinned = {(r, c): d for d, r, c in pl.pins}
     for (r, c), d in pinned.items():
         m = mirror(r, c)
         if m != (r, c) and pinned.get(m) != d:
             raise SpecError(f"{source}: [pins] {d} at [{r}, {c}] under symmetry = "
-                            f"{pl.symmetry!r} needs its mirror [{m[0]}, {m[1]}] pinned to "
+                            f"{shown(pl.symmetry)} needs its mirror [{m[0]}, {m[1]}] pinned to "
                             f"{d} too")
     centre = sum(1 for r in range(rows) for c in range(columns)
                  if mask[r][c] == "." and mirror(r, c) == (r, c) and (r, c) not in pinned)
@@ -845,7 +1032,7 @@ def _check_symmetry(source: str, pl: Placement, names: list[str], counts: list[i
             zip(names, counts, strict=True)]
     odd = sum(1 for n in free if n % 2)
     if odd > centre:
-        raise SpecError(f"{source}: [array] symmetry = {pl.symmetry!r} leaves {centre} slots "
+        raise SpecError(f"{source}: [array] symmetry = {shown(pl.symmetry)} leaves {centre} slots "
                         f"on the axis, but {odd} devices have an odd number of free units: "
                         "each needs one; make the counts even or the core odd across the axis")
 
@@ -855,7 +1042,7 @@ def _net_name(where: str, key: str, value: Any) -> str:
         raise SpecError(f"{where} {key} must be a net name (a string), got "
                         f"{_typename(value)}")
     if not NAME_RE.match(value) or len(value) > MAX_NET:
-        raise SpecError(f"{where} {key} net {value[:40]!r} is invalid: use a letter, then "
+        raise SpecError(f"{where} {key} net {shown(value[:40])} is invalid: use a letter, then "
                         f"letters, digits or _ (at most {MAX_NET} characters)")
     return value
 
@@ -871,8 +1058,9 @@ def _terminals(source: str, raw: Any, kind: str, names: list[str], counts: list[
     for key in raw:
         if key not in names:
             near = difflib.get_close_matches(key, names, n=1)
-            hint = f" (did you mean {near[0]!r}?)" if near else f" (devices: {', '.join(names)})"
-            raise SpecError(f"{source}: [terminals] {key!r} is not a device{hint}")
+            hint = (f" (did you mean {shown(near[0])}?)" if near
+                    else f" (devices: {', '.join(names)})")
+            raise SpecError(f"{source}: [terminals] {shown(key)} is not a device{hint}")
     allowed = info.terminals + (("join",) if kind == "res" else ())
     nets: list[dict[str, str]] = []
     joins: list[str] = []
@@ -885,8 +1073,8 @@ def _terminals(source: str, raw: Any, kind: str, names: list[str], counts: list[
         for key in given:
             if key not in allowed:
                 near = difflib.get_close_matches(key, allowed, n=1)
-                hint = f" (did you mean {near[0]!r}?)" if near else ""
-                raise SpecError(f"{where}: unknown terminal {key!r} of a {kind} unit{hint} "
+                hint = f" (did you mean {shown(near[0])}?)" if near else ""
+                raise SpecError(f"{where}: unknown terminal {shown(key)} of a {kind} unit{hint} "
                                 f"(terminals: {', '.join(allowed)})")
         mine = default_nets(kind, name)
         for t in info.terminals:
@@ -894,26 +1082,26 @@ def _terminals(source: str, raw: Any, kind: str, names: list[str], counts: list[
                 mine[t] = _net_name(where, t, given[t])
         join = given.get("join", "series" if kind == "res" else "parallel")
         if join not in JOINS:
-            raise SpecError(f"{where} join must be 'series' or 'parallel', got {join!r}")
+            raise SpecError(f"{where} join must be 'series' or 'parallel', got {shown(join)}")
         nets.append(mine)
         joins.append(str(join))
     dummy = (default_dummy_net(kind, nets) if dummy_raw is None
              else _net_name(f"{source}: [array]", "dummy_net", dummy_raw))
-    lowered = {n.lower(): f"device {n!r}" for n in names}
+    lowered = {n.lower(): f"device {shown(n)}" for n in names}
     inner = {series_node(n, i).lower(): n for n, c, j in zip(names, counts, joins, strict=True)
              if j == "series" for i in range(1, c)}
     seen: dict[str, str] = {}
     for net in [*(v for m in nets for v in m.values()), dummy]:
         low = net.lower()
         if low in lowered:
-            raise SpecError(f"{source}: net {net!r} clashes with the {lowered[low]}: device "
+            raise SpecError(f"{source}: net {shown(net)} clashes with the {lowered[low]}: device "
                             "and net names must differ (labels of both are written)")
         if low in inner:
-            raise SpecError(f"{source}: net {net!r} clashes with an inner node of the series "
-                            f"resistor {inner[low]!r}; choose another net name")
+            raise SpecError(f"{source}: net {shown(net)} clashes with an inner node of the series "
+                            f"resistor {shown(inner[low])}; choose another net name")
         if low in seen and seen[low] != net:
-            raise SpecError(f"{source}: nets {seen[low]!r} and {net!r} differ only by case; "
-                            "net names must stay distinct in GDSII")
+            raise SpecError(f"{source}: nets {shown(seen[low])} and {shown(net)} differ only by "
+                            "case; net names must stay distinct in GDSII")
         seen[low] = net
     return tuple(nets), tuple(joins), dummy
 
@@ -925,7 +1113,7 @@ def _electrical(source: str, raw: Any, kind: str, names: list[str], counts: list
     d = ElectricalSpec()
     ref = el.data.get("reference")
     if ref is not None and ref not in names:
-        raise el.fail("reference", f"must name a device ({', '.join(names)}), got {ref!r}")
+        raise el.fail("reference", f"must name a device ({', '.join(names)}), got {shown(ref)}")
     common = {
         "reference": ref,
         "k_sigma": el.number("k_sigma", d.k_sigma) or d.k_sigma,
@@ -953,9 +1141,6 @@ def _electrical(source: str, raw: Any, kind: str, names: list[str], counts: list
             gm_id = 2.0 / vov          # square law: gm/ID = 2 / V_ov
         else:
             gm_id = el.number("gm_id_per_v", None) or 0.0
-            if gm_id > 40.0:
-                raise el.fail("gm_id_per_v", f"must be at most 40 1/V (weak inversion "
-                              f"limit, about 1/(n kT/q)), got {gm_id:g}")
         vr = _Reader(source, "electrical.vds_v", vds_raw)
         vds: dict[str, float] = {}
         for key in vr.data:
@@ -978,7 +1163,7 @@ def _electrical(source: str, raw: Any, kind: str, names: list[str], counts: list
         )
     for key in ("vov_v", "gm_id_per_v", "lambda_per_v", "vds_v"):
         if key in el.data:
-            raise el.fail(key, f"applies to kind = \"mos\" only (this spec is {kind!r})")
+            raise el.fail(key, f"applies to kind = \"mos\" only (this spec is {shown(kind)})")
     term = el.data.get("termination")
     if kind == "cap":
         if term is None:
@@ -988,7 +1173,7 @@ def _electrical(source: str, raw: Any, kind: str, names: list[str], counts: list
             term = None
         elif term not in names:
             raise el.fail("termination", f"must name a device ({', '.join(names)}) or be "
-                          f"\"none\", got {term!r}")
+                          f"\"none\", got {shown(term)}")
         if "weights" in el.data:
             wr = _Reader(source, "electrical.weights", el.data["weights"])
             count = dict(zip(names, counts, strict=True))
@@ -1022,9 +1207,10 @@ def _pitch(arr: _Reader) -> tuple[float, float]:
         value = [value, value]
     if (not isinstance(value, list) or len(value) != 2
             or any(isinstance(v, bool) or not isinstance(v, int | float) for v in value)):
-        raise arr.fail("pitch_um", f"must be [x, y] in um (two numbers), got {value!r}")
-    if not all(0 < v < 1e5 for v in value):
-        raise arr.fail("pitch_um", f"must be two numbers > 0 and < 100000 um, got {value!r}")
+        raise arr.fail("pitch_um", f"must be [x, y] in um (two numbers), got {shown(value)}")
+    if not all(0.001 <= v <= 1e5 for v in value):
+        raise arr.fail("pitch_um", "must be two numbers from 0.001 um (the GDSII grid) to "
+                       f"100000 um, got [{', '.join(f'{float(v):g}' for v in value)}]")
     return (float(value[0]), float(value[1]))
 
 

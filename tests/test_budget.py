@@ -146,13 +146,14 @@ def test_cap_array_budget_runs_on_a_common_centroid_array():
     ("[devices]\nA = 1\nB = 1\n[electrical]\nlambda_per_v = 0.1\n",
      r"missing vov_v \(overdrive, V\) or gm_id_per_v \(1/V\); \[electrical.vds_v\]"),
     ("[devices]\nA = 1\n[electrical]\nvov_v = 0\nlambda_per_v = 0\n[electrical.vds_v]\nA = 1\n",
-     "vov_v must be > 0"),
+     "vov_v must be between 0.05 and 5 V"),
     ("[devices]\nA = 1\nB = 1\n[electrical]\nvov_v = 0.2\nlambda_per_v = 0\n"
      "[electrical.vds_v]\nA = 1\n", r"\[electrical.vds_v\] missing B"),
     ('kind = "cap"\n[devices]\nA = 1\nB = 2\n[electrical]\n', "missing termination"),
     ('kind = "cap"\n[devices]\nA = 1\nB = 2\n[electrical]\ntermination = "A"\n'
      "weights = { B = 3 }\n", "weight 3 does not match its 2 unit cells"),
-    ("[devices]\nA = 1\n[unit]\nlength_um = -1\n", "length_um must be > 0"),
+    ("[devices]\nA = 1\n[unit]\nlength_um = -1\n",
+     "length_um must be between 0.001 and 10000 um"),
 ])
 def test_meaningless_or_missing_electrical_values_are_refused(text, match):
     with pytest.raises(SpecError, match=match):

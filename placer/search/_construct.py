@@ -48,11 +48,13 @@ def deal(counts: list[int] | tuple[int, ...], total: int | None = None) -> list[
     [1, 0, 2, 1]
     """
     total = sum(counts) if total is None else total
-    given = [0] * len(counts)
+    want = np.array(counts, dtype=np.int64)
+    given = np.zeros(len(counts), dtype=np.int64)
     out = []
     for i in range(total):
-        d = max(range(len(counts)), key=lambda d: ((i + 1) * counts[d] / total - given[d]
-                                                   if given[d] < counts[d] else -1e9, -d))
+        # the device furthest behind its share; ties to the lowest index (argmax: first)
+        lag = np.where(given < want, (i + 1) * want / total - given, -1e9)
+        d = int(np.argmax(lag))
         given[d] += 1
         out.append(d)
     return out
@@ -203,28 +205,35 @@ def _allows(comp: Compiled, o: int, d: int) -> bool:
 
 def _deal_orbits(comp: Compiled, order: IntArray) -> IntArray | None:
     n_dev = comp.prob.n_dev
-    left = [int(x) for x in comp.left]
-    total = max(sum(left[:n_dev]), 1)
-    given = [0] * n_dev
+    left = comp.left.astype(np.int64).copy()
+    share = comp.left[:n_dev].astype(np.int64)
+    units = int(share.sum())
+    total = max(units, 1)
+    given = np.zeros(n_dev, dtype=np.int64)
+    bits = np.minimum(np.arange(n_dev, dtype=np.int64), 63)   # masks past 62 devices: all -1
     placed = 0
     dev_of = np.full(comp.n_orb, n_dev, dtype=np.int64)
     for o in order:
         k = int(comp.orb_size[o])
-        options = [d for d in range(n_dev) if left[d] >= k and _allows(comp, o, d)
-                   and (k == 1 or left[d] % 2 == 0 or left[d] > 2)]
-        if not options or placed >= sum(comp.left[:n_dev]):
-            if left[n_dev] < k or not _allows(comp, o, n_dev):
-                if not options:
+        mine = left[:n_dev]
+        ok = ((mine >= k) & (((int(comp.orb_allow[o]) >> bits) & 1) == 1)
+              & ((k == 1) | (mine % 2 == 0) | (mine > 2)))
+        has = bool(ok.any())
+        if not has or placed >= units:
+            if left[n_dev] < k or not _allows(comp, int(o), n_dev):
+                if not has:
                     return None
             else:
                 left[n_dev] -= k
                 continue
-        d = max(options, key=lambda d: ((placed + k) * comp.left[d] / total - given[d], -d))
+        # the allowed device furthest behind its share; ties to the lowest index
+        lag = np.where(ok, (placed + k) * share / total - given, -np.inf)
+        d = int(np.argmax(lag))
         dev_of[o] = d
         left[d] -= k
         given[d] += k
         placed += k
-    return dev_of if all(x == 0 for x in left) else None
+    return dev_of if not left.any() else None
 
 
 def _tight_first(comp: Compiled, order: IntArray) -> IntArray | None:

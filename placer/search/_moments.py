@@ -24,7 +24,8 @@ SPARE = -1
 UNUSABLE = -2
 
 
-def _mirror(prob: Problem, r: int, c: int) -> tuple[int, int]:
+def _mirror_all(prob: Problem, r: IntArray, c: IntArray) -> tuple[IntArray, IntArray]:
+    """Mirror images (row, column) of every slot under the problem's symmetry."""
     if prob.symmetry == "x":
         return r, prob.cols - 1 - c
     if prob.symmetry == "y":
@@ -77,8 +78,21 @@ def _monomials(u: IntArray, v: IntArray) -> tuple[IntArray, IntArray]:
     return ints, hi
 
 
+_COMPILED: list[tuple[Problem, Compiled]] = []     # the last few, newest last
+
+
 def compile_problem(prob: Problem) -> Compiled:
-    """Orbits, monomials and base sums of ``prob``."""
+    """Orbits, monomials and base sums of ``prob`` (a problem is frozen: compiled once)."""
+    for held, comp in _COMPILED:
+        if held is prob:
+            return comp
+    comp = _compile(prob)
+    _COMPILED.append((prob, comp))
+    del _COMPILED[:-4]
+    return comp
+
+
+def _compile(prob: Problem) -> Compiled:
     rows, cols = prob.rows, prob.cols
     r_idx, c_idx = np.divmod(np.arange(rows * cols), cols)
     u = (2 * c_idx - (cols - 1)).astype(np.int64)
@@ -94,36 +108,28 @@ def compile_problem(prob: Problem) -> Compiled:
     for slot in np.nonzero(pinned >= 0)[0]:
         base[pinned[slot]] += ints[slot]
         base_hi[pinned[slot]] += hi[slot]
-    seen = np.zeros(rows * cols, dtype=bool)
-    orbits: list[list[int]] = []
-    for s in range(rows * cols):
-        if seen[s] or not usable[s] or pinned[s] >= 0:
-            continue
-        r, c = divmod(s, cols)
-        mr, mc = _mirror(prob, r, c)
-        t = mr * cols + mc
-        seen[s] = seen[t] = True
-        orbits.append([s] if t == s else [s, t])
-    n_orb = len(orbits)
-    orb_slot = np.full((max(n_orb, 1), 2), -1, dtype=np.int64)[:n_orb]
-    for i, o in enumerate(orbits):
-        orb_slot[i, :len(o)] = o
-    orb_size = np.array([len(o) for o in orbits], dtype=np.int64)
-    orb_m = np.array([ints[o].sum(axis=0) for o in orbits], dtype=np.int64).reshape(-1, 6)
-    orb_hi = np.array([hi[o].sum(axis=0) for o in orbits], dtype=np.int64).reshape(-1, 9)
+    # orbits: a slot and its mirror image (itself without symmetry), in slot order
+    slots = np.arange(rows * cols)
+    mr, mc = _mirror_all(prob, r_idx, c_idx)
+    mate = mr * cols + mc
+    free = usable & (pinned < 0)
+    first = slots[free & ((slots <= mate) | ~free[mate])]
+    second = mate[first]
+    orb_slot = np.column_stack([first, np.where(second == first, -1, second)]).astype(np.int64)
+    orb_size = (1 + (second != first)).astype(np.int64)
+    pair = orb_size == 2
+    orb_m = ints[first] + np.where(pair[:, None], ints[second], 0)
+    orb_hi = hi[first] + np.where(pair[:, None], hi[second], 0)
     key_grid = np.full(rows * cols, -1, dtype=np.int64)
-    orb_key = np.zeros((n_orb, 2), dtype=np.int64)
-    for i, o in enumerate(orbits):
-        orb_key[i] = (o[0] % cols, o[0] // cols)
-        if len(o) == 1:
-            key_grid[o[0]] = i
+    key_grid[first[~pair]] = np.nonzero(~pair)[0]
+    orb_key = np.column_stack([first % cols, first // cols]).astype(np.int64)
     orb_edge = None
     if prob.open_edge is not None and any(prob.open_edge):
         edge = np.array(prob.open_edge, dtype=np.uint8)
-        orb_edge = np.array([edge[o].sum() for o in orbits], dtype=np.uint8)
+        orb_edge = (edge[first] + np.where(pair, edge[second], 0)).astype(np.uint8)
     allowed = prob.allowed_mask()
-    orb_allow = np.array([np.bitwise_and.reduce(allowed[o]) for o in orbits],
-                         dtype=np.int64).reshape(-1)
+    orb_allow = (allowed[first] & np.where(pair, allowed[second], allowed[first])
+                 ).astype(np.int64).reshape(-1)
     n_units = sum(prob.counts)
     counts = np.array([*prob.counts, int(usable.sum()) - n_units], dtype=np.int64)
     left = counts.copy()
@@ -146,9 +152,11 @@ def slot_assignment(comp: Compiled, dev_of: IntArray) -> IntArray:
     out = np.where(prob.usable_mask(), SPARE, UNUSABLE).astype(np.int64)
     pinned = comp.pinned_slot >= 0
     out[pinned] = comp.pinned_slot[pinned]
-    for i in range(comp.n_orb):
-        d = int(dev_of[i])
-        out[comp.orb_slot[i, :comp.orb_size[i]]] = SPARE if d == prob.n_dev else d
+    dev = np.asarray(dev_of, dtype=np.int64)[:comp.n_orb]
+    vals = np.where(dev == prob.n_dev, SPARE, dev)
+    out[comp.orb_slot[:, 0]] = vals
+    two = comp.orb_size == 2
+    out[comp.orb_slot[two, 1]] = vals[two]
     return out
 
 

@@ -29,6 +29,13 @@
 #include <string.h>
 #include <time.h>
 
+/* Bit d of an orbit's device mask. Masks exist only up to 62 devices (row bands); past
+ * that every mask is all ones (-1), and a shift by 64 or more would be undefined. */
+static inline int allows(int64_t mask, int64_t d)
+{
+    return d >= 63 ? mask == -1 || (mask >> 63 & 1) : (int)((mask >> d) & 1);
+}
+
 typedef __int128 i128;
 
 #define NM 6            /* integer monomials per orbit: 1, u, v, uu, uv, vv */
@@ -515,7 +522,7 @@ static PyObject *py_anneal(PyObject *self, PyObject *args) {
         {   /* every orbit must allow the device it receives (row bands) */
             int ok = 1;
             for (int64_t i = 0; i < mv.ns; i++)
-                if (!((allow[mv.t[i]] >> a) & 1) || !((allow[mv.s[i]] >> b) & 1)) ok = 0;
+                if (!allows(allow[mv.t[i]], a) || !allows(allow[mv.s[i]], b)) ok = 0;
             if (!ok) continue;
         }
         tried++;
@@ -876,7 +883,7 @@ static void descend(bnb_t *B, int64_t lev) {
         int64_t d = k < 0 ? first : k;
         if (k >= 0 && d == first) continue;
         if (d < 0 || d >= D1 || B->left[d] < size) continue;
-        if (!((B->allow[o] >> d) & 1)) continue;
+        if (!allows(B->allow[o], d)) continue;
         if (d < P->n_dev && B->cls[d] >= 0 && B->first_seen[d] < 0) {
             int ok = 1;                       /* interchangeable devices appear in order */
             for (int64_t e = 0; e < d; e++)

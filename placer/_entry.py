@@ -1,0 +1,55 @@
+"""The ``placer`` command's first steps, before any heavy import.
+
+An interrupt during start-up ends quietly (nothing has been written yet), and the
+environment placer reads is checked here, so a bad value ends in one line instead of a
+traceback from a library that reads it while importing.
+"""
+
+from __future__ import annotations
+
+import os
+import signal
+import sys
+
+#: SOURCE_DATE_EPOCH must be whole seconds from 1970 up to the end of year 9999.
+MAX_EPOCH = 253_402_300_799
+
+
+def _quiet_exit(signum: int, frame: object) -> None:
+    sys.stderr.write("Interrupted; nothing written.\n")
+    os._exit(130)
+
+
+def check_environment(env: dict[str, str] | os._Environ[str] = os.environ) -> str | None:
+    """The one-line problem with the environment placer reads, or None.
+
+    Examples
+    --------
+    >>> check_environment({"SOURCE_DATE_EPOCH": "1700000000"}) is None
+    True
+    >>> check_environment({"SOURCE_DATE_EPOCH": "soon"}).split(":")[0]
+    "SOURCE_DATE_EPOCH = 'soon' is not a time"
+    """
+    raw = env.get("SOURCE_DATE_EPOCH")
+    if raw is None:
+        return None
+    text = raw.strip()
+    if not (text.isascii() and text.isdigit() and len(text) <= 12
+            and int(text) <= MAX_EPOCH):
+        shown = raw if len(raw) <= 24 else raw[:24] + "..."
+        return (f"SOURCE_DATE_EPOCH = {shown!r} is not a time: give whole seconds since 1970 "
+                f"(0 to {MAX_EPOCH}), or unset it")
+    return None
+
+
+def main() -> None:
+    """Entry point of the ``placer`` command."""
+    signal.signal(signal.SIGINT, _quiet_exit)
+    problem = check_environment()
+    if problem is not None:
+        sys.stderr.write(f"Error: {problem}\n")
+        sys.exit(1)
+    from placer.cli import cli  # numpy, matplotlib, scipy ...
+
+    signal.signal(signal.SIGINT, signal.default_int_handler)
+    cli(prog_name="placer")

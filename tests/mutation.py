@@ -1,0 +1,206 @@
+"""Mutation run over the formula modules: does every formula have a test that fails?
+
+Run:  python tests/mutation.py [--modules model budget score moments] [--jobs 2]
+                               [--list-only] [--out mutation-report.txt]
+
+Each mutant changes one thing in one function of a module -- an arithmetic operator
+(+ -, * /, ** *), a comparison (< <=, > >=), a numeric constant (doubled, or 0 <-> 1) or
+a unary minus (dropped) -- and the quick tests (tests/test_formulas.py, test_budget.py,
+test_model.py, test_score.py when present, test_search.py's exactness checks) run on a
+copy of the package holding it. A mutant the tests do not fail *survives*; survivors are
+printed with their line, for a person to judge: a survivor on a formula line is a
+missing test; one on a message, a default or a guard may be harmless (say why in
+DEVELOPERS.md).
+"""
+
+from __future__ import annotations
+
+import argparse
+import ast
+import os
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+TESTS = ["tests/test_formulas.py", "tests/test_budget.py", "tests/test_model.py",
+         "tests/test_search.py::test_exact_search_agrees_with_plain_enumeration",
+         "tests/test_search.py::test_keys_of_a_baseline_equal_grade_with_an_offset_centre",
+         "tests/test_layout.py::test_sensitivity_contributions_add_up_to_the_worst_pair_error"]
+COPIED = ["placer", "tests", "samples", "templates", "pyproject.toml"]
+_SWAP = {ast.Add: ast.Sub, ast.Sub: ast.Add, ast.Mult: ast.Div, ast.Div: ast.Mult,
+         ast.Pow: ast.Mult, ast.FloorDiv: ast.Div}
+_CMP = {ast.Lt: ast.LtE, ast.LtE: ast.Lt, ast.Gt: ast.GtE, ast.GtE: ast.Gt}
+
+
+@dataclass(frozen=True)
+class Mutant:
+    """One change: module, line, what was done and the mutated source."""
+
+    module: str
+    line: int
+    what: str
+    source: str
+
+
+class _Sites(ast.NodeVisitor):
+    """Every mutable node inside a function body (docstrings and messages excluded)."""
+
+    def __init__(self) -> None:
+        self.sites: list[tuple[ast.AST, str]] = []
+        self.depth = 0
+
+    def visit_FunctionDef(self, node: ast.FunctionDef) -> None:
+        self.depth += 1
+        for stmt in node.body:
+            if isinstance(stmt, ast.Expr) and isinstance(stmt.value, ast.Constant):
+                continue                              # the docstring
+            self.visit(stmt)
+        self.depth -= 1
+
+    def visit_JoinedStr(self, node: ast.JoinedStr) -> None:
+        return                                        # f-strings: messages
+
+    def visit_Raise(self, node: ast.Raise) -> None:
+        return
+
+    def visit_BinOp(self, node: ast.BinOp) -> None:
+        if self.depth and type(node.op) in _SWAP:
+            self.sites.append((node, "op"))
+        self.generic_visit(node)
+
+    def visit_Compare(self, node: ast.Compare) -> None:
+        if self.depth and len(node.ops) == 1 and type(node.ops[0]) in _CMP:
+            self.sites.append((node, "cmp"))
+        self.generic_visit(node)
+
+    def visit_UnaryOp(self, node: ast.UnaryOp) -> None:
+        if self.depth and isinstance(node.op, ast.USub):
+            self.sites.append((node, "neg"))
+        self.generic_visit(node)
+
+    def visit_Constant(self, node: ast.Constant) -> None:
+        if (self.depth and isinstance(node.value, int | float)
+                and not isinstance(node.value, bool)):
+            self.sites.append((node, "const"))
+
+
+def mutants(module: str) -> list[Mutant]:
+    """Every single-change mutant of placer/<module>.py."""
+    path = ROOT / "placer" / f"{module}.py"
+    text = path.read_text()
+    out = []
+    finder = _Sites()
+    finder.visit(ast.parse(text))
+    count = len(finder.sites)
+    for i in range(count):
+        tree = ast.parse(text)
+        f = _Sites()
+        f.visit(tree)
+        node, kind = f.sites[i]
+        line = getattr(node, "lineno", 0)
+        if kind == "op":
+            assert isinstance(node, ast.BinOp)
+            old = type(node.op)
+            node.op = _SWAP[old]()
+            what = f"{old.__name__} -> {type(node.op).__name__}"
+        elif kind == "cmp":
+            assert isinstance(node, ast.Compare)
+            old = type(node.ops[0])
+            node.ops = [_CMP[old]()]
+            what = f"{old.__name__} -> {type(node.ops[0]).__name__}"
+        elif kind == "neg":
+            assert isinstance(node, ast.UnaryOp)
+            node.op = ast.UAdd()
+            what = "unary minus dropped"
+        else:
+            assert isinstance(node, ast.Constant)
+            v = node.value
+            new = 1 if v == 0 else (0 if v == 1 else v * 2)
+            node.value = new
+            what = f"constant {v!r} -> {new!r}"
+        out.append(Mutant(module, line, what, ast.unparse(tree)))
+    return out
+
+
+def _copy(origin: Path, dest: Path) -> None:
+    for part in COPIED:
+        src = origin / part
+        if src.is_dir():
+            shutil.copytree(src, dest / part, ignore=shutil.ignore_patterns("__pycache__"))
+        elif src.exists():
+            shutil.copy2(src, dest / part)
+
+
+def _run(m: Mutant, workdir: Path, timeout: float, origin: Path = ROOT) -> bool:
+    """True if the tests fail (the mutant is killed); the copy is taken from origin."""
+    with tempfile.TemporaryDirectory(dir=workdir) as tmp:
+        # a whole copy, run from inside it: the checkout (and an editable install of
+        # it) must not shadow the mutated package
+        _copy(origin, Path(tmp))
+        (Path(tmp) / "placer" / f"{m.module}.py").write_text(m.source)
+        env = dict(os.environ, PYTHONPATH=tmp, PYTHONDONTWRITEBYTECODE="1")
+        try:
+            res = subprocess.run([sys.executable, "-m", "pytest", "-x", "-q", "-p",
+                                  "no:cacheprovider", "--no-header", "-o", "addopts=",
+                                  *TESTS], cwd=tmp, env=env, capture_output=True,
+                                 timeout=timeout)
+        except subprocess.TimeoutExpired:
+            return True                             # a hang counts as caught
+        return res.returncode != 0
+
+
+def main() -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--modules", nargs="+", default=["model", "budget", "score", "moments"])
+    ap.add_argument("--jobs", type=int, default=2)
+    ap.add_argument("--timeout", type=float, default=300.0)
+    ap.add_argument("--list-only", action="store_true")
+    ap.add_argument("--out", default=None)
+    args = ap.parse_args()
+    all_m = [m for mod in args.modules for m in mutants(mod)]
+    print(f"{len(all_m)} mutants in {', '.join(args.modules)}", flush=True)
+    if args.list_only:
+        for m in all_m:
+            print(f"{m.module}.py:{m.line}: {m.what}")
+        return 0
+    t0 = time.perf_counter()
+    with tempfile.TemporaryDirectory() as work:
+        # one snapshot of the checkout: edits made while the run goes on do not leak in
+        snap = Path(work) / "snapshot"
+        snap.mkdir()
+        _copy(ROOT, snap)
+        # the unchanged copy must pass and a broken one must fail, or the run means nothing
+        mod = args.modules[0]
+        text = (ROOT / "placer" / f"{mod}.py").read_text()
+        if _run(Mutant(mod, 0, "none", text), Path(work), args.timeout, snap):
+            print("the tests fail on an unchanged copy: fix them first", file=sys.stderr)
+            return 1
+        if not _run(Mutant(mod, 0, "broken", text + "\nraise ImportError('mutant')\n"),
+                    Path(work), args.timeout, snap):
+            print("a copy that cannot import passed: the copy is not what runs",
+                  file=sys.stderr)
+            return 1
+        with ThreadPoolExecutor(args.jobs) as pool:
+            killed = list(pool.map(lambda m: _run(m, Path(work), args.timeout, snap), all_m))
+    lines = []
+    survivors = [m for m, k in zip(all_m, killed, strict=True) if not k]
+    for m in survivors:
+        src = (ROOT / "placer" / f"{m.module}.py").read_text().splitlines()[m.line - 1].strip()
+        lines.append(f"SURVIVED {m.module}.py:{m.line}: {m.what}    | {src}")
+    summary = (f"{len(all_m)} mutants, {len(all_m) - len(survivors)} killed, "
+               f"{len(survivors)} survived, {time.perf_counter() - t0:.0f} s")
+    report = "\n".join([summary, *lines])
+    print(report)
+    if args.out:
+        Path(args.out).write_text(report + "\n")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
