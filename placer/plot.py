@@ -28,12 +28,38 @@ __all__ = ["PALETTE", "DUMMY_COLOUR", "device_colours", "draw_pattern", "save_pr
 PALETTE = ("#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#CC79A7",
            "#999999")
 DUMMY_COLOUR = "#FFFFFF"
-_HATCHES = ("", "//", "..", "xx", "\\\\", "oo", "++", "--")
+DUMMY_HATCH = "///"
+#: Hatches for devices past the 24 plain colours; slanted lines stay the dummies' own.
+_HATCHES = ("", "..", "oo", "++", "xx", "--", "||", "**", "O.", "+o", "x.")
+#: Patterns of more slots than this are drawn as one image (one pixel block a slot).
+RASTER_SLOTS = 20_000
+DUMMY_RASTER = "#E4E4E4"       # dummies of a pattern drawn as an image (no hatch there)
+
+
+def _mix(colour: str, other: tuple[float, float, float], t: float) -> str:
+    rgb = [int(colour[i:i + 2], 16) / 255 for i in (1, 3, 5)]
+    out = [(1 - t) * a + t * b for a, b in zip(rgb, other, strict=True)]
+    return "#" + "".join(f"{round(255 * v):02X}" for v in out)
+
+
+#: 24 plain colours: the palette, then its tints (half white), then its shades (40 % black).
+COLOURS = (PALETTE + tuple(_mix(c, (1.0, 1.0, 1.0), 0.5) for c in PALETTE)
+           + tuple(_mix(c, (0.0, 0.0, 0.0), 0.4) for c in PALETTE))
 
 
 def device_colours(n: int) -> list[tuple[str, str]]:
-    """(colour, hatch) per device: the palette first, then the palette again hatched."""
-    return [(PALETTE[i % len(PALETTE)], _HATCHES[(i // len(PALETTE)) % len(_HATCHES)])
+    """(colour, hatch) per device, the same in every picture: 24 plain colours (the
+    palette, its tints, its shades), then the same colours with dots, circles, crosses
+    ... -- never the dummies' slanted hatch.
+
+    Examples
+    --------
+    >>> device_colours(9)[8]
+    ('#F2CF80', '')
+    >>> len(set(device_colours(256))) == 256
+    True
+    """
+    return [(COLOURS[i % len(COLOURS)], _HATCHES[(i // len(COLOURS)) % len(_HATCHES)])
             for i in range(n)]
 
 
@@ -64,7 +90,9 @@ def draw_pattern(ax: Any, pattern: Pattern, pitch_um: tuple[float, float],
                  grade: Grade | None = None, *, names: bool | None = None,
                  markers: bool = True, arrows: bool = True,
                  gradient: tuple[float, float] | None = None,
-                 cell_extent: tuple[float, float, float, float] | None = None) -> None:
+                 cell_extent: tuple[float, float, float, float] | None = None,
+                 moved: Sequence[tuple[int, int]] = (),
+                 centroid_names: bool = True) -> None:
     """Draw every slot as a rectangle at true pitch on ``ax``.
 
     Units are filled in their device's colour with the device name in the upper part
@@ -73,7 +101,8 @@ def draw_pattern(ax: Any, pattern: Pattern, pitch_um: tuple[float, float],
     the centre of all device units; arrows show MOS finger orientation. ``gradient``
     (gx, gy) in ppm/um shades the background with that linear field. With
     ``cell_extent`` (x0, y0, x1, y1 of the unit cell about its centre) each unit is drawn
-    at its drawn size and the routing channel below each row is shaded.
+    at its drawn size and the routing channel below each row is shaded. ``moved`` slots
+    (row, column) get a thick outline: the units a repair moved.
     """
     from matplotlib.collections import PatchCollection
     from matplotlib.patches import Rectangle
@@ -83,7 +112,7 @@ def draw_pattern(ax: Any, pattern: Pattern, pitch_um: tuple[float, float],
     colours = device_colours(len(pattern.devices))
     w, h = 0.92 * px, 0.92 * py
     ox, oy = -w / 2, -h / 2
-    if cell_extent is not None:
+    if cell_extent is not None and rows * cols <= RASTER_SLOTS:
         ex0, ey0, ex1, ey1 = cell_extent
         w, h, ox, oy = ex1 - ex0, ey1 - ey0, ex0, ey0
         from matplotlib.patches import Rectangle as _R
@@ -99,14 +128,16 @@ def draw_pattern(ax: Any, pattern: Pattern, pitch_um: tuple[float, float],
         ax.imshow(gradient[0] * gx + gradient[1] * gy, extent=(xs[0], xs[-1], ys[0], ys[-1]),
                   origin="lower", cmap="Greys", alpha=0.35, zorder=0, aspect="auto")
     by_style: dict[tuple[str, str, str], list[Any]] = {}
-    for r in range(rows):
+    if rows * cols > RASTER_SLOTS:
+        _raster(ax, pattern, pitch_um, colours)
+    for r in range(rows if rows * cols <= RASTER_SLOTS else 0):
         for c in range(cols):
             d = int(pattern.ids[r, c])
             if d == EMPTY:
                 continue
             x, y = c * px, -r * py
             if d == DUMMY:
-                key = (DUMMY_COLOUR, "///", "#888888")
+                key = (DUMMY_COLOUR, DUMMY_HATCH, "#888888")
             else:
                 key = (colours[d][0], colours[d][1], "#222222")
             by_style.setdefault(key, []).append(Rectangle((x + ox, y + oy), w, h))
@@ -124,12 +155,16 @@ def draw_pattern(ax: Any, pattern: Pattern, pitch_um: tuple[float, float],
     span = max((cols * px + 2 * margin) / (bbox.width * fw),
                (rows * py + 2 * margin) / (bbox.height * fh))     # um per inch
     cell_w, cell_h = 72 * px / span, 72 * py / span                # points
-    upright = py > 1.5 * px
+    box_w, box_h = 72 * w / span, 72 * h / span                    # the drawn unit
+    upright = h > 1.5 * w
     longest = max(len(n) for n in pattern.devices)
-    along, across = (cell_h, cell_w) if upright else (cell_w, cell_h)
-    fs = min(9.0, 0.8 * along / (0.62 * longest), 0.45 * across)
+    # the name sits in the top part of the drawn unit (0.55 to 0.95 of its height), the
+    # finger arrow low in it: the centre stays clear
+    along, across = (0.4 * box_h, box_w) if upright else (box_w, 0.4 * box_h)
+    fs = min(9.0, 0.9 * along / (0.62 * longest), 0.75 * across)
     if names is None:
         names = fs >= 3.5
+    arrows = arrows and min(cell_w, cell_h) >= 6.0     # smaller arrows are noise (and slow)
     if names or arrows:
         for r in range(rows):
             for c in range(cols):
@@ -138,25 +173,71 @@ def draw_pattern(ax: Any, pattern: Pattern, pitch_um: tuple[float, float],
                     continue
                 x, y = c * px, -r * py
                 if names:
-                    ax.text(x, y + 0.22 * py, pattern.devices[d], ha="center", va="center",
+                    ax.text(x + ox + w / 2, y + oy + 0.75 * h, pattern.devices[d],
+                            ha="center", va="center",
                             fontsize=fs, color="black", zorder=3, clip_on=True,
                             rotation=90 if upright else 0)
                 o = int(pattern.orient[r, c])
                 if arrows and o:
-                    ax.annotate("", xy=(x + 0.3 * o * px, y - 0.3 * py),
-                                xytext=(x - 0.3 * o * px, y - 0.3 * py),
+                    xc, ya = x + ox + w / 2, y + oy + 0.2 * h
+                    ax.annotate("", xy=(xc + 0.3 * o * w, ya), xytext=(xc - 0.3 * o * w, ya),
                                 arrowprops={"arrowstyle": "->", "lw": 0.8, "color": "black"},
                                 zorder=3)
+    if moved:
+        pad = 0.04 * min(px, py)
+        ax.add_collection(PatchCollection(
+            [Rectangle((c * px + ox - pad, -r * py + oy - pad), w + 2 * pad, h + 2 * pad)
+             for r, c in moved],
+            facecolor="none", edgecolor="#D00000", linewidth=2.2, zorder=3.5))
     if markers and grade is not None:
+        ax.plot(*grade.centre_um, marker="+", markersize=14, color="black", mew=2, zorder=4)
+        # centroids above the centre mark; a name beside each, fanned out where several
+        # centroids coincide (a common centroid puts them all on the centre)
+        spots: dict[tuple[int, int], list[int]] = {}
+        step = 0.25 * min(px, py)
         for d, dev in enumerate(grade.devices):
-            ax.plot(*dev.centroid_um, marker="o", markersize=7, markerfacecolor=colours[d][0],
-                    markeredgecolor="black", zorder=4, linestyle="none")
-        ax.plot(*grade.centre_um, marker="+", markersize=14, color="black", mew=2, zorder=5)
+            x, y = dev.centroid_um
+            ax.plot(x, y, marker="o", markersize=7, markerfacecolor=colours[d][0],
+                    markeredgecolor="black", zorder=5, linestyle="none")
+            spots.setdefault((round(x / step), round(y / step)), []).append(d)
+        if centroid_names and len(spots) <= 4:
+            # one label per place: centroids that coincide (a common centroid) share it;
+            # more places than a few would crowd the centre (the legend has the offsets)
+            for k, ds in enumerate(spots.values()):
+                x, y = grade.devices[ds[0]].centroid_um
+                angle = np.radians(40 + 70 * (k % 5))
+                text = ", ".join(grade.devices[d].name for d in ds)
+                ax.annotate(text, (x, y), xytext=(16 * np.cos(angle), 16 * np.sin(angle)),
+                            textcoords="offset points", fontsize=7, zorder=6,
+                            ha="left" if np.cos(angle) >= 0 else "right", va="center",
+                            bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none",
+                                  "alpha": 0.85},
+                            arrowprops={"arrowstyle": "-", "lw": 0.5, "color": "black"})
     ax.set_xlabel("x (um)")
     ax.set_ylabel("y (um)")
 
 
-def _legend(ax: Any, pattern: Pattern, grade: Grade | None) -> None:
+def _raster(ax: Any, pattern: Pattern, pitch_um: tuple[float, float],
+            colours: list[tuple[str, str]]) -> None:
+    """A large pattern as one image, a block of pixels per slot (hatches cannot show)."""
+    from matplotlib.colors import to_rgba
+
+    px, py = pitch_um
+    rows, cols = pattern.shape
+    table = np.array([to_rgba(c) for c, _ in colours] + [to_rgba(DUMMY_RASTER),
+                                                          (1.0, 1.0, 1.0, 0.0)])
+    ids = np.where(pattern.ids >= 0, pattern.ids,
+                   np.where(pattern.ids == DUMMY, len(colours), len(colours) + 1))
+    ax.imshow(table[ids], extent=(-0.5 * px, (cols - 0.5) * px, -(rows - 0.5) * py, 0.5 * py),
+              interpolation="nearest", zorder=1, aspect="auto")
+
+
+def _units(n: int) -> str:
+    """'1 unit', '3 units'."""
+    return f"{n} unit" if n == 1 else f"{n} units"
+
+
+def _legend(ax: Any, pattern: Pattern, grade: Grade | None, moved: bool = False) -> None:
     from matplotlib.patches import Patch
 
     colours = device_colours(len(pattern.devices))
@@ -165,14 +246,24 @@ def _legend(ax: Any, pattern: Pattern, grade: Grade | None) -> None:
     for d, name in enumerate(pattern.devices):
         extra = ""
         if grade is not None:
-            extra = f", offset {grade.devices[d].offset_um:.3g} um"
+            off = grade.devices[d].offset_um
+            extra = f", offset {0.0 if abs(off) < 1e-9 else off:.3g} um"
         handles.append(Patch(facecolor=colours[d][0], hatch=colours[d][1] or None,
-                             edgecolor="#222222", label=f"{name}: {counts[d]} units{extra}"))
+                             edgecolor="#222222",
+                             label=f"{name}: {_units(counts[d])}{extra}"))
     if np.any(pattern.ids == DUMMY):
-        handles.append(Patch(facecolor=DUMMY_COLOUR, hatch="///", edgecolor="#888888",
-                             label="dummy"))
+        if pattern.ids.size > RASTER_SLOTS:
+            handles.append(Patch(facecolor=DUMMY_RASTER, edgecolor="#888888", label="dummy"))
+        else:
+            handles.append(Patch(facecolor=DUMMY_COLOUR, hatch=DUMMY_HATCH,
+                                 edgecolor="#888888", label="dummy"))
+    if moved:
+        handles.append(Patch(facecolor="none", edgecolor="#D00000", linewidth=2.2,
+                             label="moved by the repair"))
+    # a long legend goes into columns so it never runs off the page
     ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=8,
-              frameon=False, title="o centroid, + centre", title_fontsize=8)
+              frameon=False, title="o centroid, + centre", title_fontsize=8,
+              ncols=max(1, -(-len(handles) // 30)))
 
 
 def _title(name: str, grade: Grade | None) -> str:
@@ -182,15 +273,16 @@ def _title(name: str, grade: Grade | None) -> str:
     quad = grade.worst("quadratic_ppm")
     rnd = grade.worst("random_sigma_ppm")
     assert lin and quad and rnd
-    return (f"{name}: worst linear {lin.linear_ppm:.3g} ppm ({lin.a}/{lin.b}), quadratic "
-            f"{quad.quadratic_ppm:.3g} ppm, correlated sigma "
-            f"{max(p.correlated_sigma_ppm for p in grade.pairs):.3g} ppm")
+    return (f"{name}\nworst linear {lin.linear_ppm:.3g} ppm ({lin.a}/{lin.b}), quadratic "
+            f"{quad.quadratic_ppm:.3g} ppm,\ncorrelated sigma "
+            f"{max(p.correlated_sigma_ppm for p in grade.pairs):.3g} ppm (model estimates)")
 
 
 def save_preview(pattern: Pattern, pitch_um: tuple[float, float], grade: Grade | None,
                  name: str, paths: Sequence[Path], *, dpi: int = 110,
                  gradient: tuple[float, float] | None = None,
-                 cell_extent: tuple[float, float, float, float] | None = None) -> None:
+                 cell_extent: tuple[float, float, float, float] | None = None,
+                 moved: Sequence[tuple[int, int]] = ()) -> None:
     """Write the preview picture to each of ``paths`` (format from the suffix)."""
 
     rows, cols = pattern.shape
@@ -201,9 +293,10 @@ def save_preview(pattern: Pattern, pitch_um: tuple[float, float], grade: Grade |
     fig = _figure(width, height)
     fig.set_layout_engine("constrained")
     ax = fig.add_subplot()
-    draw_pattern(ax, pattern, pitch_um, grade, gradient=gradient, cell_extent=cell_extent)
-    _legend(ax, pattern, grade)
-    ax.set_title(_title(name, grade), fontsize=9, loc="left")
+    draw_pattern(ax, pattern, pitch_um, grade, gradient=gradient, cell_extent=cell_extent,
+                 moved=moved)
+    _legend(ax, pattern, grade, moved=bool(moved))
+    fig.suptitle(_title(name, grade), fontsize=9, x=0.01, ha="left")
     for path in paths:
         _write_figure(fig, path, dpi)
 
@@ -220,25 +313,49 @@ def direction_errors(grade_pairs: Sequence[Any], theta: np.ndarray, g_ppm_per_um
     return worst
 
 
+#: Landscape page sizes (inches) of the comparison sheet.
+PAPER = {"a4": (11.69, 8.27), "letter": (11.0, 8.5)}
+#: Arrangement colours of the comparison sheet: greys for the baselines, black for the
+#: search's result (never a device colour: the patterns above use those).
+_ENTRY_COLOURS = ("#C8C8C8", "#9A9A9A", "#6A6A6A", "#000000")
+_ENTRY_HATCHES = ("", "..", "//", "")
+
+
 def save_comparison(entries: Sequence[tuple[str, Pattern, Grade, float]],
                     pitch_um: tuple[float, float], g_ppm_per_um: float, title: str,
-                    paths: Sequence[Path]) -> None:
-    """One page: the arrangements side by side, a bar chart of their scores and the ratio
-    error against gradient direction. ``entries`` holds (label, pattern, grade, routing)."""
+                    paths: Sequence[Path], paper: str = "a4") -> None:
+    """One landscape page (``paper``: a4 or letter): the arrangements side by side, a bar
+    chart of their scores and the ratio error against gradient direction. ``entries``
+    holds (label, pattern, grade, routing), the search's result last."""
 
     n = len(entries)
-    fig = _figure(4.2 * n, 10.5)
-    fig.suptitle(title, fontsize=12, x=0.02, ha="left")
-    gs = fig.add_gridspec(3, n, height_ratios=[1.3, 1.0, 1.0], hspace=0.45, wspace=0.3,
-                          left=0.06, right=0.98, top=0.9, bottom=0.06)
+    fig = _figure(*PAPER[paper])
+    fig.suptitle(title, fontsize=10, x=0.02, ha="left")
+    gs = fig.add_gridspec(3, n, height_ratios=[1.4, 1.0, 1.1], hspace=0.55, wspace=0.3,
+                          left=0.06, right=0.8, top=0.88, bottom=0.06)
     labels = [e[0] for e in entries]
     for i, (label, pattern, grade, _) in enumerate(entries):
         ax = fig.add_subplot(gs[0, i])
-        draw_pattern(ax, pattern, pitch_um, grade, arrows=False)
+        draw_pattern(ax, pattern, pitch_um, grade, arrows=False, centroid_names=False)
         lin = grade.worst("linear_ppm")
         quad = grade.worst("quadratic_ppm")
         ax.set_title(f"{label}\nlinear {lin.linear_ppm if lin else 0:.3g} ppm, quad "
-                     f"{quad.quadratic_ppm if quad else 0:.3g} ppm", fontsize=9)
+                     f"{quad.quadratic_ppm if quad else 0:.3g} ppm", fontsize=8)
+        ax.tick_params(labelsize=6)
+        ax.xaxis.label.set_size(7)
+        ax.yaxis.label.set_size(7)
+    from matplotlib.patches import Patch
+
+    first = entries[0][1]
+    colours_d = device_colours(len(first.devices))
+    handles = [Patch(facecolor=colours_d[d][0], hatch=colours_d[d][1] or None,
+                     edgecolor="#222222", label=f"{name} ({_units(int(c))})")
+               for d, (name, c) in enumerate(zip(first.devices, first.counts(), strict=True))]
+    handles.append(Patch(facecolor=DUMMY_COLOUR, hatch=DUMMY_HATCH, edgecolor="#888888",
+                         label="dummy"))
+    fig.legend(handles=handles, loc="upper left", bbox_to_anchor=(0.82, 0.88), fontsize=7,
+               frameon=False, title="devices (o centroid, + centre)", title_fontsize=7,
+               ncols=max(1, -(-len(handles) // 16)))
     metrics = [
         ("worst linear (ppm)", [max((p.linear_ppm for p in e[2].pairs), default=0.0)
                                 for e in entries]),
@@ -248,26 +365,34 @@ def save_comparison(entries: Sequence[tuple[str, Pattern, Grade, float]],
                                               default=0.0) for e in entries]),
         ("wiring: spanning trees (um)", [e[3] for e in entries]),
     ]
-    colours = [PALETTE[i % len(PALETTE)] for i in range(n)]
-    bars = gs[1, :].subgridspec(1, len(metrics), wspace=0.35)
+    colours = [_ENTRY_COLOURS[-1] if i == n - 1 else _ENTRY_COLOURS[i % 3] for i in range(n)]
+    hatches = [_ENTRY_HATCHES[-1] if i == n - 1 else _ENTRY_HATCHES[i % 3] for i in range(n)]
+    bars = gs[1, :].subgridspec(1, len(metrics), wspace=0.45)
     for j, (name, values) in enumerate(metrics):
         ax = fig.add_subplot(bars[0, j])
-        ax.bar(range(n), values, color=colours, edgecolor="black")
-        ax.set_xticks(range(n), labels, rotation=20, fontsize=8)
-        ax.set_title(name, fontsize=9)
+        ax.bar(range(n), values, color=colours, edgecolor="black", hatch=hatches)
+        ax.set_xticks(range(n), labels, rotation=25, fontsize=7, ha="right")
+        ax.tick_params(axis="y", labelsize=7)
+        ax.set_title(name, fontsize=8)
+        top = max(max(values, default=0.0), 1e-12)
+        ax.set_ylim(0, 1.18 * top)
         for k, v in enumerate(values):
-            ax.text(k, v, f"{v:.3g}", ha="center", va="bottom", fontsize=7)
+            ax.text(k, v, f"{v:.0f}" if abs(v) >= 1000 else f"{v:.3g}", ha="center",
+                    va="bottom", fontsize=6)
     ax = fig.add_subplot(gs[2, :], projection="polar")
     theta = np.linspace(0, 2 * np.pi, 361)
-    styles = ["-", "--", "-.", ":"]
+    styles = ["--", "-.", ":"]
     for i, (label, _, grade, _) in enumerate(entries):
         cents = {d.name: d.centroid_um for d in grade.devices}
         err = direction_errors(grade.pairs, theta, g_ppm_per_um, cents)
-        ax.plot(theta, err, styles[i % len(styles)], color=colours[i], lw=2,
+        last = i == n - 1
+        ax.plot(theta, err, "-" if last else styles[i % 3], color=colours[i],
+                lw=2.6 if last else 1.6, zorder=3 if last else 2,
                 label=label + (" (zero in every direction)" if err.max() < 1e-9 else ""))
+    ax.tick_params(labelsize=7)
     ax.set_title(f"worst pair ratio error (ppm) against gradient direction, "
-                 f"{g_ppm_per_um:g} ppm/um", fontsize=9)
-    ax.legend(loc="upper left", bbox_to_anchor=(1.05, 1.0), fontsize=8)
+                 f"{g_ppm_per_um:g} ppm/um", fontsize=8)
+    ax.legend(loc="upper left", bbox_to_anchor=(1.1, 1.0), fontsize=8)
     for path in paths:
         _write_figure(fig, path, 100)
 
@@ -277,49 +402,72 @@ def _save(fig: Any, paths: Sequence[Path], dpi: int = 100) -> None:
         _write_figure(fig, path, dpi)
 
 
-def save_budget(b: Any, name: str, paths: Sequence[Path], seed: int = 0) -> None:
-    """Budget picture: ratio-error histograms (mirrors, resistors) or INL/DNL by code."""
+def save_budget(b: Any, name: str, paths: Sequence[Path], seed: int = 0,
+                devices: Sequence[str] = ()) -> None:
+    """Budget picture: ratio-error histograms (mirrors, resistors), one panel per output
+    wrapped into rows of three, in each device's colour (``devices``: the spec's order,
+    which fixes the colours); or INL and DNL by code for a capacitor array, the gradient
+    curve with the random 99th-percentile band."""
     from placer.budget import DacBudget
 
     if isinstance(b, DacBudget):
-        fig = _figure(9.0, 6.0)
+        fig = _figure(9.0, 6.4)
         fig.set_layout_engine("constrained")
         ax1, ax2 = fig.subplots(2, 1, sharex=True)
         codes = np.arange(len(b.gradient_inl_lsb))
-        ax1.plot(codes, b.gradient_inl_lsb, color=PALETTE[4], lw=1,
-                 label=f"gradient, worst direction {b.worst_direction_deg:.0f} deg")
-        ax1.fill_between(codes, -np.array(b.mc_inl_p99_lsb), b.mc_inl_p99_lsb,
-                         color=PALETTE[1], alpha=0.35,
-                         label=f"random: 99th percentile of |INL| ({b.mc_samples} samples)")
-        ax1.set_ylabel("INL (LSB)")
-        ax1.legend(fontsize=8, loc="upper right")
-        ax2.plot(codes[:-1], b.gradient_dnl_lsb, color=PALETTE[5], lw=1,
-                 label=f"gradient, worst direction {b.worst_direction_deg:.0f} deg (step k to k+1)")
-        ax2.legend(fontsize=8, loc="upper right")
-        ax2.set_ylabel("DNL (LSB)")
-        ax2.set_xlabel("code")
+        inl = np.array(b.gradient_inl_lsb)
+        dnl = np.array(b.gradient_dnl_lsb)
+        band_i = np.array(b.mc_inl_p99_lsb)
+        band_d = np.array(b.mc_dnl_p99_lsb)
+        for ax, band, curve, x, what in ((ax1, band_i, inl, codes, "INL"),
+                                         (ax2, band_d, dnl, codes[:-1], "DNL")):
+            ax.fill_between(x, -band, band, color=PALETTE[1], alpha=0.4, lw=0,
+                            label=f"random: 99th percentile of |{what}| ({b.mc_samples} "
+                                  f"samples), up to {band.max(initial=0.0):.3g} LSB")
+            ax.plot(x, curve, color="black", lw=1.2,
+                    label=f"gradient, worst direction {b.worst_direction_deg:.0f} deg: up "
+                          f"to {np.abs(curve).max(initial=0.0):.3g} LSB")
+            ax.axhline(0.0, color="#888888", lw=0.5)
+            ax.set_ylabel(f"{what} (LSB)")
+            ax.legend(fontsize=8, loc="best", framealpha=0.85)
+        ax2.set_xlabel("code (DNL: the step from code k to k + 1)")
         ax1.set_title(f"{name}: INL and DNL against the {b.fit} line (model estimates)",
-                      fontsize=10)
+                      fontsize=10, loc="left", wrap=True)
         _save(fig, paths)
         return
-    n = len(b.lines)
-    fig = _figure(4.0 * max(n, 1), 3.6)
+    n = max(len(b.lines), 1)
+    ncols = min(n, 3)
+    nrows = -(-n // ncols)
+    fig = _figure(4.0 * ncols, 3.3 * nrows + 0.5)
     fig.set_layout_engine("constrained")
-    axes = np.atleast_1d(fig.subplots(1, max(n, 1)))
+    axes = np.atleast_1d(fig.subplots(nrows, ncols, squeeze=False)).ravel()
+    index = {d: i for i, d in enumerate(devices)}
+    colours = device_colours(max(len(devices), 1))
     rng = np.random.default_rng(seed)
-    for ax, ln, colour in zip(axes, b.lines, PALETTE, strict=False):
+    for k, ln in enumerate(b.lines):
+        ax = axes[k]
+        colour = colours[index[ln.device]][0] if ln.device in index else PALETTE[k % 8]
         m = 20000
         theta = rng.uniform(0, 2 * np.pi, m)
-        sample = ln.clm_pct + ln.gradient_pct * np.cos(theta) + rng.normal(0, ln.random_sigma_pct,
-                                                                           m)
+        # the linear part turns with the gradient; the curvature part (worst sign) and
+        # channel-length modulation do not
+        sample = (ln.clm_pct + ln.quadratic_pct + ln.gradient_pct * np.cos(theta)
+                  + rng.normal(0, ln.random_sigma_pct, m))
         ax.hist(sample, bins=80, color=colour, edgecolor="none")
         for v in (-b.tolerance_pct, b.tolerance_pct):
             ax.axvline(v, color="black", ls="--", lw=1)
         ax.set_title(f"{ln.device} / {b.reference}: {100 * ln.within_tolerance:.1f}% within "
                      f"+-{b.tolerance_pct:g}%", fontsize=9)
         ax.set_xlabel("ratio error (%)")
-    axes[0].set_ylabel("parts (Monte Carlo, random gradient direction)")
-    fig.suptitle(f"{name}: electrical budget (model estimates)", fontsize=10)
+        if k % ncols == 0:
+            ax.set_ylabel("parts (of 20 000)")
+    for ax in axes[len(b.lines):]:
+        ax.set_axis_off()
+    if not b.lines:
+        axes[0].text(0.5, 0.5, "one device: no ratio to budget", ha="center", va="center",
+                     transform=axes[0].transAxes)
+    fig.suptitle(f"{name}: electrical budget (model estimates; Monte Carlo over random "
+                 "gradient direction, dashed: the tolerance)", fontsize=10)
     _save(fig, paths)
 
 
@@ -346,14 +494,20 @@ def save_sensitivity(pattern: Pattern, pitch_um: tuple[float, float], units: Seq
                                       linewidth=0.5))
     if units:
         vals = np.array([u.contribution_ppm for u in units])
-        lim = max(float(np.abs(vals).max()), 1e-12)
+        # a scale set by the bulk of the units, not the one largest: the few beyond it
+        # show at full colour and the bar says so
+        big = float(np.abs(vals).max())
+        lim = max(float(np.percentile(np.abs(vals), 95)), big / 20, 1e-12)
         rects = [Rectangle((u.col * px - 0.46 * px, -u.row * py - 0.46 * py), 0.92 * px,
                            0.92 * py) for u in units]
         coll = PatchCollection(rects, cmap="RdBu_r", norm=TwoSlopeNorm(0.0, -lim, lim),
                                edgecolor="black", linewidth=0.5)
         coll.set_array(vals)
         ax.add_collection(coll)
-        fig.colorbar(coll, ax=ax, label="contribution to the error (ppm)", shrink=0.8)
+        fig.colorbar(coll, ax=ax, shrink=0.8, extend="both" if big > lim * 1.0001 else
+                     "neither",
+                     label="contribution to the error (ppm)"
+                           + (f"; largest {big:.3g}" if big > lim * 1.0001 else ""))
         if rows * cols <= 400:
             for u in units:
                 ax.text(u.col * px, -u.row * py, u.device, ha="center", va="center",
@@ -362,6 +516,11 @@ def save_sensitivity(pattern: Pattern, pitch_um: tuple[float, float], units: Seq
     ax.set_xlim(-0.5 * px - margin, (cols - 0.5) * px + margin)
     ax.set_ylim(-(rows - 0.5) * py - margin, 0.5 * py + margin)
     ax.set_aspect("equal")
-    ax.set_title(f"{name}: units shaded by their share of the {pair} linear error "
-                 "(red adds, blue cancels)", fontsize=9)
+    ax.set_xlabel("x (um)")
+    ax.set_ylabel("y (um)")
+    what = pair.replace(" under the ", " error under the ", 1) if " under the " in pair \
+        else f"{pair} error"
+    ax.set_title(f"{name}: each unit's share of the {what}\n"
+                 "(red adds, blue cancels; grey: units of other devices, not in this pair)",
+                 fontsize=9, loc="left")
     _save(fig, paths)

@@ -1,0 +1,42 @@
+"""The README's screenshot of the lesson page, made in headless Chromium.
+
+    python docs/lesson_screenshot.py
+
+Writes the lesson page of samples/bias_mirror.toml, opens it, loads the clustered
+arrangement, makes two swaps through the page and saves docs/lesson.png.
+"""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+import tempfile
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))   # run as a script from docs/: make tests.browser importable
+
+from tests.browser import chromium  # noqa: E402
+
+
+def main() -> None:
+    with tempfile.TemporaryDirectory() as tmp:
+        subprocess.run([sys.executable, "-m", "placer", "lesson",
+                        str(ROOT / "samples" / "bias_mirror.toml"), "--out", tmp,
+                        "--time-limit", "10"], check=True, capture_output=True)
+        page = next(Path(tmp).glob("*-lesson.html"))
+        driver = chromium(1400, 900)
+        try:
+            driver.get(page.as_uri())
+            for a, b in (((0, 1), (1, 6)), ((0, 6), (1, 1))):
+                for r, c in (a, b):
+                    driver.find_element("css selector",
+                                        f'.slot[data-row="{r}"][data-col="{c}"]').click()
+            driver.save_screenshot(str(ROOT / "docs" / "lesson.png"))
+        finally:
+            driver.quit()
+    print("wrote docs/lesson.png")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,137 @@
+"""The lesson page: one self-contained HTML file in which a trainee swaps units of an
+arrangement and watches every figure of the model change.
+
+:func:`lesson_data` gathers what the page needs (the spec's magnitudes, the ranked pairs,
+the arrangements its buttons load, and the arrangement-independent parts of the budget)
+as plain JSON; :func:`render_page` puts it, the page's script (``web/lesson.js``: the
+same formulas as ``grade``) and its style sheet into one file with nothing to fetch.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass
+from importlib import resources
+from typing import Any
+
+from placer.errors import LimitError
+from placer.pattern import Pattern
+from placer.spec import Spec
+
+__all__ = ["LessonArrangement", "lesson_data", "render_page", "spec_title", "MAX_LESSON_UNITS"]
+
+#: The page computes the correlated sigma over every pair of units (N^2 kernel values
+#: per swap): beyond this size it would lag.
+MAX_LESSON_UNITS = 1024
+
+
+@dataclass(frozen=True)
+class LessonArrangement:
+    """One arrangement a button of the page loads: its label, a line on what it is, and
+    the full pattern (in the spec's device order)."""
+
+    label: str
+    note: str
+    pattern: Pattern
+
+
+def lesson_data(spec: Spec, arrangements: list[LessonArrangement]) -> dict[str, Any]:
+    """Everything the page computes from, as JSON-ready values; the first arrangement is
+    the one the page opens with."""
+    from placer.plot import DUMMY_COLOUR, device_colours
+
+    if spec.n_units > MAX_LESSON_UNITS:
+        raise LimitError(f"{spec.source}: {spec.n_units} units; the lesson page recomputes "
+                         f"every figure on each swap and handles at most {MAX_LESSON_UNITS}")
+    g = spec.gradient
+    c = spec.correlated
+    area = spec.unit.area_um2
+    data: dict[str, Any] = {
+        "name": spec.name,
+        "kind": spec.kind,
+        "devices": list(spec.devices),
+        "counts": list(spec.counts),
+        "colours": [list(ch) for ch in device_colours(len(spec.devices))],
+        "dummy_colour": DUMMY_COLOUR,
+        "pitch_um": list(spec.array.pitch_um),
+        "linear_ppm_per_um": g.linear_ppm_per_um,
+        "quadratic_ppm_per_um2": g.quadratic_ppm_per_um2,
+        "gradient_described": g.described,
+        "correlated": {"sigma_ppm": c.sigma_ppm, "length_um": c.length_um,
+                       "kernel": c.kernel},
+        "white": {"a_param_pct_um": spec.mismatch.a_param_pct_um, "unit_area_um2": area},
+        "pairs": [list(p) for p in spec.ranked_pairs()],
+        "arrangements": [{"label": a.label, "note": a.note,
+                          "ids": a.pattern.ids.tolist(),
+                          "orient": a.pattern.orient.tolist()} for a in arrangements],
+        "budget": _budget_data(spec),
+    }
+    return data
+
+
+def _budget_data(spec: Spec) -> dict[str, Any] | None:
+    """The budget's parts that no arrangement changes; the page adds the rest."""
+    from placer import model
+    from placer.budget import clm_error, current_sigma
+
+    e = spec.electrical
+    if e is None:
+        return None
+    names = list(spec.devices)
+    count = dict(zip(names, spec.counts, strict=True))
+    if spec.kind == "cap":
+        term = e.termination
+        switched = [n for n in spec.budget_devices() if n != term]
+        bits = sorted(switched, key=lambda n: (count[n], names.index(n)))
+        return {"kind": "dac", "fit": e.fit, "bits": bits,
+                "index": [names.index(n) for n in bits],
+                "weights": [float(count[n]) for n in bits],
+                "termination": None if term is None else names.index(term),
+                "termination_weight": float(count[term]) if term else 0.0}
+    ref = e.reference or names[0]
+    area = {n: c * spec.unit.area_um2 for n, c in count.items()}
+    lines = []
+    for name in spec.budget_devices():
+        if name == ref:
+            continue
+        line: dict[str, Any] = {"device": name, "pair": [names.index(name), names.index(ref)]}
+        if spec.kind == "mos":
+            s_beta = float(model.pelgrom_sigma(e.a_beta_pct_um, area[name], area[ref]))
+            s_vt = float(model.pelgrom_sigma(e.a_vt_mv_um, area[name], area[ref]))
+            line["clm_pct"] = 100.0 * clm_error(e.lambda_per_v, e.vds_v[name], e.vds_v[ref])
+            line["white_pct"] = current_sigma(s_beta, 0.1 * s_vt, e.gm_id_per_v)
+        else:
+            white_ppm = 1e4 * float(model.pelgrom_sigma(spec.mismatch.a_param_pct_um,
+                                                        area[name], area[ref]))
+            line["clm_pct"] = 0.0
+            line["white_pct"] = 1e-4 * white_ppm
+        lines.append(line)
+    return {"kind": "ratio", "reference": ref, "k_sigma": e.k_sigma,
+            "tolerance_pct": e.tolerance_pct, "lines": lines}
+
+
+def _asset(name: str) -> str:
+    return resources.files("placer.web").joinpath(name).read_text(encoding="utf-8")
+
+
+def render_page(data: dict[str, Any]) -> str:
+    """The page: the template with the style sheet, the script and the data inlined.
+
+    The data is JSON inside a ``<script type="application/json">`` element; ``</`` is
+    escaped so no name can close the element early.
+    """
+    blob = json.dumps(data, allow_nan=False, separators=(",", ":")).replace("</", "<\\/")
+    page = _asset("lesson.html")
+    for key, value in (("/*STYLE*/", _asset("lesson.css")), ("/*DATA*/", blob),
+                       ("/*SCRIPT*/", _asset("lesson.js")),
+                       ("{{TITLE}}", f"{spec_title(data)} - placer lesson")):
+        page = page.replace(key, value)
+    return page
+
+
+def spec_title(data: dict[str, Any]) -> str:
+    """The block's name and devices, as the page's title says them."""
+    units = ", ".join(f"{n} = {c}" for n, c in zip(data["devices"], data["counts"],
+                                                    strict=True))
+    return f"{data['name']} ({units})"
+

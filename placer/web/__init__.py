@@ -1,0 +1,1 @@
+"""The lesson page's template, style sheet and script (package data)."""

@@ -1,0 +1,259 @@
+"""The lesson page in a real browser: swaps made through the page's own controls, every
+figure it shows read back and checked against ``placer grade`` on the arrangement the
+page exports.
+
+The browser is Debian's headless Chromium driven by selenium (``.ci/run`` installs
+both). Without it these tests fail, not skip, unless PLACER_NO_BROWSER=1 is set on a
+machine that cannot have one -- CI never sets it.
+
+Figures agree to 1e-9 relative; a figure that is zero, or a centroid offset that is
+zero up to rounding, is compared to 1e-9 of its natural scale (the pitch, or the
+gradient times the pitch) instead, since the page and numpy sum in different orders.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+ROOT = Path(__file__).resolve().parents[1]
+ARTEFACTS = Path(os.environ.get("PLACER_ARTEFACT_DIR", ROOT / "ci-artifacts"))
+REL = 1e-9
+
+if os.environ.get("PLACER_NO_BROWSER") == "1":
+    pytest.skip("PLACER_NO_BROWSER=1: no browser on this machine", allow_module_level=True)
+
+
+def _placer(*args: str, cwd: Path) -> subprocess.CompletedProcess[str]:
+    return subprocess.run([sys.executable, "-m", "placer", *args], cwd=cwd,
+                          capture_output=True, text=True, timeout=300)
+
+
+@pytest.fixture(scope="module")
+def browser():
+    from tests.browser import chromium
+
+    driver = chromium()
+    yield driver
+    driver.quit()
+
+
+def _page(tmp: Path, sample: str) -> tuple[Path, Path]:
+    spec = ROOT / "samples" / f"{sample}.toml"
+    res = _placer("lesson", str(spec), "--out", str(tmp), "--time-limit", "5", cwd=tmp)
+    assert res.returncode == 0, res.stderr
+    return spec, next(tmp.glob("*-lesson.html"))
+
+
+def _open(driver, page: Path) -> None:
+    driver.get(page.as_uri())
+    assert driver.execute_script("return document.body.dataset.ready") == "true"
+    errors = [e for e in driver.get_log("browser") if e["level"] == "SEVERE"]
+    assert not errors, errors
+
+
+def _figures(driver) -> dict[str, str]:
+    return {e.get_attribute("data-figure"): e.get_attribute("data-value")
+            for e in driver.find_elements("css selector", "[data-figure]")}
+
+
+def _slot(driver, r: int, c: int):
+    return driver.find_element("css selector", f'.slot[data-row="{r}"][data-col="{c}"]')
+
+
+def _swap_by_clicks(driver, a: tuple[int, int], b: tuple[int, int]) -> None:
+    _slot(driver, *a).click()
+    _slot(driver, *b).click()
+
+
+def _exported(driver, tmp: Path, name: str) -> Path:
+    driver.find_element("id", "export").click()
+    text = driver.find_element("id", "export-text").get_attribute("value")
+    path = tmp / name
+    path.write_text(text)
+    return path
+
+
+_GRADED: dict[tuple[str, str], dict] = {}
+
+
+def _grade(pattern: Path, spec: Path) -> dict:
+    """``placer grade --json`` of an exported pattern (run once per file)."""
+    key = (str(pattern), pattern.read_text())
+    if key not in _GRADED:
+        res = _placer("grade", str(pattern), "--spec", str(spec), "--json", cwd=pattern.parent)
+        assert res.returncode == 0, res.stderr
+        _GRADED[key] = json.loads(res.stdout)
+    return _GRADED[key]
+
+
+def _expected(g: dict) -> dict[str, float]:
+    """The page's figure keys, from grade's JSON (computed by placer, not the page)."""
+    pairs = g["pairs"]
+    out = {
+        "linear_ppm": max(abs(p["linear_ppm"]) for p in pairs),
+        "quadratic_ppm": max(abs(p["quadratic_ppm"]) for p in pairs),
+        "correlated_sigma_ppm": max(abs(p["correlated_sigma_ppm"]) for p in pairs),
+        "white_sigma_ppm": max(abs(p["white_sigma_ppm"]) for p in pairs),
+    }
+    for d in g["devices"]:
+        out[f"centroid_x:{d['name']}"] = d["centroid_um"][0]
+        out[f"centroid_y:{d['name']}"] = d["centroid_um"][1]
+        out[f"offset_um:{d['name']}"] = d["offset_um"]
+        out[f"edge_units:{d['name']}"] = d["edge_units"]
+    b = g["budget"]
+    if b is not None and "lines" in b:
+        for ln in b["lines"]:
+            for key in ("gradient_pct", "quadratic_pct", "clm_pct", "random_sigma_pct",
+                        "within_tolerance"):
+                out[f"{key}:{ln['device']}"] = ln[key]
+            out[f"range_low:{ln['device']}"] = ln["total_low_pct"]
+            out[f"range_high:{ln['device']}"] = ln["total_high_pct"]
+    elif b is not None:
+        for key in ("worst_gradient_inl_lsb", "worst_gradient_dnl_lsb", "quadratic_inl_lsb",
+                    "quadratic_dnl_lsb"):
+            out[key] = b[key]
+    return out
+
+
+def _shown(figs: dict[str, str]) -> dict[str, float]:
+    out = {}
+    for key, value in figs.items():
+        if key.startswith("range:"):
+            low, high = value.split()
+            out["range_low:" + key[6:]] = float(low)
+            out["range_high:" + key[6:]] = float(high)
+        else:
+            out[key] = float(value)
+    return out
+
+
+def _scale(key: str, g: dict) -> float:
+    """The size a figure's rounding is relative to: a centroid's is the array's (the page
+    and numpy sum positions in different orders), every other figure's is its own."""
+    if key.startswith(("centroid", "offset")):
+        return min(g["pitch_um"])
+    return 0.0
+
+
+def _agree(key: str, shown: float, want: float, g: dict) -> bool:
+    return abs(shown - want) <= REL * max(abs(want), _scale(key, g))
+
+
+@pytest.fixture(scope="module")
+def mirror_run(browser, tmp_path_factory):
+    """The sample mirror: two swaps by mouse, one by keyboard, then export."""
+    from selenium.webdriver.common.keys import Keys
+
+    tmp = tmp_path_factory.mktemp("mirror")
+    spec, page = _page(tmp, "bias_mirror")
+    _open(browser, page)
+    loaded = _figures(browser)
+    first = _exported(browser, tmp, "loaded.txt")
+    _swap_by_clicks(browser, (0, 1), (1, 6))
+    _swap_by_clicks(browser, (0, 3), (1, 2))
+    # keyboard: focus a slot, Enter, move right twice, Enter
+    _slot(browser, 0, 2).click()                # select (0, 2) by mouse ...
+    _slot(browser, 0, 2).click()                # ... and clear it: focus stays there
+    active = browser.switch_to.active_element
+    active.send_keys(Keys.ENTER)
+    browser.switch_to.active_element.send_keys(Keys.ARROW_DOWN)
+    browser.switch_to.active_element.send_keys(Keys.ARROW_RIGHT)
+    browser.switch_to.active_element.send_keys(Keys.ENTER)
+    assert browser.execute_script("return document.body.dataset.swaps") == "3"
+    swapped = _figures(browser)
+    path = _exported(browser, tmp, "swapped.txt")
+    ARTEFACTS.mkdir(parents=True, exist_ok=True)
+    shot = ARTEFACTS / "lesson-bias_mirror.png"
+    browser.save_screenshot(str(shot))
+    return {"spec": spec, "loaded": (loaded, first), "swapped": (swapped, path),
+            "shot": shot, "tmp": tmp}
+
+
+def test_three_swaps_changed_the_board(mirror_run):
+    before = mirror_run["loaded"][1].read_text().splitlines()[1:]
+    after = mirror_run["swapped"][1].read_text().splitlines()[1:]
+    diff = sum(a != b for ra, rb in zip(before, after, strict=True)
+               for a, b in zip(ra.split(), rb.split(), strict=True))
+    assert diff == 6                            # three swaps, two slots each
+
+
+MIRROR_KEYS = ["linear_ppm", "quadratic_ppm", "correlated_sigma_ppm", "white_sigma_ppm",
+               "centroid_x:MOUTA", "centroid_y:MOUTB", "offset_um:MREF", "edge_units:MREF",
+               "gradient_pct:MOUTA", "quadratic_pct:MOUTB", "clm_pct:MOUTA",
+               "random_sigma_pct:MOUTB", "range_low:MOUTA", "range_high:MOUTB",
+               "within_tolerance:MOUTA"]
+
+
+@pytest.mark.parametrize("state", ["loaded", "swapped"])
+@pytest.mark.parametrize("key", MIRROR_KEYS)
+def test_mirror_figure_matches_grade(mirror_run, state, key):
+    figs, pattern = mirror_run[state]
+    g = _grade(pattern, mirror_run["spec"])
+    shown, want = _shown(figs), _expected(g)
+    assert key in shown and key in want
+    assert _agree(key, shown[key], want[key], g), (key, shown[key], want[key])
+
+
+def test_every_mirror_figure_on_the_page_is_checked(mirror_run):
+    figs, pattern = mirror_run["swapped"]
+    g = _grade(pattern, mirror_run["spec"])
+    shown, want = _shown(figs), _expected(g)
+    assert set(shown) <= set(want)
+    bad = {k: (shown[k], want[k]) for k in shown if not _agree(k, shown[k], want[k], g)}
+    assert not bad
+
+
+def test_screenshot_is_not_blank(mirror_run):
+    import matplotlib.image as mpimg
+
+    img = mpimg.imread(mirror_run["shot"])
+    colours = np.unique((img[..., :3] * 255).astype(np.uint8).reshape(-1, 3), axis=0)
+    assert img.shape[0] > 500 and img.shape[1] > 1000
+    assert len(colours) > 50                    # text, device colours, plot lines
+
+
+def test_load_buttons_and_undo(browser, mirror_run):
+    tmp = mirror_run["tmp"]
+    browser.find_element("css selector", 'button[data-load="2"]').click()     # mirrored
+    mirrored = _exported(browser, tmp, "mirrored.txt")
+    figs = _shown(_figures(browser))
+    g = _grade(mirrored, mirror_run["spec"])
+    assert _agree("linear_ppm", figs["linear_ppm"], _expected(g)["linear_ppm"], g)
+    _swap_by_clicks(browser, (0, 1), (0, 2))
+    browser.find_element("id", "undo").click()
+    assert _exported(browser, tmp, "undone.txt").read_text() == mirrored.read_text()
+
+
+@pytest.fixture(scope="module")
+def dac_run(browser, tmp_path_factory):
+    tmp = tmp_path_factory.mktemp("dac")
+    spec, page = _page(tmp, "sar_cdac")
+    _open(browser, page)
+    browser.find_element("css selector", 'button[data-load="3"]').click()     # optimised
+    _swap_by_clicks(browser, (1, 1), (4, 4))
+    _swap_by_clicks(browser, (3, 5), (0, 5))    # a unit onto the dummy ring
+    figs = _figures(browser)
+    path = _exported(browser, tmp, "dac.txt")
+    ARTEFACTS.mkdir(parents=True, exist_ok=True)
+    browser.save_screenshot(str(ARTEFACTS / "lesson-sar_cdac.png"))
+    return {"spec": spec, "figs": figs, "path": path}
+
+
+DAC_KEYS = ["linear_ppm", "quadratic_ppm", "correlated_sigma_ppm", "white_sigma_ppm",
+            "centroid_x:C5", "offset_um:CT", "edge_units:C4", "worst_gradient_inl_lsb",
+            "worst_gradient_dnl_lsb", "quadratic_inl_lsb", "quadratic_dnl_lsb"]
+
+
+@pytest.mark.parametrize("key", DAC_KEYS)
+def test_dac_figure_matches_grade(dac_run, key):
+    g = _grade(dac_run["path"], dac_run["spec"])
+    shown, want = _shown(dac_run["figs"]), _expected(g)
+    assert _agree(key, shown[key], want[key], g), (key, shown[key], want[key])
+
