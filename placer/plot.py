@@ -331,7 +331,7 @@ def save_comparison(entries: Sequence[tuple[str, Pattern, Grade, float]],
     n = len(entries)
     fig = _figure(*PAPER[paper])
     fig.suptitle(title, fontsize=10, x=0.02, ha="left")
-    gs = fig.add_gridspec(3, n, height_ratios=[1.4, 1.0, 1.1], hspace=0.55, wspace=0.3,
+    gs = fig.add_gridspec(3, n, height_ratios=[0.9, 1.0, 1.15], hspace=0.65, wspace=0.3,
                           left=0.06, right=0.8, top=0.88, bottom=0.06)
     labels = [e[0] for e in entries]
     for i, (label, pattern, grade, _) in enumerate(entries):
@@ -390,6 +390,9 @@ def save_comparison(entries: Sequence[tuple[str, Pattern, Grade, float]],
                 lw=2.6 if last else 1.6, zorder=3 if last else 2,
                 label=label + (" (zero in every direction)" if err.max() < 1e-9 else ""))
     ax.tick_params(labelsize=7)
+    from matplotlib.ticker import MaxNLocator
+
+    ax.yaxis.set_major_locator(MaxNLocator(3))
     ax.set_title(f"worst pair ratio error (ppm) against gradient direction, "
                  f"{g_ppm_per_um:g} ppm/um", fontsize=8)
     ax.legend(loc="upper left", bbox_to_anchor=(1.1, 1.0), fontsize=8)
