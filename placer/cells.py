@@ -240,9 +240,9 @@ def load_rules(kind: str, path: Path | None = None) -> Rules:
             raise TemplateError(f"{src}: [rules] missing {key} (micrometres)")
         v = raw[key]
         if (isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v)
-                or not 0 < v <= MAX_RULE_UM):
-            raise TemplateError(f"{src}: [rules] {key} must be a number > 0 and at most "
-                                f"{MAX_RULE_UM:g} um, got {shown(v)}")
+                or not DB_UNIT_UM <= v <= MAX_RULE_UM):
+            raise TemplateError(f"{src}: [rules] {key} must be a number from {DB_UNIT_UM:g} "
+                                f"(the 1 nm grid) to {MAX_RULE_UM:g} um, got {shown(v)}")
         values[key] = float(v)
     return Rules(kind, values, src)
 

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import errno
+import os
 import signal
 import sys
 import time
@@ -40,6 +42,22 @@ __all__ = ["cli"]
 F = TypeVar("F", bound=Callable[..., Any])
 
 _FILE = click.Path(exists=True, dir_okay=False, path_type=Path)
+_STREAM_ERRORS = {errno.EPIPE, errno.ENOSPC, errno.EIO, errno.EBADF}
+
+
+class _Folder(click.Path):
+    """An output folder: not empty text (which would mean the current folder unasked)."""
+
+    def __init__(self) -> None:
+        super().__init__(file_okay=False, path_type=Path)
+
+    def convert(self, value: Any, param: Any, ctx: Any) -> Any:
+        if isinstance(value, str) and not value.strip():
+            self.fail("is empty: name a folder (use . for the current one)", param, ctx)
+        return super().convert(value, param, ctx)
+
+
+_OUT = _Folder()
 MAX_TIME_LIMIT_S = 86_400.0       # a day: any real search ends far sooner
 
 
@@ -78,6 +96,19 @@ def _user_errors(func: F) -> F:
                 return func(*args, **kwargs)
         except PlacerError as err:
             raise click.ClickException(str(err)) from None
+        except OSError as err:
+            # a write to standard output that failed (full device, closed pipe): files
+            # are written through OutputSet, which turns its own failures into a
+            # PlacerError above, so only the terminal's stream gets here
+            if err.filename is not None or err.errno not in _STREAM_ERRORS:
+                raise
+            try:
+                sys.stdout = open(os.devnull, "w")   # nothing more to flush at exit
+            except OSError:
+                pass
+            if err.errno != errno.EPIPE:           # a reader that stopped: be quiet
+                click.echo(f"Error: cannot write the output: {err.strerror or err}", err=True)
+            sys.exit(1)
         except KeyboardInterrupt:
             click.echo("Interrupted; nothing written.", err=True)
             sys.exit(130)
@@ -313,10 +344,10 @@ _ARRANGE_FILES = ("pattern.txt", "report.json", "pattern.gds", "pattern.png", "p
 
 @cli.command()
 @click.argument("spec_path", metavar="SPEC", type=_FILE)
-@click.option("--out", "out_dir", type=click.Path(file_okay=False, path_type=Path),
+@click.option("--out", "out_dir", type=_OUT,
               required=True,
               help="Folder for pattern.txt, report.json, pattern.gds, pattern.png, "
-                   "pattern.svg, budget.png (with [electrical]) and candidate-K.txt.")
+                   "pattern.svg, budget.png (with [electrical]) and candidate-K.txt/.png.")
 @click.option("--time-limit", "time_limit", type=_TIME,
               default=60.0, show_default=True,
               help="Safety cap on the search in seconds; the search usually ends sooner.")
@@ -415,7 +446,7 @@ def _layout_report(block: Any) -> dict[str, Any]:
 @click.argument("pattern_path", metavar="PATTERN", type=_FILE)
 @click.option("--spec", "spec_path", type=_FILE, default=None,
               help="Spec with pitch, unit size, kind, nets and model assumptions.")
-@click.option("--out", "out_dir", type=click.Path(file_okay=False, path_type=Path),
+@click.option("--out", "out_dir", type=_OUT,
               required=True, help="Folder for <name>.gds, <name>.png and <name>.svg.")
 @click.option("--layers", "layers_path", type=_FILE, default=None,
               help="Layer map (TOML: [layers] role = [layer, datatype]) for the GDSII.")
@@ -447,7 +478,7 @@ def draw(pattern_path: Path, spec_path: Path | None, out_dir: Path, layers_path:
 
 @cli.command()
 @click.argument("spec_path", metavar="SPEC", type=_FILE)
-@click.option("--out", "out_dir", type=click.Path(file_okay=False, path_type=Path),
+@click.option("--out", "out_dir", type=_OUT,
               required=True, help="Folder for <name>-compare.png and .pdf.")
 @click.option("--seed", type=_SEED, default=0, show_default=True,
               help="Seed of the optimised arrangement.")
@@ -500,7 +531,7 @@ def compare(spec_path: Path, out_dir: Path, seed: int, time_limit: float, paper:
 
 @cli.command()
 @click.argument("spec_path", metavar="SPEC", type=_FILE)
-@click.option("--out", "out_dir", type=click.Path(file_okay=False, path_type=Path),
+@click.option("--out", "out_dir", type=_OUT,
               required=True, help="Folder for <name>-lesson.html.")
 @click.option("--pattern", "pattern_path", type=_FILE, default=None,
               help="Open the page on this arrangement (a pattern of the spec's devices).")
@@ -551,8 +582,10 @@ def lesson(spec_path: Path, out_dir: Path, pattern_path: Path | None, seed: int,
 
 @cli.command()
 @click.argument("layout", type=_FILE)
-@click.option("--out", "out_dir", type=click.Path(file_okay=False, path_type=Path),
-              required=True, help="Folder for repaired.txt, .gds, .png, .svg and repair.json.")
+@click.option("--out", "out_dir", type=_OUT,
+              required=True,
+              help="Folder for repaired.txt, .png, .svg, repair.json and repaired.gds (when "
+                   "placer's unit cell fits the layout's pitch).")
 @click.option("--spec", "spec_path", type=_FILE, default=None,
               help="Spec with the model assumptions (defaults apply without it).")
 @click.option("--max-swaps", type=click.IntRange(min=1, max=64), default=4, show_default=True,
@@ -623,6 +656,7 @@ def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, 
         report = {"layout": str(layout), "recognised": rec.notes,
                   "swaps": [asdict(sw) for sw in res.swaps], "before": asdict(b),
                   "after": asdict(a), "target_linear_um": res.target_linear_um,
+                  "limited": res.limited or None,
                   "reached_target": res.reached_target, "grade": grade_.to_dict(),
                   "layout_nets": _layout_report(block) if block is not None else None}
         out.write("repair.json", json_text(report) + "\n")
@@ -635,8 +669,11 @@ def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, 
     click.echo(f"Linear worst pair: {b.linear_um:.4g} um ({b.linear_um * g:.4g} ppm) -> "
                f"{a.linear_um:.4g} um ({a.linear_um * g:.4g} ppm); target "
                f"{res.target_linear_um:.4g} um " + ("reached" if res.reached_target else
-                                                   f"not reached in {max_swaps} swaps"))
+                                                   ("not reached (see below)" if res.limited else
+                                                    f"not reached in {max_swaps} swaps")))
     click.echo(f"Quadratic worst pair: {b.quadratic_ppm:.4g} ppm -> {a.quadratic_ppm:.4g} ppm")
+    if res.limited:
+        click.echo(f"Limited: {res.limited}.")
     click.echo("Wrote " + ", ".join(str(p) for p in written))
     if note is not None:
         click.echo(f"Note: {note}", err=True)

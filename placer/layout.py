@@ -16,7 +16,15 @@ import numpy as np
 
 from placer.errors import LimitError, shown
 from placer.pattern import DUMMY, EMPTY, Pattern, parse_pattern
-from placer.spec import MAX_FILE_BYTES, MAX_SLOTS, NAME_RE, Spec
+from placer.spec import (
+    MAX_DEVICES,
+    MAX_FILE_BYTES,
+    MAX_NAME,
+    MAX_SLOTS,
+    MAX_UNITS,
+    NAME_RE,
+    Spec,
+)
 from placer.stream import LayoutError, StreamLibrary, is_gdsii, parse_stream
 
 __all__ = ["Unit", "Recognised", "read_layout", "units_to_pattern", "read_csv_units",
@@ -226,8 +234,8 @@ def gds_units(lib: StreamLibrary, source: str, *, cell: str | None,
 
     def count(what: str) -> None:
         visits[0] += 1
-        if visits[0] > 4 * MAX_SLOTS:
-            raise LimitError(f"{source}: the hierarchy places more than {4 * MAX_SLOTS} "
+        if visits[0] > 2 * MAX_SLOTS:
+            raise LimitError(f"{source}: the hierarchy places more than {2 * MAX_SLOTS} "
                              f"{what} once flattened, the limit")
 
     def gather(name: str, tx: float, ty: float, refl: bool, ang: float, mag: float,
@@ -238,6 +246,9 @@ def gds_units(lib: StreamLibrary, source: str, *, cell: str | None,
             x, y = _apply(t.x, t.y, tx, ty, refl, ang, mag)
             if (t.layer, t.texttype) == label_layer:
                 texts.append((t.text, x, y))
+                if len(texts) > MAX_UNITS:
+                    raise LimitError(f"{source}: more than {MAX_UNITS} device labels once "
+                                     "flattened; the limit is that many units")
             elif depth == 0:
                 skipped_texts[(t.layer, t.texttype)] += 1
         for r in s.refs:
@@ -343,18 +354,25 @@ def _label_units(placed: list[tuple[str, float, float, bool, float]],
                  notes: list[str]) -> list[Unit]:
     if not placed:
         raise LayoutError(f"{source}: no unit references found")
+    from scipy.spatial import cKDTree
+
     xy = np.array([(p[1], p[2]) for p in placed])
     px, py = _pitch(xy[:, 0]), _pitch(xy[:, 1])
     half = np.array([px if px > 0 else 1.0, py if py > 0 else 1.0]) / 2.0
     owner: dict[int, list[str]] = {}
     stray = []
-    for text, x, y in texts:
-        d = np.abs(xy - np.array([x, y]))
-        inside = np.nonzero(np.all(d < half * 0.999, axis=1))[0]
-        if len(inside) == 0:
+    # a label belongs to the nearest unit within half a pitch each way: in coordinates
+    # scaled by the half pitch, the units within Chebyshev distance 0.999
+    tree = cKDTree(xy / half)
+    lab = np.array([(x, y) for _, x, y in texts]).reshape(-1, 2)
+    near = tree.query_ball_point(lab / half, r=0.999, p=np.inf, return_sorted=True)
+    for (text, x, y), inside in zip(texts, near, strict=True):
+        cand = [i for i in inside if np.all(np.abs(xy[i] - (x, y)) < half * 0.999)]
+        if not cand:
             stray.append((text, x, y))
             continue
-        i = int(inside[np.argmin(np.hypot(*(d[inside].T)))])
+        d = np.hypot(xy[cand, 0] - x, xy[cand, 1] - y)
+        i = int(cand[int(np.argmin(d))])
         owner.setdefault(i, []).append(text)
     if stray:
         notes.append(f"skipped {len(stray)} labels lying on no unit, e.g. {shown(stray[0][0])} at "
@@ -589,5 +607,16 @@ def read_layout(path: Path, *, spec: Spec | None = None, cell: str | None = None
                           notes=notes)
         if scale != 1.0:
             units = [Unit(u.x * scale, u.y * scale, u.device, u.mark, u.cell) for u in units]
+    n_dev_units = sum(u.device is not None for u in units)
+    if n_dev_units > MAX_UNITS:
+        raise LimitError(f"{path}: {n_dev_units} device units, more than the limit of "
+                         f"{MAX_UNITS}")
+    names = {u.device for u in units if u.device is not None}
+    long = [n for n in names if len(n) > MAX_NAME]
+    if long:
+        raise LayoutError(f"{path}: device name {shown(long[0])} is longer than {MAX_NAME} "
+                          "characters")
+    if len(names) > MAX_DEVICES:
+        raise LimitError(f"{path}: {len(names)} devices, more than the limit of {MAX_DEVICES}")
     pattern, pitch, origin = units_to_pattern(units, str(path), notes, spec)
     return Recognised(pattern, pitch, origin, fmt, notes)

@@ -93,6 +93,17 @@ class OutputSet:
         self.committed = False
 
     def __enter__(self) -> OutputSet:
+        try:
+            return self._enter()
+        except BaseException as err:
+            # nothing of this run may stay: its lock, staging folder, created folders
+            self.__exit__(type(err), err, None)
+            if isinstance(err, OSError):      # e.g. a name too long for the file system
+                raise OutputError(f"{str(self.out)[:80]}: cannot write: "
+                                  f"{err.strerror or err}") from err
+            raise
+
+    def _enter(self) -> OutputSet:
         out = self.out
         if out.exists() and not out.is_dir():
             raise OutputError(f"{out}: exists and is not a folder; choose another --out")
@@ -138,9 +149,13 @@ class OutputSet:
                 continue
             except OSError as err:
                 raise OutputError(f"{self.out}: cannot write: {err.strerror or err}") from err
-            with os.fdopen(fd, "w") as fh:
-                fh.write(str(os.getpid()))
-            self.lock = lock
+            self.lock = lock                  # ours now: __exit__ removes it
+            try:
+                with os.fdopen(fd, "w") as fh:
+                    fh.write(str(os.getpid()))
+            except OSError as err:              # a full disk
+                raise OutputError(f"{self.out}: cannot write: {err.strerror or err}"
+                                  ) from err
             return
         raise OutputError(f"{self.out}: cannot take the folder's lock {lock}")
 
@@ -193,7 +208,7 @@ class OutputSet:
                     folder.rmdir()
                 except OSError:
                     break
-        if exc_type is None:
+        if exc_type is None or tb is None:
             return
         if isinstance(exc, OSError):
             raise OutputError(f"{self.out}: cannot write: {exc.strerror or exc}") from exc

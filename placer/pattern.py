@@ -11,7 +11,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from placer.errors import LimitError, PatternError, shown
-from placer.spec import MAX_SLOTS, Spec, read_text
+from placer.spec import MAX_DEVICES, MAX_NAME, MAX_SLOTS, MAX_UNITS, Spec, read_text
 
 __all__ = [
     "DUMMY",
@@ -92,6 +92,7 @@ def parse_pattern(text: str, source: str = "<pattern>") -> Pattern:
     names: dict[str, int] = {}
     width = None
     first_line = 0
+    units = 0
     for lineno, line in enumerate(text.removeprefix("\ufeff").splitlines(), start=1):
         stripped = line.strip()
         if not stripped or stripped.startswith("#"):
@@ -124,8 +125,19 @@ def parse_pattern(text: str, source: str = "<pattern>") -> Pattern:
                     f"{source}:{lineno}: token {col} {shown(token)} is not a device name (letter, "
                     "then letters, digits, _; optionally > or <), '.' (dummy) or '-' (empty)")
             name = m.group(1)
+            if name not in names:
+                if len(name) > MAX_NAME:
+                    raise PatternError(f"{source}:{lineno}: device name {shown(name)} is longer "
+                                       f"than {MAX_NAME} characters")
+                if len(names) == MAX_DEVICES:
+                    raise LimitError(f"{source}:{lineno}: more than {MAX_DEVICES} devices, "
+                                     "the limit")
             row.append(names.setdefault(name, len(names)))
             mark.append(_MARK[m.group(2)])
+            units += 1
+            if units > MAX_UNITS:
+                raise LimitError(f"{source}:{lineno}: more than {MAX_UNITS} device units, the "
+                                 "limit")
         rows.append(row)
         marks.append(mark)
     if not rows:

@@ -96,6 +96,12 @@ class RepairResult:
     after: Keys
     target_linear_um: float
     reached_target: bool
+    limited: str = ""            # what a large layout or the time limit cut short
+
+
+#: Swaps are tried between at most this many units (the pairs grow as its square): a
+#: larger layout offers the units farthest out along its worst pair's gradient.
+REPAIR_UNITS = 800
 
 
 def _problem(pattern: Pattern, spec: Spec, pitch_um: tuple[float, float]) -> Problem:
@@ -146,15 +152,28 @@ def repair(pattern: Pattern, spec: Spec, pitch_um: tuple[float, float], max_swap
     Only units of different devices are exchanged; dummies and empty slots stay. One swap
     is searched exhaustively; longer sequences by a beam of the ``beam`` best states per
     depth, each expanded by every swap (numpy-batched). The result is never worse than the
-    layout given: with no improving swap it comes back unchanged.
+    layout given: with no improving swap it comes back unchanged. Past ``REPAIR_UNITS``
+    units, swaps are tried among the units farthest out along the worst pair's worst
+    gradient direction (they move the centroids most); the time limit covers the target's
+    search and the swaps, and ``limited`` says what either cut short.
     """
+    import time
+
+    t0 = time.monotonic()
     prob = _problem(pattern, spec, pitch_um)
     flat = pattern.ids.ravel().astype(np.int64)
     assign = np.where(flat >= 0, flat, -2)
     movable = np.nonzero(flat >= 0)[0]
     before = keys_of(prob, assign)
-    target = search(prob, seed=seed, time_limit_s=time_limit_s).keys.linear_um
+    target = search(prob, seed=seed, time_limit_s=0.5 * time_limit_s).keys.linear_um
     target = min(target, before.linear_um)
+    deadline = t0 + time_limit_s
+    limited = []
+    if len(movable) > REPAIR_UNITS:
+        movable = _outermost(pattern, pitch_um, movable, REPAIR_UNITS)
+        limited.append(f"swaps tried among the {REPAIR_UNITS} units farthest out along the "
+                       "worst gradient direction (of "
+                       f"{int(np.sum(flat >= 0))})")
 
     rows, cols = pattern.shape
     r_idx, c_idx = np.divmod(np.arange(rows * cols), cols)
@@ -163,8 +182,9 @@ def repair(pattern: Pattern, spec: Spec, pitch_um: tuple[float, float], max_swap
     mono = np.column_stack([np.ones_like(u), u, v, u * u, u * v, v * v]).astype(np.int64)
     n_dev = len(pattern.devices)
     pairs = prob.pair_array()
-    n_units = len(movable)
-    total = mono[movable, 1:3].sum(axis=0)
+    every = np.nonzero(flat >= 0)[0]
+    n_units = len(every)
+    total = mono[every, 1:3].sum(axis=0)
     tol = 1e-9 * max(1.0, target)
     si, ti = np.triu_indices(len(movable), 1)
     s_all, t_all = movable[si], movable[ti]
@@ -173,7 +193,7 @@ def repair(pattern: Pattern, spec: Spec, pitch_um: tuple[float, float], max_swap
         keep = state[s_all] != state[t_all]
         s, t = s_all[keep], t_all[keep]
         sums = np.zeros((n_dev, 6), dtype=np.int64)
-        np.add.at(sums, state[movable], mono[movable])
+        np.add.at(sums, state[every], mono[every])
         lin = np.empty(len(s))
         quad = np.empty(len(s))
         for k in range(0, len(s), 4096):
@@ -191,8 +211,11 @@ def repair(pattern: Pattern, spec: Spec, pitch_um: tuple[float, float], max_swap
     states: list[tuple[float, float, IntArray, tuple[tuple[int, int], ...]]] = [
         (before.linear_um, before.quadratic_ppm, assign, ())]
     best = states[0]
-    for _depth in range(max_swaps):
+    for depth in range(max_swaps):
         if best[0] <= target + tol or len(pairs) == 0:
+            break
+        if depth and time.monotonic() > deadline:
+            limited.append(f"stopped at the time limit after {depth} swap(s)")
             break
         pool: dict[bytes, tuple[float, float, IntArray, tuple[tuple[int, int], ...]]] = {}
         for _lin0, _quad0, state, path in states:
@@ -224,4 +247,22 @@ def repair(pattern: Pattern, spec: Spec, pitch_um: tuple[float, float], max_swap
                        orient.reshape(pattern.shape))
     after = keys_of(prob, final)
     return RepairResult(tuple(swaps), repaired, before, after, target,
-                        after.linear_um <= target + tol)
+                        after.linear_um <= target + tol, "; ".join(limited))
+
+
+def _outermost(pattern: Pattern, pitch_um: tuple[float, float], movable: IntArray,
+               k: int) -> IntArray:
+    """The ``k`` of ``movable`` slots farthest from the centre along the worst pair's
+    centroid difference (half from each end), in slot order."""
+    xy, dev = unit_positions(pattern, pitch_um)
+    n = np.bincount(dev, minlength=len(pattern.devices))
+    cen = np.array([xy[dev == d].mean(axis=0) if n[d] else (0.0, 0.0)
+                    for d in range(len(pattern.devices))])
+    gap = max(((a, b) for a in range(len(cen)) for b in range(a + 1, len(cen))),
+              key=lambda p: float(np.hypot(*(cen[p[0]] - cen[p[1]]))), default=(0, 0))
+    u = cen[gap[0]] - cen[gap[1]]
+    u = u / np.hypot(*u) if np.hypot(*u) > 0 else np.array([1.0, 0.0])
+    along = (xy - xy.mean(axis=0)) @ u            # unit_positions: the movable slots, in order
+    order = np.argsort(along, kind="stable")
+    pick = np.concatenate([order[:k // 2], order[len(order) - (k - k // 2):]])
+    return np.sort(movable[pick])

@@ -416,6 +416,8 @@ _RANGES: dict[tuple[str, str], tuple[float, float, str]] = {
     ("electrical.weights", "*"): (0.0, 1e9, ""),
 }
 MAX_SEED = 2**63 - 1
+#: A non-zero number smaller than this is no physical value in any unit a spec uses.
+MIN_MAGNITUDE = 1e-15
 
 
 def number_range(table: str, key: str) -> tuple[float, float, str]:
@@ -458,6 +460,9 @@ class _Reader:
         if not low <= value <= high:        # exact for any int: no float overflow here
             raise self.fail(key, f"must be between {low:g} and {high:g}{unit}, got "
                                  f"{shown(value)}")
+        if value != 0 and abs(value) < MIN_MAGNITUDE:
+            raise self.fail(key, f"= {shown(value)} is too small to mean anything: give 0 or "
+                                 f"at least {MIN_MAGNITUDE:g}")
         value = float(value)
         if positive and (value < 0 or (value == 0 and not allow_zero)):
             raise self.fail(key, f"must be {'>= 0' if allow_zero else '> 0'}, got {value:g}")
@@ -931,9 +936,10 @@ def _placement(source: str, data: dict[str, Any], names: list[str], counts: list
         raise SpecError(f"{source}: [groups] must hold tables [groups.NAME] with devices")
     seen: dict[str, str] = {}
     for gname, g in raw_groups.items():
-        where = f"{source}: [groups.{gname}]"
-        if not NAME_RE.match(gname):
-            raise SpecError(f"{where}: the group name must be a name (letters, digits, _)")
+        where = f"{source}: [groups.{gname[:MAX_NAME]}]"
+        if not NAME_RE.match(gname) or len(gname) > MAX_NAME:
+            raise SpecError(f"{source}: [groups] group name {shown(gname)} must be a name of "
+                            f"at most {MAX_NAME} letters, digits or _")
         if not isinstance(g, dict):
             raise SpecError(f"{where} must be a table with devices = [...]")
         for key in g:

@@ -93,7 +93,7 @@ def test_template_sizes_must_be_finite(tmp_path):
     bad = _spec(tmp_path, tmpl.replace("contact = ", "contact = inf #", 1), "t.toml")
     res = _run(["arrange", str(_spec(tmp_path, MIRROR)), "--out", "o", "--template", str(bad),
                 "--time-limit", "1"], tmp_path)
-    _refused(res, "contact must be a number > 0")
+    _refused(res, "contact must be a number from 0.001")
     assert not (tmp_path / "o").exists()
 
 
@@ -258,3 +258,82 @@ def test_a_byte_order_mark_is_read_the_same_everywhere(tmp_path, kind):
                           + (ROOT / "samples" / "bias_mirror_hand.txt").read_text())
         res = _run(["grade", str(layout), "--spec", str(spec)], tmp_path)
     assert res.returncode == 0, res.stderr
+
+
+# ------------------------------------------------------------- found by the adversarial run
+def test_many_gdsii_references_are_read_in_linear_time_and_over_the_limit_refused(tmp_path):
+    """Labels are matched to units through a k-d tree, not one scan of all units each: a
+    layout of 20 000 flat references reads like the same units as CSV; 80 000 labelled
+    units (two 200 x 200 arrays) are refused as soon as the labels are counted."""
+    import gdstk
+
+    lib = gdstk.Library("advlib")
+    unit = lib.new_cell("UNIT")
+    unit.add(gdstk.rectangle((-1, -1), (1, 1), layer=1))
+    top = lib.new_cell("TOP")
+    for k in range(2):
+        top.add(gdstk.Reference(unit, (0, 3000 * k), columns=200, rows=200, spacing=(3, 9)))
+        for i in range(200):
+            for j in range(200):
+                top.add(gdstk.Label(("MA", "MB")[k], (3 * i, 3000 * k + 9 * j), layer=10))
+    path = tmp_path / "big.gds"
+    lib.write_gds(str(path))
+    res = _run(["grade", str(path)], tmp_path)
+    _refused(res, "more than 65536 device labels")
+
+
+def test_patterns_and_csv_over_the_unit_limit_are_refused(tmp_path):
+    pattern = tmp_path / "p.txt"
+    pattern.write_text(("A B " * 140 + "\n") * 250)       # 70 000 units
+    _refused(_run(["grade", str(pattern)], tmp_path), "more than 65536 device units")
+    csv = tmp_path / "c.csv"
+    csv.write_text("x_um,y_um,device\n" + "".join(f"{i % 300},{i // 300},A\n"
+                                                   for i in range(70_000)))
+    _refused(_run(["grade", str(csv)], tmp_path), "more than the limit of 65536")
+
+
+def test_a_long_device_name_in_a_pattern_is_refused(tmp_path):
+    pattern = tmp_path / "p.txt"
+    pattern.write_text("N" * 100_001 + " B\n")
+    _refused(_run(["grade", str(pattern)], tmp_path), "longer than 24 characters")
+
+
+def test_repair_of_a_large_layout_stays_bounded(tmp_path):
+    """20 000 units: swaps among the outermost units only, the time limit kept."""
+    pattern = tmp_path / "p.txt"
+    rows = [" ".join(("A", "B")[(r + c) % 2 if c < 199 else 0] for c in range(200))
+            for r in range(100)]
+    pattern.write_text("\n".join(rows) + "\n")
+    res = _run(["repair", str(pattern), "--out", "r", "--time-limit", "2"], tmp_path,
+               timeout=600)
+    assert res.returncode == 0, res.stderr
+    assert "Limited: swaps tried among the 800 units" in res.stdout
+
+
+@pytest.mark.parametrize("args, words", [
+    (["--out", "o" * 300], "File name too long"),
+    (["--out", ""], "is empty"),
+])
+def test_bad_output_folders_are_one_line(tmp_path, args, words):
+    res = _run(["arrange", str(_spec(tmp_path, MIRROR)), *args, "--time-limit", "1"], tmp_path)
+    _refused(res, words, code=2 if words == "is empty" else 1)
+
+
+def test_a_full_standard_output_is_one_line(tmp_path):
+    with open("/dev/full", "w") as full:
+        res = subprocess.run([sys.executable, "-m", "placer", "grade",
+                              str(ROOT / "samples" / "bias_mirror_hand.txt"), "--spec",
+                              str(ROOT / "samples" / "bias_mirror.toml")], stdout=full,
+                             stderr=subprocess.PIPE, text=True, cwd=tmp_path, timeout=120)
+    assert res.returncode == 1 and "Traceback" not in res.stderr
+    assert res.stderr.strip().startswith("Error: cannot write the output")
+
+
+@pytest.mark.parametrize("text, words", [
+    ("[devices]\nA = 1\n[correlated]\nsigma_ppm = 1e-300\n", "too small to mean anything"),
+    ("[devices]\nA = 1\n[groups." + "G" * 5000 + "]\ndevices = [\"A\"]\n",
+     "must be a name of at most 24"),
+])
+def test_meaningless_values_and_names_are_refused(text, words):
+    with pytest.raises(PlacerError, match=words):
+        parse_spec(text, "s.toml")
