@@ -162,9 +162,9 @@ def test_the_generic_layer_map_states_the_contract_exactly():
     ('kind = "cap"\n[rules]\ncontact = 0.2\n', "does not match the spec's kind"),
     ('[rules]\ncontact = 0.2\n', "missing contact_space"),
     ('[rules]\ncontakt = 0.2\n', "did you mean 'contact'"),
-    ('[rules]\ncontact = -1\n', "must be a number > 0"),
-    ('[rules]\ncontact = inf\n', "must be a number > 0"),
-    ('[rules]\ncontact = nan\n', "must be a number > 0"),
+    ('[rules]\ncontact = -1\n', "must be a number from 0.001"),
+    ('[rules]\ncontact = inf\n', "must be a number from 0.001"),
+    ('[rules]\ncontact = nan\n', "must be a number from 0.001"),
     ('shape = 1\n', "unknown key 'shape'"),
 ])
 def test_bad_templates_are_refused(tmp_path, text, match):
