@@ -21,7 +21,7 @@ import numpy as np
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
-from placer.cells import load_rules  # noqa: E402
+from placer.cells import load_rules, spacing_rules  # noqa: E402
 from placer.cli import cli  # noqa: E402
 from placer.drawing import layout_of  # noqa: E402
 from placer.gds import write_gds  # noqa: E402
@@ -40,13 +40,7 @@ SIZES = {"mos": ([0.5, 1.0, 2.0, 4.5], [0.15, 0.5, 1.0, 3.0]),
 
 def spacing(kind: str) -> dict[str, float]:
     """The template's spacing rules per conductor."""
-    r = load_rules(kind).values
-    out = {"metal1": r["metal1_space"], "metal2": r["metal2_space"]}
-    if kind == "mos":
-        out.update(diffusion=r["diffusion_space"], gate=r["gate_space"])
-    if kind == "res":
-        out["gate"] = r["gate_space"]
-    return out
+    return spacing_rules(load_rules(kind))
 
 
 def random_case(kind: str, rng: np.random.Generator) -> tuple[object, Pattern]:

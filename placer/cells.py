@@ -31,6 +31,7 @@ __all__ = [
     "Rules",
     "RULES",
     "load_rules",
+    "spacing_rules",
     "shipped_text",
     "unit_cell",
     "channel",
@@ -245,6 +246,17 @@ def load_rules(kind: str, path: Path | None = None) -> Rules:
                                 f"(the 1 nm grid) to {MAX_RULE_UM:g} um, got {shown(v)}")
         values[key] = float(v)
     return Rules(kind, values, src)
+
+
+def spacing_rules(rules: Rules) -> dict[str, float]:
+    """The template's spacing between shapes of different nets, per conductor role."""
+    r = rules.values
+    out = {"metal1": r["metal1_space"], "metal2": r["metal2_space"]}
+    if rules.kind == "mos":
+        out.update(diffusion=r["diffusion_space"], gate=r["gate_space"])
+    if rules.kind == "res":
+        out["gate"] = r["gate_space"]
+    return out
 
 
 def _column(span0: float, span1: float, size: float, space: float) -> list[float]:

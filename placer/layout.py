@@ -24,6 +24,7 @@ from placer.spec import (
     MAX_UNITS,
     NAME_RE,
     Spec,
+    read_limited,
 )
 from placer.stream import LayoutError, StreamLibrary, is_gdsii, parse_stream
 
@@ -105,16 +106,6 @@ def detect_format(head: bytes) -> str:
         header = any(c in _X for c in cells) and any(c in _Y for c in cells)
         return "csv" if header or (_is_number(cells[0]) and _is_number(cells[1])) else "pattern"
     return "pattern"
-
-
-def _read_bytes(path: Path, limit: int) -> bytes:
-    try:
-        size = path.stat().st_size
-        if size > limit:
-            raise LimitError(f"{path}: file is {size} bytes, the limit is {limit}")
-        return path.read_bytes()
-    except OSError as err:
-        raise LayoutError(f"{path}: cannot read: {err.strerror or err}") from err
 
 
 def read_csv_units(text: str, source: str) -> list[Unit]:
@@ -570,7 +561,7 @@ def read_layout(path: Path, *, spec: Spec | None = None, cell: str | None = None
                 mapping: dict[str, str] | None = None, label_layer: tuple[int, int] = (10, 0),
                 dummy_cells: set[str] | None = None) -> Recognised:
     """Read a pattern, a CSV of unit centres or a GDSII layout, chosen by content."""
-    data = _read_bytes(path, MAX_LAYOUT_BYTES)
+    data = read_limited(path, MAX_LAYOUT_BYTES, "layout", LayoutError)
     fmt = detect_format(data[:4096])
     notes: list[str] = []
     if fmt == "pattern":

@@ -519,16 +519,21 @@ def load_spec(path: str | Path) -> Spec:
     return parse_spec(text, source=str(path), default_name=path.stem)
 
 
-def read_text(path: Path, what: str, error: type[PlacerError]) -> str:
-    """A UTF-8 text file of at most MAX_FILE_BYTES, or ``error`` with one line."""
+def read_limited(path: Path, limit: int, what: str, error: type[PlacerError]) -> bytes:
+    """The bytes of a file of at most ``limit`` bytes (checked before reading), or
+    ``error`` (``LimitError`` past the limit) with one line naming the file."""
     try:
         size = path.stat().st_size
-        if size > MAX_FILE_BYTES:
-            raise LimitError(f"{path}: file is {size} bytes, the limit for a {what} is "
-                             f"{MAX_FILE_BYTES}")
-        raw = path.read_bytes()
+        if size > limit:
+            raise LimitError(f"{path}: file is {size} bytes, the limit for a {what} is {limit}")
+        return path.read_bytes()
     except OSError as err:
         raise error(f"{path}: cannot read: {err.strerror or err}") from err
+
+
+def read_text(path: Path, what: str, error: type[PlacerError]) -> str:
+    """A UTF-8 text file of at most MAX_FILE_BYTES, or ``error`` with one line."""
+    raw = read_limited(path, MAX_FILE_BYTES, what, error)
     try:
         return raw.decode("utf-8").removeprefix("\ufeff")   # one byte-order mark: allowed
     except UnicodeDecodeError as err:

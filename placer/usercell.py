@@ -70,17 +70,11 @@ def load_user_cell(path: Path, name: str | None, spec: Spec, rules: Rules,
     """Read cell ``name`` (default: the one top cell) of the GDSII file ``path``."""
     import gdstk
 
+    from placer.spec import read_limited
     from placer.stream import parse_stream
 
     src = str(path)
-    try:
-        size = path.stat().st_size
-        if size > MAX_USER_BYTES:
-            raise TemplateError(f"{src}: file is {size} bytes, the limit for a unit-cell "
-                                f"library is {MAX_USER_BYTES}")
-        data = path.read_bytes()
-    except OSError as err:
-        raise TemplateError(f"{src}: cannot read: {err.strerror or err}") from err
+    data = read_limited(path, MAX_USER_BYTES, "unit-cell library", TemplateError)
     parsed = parse_stream(data, src)          # placer's strict reader first: a damaged
     if abs(parsed.user_in_m - 1e-6) > 1e-15:  # file ends in a message, not a crash
         raise TemplateError(f"{src}: user unit is {parsed.user_in_m:g} m; a unit-cell "

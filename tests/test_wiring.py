@@ -18,7 +18,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from placer.cells import load_rules
+from placer.cells import load_rules, spacing_rules
 from placer.cli import cli
 from placer.drawing import layout_of
 from placer.gds import write_gds
@@ -35,13 +35,7 @@ CASES_PER_KIND = 300
 def _spacing(kind: str) -> dict[str, float]:
     """The template's own spacing rules, per conductor (what 'no shape of one net comes
     closer than the stated spacing to another net's' is checked against)."""
-    r = load_rules(kind).values
-    out = {"metal1": r["metal1_space"], "metal2": r["metal2_space"]}
-    if kind == "mos":
-        out.update(diffusion=r["diffusion_space"], gate=r["gate_space"])
-    if kind == "res":
-        out["gate"] = r["gate_space"]
-    return out
+    return spacing_rules(load_rules(kind))
 
 
 def _snake(ids: np.ndarray) -> list[tuple[int, int]]:
