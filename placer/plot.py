@@ -141,9 +141,11 @@ def draw_pattern(ax: Any, pattern: Pattern, pitch_um: tuple[float, float],
             else:
                 key = (colours[d][0], colours[d][1], "#222222")
             by_style.setdefault(key, []).append(Rectangle((x + ox, y + oy), w, h))
+    # outlines thin out as slots get many (else they swamp the fill in a small panel)
+    lw = 0.6 if rows * cols <= 256 else 0.25 if rows * cols <= 1500 else 0.0
     for (face, hatch, edge), rects in by_style.items():
         ax.add_collection(PatchCollection(rects, facecolor=face, edgecolor=edge,
-                                          hatch=hatch or None, linewidth=0.6, zorder=1))
+                                          hatch=hatch or None, linewidth=lw, zorder=1))
     margin = 0.3 * min(px, py)
     ax.set_xlim(-0.5 * px - margin, (cols - 0.5) * px + margin)
     ax.set_ylim(-(rows - 0.5) * py - margin, 0.5 * py + margin)
@@ -521,9 +523,13 @@ def save_sensitivity(pattern: Pattern, pitch_um: tuple[float, float], units: Seq
     ax.set_aspect("equal")
     ax.set_xlabel("x (um)")
     ax.set_ylabel("y (um)")
+    import textwrap
+
     what = pair.replace(" under the ", " error under the ", 1) if " under the " in pair \
         else f"{pair} error"
-    ax.set_title(f"{name}: each unit's share of the {what}\n"
-                 "(red adds, blue cancels; grey: units of other devices, not in this pair)",
-                 fontsize=9, loc="left")
+    width_chars = int(fig.get_size_inches()[0] * 13)
+    fig.suptitle(textwrap.fill(f"{name}: each unit's share of the {what}", width_chars)
+                 + "\n" + textwrap.fill("(red adds, blue cancels; grey: units of other "
+                                         "devices, not in this pair)", width_chars),
+                 fontsize=9, x=0.02, ha="left")
     _save(fig, paths)
