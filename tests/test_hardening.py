@@ -338,3 +338,11 @@ def test_a_full_standard_output_is_one_line(tmp_path):
 def test_meaningless_values_and_names_are_refused(text, words):
     with pytest.raises(PlacerError, match=words):
         parse_spec(text, "s.toml")
+
+
+def test_a_csv_coordinate_error_quotes_the_values(tmp_path):
+    csv = tmp_path / "c.csv"
+    csv.write_text("x_um,y_um,device\n0,0,A\n1.5,abc,B\n")
+    res = _run(["grade", str(csv)], tmp_path)
+    _refused(res, "c.csv:3: x and y must be numbers, got '1.5', 'abc'")
+    assert "{x}" not in res.stderr
