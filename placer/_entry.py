@@ -52,4 +52,10 @@ def main() -> None:
     from placer.cli import cli  # numpy, matplotlib, scipy ...
 
     signal.signal(signal.SIGINT, signal.default_int_handler)
-    cli(prog_name="placer")
+    try:
+        cli(prog_name="placer")
+    finally:
+        # the command has finished (its outputs complete or removed): a signal during
+        # the interpreter's shutdown must not end the process by the signal instead
+        signal.signal(signal.SIGINT, signal.SIG_IGN)
+        signal.signal(signal.SIGTERM, signal.SIG_IGN)

@@ -340,6 +340,39 @@ def _ratio_budget(pattern: Pattern, spec: Spec, grade: Grade, e: ElectricalSpec
     return MirrorBudget(spec.kind, ref, e.k_sigma, e.tolerance_pct, tuple(lines), assumptions)
 
 
+class UpperPercentile:
+    """The ``q``-th percentile (numpy's linear interpolation) of each column of ``n``
+    samples that arrive in batches, keeping only each column's largest
+    ``n - floor(q/100 (n - 1)) + 1`` values -- never all samples x columns.
+
+    Examples
+    --------
+    >>> x = np.random.default_rng(2).random((700, 5))
+    >>> up = UpperPercentile(700, 5)
+    >>> for k in range(0, 700, 128):
+    ...     up.add(x[k:k + 128])
+    >>> bool(np.allclose(up.value(), np.percentile(x, 99, axis=0)))
+    True
+    """
+
+    def __init__(self, n: int, n_cols: int, q: float = 99.0):
+        self.n, self.q = n, q
+        self.keep = n - int(np.floor(q / 100.0 * (n - 1))) + 1
+        self.top = np.zeros((0, n_cols))
+
+    def add(self, batch: FloatArray) -> None:
+        """Take a batch of samples (rows)."""
+        self.top = np.vstack([self.top, batch])
+        if len(self.top) > self.keep:
+            self.top = -np.partition(-self.top, self.keep - 1, axis=0)[:self.keep]
+
+    def value(self) -> FloatArray:
+        """The percentile of every column (zeros before any sample)."""
+        if self.n == 0 or len(self.top) == 0:
+            return np.zeros(self.top.shape[1])
+        return _upper_percentile(self.top, self.n, self.q)
+
+
 def _upper_percentile(top: FloatArray, n: int, q: float) -> FloatArray:
     """``np.percentile(all, q, axis=0)`` (linear interpolation) of ``n`` samples per
     column, from ``top``: at least the largest ``n - floor(q/100 (n-1)) + 1`` of each.
@@ -408,11 +441,9 @@ def _dac_budget(pattern: Pattern, spec: Spec, e: ElectricalSpec) -> DacBudget:
     rng = np.random.default_rng(e.mc_seed)
     n = e.mc_samples
     inl_w, dnl_w = [], []
-    # the 99th percentile of |INL| per code needs only each code's largest 1 % (plus
-    # one): they are kept, never all samples x codes
-    keep = n - int(np.floor(0.99 * (n - 1))) + 1 if n else 0
-    top = np.zeros((0, len(codes)))
-    top_d = np.zeros((0, len(codes) - 1))
+    # the 99th percentile of |INL| and |DNL| per code, from each code's largest 1 %
+    top_i = UpperPercentile(n, len(codes))
+    top_d = UpperPercentile(n, len(codes) - 1)
     batch = max(1, 2_000_000 // max(len(codes), 1))
     for start in range(0, n, batch):
         m = min(batch, n - start)
@@ -420,15 +451,11 @@ def _dac_budget(pattern: Pattern, spec: Spec, e: ElectricalSpec) -> DacBudget:
         i_mc, d_mc = inl_of(err)
         inl_w.append(np.abs(i_mc).max(-1))
         dnl_w.append(np.abs(d_mc).max(-1))
-        top = np.vstack([top, np.abs(i_mc)])
-        top_d = np.vstack([top_d, np.abs(d_mc)])
-        if len(top) > keep:
-            top = -np.partition(-top, keep - 1, axis=0)[:keep]
-            top_d = -np.partition(-top_d, keep - 1, axis=0)[:keep]
+        top_i.add(np.abs(i_mc))
+        top_d.add(np.abs(d_mc))
     iw = np.concatenate(inl_w) if inl_w else np.zeros(0)
     dw = np.concatenate(dnl_w) if dnl_w else np.zeros(0)
-    p99 = _upper_percentile(top, n, 99.0) if n else np.zeros(len(codes))
-    p99_d = _upper_percentile(top_d, n, 99.0) if n else np.zeros(len(codes) - 1)
+    p99, p99_d = top_i.value(), top_d.value()
     return DacBudget(
         bits=tuple(bits), termination=term, fit=e.fit,
         worst_gradient_inl_lsb=float(np.abs(inl[k]).max()),

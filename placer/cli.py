@@ -422,13 +422,14 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
 
                 save_budget(bud, spec.name, [out.path("budget.png")], devices=spec.devices)
             written = out.commit()
-    click.echo(format_arrangement(result, spec))
-    click.echo("")
-    click.echo(format_nets(block.wiring))
-    if bud is not None:
-        click.echo("")
-        click.echo(format_budget(bud))
-    click.echo(f"\nWrote {out_dir}/" + ", ".join(p.name for p in written))
+            # the set is complete: a signal now only shortens the exit, never the report
+            click.echo(format_arrangement(result, spec))
+            click.echo("")
+            click.echo(format_nets(block.wiring))
+            if bud is not None:
+                click.echo("")
+                click.echo(format_budget(bud))
+            click.echo(f"\nWrote {out_dir}/" + ", ".join(p.name for p in written))
     if caught:
         click.echo("Interrupted after the search; the outputs above are complete.", err=True)
         sys.exit(130)

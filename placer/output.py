@@ -208,7 +208,7 @@ class OutputSet:
                     folder.rmdir()
                 except OSError:
                     break
-        if exc_type is None or tb is None:
-            return
+        if exc_type is None or tb is None or self.committed:
+            return                   # after the commit a failure is not about these files
         if isinstance(exc, OSError):
             raise OutputError(f"{self.out}: cannot write: {exc.strerror or exc}") from exc

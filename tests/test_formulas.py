@@ -223,3 +223,346 @@ def test_dac_inl_dnl_keeps_tiny_errors_exact(fit, size):
     scale_i, scale_d = np.abs(want_i).max(), np.abs(want_d).max()
     assert np.abs(inl - want_i).max() <= 1e-10 * scale_i
     assert np.abs(dnl - want_d).max() <= 1e-10 * scale_d
+
+
+# ----------------------------------------------------------------- model, by hand
+def test_second_moment_tensor_by_hand():
+    """Mean r r^T about the centre per device, written out: device 0 at (1, 2) and
+    (-1, 0), device 1 at (3, -1)."""
+    from placer import model
+
+    xy = np.array([[1.0, 2.0], [-1.0, 0.0], [3.0, -1.0]])
+    m = model.second_moments(xy, np.array([0, 0, 1]), 2)
+    want0 = np.mean([np.outer(p, p) for p in xy[:2]], axis=0)      # [[1, 1], [1, 2]]
+    want1 = np.outer(xy[2], xy[2])
+    assert np.array_equal(m[0], want0) and np.array_equal(m[1], want1)
+
+
+@pytest.mark.parametrize("dc, err, angle", [
+    ((0.0, -2.0), 20.0, 270.0), ((-1.0, 0.0), 10.0, 180.0), ((0.0, 0.0), 0.0, 0.0),
+    ((3.0, 4.0), 50.0, float(np.degrees(np.arctan2(4, 3)))),
+])
+def test_worst_linear_error_and_its_direction(dc, err, angle):
+    """|g . dc| is largest for g along dc: G |dc| at the angle of dc, in [0, 360)."""
+    from placer import model
+
+    e, a = model.linear_worst(np.array([dc]), 10.0)
+    assert e[0] == pytest.approx(err) and a[0] == pytest.approx(angle)
+
+
+def test_bowl_error_by_hand():
+    """H = (h / sqrt 2) I has Frobenius norm h; the error 0.5 tr(H dM) = (h / (2 sqrt 2))
+    (dMxx + dMyy): with h = 4, dM = (3, 7, 5) that is sqrt 2 x 8 = 11.31."""
+    from placer import model
+
+    assert model.bowl_error(np.array([[3.0, 7.0, 5.0]]), 4.0)[0] == pytest.approx(
+        4.0 / (2 * np.sqrt(2.0)) * 8.0, rel=1e-15)
+
+
+@pytest.mark.parametrize("kernel", ["exponential", "gaussian"])
+def test_grid_covariance_on_an_uneven_pitch_with_an_absent_device(kernel):
+    """The FFT covariance equals the direct double sum over unit pairs (the definition)
+    on a 3 x 4 grid at pitch 2 x 3 um with dummies; a device with no unit gets zeros."""
+    from placer import model
+
+    ids = np.array([[0, 1, -1, 0], [1, 0, 0, -1], [-1, 1, 0, 1]])
+    r, c = np.nonzero(ids >= 0)
+    xy = np.column_stack([c * 2.0, -r * 3.0])
+    dev = ids[r, c]
+    k = model.correlation(np.hypot(*(xy[:, None, :] - xy[None, :, :]).transpose(2, 0, 1)),
+                          5.0, kernel)
+    want = np.zeros((3, 3))
+    for a in range(2):
+        for b in range(2):
+            want[a, b] = k[np.ix_(dev == a, dev == b)].mean()
+    got = model.grid_device_covariance(ids, (2.0, 3.0), 3, 5.0, kernel)
+    assert np.allclose(got, want, rtol=1e-12, atol=1e-15)
+
+
+def test_edge_units_by_hand():
+    """A unit is on an edge when a side faces the outside or an empty slot ('-'); a side
+    facing a dummy is shielded (common practice)."""
+    from placer import model
+
+    ids = np.array([[-1, -1, -1, -1],
+                     [-1, 0, 1, -1],
+                     [-1, 1, 0, -2],
+                     [-1, -1, -1, -1]])
+    assert model.edge_units(ids, 2).tolist() == [1, 0]      # the unit beside '-' only
+
+
+@pytest.mark.parametrize("term", ["linear", "hessian", "correlated", "white"])
+def test_monte_carlo_field_terms_one_at_a_time(term):
+    """Sampled pair errors against the exact variance of each term alone (each term's
+    law in monte_carlo_errors' docstring): a Gaussian gradient with E|g|^2 = G^2 gives
+    (G |dc|)^2 / 2; a Hessian with E||H||^2 = h^2 (diagonal variance h^2/3, off-diagonal
+    h^2/6) gives Var(0.5 tr(H dM)); the correlated field sigma_c^2 w'Kw; white noise
+    s^2 w'w. 40 000 samples: the standard deviation agrees within 2 %."""
+    from placer import model
+
+    xy = np.array([[-1.5, 0.5], [-0.5, -0.5], [0.5, 0.5], [1.5, -0.5], [0.0, 1.5]])
+    dev = np.array([0, 1, 1, 0, 0])
+    pairs = np.array([[0, 1]])
+    kw = {"g_rms_ppm_per_um": 0.0, "h_rms_ppm_per_um2": 0.0, "corr_sigma_ppm": 0.0,
+          "corr_length_um": 2.0, "kernel": "exponential", "white_unit_sigma_ppm": 0.0}
+    w = np.where(dev == 0, 1 / 3, -1 / 2)
+    if term == "linear":
+        kw["g_rms_ppm_per_um"] = 10.0
+        dc = (w[:, None] * xy).sum(0)
+        var = (10.0 * np.hypot(*dc)) ** 2 / 2
+    elif term == "hessian":
+        kw["h_rms_ppm_per_um2"] = 3.0
+        dxx, dxy, dyy = (w * xy[:, 0] ** 2).sum(), (w * xy[:, 0] * xy[:, 1]).sum(), \
+            (w * xy[:, 1] ** 2).sum()
+        # error = 0.5 (Hxx dxx + 2 Hxy dxy + Hyy dyy), independent normal entries
+        var = 0.25 * (9.0 / 3 * dxx ** 2 + 4 * 9.0 / 6 * dxy ** 2 + 9.0 / 3 * dyy ** 2)
+    elif term == "correlated":
+        kw["corr_sigma_ppm"] = 100.0
+        d = np.hypot(*(xy[:, None, :] - xy[None, :, :]).transpose(2, 0, 1))
+        var = 100.0 ** 2 * w @ np.exp(-d / 2.0) @ w
+    else:
+        kw["white_unit_sigma_ppm"] = 50.0
+        var = 50.0 ** 2 * (w @ w)
+    out = model.monte_carlo_errors(xy, dev, 2, pairs, samples=40000,
+                                   rng=np.random.default_rng(11), **kw)
+    assert out[:, 0].std() == pytest.approx(np.sqrt(var), rel=0.02)
+    assert abs(out[:, 0].mean()) < 0.03 * np.sqrt(var)
+
+
+def test_exact_moment_sums_survive_int64_overflow():
+    """65 536 units on a 1024-column grid: the integer second-moment differences pass
+    2^63 and must be kept in Python integers; compared with float moments (numpy)."""
+    from placer import model
+    from placer.moments import grid_sums, pair_second
+
+    rng = np.random.default_rng(5)
+    r, c = np.divmod(np.arange(65536), 1024)
+    dev = rng.integers(0, 3, 65536)
+    sums = grid_sums(r, c, dev, 3)
+    got = pair_second(sums, np.array([[0, 1], [1, 2]]), (1.0, 1.0))
+    xy = np.column_stack([c, -r]).astype(float)
+    m = model.power_moments(xy - xy.mean(axis=0), dev, 3, 2)
+    want = np.array([m[0] - m[1], m[1] - m[2]])
+    assert np.allclose(got, want, rtol=1e-9, atol=1e-6)
+
+
+# ----------------------------------------------------------------- budget, by hand
+def test_within_tolerance_against_the_normal_distribution():
+    """P(|offset + N(0, s)| <= t) from scipy's normal distribution (a reference library),
+    and the degenerate s = 0 cases."""
+    from scipy.stats import norm
+
+    from placer.budget import within_tolerance
+
+    for off, s, t in ((0.3, 0.5, 1.0), (-0.8, 0.2, 0.5), (2.0, 1.0, 1.0)):
+        want = norm.cdf((t - off) / s) - norm.cdf((-t - off) / s)
+        assert within_tolerance(off, s, t) == pytest.approx(want, rel=1e-12)
+    assert within_tolerance(0.5, 0.0, 1.0) == 1.0
+    assert within_tolerance(1.5, 0.0, 1.0) == 0.0
+
+
+def test_dac_levels_and_inl_dnl_by_hand():
+    """Levels of a 2-bit DAC with termination: V(k) = sum of the code's caps / total
+    (1, 2.1, termination 1: total 4.1). INL and DNL of levels with an offset and of an
+    ideal that starts above zero, end-point and least-squares lines (numpy.polyfit as
+    the reference fit)."""
+    from placer.budget import dac_levels, inl_dnl
+
+    v = dac_levels(np.array([1.0, 2.1]), 1.0)
+    assert np.allclose(v, [0.0, 1 / 4.1, 2.1 / 4.1, 3.1 / 4.1], rtol=1e-15)
+    levels = np.array([0.2, 1.25, 2.2, 3.35, 4.2])
+    ideal = np.arange(5.0) + 3.0
+    inl, dnl = inl_dnl(levels, "endpoint", ideal)
+    lsb = (4.2 - 0.2) / 4
+    assert np.allclose(inl, (levels - (0.2 + lsb * np.arange(5))) / lsb, rtol=1e-13)
+    assert np.allclose(dnl, np.diff(levels) / lsb - 1, rtol=1e-13)
+    slope, icpt = np.polyfit(ideal, levels, 1)
+    inl_b, _ = inl_dnl(levels, "best", ideal)
+    assert np.allclose(inl_b, (levels - (icpt + slope * ideal)) / slope, atol=1e-12)
+
+
+def test_budget_percentile_streams_like_numpy():
+    """The budget keeps each code's largest 1 % of samples; its 99th percentile equals
+    numpy.percentile of all the samples, for sizes where the kept share is 1, 2 and many
+    rows."""
+    from placer.budget import UpperPercentile
+
+    rng = np.random.default_rng(3)
+    for n in (1, 2, 3, 150, 2001):
+        x = rng.random((n, 4))
+        up = UpperPercentile(n, 4)
+        for k in range(0, n, 97):
+            up.add(x[k:k + 97])
+        assert np.allclose(up.value(), np.percentile(x, 99, axis=0), rtol=1e-14)
+
+
+def test_mirror_budget_range_and_share_with_channel_length_modulation():
+    """Worst-case range of one output (the budget's definition): clm - grad - quad - k
+    sigma .. clm + grad + quad + k sigma, with clm = (1 + lambda V_out)/(1 + lambda V_ref)
+    - 1 (the square law's output conductance) and the share within tolerance
+    P(|offset + N(0, sigma)| <= tol), offset = |clm| + grad + quad; the Monte Carlo of
+    the device-level draws matches the analytic random sigma."""
+    from scipy.stats import norm
+
+    text = MIRROR.format(corr=30.0, avt=5.0, abeta=1.0).replace(
+        "lambda_per_v = 0.0", "lambda_per_v = 0.08").replace(
+        "MOUT = 1.0", "MOUT = 1.6").replace("mc_samples = 2", "mc_samples = 60000")
+    text = text.replace("[electrical]\n", "[electrical]\nk_sigma = 2.5\ntolerance_pct = 2.0\n")
+    spec = parse_spec(text, "m.toml")
+    pattern = parse_pattern("MREF MOUT MOUT MOUT MREF MOUT").reordered(spec.devices)
+    grade = grade_pattern(pattern, spec)
+    (line,) = budget(pattern, spec, grade).lines
+    (pair,) = grade.pairs
+    clm = 100.0 * ((1 + 0.08 * 1.6) / (1 + 0.08 * 1.0) - 1)
+    grad, quad = 1e-4 * pair.linear_ppm, 1e-4 * pair.quadratic_ppm
+    s_vt = 5.0 * np.sqrt((1 / 4 + 1 / 8) / 2) * 1e-3
+    s_beta = 1.0 * np.sqrt((1 / 4 + 1 / 8) / 2)
+    white = np.hypot(s_beta, 10.0 * s_vt * 100.0)
+    sigma = np.hypot(white, 1e-4 * pair.correlated_sigma_ppm)
+    assert line.clm_pct == pytest.approx(clm, rel=1e-12)
+    assert grad > 0 and quad > 0
+    assert line.total_low_pct == pytest.approx(clm - grad - quad - 2.5 * sigma, rel=1e-12)
+    assert line.total_high_pct == pytest.approx(clm + grad + quad + 2.5 * sigma, rel=1e-12)
+    off = abs(clm) + grad + quad
+    want = norm.cdf((2.0 - off) / sigma) - norm.cdf((-2.0 - off) / sigma)
+    assert line.within_tolerance == pytest.approx(want, rel=1e-9)
+    assert line.ideal_ratio == pytest.approx(2.0)
+    assert line.mc_std_pct == pytest.approx(white, rel=0.02)
+
+
+def test_resistor_budget_white_term_is_the_area_law():
+    """Resistors: sigma of the ratio = A sqrt((1/area_a + 1/area_b) / 2) (area law);
+    RA 3 units, RB 2 units of 1 um^2, A = 1 %um."""
+    spec = parse_spec('kind = "res"\n[devices]\nRA = 3\nRB = 2\n[array]\n'
+                      'pitch_um = [1.0, 1.0]\n[correlated]\nsigma_ppm = 0.0\n'
+                      '[mismatch]\na_param_pct_um = 1.0\n[electrical]\nreference = "RB"\n',
+                      "r.toml")
+    pattern = parse_pattern("RA RA RB RB RA").reordered(spec.devices)
+    grade = grade_pattern(pattern, spec)
+    (line,) = budget(pattern, spec, grade).lines
+    want = 1.0 * np.sqrt((1 / 3 + 1 / 2) / 2)
+    assert line.random_sigma_pct == pytest.approx(want, rel=1e-12)
+    assert grade.pairs[0].white_sigma_ppm == pytest.approx(1e4 * want, rel=1e-12)
+
+
+def _dac_spec(extra: str) -> str:
+    return ('kind = "cap"\n[devices]\nCT = 1\nC0 = 1\nC1 = 2\n[array]\n'
+            'pitch_um = [1.0, 1.0]\n' + extra + '[electrical]\ntermination = "CT"\n')
+
+
+def test_dac_curvature_inl_by_hand():
+    """The bowl of Hessian norm h: each capacitor off by (h / sqrt 2)/2 x mean r^2 about
+    the centre of all units (relative), in exact fractions, end-point INL in LSB."""
+    from fractions import Fraction as F
+
+    spec = parse_spec(_dac_spec("[gradient]\nlinear_ppm_per_um = 0.0\n"
+                                "quadratic_ppm_per_um2 = 2.0\n[correlated]\nsigma_ppm = 0.0\n")
+                      + "mc_samples = 2\n", "c.toml")
+    pattern = parse_pattern("C1 C0 CT C1").reordered(spec.devices)   # x = 0, 1, 2, 3 um
+    b = budget(pattern, spec, grade_pattern(pattern, spec))
+    h = 2.0e-6 / np.sqrt(2.0)
+    r2 = {"C1": (1.5 ** 2 + 1.5 ** 2) / 2, "C0": 0.5 ** 2, "CT": 0.5 ** 2}
+    err = {d: 0.5 * h * r2[d] for d in r2}
+    caps = [F(1) * (1 + F(err["C0"])), F(2) * (1 + F(err["C1"]))]
+    total = sum(caps) + (1 + F(err["CT"]))
+    levels = [F(0), caps[0] / total, caps[1] / total, (caps[0] + caps[1]) / total]
+    lsb = (levels[3] - levels[0]) / 3
+    inl = max(abs(float((v - (levels[0] + k * lsb)) / lsb)) for k, v in enumerate(levels))
+    dnl = max(abs(float((levels[k + 1] - levels[k]) / lsb - 1)) for k in range(3))
+    assert b.quadratic_inl_lsb == pytest.approx(inl, rel=1e-9)
+    assert b.quadratic_dnl_lsb == pytest.approx(dnl, rel=1e-9)
+
+
+def test_dac_correlated_noise_against_a_direct_simulation():
+    """Random INL of a 2-bit DAC from the correlated field alone (area-law part ~0):
+    device means drawn here from the unit correlation matrix K_ij = exp(-d/L) (its
+    Cholesky factor), sigma_c = 2000 ppm; the mean worst |INL| over 20 000 draws agrees
+    with the budget's within 3 %."""
+    spec = parse_spec(_dac_spec("[correlated]\nsigma_ppm = 2000.0\nlength_um = 1.5\n"
+                                "[mismatch]\na_param_pct_um = 1e-9\n")
+                      + "mc_samples = 20000\n", "c.toml")
+    pattern = parse_pattern("C1 C0 CT C1").reordered(spec.devices)
+    b = budget(pattern, spec, grade_pattern(pattern, spec))
+    x = np.arange(4.0)
+    k = np.exp(-np.abs(x[:, None] - x[None, :]) / 1.5)
+    draws = np.random.default_rng(17).standard_normal((20000, 4)) @ np.linalg.cholesky(k).T
+    u = 2000e-6 * draws                                   # C1, C0, CT, C1
+    c1, c0, ct = 2 * (1 + u[:, [0, 3]].mean(1)), 1 + u[:, 1], 1 + u[:, 2]
+    levels = np.stack([np.zeros_like(c0), c0, c1, c0 + c1], 1) / (c0 + c1 + ct)[:, None]
+    lsb = (levels[:, -1] - levels[:, 0]) / 3
+    inl = (levels - (levels[:, :1] + lsb[:, None] * np.arange(4))) / lsb[:, None]
+    assert b.mc_inl_mean_lsb == pytest.approx(np.abs(inl).max(1).mean(), rel=0.03)
+
+
+# ----------------------------------------------------------------- grade, by hand
+def test_grade_device_figures_by_hand():
+    """A at (0, 0) and (3, -2) um, B at (1, 0) and (2, -2) um (pitch 1 x 2, rows 0 and 1):
+    centroids (1.5, -1) for both, centre (1.5, -1), offsets 0; second moments about the
+    centre: A (2.25, 1.5, 1), B (0.25, -0.5, 1) as (xx, xy, yy); orientation counts."""
+    spec = parse_spec("[devices]\nA = 2\nB = 2\n[array]\npitch_um = [1.0, 2.0]\n", "s.toml")
+    pattern = parse_pattern("A> B< . .\n. . B A>").reordered(spec.devices)
+    g = grade_pattern(pattern, spec)
+    a, b = g.devices
+    assert a.centroid_um == pytest.approx((1.5, -1.0)) and b.centroid_um == pytest.approx(
+        (1.5, -1.0))
+    assert g.centre_um == pytest.approx((1.5, -1.0))
+    assert a.offset_um == pytest.approx(0.0, abs=1e-12)
+    assert a.second_moment_um2 == pytest.approx((2.25, -1.5, 1.0))
+    assert b.second_moment_um2 == pytest.approx((0.25, -0.5, 1.0))
+    assert a.orientation == (2, 0, 0) and b.orientation == (0, 1, 1)
+
+
+def test_grade_offset_of_a_displaced_device():
+    """A at x = 0, 1 and B at 2: centre of units 1, A's centroid 0.5: offset 0.5 um."""
+    spec = parse_spec("[devices]\nA = 2\nB = 1\n[array]\npitch_um = [1.0, 1.0]\n", "s.toml")
+    g = grade_pattern(parse_pattern("A A B").reordered(spec.devices), spec)
+    assert g.devices[0].offset_um == pytest.approx(0.5, rel=1e-12)
+    assert g.devices[1].offset_um == pytest.approx(1.0, rel=1e-12)
+
+
+def test_grade_random_figures_by_hand():
+    """Area law for the pair (A = 1 %um, unit 2 um^2: A 4 um^2, B 2 um^2) and for VT
+    (A_VT = 4 mV um); the correlated sigma from the direct quadratic form over the device
+    units only (the dummies at the ends carry no device)."""
+    spec = parse_spec("[devices]\nA = 2\nB = 1\n[array]\npitch_um = [1.0, 1.0]\n"
+                      "[unit]\nwidth_um = 2.0\nlength_um = 1.0\n[mismatch]\n"
+                      "a_param_pct_um = 1.0\na_vt_mv_um = 4.0\n[correlated]\n"
+                      "sigma_ppm = 100.0\nlength_um = 2.0\n", "s.toml")
+    g = grade_pattern(parse_pattern(". A B A .").reordered(spec.devices), spec)
+    (p,) = g.pairs
+    assert p.white_sigma_ppm == pytest.approx(1e4 * np.sqrt((1 / 4 + 1 / 2) / 2), rel=1e-12)
+    assert p.vt_sigma_mv == pytest.approx(4.0 * np.sqrt((1 / 4 + 1 / 2) / 2), rel=1e-12)
+    x = np.array([1.0, 2.0, 3.0])
+    w = np.array([0.5, -1.0, 0.5])
+    k = np.exp(-np.abs(x[:, None] - x[None, :]) / 2.0)
+    assert p.correlated_sigma_ppm == pytest.approx(100.0 * np.sqrt(w @ k @ w), rel=1e-9)
+
+
+def test_grade_known_direction_and_hot_spot_by_hand():
+    """A gradient given at 90 degrees: error g (c_a - c_b) . (0, 1); a hot spot's error is
+    the mean of its field over A's units minus over B's (field = p exp(-r / L))."""
+    spec = parse_spec("[devices]\nA = 2\nB = 2\n[array]\npitch_um = [1.0, 3.0]\n"
+                      "[gradient]\nlinear_ppm_per_um = 5.0\ndirection_deg = 90.0\n"
+                      "[gradient.hot_spot]\nx_um = 4.0\ny_um = 1.0\nppm = 200.0\n"
+                      "fall_off_um = 2.5\n", "s.toml")
+    g = grade_pattern(parse_pattern("A B\nA B").reordered(spec.devices), spec)
+    (p,) = g.pairs
+    ya = yb = -1.5      # both devices span the two rows: no gap along y
+    assert p.known_direction_ppm == pytest.approx(5.0 * (ya - yb), abs=1e-12)
+
+    def field(x, y):
+        return 200.0 * np.exp(-np.hypot(x - 4.0, y - 1.0) / 2.5)
+
+    want = (field(0, 0) + field(0, -3)) / 2 - (field(1, 0) + field(1, -3)) / 2
+    assert p.hot_spot_ppm == pytest.approx(want, rel=1e-12)
+
+
+def test_grade_known_direction_along_the_centroid_gap():
+    """A at y = 0, B at y = -3 um: at 90 degrees the error is 5 ppm/um x 3 um = 15 ppm;
+    at 0 degrees it is zero."""
+    for deg, want in ((90.0, 15.0), (0.0, 0.0), (270.0, -15.0)):
+        spec = parse_spec("[devices]\nA = 2\nB = 2\n[array]\npitch_um = [1.0, 3.0]\n"
+                          f"[gradient]\nlinear_ppm_per_um = 5.0\ndirection_deg = {deg}\n",
+                          "s.toml")
+        g = grade_pattern(parse_pattern("A A\nB B").reordered(spec.devices), spec)
+        assert g.pairs[0].known_direction_ppm == pytest.approx(want, abs=1e-12)

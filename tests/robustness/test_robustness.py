@@ -51,7 +51,7 @@ def test_huge_file_is_refused_before_reading(tmp_path, runner):
     with open(big, "wb") as fh:           # sparse: 1 GB of size, no real disk use
         fh.truncate(1 << 30)
     result = runner.invoke(cli, ["grade", str(big)])
-    assert result.exit_code == 1 and "the limit is" in result.output
+    assert result.exit_code == 1 and "the limit for a layout is" in result.output
 
 
 def _run(args, cwd, **kw):
