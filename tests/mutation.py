@@ -31,7 +31,10 @@ ROOT = Path(__file__).resolve().parents[1]
 TESTS = ["tests/test_formulas.py", "tests/test_budget.py", "tests/test_model.py",
          "tests/test_search.py::test_exact_search_agrees_with_plain_enumeration",
          "tests/test_search.py::test_keys_of_a_baseline_equal_grade_with_an_offset_centre",
-         "tests/test_layout.py::test_sensitivity_contributions_add_up_to_the_worst_pair_error"]
+         "tests/test_layout.py::test_sensitivity_contributions_add_up_to_the_worst_pair_error",
+         # the examples in the formula modules' docstrings are checks too
+         "--doctest-modules", "placer/model.py", "placer/budget.py", "placer/score.py",
+         "placer/moments.py"]
 COPIED = ["placer", "tests", "samples", "templates", "pyproject.toml"]
 _SWAP = {ast.Add: ast.Sub, ast.Sub: ast.Add, ast.Mult: ast.Div, ast.Div: ast.Mult,
          ast.Pow: ast.Mult, ast.FloorDiv: ast.Div}
