@@ -250,7 +250,7 @@ def format_budget(b: Any) -> str:
             "sigma %", f"total at {b.k_sigma:g} sigma %", f"within +-{b.tolerance_pct:g}%"]
     out = [f"Electrical budget against {b.reference} (error of I/I_{b.reference}, % of the "
            "ideal ratio; grad = linear gradient in its worst direction, quad = curvature, "
-           "clm = channel-length modulation; gradient: {b.assumptions['gradient']})"
+           f"clm = channel-length modulation; gradient: {b.assumptions['gradient']})"
            if b.kind == "mos" else
            f"Electrical budget against {b.reference} (ratio error of R/R_{b.reference}, %; "
            f"gradient: {b.assumptions['gradient']})",

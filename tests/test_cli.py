@@ -76,6 +76,9 @@ def test_grade_writes_budget_and_sensitivity_pictures(runner, tmp_path):
                                  str(tmp_path / "b.png"), "--sensitivity-plot",
                                  str(tmp_path / "s.svg")])
     assert result.exit_code == 0, result.output
+    # the header names the gradient it used, filled in (not a template left unformatted)
+    assert "gradient: 1 %/mm of drain current = beta 0.5 %/mm" in result.output
+    assert "{" not in result.output
     assert (tmp_path / "b.png").read_bytes()[:4] == b"\x89PNG"
     assert b"<svg" in (tmp_path / "s.svg").read_bytes()[:400]
     result = runner.invoke(cli, ["grade", "samples/bias_mirror_hand.txt", "--budget-plot",
