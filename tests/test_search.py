@@ -370,6 +370,75 @@ def test_one_or_two_workers_give_each_a_deterministic_result():
         assert np.array_equal(a.assign, b.assign)
 
 
+def test_restarts_run_on_small_cores_the_exact_search_cannot_finish_and_stay_deterministic():
+    """A 4 x 6 core of 3:5:7:9 (4.7e11 assignments) gets restarts from random states before
+    its chains, as many as its time limit allows for; the result still depends only on
+    the seed, the limit and the worker count."""
+    from placer.search._driver import MAX_RESTARTS, n_restarts
+
+    assert n_restarts(2.0) == 10 and n_restarts(0.01) == 1 and n_restarts(1e6) == MAX_RESTARTS
+    prob = Problem((3, 5, 7, 9), 4, 6)
+    stages: list[str] = []
+    first = search(prob, seed=5, time_limit_s=60, workers=1,
+                   progress=lambda stage, keys: stages.append(stage))
+    assert [s for s in stages if s.startswith("restart")] == [
+        f"restart {k + 1}" for k in range(n_restarts(60))]
+    assert first.stopped == "converged"
+    for workers in (1, 2):
+        a = search(prob, seed=5, time_limit_s=60, workers=workers)
+        b = search(prob, seed=5, time_limit_s=60, workers=workers)
+        assert np.array_equal(a.assign, b.assign)
+    assert np.array_equal(a.assign[a.assign >= 0].size, sum(prob.counts))
+
+
+def test_compiled_loop_keys_equal_a_fresh_evaluation_after_every_stage():
+    """The annealing loop updates moments and the correlated field move by move (single
+    swaps, two-for-two and three-for-three exchanges); what it reports for its best state
+    must equal the keys computed afresh from that state (identity: incremental sums)."""
+    from placer.search._construct import random_start
+    from placer.search._local import STAGE, caps_none, run_stage
+    from placer.search._moments import compile_problem, evaluate
+
+    rng = np.random.default_rng(3)
+    for counts, rows, cols in (((6, 10, 14, 18, 16), 8, 8), ((5, 6, 7, 8), 4, 7)):
+        comp = compile_problem(Problem(counts, rows, cols, pitch_um=(2.0, 1.0)))
+        dev = random_start(comp, rng)
+        caps = caps_none()
+        # the quadratic stage first with no linear cap, so that exchanges of every kind
+        # are taken, then the stages in order under their caps
+        for k, stage in enumerate(("quadratic", "linear", "quadratic", "sigma")):
+            res = run_stage(comp, dev, stage, 30_000, int(rng.integers(1 << 62)), 1e300,
+                            caps, field=stage == "sigma", three_share=500)
+            keys = evaluate(comp, dev)
+            assert res.accepted > 0 or stage == "sigma"
+            assert res.keys[STAGE["linear"]] == pytest.approx(keys.linear_um, abs=1e-12)
+            assert res.keys[STAGE["quadratic"]] == pytest.approx(keys.quadratic_ppm,
+                                                                 rel=1e-9, abs=1e-15)
+            if stage == "sigma":
+                assert res.keys[STAGE["sigma"]] == pytest.approx(keys.sigma_ppm, rel=1e-9)
+            if k:
+                caps[STAGE[stage]] = res.keys[STAGE[stage]] * (1 + 1e-9) + 1e-15
+
+
+def test_random_start_keeps_every_count_with_and_without_constraints():
+    from placer.search._construct import random_start
+    from placer.search._moments import compile_problem
+
+    rng = np.random.default_rng(0)
+    plain = compile_problem(Problem((3, 5, 7), 4, 4))
+    banded = compile_problem(Problem((4, 6, 2), 3, 4, device_rows=((0, 1), None, (2,)),
+                                     pinned=((5, 1),)))
+    mirrored = compile_problem(Problem((4, 6, 2), 3, 4, symmetry="vertical"))
+    for comp in (plain, banded, mirrored):
+        seen = set()
+        for _ in range(20):
+            dev = random_start(comp, rng)
+            got = np.bincount(dev, weights=comp.orb_size, minlength=comp.prob.n_dev + 1)
+            assert np.array_equal(got.astype(np.int64), comp.left)
+            seen.add(tuple(dev.tolist()))
+        assert len(seen) > 1
+
+
 def test_interrupt_keeps_the_best_so_far():
     calls = []
 

@@ -15,7 +15,7 @@ from placer.search._moments import Compiled, orbit_assignment
 from placer.search._problem import Problem
 
 __all__ = ["symmetric_assignment", "near_symmetric_assignments", "deal", "greedy_start",
-           "starts", "core_coords"]
+           "random_start", "starts", "core_coords"]
 
 IntArray = NDArray[np.int64]
 
@@ -197,6 +197,18 @@ def greedy_start(comp: Compiled, rng: np.random.Generator) -> IntArray:
         raise SpecError("no arrangement fits the pins, row bands, symmetry and counts "
                         "together; loosen one of them")
     return dev
+
+
+def random_start(comp: Compiled, rng: np.random.Generator) -> IntArray:
+    """A state drawn at random: the devices' units shuffled over the orbits when every
+    orbit is one slot open to every device; otherwise a deal with random tie-breaks."""
+    n_dev = comp.prob.n_dev
+    every = (1 << (n_dev + 1)) - 1 if n_dev < 62 else -1
+    if (comp.n_orb and np.all(comp.orb_size == 1) and n_dev < 62
+            and np.all((comp.orb_allow & every) == every)):
+        units = np.repeat(np.arange(n_dev + 1, dtype=np.int64), comp.left)
+        return rng.permutation(units)
+    return greedy_start(comp, rng)
 
 
 def _allows(comp: Compiled, o: int, d: int) -> bool:

@@ -8,6 +8,12 @@ chains in a row bring nothing better (or every key sits at its bound, or the tim
 comes). Budgets are counts of moves, never seconds, so a run that ends before its time
 limit gives the same result for the same spec and seed on any machine.
 
+On small cores too large for the exact search to finish, the chains are preceded by
+restarts: the linear and quadratic stages from random states. Once the linear term sits
+at zero, the moves that keep every centroid fixed connect only a family of
+arrangements, and an annealing stays in the family its linear stage reached; fresh
+starts reach other families, and the best of them seeds the chains.
+
 Cores small enough are then searched exactly from the local search's result: branch and
 bound proves the linear optimum and then the quadratic optimum at that linear value.
 """
@@ -23,9 +29,15 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from placer.search._construct import starts
+from placer.search._construct import random_start, starts
 from placer.search._exact import branch_and_bound, linear_bound, n_assignments
-from placer.search._local import STAGE, caps_none, run_stage
+from placer.search._local import (
+    RESTART_SMOOTHING,
+    RESTART_THREE_SHARE,
+    STAGE,
+    caps_none,
+    run_stage,
+)
 from placer.search._moments import (
     Compiled,
     compile_problem,
@@ -34,7 +46,8 @@ from placer.search._moments import (
 )
 from placer.search._problem import LINEAR_REL, Keys, Problem, best_of, compare, progressed
 
-__all__ = ["SearchResult", "search", "MOVES_PER_ORBIT", "QUIET_CHAINS", "MAX_CHAINS",
+__all__ = ["SearchResult", "search", "n_restarts", "MOVES_PER_ORBIT", "QUIET_CHAINS",
+           "MAX_CHAINS",
            "EXACT_MAX_ORBITS", "EXACT_MAX_ASSIGNMENTS"]
 
 IntArray = NDArray[np.int64]
@@ -51,6 +64,14 @@ QUIET_CHAINS_SMALL = 4
 SMALL_ORBITS = 80
 PROGRESS = 1e-3
 MAX_CHAINS = 12
+#: Restarts per worker on small cores (at most SMALL_ORBITS free orbits, more than
+#: EXACT_ALWAYS assignments, a zero linear term not ruled out): RESTARTS_PER_S per second
+#: of the time limit (a count fixed by the limit, never by the clock), between one and
+#: MAX_RESTARTS; each of RESTART_MOVES_PER_ORBIT moves per free orbit in the quadratic
+#: stage and a tenth of that in the linear stage.
+RESTARTS_PER_S = 5
+MAX_RESTARTS = 40
+RESTART_MOVES_PER_ORBIT = 16_000
 #: Branch and bound runs on cores with at most this many free orbits and assignments;
 #: up to EXACT_ALWAYS assignments it runs to the end (or the time limit), beyond that
 #: within a budget of nodes, so that whether it finishes does not depend on the machine.
@@ -145,7 +166,7 @@ def _chain(comp: Compiled, dev_of: IntArray, moves: int, seed: int, deadline: fl
 
 
 def _chains(comp: Compiled, start: IntArray, seed: int, deadline: float, floor: float,
-            progress: Callable[[str, Keys], None] | None, run: _Run
+            progress: Callable[[str, Keys], None] | None, run: _Run, restarts: int = 0
             ) -> list[tuple[IntArray, Keys]]:
     """Chains with doubling budgets from ``start`` until they stop improving."""
     prob = comp.prob
@@ -153,6 +174,17 @@ def _chains(comp: Compiled, start: IntArray, seed: int, deadline: float, floor: 
     base = int(np.clip(MOVES_PER_ORBIT * max(comp.n_orb, 1), MIN_MOVES, MAX_FIRST_MOVES))
     best_dev, best_keys = start, evaluate(comp, start)
     found = [(start, best_keys)]
+    if _restarting(comp, floor):
+        for k in range(restarts):
+            dev = _restart(comp, rng, deadline, floor, run)
+            keys = evaluate(comp, dev)
+            found.append((dev, keys))
+            if progress is not None:
+                progress(f"restart {k + 1}", keys)
+            if compare(prob, keys, best_keys) < 0:
+                best_dev, best_keys = dev, keys
+            if run.status:
+                return found
     quiet = 0
     for k in range(MAX_CHAINS):
         at_floor = best_keys.linear_um <= floor * (1 + LINEAR_REL) + ABS_EPS
@@ -176,14 +208,50 @@ def _chains(comp: Compiled, start: IntArray, seed: int, deadline: float, floor: 
     return found
 
 
+def _restarting(comp: Compiled, floor: float) -> bool:
+    """True on the small cores whose chains are preceded by restarts: those where a zero
+    linear term is not ruled out (when it is, single swaps still move under the linear
+    cap and the chains are not confined) and the exact search cannot finish."""
+    return (comp.n_orb <= SMALL_ORBITS and comp.prob.objective == "lexicographic"
+            and floor <= ABS_EPS and n_assignments(comp) > EXACT_ALWAYS)
+
+
+def _restart(comp: Compiled, rng: np.random.Generator, deadline: float, floor: float,
+             run: _Run) -> IntArray:
+    """The linear, quadratic and higher-order stages from a random state, with the
+    restart's smoother energy and three-for-three exchanges."""
+    dev = random_start(comp, rng)
+    moves = RESTART_MOVES_PER_ORBIT * comp.n_orb
+    caps = caps_none()
+    for stage in _stage_plan(comp.prob):
+        if stage not in ("linear", "quadratic", "order3", "order4"):
+            break
+        res = run_stage(comp, dev, stage, moves // 10 if stage == "linear" else moves,
+                        int(rng.integers(1 << 62)), deadline, caps,
+                        floor=floor if stage == "linear" else -1.0,
+                        smoothing=RESTART_SMOOTHING, three_share=RESTART_THREE_SHARE)
+        run.moves += res.tried
+        run.note(res.status)
+        rel = LINEAR_REL if stage == "linear" else comp.prob.relative_tie
+        caps[STAGE[stage]] = _cap(res.keys[STAGE[stage]], rel)
+        if res.status:
+            break
+    return dev
+
+
+def n_restarts(time_limit_s: float) -> int:
+    """Restarts per worker for a time limit (on the cores that get restarts)."""
+    return int(np.clip(round(RESTARTS_PER_S * time_limit_s), 1, MAX_RESTARTS))
+
+
 def _worker(send: Any, comp: Compiled, start: IntArray, seed: int, deadline: float,
-            floor: float) -> None:
+            floor: float, restarts: int) -> None:
     """Second process: its own chains, sent back through the pipe."""
     import signal
 
     signal.signal(signal.SIGINT, signal.SIG_IGN)   # the parent handles Ctrl-C
     run = _Run()
-    found = _chains(comp, start, seed, deadline, floor, None, run)
+    found = _chains(comp, start, seed, deadline, floor, None, run, restarts)
     send.send((found, run.moves, run.status))
     send.close()
 
@@ -205,8 +273,8 @@ def search(prob: Problem, *, seed: int = 0, time_limit_s: float = 60.0,
     progress : callable, optional
         Called with a stage name and the keys reached so far.
     workers : int, optional
-        Processes running chains (default: two on cores of at least 96 free orbits
-        when the machine has two CPUs, else one).
+        Processes running chains (default: two on cores of at least 96 free orbits,
+        or with restarts, when the machine has two CPUs, else one).
     exact_nodes : int, optional
         Node budget of the branch and bound (0: none, only the time limit); default: none
         up to 10^8 assignments, EXACT_NODE_BUDGET above.
@@ -232,7 +300,9 @@ def search(prob: Problem, *, seed: int = 0, time_limit_s: float = 60.0,
     seeds = [int(rng.integers(1 << 62)) for _ in range(2)]
     cpus = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else 1
     if workers is None:
-        workers = 2 if comp.n_orb >= PARALLEL_MIN_ORBITS and cpus > 1 else 1
+        busy = comp.n_orb >= PARALLEL_MIN_ORBITS or _restarting(comp, floor)
+        workers = 2 if busy and cpus > 1 else 1
+    restarts = n_restarts(time_limit_s)
     found: list[tuple[IntArray, Keys]] = []
     child = None
     try:
@@ -242,10 +312,10 @@ def search(prob: Problem, *, seed: int = 0, time_limit_s: float = 60.0,
             ctx = mp.get_context("fork")
             recv, send = ctx.Pipe(duplex=False)
             child = (ctx.Process(target=_worker, args=(send, comp, start, seeds[1], deadline,
-                                                      floor), daemon=True), recv)
+                                                      floor, restarts), daemon=True), recv)
             child[0].start()
             send.close()
-        found += _chains(comp, start, seeds[0], deadline, floor, progress, run)
+        found += _chains(comp, start, seeds[0], deadline, floor, progress, run, restarts)
         if child is not None:
             proc, recv = child
             try:

@@ -296,7 +296,7 @@ static void field_build(state_t *st, const double *G0) {
 }
 
 /* A proposed move: orbits leave device a for b (list s) and leave b for a (list t). */
-typedef struct { int64_t s[2], t[2], ns, a, b; } move_t;
+typedef struct { int64_t s[3], t[3], ns, a, b; } move_t;
 
 static int slots_of(const prob_t *P, const int64_t *orbs, int64_t n, int64_t *out) {
     int k = 0;
@@ -309,7 +309,7 @@ static int slots_of(const prob_t *P, const int64_t *orbs, int64_t n, int64_t *ou
  * slots a gains minus those it gives up. */
 static void field_trial(const state_t *st, const move_t *mv, double *cov2) {
     const prob_t *P = st->P;
-    int64_t D1 = P->n_dev + 1, gain[4], lose[4];
+    int64_t D1 = P->n_dev + 1, gain[6], lose[6];
     int ng = slots_of(P, mv->t, mv->ns, gain), nl = slots_of(P, mv->s, mv->ns, lose);
     double q = 0.0;
     for (int i = 0; i < ng; i++) for (int j = 0; j < ng; j++) q += kern(st, gain[i], gain[j]);
@@ -333,7 +333,7 @@ static void field_trial(const state_t *st, const move_t *mv, double *cov2) {
 
 static void field_accept(state_t *st, const move_t *mv, const double *cov2) {
     const prob_t *P = st->P;
-    int64_t D1 = P->n_dev + 1, gain[4], lose[4];
+    int64_t D1 = P->n_dev + 1, gain[6], lose[6];
     int ng = slots_of(P, mv->t, mv->ns, gain), nl = slots_of(P, mv->s, mv->ns, lose);
     double na = st->ncount[mv->a], nb = st->ncount[mv->b];
     for (int64_t i = 0; i < P->n_slots; i++) {
@@ -377,13 +377,13 @@ static PyObject *py_anneal(PyObject *self, PyObject *args) {
         return NULL;
     buf_t bf[21];
     memset(bf, 0, sizeof(bf));
-    if (get_buf(o[15], &bf[15], 0, 8, 1, "iparams") < 0 || get_buf(o[14], &bf[14], 0, 8, 16, "fparams") < 0)
+    if (get_buf(o[15], &bf[15], 0, 8, 15, "iparams") < 0 || get_buf(o[14], &bf[14], 0, 8, 16, "fparams") < 0)
         { drop(bf, 21); return NULL; }
     const int64_t *ip = bf[15].b.buf;
     const double *fp = bf[14].b.buf;
     int64_t n_orb = ip[0], n_dev = ip[1], n_pairs = ip[2], n_slots = ip[3], order = ip[4];
     int64_t n_moves = ip[5], stage = ip[7], two_share = ip[8], grid_w = ip[9], grid_h = ip[10];
-    int64_t use_field = ip[11], kernel = ip[12], N = ip[13];
+    int64_t use_field = ip[11], kernel = ip[12], N = ip[13], three_share = ip[14];
     uint64_t seed = (uint64_t)ip[6];
     int64_t D1 = n_dev + 1;
     if (get_buf(o[0], &bf[0], 0, 8, NM * n_orb, "orb_m") < 0 ||
@@ -518,6 +518,29 @@ static PyObject *py_anneal(PyObject *self, PyObject *args) {
                 break;
             }
             if (!found) continue;
+            if (three_share > 0 && (int64_t)rng_below(&rng, 1000) < three_share
+                && lst_len[a] > 2 && lst_len[b] > 2) {
+                /* or three for three: a also gives s3 and b also gives t2 (which a takes
+                 * instead of the t2 above) and t3, with
+                 * pos(o1) + pos(s2) + pos(s3) = pos(o2) + pos(t2) + pos(t3);
+                 * if no such t3 turns up, the two-for-two stands */
+                int64_t s2 = mv.s[1];
+                for (int tries = 0; tries < 6; tries++) {
+                    int64_t s3 = lst[a * cap1 + rng_below(&rng, lst_len[a])];
+                    int64_t t2 = lst[b * cap1 + rng_below(&rng, lst_len[b])];
+                    if (s3 == o1 || s3 == s2 || t2 == o2) continue;
+                    int64_t gx = orb_key[2 * o1] + orb_key[2 * s2] + orb_key[2 * s3]
+                                 - orb_key[2 * o2] - orb_key[2 * t2];
+                    int64_t gy = orb_key[2 * o1 + 1] + orb_key[2 * s2 + 1]
+                                 + orb_key[2 * s3 + 1] - orb_key[2 * o2 + 1] - orb_key[2 * t2 + 1];
+                    if (gx < 0 || gy < 0 || gx >= grid_w || gy >= grid_h) continue;
+                    int64_t t3 = key_grid[gy * grid_w + gx];
+                    if (t3 < 0 || t3 == o2 || t3 == t2 || !movable[t3] || P.orb_size[t3] != 1
+                        || st.dev_of[t3] != b) continue;
+                    mv.s[2] = s3; mv.t[1] = t2; mv.t[2] = t3; mv.ns = 3;
+                    break;
+                }
+            }
         }
         {   /* every orbit must allow the device it receives (row bands) */
             int ok = 1;
