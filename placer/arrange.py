@@ -22,7 +22,16 @@ from placer.routing import (
     orient_row,
 )
 from placer.score import Grade, grade_pattern
-from placer.search import Keys, Problem, SearchResult, compare, keys_of, rank_key, search
+from placer.search import (
+    Keys,
+    Problem,
+    SearchResult,
+    compare,
+    keys_of,
+    n_restarts,
+    rank_key,
+    search,
+)
 from placer.spec import MAX_SIDE, MAX_SLOT_DEVICES, MAX_SLOTS, Spec
 
 __all__ = ["METHODS", "Arrangement", "Candidate", "candidate_shapes", "build_pattern",
@@ -275,7 +284,7 @@ class _Tried:
 
 
 def _run_shape(spec: Spec, rows: int, cols: int, method: str, seed: int, deadline: float,
-               progress: Callable[[str, Keys], None] | None) -> _Tried:
+               share_s: float, progress: Callable[[str, Keys], None] | None) -> _Tried:
     import time
 
     prob = problem_for(spec, rows, cols)
@@ -289,7 +298,9 @@ def _run_shape(spec: Spec, rows: int, cols: int, method: str, seed: int, deadlin
     if method != "auto":
         assign, keys = base[method]
         return _Tried((rows, cols), prob, None, assign, keys, method, base)
-    out = search(prob, seed=seed, time_limit_s=time_limit_s, progress=progress)
+    # the deadline is a clock reading; the restart count comes from the shape's fixed share
+    out = search(prob, seed=seed, time_limit_s=time_limit_s, progress=progress,
+                 restarts=n_restarts(share_s))
     assign, keys, label = out.assign, out.keys, out.method
     for name, (a, k) in base.items():            # never worse than a textbook arrangement
         if compare(prob, k, keys) < 0:
@@ -326,7 +337,8 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
         ``auto`` (the search) or a baseline: ``clustered``, ``interdigitated``,
         ``mirrored``, ``milp``.
     seed : int
-        The same spec and seed give the same result (when the time limit is not hit).
+        The same spec, seed and time limit give the same result (when the limit
+        does not cut the search).
     time_limit_s : float
         Shared by the core shapes tried.
     n_candidates : int
@@ -353,7 +365,8 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
         if tried and time.monotonic() >= t0 + time_limit_s:
             break                     # the time is spent: the shapes left are not tried
         try:
-            t = _run_shape(spec, rows, cols, method, seed, t0 + (i + 1) * share, progress)
+            t = _run_shape(spec, rows, cols, method, seed, t0 + (i + 1) * share, share,
+                           progress)
         except KeyboardInterrupt:
             interrupted = True
             break

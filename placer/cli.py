@@ -352,7 +352,8 @@ _ARRANGE_FILES = ("pattern.txt", "report.json", "pattern.gds", "pattern.png", "p
               default=60.0, show_default=True,
               help="Safety cap on the search in seconds; the search usually ends sooner.")
 @click.option("--seed", type=_SEED, default=0, show_default=True,
-              help="Random seed; the same spec and seed give the same result.")
+              help="Random seed; the same spec, seed and time limit give the same "
+                   "result.")
 @click.option("--candidates", "n_candidates", type=click.IntRange(min=0, max=50), default=0,
               show_default=True,
               help="Also write the K best arrangements on the error/routing trade-off.")

@@ -420,6 +420,31 @@ def test_compiled_loop_keys_equal_a_fresh_evaluation_after_every_stage():
                 caps[STAGE[stage]] = res.keys[STAGE[stage]] * (1 + 1e-9) + 1e-15
 
 
+def test_arrange_sets_the_restart_count_from_each_shape_share_not_the_clock(monkeypatch):
+    """arrange shares its limit among core shapes, and what is left for a shape depends on
+    how long the ones before it took; the restart count (which changes the result) must
+    come from the fixed share, so the same spec, seed and limit give the same result."""
+    import time
+
+    from placer import arrange as arrange_mod
+    from placer.search import n_restarts
+
+    seen = []
+    real = arrange_mod.search
+
+    def slow(prob, **kw):
+        seen.append(kw["restarts"])
+        time.sleep(0.2)                     # a busy machine: later shapes get less time
+        return real(prob, **kw)
+
+    monkeypatch.setattr(arrange_mod, "search", slow)
+    spec = parse_spec("[devices]\nA = 3\nB = 5\nC = 7\n", "s.toml")
+    n_shapes = len(arrange_mod.candidate_shapes(spec))
+    arrange_mod.arrange(spec, seed=1, time_limit_s=30)
+    assert n_shapes > 1 and len(seen) == n_shapes
+    assert seen == [n_restarts(30 / n_shapes)] * n_shapes
+
+
 def test_random_start_keeps_every_count_with_and_without_constraints():
     from placer.search._construct import random_start
     from placer.search._moments import compile_problem

@@ -5,14 +5,14 @@ One public entry, :func:`search`, takes a :class:`Problem` and returns a frozen
 
 ``_problem``    the problem, the keys and the one objective that orders them
 ``_moments``    exact integer moments of orbits and the keys of an assignment
-``_construct``  symmetric and near-symmetric starts, the fair deal
+``_construct``  symmetric and near-symmetric starts, the fair deal, random starts
 ``_local``      the compiled Metropolis loop (``_native.c``), one stage at a time
 ``_exact``      branch and bound, the linear bound, assignment counts
-``_driver``     stages, chains, the exact path and the worker process
+``_driver``     stages, restarts, chains, the exact path and the worker process
 """
 
 from placer.search._construct import core_coords, deal
-from placer.search._driver import SearchResult, search
+from placer.search._driver import SearchResult, n_restarts, search
 from placer.search._moments import compile_problem, evaluate, orbit_assignment
 from placer.search._problem import (
     DEFAULT_RELATIVE_TIE,
@@ -23,7 +23,7 @@ from placer.search._problem import (
     rank_key,
 )
 
-__all__ = ["Problem", "Keys", "SearchResult", "search", "compare", "rank_key",
+__all__ = ["Problem", "Keys", "SearchResult", "search", "n_restarts", "compare", "rank_key",
            "keys_of", "core_coords", "deal", "DEFAULT_RELATIVE_TIE", "SYMMETRIES",
            "compile_problem", "evaluate", "orbit_assignment"]
 

@@ -6,7 +6,8 @@ orders asked for, edge balance, correlated sigma (or, weighted, the ppm sum then
 with budgets doubling from one to the next, each from the best state so far, until two
 chains in a row bring nothing better (or every key sits at its bound, or the time limit
 comes). Budgets are counts of moves, never seconds, so a run that ends before its time
-limit gives the same result for the same spec and seed on any machine.
+limit gives the same result for the same spec, seed and limit on any machine (the
+limit sets the number of restarts, below).
 
 On small cores too large for the exact search to finish, the chains are preceded by
 restarts: the linear and quadratic stages from random states. Once the linear term sits
@@ -258,7 +259,8 @@ def _worker(send: Any, comp: Compiled, start: IntArray, seed: int, deadline: flo
 
 def search(prob: Problem, *, seed: int = 0, time_limit_s: float = 60.0,
            progress: Callable[[str, Keys], None] | None = None,
-           workers: int | None = None, exact_nodes: int | None = None) -> SearchResult:
+           workers: int | None = None, exact_nodes: int | None = None,
+           restarts: int | None = None) -> SearchResult:
     """Find the best arrangement of ``prob`` under its objective.
 
     Parameters
@@ -278,6 +280,10 @@ def search(prob: Problem, *, seed: int = 0, time_limit_s: float = 60.0,
     exact_nodes : int, optional
         Node budget of the branch and bound (0: none, only the time limit); default: none
         up to 10^8 assignments, EXACT_NODE_BUDGET above.
+    restarts : int, optional
+        Restarts per worker on the cores that get them (default: ``n_restarts`` of the
+        time limit). A caller whose limit comes from a clock (what is left of a shared
+        budget) passes a count of its own, so that the result does not depend on it.
 
     Returns
     -------
@@ -302,7 +308,7 @@ def search(prob: Problem, *, seed: int = 0, time_limit_s: float = 60.0,
     if workers is None:
         busy = comp.n_orb >= PARALLEL_MIN_ORBITS or _restarting(comp, floor)
         workers = 2 if busy and cpus > 1 else 1
-    restarts = n_restarts(time_limit_s)
+    restarts = n_restarts(time_limit_s) if restarts is None else restarts
     found: list[tuple[IntArray, Keys]] = []
     child = None
     try:
