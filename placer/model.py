@@ -302,7 +302,7 @@ def monte_carlo_errors(xy_c: FloatArray, dev: IntArray, n_dev: int, pairs: IntAr
         k = correlation(np.sqrt(np.sum(diff * diff, axis=-1)), corr_length_um, kernel)
         vals, vecs = np.linalg.eigh(k)
         factor = vecs * np.sqrt(np.clip(vals, 0.0, None))
-    out = np.empty((samples, pairs.shape[0]))
+    out = np.zeros((samples, pairs.shape[0]))
     s_g = g_rms_ppm_per_um / np.sqrt(2.0)
     s_d = h_rms_ppm_per_um2 / np.sqrt(3.0)
     s_o = h_rms_ppm_per_um2 / np.sqrt(6.0)

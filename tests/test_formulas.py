@@ -88,6 +88,35 @@ def test_mirror_white_term_is_the_area_law_in_current():
     assert line.random_sigma_pct == pytest.approx(want, rel=1e-12)
 
 
+def test_mirror_monte_carlo_matches_the_area_law_when_beta_dominates():
+    """The budget's Monte Carlo of device-level draws (each device's beta and VT with
+    variance A^2 / (2 area)) against the area law (Pelgrom et al. 1989) when the beta
+    term carries nearly all of it: A_beta = 2 %um, A_VT = 0.05 mVum."""
+    text = MIRROR.format(corr=0.0, avt=0.05, abeta=2.0).replace("mc_samples = 2",
+                                                                  "mc_samples = 60000")
+    spec = parse_spec(text, "m.toml")
+    pattern = parse_pattern("MREF MOUT MOUT MREF MOUT MOUT").reordered(spec.devices)
+    (line,) = budget(pattern, spec, grade_pattern(pattern, spec)).lines
+    s_beta = 2.0 * np.sqrt((1 / 4 + 1 / 8) / 2)            # %, MREF 4 um^2, MOUT 8 um^2
+    s_vt = 0.05 * np.sqrt((1 / 4 + 1 / 8) / 2) * 1e-3      # V
+    want = np.hypot(s_beta, 10.0 * s_vt * 100.0)           # gm/ID = 2 / 0.2 V
+    assert s_beta / want > 0.99
+    assert line.random_sigma_pct == pytest.approx(want, rel=1e-12)
+    assert line.mc_std_pct == pytest.approx(want, rel=0.015)
+
+
+def test_mirror_dominant_term_is_the_curvature_of_a_centred_layout():
+    """MOUT at 0, 2, 3, 5 um and MREF at 1, 4 um share the centroid 2.5 um: no linear
+    term, a curvature term (second moments 3.25 and 2.25 um^2), and with the area-law
+    coefficients and the correlated field near zero the gradient line (linear plus
+    curvature) is the largest share of the budget."""
+    b, _, _ = _mirror(corr=0.0, avt=1e-9, abeta=1e-9, text="MOUT MREF MOUT MOUT MREF MOUT")
+    (line,) = b.lines
+    assert line.gradient_pct == pytest.approx(0.0, abs=1e-15)
+    assert line.quadratic_pct == pytest.approx(1e-4 * 0.02 / 2 * 1.0, rel=1e-9)
+    assert line.dominant == "gradient"
+
+
 def test_resistor_budget_gradient_hand_worked():
     """Resistors at 20 ppm/um: RA at x = 0, 1, 4 (centroid 5/3), RB at 2, 3 (2.5): 0.8333 um
     apart, so 16.667 ppm = 0.0016667 %."""
@@ -98,6 +127,12 @@ def test_resistor_budget_gradient_hand_worked():
     b = budget(pattern, spec, grade_pattern(pattern, spec))
     (line,) = b.lines
     assert line.gradient_pct == pytest.approx(20.0 * (2.5 - 5 / 3) * 1e-4, rel=1e-12)
+    # a resistor has no channel-length modulation: the range is the gradient lines and
+    # k sigma either side of zero (the budget's definition)
+    assert line.clm_pct == 0.0
+    spread = line.gradient_pct + line.quadratic_pct + b.k_sigma * line.random_sigma_pct
+    assert line.total_high_pct == pytest.approx(spread, rel=1e-12)
+    assert line.total_low_pct == pytest.approx(-spread, rel=1e-12)
 
 
 def _endpoint_inl(levels):
@@ -138,13 +173,13 @@ def test_dac_white_noise_against_a_direct_simulation():
     mean over 40 000 draws, simulated here unit by unit, matches the budget's within its
     statistical spread."""
     spec = parse_spec('kind = "cap"\n[devices]\nCT = 1\nC0 = 1\nC1 = 2\n[array]\n'
-                      'pitch_um = [1.0, 1.0]\n[unit]\nwidth_um = 1.0\nlength_um = 1.0\n'
+                      'pitch_um = [1.0, 1.0]\n[unit]\nwidth_um = 2.0\nlength_um = 1.5\n'
                       '[correlated]\nsigma_ppm = 0.0\n[mismatch]\na_param_pct_um = 2.0\n'
                       '[electrical]\ntermination = "CT"\nmc_samples = 40000\n', "c.toml")
     pattern = parse_pattern("C1 C0 CT C1").reordered(spec.devices)
     b = budget(pattern, spec, grade_pattern(pattern, spec))
     rng = np.random.default_rng(7)
-    s = 2.0e-2 / np.sqrt(2.0 * 1.0)
+    s = 2.0e-2 / np.sqrt(2.0 * 3.0)                    # unit area 2 x 1.5 um^2
     units = rng.normal(0.0, s, (40000, 4))             # C1, C0, CT, C1
     c1 = 2 * (1 + units[:, [0, 3]].mean(1))
     c0 = 1 + units[:, 1]
@@ -179,6 +214,35 @@ def test_grade_monte_carlo_exact_figure_keeps_gradient_and_hessian_terms():
     assert g.monte_carlo.std_ppm[0] == pytest.approx(want, rel=4 / np.sqrt(2 * 20000))
 
 
+def test_grade_monte_carlo_exact_figure_with_every_random_term():
+    """With every term on, the exact standard deviation adds the variances: the
+    gradient's (G |dc|)^2 / 2 and (h ||dM|| / 2)^2 / 3, the correlated sigma (grade's own
+    figure, checked against the direct quadratic form elsewhere) squared, and the area law
+    per unit, s = A / sqrt(2 W L) (Pelgrom et al. 1989), averaged over each device's units:
+    s^2 (1/n_A + 1/n_B). The sampled errors are normal, so the 99th percentile of |error|
+    is 2.5758 standard deviations (normal quantile, from memory of the standard table)."""
+    spec = parse_spec("[devices]\nA = 4\nB = 2\n[array]\npitch_um = [1.0, 1.0]\n"
+                      "[unit]\nwidth_um = 2.0\nlength_um = 1.5\n"
+                      "[gradient]\nlinear_ppm_per_um = 10.0\nquadratic_ppm_per_um2 = 4.0\n"
+                      "[correlated]\nsigma_ppm = 40.0\nlength_um = 3.0\n"
+                      "[mismatch]\na_param_pct_um = 0.5\n"
+                      "[monte_carlo]\nsamples = 40000\nseed = 5\n", "s.toml")
+    pattern = parse_pattern("A A A B B A").reordered(spec.devices)
+    g = grade_pattern(pattern, spec)
+    dc, dm = 3.5 - 2.0, 2.5                # as in the test above
+    s_unit = 1e4 * 0.5 / np.sqrt(2.0 * 3.0)                 # ppm, unit area 3 um^2
+    white = s_unit ** 2 * (1 / 4 + 1 / 2)
+    corr = g.pairs[0].correlated_sigma_ppm
+    assert corr > 1.0
+    want = np.sqrt((10.0 * dc) ** 2 / 2 + (0.5 * 4.0 * dm) ** 2 / 3 + corr ** 2 + white)
+    mc = g.monte_carlo
+    assert mc is not None
+    assert mc.exact_std_ppm[0] == pytest.approx(want, rel=1e-9)
+    assert mc.std_ppm[0] == pytest.approx(want, rel=4 / np.sqrt(2 * 40000))
+    assert len(mc.abs_p99_ppm) == 1
+    assert mc.abs_p99_ppm[0] == pytest.approx(2.5758 * want, rel=0.04)
+
+
 def _exact_inl_dnl(weights, term, err, err_term, fit):
     """INL and DNL in exact rational arithmetic from the definitions (IEEE Std 1658:
     levels V(k) = sum of the code's capacitors over the total; endpoint line through the
@@ -208,14 +272,16 @@ def _exact_inl_dnl(weights, term, err, err_term, fit):
 
 @pytest.mark.parametrize("fit", ["endpoint", "best"])
 @pytest.mark.parametrize("size", [1e-2, 1e-6, 1e-9])
-def test_dac_inl_dnl_keeps_tiny_errors_exact(fit, size):
+@pytest.mark.parametrize("weights", [(1, 2, 4, 8, 16), (1, 2, 3, 6, 11)])
+def test_dac_inl_dnl_keeps_tiny_errors_exact(fit, size, weights):
     """Exact rational arithmetic (Python's fractions) as the reference: the budget's INL
     and DNL hold 1e-10 relative even when the capacitors deviate by 1e-9, where levels
-    computed in floating point would have lost most digits."""
+    computed in floating point would have lost most digits; binary weights and
+    sub-binary (redundant) ones, whose ideal steps are not all one LSB."""
     from placer.budget import dac_inl_dnl
 
     rng = np.random.default_rng(7)
-    w = np.array([1.0, 1.0, 2.0, 4.0, 8.0, 16.0])[1:]
+    w = np.array(weights, dtype=float)
     err = rng.normal(0.0, size, len(w))
     e_t = float(rng.normal(0.0, size))
     inl, dnl = dac_inl_dnl(w, 1.0, err, e_t, fit)
@@ -223,6 +289,31 @@ def test_dac_inl_dnl_keeps_tiny_errors_exact(fit, size):
     scale_i, scale_d = np.abs(want_i).max(), np.abs(want_d).max()
     assert np.abs(inl - want_i).max() <= 1e-10 * scale_i
     assert np.abs(dnl - want_d).max() <= 1e-10 * scale_d
+
+
+@pytest.mark.parametrize("fit", ["endpoint", "best"])
+def test_dac_functions_take_a_batch_of_draws_row_by_row(fit):
+    """The Monte Carlo passes many draws at once (leading axis): every batched result
+    must equal the same function applied to each draw alone (identity)."""
+    from placer.budget import dac_inl_dnl, dac_levels, inl_dnl
+
+    rng = np.random.default_rng(5)
+    w = np.array([1.0, 2.0, 4.0, 8.0])
+    err = rng.normal(0.0, 1e-3, (6, 4))
+    e_t = rng.normal(0.0, 1e-3, 6)
+    inl, dnl = dac_inl_dnl(w, 1.0, err, e_t, fit)
+    caps = w * (1 + err)
+    levels = dac_levels(caps, 1.0 + e_t)
+    inl2, dnl2 = inl_dnl(levels, fit)
+    assert inl.shape == (6, 16) and dnl.shape == (6, 15) and levels.shape == (6, 16)
+    for i in range(6):
+        one_i, one_d = dac_inl_dnl(w, 1.0, err[i], float(e_t[i]), fit)
+        assert np.allclose(inl[i], one_i, rtol=1e-12, atol=1e-15)
+        assert np.allclose(dnl[i], one_d, rtol=1e-12, atol=1e-15)
+        assert np.allclose(levels[i], dac_levels(caps[i], 1.0 + float(e_t[i])), rtol=1e-15)
+        alone_i, alone_d = inl_dnl(levels[i], fit)
+        assert np.allclose(inl2[i], alone_i, rtol=1e-9, atol=1e-12)
+        assert np.allclose(dnl2[i], alone_d, rtol=1e-9, atol=1e-12)
 
 
 # ----------------------------------------------------------------- model, by hand
@@ -291,58 +382,69 @@ def test_edge_units_by_hand():
     assert model.edge_units(ids, 2).tolist() == [1, 0]      # the unit beside '-' only
 
 
+@pytest.mark.parametrize("scale", [1.0, 0.004])
 @pytest.mark.parametrize("term", ["linear", "hessian", "correlated", "white"])
-def test_monte_carlo_field_terms_one_at_a_time(term):
+def test_monte_carlo_field_terms_one_at_a_time(term, scale):
     """Sampled pair errors against the exact variance of each term alone (each term's
     law in monte_carlo_errors' docstring): a Gaussian gradient with E|g|^2 = G^2 gives
     (G |dc|)^2 / 2; a Hessian with E||H||^2 = h^2 (diagonal variance h^2/3, off-diagonal
     h^2/6) gives Var(0.5 tr(H dM)); the correlated field sigma_c^2 w'Kw; white noise
-    s^2 w'w. 40 000 samples: the standard deviation agrees within 2 %."""
+    s^2 w'w. 40 000 samples: the standard deviation agrees within 2 %, the mean is near
+    zero (the centroid gap has both components), and sigmas below 1 ppm still count."""
     from placer import model
 
-    xy = np.array([[-1.5, 0.5], [-0.5, -0.5], [0.5, 0.5], [1.5, -0.5], [0.0, 1.5]])
+    xy = np.array([[-1.5, 0.5], [-0.5, -0.5], [0.5, 0.5], [1.5, -0.5], [0.4, 1.5]])
     dev = np.array([0, 1, 1, 0, 0])
     pairs = np.array([[0, 1]])
     kw = {"g_rms_ppm_per_um": 0.0, "h_rms_ppm_per_um2": 0.0, "corr_sigma_ppm": 0.0,
           "corr_length_um": 2.0, "kernel": "exponential", "white_unit_sigma_ppm": 0.0}
     w = np.where(dev == 0, 1 / 3, -1 / 2)
     if term == "linear":
-        kw["g_rms_ppm_per_um"] = 10.0
+        g = 10.0 * scale
+        kw["g_rms_ppm_per_um"] = g
         dc = (w[:, None] * xy).sum(0)
-        var = (10.0 * np.hypot(*dc)) ** 2 / 2
+        assert abs(dc[0]) > 0.1 and abs(dc[1]) > 0.1
+        var = (g * np.hypot(*dc)) ** 2 / 2
     elif term == "hessian":
-        kw["h_rms_ppm_per_um2"] = 3.0
+        h = 3.0 * scale
+        kw["h_rms_ppm_per_um2"] = h
         dxx, dxy, dyy = (w * xy[:, 0] ** 2).sum(), (w * xy[:, 0] * xy[:, 1]).sum(), \
             (w * xy[:, 1] ** 2).sum()
         # error = 0.5 (Hxx dxx + 2 Hxy dxy + Hyy dyy), independent normal entries
-        var = 0.25 * (9.0 / 3 * dxx ** 2 + 4 * 9.0 / 6 * dxy ** 2 + 9.0 / 3 * dyy ** 2)
+        var = 0.25 * (h * h / 3 * dxx ** 2 + 4 * h * h / 6 * dxy ** 2 + h * h / 3 * dyy ** 2)
     elif term == "correlated":
-        kw["corr_sigma_ppm"] = 100.0
+        sc = 100.0 * scale
+        kw["corr_sigma_ppm"] = sc
         d = np.hypot(*(xy[:, None, :] - xy[None, :, :]).transpose(2, 0, 1))
-        var = 100.0 ** 2 * w @ np.exp(-d / 2.0) @ w
+        var = sc ** 2 * w @ np.exp(-d / 2.0) @ w
     else:
-        kw["white_unit_sigma_ppm"] = 50.0
-        var = 50.0 ** 2 * (w @ w)
+        sw = 50.0 * scale
+        kw["white_unit_sigma_ppm"] = sw
+        var = sw ** 2 * (w @ w)
     out = model.monte_carlo_errors(xy, dev, 2, pairs, samples=40000,
-                                   rng=np.random.default_rng(11), **kw)
+                                   rng=np.random.default_rng(11), batch=300, **kw)
     assert out[:, 0].std() == pytest.approx(np.sqrt(var), rel=0.02)
     assert abs(out[:, 0].mean()) < 0.03 * np.sqrt(var)
+    assert np.all(out != 0.0)                # every sample drawn (a zero has probability 0)
 
 
 def test_exact_moment_sums_survive_int64_overflow():
-    """65 536 units on a 1024-column grid: the integer second-moment differences pass
-    2^63 and must be kept in Python integers; compared with float moments (numpy)."""
+    """65 536 units in one row, the inner half one device and the outer half another:
+    the integer second-moment difference n * na * nb * dM (what pair_second forms before
+    its one division) passes 2^63, so the sums must be kept in Python integers; compared
+    with float moments (numpy), which are accurate to 1e-9 here."""
     from placer import model
     from placer.moments import grid_sums, pair_second
 
-    rng = np.random.default_rng(5)
-    r, c = np.divmod(np.arange(65536), 1024)
-    dev = rng.integers(0, 3, 65536)
-    sums = grid_sums(r, c, dev, 3)
-    got = pair_second(sums, np.array([[0, 1], [1, 2]]), (1.0, 1.0))
+    c = np.arange(65536)
+    r = np.zeros_like(c)
+    dev = (np.abs(c - 32767.5) > 16384).astype(int)
+    sums = grid_sums(r, c, dev, 2)
+    got = pair_second(sums, np.array([[0, 1]]), (1.0, 1.0))
     xy = np.column_stack([c, -r]).astype(float)
-    m = model.power_moments(xy - xy.mean(axis=0), dev, 3, 2)
-    want = np.array([m[0] - m[1], m[1] - m[2]])
+    m = model.power_moments(xy - xy.mean(axis=0), dev, 2, 2)
+    want = (m[0] - m[1])[None, :]
+    assert abs(65536 * 32768 * 32768 * want[0, 0]) > 2 ** 63
     assert np.allclose(got, want, rtol=1e-9, atol=1e-6)
 
 
@@ -358,6 +460,7 @@ def test_within_tolerance_against_the_normal_distribution():
         want = norm.cdf((t - off) / s) - norm.cdf((-t - off) / s)
         assert within_tolerance(off, s, t) == pytest.approx(want, rel=1e-12)
     assert within_tolerance(0.5, 0.0, 1.0) == 1.0
+    assert within_tolerance(1.0, 0.0, 1.0) == 1.0       # |offset| <= tolerance: inside
     assert within_tolerance(1.5, 0.0, 1.0) == 0.0
 
 
@@ -394,6 +497,7 @@ def test_budget_percentile_streams_like_numpy():
         for k in range(0, n, 97):
             up.add(x[k:k + 97])
         assert np.allclose(up.value(), np.percentile(x, 99, axis=0), rtol=1e-14)
+    assert UpperPercentile(0, 4).value().tolist() == [0.0] * 4      # no samples: zeros
 
 
 def test_mirror_budget_range_and_share_with_channel_length_modulation():
@@ -473,15 +577,91 @@ def test_dac_curvature_inl_by_hand():
     assert b.quadratic_dnl_lsb == pytest.approx(dnl, rel=1e-9)
 
 
-def test_dac_correlated_noise_against_a_direct_simulation():
+DAC_2D = ("C2 C1 C2\n"
+          "C0 CT C2\n"
+          "C1 C2 .\n")
+
+
+def _levels_inl(err, weights=(("C0", 1), ("C1", 2), ("C2", 4)), term="CT"):
+    """Endpoint INL of a 3-bit DAC whose capacitors have the given relative errors."""
+    caps = [w * (1 + err[name]) for name, w in weights]
+    total = sum(caps) + 1 * (1 + err[term])
+    levels = np.array([sum(c for b, c in enumerate(caps) if k >> b & 1)
+                       for k in range(8)]) / total
+    return _endpoint_inl(levels)
+
+
+def _positions_2d():
+    """Unit centres of DAC_2D: column c at x = c um, row r at y = -r um."""
+    pos: dict[str, list[tuple[float, float]]] = {}
+    for r, row in enumerate(DAC_2D.split("\n")[:3]):
+        for c, tok in enumerate(row.split()):
+            if tok != ".":
+                pos.setdefault(tok, []).append((float(c), -float(r)))
+    return {k: np.array(v) for k, v in pos.items()}
+
+
+def _budget_2d(linear, quadratic):
+    """The budget of DAC_2D (3-bit, termination CT) under the given gradient alone."""
+    spec = parse_spec('kind = "cap"\n[devices]\nCT = 1\nC0 = 1\nC1 = 2\nC2 = 4\n'
+                      f'[array]\npitch_um = [1.0, 1.0]\n[gradient]\nlinear_ppm_per_um = {linear}\n'
+                      f'quadratic_ppm_per_um2 = {quadratic}\n[correlated]\nsigma_ppm = 0.0\n'
+                      '[electrical]\ntermination = "CT"\nmc_samples = 2\n', "c.toml")
+    pattern = parse_pattern(DAC_2D).reordered(spec.devices)
+    return budget(pattern, spec, grade_pattern(pattern, spec))
+
+
+def test_dac_gradient_inl_in_the_reported_direction_on_a_two_dimensional_array():
+    """Eight units and a dummy on a 3 x 3 grid, centroids off both axes: a linear
+    gradient g along direction theta gives each capacitor the relative error
+    g (cos theta, sin theta) . c_d; the budget's worst direction must carry the
+    largest end-point INL over all directions, and the INL it reports there (errors
+    measured from the centre of the units, as a field's constant part is a common scale
+    only to first order)."""
+    b = _budget_2d(linear=5.0, quadratic=0.0)
+    pos = _positions_2d()
+    centre = np.concatenate(list(pos.values())).mean(0)        # of the eight units
+    cen = {k: v.mean(0) - centre for k, v in pos.items()}
+
+    def worst(theta):
+        u = np.array([np.cos(theta), np.sin(theta)])
+        return float(np.abs(_levels_inl({d: 5e-6 * u @ c for d, c in cen.items()})).max())
+
+    every = [worst(t) for t in np.radians(np.arange(0.0, 360.0, 1.0))]
+    assert b.worst_gradient_inl_lsb == pytest.approx(max(every), rel=1e-6)
+    assert worst(np.radians(b.worst_direction_deg)) == pytest.approx(max(every), rel=1e-6)
+    # the reported direction is not one that a mirror image of the array would share
+    assert abs(np.sin(2 * np.radians(b.worst_direction_deg))) > 0.05
+
+
+def test_dac_curvature_inl_on_a_two_dimensional_array():
+    """The bowl on a 3 x 3 grid: each capacitor off by (h / sqrt 2) / 2 x its mean
+    squared distance r^2 = x^2 + y^2 from the centre of all eight units; both axes
+    count."""
+    b = _budget_2d(linear=0.0, quadratic=2.0)
+    pos = _positions_2d()
+    centre = np.concatenate(list(pos.values())).mean(0)
+    h = 2.0e-6 / np.sqrt(2.0)
+    err = {d: 0.5 * h * float(((p - centre) ** 2).sum(1).mean()) for d, p in pos.items()}
+    assert b.quadratic_inl_lsb == pytest.approx(float(np.abs(_levels_inl(err)).max()),
+                                                rel=1e-6)
+
+
+@pytest.mark.parametrize("devices, text", [
+    ("CT = 1\nC0 = 1\nC1 = 2\n", "C1 C0 CT C1"),
+    ("C0 = 1\nC1 = 2\nCT = 1\n", ". . C1 C0 CT C1 . ."),  # a bit first, dummies at the ends
+])
+def test_dac_correlated_noise_against_a_direct_simulation(devices, text):
     """Random INL of a 2-bit DAC from the correlated field alone (area-law part ~0):
     device means drawn here from the unit correlation matrix K_ij = exp(-d/L) (its
     Cholesky factor), sigma_c = 2000 ppm; the mean worst |INL| over 20 000 draws agrees
-    with the budget's within 3 %."""
+    with the budget's within 3 %. Dummies carry no device; only the distances between
+    the four units matter."""
     spec = parse_spec(_dac_spec("[correlated]\nsigma_ppm = 2000.0\nlength_um = 1.5\n"
                                 "[mismatch]\na_param_pct_um = 1e-9\n")
+                      .replace("CT = 1\nC0 = 1\nC1 = 2\n", devices)
                       + "mc_samples = 20000\n", "c.toml")
-    pattern = parse_pattern("C1 C0 CT C1").reordered(spec.devices)
+    pattern = parse_pattern(text).reordered(spec.devices)
     b = budget(pattern, spec, grade_pattern(pattern, spec))
     x = np.arange(4.0)
     k = np.exp(-np.abs(x[:, None] - x[None, :]) / 1.5)
@@ -510,6 +690,18 @@ def test_grade_device_figures_by_hand():
     assert a.second_moment_um2 == pytest.approx((2.25, -1.5, 1.0))
     assert b.second_moment_um2 == pytest.approx((0.25, -0.5, 1.0))
     assert a.orientation == (2, 0, 0) and b.orientation == (0, 1, 1)
+
+
+def test_grade_ranks_every_pair_of_a_pattern_in_its_own_device_order():
+    """A pattern whose devices come in another order than the spec's (not reordered) is
+    graded on every pair of its own devices: three devices, three pairs."""
+    spec = parse_spec("[devices]\nA = 2\nB = 2\nC = 2\n", "s.toml")
+    pattern = parse_pattern("C B A A B C")
+    assert pattern.devices != tuple(spec.devices)
+    g = grade_pattern(pattern, spec)
+    assert len(g.pairs) == 3
+    assert {frozenset((p.a, p.b)) for p in g.pairs} == {frozenset("AB"), frozenset("AC"),
+                                                         frozenset("BC")}
 
 
 def test_grade_offset_of_a_displaced_device():
