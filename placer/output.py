@@ -1,8 +1,8 @@
 """Safe output: every file of a run staged in a hidden folder, moved in together at the end.
 
 A command opens an :class:`OutputSet` on its ``--out`` folder before any work. The set
-takes a lock (a second run on the same folder is refused while the first holds it),
-refuses to overwrite a previous set without ``force``, and hands out paths inside a
+locks the folder (a second run on the same folder is refused while the first holds it),
+then refuses to overwrite a previous set without ``force``, and hands out paths inside a
 private staging folder. :meth:`OutputSet.commit` moves the staged files into place (with
 ``force``, the previous run's files of the same command go first, so nothing stale is
 left); on any error, a full disk or an interrupt, the staging folder is removed and the
@@ -11,6 +11,7 @@ output folder is left as it was. Files get the permissions the user's umask give
 
 from __future__ import annotations
 
+import fcntl
 import fnmatch
 import os
 import shutil
@@ -23,7 +24,6 @@ from placer.errors import PlacerError
 
 __all__ = ["OutputError", "OutputSet", "atomic_write", "file_mode"]
 
-_LOCK = ".placer.lock"
 _STAGE_PREFIX = ".placer-staging-"
 
 
@@ -87,10 +87,11 @@ class OutputSet:
         self.force = force
         self.family = list(family) or self.names
         self.stage: Path | None = None
-        self.lock: Path | None = None
+        self.lock: int | None = None       # descriptor of the locked folder
         self.written: list[str] = []
         self.created: list[Path] = []
         self.committed = False
+        self.locked_out = False            # refused: another run holds the folder
 
     def __enter__(self) -> OutputSet:
         try:
@@ -107,11 +108,6 @@ class OutputSet:
         out = self.out
         if out.exists() and not out.is_dir():
             raise OutputError(f"{out}: exists and is not a folder; choose another --out")
-        existing = [n for n in self.names if (out / n).exists()]
-        if existing and not self.force:
-            more = f" (and {len(existing) - 1} more)" if len(existing) > 1 else ""
-            raise OutputError(f"{out}: {existing[0]} already exists{more}; use --force to "
-                              "overwrite or choose another --out")
         self.created = [p for p in (out, *out.parents) if not p.exists()]
         try:
             out.mkdir(parents=True, exist_ok=True)
@@ -121,50 +117,54 @@ class OutputSet:
         if not os.access(out, os.W_OK):
             raise OutputError(f"{out}: folder is not writable")
         self._take_lock()
+        # checked under the lock: a run that finished a moment ago has its files in place
+        existing = [n for n in self.names if (out / n).exists()]
+        if existing and not self.force:
+            more = f" (and {len(existing) - 1} more)" if len(existing) > 1 else ""
+            raise OutputError(f"{out}: {existing[0]} already exists{more}; use --force to "
+                              "overwrite or choose another --out")
+        for stale in out.glob(_STAGE_PREFIX + "*"):
+            # under the lock every staging folder is a killed run's: nothing of it stays
+            shutil.rmtree(stale, ignore_errors=True)
         try:
             self.stage = Path(tempfile.mkdtemp(prefix=_STAGE_PREFIX, dir=out))
         except OSError as err:
-            self._drop_lock()
             raise OutputError(f"{out}: cannot write: {err.strerror or err}") from err
         return self
 
     def _take_lock(self) -> None:
-        lock = self.out / _LOCK
-        for _ in range(2):
-            try:
-                fd = os.open(lock, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o644)
-            except FileExistsError:
-                try:
-                    pid = int(lock.read_text().strip() or "0")
-                except (OSError, ValueError):
-                    pid = 0
-                if pid > 0 and _alive(pid):
-                    raise OutputError(f"{self.out}: another placer run (process {pid}) is "
-                                      "writing here; wait for it or choose another --out"
-                                      ) from None
-                try:                                 # left by a run that was killed
-                    lock.unlink()
-                except OSError:
-                    pass
-                continue
-            except OSError as err:
-                raise OutputError(f"{self.out}: cannot write: {err.strerror or err}") from err
-            self.lock = lock                  # ours now: __exit__ removes it
-            try:
-                with os.fdopen(fd, "w") as fh:
-                    fh.write(str(os.getpid()))
-            except OSError as err:              # a full disk
-                raise OutputError(f"{self.out}: cannot write: {err.strerror or err}"
-                                  ) from err
-            return
-        raise OutputError(f"{self.out}: cannot take the folder's lock {lock}")
+        """Lock the output folder itself (an advisory ``flock`` on its descriptor).
+
+        The kernel drops the lock when the process ends, however it ends, so there is no
+        lock file to go stale and no window between creating a lock and marking it.
+        """
+        try:
+            fd = os.open(self.out, os.O_RDONLY | getattr(os, "O_DIRECTORY", 0))
+        except OSError as err:
+            raise OutputError(f"{self.out}: cannot open the folder: {err.strerror or err}"
+                              ) from err
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+            same = os.fstat(fd).st_ino == os.stat(self.out).st_ino
+        except BlockingIOError:
+            os.close(fd)
+            self.locked_out = True
+            raise OutputError(f"{self.out}: another placer run is writing here; wait for it "
+                              "or choose another --out") from None
+        except OSError as err:
+            # the folder went away (a run that failed removed the folder it had made)
+            os.close(fd)
+            raise OutputError(f"{self.out}: cannot lock the folder: {err.strerror or err}"
+                              ) from err
+        if not same:
+            os.close(fd)
+            raise OutputError(f"{self.out}: the folder was replaced while this run started; "
+                              "run again")
+        self.lock = fd
 
     def _drop_lock(self) -> None:
         if self.lock is not None:
-            try:
-                self.lock.unlink()
-            except OSError:
-                pass
+            os.close(self.lock)
             self.lock = None
 
     def path(self, name: str) -> Path:
@@ -201,13 +201,15 @@ class OutputSet:
         if self.stage is not None:
             shutil.rmtree(self.stage, ignore_errors=True)
             self.stage = None
-        self._drop_lock()
-        if not self.committed:
-            for folder in self.created:          # made by this run: leave no empty folder
+        if not self.committed and not self.locked_out:
+            # folders made by this run go (while its lock is held); a run refused by the
+            # lock leaves them to the run that holds it
+            for folder in self.created:
                 try:
                     folder.rmdir()
                 except OSError:
                     break
+        self._drop_lock()
         if exc_type is None or tb is None or self.committed:
             return                   # after the commit a failure is not about these files
         if isinstance(exc, OSError):

@@ -19,6 +19,7 @@ from pathlib import Path
 import pytest
 
 from placer.errors import LimitError, PlacerError
+from placer.output import OutputError, OutputSet
 from placer.spec import parse_spec
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -181,14 +182,71 @@ def test_two_runs_on_one_new_folder_cannot_both_succeed(tmp_path):
             "--time-limit", "4", "--quiet"]
     a = subprocess.Popen(args, cwd=tmp_path, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
                          text=True)
-    for _ in range(200):                       # wait for the first run's lock
-        if (tmp_path / "o" / ".placer.lock").exists():
+    for _ in range(400):          # wait for the first run's staging (made under its lock)
+        if list((tmp_path / "o").glob(".placer-staging-*")):
             break
         time.sleep(0.05)
     b = subprocess.run(args, cwd=tmp_path, capture_output=True, text=True, timeout=120)
     out_a, err_a = a.communicate(timeout=300)
     assert a.returncode == 0, err_a
     _refused(b, "another placer run")
+
+
+def test_a_run_that_finished_while_another_started_is_not_overwritten(tmp_path, monkeypatch):
+    """The second run looked for existing files before the first committed them; the look
+    must happen again under the lock, where the first run's files are in place."""
+    out = tmp_path / "o"
+    take = OutputSet._take_lock
+    first_ran = []
+
+    def first_run_finishes_meanwhile(self):
+        if not first_ran:
+            first_ran.append(True)
+            with OutputSet(out, ["pattern.txt"], False) as first:
+                first.write("pattern.txt", "A B\n")
+                first.commit()
+        take(self)
+
+    monkeypatch.setattr(OutputSet, "_take_lock", first_run_finishes_meanwhile)
+    with pytest.raises(OutputError, match="already exists"):
+        with OutputSet(out, ["pattern.txt"], False):
+            pass
+    assert (out / "pattern.txt").read_text() == "A B\n"
+    assert sorted(p.name for p in out.iterdir()) == ["pattern.txt"]
+
+
+def test_the_lock_is_held_while_the_set_is_open_and_refused_runs_leave_the_folder(tmp_path):
+    out = tmp_path / "new" / "o"
+    with OutputSet(out, ["a.txt"], False) as first:
+        with pytest.raises(OutputError, match="another placer run"):
+            with OutputSet(out, ["a.txt"], False):
+                pass
+        assert first.stage is not None and first.stage.is_dir()   # untouched by the refusal
+        first.write("a.txt", "x")
+        first.commit()
+    with OutputSet(out, ["b.txt"], False):                        # released at the end
+        pass
+    assert sorted(p.name for p in out.iterdir()) == ["a.txt"]
+
+
+def test_a_killed_run_leaves_no_lock_and_its_staging_is_cleared(tmp_path):
+    out = tmp_path / "o"
+    code = ("import sys, time; from pathlib import Path; from placer.output import OutputSet\n"
+            "with OutputSet(Path(sys.argv[1]), ['a.txt'], False) as o:\n"
+            "    o.write('a.txt', 'x'); print('staged', flush=True); time.sleep(60)\n")
+    proc = subprocess.Popen([sys.executable, "-c", code, str(out)], stdout=subprocess.PIPE,
+                            text=True)
+    try:
+        assert proc.stdout is not None and proc.stdout.readline().strip() == "staged"
+        proc.kill()                                      # SIGKILL: no clean-up of its own
+    finally:
+        proc.kill()
+        proc.communicate(timeout=30)
+    assert list(out.glob(".placer-staging-*"))
+    with OutputSet(out, ["a.txt"], False) as again:
+        again.write("a.txt", "y")
+        again.commit()
+    assert sorted(p.name for p in out.iterdir()) == ["a.txt"]
 
 
 # ------------------------------------------------------------- environment and start-up
