@@ -21,6 +21,7 @@ bound proves the linear optimum and then the quadratic optimum at that linear va
 
 from __future__ import annotations
 
+import itertools
 import os
 import time
 from collections.abc import Callable
@@ -48,8 +49,7 @@ from placer.search._moments import (
 from placer.search._problem import LINEAR_REL, Keys, Problem, best_of, compare, progressed
 
 __all__ = ["SearchResult", "search", "n_restarts", "MOVES_PER_ORBIT", "QUIET_CHAINS",
-           "MAX_CHAINS",
-           "EXACT_MAX_ORBITS", "EXACT_MAX_ASSIGNMENTS"]
+           "MAX_CHAINS", "EXACT_MAX_ORBITS", "EXACT_MAX_ASSIGNMENTS"]
 
 IntArray = NDArray[np.int64]
 
@@ -73,6 +73,7 @@ MAX_CHAINS = 12
 RESTARTS_PER_S = 5
 MAX_RESTARTS = 40
 RESTART_MOVES_PER_ORBIT = 16_000
+_RESTART_STAGES = ("linear", "quadratic", "order3", "order4")
 #: Branch and bound runs on cores with at most this many free orbits and assignments;
 #: up to EXACT_ALWAYS assignments it runs to the end (or the time limit), beyond that
 #: within a budget of nodes, so that whether it finishes does not depend on the machine.
@@ -138,31 +139,40 @@ def _stage_plan(prob: Problem) -> list[str]:
     return plan
 
 
-def _chain(comp: Compiled, dev_of: IntArray, moves: int, seed: int, deadline: float,
-           floor: float, run: _Run, skip_linear: bool = False,
-           fixed: dict[str, float] | None = None) -> IntArray:
-    """One pass of the stages on a copy of ``dev_of``; returns the result."""
+def _stages(comp: Compiled, dev: IntArray, stages: list[str], moves: Callable[[str], int],
+            rng: np.random.Generator, deadline: float, floor: float, run: _Run,
+            caps: NDArray[np.float64], **anneal: Any) -> None:
+    """Run ``stages`` in order in place on ``dev``, each capping the key it minimised for
+    the stages after it; a stage given 0 moves only measures its key."""
     prob = comp.prob
-    dev = dev_of.copy()
-    caps = caps_none()
-    for name, value in (fixed or {}).items():
-        caps[STAGE[name]] = value
-    rng = np.random.default_rng(seed)
-    for stage in _stage_plan(prob):
-        if stage in (fixed or {}):
-            continue
-        if stage == "linear" and skip_linear:
+    for stage in stages:
+        n = moves(stage)
+        if n == 0:
             res = run_stage(comp, dev, stage, 0, 0, deadline, caps)
         else:
-            res = run_stage(comp, dev, stage, moves, int(rng.integers(1 << 62)), deadline,
-                            caps, floor=floor if stage == "linear" else -1.0,
-                            field=stage == "sigma")
+            res = run_stage(comp, dev, stage, n, int(rng.integers(1 << 62)), deadline, caps,
+                            floor=floor if stage == "linear" else -1.0,
+                            field=stage == "sigma", **anneal)
         run.moves += res.tried
         run.note(res.status)
         rel = LINEAR_REL if stage == "linear" else prob.relative_tie
         caps[STAGE[stage]] = _cap(res.keys[STAGE[stage]], rel)
         if res.status:
             break
+
+
+def _chain(comp: Compiled, dev_of: IntArray, moves: int, seed: int, deadline: float,
+           floor: float, run: _Run, skip_linear: bool = False,
+           fixed: dict[str, float] | None = None) -> IntArray:
+    """One pass of the stages on a copy of ``dev_of``; returns the result. ``fixed``
+    stages are not run, their keys capped at the values given."""
+    dev = dev_of.copy()
+    caps = caps_none()
+    for name, value in (fixed or {}).items():
+        caps[STAGE[name]] = value
+    plan = [st for st in _stage_plan(comp.prob) if st not in (fixed or {})]
+    _stages(comp, dev, plan, lambda st: 0 if st == "linear" and skip_linear else moves,
+            np.random.default_rng(seed), deadline, floor, run, caps)
     return dev
 
 
@@ -222,21 +232,11 @@ def _restart(comp: Compiled, rng: np.random.Generator, deadline: float, floor: f
     """The linear, quadratic and higher-order stages from a random state, with the
     restart's smoother energy and three-for-three exchanges."""
     dev = random_start(comp, rng)
+    plan = list(itertools.takewhile(lambda st: st in _RESTART_STAGES, _stage_plan(comp.prob)))
     moves = RESTART_MOVES_PER_ORBIT * comp.n_orb
-    caps = caps_none()
-    for stage in _stage_plan(comp.prob):
-        if stage not in ("linear", "quadratic", "order3", "order4"):
-            break
-        res = run_stage(comp, dev, stage, moves // 10 if stage == "linear" else moves,
-                        int(rng.integers(1 << 62)), deadline, caps,
-                        floor=floor if stage == "linear" else -1.0,
-                        smoothing=RESTART_SMOOTHING, three_share=RESTART_THREE_SHARE)
-        run.moves += res.tried
-        run.note(res.status)
-        rel = LINEAR_REL if stage == "linear" else comp.prob.relative_tie
-        caps[STAGE[stage]] = _cap(res.keys[STAGE[stage]], rel)
-        if res.status:
-            break
+    _stages(comp, dev, plan, lambda st: moves // 10 if st == "linear" else moves, rng,
+            deadline, floor, run, caps_none(), smoothing=RESTART_SMOOTHING,
+            three_share=RESTART_THREE_SHARE)
     return dev
 
 
