@@ -388,7 +388,8 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
     return Arrangement(
         pattern=pattern, grade=grade, routing=routing, keys=best.keys, method=best.method,
         core_shape=(rows, cols),
-        shape_reason=_shape_reason(spec, tried, best, len(shapes) - len(tried)),
+        shape_reason=_shape_reason(spec, tried, best, len(shapes) - len(tried),
+                                   interrupted),
         linear_bound_um=lin_bound,
         proven=out.proven if out is not None and best.method == out.method else "",
         stopped=stopped, elapsed_s=time.monotonic() - t0,
@@ -399,9 +400,11 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
     )
 
 
-def _shape_reason(spec: Spec, tried: list[_Tried], best: _Tried, untried: int = 0) -> str:
-    late = (f"; {untried} more shape{'s' if untried > 1 else ''} not tried: the time limit "
-            "was spent" if untried else "")
+def _shape_reason(spec: Spec, tried: list[_Tried], best: _Tried, untried: int = 0,
+                  interrupted: bool = False) -> str:
+    why = "the run was interrupted" if interrupted else "the time limit was spent"
+    late = (f"; {untried} more shape{'s' if untried > 1 else ''} not tried: {why}"
+            if untried else "")
     if len(tried) == 1:
         r, c = tried[0].shape
         given = spec.array.rows is not None or spec.array.columns is not None

@@ -477,6 +477,37 @@ def test_interrupt_keeps_the_best_so_far():
     assert np.array_equal(np.bincount(out.assign[out.assign >= 0]), prob.counts)
 
 
+def test_an_interrupt_seen_by_the_compiled_loop_stops_the_second_worker_at_once(monkeypatch):
+    """The compiled loop takes Ctrl-C as a status (it clears the signal); the worker
+    process ignores Ctrl-C and would run on to its deadline, so the parent must stop it
+    rather than wait. Here the worker would take two minutes and the loop reports an
+    interrupt in its first stage."""
+    import dataclasses
+    import time
+
+    from placer.search import _driver
+
+    real = _driver.run_stage
+
+    def interrupted_stage(*args, **kwargs):
+        return dataclasses.replace(real(*args, **kwargs), status=2)
+
+    def slow_worker(send, *args):
+        import signal
+
+        signal.signal(signal.SIGINT, signal.SIG_IGN)
+        time.sleep(120)
+
+    monkeypatch.setattr(_driver, "_worker", slow_worker)
+    monkeypatch.setattr(_driver, "run_stage", interrupted_stage)
+    t0 = time.monotonic()
+    out = search(Problem((1, 1, 2, 4, 8, 16, 32, 64), 8, 16), seed=0, time_limit_s=600,
+                 workers=2)
+    assert out.stopped == "interrupted"
+    assert time.monotonic() - t0 < 60
+    assert np.array_equal(np.bincount(out.assign[out.assign >= 0]), (1, 1, 2, 4, 8, 16, 32, 64))
+
+
 def test_time_limit_is_reported_when_it_cuts_the_search():
     prob = Problem((1, 1, *(2 ** b for b in range(1, 12))), 64, 64)
     out = search(prob, seed=0, time_limit_s=0.2)

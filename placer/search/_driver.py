@@ -322,6 +322,10 @@ def search(prob: Problem, *, seed: int = 0, time_limit_s: float = 60.0,
             child[0].start()
             send.close()
         found += _chains(comp, start, seeds[0], deadline, floor, progress, run, restarts)
+        if run.status == 2:
+            # interrupted: the worker ignores Ctrl-C and would run on to its deadline;
+            # it is stopped (finally, below) and the parent's best so far is kept
+            raise KeyboardInterrupt
         if child is not None:
             proc, recv = child
             try:
