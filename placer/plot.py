@@ -12,6 +12,7 @@ References
 
 from __future__ import annotations
 
+import textwrap
 from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
@@ -471,8 +472,10 @@ def save_budget(b: Any, name: str, paths: Sequence[Path], seed: int = 0,
     if not b.lines:
         axes[0].text(0.5, 0.5, "one device: no ratio to budget", ha="center", va="center",
                      transform=axes[0].transAxes)
-    fig.suptitle(f"{name}: electrical budget (model estimates; Monte Carlo over random "
-                 "gradient direction, dashed: the tolerance)", fontsize=10)
+    # wrapped to the figure's width (about 13 characters an inch at 10 pt)
+    fig.suptitle(textwrap.fill(f"{name}: electrical budget (model estimates; Monte Carlo "
+                               "over random gradient direction, dashed: the tolerance)",
+                               int(4.0 * ncols * 13)), fontsize=10)
     _save(fig, paths)
 
 
@@ -523,7 +526,6 @@ def save_sensitivity(pattern: Pattern, pitch_um: tuple[float, float], units: Seq
     ax.set_aspect("equal")
     ax.set_xlabel("x (um)")
     ax.set_ylabel("y (um)")
-    import textwrap
 
     what = pair.replace(" under the ", " error under the ", 1) if " under the " in pair \
         else f"{pair} error"
