@@ -266,10 +266,13 @@ def grade(layout: Path, spec_path: Path | None, as_json: bool, budget_plot: Path
     else:
         click.echo(format_grade(result))
         if sens:
+            # positions in the file's own frame, to find the unit in the layout
+            frame = {"gds": " (x, y in the GDSII's coordinates)",
+                     "csv": " (x, y in the CSV's coordinates)"}.get(rec.fmt, "")
             top = ", ".join(f"{u.device} at row {u.row} col {u.col} "
                             f"({u.x_um + rec.origin_um[0]:.4g}, {u.y_um + rec.origin_um[1]:.4g}"
                             f" um): {u.contribution_ppm:+.3g} ppm" for u in sens[:3])
-            click.echo(f"Units adding most to {worst_pair}: {top}")
+            click.echo(f"Units adding most to {worst_pair}{frame}: {top}")
         if bud is not None:
             click.echo("")
             click.echo(format_budget(bud))

@@ -101,3 +101,18 @@ def test_repair_reads_a_csv_export(runner, tmp_path):
     assert result.exit_code == 0, result.output
     assert "Linear worst pair" in result.output
     assert (tmp_path / "r" / "repaired.txt").exists()
+
+
+def test_units_adding_most_are_placed_in_the_input_files_own_frame(runner):
+    """The device table works in the slot grid (centre of the device units); the line of
+    units to look at gives positions in the file's coordinates, and says so. The sample
+    CSV's grid starts at (100, 50) um with a 2.3 x 5.15 um pitch: slot (row 1, col 1) is
+    at (102.3, 44.85) um there."""
+    out = runner.invoke(cli, ["grade", "samples/bias_mirror_hand.csv", "--spec",
+                              "samples/bias_mirror.toml"]).output
+    line = next(ln for ln in out.splitlines() if ln.startswith("Units adding most"))
+    assert "(x, y in the CSV's coordinates)" in line
+    assert "MREF at row 1 col 1 (102.3, 44.85 um)" in line
+    txt = runner.invoke(cli, ["grade", "samples/bias_mirror_hand.txt"]).output
+    assert "coordinates)" not in next(ln for ln in txt.splitlines()
+                                      if ln.startswith("Units adding most"))
