@@ -379,7 +379,11 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
     best = _pick(tried)
     rows, cols = best.shape
     out = best.result
-    stopped = "interrupted" if interrupted else (out.stopped if out else "converged")
+    # a shape whose share of the time ran out makes the whole run "time limit", even
+    # when the shape chosen converged: with more time the choice could change
+    cut = any(t.result is not None and t.result.stopped == "time limit" for t in tried)
+    stopped = ("interrupted" if interrupted else "time limit" if cut
+               else out.stopped if out else "converged")
     pattern = build_pattern(spec, best.assign, rows, cols)
     grade = grade_pattern(pattern, spec)
     routing = estimate_routing(pattern, spec.array.pitch_um, spec.kind == "mos", _nets(spec))

@@ -517,9 +517,10 @@ def save_sensitivity(pattern: Pattern, pitch_um: tuple[float, float], units: Seq
                      label="contribution to the error (ppm)"
                            + (f"; largest {big:.3g}" if big > lim * 1.0001 else ""))
         if rows * cols <= 400:
-            for u in units:
+            # white names on the darkest shades (beyond 60 % of the scale), black elsewhere
+            for u, v in zip(units, vals, strict=True):
                 ax.text(u.col * px, -u.row * py, u.device, ha="center", va="center",
-                        fontsize=7)
+                        fontsize=7, color="white" if abs(v) > 0.6 * lim else "black")
     margin = 0.3 * min(px, py)
     ax.set_xlim(-0.5 * px - margin, (cols - 0.5) * px + margin)
     ax.set_ylim(-(rows - 0.5) * py - margin, 0.5 * py + margin)

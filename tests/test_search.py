@@ -445,6 +445,30 @@ def test_arrange_sets_the_restart_count_from_each_shape_share_not_the_clock(monk
     assert seen == [n_restarts(30 / n_shapes)] * n_shapes
 
 
+def test_arrange_reports_a_time_limit_when_any_shape_was_cut(monkeypatch):
+    """The shape chosen may have converged while another shape's share ran out; the run
+    as a whole was cut (more time could change the choice) and must say so."""
+    import dataclasses
+
+    from placer import arrange as arrange_mod
+
+    spec = parse_spec("[devices]\nA = 3\nB = 5\nC = 7\n", "s.toml")
+    assert len(arrange_mod.candidate_shapes(spec)) > 1
+    whole = arrange_mod.arrange(spec, seed=1, time_limit_s=30)
+    assert whole.stopped == "converged"
+    real = arrange_mod.search
+
+    def others_cut(prob, **kw):
+        out = real(prob, **kw)
+        cut = (prob.rows, prob.cols) != whole.core_shape
+        return dataclasses.replace(out, stopped="time limit") if cut else out
+
+    monkeypatch.setattr(arrange_mod, "search", others_cut)
+    out = arrange_mod.arrange(spec, seed=1, time_limit_s=30)
+    assert out.core_shape == whole.core_shape
+    assert out.stopped == "time limit"
+
+
 def test_random_start_keeps_every_count_with_and_without_constraints():
     from placer.search._construct import random_start
     from placer.search._moments import compile_problem
