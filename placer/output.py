@@ -62,16 +62,6 @@ def atomic_write(path: Path, data: str | bytes) -> None:
         raise
 
 
-def _alive(pid: int) -> bool:
-    try:
-        os.kill(pid, 0)
-    except ProcessLookupError:
-        return False
-    except PermissionError:
-        return True
-    return True
-
-
 class OutputSet:
     """The files one run writes to ``out``, staged and committed together.
 

@@ -444,7 +444,8 @@ def save_budget(b: Any, name: str, paths: Sequence[Path], seed: int = 0,
     n = max(len(b.lines), 1)
     ncols = min(n, 3)
     nrows = -(-n // ncols)
-    fig = _figure(4.0 * ncols, 3.3 * nrows + 0.5)
+    width_in = 4.0 * ncols
+    fig = _figure(width_in, 3.3 * nrows + 0.5)
     fig.set_layout_engine("constrained")
     axes = np.atleast_1d(fig.subplots(nrows, ncols, squeeze=False)).ravel()
     index = {d: i for i, d in enumerate(devices)}
@@ -475,7 +476,7 @@ def save_budget(b: Any, name: str, paths: Sequence[Path], seed: int = 0,
     # wrapped to the figure's width (about 13 characters an inch at 10 pt)
     fig.suptitle(textwrap.fill(f"{name}: electrical budget (model estimates; Monte Carlo "
                                "over random gradient direction, dashed: the tolerance)",
-                               int(4.0 * ncols * 13)), fontsize=10)
+                               int(width_in * 13)), fontsize=10)
     _save(fig, paths)
 
 
