@@ -51,7 +51,8 @@ def main() -> None:
         sys.exit(1)
     from placer.cli import cli  # numpy, matplotlib, scipy ...
 
-    signal.signal(signal.SIGINT, signal.default_int_handler)
+    # the quiet exit stays through argument parsing; each command takes Ctrl-C over
+    # (as KeyboardInterrupt) when its own body starts
     try:
         cli(prog_name="placer")
     finally:

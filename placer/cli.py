@@ -88,6 +88,10 @@ def _user_errors(func: F) -> F:
     def wrapper(*args: Any, **kwargs: Any) -> Any:
         import warnings
 
+        # until here (imports, argument parsing) Ctrl-C ends the process quietly with 130;
+        # from here it is a KeyboardInterrupt the command handles (Python runs a pending
+        # handler before it installs a new one, so none falls between the two)
+        signal.signal(signal.SIGINT, signal.default_int_handler)
         try:
             # overflow and 0/0 inside a model are handled where they matter (figures are
             # checked finite before they are written); numpy's warnings are not for users

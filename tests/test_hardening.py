@@ -259,9 +259,10 @@ def test_a_bad_source_date_epoch_is_one_line_before_anything_runs(tmp_path, valu
 
 
 def test_an_interrupt_during_start_up_ends_quietly(tmp_path):
-    """SIGINT within the first moments (while numpy and matplotlib import). One that lands
-    in the interpreter's own start-up, before the handler is in place (some 20 ms: the
-    package's three small start-up modules at most), is Python's to report."""
+    """SIGINT within the first moments (while numpy and matplotlib import, and while the
+    command line is parsed). One that lands in the interpreter's own start-up, before the
+    handler is in place (some 20 ms: the package's three small start-up modules at most),
+    is Python's to report."""
     spec = _spec(tmp_path, MIRROR)
     for delay in (0.02, 0.05, 0.1, 0.15, 0.3):
         p = subprocess.Popen([sys.executable, "-m", "placer", "arrange", str(spec), "--out",
@@ -270,6 +271,11 @@ def test_an_interrupt_during_start_up_ends_quietly(tmp_path):
         time.sleep(delay)
         p.send_signal(signal.SIGINT)
         _, err = p.communicate(timeout=120)
+        if p.returncode == -signal.SIGINT and not err:
+            # on a busy machine the signal can come before the interpreter has any handler:
+            # the system's default ends the process, before placer's code has run
+            assert not (tmp_path / f"o{delay}").exists()
+            continue
         if "Traceback" in err:                    # the interpreter's start-up: Python's
             frames = [ln for ln in err.splitlines() if f"{os.sep}placer{os.sep}" in ln]
             start = ("__init__.py", "__main__.py", "_entry.py")
