@@ -78,6 +78,8 @@ class Arrangement:
     candidates: tuple[Candidate, ...] = field(default=())
     solver: dict[str, Any] | None = None
     front_reference: str = ""
+    #: the spec at the pitch the arrangement was scored at (and is drawn at)
+    spec: Spec | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready summary (the grade and routing in full)."""
@@ -102,6 +104,7 @@ class Arrangement:
                             "keys": asdict(c.keys), "source": c.source}
                            for c in self.candidates],
             "candidates_against": self.front_reference or None,
+            "pitch_um": list(self.spec.array.pitch_um) if self.spec is not None else None,
         }
 
 
@@ -281,12 +284,38 @@ class _Tried:
     method: str
     baselines: dict[str, tuple[IntArray, Keys]]
     solver: dict[str, Any] | None = None
+    spec: Spec | None = None
+
+
+#: Maps an arrangement and a spec to the spec at the pitch that arrangement's routing needs.
+PitchFit = Callable[[Pattern, Spec], Spec]
+
+
+def default_fit(pattern: Pattern, spec: Spec) -> Spec:
+    """The pitch placer's generic cells and routing need for ``pattern``."""
+    from placer.pitch import fitted
+
+    return fitted(pattern, spec)
+
+
+def _shape_spec(spec: Spec, rows: int, cols: int, fit: PitchFit | None) -> Spec:
+    """The spec at the pitch a shape's routing is expected to need: fitted to the routing
+    of a textbook arrangement of the shape (the tracks a channel needs depend little on
+    the arrangement), unless the spec gives its pitch."""
+    if fit is None or spec.array.pitch_given:
+        return spec
+    prob = problem_for(spec, rows, cols)
+    probe = build_pattern(spec, baselines.BASELINES["mirrored"](prob), rows, cols)
+    return fit(probe, spec)
 
 
 def _run_shape(spec: Spec, rows: int, cols: int, method: str, seed: int, deadline: float,
-               share_s: float, progress: Callable[[str, Keys], None] | None) -> _Tried:
+               share_s: float, progress: Callable[[str, Keys], None] | None,
+               fit: PitchFit | None = None) -> _Tried:
     import time
+    from dataclasses import replace
 
+    spec = _shape_spec(spec, rows, cols, fit)
     prob = problem_for(spec, rows, cols)
     base = {name: (a, keys_of(prob, a)) for name, fn in baselines.BASELINES.items()
             for a in [fn(prob)]}
@@ -294,10 +323,10 @@ def _run_shape(spec: Spec, rows: int, cols: int, method: str, seed: int, deadlin
     if method == "milp":
         assign, facts = baselines.milp(prob, time_limit_s)
         return _Tried((rows, cols), prob, None, assign, keys_of(prob, assign),
-                      "MILP (scipy HiGHS, moment matching)", base, facts)
+                      "MILP (scipy HiGHS, moment matching)", base, facts, spec)
     if method != "auto":
         assign, keys = base[method]
-        return _Tried((rows, cols), prob, None, assign, keys, method, base)
+        return _Tried((rows, cols), prob, None, assign, keys, method, base, spec=spec)
     # the deadline is a clock reading; the restart count comes from the shape's fixed share
     out = search(prob, seed=seed, time_limit_s=time_limit_s, progress=progress,
                  restarts=n_restarts(share_s))
@@ -305,7 +334,7 @@ def _run_shape(spec: Spec, rows: int, cols: int, method: str, seed: int, deadlin
     for name, (a, k) in base.items():            # never worse than a textbook arrangement
         if compare(prob, k, keys) < 0:
             assign, keys, label = a, k, f"{name} (better than the search here)"
-    return _Tried((rows, cols), prob, out, assign, keys, label, base)
+    return replace(_Tried((rows, cols), prob, out, assign, keys, label, base), spec=spec)
 
 
 def _holes(t: _Tried) -> bool:
@@ -326,7 +355,8 @@ def _pick(tried: list[_Tried]) -> _Tried:
 
 def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
             time_limit_s: float = DEFAULT_TIME_LIMIT_S, n_candidates: int = 0,
-            progress: Callable[[str, Keys], None] | None = None) -> Arrangement:
+            progress: Callable[[str, Keys], None] | None = None,
+            fit: PitchFit | None = default_fit) -> Arrangement:
     """Search the spec's shapes for the best arrangement and score it in full.
 
     Parameters
@@ -343,6 +373,12 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
         Shared by the core shapes tried.
     n_candidates : int
         Also return up to this many arrangements on the error / routing front.
+    fit : callable, optional
+        Gives the spec at the pitch an arrangement's routing needs (default: placer's
+        generic cells, :func:`placer.pitch.fitted`); None keeps the spec's pitch. Unless
+        the spec gives a pitch, each core shape is searched at the pitch fitted to a
+        textbook arrangement of it, and the result is scored at the pitch fitted to its
+        own routing (``Arrangement.spec``), the pitch it is drawn at.
 
     Examples
     --------
@@ -352,6 +388,7 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
     (0.0, 'linear and quadratic')
     """
     import time
+    from dataclasses import replace
 
     shapes = candidate_shapes(spec)
     if not shapes:
@@ -366,7 +403,7 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
             break                     # the time is spent: the shapes left are not tried
         try:
             t = _run_shape(spec, rows, cols, method, seed, t0 + (i + 1) * share, share,
-                           progress)
+                           progress, fit)
         except KeyboardInterrupt:
             interrupted = True
             break
@@ -384,23 +421,40 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
     cut = any(t.result is not None and t.result.stopped == "time limit" for t in tried)
     stopped = ("interrupted" if interrupted else "time limit" if cut
                else out.stopped if out else "converged")
-    pattern = build_pattern(spec, best.assign, rows, cols)
+    searched = best.spec if best.spec is not None else spec
+    pattern = build_pattern(searched, best.assign, rows, cols)
+    final = fit(pattern, searched) if fit is not None else searched
+    proven = out.proven if out is not None and best.method == out.method else ""
+    lin_bound = out.linear_bound_um if out is not None else float("nan")
+    if final.array.pitch_um != searched.array.pitch_um:
+        # its own routing needs another pitch than the probe's: score it at that one; a
+        # proof or bound at the searched pitch need not hold at it
+        prob = problem_for(final, rows, cols)
+        best = replace(best, prob=prob, keys=keys_of(prob, best.assign), spec=final,
+                       baselines={n: (a, keys_of(prob, a))
+                                  for n, (a, _) in best.baselines.items()})
+        lin_bound = float("nan")
+        # a zero stays the least possible at any pitch
+        if best.keys.linear_um != 0:
+            proven = ""
+        elif proven.startswith("linear and quadratic") and best.keys.quadratic_ppm != 0:
+            proven = "linear"
+    spec = final
     grade = grade_pattern(pattern, spec)
     routing = estimate_routing(pattern, spec.array.pitch_um, spec.kind == "mos", _nets(spec))
     cands, against = _candidates(spec, best, n_candidates) if n_candidates else ((), "")
-    lin_bound = out.linear_bound_um if out is not None else float("nan")
     return Arrangement(
         pattern=pattern, grade=grade, routing=routing, keys=best.keys, method=best.method,
         core_shape=(rows, cols),
         shape_reason=_shape_reason(spec, tried, best, len(shapes) - len(tried),
                                    interrupted),
         linear_bound_um=lin_bound,
-        proven=out.proven if out is not None and best.method == out.method else "",
+        proven=proven,
         stopped=stopped, elapsed_s=time.monotonic() - t0,
         moves=sum(t.result.moves for t in tried if t.result),
         nodes=sum(t.result.nodes for t in tried if t.result),
         baselines={name: k for name, (_, k) in best.baselines.items()},
-        candidates=cands, solver=best.solver, front_reference=against,
+        candidates=cands, solver=best.solver, front_reference=against, spec=spec,
     )
 
 

@@ -200,6 +200,7 @@ class MirrorLine:
     dominant: str
     cure: str
     mc_std_pct: float | None = None
+    wiring_pct: float | None = None     # None: not routed (grade of a pattern alone)
 
 
 @dataclass(frozen=True)
@@ -236,9 +237,13 @@ class DacBudget:
     mc_inl_p99_lsb: tuple[float, ...]
     mc_dnl_p99_lsb: tuple[float, ...]
     assumptions: dict[str, Any]
+    wiring_inl_lsb: float | None = None     # None: not routed
+    wiring_dnl_lsb: float | None = None
 
 
 _CURES = {
+    "wiring": "wider or doubled shared lines, or equal paths to the pins (layout.parasitics "
+              "in report.json shows each terminal's resistance)",
     "gradient": "a better arrangement (common centroid, finer interdigitation)",
     "clm": "a longer channel (lower lambda) or a cascode that equalises the drain voltages",
     "random": "more area (larger W x L per unit, or more units in parallel)",
@@ -258,12 +263,20 @@ def check_electrical(spec: Spec) -> ElectricalSpec:
     return e
 
 
-def budget(pattern: Pattern, spec: Spec, grade: Grade) -> MirrorBudget | DacBudget:
-    """The electrical budget of ``pattern`` (in the spec's device order) for its kind."""
+def budget(pattern: Pattern, spec: Spec, grade: Grade, parasitics: Any = None
+           ) -> MirrorBudget | DacBudget:
+    """The electrical budget of ``pattern`` (in the spec's device order) for its kind;
+    with the ``parasitics`` of its routed block (:func:`placer.parasitics.extract`), its
+    wiring term too (:mod:`placer.wiring_error`)."""
     e = check_electrical(spec)
+    wiring = None
+    if parasitics is not None:
+        from placer.wiring_error import wiring_effect
+
+        wiring = wiring_effect(spec, parasitics, e)
     if spec.kind == "cap":
-        return _dac_budget(pattern, spec, e)
-    return _ratio_budget(pattern, spec, grade, e)
+        return _dac_budget(pattern, spec, e, wiring)
+    return _ratio_budget(pattern, spec, grade, e, wiring)
 
 
 def _pair(grade: Grade, a: str, b: str) -> Any:
@@ -273,8 +286,8 @@ def _pair(grade: Grade, a: str, b: str) -> Any:
     raise KeyError((a, b))
 
 
-def _ratio_budget(pattern: Pattern, spec: Spec, grade: Grade, e: ElectricalSpec
-                  ) -> MirrorBudget:
+def _ratio_budget(pattern: Pattern, spec: Spec, grade: Grade, e: ElectricalSpec,
+                  wiring: Any = None) -> MirrorBudget:
     ref = e.reference or spec.devices[0]
     mos = spec.kind == "mos"
     area = {n: c * spec.unit.area_um2 for n, c in zip(spec.devices, spec.counts, strict=True)}
@@ -311,17 +324,26 @@ def _ratio_budget(pattern: Pattern, spec: Spec, grade: Grade, e: ElectricalSpec
         corr = 1e-4 * p.correlated_sigma_ppm
         sigma = sqrt(white ** 2 + corr ** 2)
         k = e.k_sigma
-        low = clm - grad - quad - k * sigma
-        high = clm + grad + quad + k * sigma
-        offset = abs(clm) + grad + quad
-        terms = {"gradient": grad + quad, "clm": abs(clm), "random": k * sigma}
+        wire = None
+        if wiring is not None:
+            # the output's error against the reference. mos: first order, the difference
+            # (the reference's own shift moves the shared gate, which every output
+            # follows); res: resistances add, so the ratio is exact
+            a, b = wiring.relative[name], wiring.relative[ref]
+            wire = 100.0 * ((a - b) if mos else (1.0 + a) / (1.0 + b) - 1.0)
+        fixed = clm + (wire or 0.0)          # signed systematic parts
+        low = fixed - grad - quad - k * sigma
+        high = fixed + grad + quad + k * sigma
+        offset = abs(fixed) + grad + quad
+        terms = {"gradient": grad + quad, "clm": abs(clm), "random": k * sigma,
+                 "wiring": abs(wire or 0.0)}
         dominant = max(terms, key=lambda t: terms[t])
         lines.append(MirrorLine(
             device=name, ideal_ratio=count[name] / count[ref], gradient_pct=grad,
             quadratic_pct=quad, clm_pct=clm,
             random_sigma_pct=sigma, total_low_pct=low, total_high_pct=high,
             within_tolerance=within_tolerance(offset, sigma, e.tolerance_pct),
-            dominant=dominant, cure=_CURES[dominant], mc_std_pct=mc_std,
+            dominant=dominant, cure=_CURES[dominant], mc_std_pct=mc_std, wiring_pct=wire,
         ))
     assumptions: dict[str, Any] = {"k_sigma": e.k_sigma, "tolerance_pct": e.tolerance_pct,
                                    "gradient": spec.gradient.described,
@@ -337,6 +359,9 @@ def _ratio_budget(pattern: Pattern, spec: Spec, grade: Grade, e: ElectricalSpec
         })
     else:
         assumptions.update({"a_param_pct_um": spec.mismatch.a_param_pct_um})
+    if wiring is not None:
+        assumptions.update({"wiring": wiring.counted, "wiring_missing": wiring.missing,
+                            "unit_current_ua": e.unit_current_ua, "unit_ohm": e.unit_ohm})
     return MirrorBudget(spec.kind, ref, e.k_sigma, e.tolerance_pct, tuple(lines), assumptions)
 
 
@@ -392,7 +417,8 @@ def _upper_percentile(top: FloatArray, n: int, q: float) -> FloatArray:
     return np.asarray(a_lo + (pos - lo) * (a_hi - a_lo), dtype=float)
 
 
-def _dac_budget(pattern: Pattern, spec: Spec, e: ElectricalSpec) -> DacBudget:
+def _dac_budget(pattern: Pattern, spec: Spec, e: ElectricalSpec, wiring: Any = None
+                ) -> DacBudget:
     names = list(spec.devices)
     covered = spec.budget_devices()
     term = e.termination
@@ -453,6 +479,11 @@ def _dac_budget(pattern: Pattern, spec: Spec, e: ElectricalSpec) -> DacBudget:
         dnl_w.append(np.abs(d_mc).max(-1))
         top_i.add(np.abs(i_mc))
         top_d.add(np.abs(d_mc))
+    w_inl = w_dnl = None
+    if wiring is not None:
+        werr = np.array([wiring.relative[n] for n in names])
+        wi, wd = inl_of(werr[None, :])
+        w_inl, w_dnl = float(np.abs(wi).max()), float(np.abs(wd).max())
     iw = np.concatenate(inl_w) if inl_w else np.zeros(0)
     dw = np.concatenate(dnl_w) if dnl_w else np.zeros(0)
     p99, p99_d = top_i.value(), top_d.value()
@@ -475,5 +506,8 @@ def _dac_budget(pattern: Pattern, spec: Spec, e: ElectricalSpec) -> DacBudget:
                      "bowl_hessian_norm_ppm_per_um2": spec.gradient.quadratic_ppm_per_um2,
                      "correlated_sigma_ppm": c.sigma_ppm, "a_param_pct_um":
                      spec.mismatch.a_param_pct_um, "unit_area_um2": spec.unit.area_um2,
-                     "mc_seed": e.mc_seed},
+                     "mc_seed": e.mc_seed,
+                     **({"wiring": wiring.counted, "wiring_missing": wiring.missing,
+                         "unit_cap_ff": e.unit_cap_ff} if wiring is not None else {})},
+        wiring_inl_lsb=w_inl, wiring_dnl_lsb=w_dnl,
     )

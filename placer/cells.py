@@ -25,6 +25,7 @@ from placer.errors import PlacerError, shown
 __all__ = [
     "TemplateError",
     "Rect",
+    "Exit",
     "Terminal",
     "UnitCell",
     "Channel",
@@ -35,7 +36,9 @@ __all__ = [
     "shipped_text",
     "unit_cell",
     "channel",
+    "first_track_above",
     "min_pitch",
+    "down_only",
     "snap",
     "DB_UNIT_UM",
 ]
@@ -98,14 +101,60 @@ class Rect:
 
 
 @dataclass(frozen=True)
+class Exit:
+    """Where a vertical metal2 stub may leave a terminal's pad for a routing channel:
+    ``side`` "down" (the channel below the row) or "up" (the channel above it), the point
+    the stub starts from and whether a via1 joins it to a metal1 pad there."""
+
+    side: str
+    x: float
+    y: float
+    via: bool
+
+    def moved(self, dx: float, dy: float, flip: bool = False) -> Exit:
+        """The exit reflected left to right (if ``flip``) and then moved."""
+        return Exit(self.side, snap((-self.x if flip else self.x) + dx), snap(self.y + dy),
+                    self.via)
+
+
+@dataclass(frozen=True)
 class Terminal:
-    """A unit terminal: its pad, and where the stub to the channel leaves it."""
+    """A unit terminal: its pad, and the exits a stub to a channel may take (the first
+    one leaves downwards)."""
 
     name: str
     pad: Rect
-    exit_x: float
-    exit_y: float
-    via: bool
+    exits: tuple[Exit, ...]
+    shapes: tuple[Rect, ...] = ()
+
+    @property
+    def metal(self) -> tuple[Rect, ...]:
+        """Every metal shape of the terminal, its labelled pad first."""
+        return (self.pad,) + tuple(s for s in self.shapes if s != self.pad)
+
+    def exit(self, side: str) -> Exit | None:
+        """The exit on ``side`` ("down" or "up"), or None."""
+        return next((e for e in self.exits if e.side == side), None)
+
+    @property
+    def exit_x(self) -> float:
+        """x of the downward exit."""
+        return self.exits[0].x
+
+    @property
+    def exit_y(self) -> float:
+        """y of the downward exit."""
+        return self.exits[0].y
+
+    @property
+    def via(self) -> bool:
+        """Whether the downward exit needs a via1 (a metal1 pad)."""
+        return self.exits[0].via
+
+
+def down_only(name: str, pad: Rect, x: float, y: float, via: bool) -> Terminal:
+    """A terminal whose only exit leaves downwards from (x, y)."""
+    return Terminal(name, pad, (Exit("down", x, y, via),))
 
 
 @dataclass(frozen=True)
@@ -145,7 +194,14 @@ class Rules:
 
 @dataclass(frozen=True)
 class UnitCell:
-    """One unit's drawing: shapes and terminals about its centre, and its extents."""
+    """One unit's drawing: shapes and terminals about its centre, and its extents.
+
+    ``dummy_shapes`` draw the dummy unit: the same device with every terminal joined into
+    one net (a tie), which leaves by ``dummy_exits``; a column of dummies is joined by a
+    vertical spine at ``spine`` = (x, y of the via1 onto the tie, or None when the spine
+    lies on the tie's own metal, layer of the spine). ``strap_y`` is, for a capacitor
+    whose top plates a row strap joins, the strap's height (None: no strap).
+    """
 
     kind: str
     shapes: tuple[Rect, ...]
@@ -157,6 +213,11 @@ class UnitCell:
     min_pitch_x: float
     diffusion: tuple[float, float, float, float] | None
     source: str
+    dummy_shapes: tuple[Rect, ...] | None = None
+    dummy_exits: tuple[Exit, ...] = ()
+    spine: tuple[float, float | None, str] | None = None
+    strap_y: float | None = None
+    metal2_bottom: float | None = None
 
     def terminal(self, name: str) -> Terminal:
         """The terminal called ``name``."""
@@ -334,40 +395,77 @@ def _mos(w: float, length: float, pitch_x: float | None, r: Rules) -> UnitCell:
         pads[name] = Rect("metal1", snap(x - strap_w / 2), s0, snap(x + strap_w / 2), s1)
     pads["gate"] = _square("metal1", 0.0, yg, pad_m1)
     shapes.extend(pads.values())
-    terminals = (Terminal("gate", pads["gate"], 0.0, yg, True),
-                 Terminal("source", pads["source"], -xc, yv, True),
-                 Terminal("drain", pads["drain"], xc, yv, True))
+    terminals = (down_only("gate", pads["gate"], 0.0, yg, True),
+                 down_only("source", pads["source"], -xc, yv, True),
+                 down_only("drain", pads["drain"], xc, yv, True))
     bottom = snap(min(yg - pad_m1 / 2, yg - c / 2 - r.gate_enclosure))
     top = snap(w / 2 + r.gate_extension)
+    # the dummy finger: source, drain and gate joined in metal1 (a bar across the foot of
+    # the straps, down to the gate pad), leaving through the gate pad's via
+    tie = (Rect("metal1", snap(-xc - strap_w / 2), s0, snap(xc + strap_w / 2),
+                snap(s0 + strap_w)),
+           Rect("metal1", snap(-pad_m1 / 2), snap(yg), snap(pad_m1 / 2), snap(s0 + strap_w)))
     return UnitCell("mos", tuple(shapes), terminals, (-xd, bottom, xd, top), s1,
                     snap(yg - pad_m1 / 2), snap(yv + land2 / 2), min_px,
-                    (-xd, snap(-w / 2), xd, snap(w / 2)), r.source)
+                    (-xd, snap(-w / 2), xd, snap(w / 2)), r.source,
+                    dummy_shapes=tuple(shapes) + tie,
+                    dummy_exits=(Exit("down", 0.0, yg, True),),
+                    spine=(0.0, yg, "metal2"))
 
 
 def _cap(w: float, length: float, pitch_x: float | None, r: Rules) -> UnitCell:
-    """Top plate (metal2, W x L) over a larger bottom plate (metal1) whose ear carries a
-    via1 below the top plate; the top plate's own stub leaves its lower edge."""
-    pm, sw, land1, land2, m2s = r.plate_margin, r.stub_width, r.land1, r.land2, r.metal2_space
-    a = _up(max(w / 4, (sw / 2 + land2 / 2 + m2s) / 2))
-    if w < 2 * a + sw:
-        raise _too_small("width W", w, 2 * ((sw / 2 + land2 / 2 + m2s) / 2) + sw, r)
-    if length < land2:
-        raise _too_small("length L", length, land2, r)
-    yv = snap(-length / 2 - m2s - land2 / 2)
-    top = Rect("metal2", snap(-w / 2), snap(-length / 2), snap(w / 2), snap(length / 2))
-    bottom = Rect("metal1", snap(-w / 2 - pm), snap(-length / 2 - pm), snap(w / 2 + pm),
-                  snap(length / 2 + pm))
-    ear = Rect("metal1", snap(a - land1 / 2), snap(yv - land1 / 2), snap(a + land1 / 2),
-               snap(-length / 2))
-    shapes = (bottom, ear, top)
-    terminals = (Terminal("top", top, -a, snap(-length / 2), False),
-                 Terminal("bottom", bottom, a, yv, True))
-    min_px = _up(max(w + 2 * pm + r.metal1_space, w + m2s, 2 * a + sw + m2s))
-    y_lo = snap(min(yv - land1 / 2, yv - land2 / 2))
+    """Top plate (metal2) over a larger bottom plate (metal1). Two opposite corners of the
+    top plate are notched, and in each notch a via1 may lift the bottom plate to a stub:
+    down from the lower right, up from the upper left. The top plate is drawn tall enough
+    that, less its notches, its area is at least W x L. Where the plate is tall enough, a
+    metal2 strap across the row at ``strap_y`` joins neighbouring top plates (and passes
+    through a corridor cut across each dummy's top plate); otherwise the top plate leaves
+    by a stub of its own."""
+    pm, sw, land2, m2s = r.plate_margin, r.stub_width, r.land2, r.metal2_space
+    notch = _up(land2 + m2s)
+    if w < 2 * notch + m2s:
+        raise _too_small("width W", w, 2 * notch + m2s, r)
+    if length < 2 * notch:
+        raise _too_small("length L", length, 2 * notch, r)
+    tall = _up(length + 2 * notch * notch / w)          # area of W x L despite the notches
+    hx, hy = snap(w / 2), snap(tall / 2)
+    ex, ey = snap(hx - land2 / 2), snap(hy - land2 / 2)   # via centres in the notches
+    mid = Rect("metal2", -hx, snap(-hy + notch), hx, snap(hy - notch))
+    plate = (mid,
+             Rect("metal2", -hx, -hy, snap(hx - notch), snap(-hy + notch)),
+             Rect("metal2", snap(-hx + notch), snap(hy - notch), hx, hy))
+    bottom = Rect("metal1", snap(-hx - pm), snap(-hy - pm), snap(hx + pm), snap(hy + pm))
+    shapes = (bottom, *plate)
+    terminals = (Terminal("top", mid, (Exit("down", -ex, -hy, False),
+                                       Exit("up", ex, hy, False)), plate),
+                 Terminal("bottom", bottom, (Exit("down", ex, -ey, True),
+                                             Exit("up", -ex, ey, True))))
+    min_px = _up(max(w + 2 * pm + r.metal1_space, w + m2s, w - land2 + sw + m2s))
+    # the strap: clear of both notch vias, its corridor in a dummy clear of the centre
+    half = sw / 2 + m2s
+    lo, hi = half + DB_UNIT_UM * 50, hy - max(land2, notch) - half
+    strap = snap((lo + hi) / 2) if hi - lo >= 0 else None
+    if strap is not None:
+        cut0, cut1 = snap(strap - half), snap(strap + half)
+        pieces: tuple[Rect, ...] = (Rect("metal2", -hx, snap(-hy + notch), hx, cut0),
+                  Rect("metal2", -hx, -hy, snap(hx - notch), snap(-hy + notch)),
+                  Rect("metal2", -hx, cut1, hx, snap(hy - notch)),
+                  Rect("metal2", snap(-hx + notch), snap(hy - notch), hx, hy))
+        pieces = tuple(p for p in pieces if p.x1 > p.x0 and p.y1 > p.y0)
+        tie_lo, tie_hi = snap((-hy + notch + cut0) / 2), snap((cut1 + hy - notch) / 2)
+        if hy - notch - cut1 < land2:
+            tie_hi = snap((cut1 + hy) / 2)
+        dummy: tuple[Rect, ...] = (bottom, *pieces, _square("via1", 0.0, tie_lo, r.via1),
+                                   _square("via1", snap(hx / 2), tie_hi, r.via1))
+        spine: tuple[float, float | None, str] | None = (snap(hx / 2), None, "metal2")
+    else:
+        dummy = (bottom, *plate, _square("via1", 0.0, 0.0, r.via1))
+        spine = (0.0, None, "metal2")
     return UnitCell("cap", shapes, terminals,
-                    (snap(-w / 2 - pm), y_lo, snap(w / 2 + pm), snap(length / 2 + pm)),
-                    snap(length / 2 + pm), snap(yv - land1 / 2), snap(length / 2), min_px,
-                    None, r.source)
+                    (snap(-hx - pm), snap(-hy - pm), snap(hx + pm), snap(hy + pm)),
+                    snap(hy + pm), snap(-hy - pm), hy, min_px, None, r.source,
+                    dummy_shapes=dummy, dummy_exits=terminals[1].exits, spine=spine,
+                    strap_y=strap, metal2_bottom=-hy)
 
 
 def _res(w: float, length: float, pitch_x: float | None, r: Rules) -> UnitCell:
@@ -406,19 +504,38 @@ def _res(w: float, length: float, pitch_x: float | None, r: Rules) -> UnitCell:
     min_px = _up(max(head_w + r.gate_space, max(pad_a.x1 - pad_a.x0, pad_b.x1 - pad_b.x0,
                                                  x1 - x0) + r.metal1_space,
                      2 * a + sw + r.metal2_space))
-    terminals = (Terminal("a", pad_a, -a, yt, True), Terminal("b", pad_b, a, yb, True))
+    # each head leaves by a short stub on its own side of the row (a up, b down) or by a
+    # long one past the body to the other side's channel
+    terminals = (Terminal("a", pad_a, (Exit("down", -a, yt, True), Exit("up", -a, yt, True))),
+                 Terminal("b", pad_b, (Exit("down", a, yb, True), Exit("up", a, yb, True))))
     bottom = snap(min(yb - pad_h / 2, -length / 2 - head_h))
     top = snap(max(yt + pad_h / 2, length / 2 + head_h))
+    # the dummy: both heads joined by a metal1 bar over the body
+    bar_w = _up(r.metal1_width)
+    tie = Rect("metal1", snap(-bar_w / 2), pad_b.y0, snap(bar_w / 2), pad_a.y1)
     return UnitCell("res", tuple(shapes), terminals, (snap(x0), bottom, snap(x1), top),
-                    pad_a.y1, pad_b.y0, snap(yt + land2 / 2), min_px, None, r.source)
+                    pad_a.y1, pad_b.y0, snap(yt + land2 / 2), min_px, None, r.source,
+                    dummy_shapes=tuple(shapes) + (tie,),
+                    dummy_exits=(terminals[1].exits[0], terminals[0].exits[1]),
+                    spine=(a, yb, "metal2"), metal2_bottom=snap(yb - land2 / 2))
 
 
 def channel(cell: UnitCell, rules: Rules) -> Channel:
-    """The channel below a row of ``cell``: its first track just clear of the cell."""
+    """The channel below a row of ``cell``: its first track just clear of the cell (its
+    metal1, and the metal2 landing of a via on the track clear of the cell's metal2)."""
     tw = rules.track_width
-    first = snap(cell.metal1_bottom - rules.metal1_space - tw / 2)
-    return Channel(tw, _up(tw + rules.metal1_space), first, rules.stub_width,
+    first = cell.metal1_bottom - rules.metal1_space - tw / 2
+    if cell.metal2_bottom is not None:
+        first = min(first, cell.metal2_bottom - rules.metal2_space - rules.land2 / 2)
+    return Channel(tw, _up(tw + rules.metal1_space), snap(first), rules.stub_width,
                    _up(rules.stub_width + rules.metal2_space), rules.via1)
+
+
+def first_track_above(cell: UnitCell, rules: Rules) -> float:
+    """Centre y of the lowest track of a channel above a row of ``cell`` (the row's
+    centre at 0), clear of the cell's metal1 and metal2."""
+    return _up(max(cell.metal1_top + rules.metal1_space + rules.track_width / 2,
+                   cell.metal2_top + rules.metal2_space + rules.land2 / 2))
 
 
 def min_pitch(cell: UnitCell, rules: Rules, tracks: int) -> tuple[float, float]:
@@ -426,12 +543,18 @@ def min_pitch(cell: UnitCell, rules: Rules, tracks: int) -> tuple[float, float]:
 
     In y the row must hold the cell, then its channel, then clear the next row's cell:
     the lowest track stays one metal1 space above the next row's highest metal1, and its
-    via landings one metal2 space above that row's highest metal2.
+    via landings one metal2 space above that row's highest metal2. With no track the rows
+    only keep their spacing.
     """
     ch = channel(cell, rules)
-    last = ch.track_y(max(tracks, 1) - 1)
-    need_m1 = cell.metal1_top + rules.metal1_space + ch.track_width / 2 - last
-    need_m2 = cell.metal2_top + rules.metal2_space + rules.land2 / 2 - last
+    if tracks <= 0:
+        need_m1 = cell.metal1_top + rules.metal1_space - cell.metal1_bottom
+        bottom2 = cell.metal2_bottom if cell.metal2_bottom is not None else cell.metal2_top
+        need_m2 = cell.metal2_top + rules.metal2_space - bottom2
+    else:
+        last = ch.track_y(tracks - 1)
+        need_m1 = cell.metal1_top + rules.metal1_space + ch.track_width / 2 - last
+        need_m2 = cell.metal2_top + rules.metal2_space + rules.land2 / 2 - last
     x0, y0, x1, y1 = cell.extent
     others = max(rules.values.get("gate_space", 0.0), rules.values.get("diffusion_space", 0.0))
     need_shapes = (y1 - y0) + others

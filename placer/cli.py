@@ -130,14 +130,15 @@ def cli() -> None:
     """
 
 
-def _budget(pattern: Pattern, spec: Spec, grade: Grade, required: bool) -> Any:
+def _budget(pattern: Pattern, spec: Spec, grade: Grade, required: bool,
+            parasitics: Any = None) -> Any:
     """The electrical budget when the spec asks for one (or ``required``), else None."""
     from placer.budget import budget, check_electrical
 
     if spec.electrical is None and not required:
         return None
     check_electrical(spec)
-    return budget(pattern, spec, grade)
+    return budget(pattern, spec, grade, parasitics)
 
 
 def _layout_options(func: F) -> F:
@@ -211,7 +212,12 @@ def _load_graded(path: Path, spec_path: Path | None, *, cell: str | None = None,
                    f"grading with it, not the spec's {spec.array.pitch_um[0]:g} x "
                    f"{spec.array.pitch_um[1]:g} um", err=True)
         spec = replace(spec, array=replace(spec.array, pitch_um=rec.pitch_um, pitch_given=True))
-    return check_against_spec(rec.pattern, spec, str(path)), spec, rec
+    pattern = check_against_spec(rec.pattern, spec, str(path))
+    if not spec.array.pitch_given:
+        from placer.arrange import default_fit
+
+        spec = default_fit(pattern, spec)       # the pitch arrange and draw give it
+    return pattern, spec, rec
 
 
 def _picture_path(path: Path | None) -> None:
@@ -345,16 +351,17 @@ def _gradient_field(spec: Spec, grade: Grade) -> tuple[float, float] | None:
     return (g * float(np.cos(angle)), g * float(np.sin(angle)))
 
 
-_ARRANGE_FILES = ("pattern.txt", "report.json", "pattern.gds", "pattern.png", "pattern.svg",
-                  "budget.png", "candidate-*.txt", "candidate-*.png")
+_ARRANGE_FILES = ("pattern.txt", "report.json", "pattern.gds", "pattern.sp", "pattern.png",
+                  "pattern.svg", "budget.png", "candidate-*.txt", "candidate-*.png")
 
 
 @cli.command()
 @click.argument("spec_path", metavar="SPEC", type=_FILE)
 @click.option("--out", "out_dir", type=_OUT,
               required=True,
-              help="Folder for pattern.txt, report.json, pattern.gds, pattern.png, "
-                   "pattern.svg, budget.png (with [electrical]) and candidate-K.txt/.png.")
+              help="Folder for pattern.txt, report.json, pattern.gds, pattern.sp, "
+                   "pattern.png, pattern.svg, budget.png (with [electrical]) and "
+                   "candidate-K.txt/.png.")
 @click.option("--time-limit", "time_limit", type=_TIME,
               default=60.0, show_default=True,
               help="Safety cap on the search in seconds; the search usually ends sooner.")
@@ -378,28 +385,32 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
     """Search for the arrangement of SPEC's devices with the least gradient error.
 
     Writes the arrangement (pattern.txt), every figure (report.json), the routed GDSII
-    layout (pattern.gds), preview pictures (pattern.png, pattern.svg) and, with an
-    [electrical] table, the budget picture (budget.png).
+    layout (pattern.gds), its SPICE netlist with the wiring (pattern.sp), preview pictures
+    (pattern.png, pattern.svg) and, with an [electrical] table, the budget picture
+    (budget.png).
     """
     from placer import drawing
 
     spec = load_spec(spec_path)
     spec, tools = _tools(spec, template_path, layers_path, unit_gds, unit_cell)
-    names = ["pattern.txt", "report.json", "pattern.gds", "pattern.png", "pattern.svg",
-             *(["budget.png"] if spec.electrical is not None else []),
+    names = ["pattern.txt", "report.json", "pattern.gds", "pattern.sp", "pattern.png",
+             "pattern.svg", *(["budget.png"] if spec.electrical is not None else []),
              *(f"candidate-{i}.{x}" for i in range(1, n_candidates + 1) for x in ("txt", "png"))]
     with OutputSet(out_dir, names, force, _ARRANGE_FILES) as out:
         progress = _Progress(not quiet and sys.stderr.isatty())
         _sigterm_as_interrupt()
         try:
             result = run_arrange(spec, method=method, seed=seed, time_limit_s=time_limit,
-                                 n_candidates=n_candidates, progress=progress)
+                                 n_candidates=n_candidates, progress=progress,
+                                 fit=tools.fit)
         finally:
             progress.done()
+        spec = result.spec or spec           # at the pitch its routing needs
         # the search is over: finish the outputs as one set before honouring a signal
         with _deferred_signals() as caught:
             block = drawing.prepare(result.pattern, spec, tools)
-            bud = _budget(result.pattern, spec, result.grade, required=False)
+            bud = _budget(result.pattern, spec, result.grade, required=False,
+                          parasitics=block.parasitics)
             header = [f"{spec.name}: {result.method}, core {result.core_shape[0]} x "
                       f"{result.core_shape[1]}, seed {seed}",
                       f"linear {result.keys.linear_um:.6g} um, quadratic "
@@ -424,6 +435,9 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
                       "layout": _layout_report(block),
                       "budget": asdict(bud) if bud is not None else None}
             out.write("report.json", json_text(report) + "\n")
+            from placer.netlist import netlist
+
+            out.write("pattern.sp", netlist(spec, block.parasitics))
             drawing.write(block, result.grade, out, "pattern")
             if bud is not None:
                 from placer.plot import save_budget
@@ -433,7 +447,7 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
             # the set is complete: a signal now only shortens the exit, never the report
             click.echo(format_arrangement(result, spec))
             click.echo("")
-            click.echo(format_nets(block.wiring))
+            click.echo(format_nets(block.wiring, area=drawing.area_of(block)))
             if bud is not None:
                 click.echo("")
                 click.echo(format_budget(bud))
@@ -444,11 +458,20 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
 
 
 def _layout_report(block: Any) -> dict[str, Any]:
+    from placer.drawing import area_of
+
     w = block.wiring
+    par = block.parasitics
     return {"size_um": list(w.size_um), "pitch_um": list(block.spec.array.pitch_um),
             "pitch_given": block.spec.array.pitch_given,
             "channel_tracks": w.channel_tracks, "tracks_per_row": list(w.tracks_per_row),
-            "nets": [asdict(n) for n in w.nets]}
+            "area": asdict(area_of(block)),
+            "nets": [asdict(n) for n in w.nets],
+            "parasitics": {
+                "taps": [{"net": t.net, "slot": list(t.slot), "device": t.device,
+                          "terminal": t.terminal, "r_to_pin_ohm": t.r_to_pin_ohm}
+                         for t in par.taps],
+                "couplings": [asdict(c) for c in par.couplings]}}
 
 
 @cli.command()
@@ -473,14 +496,15 @@ def draw(pattern_path: Path, spec_path: Path | None, out_dir: Path, layers_path:
     pattern, spec, _ = _load_graded(pattern_path, spec_path)
     spec, tools = _tools(spec, template_path, layers_path, unit_gds, unit_cell)
     stem = pattern_path.stem if NAME_RE.match(pattern_path.stem) else spec.name
-    grade_ = grade_pattern(pattern, spec)
     block = drawing.prepare(pattern, spec, tools)
+    spec = block.spec                        # at the pitch its routing needs
+    grade_ = grade_pattern(pattern, spec)
     names = [f"{stem}.gds", f"{stem}.png", f"{stem}.svg"]
     with OutputSet(out_dir, names, force) as out:
         drawing.write(block, grade_, out, stem,
                       _gradient_field(spec, grade_) if overlay else None)
         written = out.commit()
-    click.echo(format_nets(block.wiring))
+    click.echo(format_nets(block.wiring, area=drawing.area_of(block)))
     click.echo("Wrote " + ", ".join(str(p) for p in written))
     click.echo("The GDSII is a starting pattern, not a design-rule-clean layout.")
 
@@ -513,6 +537,7 @@ def compare(spec_path: Path, out_dir: Path, seed: int, time_limit: float, paper:
     names = [f"{spec.name}-compare.png", f"{spec.name}-compare.pdf"]
     with OutputSet(out_dir, names, force) as out:
         best = run_arrange(spec, seed=seed, time_limit_s=time_limit)
+        spec = best.spec or spec
         rows, cols = best.core_shape
         nets = mos_finger_nets(spec) if spec.kind == "mos" else None
         entries = []
@@ -573,6 +598,7 @@ def lesson(spec_path: Path, out_dir: Path, pattern_path: Path | None, seed: int,
     name = f"{spec.name}-lesson.html"
     with OutputSet(out_dir, [name], force) as out:
         best = run_arrange(spec, seed=seed, time_limit_s=time_limit)
+        spec = best.spec or spec
         rows, cols = best.core_shape
         notes = {"clustered": "each device's units side by side",
                  "interdigitated": "devices alternating along the rows",

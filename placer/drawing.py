@@ -7,7 +7,7 @@ previews in an output set.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
 
@@ -15,13 +15,14 @@ from placer.cells import Rules, UnitCell, load_rules, unit_cell
 from placer.errors import LimitError
 from placer.layers import LayerMap, load_layers
 from placer.output import OutputSet
-from placer.pattern import Pattern
-from placer.router import Wiring, check_pitch, route
+from placer.parasitics import NetFigures, Parasitics, extract
+from placer.pattern import EMPTY, Pattern
+from placer.router import NetSummary, Wiring, check_pitch, route
 from placer.score import Grade
 from placer.spec import MAX_EXTENT_UM, Spec, with_computed_pitch
 
-__all__ = ["Block", "Tools", "load_tools", "prepare", "library", "write", "layout_of",
-           "MAX_EXTENT_UM"]
+__all__ = ["Area", "area_of", "Block", "Tools", "load_tools", "prepare", "library", "write",
+           "layout_of", "MAX_EXTENT_UM"]
 
 
 @dataclass(frozen=True)
@@ -33,6 +34,12 @@ class Tools:
     layers: LayerMap
     user: Any = None
 
+    def fit(self, pattern: Pattern, spec: Spec) -> Spec:
+        """``spec`` at the pitch the routing of ``pattern`` needs with these tools."""
+        from placer.pitch import fitted
+
+        return fitted(pattern, spec, self.rules, user=self.user)
+
 
 @dataclass(frozen=True)
 class Block:
@@ -43,6 +50,7 @@ class Block:
     cell: UnitCell
     wiring: Wiring
     tools: Tools
+    parasitics: Parasitics
 
 
 def load_tools(spec: Spec, template: Path | None = None, layers: Path | None = None,
@@ -65,7 +73,10 @@ def load_tools(spec: Spec, template: Path | None = None, layers: Path | None = N
 
 
 def prepare(pattern: Pattern, spec: Spec, tools: Tools) -> Block:
-    """Draw and route ``pattern``; raises before anything is written."""
+    """Draw and route ``pattern``; raises before anything is written. Unless the spec
+    gives a pitch, the block's spec carries the pitch this routing needs
+    (:func:`placer.pitch.fitted`): grade the pattern with ``block.spec``."""
+    spec = tools.fit(pattern, spec)
     if tools.user is not None:
         cell = tools.user.cell
     else:
@@ -77,8 +88,42 @@ def prepare(pattern: Pattern, spec: Spec, tools: Tools) -> Block:
         raise LimitError(f"{spec.source}: the drawn array would span "
                          f"{(cols + 2) * px:.4g} x {(rows + 2) * py:.4g} um, more than the "
                          f"{MAX_EXTENT_UM:g} um a GDSII coordinate holds at 1 nm (int32)")
-    wiring = route(pattern, spec, tools.rules, cell)
-    return Block(pattern, spec, cell, wiring, tools)
+    wiring = route(pattern, spec, tools.rules, cell, user=tools.user is not None)
+    parasitics = extract(wiring, spec.routing, tools.rules)
+    wiring.nets = [_with_figures(n, parasitics.nets.get(n.name)) for n in wiring.nets]
+    return Block(pattern, spec, cell, wiring, tools, parasitics)
+
+
+def _with_figures(net: NetSummary, fig: NetFigures | None) -> NetSummary:
+    """A net's summary with its extracted resistance (its worst terminal to the pin) and
+    capacitance (to ground and to every other net)."""
+    if fig is None:
+        return net
+    return replace(net, resistance_ohm=fig.r_max_ohm or 0.0,
+                   capacitance_ff=fig.ground_ff + fig.coupling_ff,
+                   coupling_ff=fig.coupling_ff)
+
+
+@dataclass(frozen=True)
+class Area:
+    """How much of the block the devices fill."""
+
+    block_um2: float          # the routed block's bounding box
+    units_um2: float          # every unit's W x L (dummies not counted)
+    array_um2: float          # every slot of the array, pitch x pitch (dummies included)
+    unit_fraction: float      # units_um2 / block_um2: the area efficiency
+    array_fraction: float     # array_um2 / block_um2: what the routing beside it costs
+
+
+def area_of(block: Block) -> Area:
+    """The block's area efficiency: unit area over block area (and the array's share)."""
+    w, h = block.wiring.size_um
+    px, py = block.spec.array.pitch_um
+    units = block.spec.n_units * block.spec.unit.width_um * block.spec.unit.length_um
+    slots = int((block.pattern.ids != EMPTY).sum()) * px * py
+    whole = w * h
+    return Area(whole, units, slots, units / whole if whole > 0 else 0.0,
+                slots / whole if whole > 0 else 0.0)
 
 
 def library(block: Block) -> Any:

@@ -101,7 +101,7 @@ def build_library(pattern: Pattern, spec: Spec, cell: UnitCell, wiring: Wiring,
         if user_cell is not None:
             dummy.add(gdstk.Reference(unit, (0, 0)))
         else:
-            for s in cell.shapes:
+            for s in (cell.dummy_shapes if cell.dummy_shapes is not None else cell.shapes):
                 _add_rect(dummy, s, layers)
         x0, y0, x1, y1 = cell.extent
         _add_rect(dummy, Rect("dummy", x0, y0, x1, y1), layers)

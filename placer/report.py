@@ -218,6 +218,16 @@ def format_arrangement(result: Arrangement, spec: Spec) -> str:
     return "\n".join(out)
 
 
+def _dac_wiring(b: Any) -> list[str]:
+    missing = b.assumptions.get("wiring_missing")
+    if b.wiring_inl_lsb is None:
+        return []
+    if missing:
+        return [f"  wiring: not counted; give {missing}"]
+    return [f"  wiring (the top plate's coupling to each bit, from the drawn layout): |INL| "
+            f"{_f(b.wiring_inl_lsb)} LSB, |DNL| {_f(b.wiring_dnl_lsb)} LSB"]
+
+
 def format_budget(b: Any) -> str:
     """The electrical budget section: mirror/resistor lines, or DAC INL/DNL."""
     from placer.budget import DacBudget
@@ -234,19 +244,22 @@ def format_budget(b: Any) -> str:
             f"  random ({b.mc_samples} Monte Carlo samples): worst |INL| mean "
             f"{_f(b.mc_inl_mean_lsb)}, sigma {_f(b.mc_inl_sigma_lsb)} LSB; worst |DNL| mean "
             f"{_f(b.mc_dnl_mean_lsb)}, sigma {_f(b.mc_dnl_sigma_lsb)} LSB",
+            *_dac_wiring(b),
         ])
     mos = b.kind == "mos"
     if not b.lines:
         return (f"Electrical budget: {b.reference} is the only device it covers, so there is no "
                 "ratio to budget.")
     rows = []
+    wired = any(ln.wiring_pct is not None for ln in b.lines)
     for ln in b.lines:
         rows.append([ln.device, f"{ln.ideal_ratio:g}", _f(ln.gradient_pct),
                      _f(ln.quadratic_pct), *([_f(ln.clm_pct)] if mos else []),
+                     *([_f(ln.wiring_pct or 0.0)] if wired else []),
                      _f(ln.random_sigma_pct), f"{ln.total_low_pct:+.3g} .. "
                      f"{ln.total_high_pct:+.3g}", f"{100 * ln.within_tolerance:.1f}%"])
     head = ["output" if mos else "resistor", "ratio", "grad %", "quad %",
-            *(["clm %"] if mos else []),
+            *(["clm %"] if mos else []), *(["wire %"] if wired else []),
             "sigma %", f"total at {b.k_sigma:g} sigma %", f"within +-{b.tolerance_pct:g}%"]
     out = [f"Electrical budget against {b.reference} (error of I/I_{b.reference}, % of the "
            "ideal ratio; grad = linear gradient in its worst direction, quad = curvature, "
@@ -255,13 +268,18 @@ def format_budget(b: Any) -> str:
            f"Electrical budget against {b.reference} (ratio error of R/R_{b.reference}, %; "
            f"gradient: {b.assumptions['gradient']})",
            format_table(head, rows)]
+    if wired:
+        missing = b.assumptions.get("wiring_missing")
+        out.append(f"  wire = the drawn wiring: {b.assumptions.get('wiring', '')}"
+                   + (f" (not counted: give {missing})" if missing else ""))
     for ln in b.lines:
         out.append(f"  {ln.device}: {ln.dominant} dominates; cure: {ln.cure}.")
     return "\n".join(out)
 
 
-def format_nets(wiring: Any, max_rows: int = 40) -> str:
-    """The routed nets: terminals, wire length, vias and the wire's R and C."""
+def format_nets(wiring: Any, max_rows: int = 40, area: Any = None) -> str:
+    """The routed nets: terminals, wire length, vias and the wire's R and C; with
+    ``area`` (:class:`placer.drawing.Area`), the block's area efficiency."""
     w, h = wiring.size_um
     rows = []
     for n in wiring.nets[:max_rows]:
@@ -269,9 +287,12 @@ def format_nets(wiring: Any, max_rows: int = 40) -> str:
         rows.append([n.name, terms if len(terms) <= 40 else terms[:37] + "...", str(n.units),
                      f"{n.wire_um:.4g}", str(n.vias), f"{n.resistance_ohm:.3g}",
                      f"{n.capacitance_ff:.3g}"])
-    out = [f"Layout: {w:.4g} x {h:.4g} um, {wiring.channel_tracks} tracks in the fullest "
-           f"channel; every net routed to a pin at the array's top right edge (wire R and C "
-           "from the spec's [routing] figures, illustrative by default)",
+    eff = (f"; units fill {100 * area.unit_fraction:.1f}% of it, the array of slots "
+           f"{100 * area.array_fraction:.1f}%" if area is not None else "")
+    out = [f"Layout: {w:.4g} x {h:.4g} um{eff}; {wiring.channel_tracks} tracks in the "
+           "fullest channel; every net routed to a pin at the block's top edge (R: its "
+           "worst terminal to the pin; C: to ground and to the other nets; from the "
+           "spec's [routing] figures, illustrative by default)",
            format_table(["net", "terminals", "units", "wire um", "vias", "R ohm", "C fF"],
                         rows)]
     if len(wiring.nets) > max_rows:

@@ -118,6 +118,7 @@ class Placement:
     symmetry: str = "none"
     groups: tuple[GroupSpec, ...] = ()
     match: tuple[tuple[str, str], ...] = ()
+    match_nets: tuple[tuple[str, ...], ...] = ()
 
 
 @dataclass(frozen=True)
@@ -207,12 +208,19 @@ FITS = ("endpoint", "best")
 
 @dataclass(frozen=True)
 class RoutingSpec:
-    """Per-micrometre wire figures for the routing summary (illustrative defaults)."""
+    """Wire figures of the parasitic extraction from the drawn geometry (illustrative
+    defaults): sheet resistance of each metal, resistance of one via1 cut, capacitance of
+    a wire to ground per micrometre of its length, between two wires side by side per
+    micrometre they face each other at minimum spacing (falling as min spacing / spacing,
+    counted out to three times the minimum), and per square micrometre where metal2
+    overlaps metal1."""
 
-    metal1_ohm_per_um: float = 0.3
-    metal2_ohm_per_um: float = 0.2
+    metal1_ohm_per_sq: float = 0.1
+    metal2_ohm_per_sq: float = 0.07
     via_ohm: float = 5.0
     wire_ff_per_um: float = 0.2
+    coupling_ff_per_um: float = 0.1
+    overlap_ff_per_um2: float = 0.05
 
 
 @dataclass(frozen=True)
@@ -231,6 +239,9 @@ class ElectricalSpec:
     fit: str = "endpoint"
     mc_samples: int = 2000
     mc_seed: int = 0
+    unit_current_ua: float = 10.0
+    unit_cap_ff: float | None = None
+    unit_ohm: float | None = None
 
 
 @dataclass(frozen=True)
@@ -252,7 +263,7 @@ class Spec:
     source: str = "<spec>"
     nets: tuple[dict[str, str], ...] = ()
     joins: tuple[str, ...] = ()
-    dummy_net: str = "TIE"
+    dummy_net: str = "VSS"
     routing: RoutingSpec = field(default_factory=RoutingSpec)
     placement: Placement = field(default_factory=Placement)
 
@@ -288,6 +299,18 @@ class Spec:
             if anchor in g.devices:
                 return [d for d in self.devices if d in g.devices]
         return list(self.devices)
+
+    def matched_sets(self) -> list[Any]:
+        """The net sets whose wiring must match (``[match] nets``, else each kind's
+        defaults per group; see :func:`placer.kinds.default_matched_sets`)."""
+        from placer.kinds import MatchedSet, default_matched_sets
+
+        if self.placement.match_nets:
+            return [MatchedSet(tuple(s)) for s in self.placement.match_nets]
+        groups = ([list(g.devices) for g in self.placement.groups]
+                  or [list(self.devices)])
+        return default_matched_sets(self.kind, groups, dict(zip(self.devices, self.nets,
+                                                                strict=True)), self.dummy_net)
 
     def group_of(self) -> dict[str, str]:
         """Group name of every device ('' when the spec names no groups)."""
@@ -325,16 +348,12 @@ def default_spec(name: str, devices: tuple[str, ...], counts: tuple[int, ...],
 
 
 def with_computed_pitch(spec: Spec, rules: Any = None) -> Spec:
-    """``spec`` with the smallest pitch its unit cell and routing channel need, unless the
-    spec gives its own pitch. ``rules`` is a template's rules (default: the kind's)."""
-    if spec.array.pitch_given:
-        return spec
-    from dataclasses import replace
+    """``spec`` with the estimated pitch of :func:`placer.pitch.estimated` (the search
+    runs at it), unless the spec gives its own pitch. ``rules`` is a template's rules
+    (default: the kind's)."""
+    from placer.pitch import estimated
 
-    from placer.router import pitch_needed
-
-    pitch = pitch_needed(spec, rules)
-    return replace(spec, array=replace(spec.array, pitch_um=pitch))
+    return estimated(spec, rules)
 
 
 def check_name(name: str, what: str) -> str:
@@ -361,7 +380,7 @@ _SCHEMA: dict[str, tuple[str, ...]] = {
          "match"),
     "array": ("rows", "columns", "dummies", "pitch_um", "aspect", "dummy_net", "holes", "mask",
               "keep_out", "symmetry"),
-    "match": ("pairs",),
+    "match": ("pairs", "nets"),
     "unit": ("width_um", "length_um"),
     "gradient": ("linear_ppm_per_um", "linear_pct_per_mm", "quadratic_ppm_per_um2", "order",
                  "vt_mv_per_mm", "beta_pct_per_mm", "direction_deg", "hot_spot"),
@@ -370,11 +389,13 @@ _SCHEMA: dict[str, tuple[str, ...]] = {
     "mismatch": ("a_param_pct_um", "a_vt_mv_um"),
     "monte_carlo": ("samples", "seed"),
     "search": ("objective", "cancel_order", "relative_tie"),
-    "routing": ("metal1_ohm_per_um", "metal2_ohm_per_um", "via_ohm", "wire_ff_per_um"),
+    "routing": ("metal1_ohm_per_sq", "metal2_ohm_per_sq", "via_ohm", "wire_ff_per_um",
+                "coupling_ff_per_um", "overlap_ff_per_um2"),
     "electrical": ("reference", "vov_v", "gm_id_per_v", "lambda_per_v", "vds_v",
                    "a_vt_mv_um",
                    "a_beta_pct_um", "k_sigma", "tolerance_pct", "termination", "weights",
-                   "fit", "mc_samples", "mc_seed"),
+                   "fit", "mc_samples", "mc_seed", "unit_current_ua", "unit_cap_ff",
+                   "unit_ohm"),
 }
 
 
@@ -390,10 +411,15 @@ _RANGES: dict[tuple[str, str], tuple[float, float, str]] = {
     ("mismatch", "a_param_pct_um"): (0.0, 100.0, " %um"),
     ("mismatch", "a_vt_mv_um"): (0.0, 1000.0, " mV um"),
     ("search", "relative_tie"): (0.0, 0.1, ""),
-    ("routing", "metal1_ohm_per_um"): (0.0, 1e6, " ohm/um"),
-    ("routing", "metal2_ohm_per_um"): (0.0, 1e6, " ohm/um"),
+    ("routing", "metal1_ohm_per_sq"): (0.0, 1e6, " ohm/sq"),
+    ("routing", "metal2_ohm_per_sq"): (0.0, 1e6, " ohm/sq"),
     ("routing", "via_ohm"): (0.0, 1e6, " ohm"),
     ("routing", "wire_ff_per_um"): (0.0, 1e3, " fF/um"),
+    ("routing", "coupling_ff_per_um"): (0.0, 1e3, " fF/um"),
+    ("routing", "overlap_ff_per_um2"): (0.0, 1e3, " fF/um2"),
+    ("electrical", "unit_current_ua"): (1e-6, 1e6, " uA"),
+    ("electrical", "unit_cap_ff"): (1e-6, 1e9, " fF"),
+    ("electrical", "unit_ohm"): (1e-6, 1e12, " ohm"),
     ("gradient", "linear_ppm_per_um"): (0.0, 1e5, " ppm/um"),
     ("gradient", "linear_pct_per_mm"): (0.0, 1e4, " %/mm"),
     ("gradient", "quadratic_ppm_per_um2"): (0.0, 1e4, " ppm/um2"),
@@ -693,7 +719,10 @@ def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") 
     array = ArraySpec(rows, columns, dummies, pitch, aspect, pitch_given, holes)
 
     un = _Reader(source, "unit", data.get("unit", {}))
-    unit = UnitSpec(un.number("width_um", 1.0) or 1.0, un.number("length_um", 1.0) or 1.0)
+    from placer.kinds import KINDS_INFO
+
+    dw, dl = KINDS_INFO[kind].unit_um
+    unit = UnitSpec(un.number("width_um", dw) or dw, un.number("length_um", dl) or dl)
 
     raw_el = data.get("electrical")
     if isinstance(raw_el, dict):
@@ -746,11 +775,28 @@ def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") 
     nets, joins, dummy_net = _terminals(source, data.get("terminals", {}), kind, names,
                                         counts, arr.data.get("dummy_net"))
 
-    ro = _Reader(source, "routing", data.get("routing", {}))
+    raw_ro = data.get("routing", {})
+    if isinstance(raw_ro, dict):
+        for old, new in (("metal1_ohm_per_um", "metal1_ohm_per_sq"),
+                         ("metal2_ohm_per_um", "metal2_ohm_per_sq")):
+            if old in raw_ro:
+                raise SpecError(f"{source}: [routing] {old} became {new}: the wiring's "
+                                "resistance is now solved over the drawn wires, whose widths "
+                                "differ; give the sheet resistance (ohm/um times the wire "
+                                "width in um)")
+    ro = _Reader(source, "routing", raw_ro)
     dr = RoutingSpec()
     routing = RoutingSpec(*(_num(ro, k, getattr(dr, k)) for k in _SCHEMA["routing"]))
 
     placement = _placement(source, data, names, counts, rows, columns, mask, symmetry)
+    known = {n for m in nets for n in m.values()} | {dummy_net}
+    for group in placement.match_nets:
+        for net in group:
+            if net not in known:
+                near = difflib.get_close_matches(net, sorted(known), n=1)
+                hint = f" (did you mean {shown(near[0])}?)" if near else ""
+                raise SpecError(f"{source}: [match] nets names {shown(net)}, which is not a net "
+                                f"of any terminal{hint}")
 
     spec = Spec(name=name, devices=tuple(names), counts=tuple(counts), kind=kind, array=array,
                 unit=unit, gradient=gradient, correlated=correlated, mismatch=mismatch,
@@ -996,15 +1042,27 @@ def _placement(source: str, data: dict[str, Any], names: list[str], counts: list
     if not isinstance(raw_match, dict):
         raise SpecError(f"{source}: [match] must be a table with pairs = [[A, B], ...]")
     for key in raw_match:
-        if key != "pairs":
-            raise SpecError(f"{source}: [match] unknown key {shown(key)} (allowed: pairs)")
+        if key not in ("pairs", "nets"):
+            raise SpecError(f"{source}: [match] unknown key {shown(key)} (allowed: pairs, nets)")
     for p in raw_match.get("pairs", []):
         if (not isinstance(p, list) or len(p) != 2
                 or not all(isinstance(d, str) and d in index for d in p) or p[0] == p[1]):
             raise SpecError(f"{source}: [match] pairs must be pairs of two different devices, "
                             f"got {str(p)[:60]}")
         match.append((p[0], p[1]))
-    placement = Placement(mask, tuple(pins), symmetry, tuple(groups), tuple(match))
+    match_nets: list[tuple[str, ...]] = []
+    raw_sets = raw_match.get("nets", [])
+    if not isinstance(raw_sets, list):
+        raise SpecError(f"{source}: [match] nets must be a list of net lists, e.g. "
+                        "[[\"INP\", \"INN\"]], got {_typename(raw_sets)}")
+    for p in raw_sets:
+        if (not isinstance(p, list) or len(p) < 2 or len(p) > MAX_DEVICES
+                or not all(isinstance(n, str) for n in p) or len(set(p)) != len(p)):
+            raise SpecError(f"{source}: [match] nets must hold lists of two or more different "
+                            f"net names, got {str(p)[:60]}")
+        match_nets.append(tuple(p))
+    placement = Placement(mask, tuple(pins), symmetry, tuple(groups), tuple(match),
+                          tuple(match_nets))
     if symmetry != "none":
         _check_symmetry(source, placement, names, counts, rows, columns)
     return placement
@@ -1164,17 +1222,26 @@ def _electrical(source: str, raw: Any, kind: str, names: list[str], counts: list
         if absent:
             raise SpecError(f"{source}: [electrical.vds_v] missing {', '.join(absent)} "
                             "(drain voltage, V)")
+        for key in ("unit_cap_ff", "unit_ohm"):
+            if key in el.data:
+                where = "cap" if key == "unit_cap_ff" else "res"
+                raise el.fail(key, f"applies to kind = \"{where}\" only (this spec is "
+                              f"{shown(kind)})")
         return ElectricalSpec(
             gm_id_per_v=gm_id,
+            unit_current_ua=el.number("unit_current_ua", 10.0) or 10.0,
             lambda_per_v=_num(el, "lambda_per_v", 0.0), vds_v=vds,
             a_vt_mv_um=_num(el, "a_vt_mv_um", mismatch.a_vt_mv_um
                             if mismatch.a_vt_mv_um is not None else d.a_vt_mv_um),
             a_beta_pct_um=_num(el, "a_beta_pct_um", mismatch.a_param_pct_um),
             **common,  # type: ignore[arg-type]
         )
-    for key in ("vov_v", "gm_id_per_v", "lambda_per_v", "vds_v"):
+    owner = {"unit_ohm": "res", "unit_cap_ff": "cap"}
+    for key in ("vov_v", "gm_id_per_v", "lambda_per_v", "vds_v", "unit_current_ua",
+                *(("unit_ohm",) if kind == "cap" else ("unit_cap_ff",))):
         if key in el.data:
-            raise el.fail(key, f"applies to kind = \"mos\" only (this spec is {shown(kind)})")
+            raise el.fail(key, f"applies to kind = \"{owner.get(key, 'mos')}\" only (this spec "
+                          f"is {shown(kind)})")
     term = el.data.get("termination")
     if kind == "cap":
         if term is None:
@@ -1201,7 +1268,10 @@ def _electrical(source: str, raw: Any, kind: str, names: list[str], counts: list
     elif term is not None or "weights" in el.data:
         raise SpecError(f"{source}: [electrical] termination and weights apply to "
                         "kind = \"cap\" only")
-    return ElectricalSpec(termination=term, **common)  # type: ignore[arg-type]
+    return ElectricalSpec(termination=term,
+                          unit_cap_ff=el.number("unit_cap_ff", None) if kind == "cap" else None,
+                          unit_ohm=el.number("unit_ohm", None) if kind == "res" else None,
+                          **common)  # type: ignore[arg-type]
 
 
 def _num(reader: _Reader, key: str, default: float) -> float:

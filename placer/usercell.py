@@ -18,7 +18,7 @@ from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
 
-from placer.cells import Rect, Rules, TemplateError, Terminal, UnitCell, min_pitch, snap
+from placer.cells import Rect, Rules, TemplateError, UnitCell, down_only, min_pitch, snap
 from placer.kinds import KINDS_INFO
 from placer.layers import LayerMap
 from placer.spec import Spec
@@ -39,9 +39,9 @@ class UserCell:
 
     def fit_spec(self, spec: Spec) -> Spec:
         """The spec with the pitch this cell needs (or its own, checked)."""
-        from placer.router import track_bound
+        from placer.router import track_estimate
 
-        need = min_pitch(self.cell, self.rules, track_bound(spec))
+        need = min_pitch(self.cell, self.rules, track_estimate(spec))
         if not spec.array.pitch_given:
             return replace(spec, array=replace(spec.array, pitch_um=need, pitch_given=False))
         px, py = spec.array.pitch_um
@@ -144,7 +144,7 @@ def load_user_cell(path: Path, name: str | None, spec: Spec, rules: Rules,
                 raise TemplateError(f"{where}: metal2 at ({qx0:g}, {qy0:g})..({qx1:g}, {qy1:g}) "
                                     f"lies in the path of the stub that leaves terminal {t!r} "
                                     "straight down; keep metal2 clear below each label")
-        terminals.append(Terminal(t, pad_rect, x, y, role == "metal1"))
+        terminals.append(down_only(t, pad_rect, x, y, role == "metal1"))
     xs = sorted(t.exit_x for t in terminals)
     for a, b in zip(xs, xs[1:], strict=False):
         if b - a < sw + m2s - 1e-9:

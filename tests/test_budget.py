@@ -165,3 +165,146 @@ def test_budget_without_electrical_table_names_the_keys():
     pattern = parse_pattern("A B")
     with pytest.raises(SpecError, match=r"needs an \[electrical\] table with vov_v"):
         budget(pattern, spec, grade_pattern(pattern, spec))
+
+
+# ------------------------------------------------------------------ the wiring term
+
+_LADDER = """name = "two_step"
+kind = "res"
+[devices]
+RA = 1
+RB = 1
+[array]
+rows = 1
+[unit]
+width_um = 1.0
+length_um = 8.0
+[terminals]
+RA = { a = "TOP", b = "MID" }
+RB = { a = "MID", b = "BOT" }
+[electrical]
+reference = "RB"
+unit_ohm = 1000.0
+"""
+
+
+def _routed(text, scale=1.0, name="s.toml"):
+    """Spec, pattern, budget and block of ``text`` arranged and routed, with the spec's
+    wire resistances scaled by ``scale``."""
+    from dataclasses import replace
+
+    from placer.arrange import arrange
+    from placer.budget import budget
+    from placer.drawing import layout_of
+
+    spec = parse_spec(text, name)
+    result = arrange(spec, seed=1, time_limit_s=1.0)
+    spec = result.spec
+    r = spec.routing
+    spec = replace(spec, routing=replace(r, metal1_ohm_per_sq=scale * r.metal1_ohm_per_sq,
+                                         metal2_ohm_per_sq=scale * r.metal2_ohm_per_sq,
+                                         via_ohm=scale * r.via_ohm))
+    _, block = layout_of(result.pattern, spec)
+    grade = grade_pattern(result.pattern, block.spec)
+    return block.spec, result.pattern, budget(result.pattern, block.spec, grade,
+                                              block.parasitics), block
+
+
+def test_resistor_wiring_term_is_the_hand_calculation_from_the_independent_checker(tmp_path):
+    """Series resistances add (Ohm's law): each device's resistance is its unit's plus the
+    wire from each of its ends to that end's pin, read by the independent checker
+    (tests/parasitics.py) from the GDSII; the ratio error is
+    (R_u + w_A) / (R_u + w_B) - 1. Tenfold wire resistance moves the budget's total by
+    exactly the change of that hand-calculated term."""
+    from placer.drawing import library
+    from placer.gds import write_gds
+    from tests import parasitics as checker
+
+    out = {}
+    for scale in (1.0, 10.0):
+        spec, pattern, bud, block = _routed(_LADDER, scale)
+        path = tmp_path / f"l{scale:g}.gds"
+        write_gds(library(block), path)
+        r = spec.routing
+        fig = {"metal1_ohm_per_sq": r.metal1_ohm_per_sq, "metal2_ohm_per_sq":
+               r.metal2_ohm_per_sq, "via_ohm": r.via_ohm, "wire_ff_per_um": 0.1,
+               "coupling_ff_per_um": 0.1, "overlap_ff_per_um2": 0.05,
+               "metal1_space": block.tools.rules.metal1_space,
+               "metal2_space": block.tools.rules.metal2_space}
+        taps = checker.measure(path, "templates/layers.toml", fig)["taps"]
+        px = spec.array.pitch_um[0]
+        col = {spec.devices[int(d)]: c for c, d in enumerate(pattern.ids[0]) if d >= 0}
+        wire = {d: sum(t["r_ohm"] for t in taps
+                       if abs(t["x"] - col[d] * px) < 1e-6 and abs(t["y"]) < 1e-6
+                       and t["r_ohm"] is not None) for d in ("RA", "RB")}
+        assert wire["RA"] > 0 and wire["RB"] > 0
+        hand = 100.0 * ((1000.0 + wire["RA"]) / (1000.0 + wire["RB"]) - 1.0)
+        line = bud.lines[0]
+        assert line.wiring_pct == pytest.approx(hand, rel=1e-6, abs=1e-9)
+        out[scale] = (line, hand)
+    (one, h1), (ten, h10) = out[1.0], out[10.0]
+    assert ten.total_high_pct - one.total_high_pct == pytest.approx(h10 - h1, abs=1e-9)
+    assert abs(h10) > 5 * abs(h1)
+
+
+_MIRROR_WIRED = """name = "wired_mirror"
+[devices]
+MREF = 2
+MOUT = 4
+[array]
+rows = 2
+[unit]
+width_um = 2.0
+length_um = 1.0
+[terminals]
+MREF = { gate = "VB", drain = "VB", source = "VSS" }
+MOUT = { gate = "VB", drain = "OUT", source = "VSS" }
+[electrical]
+reference = "MREF"
+vov_v = 0.2
+lambda_per_v = 0.05
+unit_current_ua = 20.0
+[electrical.vds_v]
+MREF = 0.7
+MOUT = 0.7
+"""
+
+
+def test_mirror_wiring_term_scales_with_the_wire_resistance_and_enters_the_total():
+    """The drops are linear in the wire resistance (Ohm's law over a linear network), so
+    tenfold resistance gives a tenfold wiring term, and the total moves by the change."""
+    _, _, one, _ = _routed(_MIRROR_WIRED, 1.0)
+    _, _, ten, _ = _routed(_MIRROR_WIRED, 10.0)
+    a, b = one.lines[0], ten.lines[0]
+    assert a.wiring_pct is not None and a.wiring_pct != 0.0
+    assert b.wiring_pct == pytest.approx(10.0 * a.wiring_pct, rel=1e-9)
+    assert b.total_high_pct - a.total_high_pct == pytest.approx(
+        b.wiring_pct - a.wiring_pct, abs=1e-12)
+
+
+@pytest.mark.parametrize("text", [_MIRROR_WIRED, _LADDER])
+def test_no_wire_resistance_means_no_wiring_term(text):
+    _, _, bud, _ = _routed(text, 0.0)
+    assert all(ln.wiring_pct == 0.0 for ln in bud.lines)
+
+
+def test_no_coupling_means_no_dac_wiring_term():
+    from dataclasses import replace
+
+    from placer.arrange import arrange
+    from placer.budget import budget
+    from placer.drawing import layout_of
+
+    text = ('kind = "cap"\n[devices]\nCT = 1\nC0 = 1\nC1 = 2\nC2 = 4\n[electrical]\n'
+            'termination = "CT"\nunit_cap_ff = 20.0\nmc_samples = 10\n')
+    spec = parse_spec(text, "c.toml")
+    result = arrange(spec, seed=1, time_limit_s=1.0)
+    grades = []
+    for cpl in (0.0, 0.1):
+        s = replace(result.spec, routing=replace(result.spec.routing, coupling_ff_per_um=cpl,
+                                                 overlap_ff_per_um2=0.0))
+        _, block = layout_of(result.pattern, s)
+        grades.append(budget(result.pattern, block.spec,
+                             grade_pattern(result.pattern, block.spec), block.parasitics))
+    assert grades[0].wiring_inl_lsb == 0.0 and grades[0].wiring_dnl_lsb == 0.0
+    assert grades[1].wiring_dnl_lsb > 0.0

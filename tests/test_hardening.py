@@ -172,7 +172,7 @@ def test_force_replaces_the_whole_previous_set(tmp_path):
     assert second.returncode == 0, second.stderr
     assert not list((tmp_path / "o").glob("candidate-*"))
     assert sorted(p.name for p in (tmp_path / "o").iterdir()) == sorted(
-        ["pattern.txt", "report.json", "pattern.gds", "pattern.png", "pattern.svg",
+        ["pattern.txt", "report.json", "pattern.gds", "pattern.sp", "pattern.png", "pattern.svg",
          "budget.png"])
 
 

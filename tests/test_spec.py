@@ -105,28 +105,30 @@ def test_unreadable_and_binary_files(tmp_path):
 
 def test_default_nets_reproduce_each_kinds_usual_circuit():
     """Common practice: a mirror shares gate and source and keeps its own drain; a capacitor
-    array shares the top plate; resistors keep their own ends, units in series; dummies
-    tie to the shared source or top plate."""
+    array shares the top plate; resistors keep their own ends, units in series. Dummies
+    tie to a mirror's shared source, else to a rail (VSS), never to a signal node such as
+    a capacitor array's top plate (common practice: a dummy on the top plate adds its
+    wire and plate capacitance to the most sensitive node)."""
     mos = parse_spec("[devices]\nA = 1\nB = 2\n", "s.toml")
     assert mos.nets == ({"gate": "GATE", "source": "SOURCE", "drain": "A_D"},
                         {"gate": "GATE", "source": "SOURCE", "drain": "B_D"})
     assert mos.dummy_net == "SOURCE"
     cap = parse_spec('kind = "cap"\n[devices]\nA = 1\nB = 2\n', "s.toml")
-    assert [n["top"] for n in cap.nets] == ["TOP", "TOP"] and cap.dummy_net == "TOP"
+    assert [n["top"] for n in cap.nets] == ["TOP", "TOP"] and cap.dummy_net == "VSS"
     res = parse_spec('kind = "res"\n[devices]\nR = 3\n', "s.toml")
-    assert res.joins == ("series",) and res.dummy_net == "TIE"
-    assert res.net_names() == ["R_A", "R_B", "TIE", "R_N1", "R_N2"]
+    assert res.joins == ("series",) and res.dummy_net == "VSS"
+    assert res.net_names() == ["R_A", "R_B", "VSS", "R_N1", "R_N2"]
 
 
 def test_a_differential_pair_and_separate_sources_are_expressible():
     spec = parse_spec('[devices]\nP = 2\nN = 2\n[terminals]\n'
                       'P = { gate = "INP", drain = "ON", source = "TAIL" }\n'
                       'N = { gate = "INN", drain = "OP", source = "TAIL" }\n', "s.toml")
-    assert spec.net_names() == ["INP", "TAIL", "ON", "INN", "OP"]
-    assert spec.dummy_net == "TAIL"
+    assert spec.net_names() == ["INP", "TAIL", "ON", "INN", "OP", "VSS"]
+    assert spec.dummy_net == "VSS"      # never the tail: common practice, see above
     split = parse_spec('[devices]\nA = 2\nB = 2\n[terminals]\nA = { source = "SA" }\n'
                        'B = { source = "SB" }\n', "s.toml")
-    assert split.dummy_net == "TIE"
+    assert split.dummy_net == "VSS"
 
 
 def test_a_pitch_left_out_is_the_smallest_that_holds_cell_and_channel():

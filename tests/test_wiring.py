@@ -24,6 +24,7 @@ from placer.drawing import layout_of
 from placer.gds import write_gds
 from placer.layers import load_layers
 from placer.pattern import DUMMY, EMPTY, Pattern, parse_pattern
+from placer.pitch import fitted
 from placer.spec import parse_spec
 from tests import extraction
 
@@ -222,8 +223,8 @@ def _cases(draw, kind: str):
         w = draw(st.sampled_from([0.5, 1.0, 2.0, 4.5]))
         length = draw(st.sampled_from([0.15, 0.5, 1.0, 3.0]))
     elif kind == "cap":
-        w = draw(st.sampled_from([1.0, 2.5, 5.0]))
-        length = draw(st.sampled_from([1.0, 3.0, 6.0]))
+        w = draw(st.sampled_from([1.6, 2.5, 5.0]))     # the notched plate's least size
+        length = draw(st.sampled_from([1.3, 3.0, 6.0]))
     else:
         w = draw(st.sampled_from([0.4, 1.0, 2.0]))
         length = draw(st.sampled_from([2.0, 8.0, 20.0]))
@@ -244,12 +245,13 @@ def _cases(draw, kind: str):
             + f"[unit]\nwidth_um = {w}\nlength_um = {length}\n[terminals]\n"
             + "\n".join(lines) + "\n")
     spec = parse_spec(text, "gen.toml")
-    if extra is not None:       # a larger, non-square pitch given explicitly
-        px, py = spec.array.pitch_um
+    pattern = Pattern(tuple(names), ids, orient)
+    if extra is not None:       # a larger, non-square pitch than the routing needs, given
+        px, py = fitted(pattern, spec).array.pitch_um
         text = text.replace("[array]\n", f"[array]\npitch_um = [{px + extra[0]:.3f}, "
                                          f"{py + extra[1]:.3f}]\n")
         spec = parse_spec(text, "gen.toml")
-    return spec, Pattern(tuple(names), ids, orient)
+    return spec, pattern
 
 
 @pytest.mark.parametrize("kind", ["mos", "cap", "res"])

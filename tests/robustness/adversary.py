@@ -75,7 +75,8 @@ TITLES = {
 MEMORY_CAP = 2 << 30          # address-space cap of every run, bytes
 SLOW_REFUSAL_S = 5.0          # a refusal slower than this is listed (the aim is ~1 s)
 HEAVY_REFUSAL_MB = 500.0      # ... and one that needed more memory than this
-ARRANGE_OUTPUTS = ("pattern.txt", "report.json", "pattern.gds", "pattern.png", "pattern.svg")
+ARRANGE_OUTPUTS = ("pattern.txt", "report.json", "pattern.gds", "pattern.sp", "pattern.png",
+                   "pattern.svg")
 REPAIR_OUTPUTS = ("repaired.txt", "repaired.gds", "repaired.png", "repaired.svg", "repair.json")
 CANDIDATE = re.compile(r"candidate-\d+\.(txt|png|svg)")
 MEMORY_MARKERS = ("MemoryError", "Unable to allocate", "Cannot allocate memory",

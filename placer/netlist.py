@@ -1,0 +1,110 @@
+"""A SPICE netlist of the routed array: one subcircuit instance per unit and the drawn
+wiring as R and C elements, for a designer to simulate what the wiring does.
+
+Every net's resistor network (:mod:`placer.parasitics`) becomes resistors between nodes
+``<net>_<k>``; the net's pin node is the net's own name, so a test bench attaches its
+sources by net name. Each unit's terminal connects to its node of that network. The
+capacitance of each wire piece to ground and the coupling between nets are lumped onto
+the nearest nodes. Dummies are left out (they carry no current).
+
+The devices are illustrative, from the spec alone: a level-1 (square-law) MOS whose
+transconductance factor gives each finger ``[electrical] unit_current_ua`` at the
+overdrive 2 / (gm/ID) and whose lambda is the spec's; a capacitor of ``unit_cap_ff``; a
+resistor of ``unit_ohm``. They stand in for the process's models, which a designer puts in
+their place.
+"""
+
+from __future__ import annotations
+
+import re
+
+from placer.parasitics import Parasitics
+from placer.spec import Spec
+
+__all__ = ["netlist", "subckt_name", "node_name", "VTO_V"]
+
+#: Threshold of the illustrative MOS model (V).
+VTO_V = 0.5
+_SAFE = re.compile(r"[^A-Za-z0-9_]")
+
+
+def subckt_name(spec: Spec) -> str:
+    """The array's subcircuit name."""
+    return _SAFE.sub("_", spec.name).upper() + "_ARRAY"
+
+
+def node_name(net: str, node: int, pin: int | None) -> str:
+    """SPICE node of a network node: the net's name at its pin, ``<net>_<k>`` elsewhere."""
+    return net if pin is not None and node == pin else f"{net}_{node}"
+
+
+def _value(v: float, unit: str) -> str:
+    return f"{v:.6g}{unit}"
+
+
+def netlist(spec: Spec, par: Parasitics) -> str:
+    """The netlist text: models, the unit subcircuit, and the array subcircuit whose ports
+    are the block's pinned nets (in net order)."""
+    e = spec.electrical
+    kind = spec.kind
+    w, length = spec.unit.width_um, spec.unit.length_um
+    lines = [f"* {spec.name}: placer's routed array, units and drawn wiring",
+             "* model estimates with illustrative devices; use the process's models and "
+             "confirm with extraction"]
+    if kind == "mos":
+        gm_id = e.gm_id_per_v if e is not None else 10.0
+        amps = (e.unit_current_ua if e is not None else 10.0) * 1e-6
+        lam = e.lambda_per_v if e is not None else 0.0
+        vov = 2.0 / gm_id
+        kp = 2.0 * amps * length / (w * vov * vov)
+        lines += [f".model placer_unit nmos (level=1 vto={VTO_V:g} kp={kp:.6g} "
+                  f"lambda={lam:.6g})",
+                  ".subckt placer_mos d g s",
+                  f"M1 d g s s placer_unit W={_value(w, 'u')} L={_value(length, 'u')}",
+                  ".ends placer_mos"]
+    elif kind == "cap":
+        cu = e.unit_cap_ff if e is not None and e.unit_cap_ff is not None else 1.0
+        lines += [".subckt placer_cap top bottom", f"C1 top bottom {_value(cu, 'f')}",
+                  ".ends placer_cap"]
+    else:
+        ru = e.unit_ohm if e is not None and e.unit_ohm is not None else 1000.0
+        lines += [".subckt placer_res a b", f"R1 a b {_value(ru, '')}", ".ends placer_res"]
+    ports = [n for n, nw in par.networks.items() if nw.pin is not None]
+    lines.append(f".subckt {subckt_name(spec)} " + " ".join(ports))
+    # units
+    term_node: dict[tuple[tuple[int, int], str], str] = {}
+    for net, nw in par.networks.items():
+        for ti, node in zip(nw.tap_index, nw.tap_nodes, strict=True):
+            t = par.taps[ti]
+            term_node[t.slot, t.terminal] = node_name(net, node, nw.pin)
+    order = {"mos": ("drain", "gate", "source"), "cap": ("top", "bottom"),
+             "res": ("a", "b")}[kind]
+    sub = {"mos": "placer_mos", "cap": "placer_cap", "res": "placer_res"}[kind]
+    slots = sorted({(t.slot, t.device) for t in par.taps if t.device in spec.devices})
+    for (r, c), dev in slots:
+        nodes = [term_node.get(((r, c), t), "0") for t in order]
+        lines.append(f"X{dev}_r{r}c{c} " + " ".join(nodes) + f" {sub}")
+    # wiring
+    k = 0
+    for net, nw in par.networks.items():
+        for (i, j), ohm in zip(nw.edges.tolist(), nw.ohms.tolist(), strict=True):
+            if i == j:
+                continue
+            k += 1
+            lines.append(f"RW{k} {node_name(net, i, nw.pin)} {node_name(net, j, nw.pin)} "
+                         f"{_value(max(ohm, 1e-6), '')}")
+    k = 0
+    for net, node, ff in par.node_ground:
+        if ff <= 0:
+            continue
+        k += 1
+        nw = par.networks[net]
+        lines.append(f"CG{k} {node_name(net, node, nw.pin)} 0 {_value(ff, 'f')}")
+    for a, na, b, nb, ff in par.node_couplings:
+        if ff <= 0:
+            continue
+        k += 1
+        lines.append(f"CC{k} {node_name(a, na, par.networks[a].pin)} "
+                     f"{node_name(b, nb, par.networks[b].pin)} {_value(ff, 'f')}")
+    lines.append(f".ends {subckt_name(spec)}")
+    return "\n".join(lines) + "\n"
