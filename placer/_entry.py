@@ -55,6 +55,19 @@ def main() -> None:
     # (as KeyboardInterrupt) when its own body starts
     try:
         cli(prog_name="placer")
+    except SystemExit as done:
+        if done.code == 130:
+            # interrupted, and handled: an interrupt that passed through code the
+            # interpreter ran for a C extension leaves a mark that makes the interpreter
+            # end itself by SIGINT at shut-down, whatever exit code was asked
+            signal.signal(signal.SIGINT, signal.SIG_IGN)
+            for stream in (sys.stdout, sys.stderr):
+                try:
+                    stream.flush()
+                except (OSError, ValueError):
+                    pass
+            os._exit(130)
+        raise
     finally:
         # the command has finished (its outputs complete or removed): a signal during
         # the interpreter's shutdown must not end the process by the signal instead

@@ -12,7 +12,7 @@ from contextlib import contextmanager
 from dataclasses import asdict, replace
 from functools import wraps
 from pathlib import Path
-from typing import Any, TypeVar
+from typing import Any, NoReturn, TypeVar
 
 import click
 import numpy as np
@@ -114,10 +114,25 @@ def _user_errors(func: F) -> F:
                 click.echo(f"Error: cannot write the output: {err.strerror or err}", err=True)
             sys.exit(1)
         except KeyboardInterrupt:
-            click.echo("Interrupted; nothing written.", err=True)
-            sys.exit(130)
+            _interrupted()
+        except Exception as err:
+            # Ctrl-C inside an import can surface as another error (a class body's
+            # __set_name__ wraps it in a RuntimeError): it is still an interrupt
+            cause: BaseException | None = err
+            while cause is not None and not isinstance(cause, KeyboardInterrupt):
+                cause = cause.__cause__ or cause.__context__
+            if cause is None:
+                raise
+            _interrupted()
 
     return wrapper  # type: ignore[return-value]
+
+
+def _interrupted() -> NoReturn:
+    """End an interrupted command: the message and exit code 130 (the command's own
+    clean-up has run by now: its outputs are complete or removed)."""
+    click.echo("Interrupted; nothing written.", err=True)
+    sys.exit(130)
 
 
 @click.group()

@@ -287,6 +287,36 @@ def test_an_interrupt_during_start_up_ends_quietly(tmp_path):
             assert not (tmp_path / f"o{delay}").exists()
 
 
+def test_an_interrupt_wrapped_in_another_error_is_still_an_interrupt(tmp_path, monkeypatch):
+    """Ctrl-C inside a class body being imported reaches the command as a RuntimeError
+    whose cause is the KeyboardInterrupt (Python 3.11's __set_name__ wrapping): the user
+    sees the interrupt's one line and 130, not a traceback."""
+    from click.testing import CliRunner
+
+    import placer.cli as cli_mod
+
+    def broken(*args, **kwargs):
+        try:
+            raise KeyboardInterrupt
+        except KeyboardInterrupt as err:
+            raise RuntimeError("Error calling __set_name__") from err
+
+    monkeypatch.setattr(cli_mod, "run_arrange", broken)
+    result = CliRunner().invoke(cli_mod.cli, ["arrange", str(_spec(tmp_path, MIRROR)),
+                                              "--out", str(tmp_path / "o")])
+    assert result.exit_code == 130, result.output
+    assert "Interrupted; nothing written." in result.output
+    assert not (tmp_path / "o").exists()
+
+    def other(*args, **kwargs):
+        raise RuntimeError("a real bug")
+
+    monkeypatch.setattr(cli_mod, "run_arrange", other)
+    result = CliRunner().invoke(cli_mod.cli, ["arrange", str(_spec(tmp_path, MIRROR)),
+                                              "--out", str(tmp_path / "o")])
+    assert isinstance(result.exception, RuntimeError)     # a bug is not an interrupt
+
+
 def test_successful_runs_print_no_numpy_warnings(tmp_path):
     res = _run(["arrange", str(_spec(tmp_path, MIRROR)), "--out", "o", "--time-limit", "2",
                 "--quiet"], tmp_path)
