@@ -26,6 +26,7 @@ from placer.cli import cli  # noqa: E402
 from placer.drawing import layout_of  # noqa: E402
 from placer.gds import write_gds  # noqa: E402
 from placer.pattern import DUMMY, EMPTY, Pattern  # noqa: E402
+from placer.pitch import fitted  # noqa: E402
 from placer.spec import parse_spec  # noqa: E402
 from tests import extraction  # noqa: E402
 from tests.bench.readme_block import replace_block  # noqa: E402
@@ -34,7 +35,7 @@ LAYERS = ROOT / "templates" / "layers.toml"
 NETS = ["N0", "N1", "N2", "N3", "N4", "N5"]
 TERMS = {"mos": ("gate", "source", "drain"), "cap": ("top", "bottom"), "res": ("a", "b")}
 SIZES = {"mos": ([0.5, 1.0, 2.0, 4.5], [0.15, 0.5, 1.0, 3.0]),
-         "cap": ([1.0, 2.5, 5.0], [1.0, 3.0, 6.0]),
+         "cap": ([1.6, 2.5, 5.0], [1.3, 3.0, 6.0]),      # the notched plate's least size
          "res": ([0.4, 1.0, 2.0], [2.0, 8.0, 20.0])}
 
 
@@ -77,12 +78,13 @@ def random_case(kind: str, rng: np.random.Generator) -> tuple[object, Pattern]:
             + f"[unit]\nwidth_um = {w}\nlength_um = {length}\n[terminals]\n"
             + "\n".join(lines) + "\n")
     spec = parse_spec(text, "random.toml")
-    if rng.random() < 0.5:
-        px, py = spec.array.pitch_um
+    pattern = Pattern(tuple(names), ids, orient)
+    if rng.random() < 0.5:      # a given pitch at least the one the routing needs
+        px, py = fitted(pattern, spec).array.pitch_um
         dx, dy = rng.choice([0.0, 0.3, 0.75]), rng.choice([0.0, 1.1, 2.3])
         text = text.replace("[array]\n", f"[array]\npitch_um = [{px + dx:.3f}, {py + dy:.3f}]\n")
         spec = parse_spec(text, "random.toml")
-    return spec, Pattern(tuple(names), ids, orient)
+    return spec, pattern
 
 
 def check_samples(tmp: Path) -> list[tuple[str, extraction.Report]]:

@@ -1002,7 +1002,9 @@ def route(pattern: Pattern, spec: Spec, rules: Rules | None = None,
     if plan.kind_mode == "strap" and cell.strap_y is not None and plan.spines:
         for r in plan.ring_rows:
             y = snap(-r * py + cell.strap_y)
+            # from spine to spine, and on to every dummy of the row
             xs = [spine_x[s] for s in ("left", "right") if s in spine_x]
+            xs += [c * px for c in range(cols) if int(pattern.ids[r, c]) == DUMMY]
             x0 = min(xs) - sw / 2
             x1 = max(xs) + sw / 2
             add_wire(rail, "metal2", x0, y - sw / 2, x1, y + sw / 2, "strap")

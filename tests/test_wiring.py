@@ -176,6 +176,18 @@ def test_separate_sources_never_share_diffusion(tmp_path):
     _assert_clean(report)
 
 
+def test_a_row_of_dummies_beside_one_spine_is_joined_to_the_rail(tmp_path):
+    """A capacitor array whose last row holds only dummies and whose dummies stand in one
+    column only: the row's strap must reach every dummy of the row, not only run from
+    spine to spine (found by docs/wiring_check.py, an open on the rail)."""
+    spec = parse_spec('kind = "cap"\n[devices]\nD0 = 3\n[array]\ndummies = "none"\n'
+                      'dummy_net = "N0"\n[unit]\nwidth_um = 1.6\nlength_um = 3.0\n'
+                      '[terminals]\nD0 = { top = "N5", bottom = "N1" }\n', "gen.toml")
+    ids = np.array([[DUMMY, 0, 0], [EMPTY, 0, EMPTY], [DUMMY, DUMMY, DUMMY]])
+    pattern = Pattern(("D0",), ids, np.zeros(ids.shape, dtype=np.int8))
+    _assert_clean(_write_and_check(tmp_path, pattern, spec, name="dummy_row"))
+
+
 def test_a_probe_on_the_wrong_region_is_caught(tmp_path):
     """The probes have teeth: swap a finger's source and drain probes and the check fails."""
     spec = parse_spec(DIFF_PAIR, "s.toml")
