@@ -2,10 +2,11 @@
 wiring as R and C elements, for a designer to simulate what the wiring does.
 
 Every net's resistor network (:mod:`placer.parasitics`) becomes resistors between nodes
-``<net>_<k>``; the net's pin node is the net's own name, so a test bench attaches its
-sources by net name. Each unit's terminal connects to its node of that network. The
-capacitance of each wire piece to ground and the coupling between nets are lumped onto
-the nearest nodes. Dummies are left out (they carry no current).
+``<net>_<k>`` (nodes a zero-ohm wire joins are one); the net's pin node is the net's
+own name, so a test bench attaches its sources by net name. Each unit's terminal
+connects to its node of that network. The capacitance of each wire piece to ground and
+the coupling between nets are lumped onto the nearest nodes. Dummies are left out (they
+carry no current).
 
 The devices are illustrative, from the spec alone: a level-1 (square-law) MOS whose
 transconductance factor gives each finger ``[electrical] unit_current_ua`` at the
@@ -21,7 +22,7 @@ import re
 from placer.parasitics import Parasitics
 from placer.spec import Spec
 
-__all__ = ["netlist", "subckt_name", "node_name", "VTO_V"]
+__all__ = ["netlist", "subckt_name", "VTO_V"]
 
 #: Threshold of the illustrative MOS model (V).
 VTO_V = 0.5
@@ -33,13 +34,32 @@ def subckt_name(spec: Spec) -> str:
     return _SAFE.sub("_", spec.name).upper() + "_ARRAY"
 
 
-def node_name(net: str, node: int, pin: int | None) -> str:
-    """SPICE node of a network node: the net's name at its pin, ``<net>_<k>`` elsewhere."""
-    return net if pin is not None and node == pin else f"{net}_{node}"
-
-
 def _value(v: float, unit: str) -> str:
     return f"{v:.6g}{unit}"
+
+
+def _merged(par: Parasitics) -> dict[str, dict[int, str]]:
+    """Each network node's SPICE name, nodes joined by zero-ohm wires merged into one
+    (a resistor of nothing would only make the circuit matrix ill-conditioned)."""
+    names: dict[str, dict[int, str]] = {}
+    for net, nw in par.networks.items():
+        parent = list(range(nw.n_nodes))
+
+        def find(k: int, parent: list[int] = parent) -> int:
+            while parent[k] != k:
+                parent[k] = parent[parent[k]]
+                k = parent[k]
+            return k
+
+        for (i, j), ohm in zip(nw.edges.tolist(), nw.ohms.tolist(), strict=True):
+            if ohm <= 0.0:
+                ri, rj = find(i), find(j)
+                if ri != rj:
+                    parent[max(ri, rj)] = min(ri, rj)
+        pin_root = find(nw.pin) if nw.pin is not None else None
+        names[net] = {k: (net if find(k) == pin_root else f"{net}_{find(k)}")
+                      for k in range(nw.n_nodes)}
+    return names
 
 
 def netlist(spec: Spec, par: Parasitics) -> str:
@@ -72,11 +92,12 @@ def netlist(spec: Spec, par: Parasitics) -> str:
     ports = [n for n, nw in par.networks.items() if nw.pin is not None]
     lines.append(f".subckt {subckt_name(spec)} " + " ".join(ports))
     # units
+    named = _merged(par)
     term_node: dict[tuple[tuple[int, int], str], str] = {}
     for net, nw in par.networks.items():
         for ti, node in zip(nw.tap_index, nw.tap_nodes, strict=True):
             t = par.taps[ti]
-            term_node[t.slot, t.terminal] = node_name(net, node, nw.pin)
+            term_node[t.slot, t.terminal] = named[net][node]
     order = {"mos": ("drain", "gate", "source"), "cap": ("top", "bottom"),
              "res": ("a", "b")}[kind]
     sub = {"mos": "placer_mos", "cap": "placer_cap", "res": "placer_res"}[kind]
@@ -88,23 +109,21 @@ def netlist(spec: Spec, par: Parasitics) -> str:
     k = 0
     for net, nw in par.networks.items():
         for (i, j), ohm in zip(nw.edges.tolist(), nw.ohms.tolist(), strict=True):
-            if i == j:
+            a, b = named[net][i], named[net][j]
+            if a == b:
                 continue
             k += 1
-            lines.append(f"RW{k} {node_name(net, i, nw.pin)} {node_name(net, j, nw.pin)} "
-                         f"{_value(max(ohm, 1e-6), '')}")
+            lines.append(f"RW{k} {a} {b} {_value(ohm, '')}")
     k = 0
     for net, node, ff in par.node_ground:
         if ff <= 0:
             continue
         k += 1
-        nw = par.networks[net]
-        lines.append(f"CG{k} {node_name(net, node, nw.pin)} 0 {_value(ff, 'f')}")
+        lines.append(f"CG{k} {named[net][node]} 0 {_value(ff, 'f')}")
     for a, na, b, nb, ff in par.node_couplings:
         if ff <= 0:
             continue
         k += 1
-        lines.append(f"CC{k} {node_name(a, na, par.networks[a].pin)} "
-                     f"{node_name(b, nb, par.networks[b].pin)} {_value(ff, 'f')}")
+        lines.append(f"CC{k} {named[a][na]} {named[b][nb]} {_value(ff, 'f')}")
     lines.append(f".ends {subckt_name(spec)}")
     return "\n".join(lines) + "\n"

@@ -46,9 +46,9 @@ __all__ = ["Network", "TapFigure", "Coupling", "NetFigures", "Parasitics", "extr
 #: Coupling is counted out to this many minimum spacings.
 REACH = 3.0
 #: Nets of at most this many terminal nodes get every terminal's resistance solved...
-EXACT_TAPS = 2048
+EXACT_TAPS = 1024
 #: ... larger ones those of the terminals farthest from the pin by path resistance.
-FARTHEST_TAPS = 512
+FARTHEST_TAPS = 256
 _EPS = 1e-9
 
 
@@ -561,24 +561,42 @@ def extract(wiring: Wiring, routing: RoutingSpec, rules: Rules) -> Parasitics:
         c_face = routing.coupling_ff_per_um * length * smin / gap
         area = np.where(cross, ox * oy, 0.0)
         c = np.where(face_h | face_v, c_face, 0.0) + routing.overlap_ff_per_um2 * area
-        hit = (face_h | face_v | cross)
-        for k in np.nonzero(hit)[0].tolist():
-            na, nb = net_names[i[k]], net_names[j[k]]
-            key = (na, nb) if order_key(na, order) <= order_key(nb, order) else (nb, na)
-            e = coup[key]
-            e[0] += float(c[k])
-            if face_h[k] or face_v[k]:
-                e[1] += float(length[k])
-                if gap[k] <= smin[k] + 1e-6:
-                    e[2] += float(length[k])
-            e[3] += float(area[k])
-            # lump onto the nearest node of each shape (netlist)
-            mx = (max(a[k, 0], b[k, 0]) + min(a[k, 2], b[k, 2])) / 2
-            my = (max(a[k, 1], b[k, 1]) + min(a[k, 3], b[k, 3])) / 2
-            n1 = lumps.node(na, int(inst[i[k]]), rects[i[k]], mx, my)
-            n2 = lumps.node(nb, int(inst[j[k]]), rects[j[k]], mx, my)
-            nk = (na, n1, nb, n2) if (na, n1) <= (nb, n2) else (nb, n2, na, n1)
-            node_c[nk] += float(c[k])
+        hit = np.nonzero(face_h | face_v | cross)[0]
+        i, j, a, b = i[hit], j[hit], a[hit], b[hit]
+        c, length, area = c[hit], length[hit], area[hit]
+        facing = (face_h | face_v)[hit]
+        at_min = facing & (gap[hit] <= smin[hit] + 1e-6)
+        # each net pair once, in the block's net order
+        rank = np.array([order_key(n, order)[0] for n in names], dtype=np.int64)
+        ra, rb = rank[net_id[i]], rank[net_id[j]]
+        first = (ra < rb) | ((ra == rb) & (net_id[i] <= net_id[j]))
+        lo_id = np.where(first, net_id[i], net_id[j])
+        hi_id = np.where(first, net_id[j], net_id[i])
+        code = lo_id * len(names) + hi_id
+        uniq, inv = np.unique(code, return_inverse=True)
+        sums = [np.bincount(inv, weights=w, minlength=len(uniq))
+                for w in (c, np.where(facing, length, 0.0), np.where(at_min, length, 0.0),
+                          area)]
+        for k, cd in enumerate(uniq.tolist()):
+            key = (names[cd // len(names)], names[cd % len(names)])
+            coup[key] = [float(v[k]) for v in sums]
+        # lumped onto the nearest node of each shape (the netlist's capacitors)
+        mx = (np.maximum(a[:, 0], b[:, 0]) + np.minimum(a[:, 2], b[:, 2])) / 2
+        my = (np.maximum(a[:, 1], b[:, 1]) + np.minimum(a[:, 3], b[:, 3])) / 2
+        n1 = lumps.nodes(i, net_names, inst, rects, mx, my)
+        n2 = lumps.nodes(j, net_names, inst, rects, mx, my)
+        g1 = np.where(first, net_id[i], net_id[j])
+        m1 = np.where(first, n1, n2)
+        g2 = np.where(first, net_id[j], net_id[i])
+        m2 = np.where(first, n2, n1)
+        srt = np.lexsort((m2, g2, m1, g1))
+        cols = np.stack([g1, m1, g2, m2])[:, srt]
+        if len(srt):
+            starts = np.flatnonzero(np.r_[True, np.any(np.diff(cols, axis=1) != 0, axis=0)])
+            summed = np.add.reduceat(c[srt], starts)
+            for k, st in enumerate(starts.tolist()):
+                node_c[(names[cols[0, st]], int(cols[1, st]), names[cols[2, st]],
+                        int(cols[3, st]))] += float(summed[k])
     couplings = [Coupling(a_, b_, v[0], v[1], v[2], v[3]) for (a_, b_), v in coup.items()]
     couplings.sort(key=lambda c_: (order_key(c_.a, order), order_key(c_.b, order)))
     total_c: dict[str, float] = defaultdict(float)
@@ -651,6 +669,37 @@ class _Lumps:
                 if ev:       # events are sorted along the strip
                     self.strip.setdefault((net, _key(w)), (w, ev, [e[0] for e in ev]))
         self.networks = par_networks
+
+    def nodes(self, idx: NDArray[np.int64], net_names: list[str], inst: NDArray[np.int64],
+              rects: NDArray[np.float64], xs: NDArray[np.float64], ys: NDArray[np.float64]
+              ) -> NDArray[np.int64]:
+        """:meth:`node` for many couplings at once: shape ``idx[k]`` at (xs[k], ys[k])."""
+        out = np.zeros(len(idx), dtype=np.int64)
+        if not len(idx):
+            return out
+        order = np.argsort(idx, kind="stable")
+        for grp in np.split(order, np.flatnonzero(np.diff(idx[order])) + 1):
+            shape = int(idx[grp[0]])
+            net = net_names[shape]
+            k = _key(rects[shape])
+            if inst[shape] >= 0 and (net, k) in self.pad:
+                out[grp] = self.pad[net, k]
+                continue
+            hit = self.strip.get((net, k))
+            if hit is None:
+                for g in grp.tolist():
+                    out[g] = self.node(net, int(inst[shape]), rects[shape], float(xs[g]),
+                                       float(ys[g]))
+                continue
+            w, ev, cuts = hit
+            at = xs[grp] if _axis(w) == 0 else ys[grp]
+            cut = np.asarray(cuts)
+            q = np.searchsorted(cut, at, side="left")
+            lo = np.clip(q - 1, 0, len(cut) - 1)
+            hi = np.clip(q, 0, len(cut) - 1)
+            pick = np.where(np.abs(cut[lo] - at) <= np.abs(cut[hi] - at), lo, hi)
+            out[grp] = np.array([e[1] for e in ev], dtype=np.int64)[pick]
+        return out
 
     def node(self, net: str, inst: int, rect: NDArray[np.float64], x: float, y: float
              ) -> int:
