@@ -361,6 +361,7 @@ def _ratio_budget(pattern: Pattern, spec: Spec, grade: Grade, e: ElectricalSpec,
         assumptions.update({"a_param_pct_um": spec.mismatch.a_param_pct_um})
     if wiring is not None:
         assumptions.update({"wiring": wiring.counted, "wiring_missing": wiring.missing,
+                            "wiring_notes": list(wiring.notes),
                             "unit_current_ua": e.unit_current_ua, "unit_ohm": e.unit_ohm})
     return MirrorBudget(spec.kind, ref, e.k_sigma, e.tolerance_pct, tuple(lines), assumptions)
 

@@ -272,6 +272,7 @@ def format_budget(b: Any) -> str:
         missing = b.assumptions.get("wiring_missing")
         out.append(f"  wire = the drawn wiring: {b.assumptions.get('wiring', '')}"
                    + (f" (not counted: give {missing})" if missing else ""))
+        out += [f"  {note}" for note in b.assumptions.get("wiring_notes", [])]
     for ln in b.lines:
         out.append(f"  {ln.device}: {ln.dominant} dominates; cure: {ln.cure}.")
     return "\n".join(out)
@@ -287,8 +288,8 @@ def format_nets(wiring: Any, max_rows: int = 40, area: Any = None) -> str:
         rows.append([n.name, terms if len(terms) <= 40 else terms[:37] + "...", str(n.units),
                      f"{n.wire_um:.4g}", str(n.vias), f"{n.resistance_ohm:.3g}",
                      f"{n.capacitance_ff:.3g}"])
-    eff = (f"; units fill {100 * area.unit_fraction:.1f}% of it, the array of slots "
-           f"{100 * area.array_fraction:.1f}%" if area is not None else "")
+    eff = (f"; units fill {100 * area.unit_fraction:.1f}% of it"
+           if area is not None else "")
     out = [f"Layout: {w:.4g} x {h:.4g} um{eff}; {wiring.channel_tracks} tracks in the "
            "fullest channel; every net routed to a pin at the block's top edge (R: its "
            "worst terminal to the pin; C: to ground and to the other nets; from the "

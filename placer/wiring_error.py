@@ -50,6 +50,8 @@ class WiringEffect:
     relative: dict[str, float]
     counted: str
     missing: str = ""
+    #: more the budget prints beside the term (a pair's gate-drain coupling)
+    notes: tuple[str, ...] = ()
 
 
 def wiring_effect(spec: Spec, par: Parasitics, e: ElectricalSpec) -> WiringEffect:
@@ -103,7 +105,24 @@ def _mos(spec: Spec, par: Parasitics, e: ElectricalSpec) -> WiringEffect:
         per_device[dev].append(e.gm_id_per_v * (v["gate"] - v["source"])
                                + lam * (v["drain"] - v["source"]))
     rel = {d: float(np.mean(per_device[d])) if per_device[d] else 0.0 for d in spec.devices}
-    return WiringEffect(rel, counted)
+    return WiringEffect(rel, counted, notes=_miller(spec, par))
+
+
+def _miller(spec: Spec, par: Parasitics) -> tuple[str, ...]:
+    """Each device's wiring coupling from its gate to its own drain, where two or more
+    devices have gates and drains of their own (a differential pair): an unequal Miller
+    capacitance upsets the pair's balance in transients."""
+    own = {d: (n["gate"], n["drain"]) for d, n in zip(spec.devices, spec.nets, strict=True)
+           if n.get("gate") and n.get("drain") and n["gate"] != n["drain"]}
+    gates = [g for g, _ in own.values()]
+    drains = [dr for _, dr in own.values()]
+    if len(own) < 2 or len(set(gates)) < len(gates) or len(set(drains)) < len(drains):
+        return ()
+    c = {d: par.coupling(g, dr).c_ff for d, (g, dr) in own.items()}
+    hi, lo = max(c.values()), min(c.values())
+    spread = f"{100 * (hi - lo) / hi:.3g}% apart" if hi > 0 else "none"
+    return ("gate to own drain (wiring): " + ", ".join(f"{d} {v:.3g} fF" for d, v in c.items())
+            + f" ({spread})",)
 
 
 def _res(spec: Spec, par: Parasitics, e: ElectricalSpec) -> WiringEffect:

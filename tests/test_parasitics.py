@@ -223,3 +223,18 @@ def test_no_facing_means_no_coupling_and_resistance_scales_with_sheet(tmp_path):
             assert y == pytest.approx(10 * x, rel=1e-9)
     assert all(c.c_ff == 0.0 for c in b10.parasitics.couplings)
     assert not math.isnan(sum(n.capacitance_ff for n in b10.wiring.nets))
+
+
+def test_the_pairs_gate_drain_coupling_note_is_the_checkers(tmp_path):
+    """The budget's note on a pair's gate-to-own-drain wiring coupling gives the
+    independent checker's coupling of those nets (to the 3 digits it prints)."""
+    import re
+
+    from placer.wiring_error import wiring_effect
+
+    block, measured = _arranged(tmp_path, "input_pair")
+    notes = wiring_effect(block.spec, block.parasitics, block.spec.electrical).notes
+    assert len(notes) == 1
+    shown = dict(re.findall(r"(MIN[PN]) ([0-9.e+-]+) fF", notes[0]))
+    for dev, (g, d) in {"MINP": ("INP", "OUTN"), "MINN": ("INN", "OUTP")}.items():
+        assert float(shown[dev]) == pytest.approx(_coupling(measured, g, d)["c_ff"], rel=2e-3)
