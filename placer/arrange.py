@@ -55,6 +55,10 @@ class Candidate:
     systematic_ppm: float
     routing_um: float
     source: str = ""
+    #: with the wiring weighed (``arrange(weigh=...)``): the routed block's worst-pair
+    #: wiring error (ppm) and its area (um2)
+    wiring_ppm: float | None = None
+    block_um2: float | None = None
 
 
 @dataclass(frozen=True)
@@ -101,6 +105,7 @@ class Arrangement:
             "routing": asdict(self.routing),
             "grade": self.grade.to_dict(),
             "candidates": [{"systematic_ppm": c.systematic_ppm, "routing_um": c.routing_um,
+                            "wiring_ppm": c.wiring_ppm, "block_um2": c.block_um2,
                             "keys": asdict(c.keys), "source": c.source}
                            for c in self.candidates],
             "candidates_against": self.front_reference or None,
@@ -289,6 +294,12 @@ class _Tried:
 
 #: Maps an arrangement and a spec to the spec at the pitch that arrangement's routing needs.
 PitchFit = Callable[[Pattern, Spec], Spec]
+#: Maps an arrangement and a spec to its routed block's worst-pair wiring error (ppm) and
+#: area (um2) (:meth:`placer.drawing.Tools.weigh`).
+Weigh = Callable[[Pattern, Spec], tuple[float, float]]
+#: With [search] wiring, this many of the kept arrangements (least gradient error first)
+#: are routed and weighed.
+WIRING_POOL = 12
 
 
 def default_fit(pattern: Pattern, spec: Spec) -> Spec:
@@ -356,7 +367,7 @@ def _pick(tried: list[_Tried]) -> _Tried:
 def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
             time_limit_s: float = DEFAULT_TIME_LIMIT_S, n_candidates: int = 0,
             progress: Callable[[str, Keys], None] | None = None,
-            fit: PitchFit | None = default_fit) -> Arrangement:
+            fit: PitchFit | None = default_fit, weigh: Weigh | None = None) -> Arrangement:
     """Search the spec's shapes for the best arrangement and score it in full.
 
     Parameters
@@ -422,6 +433,12 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
     stopped = ("interrupted" if interrupted else "time limit" if cut
                else out.stopped if out else "converged")
     searched = best.spec if best.spec is not None else spec
+    if weigh is not None and spec.search.wiring and not interrupted:
+        chosen = _weighed_choice(searched, best, weigh)
+        if chosen is not best.assign:
+            best = replace(best, assign=chosen, keys=keys_of(best.prob, chosen),
+                           method=best.method + ", then the least gradient + wiring error")
+            out = None                  # the search's proof and bound were for another
     pattern = build_pattern(searched, best.assign, rows, cols)
     final = fit(pattern, searched) if fit is not None else searched
     proven = out.proven if out is not None and best.method == out.method else ""
@@ -442,7 +459,8 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
     spec = final
     grade = grade_pattern(pattern, spec)
     routing = estimate_routing(pattern, spec.array.pitch_um, spec.kind == "mos", _nets(spec))
-    cands, against = _candidates(spec, best, n_candidates) if n_candidates else ((), "")
+    cands, against = (_candidates(spec, best, n_candidates, weigh) if n_candidates
+                      else ((), ""))
     return Arrangement(
         pattern=pattern, grade=grade, routing=routing, keys=best.keys, method=best.method,
         core_shape=(rows, cols),
@@ -476,33 +494,71 @@ def _shape_reason(spec: Spec, tried: list[_Tried], best: _Tried, untried: int = 
             f"over {others}{late}")
 
 
-def _candidates(spec: Spec, best: _Tried, k: int) -> tuple[tuple[Candidate, ...], str]:
-    """Up to K arrangements on the front of gradient error against routing effort: none
-    is worse on both than another. Each names where it came from; the text returned
-    names the baseline that does best on each axis, the yardstick of the front."""
-    prob = best.prob
-    rows, cols = best.shape
+def _pool(best: _Tried) -> dict[bytes, tuple[IntArray, str]]:
+    """The arrangements a shape's search kept: its result, its chains' results and the
+    baselines, each with where it came from."""
     pool: dict[bytes, tuple[IntArray, str]] = {best.assign.tobytes(): (best.assign, "result")}
     if best.result is not None:
         for i, (assign, _) in enumerate(best.result.archive):
             pool.setdefault(assign.tobytes(), (assign, f"search, chain result {i + 1}"))
     for name, (a, _) in best.baselines.items():
         pool.setdefault(a.tobytes(), (a, f"baseline {name}"))
+    return pool
+
+
+def _weighed_choice(spec: Spec, best: _Tried, weigh: Weigh) -> IntArray:
+    """Among the WIRING_POOL kept arrangements of least gradient error, the one of least
+    gradient + wiring error (worst pair each, ppm); ties keep the search's order."""
+    rows, cols = best.shape
+    ranked = sorted(_pool(best).values(),
+                    key=lambda a: _systematic(best.prob, keys_of(best.prob, a[0])))
+    choice, least = best.assign, math.inf
+    for assign, _ in ranked[:WIRING_POOL]:
+        total = (_systematic(best.prob, keys_of(best.prob, assign))
+                 + weigh(build_pattern(spec, assign, rows, cols), spec)[0])
+        if total < least - 1e-12:
+            choice, least = assign, total
+    return choice
+
+
+def _candidates(spec: Spec, best: _Tried, k: int, weigh: Weigh | None = None
+                ) -> tuple[tuple[Candidate, ...], str]:
+    """Up to K arrangements on the front of gradient error against routing effort: none
+    is worse on both than another. With ``weigh``, the front is of gradient error, the
+    routed block's wiring error and its area, over the WIRING_POOL kept arrangements of
+    least gradient error and the baselines. Each names where it came from; the text
+    returned names the baseline that does best on each axis, the yardstick of the
+    front."""
+    prob = best.prob
+    rows, cols = best.shape
+    pool = _pool(best)
+    if weigh is not None:
+        ranked = sorted(pool.values(), key=lambda a: _systematic(prob, keys_of(prob, a[0])))
+        keep = ranked[:WIRING_POOL] + [a for a in ranked[WIRING_POOL:]
+                                       if a[1].startswith("baseline ")]
+        pool = {a.tobytes(): (a, s) for a, s in keep}
     scored = []
     for assign, source in pool.values():
         keys = keys_of(prob, assign)
         pattern = build_pattern(spec, assign, rows, cols)
         route = estimate_routing(pattern, spec.array.pitch_um, spec.kind == "mos", _nets(spec))
+        wiring_ppm = block_um2 = None
+        if weigh is not None:
+            wiring_ppm, block_um2 = weigh(pattern, spec)
         scored.append(Candidate(pattern, keys, _systematic(prob, keys), route.total_tree_um,
-                                source))
+                                source, wiring_ppm, block_um2))
+
+    def axes(c: Candidate) -> tuple[float, ...]:
+        if c.wiring_ppm is not None and c.block_um2 is not None:
+            return (c.systematic_ppm, c.wiring_ppm, c.block_um2)
+        return (c.systematic_ppm, c.routing_um)
+
     front = [c for c in scored
-             if not any((o.systematic_ppm <= c.systematic_ppm and o.routing_um <= c.routing_um
-                         and (o.systematic_ppm, o.routing_um) != (c.systematic_ppm,
-                                                                  c.routing_um))
-                        for o in scored)]
-    uniq: dict[tuple[float, float], Candidate] = {}
-    for c in sorted(front, key=lambda c: (c.systematic_ppm, c.routing_um)):
-        uniq.setdefault((round(c.systematic_ppm, 9), round(c.routing_um, 6)), c)
+             if not any(all(u <= v for u, v in zip(axes(o), axes(c), strict=True))
+                        and axes(o) != axes(c) for o in scored)]
+    uniq: dict[tuple[float, ...], Candidate] = {}
+    for c in sorted(front, key=axes):
+        uniq.setdefault(tuple(round(v, 6) for v in axes(c)), c)
     base = [c for c in scored if c.source.startswith("baseline ")]
     against = ""
     if base:

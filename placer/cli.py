@@ -417,7 +417,7 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
         try:
             result = run_arrange(spec, method=method, seed=seed, time_limit_s=time_limit,
                                  n_candidates=n_candidates, progress=progress,
-                                 fit=tools.fit)
+                                 fit=tools.fit, weigh=tools.weigh)
         finally:
             progress.done()
         spec = result.spec or spec           # at the pitch its routing needs
@@ -437,7 +437,9 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
 
                 out.write(f"candidate-{i}.txt", format_pattern(cand.pattern, [
                     f"{spec.name} candidate {i} ({cand.source}): systematic "
-                    f"{cand.systematic_ppm:.6g} ppm, routing {cand.routing_um:.6g} um",
+                    f"{cand.systematic_ppm:.6g} ppm, routing {cand.routing_um:.6g} um"
+                    + (f", wiring {cand.wiring_ppm:.6g} ppm, block {cand.block_um2:.6g} um2"
+                       if cand.wiring_ppm is not None else ""),
                     result.front_reference]))
                 save_preview(cand.pattern, spec.array.pitch_um,
                              grade_pattern(cand.pattern, spec),

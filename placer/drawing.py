@@ -40,6 +40,19 @@ class Tools:
 
         return fitted(pattern, spec, self.rules, user=self.user)
 
+    def weigh(self, pattern: Pattern, spec: Spec) -> tuple[float, float]:
+        """The routed block of ``pattern`` (at the pitch its routing needs): its worst-pair
+        wiring error in ppm (:mod:`placer.wiring_error`; the spec's [electrical] figures,
+        else their defaults) and its area in um2."""
+        from placer.spec import ElectricalSpec
+        from placer.wiring_error import wiring_effect
+
+        block = prepare(pattern, spec, self)
+        rel = list(wiring_effect(block.spec, block.parasitics,
+                                 spec.electrical or ElectricalSpec()).relative.values())
+        ppm = 1e6 * (max(rel) - min(rel)) if rel else 0.0
+        return ppm, area_of(block).block_um2
+
 
 @dataclass(frozen=True)
 class Block:
@@ -112,7 +125,9 @@ class Area:
     units_um2: float          # every unit's W x L (dummies not counted)
     array_um2: float          # every slot of the array, pitch x pitch (dummies included)
     unit_fraction: float      # units_um2 / block_um2: the area efficiency
-    array_fraction: float     # array_um2 / block_um2: what the routing beside it costs
+    # array_um2 / block_um2: what the routing beside the array costs (above 1 where the
+    # last row's pitch holds a channel the block does not draw)
+    array_fraction: float
 
 
 def area_of(block: Block) -> Area:

@@ -201,6 +201,9 @@ class SearchSpec:
     objective: str = "lexicographic"
     cancel_order: int = 2
     relative_tie: float = 1e-9
+    #: the drawn wiring's error joins the objective: among the arrangements the search
+    #: kept, the least gradient + wiring error wins (each one routed and extracted)
+    wiring: bool = False
 
 
 FITS = ("endpoint", "best")
@@ -388,7 +391,7 @@ _SCHEMA: dict[str, tuple[str, ...]] = {
     "correlated": ("sigma_ppm", "length_um", "kernel"),
     "mismatch": ("a_param_pct_um", "a_vt_mv_um"),
     "monte_carlo": ("samples", "seed"),
-    "search": ("objective", "cancel_order", "relative_tie"),
+    "search": ("objective", "cancel_order", "relative_tie", "wiring"),
     "routing": ("metal1_ohm_per_sq", "metal2_ohm_per_sq", "via_ohm", "wire_ff_per_um",
                 "coupling_ff_per_um", "overlap_ff_per_um2"),
     "electrical": ("reference", "vov_v", "gm_id_per_v", "lambda_per_v", "vds_v",
@@ -765,6 +768,7 @@ def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") 
         se.choice("objective", ds.objective, OBJECTIVES),
         se.integer("cancel_order", ds.cancel_order, low=1, high=4) or ds.cancel_order,
         tie,
+        se.flag("wiring", ds.wiring),
     )
 
     electrical = None
