@@ -463,7 +463,7 @@ def _shapes(wiring: Wiring) -> tuple[NDArray[np.float64], NDArray[np.int64], lis
 
 def _candidate_pairs(rects: NDArray[np.float64], reach: float) -> NDArray[np.int64]:
     """Index pairs (i < j) of rectangles that come within ``reach`` of each other (a
-    uniform grid; each pair once)."""
+    uniform grid of cells about the reach wide; each pair once)."""
     n = len(rects)
     if n < 2:
         return np.zeros((0, 2), dtype=np.int64)
@@ -491,13 +491,17 @@ def _candidate_pairs(rects: NDArray[np.float64], reach: float) -> NDArray[np.int
         if not np.any(same):
             break
         a, b = owner[:-d][same], owner[d:][same]
-        pairs.append(np.stack([np.minimum(a, b), np.maximum(a, b)], axis=1))
+        # only pairs really within reach (a cell holds many that are not)
+        ra, rb = rects[a], rects[b]
+        near = ((np.maximum(ra[:, 0], rb[:, 0]) - np.minimum(ra[:, 2], rb[:, 2]) <= reach)
+                & (np.maximum(ra[:, 1], rb[:, 1]) - np.minimum(ra[:, 3], rb[:, 3]) <= reach)
+                & (a != b))
+        a, b = a[near], b[near]
+        pairs.append(np.minimum(a, b) * n + np.maximum(a, b))
         d += 1
     if not pairs:
         return np.zeros((0, 2), dtype=np.int64)
-    allp = np.concatenate(pairs)
-    allp = allp[allp[:, 0] != allp[:, 1]]
-    code = np.unique(allp[:, 0] * n + allp[:, 1])      # one int per pair: a fast unique
+    code = np.unique(np.concatenate(pairs))      # one int per pair: a fast unique
     return np.stack([code // n, code % n], axis=1)
 
 
