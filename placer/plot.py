@@ -456,10 +456,10 @@ def save_budget(b: Any, name: str, paths: Sequence[Path], seed: int = 0,
         colour = colours[index[ln.device]][0] if ln.device in index else PALETTE[k % 8]
         m = 20000
         theta = rng.uniform(0, 2 * np.pi, m)
-        # the linear part turns with the gradient; the curvature part (worst sign) and
-        # channel-length modulation do not
-        sample = (ln.clm_pct + ln.quadratic_pct + ln.gradient_pct * np.cos(theta)
-                  + rng.normal(0, ln.random_sigma_pct, m))
+        # the linear part turns with the gradient; the curvature part (worst sign),
+        # channel-length modulation and the drawn wiring do not
+        sample = (ln.clm_pct + (ln.wiring_pct or 0.0) + ln.quadratic_pct
+                  + ln.gradient_pct * np.cos(theta) + rng.normal(0, ln.random_sigma_pct, m))
         ax.hist(sample, bins=80, color=colour, edgecolor="none")
         for v in (-b.tolerance_pct, b.tolerance_pct):
             ax.axvline(v, color="black", ls="--", lw=1)
