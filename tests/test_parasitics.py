@@ -238,3 +238,33 @@ def test_the_pairs_gate_drain_coupling_note_is_the_checkers(tmp_path):
     shown = dict(re.findall(r"(MIN[PN]) ([0-9.e+-]+) fF", notes[0]))
     for dev, (g, d) in {"MINP": ("INP", "OUTN"), "MINN": ("INN", "OUTP")}.items():
         assert float(shown[dev]) == pytest.approx(_coupling(measured, g, d)["c_ff"], rel=2e-3)
+
+
+def test_dac_wiring_term_is_the_hand_calculated_transfer_from_the_checkers_couplings(
+        tmp_path):
+    """The top plate's coupling to each bit, read by the independent checker, added to
+    that bit's capacitance (C_b = n_b C_u + C_top,b); the charge-redistribution transfer
+    V(k) = sum of the switched C_b / sum of all C; INL and DNL against the end-point line
+    in LSB (IEEE Std 1658-2011 definitions), computed here by hand."""
+    from placer.budget import budget
+    from placer.score import grade_pattern
+
+    block, measured = _arranged(tmp_path, "sar_cdac")
+    spec = block.spec
+    e = spec.electrical
+    assert e.fit == "endpoint" and e.unit_cap_ff
+    pattern = block.pattern
+    bud = budget(pattern, spec, grade_pattern(pattern, spec), block.parasitics)
+    count = dict(zip(spec.devices, spec.counts, strict=True))
+    cap = {d: count[d] * e.unit_cap_ff + _coupling(measured, "TOP", f"{d}_BOT")["c_ff"]
+           for d in spec.devices}
+    bits = sorted((d for d in spec.devices if d != e.termination), key=lambda d: count[d])
+    total = sum(cap.values())
+    codes = np.arange(2 ** len(bits))
+    v = np.array([sum(cap[b] for i, b in enumerate(bits) if k >> i & 1) for k in codes]) / total
+    lsb = (v[-1] - v[0]) / (len(codes) - 1)
+    inl = (v - (v[0] + codes * lsb)) / lsb
+    dnl = np.diff(v) / lsb - 1.0
+    assert bud.wiring_inl_lsb == pytest.approx(np.abs(inl).max(), rel=1e-2, abs=1e-7)
+    assert bud.wiring_dnl_lsb == pytest.approx(np.abs(dnl).max(), rel=1e-2, abs=1e-7)
+    assert bud.wiring_dnl_lsb > 1e-5          # the coupling is not the same per unit
