@@ -92,6 +92,7 @@ def _user_errors(func: F) -> F:
         # from here it is a KeyboardInterrupt the command handles (Python runs a pending
         # handler before it installs a new one, so none falls between the two)
         signal.signal(signal.SIGINT, signal.default_int_handler)
+        term = signal.getsignal(signal.SIGTERM)      # a command may take SIGTERM over
         try:
             # overflow and 0/0 inside a model are handled where they matter (figures are
             # checked finite before they are written); numpy's warnings are not for users
@@ -124,6 +125,9 @@ def _user_errors(func: F) -> F:
             if cause is None:
                 raise
             _interrupted()
+        finally:
+            if term is not None:
+                signal.signal(signal.SIGTERM, term)
 
     return wrapper  # type: ignore[return-value]
 
@@ -304,7 +308,8 @@ def grade(layout: Path, spec_path: Path | None, as_json: bool, budget_plot: Path
 
 
 def _sigterm_as_interrupt() -> None:
-    """Let SIGTERM stop a search the way Ctrl-C does, so the best result is kept."""
+    """Let SIGTERM stop a search the way Ctrl-C does, so the best result is kept (until
+    the command ends: :func:`_user_errors` puts the handler before it back)."""
     def handler(signum: int, frame: object) -> None:
         raise KeyboardInterrupt
 

@@ -245,6 +245,31 @@ def n_restarts(time_limit_s: float) -> int:
     return int(np.clip(round(RESTARTS_PER_S * time_limit_s), 1, MAX_RESTARTS))
 
 
+#: Signals held back across the fork: the child sets its own handlers before it takes any.
+_HELD = ("SIGINT", "SIGTERM")
+
+
+def _held() -> set[Any]:
+    import signal
+
+    return {getattr(signal, name) for name in _HELD}
+
+
+def _worker_entry(*args: Any) -> None:
+    """The second process's start: Ctrl-C ignored (the parent handles it), SIGTERM the
+    system's default (the parent stops it so), and only then the signals the fork held
+    back let through; then :func:`_worker` (looked up now, so a test may replace it).
+    A handler inherited from the parent (one that raises) must never run here: raised
+    before the worker's own code, it would unwind into the parent's copied stack."""
+    import signal
+
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    if hasattr(signal, "pthread_sigmask"):
+        signal.pthread_sigmask(signal.SIG_UNBLOCK, _held())
+    _worker(*args)
+
+
 def _worker(send: Any, comp: Compiled, start: IntArray, seed: int, deadline: float,
             floor: float, restarts: int) -> None:
     """Second process: its own chains, sent back through the pipe."""
@@ -317,9 +342,19 @@ def search(prob: Problem, *, seed: int = 0, time_limit_s: float = 60.0,
 
             ctx = mp.get_context("fork")
             recv, send = ctx.Pipe(duplex=False)
-            child = (ctx.Process(target=_worker, args=(send, comp, start, seeds[1], deadline,
-                                                      floor, restarts), daemon=True), recv)
-            child[0].start()
+            child = (ctx.Process(target=_worker_entry, args=(send, comp, start, seeds[1],
+                                                            deadline, floor, restarts),
+                                 daemon=True), recv)
+            import signal
+
+            if hasattr(signal, "pthread_sigmask"):
+                before = signal.pthread_sigmask(signal.SIG_BLOCK, _held())
+                try:
+                    child[0].start()
+                finally:
+                    signal.pthread_sigmask(signal.SIG_SETMASK, before)
+            else:
+                child[0].start()
             send.close()
         found += _chains(comp, start, seeds[0], deadline, floor, progress, run, restarts)
         if run.status == 2:
