@@ -16,6 +16,7 @@ from placer.errors import SpecError
 from placer.pattern import parse_pattern
 from placer.score import grade_pattern
 from placer.spec import parse_spec
+from tests.specs import tiny_mirror
 
 MIRROR = """
 [devices]
@@ -247,27 +248,7 @@ def test_resistor_wiring_term_is_the_hand_calculation_from_the_independent_check
     assert abs(h10) > 5 * abs(h1)
 
 
-_MIRROR_WIRED = """name = "wired_mirror"
-[devices]
-MREF = 2
-MOUT = 4
-[array]
-rows = 2
-[unit]
-width_um = 2.0
-length_um = 1.0
-[terminals]
-MREF = { gate = "VB", drain = "VB", source = "VSS" }
-MOUT = { gate = "VB", drain = "OUT", source = "VSS" }
-[electrical]
-reference = "MREF"
-vov_v = 0.2
-lambda_per_v = 0.05
-unit_current_ua = 20.0
-[electrical.vds_v]
-MREF = 0.7
-MOUT = 0.7
-"""
+_MIRROR_WIRED = tiny_mirror(lambda_per_v=0.05, unit_current_ua=20.0)
 
 
 def test_mirror_wiring_term_scales_with_the_wire_resistance_and_enters_the_total():

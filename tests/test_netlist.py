@@ -25,32 +25,10 @@ from placer.drawing import layout_of
 from placer.netlist import netlist, subckt_name
 from placer.score import grade_pattern
 from placer.spec import parse_spec
+from tests.specs import tiny_mirror
 
-MIRROR = """name = "tiny_mirror"
-[devices]
-MREF = 2
-MOUT = 4
-[array]
-rows = 2
-[unit]
-width_um = 2.0
-length_um = 1.0
-[terminals]
-MREF = { gate = "VB", drain = "VB", source = "VSS" }
-MOUT = { gate = "VB", drain = "OUT", source = "VSS" }
-[electrical]
-reference = "MREF"
-vov_v = 0.2
-lambda_per_v = 0.0
-unit_current_ua = 50.0
-[electrical.vds_v]
-MREF = 0.7
-MOUT = 0.7
-[routing]
-metal1_ohm_per_sq = 2.0
-metal2_ohm_per_sq = 2.0
-via_ohm = 40.0
-"""
+MIRROR = tiny_mirror(lambda_per_v=0.0, unit_current_ua=50.0, routing=(
+    "[routing]\nmetal1_ohm_per_sq = 2.0\nmetal2_ohm_per_sq = 2.0\nvia_ohm = 40.0\n"))
 
 
 def _ngspice() -> str:
