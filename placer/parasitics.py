@@ -155,10 +155,6 @@ def _axis(r: Rect) -> int:
     return 0 if (r.x1 - r.x0) >= (r.y1 - r.y0) else 1
 
 
-def _inside(r: Rect, x: float, y: float) -> bool:
-    return r.x0 - _EPS <= x <= r.x1 + _EPS and r.y0 - _EPS <= y <= r.y1 + _EPS
-
-
 def _overlap(a: Rect, b: Rect) -> tuple[float, float, float, float] | None:
     x0, y0 = max(a.x0, b.x0), max(a.y0, b.y0)
     x1, y1 = min(a.x1, b.x1), min(a.y1, b.y1)
@@ -430,7 +426,7 @@ def _component(nw: Network, start: int) -> NDArray[np.bool_]:
 
 
 def _shapes(wiring: Wiring) -> tuple[NDArray[np.float64], NDArray[np.int64], list[str],
-                                     list[str], NDArray[np.int64]]:
+                                     list[str], NDArray[np.int64], NDArray[np.int64]]:
     """Every metal shape for coupling: rectangles, layer (0 metal1, 1 metal2), net names,
     net index and unit instance (-1 for a wire)."""
     rects: list[tuple[float, float, float, float]] = []
@@ -458,7 +454,7 @@ def _shapes(wiring: Wiring) -> tuple[NDArray[np.float64], NDArray[np.int64], lis
     idx = {n: i for i, n in enumerate(names)}
     return (np.array(rects, dtype=float).reshape(-1, 4), np.array(layer, dtype=np.int64),
             names, nets, np.array([idx[n] for n in nets], dtype=np.int64),
-            ) + (np.array(inst, dtype=np.int64),)  # type: ignore[return-value]
+            np.array(inst, dtype=np.int64))
 
 
 def _candidate_pairs(rects: NDArray[np.float64], reach: float) -> NDArray[np.int64]:
@@ -539,7 +535,7 @@ def extract(wiring: Wiring, routing: RoutingSpec, rules: Rules) -> Parasitics:
         for ti, r in zip(nw.tap_index, rs, strict=True):
             tap_r[ti] = r if math.isfinite(r) else None
     # capacitance
-    rects, layer, names, net_names, net_id, inst = _shapes_all(wiring)
+    rects, layer, names, net_names, net_id, inst = _shapes(wiring)
     s_min = np.array([rules.metal1_space, rules.metal2_space])
     reach = REACH * float(s_min.max())
     pairs = _candidate_pairs(rects, reach)
@@ -639,12 +635,6 @@ def order_key(net: str, order: list[str]) -> tuple[int, str]:
         return (order.index(net), net)
     except ValueError:
         return (len(order), net)
-
-
-def _shapes_all(wiring: Wiring) -> tuple[NDArray[np.float64], NDArray[np.int64], list[str],
-                                         list[str], NDArray[np.int64], NDArray[np.int64]]:
-    rects, layer, names, nets, net_id, inst = _shapes(wiring)  # type: ignore[misc]
-    return rects, layer, names, nets, net_id, inst
 
 
 def _key(r: NDArray[np.float64] | Rect) -> tuple[int, int, int, int]:
