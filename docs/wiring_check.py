@@ -21,13 +21,13 @@ import numpy as np
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
-from placer.cells import load_rules, spacing_rules  # noqa: E402
 from placer.cli import cli  # noqa: E402
-from placer.drawing import layout_of  # noqa: E402
-from placer.gds import write_gds  # noqa: E402
-from placer.pattern import DUMMY, EMPTY, Pattern  # noqa: E402
-from placer.pitch import fitted  # noqa: E402
-from placer.spec import parse_spec  # noqa: E402
+from placer.io.pattern import DUMMY, EMPTY, Pattern  # noqa: E402
+from placer.io.spec import parse_spec  # noqa: E402
+from placer.layout.block import layout_of  # noqa: E402
+from placer.layout.cells import load_rules, spacing_rules  # noqa: E402
+from placer.layout.gdswrite import write_gds  # noqa: E402
+from placer.layout.pitch import fitted  # noqa: E402
 from tests import extraction  # noqa: E402
 from tests.bench.readme_block import replace_block  # noqa: E402
 
@@ -113,7 +113,7 @@ def routed_row_picture(gds: Path, png: Path, columns: int = 6) -> None:
     from matplotlib.figure import Figure
     from matplotlib.patches import Patch, Polygon
 
-    from placer.layers import load_layers
+    from placer.layout.layers import load_layers
 
     layers = load_layers()
     style = {"diffusion": ("#7fc97f", 0.55), "gate": ("#e7298a", 0.55),

@@ -14,24 +14,24 @@ __version__ = "0.1.0"
 _EXPORTS = {
     "LimitError": "placer.errors", "PatternError": "placer.errors",
     "PlacerError": "placer.errors", "SpecError": "placer.errors",
-    "Pattern": "placer.pattern", "format_pattern": "placer.pattern",
-    "parse_pattern": "placer.pattern", "read_pattern": "placer.pattern",
-    "Grade": "placer.score", "grade_pattern": "placer.score",
-    "Spec": "placer.spec", "load_spec": "placer.spec", "parse_spec": "placer.spec",
+    "Pattern": "placer.io.pattern", "format_pattern": "placer.io.pattern",
+    "parse_pattern": "placer.io.pattern", "read_pattern": "placer.io.pattern",
+    "Grade": "placer.model.grade", "grade_pattern": "placer.model.grade",
+    "Spec": "placer.io.spec", "load_spec": "placer.io.spec", "parse_spec": "placer.io.spec",
 }
 
 __all__ = ["__version__", *_EXPORTS]
 
 if TYPE_CHECKING:  # the names as static checkers see them
     from placer.errors import LimitError, PatternError, PlacerError, SpecError  # noqa: F401
-    from placer.pattern import (  # noqa: F401
+    from placer.io.pattern import (  # noqa: F401
         Pattern,
         format_pattern,
         parse_pattern,
         read_pattern,
     )
-    from placer.score import Grade, grade_pattern  # noqa: F401
-    from placer.spec import Spec, load_spec, parse_spec  # noqa: F401
+    from placer.io.spec import Spec, load_spec, parse_spec  # noqa: F401
+    from placer.model.grade import Grade, grade_pattern  # noqa: F401
 
 
 def __getattr__(name: str) -> Any:

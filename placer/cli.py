@@ -18,24 +18,24 @@ import click
 import numpy as np
 
 from placer import __version__
-from placer.arrange import METHODS
-from placer.arrange import arrange as run_arrange
 from placer.errors import PlacerError
-from placer.layout import Recognised, read_layout
-from placer.output import OutputSet
-from placer.pattern import Pattern, check_against_spec, format_pattern
-from placer.repair import repair as run_repair
-from placer.repair import sensitivity
-from placer.report import (
+from placer.io.handlayout import Recognised, read_layout
+from placer.io.pattern import Pattern, check_against_spec, format_pattern
+from placer.io.spec import NAME_RE, Spec, default_spec, load_spec
+from placer.io.staging import OutputSet
+from placer.jobs.arrange import METHODS
+from placer.jobs.arrange import arrange as run_arrange
+from placer.jobs.repair import repair as run_repair
+from placer.jobs.repair import sensitivity
+from placer.model.grade import Grade, grade_pattern
+from placer.present.report import (
     format_arrangement,
     format_budget,
     format_grade,
     format_nets,
     json_text,
 )
-from placer.score import Grade, grade_pattern
 from placer.search import Keys
-from placer.spec import NAME_RE, Spec, default_spec, load_spec
 
 __all__ = ["cli"]
 
@@ -152,7 +152,7 @@ def cli() -> None:
 def _budget(pattern: Pattern, spec: Spec, grade: Grade, required: bool,
             parasitics: Any = None) -> Any:
     """The electrical budget when the spec asks for one (or ``required``), else None."""
-    from placer.budget import budget, check_electrical
+    from placer.model.budget import budget, check_electrical
 
     if spec.electrical is None and not required:
         return None
@@ -210,7 +210,7 @@ def _load_graded(path: Path, spec_path: Path | None, *, cell: str | None = None,
                  layers_path: Path | None = None, echo_notes: bool = False
                  ) -> tuple[Pattern, Spec, Recognised]:
     """Read a pattern, CSV or GDSII layout and the spec that grades it."""
-    from placer.layers import load_layers
+    from placer.layout.layers import load_layers
 
     spec = load_spec(spec_path) if spec_path is not None else None
     label = load_layers(layers_path)["label"]
@@ -233,7 +233,7 @@ def _load_graded(path: Path, spec_path: Path | None, *, cell: str | None = None,
         spec = replace(spec, array=replace(spec.array, pitch_um=rec.pitch_um, pitch_given=True))
     pattern = check_against_spec(rec.pattern, spec, str(path))
     if not spec.array.pitch_given:
-        from placer.arrange import default_fit
+        from placer.jobs.arrange import default_fit
 
         spec = default_fit(pattern, spec)       # the pitch arrange and draw give it
     return pattern, spec, rec
@@ -277,12 +277,12 @@ def grade(layout: Path, spec_path: Path | None, as_json: bool, budget_plot: Path
                                    spec.gradient.linear_ppm_per_um, spec.gradient)
     bud = _budget(pat, spec, result, required=budget_plot is not None)
     if sensitivity_plot is not None:
-        from placer.plot import save_sensitivity
+        from placer.present.plot import save_sensitivity
 
         save_sensitivity(pat, spec.array.pitch_um, sens, worst_pair, spec.name,
                          [sensitivity_plot])
     if budget_plot is not None and bud is not None:
-        from placer.plot import save_budget
+        from placer.present.plot import save_budget
 
         save_budget(bud, spec.name, [budget_plot], devices=spec.devices)
     if as_json:
@@ -355,7 +355,7 @@ class _Progress:
 
 def _tools(spec: Spec, template_path: Path | None, layers_path: Path | None,
            unit_gds: Path | None, unit_cell: str | None) -> tuple[Spec, Any]:
-    from placer.drawing import load_tools
+    from placer.layout.block import load_tools
 
     if unit_cell is not None and unit_gds is None:
         raise PlacerError("--unit-cell names a cell of --unit-gds; give --unit-gds too")
@@ -409,8 +409,7 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
     (pattern.png, pattern.svg) and, with an [electrical] table, the budget picture
     (budget.png).
     """
-    from placer import drawing
-
+    from placer.layout import block as drawing
     spec = load_spec(spec_path)
     spec, tools = _tools(spec, template_path, layers_path, unit_gds, unit_cell)
     names = ["pattern.txt", "report.json", "pattern.gds", "pattern.sp", "pattern.png",
@@ -438,7 +437,7 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
                       f"{result.keys.sigma_ppm:.6g} ppm"]
             out.write("pattern.txt", format_pattern(result.pattern, header))
             for i, cand in enumerate(result.candidates, start=1):
-                from placer.plot import save_preview
+                from placer.present.plot import save_preview
 
                 out.write(f"candidate-{i}.txt", format_pattern(cand.pattern, [
                     f"{spec.name} candidate {i} ({cand.source}): systematic "
@@ -457,12 +456,12 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
                       "layout": _layout_report(block),
                       "budget": asdict(bud) if bud is not None else None}
             out.write("report.json", json_text(report) + "\n")
-            from placer.netlist import netlist
+            from placer.layout.netlist import netlist
 
             out.write("pattern.sp", netlist(spec, block.parasitics))
             drawing.write(block, result.grade, out, "pattern")
             if bud is not None:
-                from placer.plot import save_budget
+                from placer.present.plot import save_budget
 
                 save_budget(bud, spec.name, [out.path("budget.png")], devices=spec.devices)
             written = out.commit()
@@ -480,7 +479,7 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
 
 
 def _layout_report(block: Any) -> dict[str, Any]:
-    from placer.drawing import area_of
+    from placer.layout.block import area_of
 
     w = block.wiring
     par = block.parasitics
@@ -513,8 +512,7 @@ def draw(pattern_path: Path, spec_path: Path | None, out_dir: Path, layers_path:
          template_path: Path | None, unit_gds: Path | None, unit_cell: str | None,
          overlay: bool, force: bool) -> None:
     """Write the routed GDSII layout and preview pictures of PATTERN."""
-    from placer import drawing
-
+    from placer.layout import block as drawing
     pattern, spec, _ = _load_graded(pattern_path, spec_path)
     spec, tools = _tools(spec, template_path, layers_path, unit_gds, unit_cell)
     stem = pattern_path.stem if NAME_RE.match(pattern_path.stem) else spec.name
@@ -550,10 +548,10 @@ def compare(spec_path: Path, out_dir: Path, seed: int, time_limit: float, paper:
     Every arrangement is made on the core the search chose, so the figures differ by
     arrangement alone.
     """
-    from placer.arrange import baseline_patterns
-    from placer.plot import save_comparison
-    from placer.report import format_table
-    from placer.routing import estimate_routing, mos_finger_nets
+    from placer.jobs.arrange import baseline_patterns
+    from placer.model.routing_estimate import estimate_routing, mos_finger_nets
+    from placer.present.plot import save_comparison
+    from placer.present.report import format_table
 
     spec = load_spec(spec_path)
     names = [f"{spec.name}-compare.png", f"{spec.name}-compare.pdf"]
@@ -605,9 +603,9 @@ def lesson(spec_path: Path, out_dir: Path, pattern_path: Path | None, seed: int,
     clustered, interdigitated, mirrored and optimised arrangements (and yours, with
     --pattern), and it exports the board as pattern text for grade.
     """
-    from placer.arrange import baseline_patterns
-    from placer.lesson import MAX_LESSON_UNITS, LessonArrangement, lesson_data, render_page
-    from placer.pattern import read_pattern
+    from placer.io.pattern import read_pattern
+    from placer.jobs.arrange import baseline_patterns
+    from placer.present.lesson import MAX_LESSON_UNITS, LessonArrangement, lesson_data, render_page
 
     spec = load_spec(spec_path)
     if spec.n_units > MAX_LESSON_UNITS:
@@ -666,12 +664,11 @@ def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, 
     column, coordinates) with the scores before and after, and writes the repaired
     pattern with its routed drawing.
     """
-    from placer import drawing
-
+    from placer.layout import block as drawing
     pat, spec, rec = _load_graded(layout, spec_path, cell=cell, mapping=mapping,
                                   dummy_cells=dummy_cells, layers_path=layers_path,
                                   echo_notes=True)
-    from placer.router import RouteError
+    from placer.layout.router import RouteError
 
     note = None
     try:
@@ -705,7 +702,7 @@ def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, 
         if block is not None:
             drawing.write(block, grade_, out, "repaired", moved=moved)
         else:
-            from placer.plot import save_preview
+            from placer.present.plot import save_preview
 
             save_preview(res.pattern, spec.array.pitch_um, grade_, spec.name,
                          [out.path("repaired.png"), out.path("repaired.svg")], moved=moved)

@@ -1,6 +1,6 @@
 """Mutation run over the formula modules: does every formula have a test that fails?
 
-Run:  python tests/mutation.py [--modules model budget score moments] [--jobs 2]
+Run:  python tests/mutation.py [--modules model/variation model/budget ...] [--jobs 2]
                                [--list-only] [--out mutation-report.txt]
 
 Each mutant changes one thing in one function of a module -- an arithmetic operator
@@ -33,8 +33,8 @@ TESTS = ["tests/test_formulas.py", "tests/test_budget.py", "tests/test_model.py"
          "tests/test_search.py::test_keys_of_a_baseline_equal_grade_with_an_offset_centre",
          "tests/test_layout.py::test_sensitivity_contributions_add_up_to_the_worst_pair_error",
          # the examples in the formula modules' docstrings are checks too
-         "--doctest-modules", "placer/model.py", "placer/budget.py", "placer/score.py",
-         "placer/moments.py"]
+         "--doctest-modules", "placer/model/variation.py", "placer/model/budget.py",
+         "placer/model/grade.py", "placer/model/exact_moments.py"]
 COPIED = ["placer", "tests", "samples", "templates", "pyproject.toml"]
 _SWAP = {ast.Add: ast.Sub, ast.Sub: ast.Add, ast.Mult: ast.Div, ast.Div: ast.Mult,
          ast.Pow: ast.Mult, ast.FloorDiv: ast.Div}
@@ -94,7 +94,7 @@ class _Sites(ast.NodeVisitor):
 
 
 def mutants(module: str) -> list[Mutant]:
-    """Every single-change mutant of placer/<module>.py."""
+    """Every single-change mutant of placer/<module>.py (``module`` a path below placer/)."""
     path = ROOT / "placer" / f"{module}.py"
     text = path.read_text()
     out = []
@@ -160,7 +160,9 @@ def _run(m: Mutant, workdir: Path, timeout: float, origin: Path = ROOT) -> bool:
 
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--modules", nargs="+", default=["model", "budget", "score", "moments"])
+    ap.add_argument("--modules", nargs="+",
+                    default=["model/variation", "model/budget", "model/grade",
+                             "model/exact_moments"])
     ap.add_argument("--jobs", type=int, default=2)
     ap.add_argument("--timeout", type=float, default=300.0)
     ap.add_argument("--list-only", action="store_true")

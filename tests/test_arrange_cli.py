@@ -3,7 +3,7 @@
 import json
 
 from placer.cli import cli
-from placer.pattern import read_pattern
+from placer.io.pattern import read_pattern
 
 SPEC = '[devices]\nMREF = 2\nMOUT = 4\n[array]\nrows = 1\ncolumns = 6\ndummies = "ends"\n'
 

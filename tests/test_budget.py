@@ -3,7 +3,10 @@
 import numpy as np
 import pytest
 
-from placer.budget import (
+from placer.errors import SpecError
+from placer.io.pattern import parse_pattern
+from placer.io.spec import parse_spec
+from placer.model.budget import (
     budget,
     clm_error,
     current_error,
@@ -12,10 +15,7 @@ from placer.budget import (
     inl_dnl,
     within_tolerance,
 )
-from placer.errors import SpecError
-from placer.pattern import parse_pattern
-from placer.score import grade_pattern
-from placer.spec import parse_spec
+from placer.model.grade import grade_pattern
 from tests.specs import tiny_mirror
 
 MIRROR = """
@@ -194,9 +194,9 @@ def _routed(text, scale=1.0, name="s.toml"):
     wire resistances scaled by ``scale``."""
     from dataclasses import replace
 
-    from placer.arrange import arrange
-    from placer.budget import budget
-    from placer.drawing import layout_of
+    from placer.jobs.arrange import arrange
+    from placer.layout.block import layout_of
+    from placer.model.budget import budget
 
     spec = parse_spec(text, name)
     result = arrange(spec, seed=1, time_limit_s=1.0)
@@ -217,8 +217,8 @@ def test_resistor_wiring_term_is_the_hand_calculation_from_the_independent_check
     (tests/parasitics.py) from the GDSII; the ratio error is
     (R_u + w_A) / (R_u + w_B) - 1. Tenfold wire resistance moves the budget's total by
     exactly the change of that hand-calculated term."""
-    from placer.drawing import library
-    from placer.gds import write_gds
+    from placer.layout.block import library
+    from placer.layout.gdswrite import write_gds
     from tests import parasitics as checker
 
     out = {}
@@ -272,9 +272,9 @@ def test_no_wire_resistance_means_no_wiring_term(text):
 def test_no_coupling_means_no_dac_wiring_term():
     from dataclasses import replace
 
-    from placer.arrange import arrange
-    from placer.budget import budget
-    from placer.drawing import layout_of
+    from placer.jobs.arrange import arrange
+    from placer.layout.block import layout_of
+    from placer.model.budget import budget
 
     text = ('kind = "cap"\n[devices]\nCT = 1\nC0 = 1\nC1 = 2\nC2 = 4\n[electrical]\n'
             'termination = "CT"\nunit_cap_ff = 20.0\nmc_samples = 10\n')

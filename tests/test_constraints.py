@@ -7,11 +7,11 @@ import gdstk
 import numpy as np
 import pytest
 
-from placer.arrange import arrange
 from placer.cli import cli
 from placer.errors import SpecError
-from placer.pattern import DUMMY, EMPTY
-from placer.spec import parse_spec
+from placer.io.pattern import DUMMY, EMPTY
+from placer.io.spec import parse_spec
+from placer.jobs.arrange import arrange
 from tests import extraction
 
 LAYERS = Path("templates/layers.toml")
@@ -47,7 +47,7 @@ def test_keep_out_slots_stay_empty_in_the_pattern_and_the_gdsii(runner, tmp_path
     spec = parse_spec(Path("samples/lshape_cdac.toml").read_text(), "s")
     mask = spec.placement.mask
     assert mask is not None
-    from placer.pattern import read_pattern
+    from placer.io.pattern import read_pattern
 
     pat = read_pattern(out / "pattern.txt")
     keep = [(r + 1, c + 1) for r, row in enumerate(mask) for c, ch in enumerate(row)

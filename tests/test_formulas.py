@@ -8,10 +8,10 @@ factor in a formula fails a test.
 import numpy as np
 import pytest
 
-from placer.budget import budget
-from placer.pattern import parse_pattern
-from placer.score import grade_pattern
-from placer.spec import parse_spec
+from placer.io.pattern import parse_pattern
+from placer.io.spec import parse_spec
+from placer.model.budget import budget
+from placer.model.grade import grade_pattern
 
 MIRROR = """
 [devices]
@@ -278,7 +278,7 @@ def test_dac_inl_dnl_keeps_tiny_errors_exact(fit, size, weights):
     and DNL hold 1e-10 relative even when the capacitors deviate by 1e-9, where levels
     computed in floating point would have lost most digits; binary weights and
     sub-binary (redundant) ones, whose ideal steps are not all one LSB."""
-    from placer.budget import dac_inl_dnl
+    from placer.model.budget import dac_inl_dnl
 
     rng = np.random.default_rng(7)
     w = np.array(weights, dtype=float)
@@ -295,7 +295,7 @@ def test_dac_inl_dnl_keeps_tiny_errors_exact(fit, size, weights):
 def test_dac_functions_take_a_batch_of_draws_row_by_row(fit):
     """The Monte Carlo passes many draws at once (leading axis): every batched result
     must equal the same function applied to each draw alone (identity)."""
-    from placer.budget import dac_inl_dnl, dac_levels, inl_dnl
+    from placer.model.budget import dac_inl_dnl, dac_levels, inl_dnl
 
     rng = np.random.default_rng(5)
     w = np.array([1.0, 2.0, 4.0, 8.0])
@@ -320,10 +320,9 @@ def test_dac_functions_take_a_batch_of_draws_row_by_row(fit):
 def test_second_moment_tensor_by_hand():
     """Mean r r^T about the centre per device, written out: device 0 at (1, 2) and
     (-1, 0), device 1 at (3, -1)."""
-    from placer import model
-
+    from placer.model import variation
     xy = np.array([[1.0, 2.0], [-1.0, 0.0], [3.0, -1.0]])
-    m = model.second_moments(xy, np.array([0, 0, 1]), 2)
+    m = variation.second_moments(xy, np.array([0, 0, 1]), 2)
     want0 = np.mean([np.outer(p, p) for p in xy[:2]], axis=0)      # [[1, 1], [1, 2]]
     want1 = np.outer(xy[2], xy[2])
     assert np.array_equal(m[0], want0) and np.array_equal(m[1], want1)
@@ -335,18 +334,16 @@ def test_second_moment_tensor_by_hand():
 ])
 def test_worst_linear_error_and_its_direction(dc, err, angle):
     """|g . dc| is largest for g along dc: G |dc| at the angle of dc, in [0, 360)."""
-    from placer import model
-
-    e, a = model.linear_worst(np.array([dc]), 10.0)
+    from placer.model import variation
+    e, a = variation.linear_worst(np.array([dc]), 10.0)
     assert e[0] == pytest.approx(err) and a[0] == pytest.approx(angle)
 
 
 def test_bowl_error_by_hand():
     """H = (h / sqrt 2) I has Frobenius norm h; the error 0.5 tr(H dM) = (h / (2 sqrt 2))
     (dMxx + dMyy): with h = 4, dM = (3, 7, 5) that is sqrt 2 x 8 = 11.31."""
-    from placer import model
-
-    assert model.bowl_error(np.array([[3.0, 7.0, 5.0]]), 4.0)[0] == pytest.approx(
+    from placer.model import variation
+    assert variation.bowl_error(np.array([[3.0, 7.0, 5.0]]), 4.0)[0] == pytest.approx(
         4.0 / (2 * np.sqrt(2.0)) * 8.0, rel=1e-15)
 
 
@@ -354,32 +351,30 @@ def test_bowl_error_by_hand():
 def test_grid_covariance_on_an_uneven_pitch_with_an_absent_device(kernel):
     """The FFT covariance equals the direct double sum over unit pairs (the definition)
     on a 3 x 4 grid at pitch 2 x 3 um with dummies; a device with no unit gets zeros."""
-    from placer import model
-
+    from placer.model import variation
     ids = np.array([[0, 1, -1, 0], [1, 0, 0, -1], [-1, 1, 0, 1]])
     r, c = np.nonzero(ids >= 0)
     xy = np.column_stack([c * 2.0, -r * 3.0])
     dev = ids[r, c]
-    k = model.correlation(np.hypot(*(xy[:, None, :] - xy[None, :, :]).transpose(2, 0, 1)),
+    k = variation.correlation(np.hypot(*(xy[:, None, :] - xy[None, :, :]).transpose(2, 0, 1)),
                           5.0, kernel)
     want = np.zeros((3, 3))
     for a in range(2):
         for b in range(2):
             want[a, b] = k[np.ix_(dev == a, dev == b)].mean()
-    got = model.grid_device_covariance(ids, (2.0, 3.0), 3, 5.0, kernel)
+    got = variation.grid_device_covariance(ids, (2.0, 3.0), 3, 5.0, kernel)
     assert np.allclose(got, want, rtol=1e-12, atol=1e-15)
 
 
 def test_edge_units_by_hand():
     """A unit is on an edge when a side faces the outside or an empty slot ('-'); a side
     facing a dummy is shielded (common practice)."""
-    from placer import model
-
+    from placer.model import variation
     ids = np.array([[-1, -1, -1, -1],
                      [-1, 0, 1, -1],
                      [-1, 1, 0, -2],
                      [-1, -1, -1, -1]])
-    assert model.edge_units(ids, 2).tolist() == [1, 0]      # the unit beside '-' only
+    assert variation.edge_units(ids, 2).tolist() == [1, 0]      # the unit beside '-' only
 
 
 @pytest.mark.parametrize("scale", [1.0, 0.004])
@@ -391,8 +386,7 @@ def test_monte_carlo_field_terms_one_at_a_time(term, scale):
     h^2/6) gives Var(0.5 tr(H dM)); the correlated field sigma_c^2 w'Kw; white noise
     s^2 w'w. 40 000 samples: the standard deviation agrees within 2 %, the mean is near
     zero (the centroid gap has both components), and sigmas below 1 ppm still count."""
-    from placer import model
-
+    from placer.model import variation
     xy = np.array([[-1.5, 0.5], [-0.5, -0.5], [0.5, 0.5], [1.5, -0.5], [0.4, 1.5]])
     dev = np.array([0, 1, 1, 0, 0])
     pairs = np.array([[0, 1]])
@@ -421,7 +415,7 @@ def test_monte_carlo_field_terms_one_at_a_time(term, scale):
         sw = 50.0 * scale
         kw["white_unit_sigma_ppm"] = sw
         var = sw ** 2 * (w @ w)
-    out = model.monte_carlo_errors(xy, dev, 2, pairs, samples=40000,
+    out = variation.monte_carlo_errors(xy, dev, 2, pairs, samples=40000,
                                    rng=np.random.default_rng(11), batch=300, **kw)
     assert out[:, 0].std() == pytest.approx(np.sqrt(var), rel=0.02)
     assert abs(out[:, 0].mean()) < 0.03 * np.sqrt(var)
@@ -433,8 +427,8 @@ def test_exact_moment_sums_survive_int64_overflow():
     the integer second-moment difference n * na * nb * dM (what pair_second forms before
     its one division) passes 2^63, so the sums must be kept in Python integers; compared
     with float moments (numpy), which are accurate to 1e-9 here."""
-    from placer import model
-    from placer.moments import grid_sums, pair_second
+    from placer.model import variation
+    from placer.model.exact_moments import grid_sums, pair_second
 
     c = np.arange(65536)
     r = np.zeros_like(c)
@@ -442,7 +436,7 @@ def test_exact_moment_sums_survive_int64_overflow():
     sums = grid_sums(r, c, dev, 2)
     got = pair_second(sums, np.array([[0, 1]]), (1.0, 1.0))
     xy = np.column_stack([c, -r]).astype(float)
-    m = model.power_moments(xy - xy.mean(axis=0), dev, 2, 2)
+    m = variation.power_moments(xy - xy.mean(axis=0), dev, 2, 2)
     want = (m[0] - m[1])[None, :]
     assert abs(65536 * 32768 * 32768 * want[0, 0]) > 2 ** 63
     assert np.allclose(got, want, rtol=1e-9, atol=1e-6)
@@ -454,7 +448,7 @@ def test_within_tolerance_against_the_normal_distribution():
     and the degenerate s = 0 cases."""
     from scipy.stats import norm
 
-    from placer.budget import within_tolerance
+    from placer.model.budget import within_tolerance
 
     for off, s, t in ((0.3, 0.5, 1.0), (-0.8, 0.2, 0.5), (2.0, 1.0, 1.0)):
         want = norm.cdf((t - off) / s) - norm.cdf((-t - off) / s)
@@ -469,7 +463,7 @@ def test_dac_levels_and_inl_dnl_by_hand():
     (1, 2.1, termination 1: total 4.1). INL and DNL of levels with an offset and of an
     ideal that starts above zero, end-point and least-squares lines (numpy.polyfit as
     the reference fit)."""
-    from placer.budget import dac_levels, inl_dnl
+    from placer.model.budget import dac_levels, inl_dnl
 
     v = dac_levels(np.array([1.0, 2.1]), 1.0)
     assert np.allclose(v, [0.0, 1 / 4.1, 2.1 / 4.1, 3.1 / 4.1], rtol=1e-15)
@@ -488,7 +482,7 @@ def test_budget_percentile_streams_like_numpy():
     """The budget keeps each code's largest 1 % of samples; its 99th percentile equals
     numpy.percentile of all the samples, for sizes where the kept share is 1, 2 and many
     rows."""
-    from placer.budget import UpperPercentile
+    from placer.model.budget import UpperPercentile
 
     rng = np.random.default_rng(3)
     for n in (1, 2, 3, 150, 2001):

@@ -5,14 +5,14 @@ import re
 import gdstk
 import pytest
 
-from placer.cells import load_rules
 from placer.cli import cli
-from placer.drawing import layout_of
 from placer.errors import PlacerError
-from placer.gds import cell_name, write_gds
-from placer.layers import load_layers
-from placer.pattern import parse_pattern
-from placer.spec import parse_spec
+from placer.io.pattern import parse_pattern
+from placer.io.spec import parse_spec
+from placer.layout.block import layout_of
+from placer.layout.cells import load_rules
+from placer.layout.gdswrite import cell_name, write_gds
+from placer.layout.layers import load_layers
 from tests import streamread
 
 PATTERN = ". IREF> IOUT< IOUT> IREF< .\n. IOUT> IREF< IREF> IOUT< .\n"
@@ -125,7 +125,7 @@ def test_cell_names_follow_the_stream_rules(base):
 
 
 def _shipped_layers() -> str:
-    from placer.cells import shipped_text
+    from placer.layout.cells import shipped_text
 
     return shipped_text("layers.toml")
 

@@ -19,8 +19,8 @@ from pathlib import Path
 import pytest
 
 from placer.errors import LimitError, PlacerError
-from placer.output import OutputError, OutputSet
-from placer.spec import parse_spec
+from placer.io.spec import parse_spec
+from placer.io.staging import OutputError, OutputSet
 
 ROOT = Path(__file__).resolve().parents[1]
 MIRROR = (ROOT / "samples" / "bias_mirror.toml").read_text()
@@ -231,7 +231,7 @@ def test_the_lock_is_held_while_the_set_is_open_and_refused_runs_leave_the_folde
 
 def test_a_killed_run_leaves_no_lock_and_its_staging_is_cleared(tmp_path):
     out = tmp_path / "o"
-    code = ("import sys, time; from pathlib import Path; from placer.output import OutputSet\n"
+    code = ("import sys, time; from pathlib import Path; from placer.io.staging import OutputSet\n"
             "with OutputSet(Path(sys.argv[1]), ['a.txt'], False) as o:\n"
             "    o.write('a.txt', 'x'); print('staged', flush=True); time.sleep(60)\n")
     proc = subprocess.Popen([sys.executable, "-c", code, str(out)], stdout=subprocess.PIPE,

@@ -7,8 +7,8 @@ import numpy as np
 import pytest
 
 from placer.cli import cli
-from placer.layout import read_layout
-from placer.stream import LayoutError
+from placer.io.gdsread import LayoutError
+from placer.io.handlayout import read_layout
 
 
 def _two_rows_gds(path, *, offset=(0.0, 0.0), origin_corner=False, rotation=0.0,

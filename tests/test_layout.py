@@ -7,14 +7,14 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from placer.cli import cli
-from placer.drawing import layout_of
 from placer.errors import PlacerError
-from placer.gds import write_gds
-from placer.layout import read_layout
-from placer.pattern import parse_pattern
-from placer.repair import repair, sensitivity
-from placer.score import grade_pattern
-from placer.spec import parse_spec
+from placer.io.handlayout import read_layout
+from placer.io.pattern import parse_pattern
+from placer.io.spec import parse_spec
+from placer.jobs.repair import repair, sensitivity
+from placer.layout.block import layout_of
+from placer.layout.gdswrite import write_gds
+from placer.model.grade import grade_pattern
 from tests import streamread
 
 SPEC = ('name = "pair"\n[devices]\nA = 4\nB = 4\n[array]\npitch_um = [2.5, 5.5]\n'

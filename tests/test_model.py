@@ -5,10 +5,10 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from placer import model
-from placer.pattern import format_pattern, parse_pattern, unit_positions
-from placer.score import grade_pattern
-from placer.spec import parse_spec
+from placer.io.pattern import format_pattern, parse_pattern, unit_positions
+from placer.io.spec import parse_spec
+from placer.model import variation
+from placer.model.grade import grade_pattern
 
 
 def _spec(devices: dict[str, int], extra: str = "") -> object:
@@ -76,8 +76,8 @@ def test_exponential_covariance_two_units_closed_form(d, length):
     """Closed form: two unit points a distance d apart under covariance exp(-d/L) have
     var(difference) = 2 (1 - exp(-d/L))."""
     xy = np.array([[0.0, 0.0], [d, 0.0]])
-    cov = model.device_covariance(xy, np.array([0, 1]), 2, length, "exponential")
-    var = model.pair_variance(cov, np.array([[0, 1]]))[0]
+    cov = variation.device_covariance(xy, np.array([0, 1]), 2, length, "exponential")
+    var = variation.pair_variance(cov, np.array([[0, 1]]))[0]
     assert var == pytest.approx(2.0 * (1.0 - np.exp(-d / length)), rel=1e-12)
 
 
@@ -86,11 +86,11 @@ def test_gaussian_covariance_blocks_match_direct_quadratic_form():
     rng = np.random.default_rng(4358764578823597324)
     xy = rng.uniform(0, 10, (50, 2))
     dev = rng.integers(0, 3, 50)
-    cov = model.device_covariance(xy, dev, 3, 2.0, "gaussian", block=7)
+    cov = variation.device_covariance(xy, dev, 3, 2.0, "gaussian", block=7)
     d = np.linalg.norm(xy[:, None] - xy[None], axis=-1)
     k = np.exp(-((d / 2.0) ** 2))
-    w = model.pair_weights(dev, 3, np.array([[0, 2]]))[:, 0]
-    assert model.pair_variance(cov, np.array([[0, 2]]))[0] == pytest.approx(w @ k @ w)
+    w = variation.pair_weights(dev, 3, np.array([[0, 2]]))[:, 0]
+    assert variation.pair_variance(cov, np.array([[0, 2]]))[0] == pytest.approx(w @ k @ w)
 
 
 def test_linear_worst_case_equals_maximum_over_directions():
@@ -99,11 +99,11 @@ def test_linear_worst_case_equals_maximum_over_directions():
     p = parse_pattern("A B C A\nC B A B")
     xy, dev = unit_positions(p, (1.0, 2.0))
     pairs = np.array([[0, 1], [0, 2], [1, 2]])
-    cen = model.centroids(xy, dev, 3)
-    worst, angle = model.linear_worst(cen[pairs[:, 0]] - cen[pairs[:, 1]], 7.0)
+    cen = variation.centroids(xy, dev, 3)
+    worst, angle = variation.linear_worst(cen[pairs[:, 0]] - cen[pairs[:, 1]], 7.0)
     theta = np.radians(np.arange(3600) / 10.0)
     g = 7.0 * np.column_stack([np.cos(theta), np.sin(theta)])
-    errs = model.field_errors(g @ xy.T, dev, 3, pairs)  # (3600, 3)
+    errs = variation.field_errors(g @ xy.T, dev, 3, pairs)  # (3600, 3)
     assert np.allclose(errs.max(axis=0), worst, rtol=1e-5)
     assert np.allclose(np.degrees(theta[errs.argmax(axis=0)]), angle, atol=0.1)
 
@@ -115,8 +115,8 @@ def test_quadratic_worst_case_equals_maximum_over_hessians():
     xy, dev = unit_positions(p, (1.0, 1.5))
     xy_c = xy - xy.mean(axis=0)
     pairs = np.array([[0, 1]])
-    m2 = model.power_moments(xy_c, dev, 2, 2)
-    worst = model.quadratic_worst(m2[[0]] - m2[[1]], 3.0)[0]
+    m2 = variation.power_moments(xy_c, dev, 2, 2)
+    worst = variation.quadratic_worst(m2[[0]] - m2[[1]], 3.0)[0]
     rng = np.random.default_rng(1)
     best = 0.0
     for _ in range(20000):
@@ -124,7 +124,7 @@ def test_quadratic_worst_case_equals_maximum_over_hessians():
         h = (h + h.T) / 2
         h *= 3.0 / np.linalg.norm(h)
         field = 0.5 * np.einsum("ni,ij,nj->n", xy_c, h, xy_c)
-        best = max(best, float(model.field_errors(field, dev, 2, pairs)[0]))
+        best = max(best, float(variation.field_errors(field, dev, 2, pairs)[0]))
     assert best <= worst + 1e-12
     assert best == pytest.approx(worst, rel=1e-2)
 
@@ -172,8 +172,8 @@ def test_constant_field_offset_changes_no_ratio_error(text, c):
     xy, dev = unit_positions(p, (1.0, 1.0))
     pairs = np.array([[0, 1]])
     field = np.random.default_rng(0).normal(size=len(dev))
-    assert np.allclose(model.field_errors(field + c, dev, len(p.devices), pairs),
-                       model.field_errors(field, dev, len(p.devices), pairs), atol=1e-6)
+    assert np.allclose(variation.field_errors(field + c, dev, len(p.devices), pairs),
+                       variation.field_errors(field, dev, len(p.devices), pairs), atol=1e-6)
 
 
 def test_monte_carlo_agrees_with_exact_sigma_within_statistical_bound():

@@ -19,12 +19,12 @@ from pathlib import Path
 
 import pytest
 
-from placer.arrange import arrange
-from placer.budget import budget
-from placer.drawing import layout_of
-from placer.netlist import netlist, subckt_name
-from placer.score import grade_pattern
-from placer.spec import parse_spec
+from placer.io.spec import parse_spec
+from placer.jobs.arrange import arrange
+from placer.layout.block import layout_of
+from placer.layout.netlist import netlist, subckt_name
+from placer.model.budget import budget
+from placer.model.grade import grade_pattern
 from tests.specs import tiny_mirror
 
 MIRROR = tiny_mirror(lambda_per_v=0.0, unit_current_ua=50.0, routing=(

@@ -1,6 +1,6 @@
 """Wiring parasitics and matched routing, checked apart.
 
-placer's own extraction (:mod:`placer.parasitics`, what ``report.json`` and the net table
+placer's own extraction (:mod:`placer.layout.parasitics`, what ``report.json`` and the net table
 print) is compared with :mod:`tests.parasitics`, a checker written from the layout
 contract alone that reads only the GDSII placer wrote. The matched-routing goals are then
 measured with that checker, never with the router's own data:
@@ -23,11 +23,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from placer.arrange import arrange
-from placer.drawing import area_of, layout_of
-from placer.gds import write_gds
-from placer.pattern import Pattern
-from placer.spec import load_spec, parse_spec
+from placer.io.pattern import Pattern
+from placer.io.spec import load_spec, parse_spec
+from placer.jobs.arrange import arrange
+from placer.layout.block import area_of, layout_of
+from placer.layout.gdswrite import write_gds
 from tests import parasitics as checker
 
 LAYERS = Path("templates/layers.toml")
@@ -230,7 +230,7 @@ def test_the_pairs_gate_drain_coupling_note_is_the_checkers(tmp_path):
     independent checker's coupling of those nets (to the 3 digits it prints)."""
     import re
 
-    from placer.wiring_error import wiring_effect
+    from placer.layout.wiring_error import wiring_effect
 
     block, measured = _arranged(tmp_path, "input_pair")
     notes = wiring_effect(block.spec, block.parasitics, block.spec.electrical).notes
@@ -246,8 +246,8 @@ def test_dac_wiring_term_is_the_hand_calculated_transfer_from_the_checkers_coupl
     that bit's capacitance (C_b = n_b C_u + C_top,b); the charge-redistribution transfer
     V(k) = sum of the switched C_b / sum of all C; INL and DNL against the end-point line
     in LSB (IEEE Std 1658-2011 definitions), computed here by hand."""
-    from placer.budget import budget
-    from placer.score import grade_pattern
+    from placer.model.budget import budget
+    from placer.model.grade import grade_pattern
 
     block, measured = _arranged(tmp_path, "sar_cdac")
     spec = block.spec

@@ -6,7 +6,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from placer.errors import PatternError
-from placer.pattern import (
+from placer.io.pattern import (
     DUMMY,
     EMPTY,
     check_against_spec,
@@ -14,7 +14,7 @@ from placer.pattern import (
     parse_pattern,
     unit_positions,
 )
-from placer.spec import parse_spec
+from placer.io.spec import parse_spec
 
 
 def test_parse_ignores_comments_blank_lines_and_tabs():

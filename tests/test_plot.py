@@ -7,8 +7,8 @@ from matplotlib.colors import to_rgb
 from matplotlib.figure import Figure
 
 from placer.cli import cli
-from placer.pattern import parse_pattern
-from placer.plot import device_colours, draw_pattern
+from placer.io.pattern import parse_pattern
+from placer.present.plot import device_colours, draw_pattern
 
 
 def test_unit_centres_have_their_device_colour_and_dummies_the_neutral_one():

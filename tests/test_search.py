@@ -7,14 +7,13 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from placer import baselines
-from placer.arrange import arrange, problem_for
-from placer.model import moment_norm
-from placer.moments import grid_sums, pair_linear, pair_second
-from placer.score import grade_pattern
-from placer.search import Keys, Problem, compare, keys_of, search
+from placer.io.spec import parse_spec
+from placer.jobs.arrange import arrange, problem_for
+from placer.model.exact_moments import grid_sums, pair_linear, pair_second
+from placer.model.grade import grade_pattern
+from placer.model.variation import moment_norm
+from placer.search import Keys, Problem, baselines, compare, keys_of, search
 from placer.search._construct import near_symmetric_assignments, symmetric_assignment
-from placer.spec import parse_spec
 
 
 def _arrange(toml: str, **kw):
@@ -42,7 +41,7 @@ def _every_assignment(counts: list[int], n_slots: int):
 
 def _reference(counts, rows, cols, pitch, h):
     """The lexicographic optimum (worst linear, then worst quadratic) by enumeration, with
-    placer.moments (grade's scorer), not the search's compiled arithmetic."""
+    placer.model.exact_moments (grade's scorer), not the search's compiled arithmetic."""
     pairs = np.array(list(combinations(range(len(counts)), 2)))
     best = None
     for assign in _every_assignment(list(counts), rows * cols):
@@ -311,7 +310,7 @@ def test_keys_of_a_baseline_equal_grade_with_an_offset_centre():
     prob = problem_for(spec, 2, 4)
     assign = baselines.clustered(prob)
     keys = keys_of(prob, assign)
-    from placer.arrange import build_pattern
+    from placer.jobs.arrange import build_pattern
 
     grade = grade_pattern(build_pattern(spec, assign, 2, 4), spec)
     (pair,) = grade.pairs
@@ -395,9 +394,9 @@ def test_compiled_loop_keys_equal_a_fresh_evaluation_after_every_stage():
     """The annealing loop updates moments and the correlated field move by move (single
     swaps, two-for-two and three-for-three exchanges); what it reports for its best state
     must equal the keys computed afresh from that state (identity: incremental sums)."""
+    from placer.search._compiled import compile_problem, evaluate
     from placer.search._construct import random_start
     from placer.search._local import STAGE, caps_none, run_stage
-    from placer.search._moments import compile_problem, evaluate
 
     rng = np.random.default_rng(3)
     for counts, rows, cols in (((6, 10, 14, 18, 16), 8, 8), ((5, 6, 7, 8), 4, 7)):
@@ -426,7 +425,7 @@ def test_arrange_sets_the_restart_count_from_each_shape_share_not_the_clock(monk
     come from the fixed share, so the same spec, seed and limit give the same result."""
     import time
 
-    from placer import arrange as arrange_mod
+    from placer.jobs import arrange as arrange_mod
     from placer.search import n_restarts
 
     seen = []
@@ -450,8 +449,7 @@ def test_arrange_reports_a_time_limit_when_any_shape_was_cut(monkeypatch):
     as a whole was cut (more time could change the choice) and must say so."""
     import dataclasses
 
-    from placer import arrange as arrange_mod
-
+    from placer.jobs import arrange as arrange_mod
     spec = parse_spec("[devices]\nA = 3\nB = 5\nC = 7\n", "s.toml")
     assert len(arrange_mod.candidate_shapes(spec)) > 1
     whole = arrange_mod.arrange(spec, seed=1, time_limit_s=30)
@@ -470,8 +468,8 @@ def test_arrange_reports_a_time_limit_when_any_shape_was_cut(monkeypatch):
 
 
 def test_random_start_keeps_every_count_with_and_without_constraints():
+    from placer.search._compiled import compile_problem
     from placer.search._construct import random_start
-    from placer.search._moments import compile_problem
 
     rng = np.random.default_rng(0)
     plain = compile_problem(Problem((3, 5, 7), 4, 4))

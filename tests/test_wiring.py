@@ -18,14 +18,14 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from placer.cells import load_rules, spacing_rules
 from placer.cli import cli
-from placer.drawing import layout_of
-from placer.gds import write_gds
-from placer.layers import load_layers
-from placer.pattern import DUMMY, EMPTY, Pattern, parse_pattern
-from placer.pitch import fitted
-from placer.spec import parse_spec
+from placer.io.pattern import DUMMY, EMPTY, Pattern, parse_pattern
+from placer.io.spec import parse_spec
+from placer.layout.block import layout_of
+from placer.layout.cells import load_rules, spacing_rules
+from placer.layout.gdswrite import write_gds
+from placer.layout.layers import load_layers
+from placer.layout.pitch import fitted
 from tests import extraction
 
 LAYERS = Path("templates/layers.toml")

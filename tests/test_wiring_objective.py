@@ -7,9 +7,9 @@ from pathlib import Path
 
 import pytest
 
-from placer.arrange import arrange
-from placer.drawing import load_tools
-from placer.spec import load_spec, parse_spec
+from placer.io.spec import load_spec, parse_spec
+from placer.jobs.arrange import arrange
+from placer.layout.block import load_tools
 
 MIRROR = Path("samples/bias_mirror.toml").read_text()
 
@@ -44,9 +44,9 @@ def test_the_least_gradient_plus_wiring_error_wins():
 def test_tools_weigh_is_the_budgets_worst_pair_wiring_error():
     """Tools.weigh gives the routed block's worst-pair wiring error: the largest difference
     of the devices' wiring terms, as the budget's wiring column prints it (in %)."""
-    from placer.budget import budget
-    from placer.drawing import prepare
-    from placer.score import grade_pattern
+    from placer.layout.block import prepare
+    from placer.model.budget import budget
+    from placer.model.grade import grade_pattern
 
     spec = load_spec(Path("samples/bias_mirror.toml"))
     spec, tools = load_tools(spec)

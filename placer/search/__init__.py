@@ -11,9 +11,9 @@ One public entry, :func:`search`, takes a :class:`Problem` and returns a frozen
 ``_driver``     stages, restarts, chains, the exact path and the worker process
 """
 
+from placer.search._compiled import compile_problem, evaluate, orbit_assignment
 from placer.search._construct import core_coords, deal
 from placer.search._driver import SearchResult, n_restarts, search
-from placer.search._moments import compile_problem, evaluate, orbit_assignment
 from placer.search._problem import (
     DEFAULT_RELATIVE_TIE,
     SYMMETRIES,

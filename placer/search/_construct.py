@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import NDArray
 
-from placer.search._moments import Compiled, orbit_assignment
+from placer.search._compiled import Compiled, orbit_assignment
 from placer.search._problem import Problem
 
 __all__ = ["symmetric_assignment", "near_symmetric_assignments", "deal", "greedy_start",

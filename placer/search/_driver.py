@@ -31,6 +31,12 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
+from placer.search._compiled import (
+    Compiled,
+    compile_problem,
+    evaluate,
+    slot_assignment,
+)
 from placer.search._construct import random_start, starts
 from placer.search._exact import branch_and_bound, linear_bound, n_assignments
 from placer.search._local import (
@@ -39,12 +45,6 @@ from placer.search._local import (
     STAGE,
     caps_none,
     run_stage,
-)
-from placer.search._moments import (
-    Compiled,
-    compile_problem,
-    evaluate,
-    slot_assignment,
 )
 from placer.search._problem import LINEAR_REL, Keys, Problem, best_of, compare, progressed
 

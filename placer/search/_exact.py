@@ -17,7 +17,7 @@ from math import factorial, prod
 import numpy as np
 from numpy.typing import NDArray
 
-from placer.search._moments import Compiled
+from placer.search._compiled import Compiled
 from placer.search._problem import LINEAR_REL, Problem
 
 __all__ = ["ExactResult", "branch_and_bound", "n_assignments", "linear_bound",

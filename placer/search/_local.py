@@ -20,7 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
-from placer.search._moments import Compiled
+from placer.search._compiled import Compiled
 
 __all__ = ["STAGE", "StageResult", "run_stage", "caps_none", "SMOOTHING", "RESTART_SMOOTHING",
            "COOLING", "TWO_FOR_TWO_SHARE", "RESTART_THREE_SHARE"]
@@ -70,7 +70,7 @@ def run_stage(comp: Compiled, dev_of: IntArray, stage: str, n_moves: int, seed: 
     ``three_share`` is the share per thousand of centroid-keeping exchanges tried as
     three-for-three."""
     from placer.search import _native
-    from placer.search._moments import field_products
+    from placer.search._compiled import field_products
 
     prob = comp.prob
     stage_no = STAGE[stage]

@@ -14,12 +14,12 @@ from pathlib import Path
 import numpy as np
 from readme_block import replace_block  # this script's folder
 
-from placer.drawing import layout_of
-from placer.gds import write_gds
-from placer.pattern import Pattern
-from placer.plot import save_preview
-from placer.score import grade_pattern
-from placer.spec import parse_spec
+from placer.io.pattern import Pattern
+from placer.io.spec import parse_spec
+from placer.layout.block import layout_of
+from placer.layout.gdswrite import write_gds
+from placer.model.grade import grade_pattern
+from placer.present.plot import save_preview
 
 
 def main() -> int:

@@ -23,13 +23,13 @@ from pathlib import Path
 import numpy as np
 from readme_block import replace_block  # this script's folder
 
-from placer.cells import load_rules, unit_cell
-from placer.drawing import area_of, load_tools, prepare
-from placer.parasitics import extract
-from placer.pattern import Pattern
-from placer.pitch import fitted
-from placer.router import route
-from placer.spec import parse_spec
+from placer.io.pattern import Pattern
+from placer.io.spec import parse_spec
+from placer.layout.block import area_of, load_tools, prepare
+from placer.layout.cells import load_rules, unit_cell
+from placer.layout.parasitics import extract
+from placer.layout.pitch import fitted
+from placer.layout.router import route
 
 SIZES = (64, 256, 1024, 4096)
 

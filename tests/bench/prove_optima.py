@@ -20,10 +20,10 @@ from pathlib import Path
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parents[1]))
 
-from placer.arrange import candidate_shapes, problem_for  # noqa: E402
+from placer.io.spec import parse_spec  # noqa: E402
+from placer.jobs.arrange import candidate_shapes, problem_for  # noqa: E402
 from placer.search import compile_problem, search  # noqa: E402
 from placer.search._exact import n_assignments  # noqa: E402
-from placer.spec import parse_spec  # noqa: E402
 from tests.bench.cases import CASES  # noqa: E402
 
 OUT = HERE / "optima.json"

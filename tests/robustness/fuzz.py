@@ -98,7 +98,7 @@ def mutate(data: bytes, rng: np.random.Generator, gds: bool = False) -> bytes:
 
 
 def _spec_case(data: bytes, tmp: Path) -> Callable[[], object]:
-    from placer.spec import load_spec
+    from placer.io.spec import load_spec
 
     path = tmp / "fuzz.toml"
     path.write_bytes(data)
@@ -106,7 +106,7 @@ def _spec_case(data: bytes, tmp: Path) -> Callable[[], object]:
 
 
 def _pattern_case(data: bytes, tmp: Path) -> Callable[[], object]:
-    from placer.pattern import read_pattern
+    from placer.io.pattern import read_pattern
 
     path = tmp / "fuzz.txt"
     path.write_bytes(data)
@@ -114,9 +114,9 @@ def _pattern_case(data: bytes, tmp: Path) -> Callable[[], object]:
 
 
 def _layout_case(data: bytes, tmp: Path, suffix: str) -> Callable[[], object]:
-    from placer.layout import read_layout
-    from placer.score import grade_pattern
-    from placer.spec import default_spec
+    from placer.io.handlayout import read_layout
+    from placer.io.spec import default_spec
+    from placer.model.grade import grade_pattern
 
     path = tmp / f"fuzz{suffix}"
     path.write_bytes(data)

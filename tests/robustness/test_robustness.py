@@ -14,7 +14,7 @@ from hypothesis import strategies as st
 
 from placer.cli import cli
 from placer.errors import LimitError
-from placer.spec import parse_spec
+from placer.io.spec import parse_spec
 from tests.robustness import fuzz
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -80,7 +80,7 @@ def test_interrupting_arrange_keeps_the_best_so_far_and_loses_nothing(tmp_path, 
     assert leftovers == []
     assert proc.returncode in (0, 130)
     if (out / "pattern.txt").exists():
-        from placer.pattern import parse_pattern
+        from placer.io.pattern import parse_pattern
 
         text = (out / "pattern.txt").read_text()
         assert sum(parse_pattern(text).counts()) == 1024
@@ -106,7 +106,7 @@ def test_same_inputs_and_seed_give_byte_identical_outputs(tmp_path, runner):
 
 
 def test_source_date_epoch_sets_the_gds_timestamp(tmp_path, monkeypatch):
-    from placer.gds import gds_timestamp
+    from placer.layout.gdswrite import gds_timestamp
 
     monkeypatch.setenv("SOURCE_DATE_EPOCH", "1700000000")
     assert gds_timestamp().year == 2023

@@ -198,7 +198,7 @@ def mos_breaks(prob: Problem, assign: IntArray) -> int:
     """Fewest diffusion breaks the MOS rows need (0 for other kinds)."""
     if prob.finger_nets is None:
         return 0
-    from placer.routing import orient_row
+    from placer.model.routing_estimate import orient_row
 
     grid = assign.reshape(prob.rows, prob.cols)
     return sum(orient_row(row, None, prob.finger_nets)[1] for row in grid)
@@ -208,12 +208,11 @@ def _sigma(comp: Compiled, assign: IntArray) -> float:
     prob = comp.prob
     if prob.corr_sigma_ppm <= 0 or len(comp.pairs) == 0:
         return 0.0
-    from placer import model
-
+    from placer.model import variation
     ids = np.where(assign >= 0, assign, -1).reshape(prob.rows, prob.cols)
-    cov = model.grid_device_covariance(ids, prob.pitch_um, prob.n_dev, prob.corr_length_um,
+    cov = variation.grid_device_covariance(ids, prob.pitch_um, prob.n_dev, prob.corr_length_um,
                                        prob.kernel)
-    return float(prob.corr_sigma_ppm * np.sqrt(model.pair_variance(cov, comp.pairs)).max())
+    return float(prob.corr_sigma_ppm * np.sqrt(variation.pair_variance(cov, comp.pairs)).max())
 
 
 def _edge(comp: Compiled, assign: IntArray) -> float:
@@ -240,10 +239,9 @@ def evaluate(comp: Compiled, dev_of: IntArray) -> Keys:
 def field_products(comp: Compiled, dev_of: IntArray) -> FloatArray:
     """K E of the correlated field for a state: per grid slot, its correlation with each
     device's units (and the spare slots, last) over their number, (n_slots, n_dev + 1)."""
-    from placer import model
-
+    from placer.model import variation
     prob = comp.prob
     assign = slot_assignment(comp, dev_of)
     groups = np.where(assign >= 0, assign, np.where(assign == SPARE, prob.n_dev, -1))
-    return model.grid_kernel_products(groups.reshape(prob.rows, prob.cols), prob.pitch_um,
+    return variation.grid_kernel_products(groups.reshape(prob.rows, prob.cols), prob.pitch_um,
                                       prob.n_dev + 1, prob.corr_length_um, prob.kernel)

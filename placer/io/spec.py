@@ -351,10 +351,10 @@ def default_spec(name: str, devices: tuple[str, ...], counts: tuple[int, ...],
 
 
 def with_computed_pitch(spec: Spec, rules: Any = None) -> Spec:
-    """``spec`` with the estimated pitch of :func:`placer.pitch.estimated` (the search
+    """``spec`` with the estimated pitch of :func:`placer.layout.pitch.estimated` (the search
     runs at it), unless the spec gives its own pitch. ``rules`` is a template's rules
     (default: the kind's)."""
-    from placer.pitch import estimated
+    from placer.layout.pitch import estimated
 
     return estimated(spec, rules)
 

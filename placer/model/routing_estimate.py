@@ -8,7 +8,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from placer.pattern import Pattern, unit_positions
+from placer.io.pattern import Pattern, unit_positions
 
 __all__ = ["Routing", "estimate_routing", "row_tracks", "diffusion_breaks", "orient_row",
            "finger_terminals", "FingerNets", "mos_finger_nets"]
@@ -50,7 +50,7 @@ def mos_finger_nets(spec: Any) -> FingerNets:
 
     Examples
     --------
-    >>> from placer.spec import parse_spec
+    >>> from placer.io.spec import parse_spec
     >>> mos_finger_nets(parse_spec("[devices]\\nA = 2\\nB = 2\\n"))
     ((0, 1), (0, 2))
     """

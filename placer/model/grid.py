@@ -13,8 +13,8 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import NDArray
 
-from placer.pattern import DUMMY, EMPTY
-from placer.spec import Spec
+from placer.io.pattern import DUMMY, EMPTY
+from placer.io.spec import Spec
 
 __all__ = ["mask_codes", "usable", "pinned_slots", "device_rows", "full_pattern_ids",
            "open_edge", "PAD"]
@@ -64,7 +64,7 @@ def full_pattern_ids(spec: Spec, core: IntArray, rows: int, cols: int) -> IntArr
 
     Examples
     --------
-    >>> from placer.spec import parse_spec
+    >>> from placer.io.spec import parse_spec
     >>> spec = parse_spec('[devices]\\nA = 2\\n[array]\\nrows = 1\\ncolumns = 2\\n', "s")
     >>> full_pattern_ids(spec, np.array([0, 0]), 1, 2).tolist()
     [[-1, 0, 0, -1]]

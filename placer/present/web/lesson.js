@@ -1,7 +1,7 @@
 // placer lesson page: swap units, recompute every figure with grade's formulas.
-// The formulas mirror placer/moments.py (exact integer moments, here in BigInt),
-// placer/model.py (worst linear and quadratic errors, the correlated field, the area
-// law) and placer/budget.py (ratio budget, capacitor-array INL and DNL).
+// The formulas mirror placer/model/exact_moments.py (exact integer moments, here in BigInt),
+// placer/model/variation.py (worst linear and quadratic errors, the correlated field, the area
+// law) and placer/model/budget.py (ratio budget, capacitor-array INL and DNL).
 "use strict";
 
 const D = JSON.parse(document.getElementById("lesson-data").textContent);

@@ -14,9 +14,9 @@ from dataclasses import replace
 from typing import TYPE_CHECKING, Any
 
 if TYPE_CHECKING:
-    from placer.cells import Rules, UnitCell
-    from placer.pattern import Pattern
-    from placer.spec import Spec
+    from placer.io.pattern import Pattern
+    from placer.io.spec import Spec
+    from placer.layout.cells import Rules, UnitCell
 
 __all__ = ["estimated", "fitted", "with_pitch"]
 
@@ -32,7 +32,7 @@ def estimated(spec: Spec, rules: Rules | None = None) -> Spec:
     are expected to need, unless the spec gives a pitch."""
     if spec.array.pitch_given:
         return spec
-    from placer.router import pitch_needed
+    from placer.layout.router import pitch_needed
 
     return with_pitch(spec, pitch_needed(spec, rules))
 
@@ -46,8 +46,8 @@ def fitted(pattern: Pattern, spec: Spec, rules: Rules | None = None,
     """
     if spec.array.pitch_given:
         return spec
-    from placer.cells import load_rules, min_pitch, unit_cell
-    from placer.router import plan_tracks
+    from placer.layout.cells import load_rules, min_pitch, unit_cell
+    from placer.layout.router import plan_tracks
 
     rules = rules if rules is not None else load_rules(spec.kind)
     if cell is None:

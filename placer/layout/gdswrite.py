@@ -17,12 +17,12 @@ from typing import Any
 
 import numpy as np
 
-from placer.cells import DB_UNIT_UM, Rect, Rules, UnitCell, snap
 from placer.errors import PlacerError
-from placer.layers import LayerMap
-from placer.pattern import DUMMY, EMPTY, Pattern
-from placer.router import Wiring
-from placer.spec import Spec
+from placer.io.pattern import DUMMY, EMPTY, Pattern
+from placer.io.spec import Spec
+from placer.layout.cells import DB_UNIT_UM, Rect, Rules, UnitCell, snap
+from placer.layout.layers import LayerMap
+from placer.layout.router import Wiring
 
 __all__ = ["cell_name", "build_library", "write_gds", "gds_timestamp", "DB_UNIT_UM"]
 
@@ -138,7 +138,7 @@ def write_gds(lib: Any, path: Path) -> bytes:
     """Write the library to ``path`` atomically and return the bytes written."""
     import tempfile
 
-    from placer.output import atomic_write
+    from placer.io.staging import atomic_write
 
     fd, tmp_name = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
     os.close(fd)

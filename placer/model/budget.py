@@ -31,11 +31,11 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from placer import model
 from placer.errors import SpecError
-from placer.pattern import Pattern, unit_positions
-from placer.score import Grade
-from placer.spec import ElectricalSpec, Spec
+from placer.io.pattern import Pattern, unit_positions
+from placer.io.spec import ElectricalSpec, Spec
+from placer.model import variation
+from placer.model.grade import Grade
 
 __all__ = [
     "MirrorLine",
@@ -266,12 +266,12 @@ def check_electrical(spec: Spec) -> ElectricalSpec:
 def budget(pattern: Pattern, spec: Spec, grade: Grade, parasitics: Any = None
            ) -> MirrorBudget | DacBudget:
     """The electrical budget of ``pattern`` (in the spec's device order) for its kind;
-    with the ``parasitics`` of its routed block (:func:`placer.parasitics.extract`), its
-    wiring term too (:mod:`placer.wiring_error`)."""
+    with the ``parasitics`` of its routed block (:func:`placer.layout.parasitics.extract`), its
+    wiring term too (:mod:`placer.layout.wiring_error`)."""
     e = check_electrical(spec)
     wiring = None
     if parasitics is not None:
-        from placer.wiring_error import wiring_effect
+        from placer.layout.wiring_error import wiring_effect
 
         wiring = wiring_effect(spec, parasitics, e)
     if spec.kind == "cap":
@@ -305,8 +305,8 @@ def _ratio_budget(pattern: Pattern, spec: Spec, grade: Grade, e: ElectricalSpec,
         if mos:
             gm_id = e.gm_id_per_v
             clm = 100.0 * clm_error(e.lambda_per_v, e.vds_v[name], e.vds_v[ref])
-            s_beta = float(model.pelgrom_sigma(e.a_beta_pct_um, area[name], area[ref]))
-            s_vt = float(model.pelgrom_sigma(e.a_vt_mv_um, area[name], area[ref]))
+            s_beta = float(variation.pelgrom_sigma(e.a_beta_pct_um, area[name], area[ref]))
+            s_vt = float(variation.pelgrom_sigma(e.a_vt_mv_um, area[name], area[ref]))
             white = current_sigma(s_beta, 0.1 * s_vt, gm_id)
             # Monte Carlo of the random part: device-level VT and beta, each device's
             # variance A^2 / (2 area), then the output's current error against the ref
@@ -434,10 +434,10 @@ def _dac_budget(pattern: Pattern, spec: Spec, e: ElectricalSpec, wiring: Any = N
     codes = np.arange(2 ** len(bits))
 
     xy, dev = unit_positions(pattern, spec.array.pitch_um)
-    centre = model.array_centre(xy)
+    centre = variation.array_centre(xy)
     xy_c = xy - centre
-    cen = model.centroids(xy_c, dev, n_dev)
-    m2 = model.second_moments(xy_c, dev, n_dev)
+    cen = variation.centroids(xy_c, dev, n_dev)
+    m2 = variation.second_moments(xy_c, dev, n_dev)
 
     def inl_of(err: FloatArray) -> tuple[FloatArray, FloatArray]:
         e_term = err[..., t_idx] if t_idx is not None else 0.0
@@ -457,7 +457,7 @@ def _dac_budget(pattern: Pattern, spec: Spec, e: ElectricalSpec, wiring: Any = N
 
     # random parts: correlated device means (exact covariance) and white per device
     c = spec.correlated
-    cov = (c.sigma_ppm * 1e-6) ** 2 * model.grid_device_covariance(
+    cov = (c.sigma_ppm * 1e-6) ** 2 * variation.grid_device_covariance(
         np.where(pattern.ids >= 0, pattern.ids, -1), spec.array.pitch_um, n_dev, c.length_um,
         c.kernel)
     white_unit = spec.mismatch.a_param_pct_um * 1e-2 / np.sqrt(2.0 * spec.unit.area_um2)

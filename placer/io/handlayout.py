@@ -15,8 +15,9 @@ from pathlib import Path
 import numpy as np
 
 from placer.errors import LimitError, shown
-from placer.pattern import DUMMY, EMPTY, Pattern, parse_pattern
-from placer.spec import (
+from placer.io.gdsread import LayoutError, StreamLibrary, is_gdsii, parse_stream
+from placer.io.pattern import DUMMY, EMPTY, Pattern, parse_pattern
+from placer.io.spec import (
     MAX_DEVICES,
     MAX_FILE_BYTES,
     MAX_NAME,
@@ -26,7 +27,6 @@ from placer.spec import (
     Spec,
     read_limited,
 )
-from placer.stream import LayoutError, StreamLibrary, is_gdsii, parse_stream
 
 __all__ = ["Unit", "Recognised", "read_layout", "units_to_pattern", "read_csv_units",
            "gds_units", "detect_format", "MAX_LAYOUT_BYTES"]

@@ -33,8 +33,8 @@ def _fill(prob: Problem, sequence: list[int]) -> IntArray:
         assign[slots[:len(sequence)]] = sequence
         return assign
     from placer.search import compile_problem
+    from placer.search._compiled import slot_assignment
     from placer.search._construct import greedy_start
-    from placer.search._moments import slot_assignment
 
     comp = compile_problem(prob)
     left = [int(x) for x in comp.left]

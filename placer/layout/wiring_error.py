@@ -1,7 +1,7 @@
 """What the drawn wiring does to each device: the relative error the budget adds as its
 wiring term, from the parasitics extracted from the routed geometry.
 
-Pure functions of the spec and :class:`placer.parasitics.Parasitics`, first order in the
+Pure functions of the spec and :class:`placer.layout.parasitics.Parasitics`, first order in the
 wiring (the drops and parasitic capacitances are small against the device's own figures):
 
 * ``mos``: every finger carries the unit current ``[electrical] unit_current_ua`` from
@@ -34,9 +34,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from placer.io.spec import ElectricalSpec, Spec
 from placer.kinds import series_node
-from placer.parasitics import Parasitics, effective_resistances, node_voltages
-from placer.spec import ElectricalSpec, Spec
+from placer.layout.parasitics import Parasitics, effective_resistances, node_voltages
 
 __all__ = ["WiringEffect", "wiring_effect"]
 

@@ -8,10 +8,10 @@ from typing import Any
 
 import numpy as np
 
-from placer import model
-from placer.moments import grid_sums, pair_linear, pair_second
-from placer.pattern import Pattern, unit_positions
-from placer.spec import Spec
+from placer.io.pattern import Pattern, unit_positions
+from placer.io.spec import Spec
+from placer.model import variation
+from placer.model.exact_moments import grid_sums, pair_linear, pair_second
 
 __all__ = ["DeviceScore", "PairScore", "MonteCarloSummary", "Grade", "grade_pattern",
            "assumptions"]
@@ -128,13 +128,13 @@ def grade_pattern(pattern: Pattern, spec: Spec) -> Grade:
     """Compute every figure of ``pattern`` (already in the spec's device order)."""
     n_dev = len(pattern.devices)
     xy, dev = unit_positions(pattern, spec.array.pitch_um)
-    centre = model.array_centre(xy)
+    centre = variation.array_centre(xy)
     xy_c = xy - centre
     counts = np.bincount(dev, minlength=n_dev)
-    cen = model.centroids(xy, dev, n_dev)
+    cen = variation.centroids(xy, dev, n_dev)
     off = cen - centre
-    m2 = model.power_moments(xy_c, dev, n_dev, 2)
-    edges = model.edge_units(pattern.ids, n_dev)
+    m2 = variation.power_moments(xy_c, dev, n_dev, 2)
+    edges = variation.edge_units(pattern.ids, n_dev)
     marks = pattern.orient[pattern.ids >= 0]
     devices = []
     for d, name in enumerate(pattern.devices):
@@ -155,25 +155,25 @@ def grade_pattern(pattern: Pattern, spec: Spec) -> Grade:
     if pair_list:
         pr = np.array(pair_list, dtype=int)
         g = spec.gradient
-        # exact integer moments on the slot grid (placer.moments): zeros are exact zeros
+        # exact integer moments on the slot grid (placer.model.exact_moments): zeros are exact zeros
         r_idx, c_idx = np.nonzero(pattern.ids >= 0)
         sums = grid_sums(r_idx, c_idx, dev, n_dev)
         dc = pair_linear(sums, pr, spec.array.pitch_um)
-        lin, ang = model.linear_worst(dc, g.linear_ppm_per_um)
+        lin, ang = variation.linear_worst(dc, g.linear_ppm_per_um)
         dm2 = pair_second(sums, pr, spec.array.pitch_um)
-        quad = model.quadratic_worst(dm2, g.quadratic_ppm_per_um2)
-        bowl = model.bowl_error(dm2, g.quadratic_ppm_per_um2)
-        norms = model.exact_pair_terms(xy_c, dev, n_dev, pr, g.order)
+        quad = variation.quadratic_worst(dm2, g.quadratic_ppm_per_um2)
+        bowl = variation.bowl_error(dm2, g.quadratic_ppm_per_um2)
+        norms = variation.exact_pair_terms(xy_c, dev, n_dev, pr, g.order)
         norms[1] = np.hypot(dc[:, 0], dc[:, 1])
-        norms[2] = model.moment_norm(dm2)
+        norms[2] = variation.moment_norm(dm2)
         c = spec.correlated
-        cov = model.grid_device_covariance(np.where(pattern.ids >= 0, pattern.ids, -1),
+        cov = variation.grid_device_covariance(np.where(pattern.ids >= 0, pattern.ids, -1),
                                            spec.array.pitch_um, n_dev, c.length_um, c.kernel)
-        corr = c.sigma_ppm * np.sqrt(model.pair_variance(cov, pr))
+        corr = c.sigma_ppm * np.sqrt(variation.pair_variance(cov, pr))
         area = counts * spec.unit.area_um2
-        white = 1e4 * model.pelgrom_sigma(spec.mismatch.a_param_pct_um, area[pr[:, 0]],
+        white = 1e4 * variation.pelgrom_sigma(spec.mismatch.a_param_pct_um, area[pr[:, 0]],
                                           area[pr[:, 1]])
-        vt = (model.pelgrom_sigma(spec.mismatch.a_vt_mv_um, area[pr[:, 0]], area[pr[:, 1]])
+        vt = (variation.pelgrom_sigma(spec.mismatch.a_vt_mv_um, area[pr[:, 0]], area[pr[:, 1]])
               if spec.mismatch.a_vt_mv_um is not None else None)
         known = None
         if g.direction_deg is not None:          # the gradient along the given direction
@@ -184,7 +184,7 @@ def grade_pattern(pattern: Pattern, spec: Spec) -> Grade:
             hs = g.hot_spot
             field = hs.ppm * np.exp(-np.hypot(xy[:, 0] - hs.x_um, xy[:, 1] - hs.y_um)
                                     / hs.fall_off_um)
-            spot = model.field_errors(field, dev, n_dev, pr)
+            spot = variation.field_errors(field, dev, n_dev, pr)
         group_of = spec.group_of()
         for i, (a, b) in enumerate(pair_list):
             ga, gb = group_of.get(pattern.devices[a], ""), group_of.get(pattern.devices[b], "")
@@ -215,7 +215,7 @@ def _monte_carlo(spec: Spec, xy_c: np.ndarray, dev: np.ndarray, n_dev: int, pr: 
     """Sample the full field; exact std: linear/sqrt2, quadratic/sqrt3, sigmas as they are."""
     m = spec.monte_carlo
     white_unit = 1e4 * spec.mismatch.a_param_pct_um / np.sqrt(2.0 * spec.unit.area_um2)
-    errors = model.monte_carlo_errors(
+    errors = variation.monte_carlo_errors(
         xy_c, dev, n_dev, pr,
         g_rms_ppm_per_um=spec.gradient.linear_ppm_per_um,
         h_rms_ppm_per_um2=spec.gradient.quadratic_ppm_per_um2,

@@ -1,7 +1,7 @@
 """A SPICE netlist of the routed array: one subcircuit instance per unit and the drawn
 wiring as R and C elements, for a designer to simulate what the wiring does.
 
-Every net's resistor network (:mod:`placer.parasitics`) becomes resistors between nodes
+Every net's resistor network (:mod:`placer.layout.parasitics`) becomes resistors between nodes
 ``<net>_<k>`` (nodes a zero-ohm wire joins are one); the net's pin node is the net's
 own name, so a test bench attaches its sources by net name. Each unit's terminal
 connects to its node of that network. The capacitance of each wire piece to ground and
@@ -19,8 +19,8 @@ from __future__ import annotations
 
 import re
 
-from placer.parasitics import Parasitics
-from placer.spec import Spec
+from placer.io.spec import Spec
+from placer.layout.parasitics import Parasitics
 
 __all__ = ["netlist", "subckt_name", "VTO_V"]
 

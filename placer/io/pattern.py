@@ -11,7 +11,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from placer.errors import LimitError, PatternError, shown
-from placer.spec import MAX_DEVICES, MAX_NAME, MAX_SLOTS, MAX_UNITS, Spec, read_text
+from placer.io.spec import MAX_DEVICES, MAX_NAME, MAX_SLOTS, MAX_UNITS, Spec, read_text
 
 __all__ = [
     "DUMMY",

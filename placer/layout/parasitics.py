@@ -33,12 +33,12 @@ from typing import TYPE_CHECKING
 import numpy as np
 from numpy.typing import NDArray
 
-from placer.cells import Rect
+from placer.layout.cells import Rect
 
 if TYPE_CHECKING:
-    from placer.cells import Rules
-    from placer.router import Tap, Wiring
-    from placer.spec import RoutingSpec
+    from placer.io.spec import RoutingSpec
+    from placer.layout.cells import Rules
+    from placer.layout.router import Tap, Wiring
 
 __all__ = ["Network", "TapFigure", "Coupling", "NetFigures", "Parasitics", "extract",
            "effective_resistances", "node_voltages", "REACH"]

@@ -7,10 +7,10 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
-from placer.pattern import Pattern, unit_positions
-from placer.score import Grade
+from placer.io.pattern import Pattern, unit_positions
+from placer.io.spec import GradientSpec, Spec
+from placer.model.grade import Grade
 from placer.search import Keys, Problem, keys_of, search
-from placer.spec import GradientSpec, Spec
 
 __all__ = ["UnitSensitivity", "Swap", "RepairResult", "sensitivity", "repair"]
 
@@ -109,7 +109,7 @@ def _problem(pattern: Pattern, spec: Spec, pitch_um: tuple[float, float]) -> Pro
     usable, so the search reaches its best on the same slots as the layout."""
     from dataclasses import replace
 
-    from placer.arrange import problem_for
+    from placer.jobs.arrange import problem_for
 
     rows, cols = pattern.shape
     spec = replace(spec, counts=tuple(pattern.counts()),
@@ -124,7 +124,7 @@ def _batch_worst(prob: Problem, sums: NDArray[np.int64], pairs: NDArray[np.int64
     """Worst-pair linear (um) and quadratic (ppm) of a batch of states, (K,) each.
 
     ``sums`` (K, D, 6) holds each device's sums of 1, u, v, uu, uv, vv in doubled
-    offsets; the formulas are placer.moments' (about the centre of the device units).
+    offsets; the formulas are placer.model.exact_moments' (about the centre of the device units).
     """
     hx, hy = prob.pitch_um[0] / 2, prob.pitch_um[1] / 2
     a, b = pairs[:, 0], pairs[:, 1]

@@ -255,7 +255,7 @@ def shipped_text(name: str) -> str:
 
 def read_toml(path: Path | None, fallback: str) -> tuple[dict[str, Any], str]:
     """A template or layer-map file as a dict, with the name to quote in messages."""
-    from placer.spec import MAX_FILE_BYTES, MAX_TOML_DEPTH, toml_depth
+    from placer.io.spec import MAX_FILE_BYTES, MAX_TOML_DEPTH, toml_depth
 
     if path is None:
         return tomllib.loads(shipped_text(fallback)), f"templates/{fallback}"

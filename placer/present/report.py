@@ -4,12 +4,12 @@ from __future__ import annotations
 
 from typing import TYPE_CHECKING, Any
 
-from placer.pattern import format_pattern
-from placer.score import Grade
+from placer.io.pattern import format_pattern
+from placer.model.grade import Grade
 
 if TYPE_CHECKING:
-    from placer.arrange import Arrangement
-    from placer.spec import Spec
+    from placer.io.spec import Spec
+    from placer.jobs.arrange import Arrangement
 
 __all__ = ["format_grade", "format_table", "format_arrangement", "format_budget",
            "format_nets", "CAUTION"]
@@ -230,7 +230,7 @@ def _dac_wiring(b: Any) -> list[str]:
 
 def format_budget(b: Any) -> str:
     """The electrical budget section: mirror/resistor lines, or DAC INL/DNL."""
-    from placer.budget import DacBudget
+    from placer.model.budget import DacBudget
 
     if isinstance(b, DacBudget):
         fit = "end-point" if b.fit == "endpoint" else "best-fit"
@@ -280,7 +280,7 @@ def format_budget(b: Any) -> str:
 
 def format_nets(wiring: Any, max_rows: int = 40, area: Any = None) -> str:
     """The routed nets: terminals, wire length, vias and the wire's R and C; with
-    ``area`` (:class:`placer.drawing.Area`), the block's area efficiency."""
+    ``area`` (:class:`placer.layout.block.Area`), the block's area efficiency."""
     w, h = wiring.size_um
     rows = []
     for n in wiring.nets[:max_rows]:

@@ -10,10 +10,11 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from placer import baselines
 from placer.errors import SpecError
-from placer.pattern import Pattern
-from placer.routing import (
+from placer.io.pattern import Pattern
+from placer.io.spec import MAX_SIDE, MAX_SLOT_DEVICES, MAX_SLOTS, Spec
+from placer.model.grade import Grade, grade_pattern
+from placer.model.routing_estimate import (
     FingerNets,
     Routing,
     estimate_routing,
@@ -21,18 +22,17 @@ from placer.routing import (
     mos_finger_nets,
     orient_row,
 )
-from placer.score import Grade, grade_pattern
 from placer.search import (
     Keys,
     Problem,
     SearchResult,
+    baselines,
     compare,
     keys_of,
     n_restarts,
     rank_key,
     search,
 )
-from placer.spec import MAX_SIDE, MAX_SLOT_DEVICES, MAX_SLOTS, Spec
 
 __all__ = ["METHODS", "Arrangement", "Candidate", "candidate_shapes", "build_pattern",
            "problem_for", "arrange", "baseline_pattern", "HOLE_MARGIN", "DEFAULT_TIME_LIMIT_S"]
@@ -122,7 +122,7 @@ def candidate_shapes(spec: Spec, limit: int = 4) -> list[tuple[int, int]]:
 
     Examples
     --------
-    >>> from placer.spec import parse_spec
+    >>> from placer.io.spec import parse_spec
     >>> candidate_shapes(parse_spec("[devices]\\nA = 4\\nB = 4\\n[array]\\nrows = 2"))
     [(2, 4)]
     """
@@ -158,8 +158,7 @@ def problem_for(spec: Spec, rows: int, cols: int,
     """The search problem of ``spec`` on a core of ``rows`` x ``cols`` slots: the mask's
     usable slots (or ``usable``), pins, groups' row bands, symmetry and ranked pairs.
     ``arrange`` and ``repair`` both build their problem here."""
-    from placer import grid
-
+    from placer.model import grid
     use = usable if usable is not None else grid.usable(spec, rows, cols)
     n_use = rows * cols if use is None else int(np.sum(use))
     if n_use < spec.n_units:
@@ -185,8 +184,7 @@ def problem_for(spec: Spec, rows: int, cols: int,
 def build_pattern(spec: Spec, assign: IntArray, rows: int, cols: int) -> Pattern:
     """The full pattern: core assignment (-1 a spare slot, -2 an unused one), dummies as
     the spec asks around the footprint, MOS orientations."""
-    from placer import grid
-
+    from placer.model import grid
     ids = grid.full_pattern_ids(spec, np.asarray(assign), rows, cols)
     orient = np.zeros(ids.shape, dtype=np.int8)
     if spec.kind == "mos":
@@ -295,7 +293,7 @@ class _Tried:
 #: Maps an arrangement and a spec to the spec at the pitch that arrangement's routing needs.
 PitchFit = Callable[[Pattern, Spec], Spec]
 #: Maps an arrangement and a spec to its routed block's worst-pair wiring error (ppm) and
-#: area (um2) (:meth:`placer.drawing.Tools.weigh`).
+#: area (um2) (:meth:`placer.layout.block.Tools.weigh`).
 Weigh = Callable[[Pattern, Spec], tuple[float, float]]
 #: With [search] wiring, this many of the kept arrangements (least gradient error first)
 #: are routed and weighed.
@@ -304,7 +302,7 @@ WIRING_POOL = 12
 
 def default_fit(pattern: Pattern, spec: Spec) -> Spec:
     """The pitch placer's generic cells and routing need for ``pattern``."""
-    from placer.pitch import fitted
+    from placer.layout.pitch import fitted
 
     return fitted(pattern, spec)
 
@@ -386,14 +384,14 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
         Also return up to this many arrangements on the error / routing front.
     fit : callable, optional
         Gives the spec at the pitch an arrangement's routing needs (default: placer's
-        generic cells, :func:`placer.pitch.fitted`); None keeps the spec's pitch. Unless
+        generic cells, :func:`placer.layout.pitch.fitted`); None keeps the spec's pitch. Unless
         the spec gives a pitch, each core shape is searched at the pitch fitted to a
         textbook arrangement of it, and the result is scored at the pitch fitted to its
         own routing (``Arrangement.spec``), the pitch it is drawn at.
 
     Examples
     --------
-    >>> from placer.spec import parse_spec
+    >>> from placer.io.spec import parse_spec
     >>> res = arrange(parse_spec("[devices]\\nA = 2\\nB = 2\\n[array]\\nrows = 1\\n"))
     >>> res.keys.linear_um, res.proven
     (0.0, 'linear and quadratic')

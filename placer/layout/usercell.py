@@ -18,10 +18,10 @@ from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
 
-from placer.cells import Rect, Rules, TemplateError, UnitCell, down_only, min_pitch, snap
+from placer.io.spec import Spec
 from placer.kinds import KINDS_INFO
-from placer.layers import LayerMap
-from placer.spec import Spec
+from placer.layout.cells import Rect, Rules, TemplateError, UnitCell, down_only, min_pitch, snap
+from placer.layout.layers import LayerMap
 
 __all__ = ["UserCell", "load_user_cell"]
 
@@ -39,7 +39,7 @@ class UserCell:
 
     def fit_spec(self, spec: Spec) -> Spec:
         """The spec with the pitch this cell needs (or its own, checked)."""
-        from placer.router import track_estimate
+        from placer.layout.router import track_estimate
 
         need = min_pitch(self.cell, self.rules, track_estimate(spec))
         if not spec.array.pitch_given:
@@ -70,8 +70,8 @@ def load_user_cell(path: Path, name: str | None, spec: Spec, rules: Rules,
     """Read cell ``name`` (default: the one top cell) of the GDSII file ``path``."""
     import gdstk
 
-    from placer.spec import read_limited
-    from placer.stream import parse_stream
+    from placer.io.gdsread import parse_stream
+    from placer.io.spec import read_limited
 
     src = str(path)
     data = read_limited(path, MAX_USER_BYTES, "unit-cell library", TemplateError)

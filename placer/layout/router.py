@@ -45,7 +45,10 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from placer.cells import (
+from placer.errors import PlacerError
+from placer.io.pattern import DUMMY, EMPTY, Pattern
+from placer.kinds import KINDS_INFO, series_node
+from placer.layout.cells import (
     Exit,
     Rect,
     Rules,
@@ -58,12 +61,9 @@ from placer.cells import (
     snap,
     unit_cell,
 )
-from placer.errors import PlacerError
-from placer.kinds import KINDS_INFO, series_node
-from placer.pattern import DUMMY, EMPTY, Pattern
 
 if TYPE_CHECKING:
-    from placer.spec import Spec
+    from placer.io.spec import Spec
 
 __all__ = ["RouteError", "Label", "Wire", "Tap", "NetSummary", "Wiring", "unit_nets",
            "track_estimate", "pitch_needed", "check_pitch", "plan_tracks", "route",
@@ -128,7 +128,8 @@ class Tap:
 class NetSummary:
     """One net of the routed block: what it reaches and how much wire it takes. The
     resistance (largest of its terminals' resistances to the pin) and capacitance (to
-    ground and to every other net) come from the drawn geometry (:mod:`placer.parasitics`)."""
+    ground and to every other net) come from the drawn geometry
+    (:mod:`placer.layout.parasitics`)."""
 
     name: str
     terminals: tuple[tuple[str, str], ...]
@@ -184,8 +185,8 @@ def unit_nets(pattern: Pattern, spec: Spec) -> dict[tuple[int, int], dict[str, s
 
     Examples
     --------
-    >>> from placer.spec import parse_spec
-    >>> from placer.pattern import parse_pattern
+    >>> from placer.io.spec import parse_spec
+    >>> from placer.io.pattern import parse_pattern
     >>> spec = parse_spec("kind = 'res'\\n[devices]\\nR = 3\\n")
     >>> nets = unit_nets(parse_pattern("R R R"), spec)
     >>> [nets[0, c]["a"] + "-" + nets[0, c]["b"] for c in range(3)]
@@ -845,7 +846,7 @@ def route(pattern: Pattern, spec: Spec, rules: Rules | None = None,
     Returns the wiring shapes (metal1 tracks, metal2 stubs, trunks, straps and spines,
     via1 cuts, MOS diffusion joins), the labels (every net at each unit terminal it
     reaches and at its pins), the wires, vias and taps of every net (for
-    :mod:`placer.parasitics`), in the coordinates of the top cell: slot (r, c) centred at
+    :mod:`placer.layout.parasitics`), in the coordinates of the top cell: slot (r, c) centred at
     (c px, -r py). ``user`` marks the user's own cell (stubs only, no straps or spines).
     Raises RouteError when a channel needs more tracks than the pitch holds.
     """

@@ -11,8 +11,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 from pathlib import Path
 
-from placer.cells import TemplateError, read_toml
 from placer.errors import shown
+from placer.layout.cells import TemplateError, read_toml
 
 __all__ = ["ROLES", "LayerMap", "load_layers", "MAX_LAYER"]
 

@@ -19,8 +19,8 @@ from typing import Any
 
 import numpy as np
 
-from placer.pattern import DUMMY, EMPTY, Pattern
-from placer.score import Grade
+from placer.io.pattern import DUMMY, EMPTY, Pattern
+from placer.model.grade import Grade
 
 __all__ = ["PALETTE", "DUMMY_COLOUR", "device_colours", "draw_pattern", "save_preview",
            "save_comparison", "direction_errors", "save_budget", "save_sensitivity"]
@@ -76,7 +76,7 @@ def _write_figure(fig: Any, path: Path, dpi: int) -> None:
 
     import matplotlib
 
-    from placer.output import atomic_write
+    from placer.io.staging import atomic_write
 
     buf = io.BytesIO()
     fmt = path.suffix.lstrip(".")
@@ -414,7 +414,7 @@ def save_budget(b: Any, name: str, paths: Sequence[Path], seed: int = 0,
     wrapped into rows of three, in each device's colour (``devices``: the spec's order,
     which fixes the colours); or INL and DNL by code for a capacitor array, the gradient
     curve with the random 99th-percentile band."""
-    from placer.budget import DacBudget
+    from placer.model.budget import DacBudget
 
     if isinstance(b, DacBudget):
         fig = _figure(9.0, 6.4)

@@ -15,8 +15,8 @@ from importlib import resources
 from typing import Any
 
 from placer.errors import LimitError
-from placer.pattern import Pattern
-from placer.spec import Spec
+from placer.io.pattern import Pattern
+from placer.io.spec import Spec
 
 __all__ = ["LessonArrangement", "lesson_data", "render_page", "spec_title", "MAX_LESSON_UNITS"]
 
@@ -38,7 +38,7 @@ class LessonArrangement:
 def lesson_data(spec: Spec, arrangements: list[LessonArrangement]) -> dict[str, Any]:
     """Everything the page computes from, as JSON-ready values; the first arrangement is
     the one the page opens with."""
-    from placer.plot import DUMMY_COLOUR, device_colours
+    from placer.present.plot import DUMMY_COLOUR, device_colours
 
     if spec.n_units > MAX_LESSON_UNITS:
         raise LimitError(f"{spec.source}: {spec.n_units} units; the lesson page recomputes "
@@ -71,8 +71,8 @@ def lesson_data(spec: Spec, arrangements: list[LessonArrangement]) -> dict[str, 
 
 def _budget_data(spec: Spec) -> dict[str, Any] | None:
     """The budget's parts that no arrangement changes; the page adds the rest."""
-    from placer import model
-    from placer.budget import clm_error, current_sigma
+    from placer.model import variation
+    from placer.model.budget import clm_error, current_sigma
 
     e = spec.electrical
     if e is None:
@@ -96,12 +96,12 @@ def _budget_data(spec: Spec) -> dict[str, Any] | None:
             continue
         line: dict[str, Any] = {"device": name, "pair": [names.index(name), names.index(ref)]}
         if spec.kind == "mos":
-            s_beta = float(model.pelgrom_sigma(e.a_beta_pct_um, area[name], area[ref]))
-            s_vt = float(model.pelgrom_sigma(e.a_vt_mv_um, area[name], area[ref]))
+            s_beta = float(variation.pelgrom_sigma(e.a_beta_pct_um, area[name], area[ref]))
+            s_vt = float(variation.pelgrom_sigma(e.a_vt_mv_um, area[name], area[ref]))
             line["clm_pct"] = 100.0 * clm_error(e.lambda_per_v, e.vds_v[name], e.vds_v[ref])
             line["white_pct"] = current_sigma(s_beta, 0.1 * s_vt, e.gm_id_per_v)
         else:
-            white_ppm = 1e4 * float(model.pelgrom_sigma(spec.mismatch.a_param_pct_um,
+            white_ppm = 1e4 * float(variation.pelgrom_sigma(spec.mismatch.a_param_pct_um,
                                                         area[name], area[ref]))
             line["clm_pct"] = 0.0
             line["white_pct"] = 1e-4 * white_ppm
@@ -111,7 +111,7 @@ def _budget_data(spec: Spec) -> dict[str, Any] | None:
 
 
 def _asset(name: str) -> str:
-    return resources.files("placer.web").joinpath(name).read_text(encoding="utf-8")
+    return resources.files("placer.present.web").joinpath(name).read_text(encoding="utf-8")
 
 
 def render_page(data: dict[str, Any]) -> str:

@@ -11,15 +11,15 @@ from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
 
-from placer.cells import Rules, UnitCell, load_rules, unit_cell
 from placer.errors import LimitError
-from placer.layers import LayerMap, load_layers
-from placer.output import OutputSet
-from placer.parasitics import NetFigures, Parasitics, extract
-from placer.pattern import EMPTY, Pattern
-from placer.router import NetSummary, Wiring, check_pitch, route
-from placer.score import Grade
-from placer.spec import MAX_EXTENT_UM, Spec, with_computed_pitch
+from placer.io.pattern import EMPTY, Pattern
+from placer.io.spec import MAX_EXTENT_UM, Spec, with_computed_pitch
+from placer.io.staging import OutputSet
+from placer.layout.cells import Rules, UnitCell, load_rules, unit_cell
+from placer.layout.layers import LayerMap, load_layers
+from placer.layout.parasitics import NetFigures, Parasitics, extract
+from placer.layout.router import NetSummary, Wiring, check_pitch, route
+from placer.model.grade import Grade
 
 __all__ = ["Area", "area_of", "Block", "Tools", "load_tools", "prepare", "library", "write",
            "layout_of", "MAX_EXTENT_UM"]
@@ -36,16 +36,16 @@ class Tools:
 
     def fit(self, pattern: Pattern, spec: Spec) -> Spec:
         """``spec`` at the pitch the routing of ``pattern`` needs with these tools."""
-        from placer.pitch import fitted
+        from placer.layout.pitch import fitted
 
         return fitted(pattern, spec, self.rules, user=self.user)
 
     def weigh(self, pattern: Pattern, spec: Spec) -> tuple[float, float]:
         """The routed block of ``pattern`` (at the pitch its routing needs): its worst-pair
-        wiring error in ppm (:mod:`placer.wiring_error`; the spec's [electrical] figures,
+        wiring error in ppm (:mod:`placer.layout.wiring_error`; the spec's [electrical] figures,
         else their defaults) and its area in um2."""
-        from placer.spec import ElectricalSpec
-        from placer.wiring_error import wiring_effect
+        from placer.io.spec import ElectricalSpec
+        from placer.layout.wiring_error import wiring_effect
 
         block = prepare(pattern, spec, self)
         rel = list(wiring_effect(block.spec, block.parasitics,
@@ -75,7 +75,7 @@ def load_tools(spec: Spec, template: Path | None = None, layers: Path | None = N
     layer_map = load_layers(layers)
     user = None
     if user_gds is not None:
-        from placer.usercell import load_user_cell
+        from placer.layout.usercell import load_user_cell
 
         user = load_user_cell(user_gds, user_cell, spec, rules, layer_map)
         spec = user.fit_spec(spec)
@@ -88,7 +88,7 @@ def load_tools(spec: Spec, template: Path | None = None, layers: Path | None = N
 def prepare(pattern: Pattern, spec: Spec, tools: Tools) -> Block:
     """Draw and route ``pattern``; raises before anything is written. Unless the spec
     gives a pitch, the block's spec carries the pitch this routing needs
-    (:func:`placer.pitch.fitted`): grade the pattern with ``block.spec``."""
+    (:func:`placer.layout.pitch.fitted`): grade the pattern with ``block.spec``."""
     spec = tools.fit(pattern, spec)
     if tools.user is not None:
         cell = tools.user.cell
@@ -143,7 +143,7 @@ def area_of(block: Block) -> Area:
 
 def library(block: Block) -> Any:
     """The gdstk library of a routed block."""
-    from placer.gds import build_library
+    from placer.layout.gdswrite import build_library
 
     user = block.tools.user
     return build_library(block.pattern, block.spec, block.cell, block.wiring,
@@ -165,8 +165,8 @@ def write(block: Block, grade: Grade, out: OutputSet, stem: str,
           moved: tuple[tuple[int, int], ...] = ()) -> list[str]:
     """Stage ``<stem>.gds``, ``.png`` and ``.svg``; return the names written. ``moved``
     slots are outlined in the pictures."""
-    from placer.gds import write_gds
-    from placer.plot import save_preview
+    from placer.layout.gdswrite import write_gds
+    from placer.present.plot import save_preview
 
     lib = library(block)
     names = [f"{stem}.gds", f"{stem}.png", f"{stem}.svg"]

@@ -1,0 +1,1 @@
+"""What each command computes: a spec made ready for work, arrangement, repair."""
