@@ -23,7 +23,7 @@ sys.path.insert(0, str(ROOT))
 
 from placer.cli import cli  # noqa: E402
 from placer.io.pattern import DUMMY, EMPTY, Pattern  # noqa: E402
-from placer.io.spec import parse_spec  # noqa: E402
+from placer.jobs.load import parse_spec  # noqa: E402
 from placer.layout.block import layout_of  # noqa: E402
 from placer.layout.cells import load_rules, spacing_rules  # noqa: E402
 from placer.layout.gdswrite import write_gds  # noqa: E402

@@ -17,7 +17,7 @@ _EXPORTS = {
     "Pattern": "placer.io.pattern", "format_pattern": "placer.io.pattern",
     "parse_pattern": "placer.io.pattern", "read_pattern": "placer.io.pattern",
     "Grade": "placer.model.grade", "grade_pattern": "placer.model.grade",
-    "Spec": "placer.io.spec", "load_spec": "placer.io.spec", "parse_spec": "placer.io.spec",
+    "Spec": "placer.io.spec", "load_spec": "placer.jobs.load", "parse_spec": "placer.jobs.load",
 }
 
 __all__ = ["__version__", *_EXPORTS]
@@ -30,7 +30,8 @@ if TYPE_CHECKING:  # the names as static checkers see them
         parse_pattern,
         read_pattern,
     )
-    from placer.io.spec import Spec, load_spec, parse_spec  # noqa: F401
+    from placer.io.spec import Spec  # noqa: F401
+    from placer.jobs.load import load_spec, parse_spec  # noqa: F401
     from placer.model.grade import Grade, grade_pattern  # noqa: F401
 
 

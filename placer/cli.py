@@ -9,7 +9,7 @@ import sys
 import time
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
-from dataclasses import asdict, replace
+from dataclasses import asdict
 from functools import wraps
 from pathlib import Path
 from typing import Any, NoReturn, TypeVar
@@ -21,13 +21,16 @@ from placer import __version__
 from placer.errors import PlacerError
 from placer.io.handlayout import Recognised, read_layout
 from placer.io.pattern import Pattern, check_against_spec, format_pattern
-from placer.io.spec import NAME_RE, Spec, default_spec, load_spec
+from placer.io.spec import NAME_RE, Spec
 from placer.io.staging import OutputSet
 from placer.jobs.arrange import METHODS
 from placer.jobs.arrange import arrange as run_arrange
+from placer.jobs.load import default_spec, load_spec
 from placer.jobs.repair import repair as run_repair
 from placer.jobs.repair import sensitivity
+from placer.layout import pitch
 from placer.model.grade import Grade, grade_pattern
+from placer.present.outputs import write_block
 from placer.present.report import (
     format_arrangement,
     format_budget,
@@ -91,8 +94,10 @@ def _user_errors(func: F) -> F:
         # until here (imports, argument parsing) Ctrl-C ends the process quietly with 130;
         # from here it is a KeyboardInterrupt the command handles (Python runs a pending
         # handler before it installs a new one, so none falls between the two)
+        # the handlers before the command, put back after it: a command run in-process
+        # (the API, a test runner) leaves the caller's handlers as they were
+        before = {sig: signal.getsignal(sig) for sig in (signal.SIGINT, signal.SIGTERM)}
         signal.signal(signal.SIGINT, signal.default_int_handler)
-        term = signal.getsignal(signal.SIGTERM)      # a command may take SIGTERM over
         try:
             # overflow and 0/0 inside a model are handled where they matter (figures are
             # checked finite before they are written); numpy's warnings are not for users
@@ -126,8 +131,9 @@ def _user_errors(func: F) -> F:
                 raise
             _interrupted()
         finally:
-            if term is not None:
-                signal.signal(signal.SIGTERM, term)
+            for sig, handler in before.items():
+                # None: a handler not installed from Python (left as the process had it)
+                signal.signal(sig, handler if handler is not None else signal.SIG_DFL)
 
     return wrapper  # type: ignore[return-value]
 
@@ -150,14 +156,16 @@ def cli() -> None:
 
 
 def _budget(pattern: Pattern, spec: Spec, grade: Grade, required: bool,
-            parasitics: Any = None) -> Any:
-    """The electrical budget when the spec asks for one (or ``required``), else None."""
+            block: Any = None) -> Any:
+    """The electrical budget when the spec asks for one (or ``required``), else None; with
+    the wiring term of the routed ``block`` when there is one."""
+    from placer.layout.block import wiring_of
     from placer.model.budget import budget, check_electrical
 
     if spec.electrical is None and not required:
         return None
-    check_electrical(spec)
-    return budget(pattern, spec, grade, parasitics)
+    e = check_electrical(spec)
+    return budget(pattern, spec, grade, wiring_of(block, e) if block is not None else None)
 
 
 def _layout_options(func: F) -> F:
@@ -223,19 +231,16 @@ def _load_graded(path: Path, spec_path: Path | None, *, cell: str | None = None,
         spec = default_spec(stem if NAME_RE.match(stem) else "layout", rec.pattern.devices,
                             rec.pattern.counts())
         if rec.fmt != "pattern":
-            spec = replace(spec, array=replace(spec.array, pitch_um=rec.pitch_um,
-                                               pitch_given=True))
+            spec = pitch.given(spec, rec.pitch_um)
         return rec.pattern, spec, rec
     if rec.fmt != "pattern" and tuple(rec.pitch_um) != tuple(spec.array.pitch_um):
         click.echo(f"Note: {path} has pitch {rec.pitch_um[0]:g} x {rec.pitch_um[1]:g} um; "
                    f"grading with it, not the spec's {spec.array.pitch_um[0]:g} x "
                    f"{spec.array.pitch_um[1]:g} um", err=True)
-        spec = replace(spec, array=replace(spec.array, pitch_um=rec.pitch_um, pitch_given=True))
+        spec = pitch.given(spec, rec.pitch_um)
     pattern = check_against_spec(rec.pattern, spec, str(path))
     if not spec.array.pitch_given:
-        from placer.jobs.arrange import default_fit
-
-        spec = default_fit(pattern, spec)       # the pitch arrange and draw give it
+        spec = pitch.fitted(pattern, spec)       # the pitch arrange and draw give it
     return pattern, spec, rec
 
 
@@ -410,6 +415,7 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
     (budget.png).
     """
     from placer.layout import block as drawing
+    _sigterm_as_interrupt()          # from here SIGTERM ends the command as Ctrl-C does
     spec = load_spec(spec_path)
     spec, tools = _tools(spec, template_path, layers_path, unit_gds, unit_cell)
     names = ["pattern.txt", "report.json", "pattern.gds", "pattern.sp", "pattern.png",
@@ -417,7 +423,6 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
              *(f"candidate-{i}.{x}" for i in range(1, n_candidates + 1) for x in ("txt", "png"))]
     with OutputSet(out_dir, names, force, _ARRANGE_FILES) as out:
         progress = _Progress(not quiet and sys.stderr.isatty())
-        _sigterm_as_interrupt()
         try:
             result = run_arrange(spec, method=method, seed=seed, time_limit_s=time_limit,
                                  n_candidates=n_candidates, progress=progress,
@@ -429,7 +434,7 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
         with _deferred_signals() as caught:
             block = drawing.prepare(result.pattern, spec, tools)
             bud = _budget(result.pattern, spec, result.grade, required=False,
-                          parasitics=block.parasitics)
+                          block=block)
             header = [f"{spec.name}: {result.method}, core {result.core_shape[0]} x "
                       f"{result.core_shape[1]}, seed {seed}",
                       f"linear {result.keys.linear_um:.6g} um, quadratic "
@@ -459,7 +464,7 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
             from placer.layout.netlist import netlist
 
             out.write("pattern.sp", netlist(spec, block.parasitics))
-            drawing.write(block, result.grade, out, "pattern")
+            write_block(block, result.grade, out, "pattern")
             if bud is not None:
                 from placer.present.plot import save_budget
 
@@ -521,7 +526,7 @@ def draw(pattern_path: Path, spec_path: Path | None, out_dir: Path, layers_path:
     grade_ = grade_pattern(pattern, spec)
     names = [f"{stem}.gds", f"{stem}.png", f"{stem}.svg"]
     with OutputSet(out_dir, names, force) as out:
-        drawing.write(block, grade_, out, stem,
+        write_block(block, grade_, out, stem,
                       _gradient_field(spec, grade_) if overlay else None)
         written = out.commit()
     click.echo(format_nets(block.wiring, area=drawing.area_of(block)))
@@ -672,7 +677,7 @@ def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, 
 
     note = None
     try:
-        spec, tools = _tools(replace(spec, array=replace(spec.array, pitch_given=True)),
+        spec, tools = _tools(pitch.given(spec),
                              template_path, layers_path, unit_gds, unit_cell)
     except RouteError as err:      # a hand layout's pitch may not hold placer's unit cell
         if unit_gds is not None or template_path is not None:
@@ -700,7 +705,7 @@ def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, 
         out.write("repaired.txt", format_pattern(res.pattern, header))
         moved = tuple(sorted({s for sw in res.swaps for s in (sw.first, sw.second)}))
         if block is not None:
-            drawing.write(block, grade_, out, "repaired", moved=moved)
+            write_block(block, grade_, out, "repaired", moved=moved)
         else:
             from placer.present.plot import save_preview
 

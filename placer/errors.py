@@ -1,6 +1,22 @@
-"""Errors raised for bad input; the command line prints them as one line."""
+"""Errors raised for bad input; the command line prints them as one line.
 
-__all__ = ["PlacerError", "SpecError", "PatternError", "LimitError", "shown"]
+Every error placer raises for its input (not for a bug) is a :class:`PlacerError`, so one
+handler catches them all::
+
+    PlacerError (ValueError)
+    +-- SpecError          a spec file
+    +-- PatternError       a pattern file
+    +-- LayoutError        a hand layout (CSV or GDSII)
+    +-- TemplateError      a unit-cell template, a layer map or the user's unit cell
+    +-- LimitError         a size limit checked before any work
+    +-- InfeasibleError    constraints no arrangement can meet together
+    +-- RouteError         a pattern that cannot be wired at its pitch
+    +-- OutputError        an output folder or file that cannot be written as asked
+    +-- CoreMissing        the compiled search core is not installed
+"""
+
+__all__ = ["PlacerError", "SpecError", "PatternError", "LayoutError", "TemplateError",
+           "LimitError", "InfeasibleError", "RouteError", "OutputError", "CoreMissing", "shown"]
 
 
 class PlacerError(ValueError):
@@ -15,8 +31,32 @@ class PatternError(PlacerError):
     """A pattern file is malformed or disagrees with its spec."""
 
 
+class LayoutError(PlacerError):
+    """A layout file cannot be read or does not describe a unit array."""
+
+
+class TemplateError(PlacerError):
+    """A template or layer map is malformed."""
+
+
 class LimitError(PlacerError):
     """An input exceeds a size limit the tool enforces before doing any work."""
+
+
+class InfeasibleError(PlacerError):
+    """No arrangement meets the pins, row bands, symmetry and counts together."""
+
+
+class RouteError(PlacerError):
+    """The pattern cannot be wired at the spec's pitch."""
+
+
+class OutputError(PlacerError):
+    """An output folder or file cannot be written as asked."""
+
+
+class CoreMissing(PlacerError):
+    """The compiled search core was not built with this installation."""
 
 
 def shown(value: object, limit: int = 40) -> str:

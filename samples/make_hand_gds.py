@@ -12,7 +12,7 @@ written with placer's own GDSII writer). Both at the pitch placer computes for t
 from pathlib import Path
 
 from placer.io.pattern import check_against_spec, parse_pattern, read_pattern
-from placer.io.spec import load_spec
+from placer.jobs.load import load_spec
 from placer.layout.block import layout_of
 from placer.layout.gdswrite import write_gds
 

@@ -1,4 +1,4 @@
-"""Mutation run over the formula modules: does every formula have a test that fails?
+"""Mutation run over the formula modules: does every formula have a test that fails.
 
 Run:  python tests/mutation.py [--modules model/variation model/budget ...] [--jobs 2]
                                [--list-only] [--out mutation-report.txt]

@@ -5,7 +5,8 @@ import pytest
 
 from placer.errors import SpecError
 from placer.io.pattern import parse_pattern
-from placer.io.spec import parse_spec
+from placer.jobs.load import parse_spec
+from placer.layout.block import wiring_of
 from placer.model.budget import (
     budget,
     clm_error,
@@ -208,7 +209,7 @@ def _routed(text, scale=1.0, name="s.toml"):
     _, block = layout_of(result.pattern, spec)
     grade = grade_pattern(result.pattern, block.spec)
     return block.spec, result.pattern, budget(result.pattern, block.spec, grade,
-                                              block.parasitics), block
+                                              wiring_of(block)), block
 
 
 def test_resistor_wiring_term_is_the_hand_calculation_from_the_independent_checker(tmp_path):
@@ -286,6 +287,6 @@ def test_no_coupling_means_no_dac_wiring_term():
                                                  overlap_ff_per_um2=0.0))
         _, block = layout_of(result.pattern, s)
         grades.append(budget(result.pattern, block.spec,
-                             grade_pattern(result.pattern, block.spec), block.parasitics))
+                             grade_pattern(result.pattern, block.spec), wiring_of(block)))
     assert grades[0].wiring_inl_lsb == 0.0 and grades[0].wiring_dnl_lsb == 0.0
     assert grades[1].wiring_dnl_lsb > 0.0

@@ -10,8 +10,8 @@ import pytest
 from placer.cli import cli
 from placer.errors import SpecError
 from placer.io.pattern import DUMMY, EMPTY
-from placer.io.spec import parse_spec
 from placer.jobs.arrange import arrange
+from placer.jobs.load import parse_spec
 from tests import extraction
 
 LAYERS = Path("templates/layers.toml")
@@ -37,6 +37,7 @@ def test_a_pinned_unit_never_moves():
     assert res.pattern.devices[res.pattern.ids[0, 4]] == "MREF"
 
 
+@pytest.mark.slow
 def test_keep_out_slots_stay_empty_in_the_pattern_and_the_gdsii(runner, tmp_path):
     """The L-shaped sample: its '#' slots hold no unit and no dummy in the pattern, the
     GDSII places no cell there, and the layout extracts with no short or open."""

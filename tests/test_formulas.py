@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 
 from placer.io.pattern import parse_pattern
-from placer.io.spec import parse_spec
+from placer.jobs.load import parse_spec
 from placer.model.budget import budget
 from placer.model.grade import grade_pattern
 

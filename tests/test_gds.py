@@ -8,7 +8,7 @@ import pytest
 from placer.cli import cli
 from placer.errors import PlacerError
 from placer.io.pattern import parse_pattern
-from placer.io.spec import parse_spec
+from placer.jobs.load import parse_spec
 from placer.layout.block import layout_of
 from placer.layout.cells import load_rules
 from placer.layout.gdswrite import cell_name, write_gds

@@ -10,7 +10,7 @@ from placer.cli import cli
 from placer.errors import PlacerError
 from placer.io.handlayout import read_layout
 from placer.io.pattern import parse_pattern
-from placer.io.spec import parse_spec
+from placer.jobs.load import parse_spec
 from placer.jobs.repair import repair, sensitivity
 from placer.layout.block import layout_of
 from placer.layout.gdswrite import write_gds

@@ -6,7 +6,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from placer.io.pattern import format_pattern, parse_pattern, unit_positions
-from placer.io.spec import parse_spec
+from placer.jobs.load import parse_spec
 from placer.model import variation
 from placer.model.grade import grade_pattern
 

@@ -19,9 +19,9 @@ from pathlib import Path
 
 import pytest
 
-from placer.io.spec import parse_spec
 from placer.jobs.arrange import arrange
-from placer.layout.block import layout_of
+from placer.jobs.load import parse_spec
+from placer.layout.block import layout_of, wiring_of
 from placer.layout.netlist import netlist, subckt_name
 from placer.model.budget import budget
 from placer.model.grade import grade_pattern
@@ -65,7 +65,7 @@ def test_ngspice_mirror_ratio_error_matches_the_budgets_wiring_term(tmp_path):
     result = arrange(spec, seed=1, time_limit_s=1.0)
     _, block = layout_of(result.pattern, result.spec)
     spec = block.spec
-    bud = budget(result.pattern, spec, grade_pattern(result.pattern, spec), block.parasitics)
+    bud = budget(result.pattern, spec, grade_pattern(result.pattern, spec), wiring_of(block))
     wire_pct = bud.lines[0].wiring_pct
     assert wire_pct is not None and abs(wire_pct) > 0.05      # large enough to simulate
 

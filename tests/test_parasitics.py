@@ -24,9 +24,9 @@ import numpy as np
 import pytest
 
 from placer.io.pattern import Pattern
-from placer.io.spec import load_spec, parse_spec
 from placer.jobs.arrange import arrange
-from placer.layout.block import area_of, layout_of
+from placer.jobs.load import load_spec, parse_spec
+from placer.layout.block import area_of, layout_of, wiring_of
 from placer.layout.gdswrite import write_gds
 from tests import parasitics as checker
 
@@ -254,7 +254,7 @@ def test_dac_wiring_term_is_the_hand_calculated_transfer_from_the_checkers_coupl
     e = spec.electrical
     assert e.fit == "endpoint" and e.unit_cap_ff
     pattern = block.pattern
-    bud = budget(pattern, spec, grade_pattern(pattern, spec), block.parasitics)
+    bud = budget(pattern, spec, grade_pattern(pattern, spec), wiring_of(block))
     count = dict(zip(spec.devices, spec.counts, strict=True))
     cap = {d: count[d] * e.unit_cap_ff + _coupling(measured, "TOP", f"{d}_BOT")["c_ff"]
            for d in spec.devices}

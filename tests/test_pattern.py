@@ -14,7 +14,7 @@ from placer.io.pattern import (
     parse_pattern,
     unit_positions,
 )
-from placer.io.spec import parse_spec
+from placer.jobs.load import parse_spec
 
 
 def test_parse_ignores_comments_blank_lines_and_tabs():

@@ -7,8 +7,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from placer.io.spec import parse_spec
 from placer.jobs.arrange import arrange, problem_for
+from placer.jobs.load import parse_spec
 from placer.model.exact_moments import grid_sums, pair_linear, pair_second
 from placer.model.grade import grade_pattern
 from placer.model.variation import moment_norm
@@ -228,6 +228,7 @@ def test_one_to_one_in_a_row_of_four_gives_abba_common_practice():
     assert res.pattern.ids.tolist() in ([[0, 1, 1, 0]], [[1, 0, 0, 1]])
 
 
+@pytest.mark.slow
 def test_large_even_counts_get_exactly_zero_linear_error():
     """Point symmetry (mathematical identity): mirrored pairs of units share their centroid,
     so all-even counts on a core too big for enumeration cancel linear gradients exactly."""
@@ -236,6 +237,7 @@ def test_large_even_counts_get_exactly_zero_linear_error():
     assert out.keys.linear_um == 0.0 and out.proven
 
 
+@pytest.mark.slow
 def test_two_single_units_bound_is_one_pitch_and_is_reached():
     """Two one-unit devices sit on distinct slots, so their centroids are at least one
     (smallest) pitch apart; the binary-weighted 6-bit array reaches that bound."""
@@ -278,6 +280,7 @@ def test_near_symmetric_construction_reaches_the_single_unit_bound():
 
 # ---------------------------------------------------------------- one scorer
 
+@pytest.mark.slow
 @settings(max_examples=25, deadline=None)
 @given(st.lists(st.integers(1, 7), min_size=2, max_size=5), st.integers(1, 4),
        st.integers(1, 3), st.sampled_from([(1.0, 1.0), (2.3, 5.15), (0.7, 1.9)]))
@@ -369,6 +372,7 @@ def test_one_or_two_workers_give_each_a_deterministic_result():
         assert np.array_equal(a.assign, b.assign)
 
 
+@pytest.mark.slow
 def test_restarts_run_on_small_cores_the_exact_search_cannot_finish_and_stay_deterministic():
     """A 4 x 6 core of 3:5:7:9 (4.7e11 assignments) gets restarts from random states before
     its chains, as many as its time limit allows for; the result still depends only on
@@ -420,7 +424,7 @@ def test_compiled_loop_keys_equal_a_fresh_evaluation_after_every_stage():
 
 
 def test_arrange_sets_the_restart_count_from_each_shape_share_not_the_clock(monkeypatch):
-    """arrange shares its limit among core shapes, and what is left for a shape depends on
+    """Arrange shares its limit among core shapes, and what is left for a shape depends on
     how long the ones before it took; the restart count (which changes the result) must
     come from the fixed share, so the same spec, seed and limit give the same result."""
     import time
@@ -540,6 +544,7 @@ def test_time_limit_is_reported_when_it_cuts_the_search():
 counts_st = st.lists(st.integers(1, 6), min_size=2, max_size=4)
 
 
+@pytest.mark.slow
 @settings(max_examples=25, deadline=None)
 @given(counts_st, st.integers(1, 4), st.integers(0, 3))
 def test_properties_counts_names_baselines_and_determinism(counts, rows, extra):

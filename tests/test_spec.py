@@ -3,7 +3,7 @@
 import pytest
 
 from placer.errors import LimitError, SpecError
-from placer.io.spec import load_spec, parse_spec
+from placer.jobs.load import load_spec, parse_spec
 
 GOOD = """
 name = "bias_mirror"
@@ -136,7 +136,8 @@ def test_a_pitch_left_out_is_the_smallest_that_holds_cell_and_channel():
     refused by the drawing check."""
     from dataclasses import replace
 
-    from placer.layout.router import RouteError, check_pitch
+    from placer.errors import RouteError
+    from placer.layout.pitch import check_pitch
 
     spec = parse_spec("[devices]\nA = 2\nB = 2\n[unit]\nwidth_um = 2\nlength_um = 1\n", "s")
     assert not spec.array.pitch_given

@@ -7,9 +7,9 @@ from pathlib import Path
 
 import pytest
 
-from placer.io.spec import load_spec, parse_spec
 from placer.jobs.arrange import arrange
-from placer.layout.block import load_tools
+from placer.jobs.load import load_spec, parse_spec
+from placer.layout.block import load_tools, wiring_of
 
 MIRROR = Path("samples/bias_mirror.toml").read_text()
 
@@ -54,7 +54,7 @@ def test_tools_weigh_is_the_budgets_worst_pair_wiring_error():
     ppm, area = tools.weigh(result.pattern, result.spec)
     block = prepare(result.pattern, result.spec, tools)
     bud = budget(result.pattern, block.spec, grade_pattern(result.pattern, block.spec),
-                 block.parasitics)
+                 wiring_of(block))
     wires = [0.0] + [ln.wiring_pct for ln in bud.lines]       # the reference's own is 0
     assert ppm == pytest.approx(1e4 * (max(wires) - min(wires)), rel=1e-9, abs=1e-9)
     assert area == pytest.approx(block.wiring.size_um[0] * block.wiring.size_um[1])

@@ -12,7 +12,7 @@ from __future__ import annotations
 import struct
 from dataclasses import dataclass, field
 
-from placer.errors import LimitError, PlacerError
+from placer.errors import LayoutError, LimitError
 
 __all__ = ["LayoutError", "Ref", "Text", "Structure", "StreamLibrary", "parse_stream",
            "is_gdsii"]
@@ -33,9 +33,6 @@ MAX_REFS = 400_000
 _DB_M = (1e-12, 1e-3)
 _USER_M = (1e-12, 1.0)
 
-
-class LayoutError(PlacerError):
-    """A layout file cannot be read or does not describe a unit array."""
 
 
 @dataclass(frozen=True)

@@ -15,18 +15,11 @@ from pathlib import Path
 import numpy as np
 
 from placer.errors import LimitError, shown
+from placer.io.files import read_limited
 from placer.io.gdsread import LayoutError, StreamLibrary, is_gdsii, parse_stream
 from placer.io.pattern import DUMMY, EMPTY, Pattern, parse_pattern
-from placer.io.spec import (
-    MAX_DEVICES,
-    MAX_FILE_BYTES,
-    MAX_NAME,
-    MAX_SLOTS,
-    MAX_UNITS,
-    NAME_RE,
-    Spec,
-    read_limited,
-)
+from placer.io.spec import NAME_RE, Spec
+from placer.limits import MAX_DEVICES, MAX_FILE_BYTES, MAX_NAME, MAX_SLOTS, MAX_UNITS
 
 __all__ = ["Unit", "Recognised", "read_layout", "units_to_pattern", "read_csv_units",
            "gds_units", "detect_format", "MAX_LAYOUT_BYTES"]

@@ -11,7 +11,9 @@ import numpy as np
 from numpy.typing import NDArray
 
 from placer.errors import LimitError, PatternError, shown
-from placer.io.spec import MAX_DEVICES, MAX_NAME, MAX_SLOTS, MAX_UNITS, Spec, read_text
+from placer.io.files import read_text
+from placer.io.spec import Spec
+from placer.limits import MAX_DEVICES, MAX_NAME, MAX_SLOTS, MAX_UNITS
 
 __all__ = [
     "DUMMY",
@@ -80,6 +82,23 @@ class Pattern:
 
 def parse_pattern(text: str, source: str = "<pattern>") -> Pattern:
     """Parse pattern text; errors name ``source`` and the line.
+
+    Parameters
+    ----------
+    text : str
+        Rows of device names (``.`` a dummy, ``-`` empty, ``>``/``<`` an orientation).
+    source : str
+        What error messages call the text (a file name).
+
+    Returns
+    -------
+    Pattern
+        The grid of device ids and orientations, devices in order of appearance.
+
+    Raises
+    ------
+    PatternError
+        With one line naming ``source``, the line and the problem.
 
     Examples
     --------
@@ -156,6 +175,18 @@ def parse_pattern(text: str, source: str = "<pattern>") -> Pattern:
 def format_pattern(pattern: Pattern, header: Iterable[str] = ()) -> str:
     """Write a pattern as text, columns aligned; ``header`` lines become ``#`` comments.
 
+    Parameters
+    ----------
+    pattern : Pattern
+        The arrangement to write.
+    header : iterable of str
+        Comment lines put above the grid.
+
+    Returns
+    -------
+    str
+        The pattern text, which :func:`parse_pattern` reads back to the same pattern.
+
     Examples
     --------
     >>> print(format_pattern(parse_pattern("A> B< . -")), end="")
@@ -179,7 +210,23 @@ def _token(pattern: Pattern, i: int, o: int) -> str:
 
 
 def read_pattern(path: str | Path) -> Pattern:
-    """Read the pattern file at ``path``."""
+    """Read the pattern file at ``path``.
+
+    Parameters
+    ----------
+    path : str or Path
+        A pattern text file (UTF-8, at most the file-size limit).
+
+    Returns
+    -------
+    Pattern
+        The pattern it holds.
+
+    Raises
+    ------
+    PatternError
+        When the file cannot be read or is not a pattern.
+    """
     path = Path(path)
     return parse_pattern(read_text(path, "pattern", PatternError), source=str(path))
 

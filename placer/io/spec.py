@@ -9,19 +9,29 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from placer.errors import LimitError, PlacerError, SpecError, shown
+from placer.errors import LimitError, SpecError, shown
+from placer.io.files import read_text, toml_depth
+from placer.limits import (
+    MAX_BANDED_DEVICES,
+    MAX_DAC_BITS,
+    MAX_DAC_WORK,
+    MAX_DEVICES,
+    MAX_MC_UNITS,
+    MAX_MC_WORK,
+    MAX_NAME,
+    MAX_NET,
+    MAX_SIDE,
+    MAX_SLOT_DEVICES,
+    MAX_SLOTS,
+    MAX_TOML_DEPTH,
+    MAX_UNITS,
+)
 
 __all__ = [
     "NAME_RE",
     "KINDS",
     "DUMMY_STYLES",
     "KERNELS",
-    "MAX_UNITS",
-    "MAX_SLOTS",
-    "MAX_SIDE",
-    "MAX_DEVICES",
-    "MAX_SLOT_DEVICES",
-    "MAX_FILE_BYTES",
     "ArraySpec",
     "UnitSpec",
     "GradientSpec",
@@ -39,11 +49,10 @@ __all__ = [
     "MASK_CHARS",
     "FITS",
     "Spec",
-    "default_spec",
-    "load_spec",
-    "parse_spec",
+    "bare_spec",
+    "read_spec",
+    "read_spec_text",
     "check_name",
-    "read_text",
 ]
 
 NAME_RE = re.compile(r"[A-Za-z][A-Za-z0-9_]*\Z")
@@ -51,20 +60,6 @@ KINDS = ("mos", "cap", "res")
 DUMMY_STYLES = ("none", "ends", "ring")
 KERNELS = ("exponential", "gaussian")
 
-#: Limits checked before any work starts, so absurd inputs fail at once.
-MAX_UNITS = 65_536
-MAX_SLOTS = 262_144
-MAX_SIDE = 1024            # rows or columns of a core (a pattern adds its dummy ring)
-MAX_DEVICES = 256          # 32 640 pairs
-MAX_SLOT_DEVICES = 1 << 24  # slots x devices: the size of the search's per-device fields
-MAX_EXTENT_UM = 1e6        # drawn span: GDSII coordinates are int32 of 1 nm (2.1 m)
-MAX_DAC_BITS = 16          # the capacitor budget evaluates all 2^bits codes
-MAX_DAC_WORK = 1 << 27     # [electrical] mc_samples x 2^bits
-MAX_MC_UNITS = 2048        # [monte_carlo] factorises the units' correlation (units^2)
-MAX_MC_WORK = 1 << 25      # [monte_carlo] samples x pairs and units x pairs
-MAX_NAME = 24
-MAX_NET = 32
-MAX_FILE_BYTES = 4 * 1024 * 1024
 _RESERVED = {"con", "prn", "aux", "nul", *(f"com{i}" for i in range(10)),
              *(f"lpt{i}" for i in range(10))}
 
@@ -336,9 +331,10 @@ class Spec:
         return list(out)
 
 
-def default_spec(name: str, devices: tuple[str, ...], counts: tuple[int, ...],
+def bare_spec(name: str, devices: tuple[str, ...], counts: tuple[int, ...],
                  kind: str = "mos") -> Spec:
-    """Spec with every assumption at its documented default, for a bare pattern."""
+    """Spec with every assumption at its documented default, for a bare pattern (its pitch
+    not yet worked out: :func:`placer.jobs.load.default_spec` gives it)."""
     from placer.kinds import default_dummy_net, default_nets
 
     nets = tuple(default_nets(kind, d) for d in devices)
@@ -347,16 +343,7 @@ def default_spec(name: str, devices: tuple[str, ...], counts: tuple[int, ...],
                                        for _ in devices),
                 dummy_net=default_dummy_net(kind, list(nets)),
                 array=ArraySpec(pitch_given=False))
-    return with_computed_pitch(spec)
-
-
-def with_computed_pitch(spec: Spec, rules: Any = None) -> Spec:
-    """``spec`` with the estimated pitch of :func:`placer.layout.pitch.estimated` (the search
-    runs at it), unless the spec gives its own pitch. ``rules`` is a template's rules
-    (default: the kind's)."""
-    from placer.layout.pitch import estimated
-
-    return estimated(spec, rules)
+    return spec
 
 
 def check_name(name: str, what: str) -> str:
@@ -535,8 +522,9 @@ def _typename(value: Any) -> str:
             list: "an array", dict: "a table"}.get(type(value), type(value).__name__)
 
 
-def load_spec(path: str | Path) -> Spec:
-    """Read and validate the spec file at ``path``.
+def read_spec(path: str | Path) -> Spec:
+    """Read and validate the spec file at ``path`` (its pitch, unless given, not yet worked
+    out: :func:`placer.jobs.load.load_spec` gives it).
 
     Raises
     ------
@@ -545,89 +533,12 @@ def load_spec(path: str | Path) -> Spec:
     """
     path = Path(path)
     text = read_text(path, "spec", SpecError)
-    return parse_spec(text, source=str(path), default_name=path.stem)
+    return read_spec_text(text, source=str(path), default_name=path.stem)
 
 
-def read_limited(path: Path, limit: int, what: str, error: type[PlacerError]) -> bytes:
-    """The bytes of a file of at most ``limit`` bytes (checked before reading), or
-    ``error`` (``LimitError`` past the limit) with one line naming the file."""
-    try:
-        size = path.stat().st_size
-        if size > limit:
-            raise LimitError(f"{path}: file is {size} bytes, the limit for a {what} is {limit}")
-        return path.read_bytes()
-    except OSError as err:
-        raise error(f"{path}: cannot read: {err.strerror or err}") from err
-
-
-def read_text(path: Path, what: str, error: type[PlacerError]) -> str:
-    """A UTF-8 text file of at most MAX_FILE_BYTES, or ``error`` with one line."""
-    raw = read_limited(path, MAX_FILE_BYTES, what, error)
-    try:
-        return raw.decode("utf-8").removeprefix("\ufeff")   # one byte-order mark: allowed
-    except UnicodeDecodeError as err:
-        raise error(f"{path}: not a UTF-8 text file (byte {err.start})") from err
-
-
-MAX_TOML_DEPTH = 32        # tables, arrays and dotted keys: a spec needs 4
-
-
-def toml_depth(text: str) -> int:
-    """How deeply TOML ``text`` nests (brackets plus dotted-key parts), found by one pass
-    over the characters outside strings and comments -- before the parser, whose cost
-    grows faster than the text on hostile nesting.
-
-    Examples
-    --------
-    >>> toml_depth('a = 1.5\\n[b.c]\\nd = [[1, 2], {e.f = "x.y"}]\\n')
-    3
-    """
-    depth = 0
-    deepest = 0
-    dots = 0
-    stack: list[str] = []
-    in_key = True
-    i, n = 0, len(text)
-    while i < n:
-        ch = text[i]
-        if text.startswith('"""', i) or text.startswith("'''", i):
-            end = text.find(text[i:i + 3], i + 3)
-            i = n if end < 0 else end + 3
-            continue
-        if ch in "\"'":
-            j = i + 1
-            while j < n and text[j] != ch and text[j] != "\n":
-                j += 2 if (ch == '"' and text[j] == "\\") else 1
-            i = j + 1
-            continue
-        if ch == "#":
-            end = text.find("\n", i)
-            i = n if end < 0 else end
-            continue
-        if ch == "\n":
-            if not stack:
-                in_key, dots = True, 0
-        elif ch in "[{":
-            stack.append(ch)
-            depth += 1
-            in_key = ch == "{" or (in_key and len(stack) <= 2)
-        elif ch in "]}":
-            if stack:
-                stack.pop()
-            depth = max(depth - 1, 0)
-        elif ch == "=":
-            in_key = False
-        elif ch == "," and stack and stack[-1] == "{":
-            in_key, dots = True, 0
-        elif ch == "." and in_key:
-            dots += 1
-        deepest = max(deepest, depth + dots)
-        i += 1
-    return deepest
-
-
-def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") -> Spec:
-    """Parse spec text; ``source`` names it in error messages."""
+def read_spec_text(text: str, source: str = "<spec>", default_name: str = "placer") -> Spec:
+    """Parse and validate spec text; ``source`` names it in error messages. The pitch,
+    unless the spec gives it, is left for :mod:`placer.layout.pitch` to work out."""
     if toml_depth(text) > MAX_TOML_DEPTH:
         raise LimitError(f"{source}: tables, arrays or dotted keys nest deeper than "
                          f"{MAX_TOML_DEPTH} levels; a spec needs at most 4")
@@ -807,10 +718,6 @@ def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") 
                 monte_carlo=monte_carlo, search=search, electrical=electrical, source=source,
                 nets=nets, joins=joins, dummy_net=dummy_net, routing=routing,
                 placement=placement)
-    try:
-        spec = with_computed_pitch(spec)
-    except PlacerError as err:
-        raise SpecError(f"{source}: {err}") from None
     _check_work(spec)
     return spec
 
@@ -818,13 +725,6 @@ def parse_spec(text: str, source: str = "<spec>", default_name: str = "placer") 
 def _check_work(spec: Spec) -> None:
     """Refuse, before any work, budgets and Monte Carlo runs too large to finish."""
     src = spec.source
-    rows, cols = spec.array.rows, spec.array.columns
-    px, py = spec.array.pitch_um
-    if rows is not None and cols is not None and max((cols + 2) * px,
-                                                      (rows + 2) * py) > MAX_EXTENT_UM:
-        raise LimitError(f"{src}: [array] {rows} x {cols} slots at pitch [{px:g}, {py:g}] um "
-                         f"would span {(cols + 2) * px:.4g} x {(rows + 2) * py:.4g} um, more "
-                         f"than the {MAX_EXTENT_UM:g} um a GDSII coordinate holds at 1 nm")
     e = spec.electrical
     if e is not None and spec.kind == "cap":
         bits = len([d for d in spec.budget_devices() if d != e.termination])
@@ -1029,6 +929,12 @@ def _placement(source: str, data: dict[str, Any], names: list[str], counts: list
                 raise SpecError(f"{where} needs {need} slots, its rows hold {cap}")
             grows = sorted(set(grows))
         groups.append(GroupSpec(gname, tuple(devs), None if grows is None else tuple(grows)))
+    banded = [g.name for g in groups if g.rows is not None]
+    if banded and len(names) > MAX_BANDED_DEVICES - 1:
+        raise LimitError(f"{source}: [groups] row bands (rows = [...] of group "
+                         f"{shown(banded[0])}) handle at most {MAX_BANDED_DEVICES - 1} devices "
+                         f"in a spec, and this one has {len(names)}; drop the rows or split "
+                         "the block")
     for g in groups:
         if g.rows is None:
             continue

@@ -20,15 +20,12 @@ from collections.abc import Iterable
 from pathlib import Path
 from types import TracebackType
 
-from placer.errors import PlacerError
+from placer.errors import OutputError
 
 __all__ = ["OutputError", "OutputSet", "atomic_write", "file_mode"]
 
 _STAGE_PREFIX = ".placer-staging-"
 
-
-class OutputError(PlacerError):
-    """An output folder or file cannot be written as asked."""
 
 
 def file_mode() -> int:

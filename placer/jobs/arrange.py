@@ -12,7 +12,8 @@ from numpy.typing import NDArray
 
 from placer.errors import SpecError
 from placer.io.pattern import Pattern
-from placer.io.spec import MAX_SIDE, MAX_SLOT_DEVICES, MAX_SLOTS, Spec
+from placer.io.spec import Spec
+from placer.limits import MAX_SIDE, MAX_SLOT_DEVICES, MAX_SLOTS
 from placer.model.grade import Grade, grade_pattern
 from placer.model.routing_estimate import (
     FingerNets,
@@ -122,7 +123,7 @@ def candidate_shapes(spec: Spec, limit: int = 4) -> list[tuple[int, int]]:
 
     Examples
     --------
-    >>> from placer.io.spec import parse_spec
+    >>> from placer.jobs.load import parse_spec
     >>> candidate_shapes(parse_spec("[devices]\\nA = 4\\nB = 4\\n[array]\\nrows = 2"))
     [(2, 4)]
     """
@@ -382,16 +383,27 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
         Shared by the core shapes tried.
     n_candidates : int
         Also return up to this many arrangements on the error / routing front.
+    progress : callable, optional
+        Called with a stage name and the best keys so far as the search goes.
     fit : callable, optional
         Gives the spec at the pitch an arrangement's routing needs (default: placer's
-        generic cells, :func:`placer.layout.pitch.fitted`); None keeps the spec's pitch. Unless
-        the spec gives a pitch, each core shape is searched at the pitch fitted to a
-        textbook arrangement of it, and the result is scored at the pitch fitted to its
+        generic cells, :func:`placer.layout.pitch.fitted`); None keeps the spec's pitch.
+        Unless the spec gives a pitch, each core shape is searched at the pitch fitted to
+        a textbook arrangement of it, and the result is scored at the pitch fitted to its
         own routing (``Arrangement.spec``), the pitch it is drawn at.
+    weigh : callable, optional
+        With ``[search] wiring``, routes the kept arrangements and gives each its
+        wiring error (ppm) and block area (um2) (:meth:`placer.layout.block.Tools.weigh`).
+
+    Returns
+    -------
+    Arrangement
+        The best arrangement, its keys, grade, baselines, candidates and what the
+        search did (method, core shape, time, whether the optimum is proven).
 
     Examples
     --------
-    >>> from placer.io.spec import parse_spec
+    >>> from placer.jobs.load import parse_spec
     >>> res = arrange(parse_spec("[devices]\\nA = 2\\nB = 2\\n[array]\\nrows = 1\\n"))
     >>> res.keys.linear_um, res.proven
     (0.0, 'linear and quadratic')

@@ -156,6 +156,29 @@ def repair(pattern: Pattern, spec: Spec, pitch_um: tuple[float, float], max_swap
     units, swaps are tried among the units farthest out along the worst pair's worst
     gradient direction (they move the centroids most); the time limit covers the target's
     search and the swaps, and ``limited`` says what either cut short.
+
+    Parameters
+    ----------
+    pattern : Pattern
+        The layout to repair, devices in the spec's order.
+    spec : Spec
+        Its devices and model assumptions.
+    pitch_um : tuple of float
+        The layout's slot pitch (x, y).
+    max_swaps : int
+        The most unit exchanges to make.
+    seed : int
+        Seed of the search for the target linear error.
+    time_limit_s : float
+        Covers the target's search and the swaps.
+    beam : int
+        States kept per depth of the swap search.
+
+    Returns
+    -------
+    RepairResult
+        The repaired pattern, the swaps made (slot pairs) and the errors before and
+        after.
     """
     import time
 

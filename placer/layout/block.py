@@ -13,16 +13,18 @@ from typing import Any
 
 from placer.errors import LimitError
 from placer.io.pattern import EMPTY, Pattern
-from placer.io.spec import MAX_EXTENT_UM, Spec, with_computed_pitch
-from placer.io.staging import OutputSet
+from placer.io.spec import ElectricalSpec, Spec
 from placer.layout.cells import Rules, UnitCell, load_rules, unit_cell
 from placer.layout.layers import LayerMap, load_layers
 from placer.layout.parasitics import NetFigures, Parasitics, extract
-from placer.layout.router import NetSummary, Wiring, check_pitch, route
-from placer.model.grade import Grade
+from placer.layout.pitch import check_pitch, estimated, fitted, for_cell
+from placer.layout.router import NetSummary, Wiring, route
+from placer.layout.wiring_error import wiring_effect
+from placer.limits import MAX_EXTENT_UM
+from placer.model.budget import WiringEffect
 
-__all__ = ["Area", "area_of", "Block", "Tools", "load_tools", "prepare", "library", "write",
-           "layout_of", "MAX_EXTENT_UM"]
+__all__ = ["Area", "area_of", "Block", "Tools", "load_tools", "prepare", "library",
+           "layout_of", "wiring_of"]
 
 
 @dataclass(frozen=True)
@@ -36,20 +38,14 @@ class Tools:
 
     def fit(self, pattern: Pattern, spec: Spec) -> Spec:
         """``spec`` at the pitch the routing of ``pattern`` needs with these tools."""
-        from placer.layout.pitch import fitted
-
         return fitted(pattern, spec, self.rules, user=self.user)
 
     def weigh(self, pattern: Pattern, spec: Spec) -> tuple[float, float]:
         """The routed block of ``pattern`` (at the pitch its routing needs): its worst-pair
         wiring error in ppm (:mod:`placer.layout.wiring_error`; the spec's [electrical] figures,
         else their defaults) and its area in um2."""
-        from placer.io.spec import ElectricalSpec
-        from placer.layout.wiring_error import wiring_effect
-
         block = prepare(pattern, spec, self)
-        rel = list(wiring_effect(block.spec, block.parasitics,
-                                 spec.electrical or ElectricalSpec()).relative.values())
+        rel = list(wiring_of(block, spec.electrical).relative.values())
         ppm = 1e6 * (max(rel) - min(rel)) if rel else 0.0
         return ppm, area_of(block).block_um2
 
@@ -78,9 +74,9 @@ def load_tools(spec: Spec, template: Path | None = None, layers: Path | None = N
         from placer.layout.usercell import load_user_cell
 
         user = load_user_cell(user_gds, user_cell, spec, rules, layer_map)
-        spec = user.fit_spec(spec)
+        spec = for_cell(spec, user.cell, user.rules, user.source)
     else:
-        spec = with_computed_pitch(spec, rules)
+        spec = estimated(spec, rules)
         check_pitch(spec, rules)
     return spec, Tools(rules, layer_map, user)
 
@@ -105,6 +101,13 @@ def prepare(pattern: Pattern, spec: Spec, tools: Tools) -> Block:
     parasitics = extract(wiring, spec.routing, tools.rules)
     wiring.nets = [_with_figures(n, parasitics.nets.get(n.name)) for n in wiring.nets]
     return Block(pattern, spec, cell, wiring, tools, parasitics)
+
+
+def wiring_of(block: Block, electrical: ElectricalSpec | None = None) -> WiringEffect:
+    """The wiring term of each device of ``block`` (:mod:`placer.layout.wiring_error`) with
+    ``electrical``'s figures (default: the block spec's, else their defaults)."""
+    e = electrical or block.spec.electrical or ElectricalSpec()
+    return wiring_effect(block.spec, block.parasitics, e)
 
 
 def _with_figures(net: NetSummary, fig: NetFigures | None) -> NetSummary:
@@ -158,20 +161,3 @@ def layout_of(pattern: Pattern, spec: Spec, template: Path | None = None,
     spec, tools = load_tools(spec, template, layers)
     block = prepare(pattern, spec, tools)
     return library(block), block
-
-
-def write(block: Block, grade: Grade, out: OutputSet, stem: str,
-          gradient: tuple[float, float] | None = None,
-          moved: tuple[tuple[int, int], ...] = ()) -> list[str]:
-    """Stage ``<stem>.gds``, ``.png`` and ``.svg``; return the names written. ``moved``
-    slots are outlined in the pictures."""
-    from placer.layout.gdswrite import write_gds
-    from placer.present.plot import save_preview
-
-    lib = library(block)
-    names = [f"{stem}.gds", f"{stem}.png", f"{stem}.svg"]
-    write_gds(lib, out.path(names[0]))
-    save_preview(block.pattern, block.spec.array.pitch_um, grade, block.spec.name,
-                 [out.path(names[1]), out.path(names[2])], gradient=gradient,
-                 cell_extent=block.cell.extent, moved=moved)
-    return names

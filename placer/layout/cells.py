@@ -20,7 +20,7 @@ from importlib import resources
 from pathlib import Path
 from typing import Any
 
-from placer.errors import PlacerError, shown
+from placer.errors import TemplateError, shown
 
 __all__ = [
     "TemplateError",
@@ -58,9 +58,6 @@ RULES = {
     "res": _COMMON + ("gate_enclosure", "gate_space"),
 }
 
-
-class TemplateError(PlacerError):
-    """A template or layer map is malformed."""
 
 
 def snap(v: float) -> float:
@@ -138,12 +135,12 @@ class Terminal:
 
     @property
     def exit_x(self) -> float:
-        """x of the downward exit."""
+        """X of the downward exit."""
         return self.exits[0].x
 
     @property
     def exit_y(self) -> float:
-        """y of the downward exit."""
+        """Y of the downward exit."""
         return self.exits[0].y
 
     @property
@@ -255,7 +252,8 @@ def shipped_text(name: str) -> str:
 
 def read_toml(path: Path | None, fallback: str) -> tuple[dict[str, Any], str]:
     """A template or layer-map file as a dict, with the name to quote in messages."""
-    from placer.io.spec import MAX_FILE_BYTES, MAX_TOML_DEPTH, toml_depth
+    from placer.io.files import toml_depth
+    from placer.limits import MAX_FILE_BYTES, MAX_TOML_DEPTH
 
     if path is None:
         return tomllib.loads(shipped_text(fallback)), f"templates/{fallback}"

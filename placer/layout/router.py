@@ -45,7 +45,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from placer.errors import PlacerError
+from placer.errors import RouteError
 from placer.io.pattern import DUMMY, EMPTY, Pattern
 from placer.kinds import KINDS_INFO, series_node
 from placer.layout.cells import (
@@ -66,16 +66,13 @@ if TYPE_CHECKING:
     from placer.io.spec import Spec
 
 __all__ = ["RouteError", "Label", "Wire", "Tap", "NetSummary", "Wiring", "unit_nets",
-           "track_estimate", "pitch_needed", "check_pitch", "plan_tracks", "route",
+           "plan_tracks", "route",
            "finger_nets", "DUMMY_DEVICE"]
 
 #: Device name of a dummy unit in taps and net summaries.
 DUMMY_DEVICE = "dummy"
 _INF = math.inf
 
-
-class RouteError(PlacerError):
-    """The pattern cannot be wired at the spec's pitch."""
 
 
 @dataclass(frozen=True)
@@ -185,7 +182,7 @@ def unit_nets(pattern: Pattern, spec: Spec) -> dict[tuple[int, int], dict[str, s
 
     Examples
     --------
-    >>> from placer.io.spec import parse_spec
+    >>> from placer.jobs.load import parse_spec
     >>> from placer.io.pattern import parse_pattern
     >>> spec = parse_spec("kind = 'res'\\n[devices]\\nR = 3\\n")
     >>> nets = unit_nets(parse_pattern("R R R"), spec)
@@ -225,55 +222,6 @@ def _rules(spec: Spec, rules: Rules | None) -> Rules:
 
 def _cell(spec: Spec, rules: Rules, pitch_x: float | None) -> UnitCell:
     return unit_cell(spec.kind, spec.unit.width_um, spec.unit.length_um, pitch_x, rules)
-
-
-def track_estimate(spec: Spec) -> int:
-    """Tracks the fullest channel is expected to need, before any arrangement exists.
-
-    The search runs at the pitch this gives; the pitch of the result then follows from
-    the tracks its routing really uses (:func:`plan_tracks`). MOS rows usually hold every
-    net of the block; a capacitor array's bottom plates split over the channels above
-    and below each row; a resistor's chains need about one link track per device.
-    """
-    used = {n for m in spec.nets for n in m.values()}
-    nets = set(spec.net_names()) - ({spec.dummy_net} - used)
-    if spec.kind == "mos":
-        return max(1, len(nets))
-    if spec.kind == "cap":
-        tops = {n["top"] for n in spec.nets}
-        bottoms = {n["bottom"] for n in spec.nets}
-        extra = 0 if len(tops) == 1 else len(tops)
-        return max(1, math.ceil(len(bottoms) / 2) + extra)
-    ends = {n for m in spec.nets for n in m.values()}
-    return max(1, len(ends) + 1)
-
-
-def pitch_needed(spec: Spec, rules: Rules | None = None, tracks: int | None = None
-                 ) -> tuple[float, float]:
-    """Smallest pitch for the spec's unit cell with a channel of ``tracks`` tracks
-    (default: :func:`track_estimate`)."""
-    r = _rules(spec, rules)
-    cell = _cell(spec, r, None)
-    return min_pitch(cell, r, track_estimate(spec) if tracks is None else tracks)
-
-
-def check_pitch(spec: Spec, rules: Rules | None = None) -> None:
-    """Refuse, before any work, a pitch too small for the unit cell or for one track.
-
-    The full check (the channels hold every track the arrangement needs) is made by
-    :func:`route`; this one needs no arrangement.
-    """
-    r = _rules(spec, rules)
-    px, py = spec.array.pitch_um
-    need_x, need_y = pitch_needed(spec, r, tracks=1)
-    if px + 1e-9 < need_x or py + 1e-9 < need_y:
-        full = pitch_needed(spec, r)
-        raise RouteError(
-            f"{spec.source}: [array] pitch_um = [{px:g}, {py:g}] leaves no room for the unit "
-            f"cell (W {spec.unit.width_um:g} um, L {spec.unit.length_um:g} um, rules of "
-            f"{r.source}) and its routing channel: it needs at least [{need_x:g}, {need_y:g}] "
-            f"um (one track per channel), and about [{full[0]:g}, {full[1]:g}] um for a "
-            "typical arrangement; omit pitch_um to get the pitch the routing needs")
 
 
 # ----------------------------------------------------------------------------- planning

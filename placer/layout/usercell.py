@@ -14,13 +14,13 @@ bounding box in x, and in y the box plus the routing channel, unless the spec gi
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 from placer.io.spec import Spec
 from placer.kinds import KINDS_INFO
-from placer.layout.cells import Rect, Rules, TemplateError, UnitCell, down_only, min_pitch, snap
+from placer.layout.cells import Rect, Rules, TemplateError, UnitCell, down_only, snap
 from placer.layout.layers import LayerMap
 
 __all__ = ["UserCell", "load_user_cell"]
@@ -36,22 +36,6 @@ class UserCell:
     cell: UnitCell
     rules: Rules
     source: str
-
-    def fit_spec(self, spec: Spec) -> Spec:
-        """The spec with the pitch this cell needs (or its own, checked)."""
-        from placer.layout.router import track_estimate
-
-        need = min_pitch(self.cell, self.rules, track_estimate(spec))
-        if not spec.array.pitch_given:
-            return replace(spec, array=replace(spec.array, pitch_um=need, pitch_given=False))
-        px, py = spec.array.pitch_um
-        one = min_pitch(self.cell, self.rules, 1)
-        if px + 1e-9 < one[0] or py + 1e-9 < one[1]:
-            raise TemplateError(
-                f"{spec.source}: [array] pitch_um = [{px:g}, {py:g}] is smaller than the unit "
-                f"cell {self.source} with one routing track needs: at least [{one[0]:g}, "
-                f"{one[1]:g}] um ([{need[0]:g}, {need[1]:g}] for any arrangement)")
-        return spec
 
 
 def _bbox(cell: Any) -> tuple[float, float, float, float]:
@@ -70,8 +54,8 @@ def load_user_cell(path: Path, name: str | None, spec: Spec, rules: Rules,
     """Read cell ``name`` (default: the one top cell) of the GDSII file ``path``."""
     import gdstk
 
+    from placer.io.files import read_limited
     from placer.io.gdsread import parse_stream
-    from placer.io.spec import read_limited
 
     src = str(path)
     data = read_limited(path, MAX_USER_BYTES, "unit-cell library", TemplateError)

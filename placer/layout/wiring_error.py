@@ -30,28 +30,15 @@ wiring (the drops and parasitic capacitances are small against the device's own 
 from __future__ import annotations
 
 from collections import defaultdict
-from dataclasses import dataclass
 
 import numpy as np
 
 from placer.io.spec import ElectricalSpec, Spec
 from placer.kinds import series_node
 from placer.layout.parasitics import Parasitics, effective_resistances, node_voltages
+from placer.model.budget import WiringEffect
 
 __all__ = ["WiringEffect", "wiring_effect"]
-
-
-@dataclass(frozen=True)
-class WiringEffect:
-    """Each device's relative error from its wiring (a fraction, not %): its current
-    (``mos``), resistance (``res``) or capacitance (``cap``); ``counted`` says what was
-    taken in, ``missing`` what the spec must give for a term that is left at zero."""
-
-    relative: dict[str, float]
-    counted: str
-    missing: str = ""
-    #: more the budget prints beside the term (a pair's gate-drain coupling)
-    notes: tuple[str, ...] = ()
 
 
 def wiring_effect(spec: Spec, par: Parasitics, e: ElectricalSpec) -> WiringEffect:

@@ -250,6 +250,19 @@ _CURES = {
 }
 
 
+@dataclass(frozen=True)
+class WiringEffect:
+    """Each device's relative error from its wiring (a fraction, not %): its current
+    (``mos``), resistance (``res``) or capacitance (``cap``); ``counted`` says what was
+    taken in, ``missing`` what the spec must give for a term that is left at zero."""
+
+    relative: dict[str, float]
+    counted: str
+    missing: str = ""
+    #: more the budget prints beside the term (a pair's gate-drain coupling)
+    notes: tuple[str, ...] = ()
+
+
 def check_electrical(spec: Spec) -> ElectricalSpec:
     """The spec's [electrical] table, or a one-line error naming what is missing."""
     e = spec.electrical
@@ -263,17 +276,12 @@ def check_electrical(spec: Spec) -> ElectricalSpec:
     return e
 
 
-def budget(pattern: Pattern, spec: Spec, grade: Grade, parasitics: Any = None
+def budget(pattern: Pattern, spec: Spec, grade: Grade, wiring: WiringEffect | None = None
            ) -> MirrorBudget | DacBudget:
     """The electrical budget of ``pattern`` (in the spec's device order) for its kind;
-    with the ``parasitics`` of its routed block (:func:`placer.layout.parasitics.extract`), its
-    wiring term too (:mod:`placer.layout.wiring_error`)."""
+    with the ``wiring`` term of its routed block (:func:`placer.layout.block.wiring_of`),
+    that term too."""
     e = check_electrical(spec)
-    wiring = None
-    if parasitics is not None:
-        from placer.layout.wiring_error import wiring_effect
-
-        wiring = wiring_effect(spec, parasitics, e)
     if spec.kind == "cap":
         return _dac_budget(pattern, spec, e, wiring)
     return _ratio_budget(pattern, spec, grade, e, wiring)

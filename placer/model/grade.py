@@ -125,7 +125,22 @@ def assumptions(spec: Spec) -> dict[str, Any]:
 
 
 def grade_pattern(pattern: Pattern, spec: Spec) -> Grade:
-    """Compute every figure of ``pattern`` (already in the spec's device order)."""
+    """Compute every figure of ``pattern``.
+
+    Parameters
+    ----------
+    pattern : Pattern
+        The arrangement, its devices already in the spec's order
+        (:func:`placer.io.pattern.check_against_spec`).
+    spec : Spec
+        Pitch and model assumptions: gradients, correlated field, mismatch.
+
+    Returns
+    -------
+    Grade
+        Per device centroid and second moments, per pair the linear, quadratic,
+        higher-order, correlated and random errors, and the worst of each.
+    """
     n_dev = len(pattern.devices)
     xy, dev = unit_positions(pattern, spec.array.pitch_um)
     centre = variation.array_centre(xy)

@@ -64,7 +64,7 @@ def full_pattern_ids(spec: Spec, core: IntArray, rows: int, cols: int) -> IntArr
 
     Examples
     --------
-    >>> from placer.io.spec import parse_spec
+    >>> from placer.jobs.load import parse_spec
     >>> spec = parse_spec('[devices]\\nA = 2\\n[array]\\nrows = 1\\ncolumns = 2\\n', "s")
     >>> full_pattern_ids(spec, np.array([0, 0]), 1, 2).tolist()
     [[-1, 0, 0, -1]]

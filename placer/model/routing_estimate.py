@@ -50,7 +50,7 @@ def mos_finger_nets(spec: Any) -> FingerNets:
 
     Examples
     --------
-    >>> from placer.io.spec import parse_spec
+    >>> from placer.jobs.load import parse_spec
     >>> mos_finger_nets(parse_spec("[devices]\\nA = 2\\nB = 2\\n"))
     ((0, 1), (0, 2))
     """

@@ -287,7 +287,6 @@ def save_preview(pattern: Pattern, pitch_um: tuple[float, float], grade: Grade |
                  cell_extent: tuple[float, float, float, float] | None = None,
                  moved: Sequence[tuple[int, int]] = ()) -> None:
     """Write the preview picture to each of ``paths`` (format from the suffix)."""
-
     rows, cols = pattern.shape
     px, py = pitch_um
     span_x, span_y = (cols + 1) * px, (rows + 1) * py
@@ -330,7 +329,6 @@ def save_comparison(entries: Sequence[tuple[str, Pattern, Grade, float]],
     """One landscape page (``paper``: a4 or letter): the arrangements side by side, a bar
     chart of their scores and the ratio error against gradient direction. ``entries``
     holds (label, pattern, grade, routing), the search's result last."""
-
     n = len(entries)
     fig = _figure(*PAPER[paper])
     fig.suptitle(title, fontsize=10, x=0.02, ha="left")

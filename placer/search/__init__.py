@@ -4,11 +4,14 @@ One public entry, :func:`search`, takes a :class:`Problem` and returns a frozen
 :class:`SearchResult`. Inside, one private module per job:
 
 ``_problem``    the problem, the keys and the one objective that orders them
-``_moments``    exact integer moments of orbits and the keys of an assignment
+``_compiled``   a problem compiled to exact integer orbit moments; keys of an assignment
+``_kernel``     the compiled core (``_native.c``, POSIX and C11), or one clear error
 ``_construct``  symmetric and near-symmetric starts, the fair deal, random starts
-``_local``      the compiled Metropolis loop (``_native.c``), one stage at a time
+``_local``      the compiled Metropolis loop, one stage at a time
 ``_exact``      branch and bound, the linear bound, assignment counts
 ``_driver``     stages, restarts, chains, the exact path and the worker process
+
+``baselines`` (public) builds the textbook arrangements on the same problem.
 """
 
 from placer.search._compiled import compile_problem, evaluate, orbit_assignment
@@ -29,8 +32,26 @@ __all__ = ["Problem", "Keys", "SearchResult", "search", "n_restarts", "compare",
 
 
 def keys_of(prob: Problem, assign: object) -> Keys:
-    """Every key of a slot assignment (device ids, -1 spare) of ``prob``'s core."""
+    """Every key of a slot assignment of ``prob``'s core.
+
+    Parameters
+    ----------
+    prob : Problem
+        The problem whose core the assignment fills.
+    assign : array_like of int
+        One value per slot in reading order: a device id, -1 (spare) or -2 (unusable).
+
+    Returns
+    -------
+    Keys
+        The keys the search ranks arrangements by.
+
+    Raises
+    ------
+    ValueError
+        When ``assign`` does not fit the core (its length, type or values).
+    """
     import numpy as np
 
     comp = compile_problem(prob)
-    return evaluate(comp, orbit_assignment(comp, np.asarray(assign, dtype=np.int64)))
+    return evaluate(comp, orbit_assignment(comp, np.asarray(assign)))

@@ -13,10 +13,11 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
+from placer.search._kernel import native
 from placer.search._problem import Keys, Problem
 
 __all__ = ["Compiled", "compile_problem", "pair_terms", "evaluate", "slot_assignment",
-           "orbit_assignment", "row_tracks", "mos_breaks", "field_products"]
+           "orbit_assignment", "total_row_tracks", "mos_breaks", "field_products"]
 
 IntArray = NDArray[np.int64]
 FloatArray = NDArray[np.float64]
@@ -82,7 +83,19 @@ _COMPILED: list[tuple[Problem, Compiled]] = []     # the last few, newest last
 
 
 def compile_problem(prob: Problem) -> Compiled:
-    """Orbits, monomials and base sums of ``prob`` (a problem is frozen: compiled once)."""
+    """Orbits, monomials and base sums of ``prob`` (a problem is frozen: compiled once).
+
+    Parameters
+    ----------
+    prob : Problem
+        The problem to compile.
+
+    Returns
+    -------
+    Compiled
+        Its orbits (slots that take one device together), their exact integer moments
+        and the pinned units' base sums, as the compiled loops take them.
+    """
     for held, comp in _COMPILED:
         if held is prob:
             return comp
@@ -161,16 +174,46 @@ def slot_assignment(comp: Compiled, dev_of: IntArray) -> IntArray:
 
 
 def orbit_assignment(comp: Compiled, assign: IntArray) -> IntArray:
-    """Device of every orbit (spare = n_dev) from a slot assignment."""
+    """Device of every orbit (spare = n_dev) from a slot assignment.
+
+    Parameters
+    ----------
+    comp : Compiled
+        The compiled problem.
+    assign : ndarray of int
+        One value per slot of the core in reading order: a device id, -1 (spare) or
+        -2 (unusable).
+
+    Returns
+    -------
+    ndarray of int64
+        Device of every orbit.
+
+    Raises
+    ------
+    ValueError
+        When ``assign`` is not one integer per slot of the core, each a device id, -1
+        (spare) or -2 (unusable).
+    """
+    prob = comp.prob
+    a = np.asarray(assign)
+    if a.shape != (prob.rows * prob.cols,) or not np.issubdtype(a.dtype, np.integer):
+        raise ValueError(f"a slot assignment is {prob.rows * prob.cols} integers (one per "
+                         f"slot of the {prob.rows} x {prob.cols} core), not an array of "
+                         f"shape {a.shape} and type {a.dtype}")
+    bad = np.nonzero((a < -2) | (a >= prob.n_dev))[0]
+    if len(bad):
+        raise ValueError(f"slot {int(bad[0])} holds {int(a[bad[0]])}: a slot holds a device "
+                         f"id 0 to {prob.n_dev - 1}, -1 (spare) or -2 (unusable)")
     first = comp.orb_slot[:, 0]
-    d = np.asarray(assign)[first]
+    d = a[first]
     return np.where(d >= 0, d, comp.prob.n_dev).astype(np.int64)
 
 
 def pair_terms(comp: Compiled, dev_of: IntArray) -> FloatArray:
     """Per ranked pair: linear (um), quadratic (ppm), order-3 and order-4 moment
     differences (um^k), shape (n_pairs, 4) -- the arithmetic the compiled loops rank."""
-    from placer.search import _native
+    _native = native()
 
     out = np.zeros((len(comp.pairs), 4))
     if len(comp.pairs) == 0:
@@ -185,13 +228,12 @@ def pair_terms(comp: Compiled, dev_of: IntArray) -> FloatArray:
     return out
 
 
-def row_tracks(prob: Problem, assign: IntArray) -> int:
-    """Row tracks: distinct devices in each row, summed."""
-    grid = assign.reshape(prob.rows, prob.cols)
-    total = 0
-    for row in grid:
-        total += len(set(int(d) for d in row if d >= 0))
-    return total
+def total_row_tracks(prob: Problem, assign: IntArray) -> int:
+    """Row tracks of an assignment: distinct devices in each row, summed
+    (:func:`placer.model.routing_estimate.row_tracks`)."""
+    from placer.model.routing_estimate import row_tracks
+
+    return int(row_tracks(np.asarray(assign).reshape(prob.rows, prob.cols)).sum())
 
 
 def mos_breaks(prob: Problem, assign: IntArray) -> int:
@@ -226,14 +268,28 @@ def _edge(comp: Compiled, assign: IntArray) -> float:
 
 
 def evaluate(comp: Compiled, dev_of: IntArray) -> Keys:
-    """Every key of one assignment (per orbit), the worst pair of each."""
+    """Every key of one assignment (per orbit), the worst pair of each.
+
+    Parameters
+    ----------
+    comp : Compiled
+        The compiled problem.
+    dev_of : ndarray of int64
+        Device of every orbit (spare = n_dev), as :func:`orbit_assignment` gives it.
+
+    Returns
+    -------
+    Keys
+        Linear, quadratic and higher-order errors of the worst pair, edge balance,
+        correlated sigma, row tracks and diffusion breaks.
+    """
     prob = comp.prob
     terms = pair_terms(comp, dev_of)
     assign = slot_assignment(comp, dev_of)
     worst = terms.max(axis=0) if len(terms) else np.zeros(4)
     higher = tuple(float(worst[2 + k - 3]) for k in range(3, prob.cancel_order + 1))
     return Keys(float(worst[0]), float(worst[1]), higher, _edge(comp, assign),
-                _sigma(comp, assign), row_tracks(prob, assign), mos_breaks(prob, assign))
+                _sigma(comp, assign), total_row_tracks(prob, assign), mos_breaks(prob, assign))
 
 
 def field_products(comp: Compiled, dev_of: IntArray) -> FloatArray:

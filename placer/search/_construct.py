@@ -28,6 +28,18 @@ def core_coords(rows: int, cols: int) -> tuple[IntArray, IntArray]:
 
     Slot s = r * cols + c has u = 2c - (cols - 1), v = (rows - 1) - 2r.
 
+    Parameters
+    ----------
+    rows, cols : int
+        The core's shape.
+
+    Returns
+    -------
+    u : ndarray of int64
+        Per slot in reading order, twice its x offset in pitches (an exact integer).
+    v : ndarray of int64
+        The same for y.
+
     Examples
     --------
     >>> core_coords(1, 4)[0].tolist()
@@ -39,6 +51,18 @@ def core_coords(rows: int, cols: int) -> tuple[IntArray, IntArray]:
 
 def deal(counts: list[int] | tuple[int, ...], total: int | None = None) -> list[int]:
     """Device sequence that spreads each device evenly (largest remainder, ties by index).
+
+    Parameters
+    ----------
+    counts : sequence of int
+        Units of each device.
+    total : int, optional
+        Length of the sequence (default: every unit).
+
+    Returns
+    -------
+    list of int
+        Device ids; at each position the device furthest behind its share comes next.
 
     Examples
     --------
@@ -183,8 +207,8 @@ def greedy_start(comp: Compiled, rng: np.random.Generator) -> IntArray:
 
     First the units are dealt over the orbits from the centre outward in proportion to
     what each device has left; if that strands a device (its allowed orbits taken), the
-    devices with the fewest allowed orbits are placed first instead. Raises ValueError
-    when no state exists.
+    devices with the fewest allowed orbits are placed first instead. Raises
+    InfeasibleError when no state exists.
     """
     r2 = (comp.orb_m[:, 3] + comp.orb_m[:, 5]) / np.maximum(comp.orb_size, 1)
     order = np.lexsort((rng.random(comp.n_orb), r2))
@@ -192,9 +216,9 @@ def greedy_start(comp: Compiled, rng: np.random.Generator) -> IntArray:
     if dev is None:
         dev = _tight_first(comp, order)
     if dev is None:
-        from placer.errors import SpecError
+        from placer.errors import InfeasibleError
 
-        raise SpecError("no arrangement fits the pins, row bands, symmetry and counts "
+        raise InfeasibleError("no arrangement fits the pins, row bands, symmetry and counts "
                         "together; loosen one of them")
     return dev
 

@@ -241,7 +241,18 @@ def _restart(comp: Compiled, rng: np.random.Generator, deadline: float, floor: f
 
 
 def n_restarts(time_limit_s: float) -> int:
-    """Restarts per worker for a time limit (on the cores that get restarts)."""
+    """Restarts per worker for a time limit (on the cores that get restarts).
+
+    Parameters
+    ----------
+    time_limit_s : float
+        The search's time limit in seconds.
+
+    Returns
+    -------
+    int
+        Restarts from random states each worker makes, from 1 to ``MAX_RESTARTS``.
+    """
     return int(np.clip(round(RESTARTS_PER_S * time_limit_s), 1, MAX_RESTARTS))
 
 
@@ -313,6 +324,8 @@ def search(prob: Problem, *, seed: int = 0, time_limit_s: float = 60.0,
     Returns
     -------
     SearchResult
+        The best assignment found, its keys, the stages that ran and whether the
+        optimum is proven.
     """
     t0 = time.monotonic()
     deadline = t0 + time_limit_s

@@ -18,6 +18,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from placer.search._compiled import Compiled
+from placer.search._kernel import native
 from placer.search._problem import LINEAR_REL, Problem
 
 __all__ = ["ExactResult", "branch_and_bound", "n_assignments", "linear_bound",
@@ -118,7 +119,7 @@ def branch_and_bound(comp: Compiled, incumbent: IntArray, inc: tuple[float, ...]
     higher orders asked for) among assignments whose linear term is at most ``lin_cap``;
     0 all at once.
     """
-    from placer.search import _native
+    _native = native()
 
     prob = comp.prob
     r2 = (comp.orb_m[:, 3] * comp.hx ** 2 + comp.orb_m[:, 5] * comp.hy ** 2) / np.maximum(

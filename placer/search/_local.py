@@ -21,6 +21,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from placer.search._compiled import Compiled
+from placer.search._kernel import native
 
 __all__ = ["STAGE", "StageResult", "run_stage", "caps_none", "SMOOTHING", "RESTART_SMOOTHING",
            "COOLING", "TWO_FOR_TWO_SHARE", "RESTART_THREE_SHARE"]
@@ -69,7 +70,7 @@ def run_stage(comp: Compiled, dev_of: IntArray, stage: str, n_moves: int, seed: 
     """Run one annealing stage in place on ``dev_of`` (the best state is left there);
     ``three_share`` is the share per thousand of centroid-keeping exchanges tried as
     three-for-three."""
-    from placer.search import _native
+    _native = native()
     from placer.search._compiled import field_products
 
     prob = comp.prob

@@ -89,15 +89,60 @@ static double now_monotonic(void) {
 
 typedef struct { Py_buffer b; int held; } buf_t;
 
-static int get_buf(PyObject *obj, buf_t *out, int writable, Py_ssize_t itemsize,
+/* A C-contiguous buffer of at least min_items items of the given kind: 'q' int64, 'd'
+ * float64, 'b' one byte (bool, int8 or uint8). Anything else is a ValueError, never a
+ * reinterpretation of the bytes. */
+static int get_buf(PyObject *obj, buf_t *out, int writable, char kind,
                    Py_ssize_t min_items, const char *name) {
     int flags = PyBUF_C_CONTIGUOUS | PyBUF_FORMAT | (writable ? PyBUF_WRITABLE : 0);
+    Py_ssize_t itemsize = kind == 'b' ? 1 : 8;
     out->held = 0;
+    if (min_items < 0) {
+        PyErr_Format(PyExc_ValueError, "%s: negative size %zd", name, min_items);
+        return -1;
+    }
     if (PyObject_GetBuffer(obj, &out->b, flags) < 0) return -1;
     out->held = 1;
-    if (out->b.itemsize != itemsize || out->b.len / itemsize < min_items) {
-        PyErr_Format(PyExc_ValueError, "%s: expected at least %zd items of %zd bytes", name,
-                     min_items, itemsize);
+    const char *f = out->b.format ? out->b.format : "B";
+    while (*f == '<' || *f == '=' || *f == '@' || *f == '!' || *f == '>') f++;
+    int ok = out->b.itemsize == itemsize && f[0] != '\0' && f[1] == '\0' &&
+             (kind == 'd' ? f[0] == 'd' : kind == 'q' ? (f[0] == 'q' || f[0] == 'l')
+                                                      : (f[0] == '?' || f[0] == 'b' || f[0] == 'B'));
+    if (!ok) {
+        PyErr_Format(PyExc_ValueError, "%s: expected %s items, got format '%s'", name,
+                     kind == 'd' ? "float64" : kind == 'q' ? "int64" : "one-byte",
+                     out->b.format ? out->b.format : "B");
+        return -1;
+    }
+    if (out->b.len / itemsize < min_items) {
+        PyErr_Format(PyExc_ValueError, "%s: expected at least %zd items, got %zd", name,
+                     min_items, out->b.len / itemsize);
+        return -1;
+    }
+    return 0;
+}
+
+/* Every one of the first n values of an int64 buffer in [lo, hi): the loops index with
+ * them, so a value outside would read or write outside an array. */
+static int check_range(const buf_t *bf, Py_ssize_t n, int64_t lo, int64_t hi,
+                       const char *name) {
+    const int64_t *a = bf->b.buf;
+    for (Py_ssize_t i = 0; i < n; i++)
+        if (a[i] < lo || a[i] >= hi) {
+            PyErr_Format(PyExc_ValueError, "%s[%zd] = %lld is outside [%lld, %lld)", name, i,
+                         (long long)a[i], (long long)lo, (long long)hi);
+            return -1;
+        }
+    return 0;
+}
+
+/* Sizes read from the integer parameters: non-negative and small enough that every
+ * product of sizes the entry points form stays far inside int64 and size_t. */
+#define MAX_COUNT ((int64_t)1 << 31)
+static int check_size(int64_t v, int64_t lo, const char *name) {
+    if (v < lo || v > MAX_COUNT) {
+        PyErr_Format(PyExc_ValueError, "%s = %lld is outside [%lld, %lld]", name,
+                     (long long)v, (long long)lo, (long long)MAX_COUNT);
         return -1;
     }
     return 0;
@@ -377,7 +422,7 @@ static PyObject *py_anneal(PyObject *self, PyObject *args) {
         return NULL;
     buf_t bf[21];
     memset(bf, 0, sizeof(bf));
-    if (get_buf(o[15], &bf[15], 0, 8, 15, "iparams") < 0 || get_buf(o[14], &bf[14], 0, 8, 16, "fparams") < 0)
+    if (get_buf(o[15], &bf[15], 0, 'q', 15, "iparams") < 0 || get_buf(o[14], &bf[14], 0, 'd', 16, "fparams") < 0)
         { drop(bf, 21); return NULL; }
     const int64_t *ip = bf[15].b.buf;
     const double *fp = bf[14].b.buf;
@@ -386,32 +431,42 @@ static PyObject *py_anneal(PyObject *self, PyObject *args) {
     int64_t use_field = ip[11], kernel = ip[12], N = ip[13], three_share = ip[14];
     uint64_t seed = (uint64_t)ip[6];
     int64_t D1 = n_dev + 1;
-    if (get_buf(o[0], &bf[0], 0, 8, NM * n_orb, "orb_m") < 0 ||
-        get_buf(o[1], &bf[1], 0, 8, NH * n_orb, "orb_h") < 0 ||
-        get_buf(o[2], &bf[2], 0, 8, n_orb, "orb_size") < 0 ||
-        get_buf(o[3], &bf[3], 0, 8, 2 * n_orb, "orb_slot") < 0 ||
-        get_buf(o[4], &bf[4], 0, 8, 2 * n_orb, "orb_key") < 0 ||
-        get_buf(o[5], &bf[5], 0, 8, grid_w * grid_h, "key_grid") < 0 ||
-        get_buf(o[6], &bf[6], 0, 1, n_orb, "movable") < 0 ||
-        get_buf(o[8], &bf[8], 0, 8, 2 * n_slots, "slot_xy") < 0 ||
-        get_buf(o[9], &bf[9], 0, 8, D1, "counts") < 0 ||
-        get_buf(o[10], &bf[10], 0, 8, 2 * n_pairs, "pairs") < 0 ||
-        get_buf(o[11], &bf[11], 0, 8, NM * D1, "base") < 0 ||
-        get_buf(o[12], &bf[12], 0, 8, NH * D1, "base_h") < 0 ||
-        get_buf(o[13], &bf[13], 1, 8, n_orb, "dev_of") < 0 ||
-        get_buf(o[16], &bf[16], 0, 8, NK, "caps") < 0 ||
-        get_buf(o[17], &bf[17], 1, 8, 3 + NK, "out") < 0 ||
-        get_buf(o[19], &bf[19], 0, 8, n_slots, "pinned") < 0 ||
-        get_buf(o[20], &bf[20], 0, 8, n_orb, "allow") < 0) { drop(bf, 21); return NULL; }
+    if (check_size(n_orb, 0, "n_orb") < 0 || check_size(n_dev, 1, "n_dev") < 0 ||
+        check_size(n_pairs, 0, "n_pairs") < 0 || check_size(n_slots, 0, "n_slots") < 0 ||
+        check_size(grid_w, 0, "grid_w") < 0 || check_size(grid_h, 0, "grid_h") < 0 ||
+        check_size(N, 1, "N") < 0) { drop(bf, 21); return NULL; }
+    if (get_buf(o[0], &bf[0], 0, 'q', NM * n_orb, "orb_m") < 0 ||
+        get_buf(o[1], &bf[1], 0, 'd', NH * n_orb, "orb_h") < 0 ||
+        get_buf(o[2], &bf[2], 0, 'q', n_orb, "orb_size") < 0 ||
+        get_buf(o[3], &bf[3], 0, 'q', 2 * n_orb, "orb_slot") < 0 ||
+        get_buf(o[4], &bf[4], 0, 'q', 2 * n_orb, "orb_key") < 0 ||
+        get_buf(o[5], &bf[5], 0, 'q', grid_w * grid_h, "key_grid") < 0 ||
+        get_buf(o[6], &bf[6], 0, 'b', n_orb, "movable") < 0 ||
+        get_buf(o[8], &bf[8], 0, 'd', 2 * n_slots, "slot_xy") < 0 ||
+        get_buf(o[9], &bf[9], 0, 'q', D1, "counts") < 0 ||
+        get_buf(o[10], &bf[10], 0, 'q', 2 * n_pairs, "pairs") < 0 ||
+        get_buf(o[11], &bf[11], 0, 'q', NM * D1, "base") < 0 ||
+        get_buf(o[12], &bf[12], 0, 'd', NH * D1, "base_h") < 0 ||
+        get_buf(o[13], &bf[13], 1, 'q', n_orb, "dev_of") < 0 ||
+        get_buf(o[16], &bf[16], 0, 'd', NK, "caps") < 0 ||
+        get_buf(o[17], &bf[17], 1, 'd', 3 + NK, "out") < 0 ||
+        get_buf(o[19], &bf[19], 0, 'q', n_slots, "pinned") < 0 ||
+        get_buf(o[20], &bf[20], 0, 'q', n_orb, "allow") < 0) { drop(bf, 21); return NULL; }
+    if (check_range(&bf[2], n_orb, 1, 3, "orb_size") < 0 ||
+        check_range(&bf[3], 2 * n_orb, -1, n_slots, "orb_slot") < 0 ||
+        check_range(&bf[5], grid_w * grid_h, -1, n_orb, "key_grid") < 0 ||
+        check_range(&bf[10], 2 * n_pairs, 0, n_dev, "pairs") < 0 ||
+        check_range(&bf[13], n_orb, 0, D1, "dev_of") < 0 ||
+        check_range(&bf[19], n_slots, -1, D1, "pinned") < 0) { drop(bf, 21); return NULL; }
     const int64_t *allow = bf[20].b.buf;
     const uint8_t *orb_edge = NULL;
     if (o[7] != Py_None) {
-        if (get_buf(o[7], &bf[7], 0, 1, n_orb, "orb_edge") < 0) { drop(bf, 21); return NULL; }
+        if (get_buf(o[7], &bf[7], 0, 'b', n_orb, "orb_edge") < 0) { drop(bf, 21); return NULL; }
         orb_edge = bf[7].b.buf;
     }
     const double *G0 = NULL;
     if (use_field) {
-        if (get_buf(o[18], &bf[18], 0, 8, n_slots * D1, "field") < 0) { drop(bf, 21); return NULL; }
+        if (get_buf(o[18], &bf[18], 0, 'd', n_slots * D1, "field") < 0) { drop(bf, 21); return NULL; }
         G0 = bf[18].b.buf;
     }
     prob_t P = {n_orb, n_dev, n_pairs, n_slots, order, N, bf[0].b.buf, bf[1].b.buf,
@@ -427,7 +482,7 @@ static PyObject *py_anneal(PyObject *self, PyObject *args) {
     state_t st;
     memset(&st, 0, sizeof(st));
     st.P = &P;
-    st.dev_of = malloc(sizeof(int64_t) * n_orb);
+    st.dev_of = malloc(sizeof(int64_t) * (n_orb ? n_orb : 1));
     st.S = calloc(NM * D1, sizeof(int64_t));
     st.H = calloc(NH * D1, sizeof(double));
     st.pk = calloc(NK * (n_pairs ? n_pairs : 1), sizeof(double));
@@ -441,6 +496,9 @@ static PyObject *py_anneal(PyObject *self, PyObject *args) {
     int64_t *where = malloc(sizeof(int64_t) * (n_orb ? n_orb : 1));
     int64_t *lst_len = calloc(D1, sizeof(int64_t));
     double *cov2 = NULL;
+    int64_t *lst = NULL, *cnt2 = NULL;
+    if (!st.dev_of || !st.S || !st.H || !st.pk || !st.edge_cnt || !pk2 || !best || !mov ||
+        !where || !lst_len) goto no_memory;
     memcpy(st.dev_of, dev_of, sizeof(int64_t) * n_orb);
     memcpy(st.S, P.base, sizeof(int64_t) * NM * D1);
     memcpy(st.H, P.base_h, sizeof(double) * NH * D1);
@@ -451,7 +509,8 @@ static PyObject *py_anneal(PyObject *self, PyObject *args) {
         if (movable[i]) { mov[n_mov++] = i; n_single += P.orb_size[i] == 1; }
     }
     int64_t cap1 = n_single ? n_single : 1;
-    int64_t *lst = malloc(sizeof(int64_t) * D1 * cap1);
+    lst = malloc(sizeof(int64_t) * D1 * cap1);
+    if (!lst) goto no_memory;
     for (int64_t i = 0; i < n_mov; i++) {
         int64_t oo = mov[i];
         if (P.orb_size[oo] != 1) { where[oo] = -1; continue; }
@@ -468,6 +527,7 @@ static PyObject *py_anneal(PyObject *self, PyObject *args) {
         st.cov = malloc(sizeof(double) * D1 * D1);
         cov2 = malloc(sizeof(double) * D1 * D1);
         st.ncount = malloc(sizeof(double) * D1);
+        if (!st.G || !st.cov || !cov2 || !st.ncount) goto no_memory;
         for (int64_t d = 0; d < D1; d++) st.ncount[d] = P.counts[d] > 0 ? (double)P.counts[d] : 1.0;
         field_build(&st, G0);
     }
@@ -488,7 +548,8 @@ static PyObject *py_anneal(PyObject *self, PyObject *args) {
     double t0 = -1.0;
     int64_t n_gather = 0;
     double gather[64];
-    int64_t *cnt2 = malloc(sizeof(int64_t) * D1);
+    cnt2 = malloc(sizeof(int64_t) * D1);
+    if (!cnt2) goto no_memory;
 
     for (int64_t it = 0; it < n_moves && n_mov >= 2; it++) {
         if ((it & 4095) == 0) {
@@ -640,6 +701,12 @@ static PyObject *py_anneal(PyObject *self, PyObject *args) {
     if (use_field) { free(st.G); free(st.cov); free(cov2); free(st.ncount); }
     drop(bf, 21);
     return PyLong_FromLong(status);
+no_memory:
+    free(st.dev_of); free(st.S); free(st.H); free(st.pk); free(st.edge_cnt); free(pk2);
+    free(best); free(mov); free(lst); free(lst_len); free(where); free(cnt2);
+    free(st.G); free(st.cov); free(cov2); free(st.ncount);
+    drop(bf, 21);
+    return PyErr_NoMemory();
 }
 
 /* ------------------------------------------------------------------ branch and bound */
@@ -866,6 +933,7 @@ static void leaf(bnb_t *B) {
     double *H = NULL;
     if (B->n_keys > 1) {
         H = malloc(sizeof(double) * NH * D1);
+        if (!H) { B->status = 4; return; }           /* out of memory: stop the search */
         for (int64_t i = 0; i < NH * D1; i++) H[i] = (double)B->Sh[i];
     }
     for (int64_t p = 0; p < P->n_pairs; p++) {
@@ -962,27 +1030,36 @@ static PyObject *py_bnb(PyObject *self, PyObject *args) {
         return NULL;
     buf_t bf[14];
     memset(bf, 0, sizeof(bf));
-    if (get_buf(o[11], &bf[11], 0, 8, 11, "iparams") < 0 ||
-        get_buf(o[10], &bf[10], 0, 8, 10, "fparams") < 0) { drop(bf, 14); return NULL; }
+    if (get_buf(o[11], &bf[11], 0, 'q', 11, "iparams") < 0 ||
+        get_buf(o[10], &bf[10], 0, 'd', 10, "fparams") < 0) { drop(bf, 14); return NULL; }
     const int64_t *ip = bf[11].b.buf;
     const double *fp = bf[10].b.buf;
     int64_t n_orb = ip[0], n_dev = ip[1], n_pairs = ip[2], n_lev = ip[3], N = ip[4];
     int64_t order = ip[7] < 2 ? 2 : (ip[7] > 4 ? 4 : ip[7]);
     int64_t D1 = n_dev + 1;
-    if (get_buf(o[0], &bf[0], 0, 8, NM * n_orb, "orb_m") < 0 ||
-        get_buf(o[1], &bf[1], 0, 8, 9 * n_orb, "orb_hi") < 0 ||
-        get_buf(o[2], &bf[2], 0, 8, n_orb, "orb_size") < 0 ||
-        get_buf(o[3], &bf[3], 0, 8, n_lev, "lev_orb") < 0 ||
-        get_buf(o[4], &bf[4], 0, 8, D1, "counts_left") < 0 ||
-        get_buf(o[5], &bf[5], 0, 8, 2 * n_pairs, "pairs") < 0 ||
-        get_buf(o[6], &bf[6], 0, 8, D1, "classes") < 0 ||
-        get_buf(o[7], &bf[7], 0, 8, NM * D1, "base") < 0 ||
-        get_buf(o[8], &bf[8], 0, 8, 9 * D1, "base_hi") < 0 ||
-        get_buf(o[9], &bf[9], 1, 8, n_lev, "best_dev") < 0 ||
-        get_buf(o[12], &bf[12], 1, 8, 5, "out") < 0 ||
-        get_buf(o[13], &bf[13], 0, 8, n_orb, "allow") < 0) { drop(bf, 14); return NULL; }
+    if (check_size(n_orb, 0, "n_orb") < 0 || check_size(n_dev, 1, "n_dev") < 0 ||
+        check_size(n_pairs, 0, "n_pairs") < 0 || check_size(n_lev, 0, "n_lev") < 0 ||
+        check_size(N, 1, "N") < 0) { drop(bf, 14); return NULL; }
+    if (get_buf(o[0], &bf[0], 0, 'q', NM * n_orb, "orb_m") < 0 ||
+        get_buf(o[1], &bf[1], 0, 'q', 9 * n_orb, "orb_hi") < 0 ||
+        get_buf(o[2], &bf[2], 0, 'q', n_orb, "orb_size") < 0 ||
+        get_buf(o[3], &bf[3], 0, 'q', n_lev, "lev_orb") < 0 ||
+        get_buf(o[4], &bf[4], 0, 'q', D1, "counts_left") < 0 ||
+        get_buf(o[5], &bf[5], 0, 'q', 2 * n_pairs, "pairs") < 0 ||
+        get_buf(o[6], &bf[6], 0, 'q', D1, "classes") < 0 ||
+        get_buf(o[7], &bf[7], 0, 'q', NM * D1, "base") < 0 ||
+        get_buf(o[8], &bf[8], 0, 'q', 9 * D1, "base_hi") < 0 ||
+        get_buf(o[9], &bf[9], 1, 'q', n_lev, "best_dev") < 0 ||
+        get_buf(o[12], &bf[12], 1, 'd', 5, "out") < 0 ||
+        get_buf(o[13], &bf[13], 0, 'q', n_orb, "allow") < 0) { drop(bf, 14); return NULL; }
+    if (check_range(&bf[2], n_orb, 1, 3, "orb_size") < 0 ||
+        check_range(&bf[3], n_lev, 0, n_orb, "lev_orb") < 0 ||
+        check_range(&bf[4], D1, 0, MAX_COUNT, "counts_left") < 0 ||
+        check_range(&bf[5], 2 * n_pairs, 0, n_dev, "pairs") < 0 ||
+        check_range(&bf[6], D1, -1, D1, "classes") < 0) { drop(bf, 14); return NULL; }
     const int64_t *left0 = bf[4].b.buf, *base = bf[7].b.buf, *base_hi = bf[8].b.buf;
     int64_t *counts = malloc(sizeof(int64_t) * D1);
+    if (!counts) { drop(bf, 14); return PyErr_NoMemory(); }
     for (int64_t d = 0; d < D1; d++) counts[d] = base[NM * d] + left0[d];
     prob_t P = {n_orb, n_dev, n_pairs, 0, order, N, bf[0].b.buf, NULL, bf[2].b.buf, NULL,
                 bf[5].b.buf, counts, fp[0], fp[1], fp[2], 0.0, base, NULL};
@@ -995,13 +1072,15 @@ static PyObject *py_bnb(PyObject *self, PyObject *args) {
     B.allow = bf[13].b.buf;
     B.cls = bf[6].b.buf;
     B.S = malloc(sizeof(int64_t) * NM * D1);
-    memcpy(B.S, base, sizeof(int64_t) * NM * D1);
     B.Sh = malloc(sizeof(int64_t) * 9 * D1);
+    B.left = malloc(sizeof(int64_t) * D1);
+    B.first_seen = malloc(sizeof(int64_t) * D1);
+    int64_t *vals = NULL;
+    if (!B.S || !B.Sh || !B.left || !B.first_seen) goto no_memory;
+    memcpy(B.S, base, sizeof(int64_t) * NM * D1);
     memcpy(B.Sh, base_hi, sizeof(int64_t) * 9 * D1);
     for (int64_t d = 0; d < n_dev; d++) { B.T[0] += base[NM * d + 1]; B.T[1] += base[NM * d + 2]; }
-    B.left = malloc(sizeof(int64_t) * D1);
     memcpy(B.left, left0, sizeof(int64_t) * D1);
-    B.first_seen = malloc(sizeof(int64_t) * D1);
     for (int64_t d = 0; d < D1; d++) B.first_seen[d] = base[NM * d] > 0 ? 0 : -1;
     B.n_keys = (int)order - 1;
     /* with no spare slot the device units fill every usable slot: a fixed centre */
@@ -1021,7 +1100,8 @@ static PyObject *py_bnb(PyObject *self, PyObject *args) {
     int64_t R = B.maxr + 1;
     B.smin = calloc((n_lev + 1) * R * NB, sizeof(int64_t));
     B.smax = calloc((n_lev + 1) * R * NB, sizeof(int64_t));
-    int64_t *vals = malloc(sizeof(int64_t) * (B.maxr ? B.maxr : 1));
+    vals = malloc(sizeof(int64_t) * (B.maxr ? B.maxr : 1));
+    if (!B.smin || !B.smax || !vals) goto no_memory;
     for (int64_t lev = 0; lev <= n_lev; lev++) {
         for (int c = 0; c < NB; c++) {
             int64_t n = 0;
@@ -1048,6 +1128,7 @@ static PyObject *py_bnb(PyObject *self, PyObject *args) {
     }
     free(vals);
     B.cur = calloc(n_lev ? n_lev : 1, sizeof(int64_t));
+    if (!B.cur) goto no_memory;
     B.best = bf[9].b.buf;
     B.best_lin = fp[3];
     B.best_key[0] = fp[4];
@@ -1066,7 +1147,13 @@ static PyObject *py_bnb(PyObject *self, PyObject *args) {
     free(counts); free(B.S); free(B.Sh); free(B.left); free(B.first_seen); free(B.smin);
     free(B.smax); free(B.cur);
     drop(bf, 14);
+    if (status == 4) return PyErr_NoMemory();
     return PyLong_FromLong(status);
+no_memory:
+    free(counts); free(B.S); free(B.Sh); free(B.left); free(B.first_seen); free(B.smin);
+    free(B.smax); free(B.cur); free(vals);
+    drop(bf, 14);
+    return PyErr_NoMemory();
 }
 
 /* keys(orb_m, orb_h, counts, pairs, dev_of, fparams, iparams, out): the pair terms of one
@@ -1078,23 +1165,29 @@ static PyObject *py_keys(PyObject *self, PyObject *args) {
         return NULL;
     buf_t bf[9];
     memset(bf, 0, sizeof(bf));
-    if (get_buf(o[7], &bf[7], 0, 8, 5, "iparams") < 0 || get_buf(o[6], &bf[6], 0, 8, 4, "fparams") < 0)
+    if (get_buf(o[7], &bf[7], 0, 'q', 5, "iparams") < 0 || get_buf(o[6], &bf[6], 0, 'd', 4, "fparams") < 0)
         { drop(bf, 9); return NULL; }
     const int64_t *ip = bf[7].b.buf;
     const double *fp = bf[6].b.buf;
     int64_t n_orb = ip[0], n_dev = ip[1], n_pairs = ip[2], order = ip[3], N = ip[4];
     int64_t D1 = n_dev + 1;
-    if (get_buf(o[0], &bf[0], 0, 8, NM * n_orb, "orb_m") < 0 ||
-        get_buf(o[1], &bf[1], 0, 8, NH * n_orb, "orb_h") < 0 ||
-        get_buf(o[2], &bf[2], 0, 8, D1, "counts") < 0 ||
-        get_buf(o[3], &bf[3], 0, 8, 2 * n_pairs, "pairs") < 0 ||
-        get_buf(o[4], &bf[4], 0, 8, n_orb, "dev_of") < 0 ||
-        get_buf(o[5], &bf[5], 0, 8, NM * D1, "base") < 0 ||
-        get_buf(o[8], &bf[8], 1, 8, 4 * n_pairs, "out") < 0) { drop(bf, 9); return NULL; }
+    if (check_size(n_orb, 0, "n_orb") < 0 || check_size(n_dev, 1, "n_dev") < 0 ||
+        check_size(n_pairs, 0, "n_pairs") < 0 || check_size(N, 1, "N") < 0)
+        { drop(bf, 9); return NULL; }
+    if (get_buf(o[0], &bf[0], 0, 'q', NM * n_orb, "orb_m") < 0 ||
+        get_buf(o[1], &bf[1], 0, 'd', NH * n_orb, "orb_h") < 0 ||
+        get_buf(o[2], &bf[2], 0, 'q', D1, "counts") < 0 ||
+        get_buf(o[3], &bf[3], 0, 'q', 2 * n_pairs, "pairs") < 0 ||
+        get_buf(o[4], &bf[4], 0, 'q', n_orb, "dev_of") < 0 ||
+        get_buf(o[5], &bf[5], 0, 'q', NM * D1, "base") < 0 ||
+        get_buf(o[8], &bf[8], 1, 'd', 4 * n_pairs, "out") < 0) { drop(bf, 9); return NULL; }
+    if (check_range(&bf[3], 2 * n_pairs, 0, n_dev, "pairs") < 0 ||
+        check_range(&bf[4], n_orb, 0, D1, "dev_of") < 0) { drop(bf, 9); return NULL; }
     prob_t P = {n_orb, n_dev, n_pairs, 0, order, N, bf[0].b.buf, bf[1].b.buf, NULL, NULL,
                 bf[3].b.buf, bf[2].b.buf, fp[0], fp[1], fp[2], fp[3], bf[5].b.buf, NULL};
     int64_t *S = malloc(sizeof(int64_t) * NM * D1);
     double *H = calloc(NH * D1, sizeof(double));
+    if (!S || !H) { free(S); free(H); drop(bf, 9); return PyErr_NoMemory(); }
     memcpy(S, P.base, sizeof(int64_t) * NM * D1);
     int64_t T[2] = {0, 0};
     const int64_t *dev = bf[4].b.buf;

@@ -14,6 +14,8 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
+from placer.limits import MAX_BANDED_DEVICES
+
 __all__ = [
     "Problem",
     "Keys",
@@ -36,9 +38,6 @@ DEFAULT_RELATIVE_TIE = 1e-9
 #: Symmetry a result must obey: none, mirror about a vertical axis ("x": left-right),
 #: about a horizontal axis ("y": top-bottom), or through the centre ("point").
 SYMMETRIES = ("none", "x", "y", "point")
-
-#: Devices beyond this count cannot carry row bands (they are bit masks per slot).
-MAX_BANDED_DEVICES = 62
 
 
 @dataclass(frozen=True, eq=False)
@@ -170,11 +169,25 @@ _OBJECTIVES: dict[str, Callable[..., int]] = {
 
 
 def compare(prob: Problem, x: Keys, y: Keys, rel: float | None = None) -> int:
-    """-1 if ``x`` is better than ``y`` under the problem's objective, 0 if tied, else 1.
+    """Order two sets of keys under the problem's objective.
 
     Lexicographic: linear (equal to rounding), then quadratic, the higher orders asked
     for, edge balance and sigma (each equal within the relative tie), then routing
     effort. Weighted: linear + quadratic in ppm (spec magnitudes) first, then the same.
+
+    Parameters
+    ----------
+    prob : Problem
+        Its objective and relative tie decide.
+    x, y : Keys
+        The keys to compare.
+    rel : float, optional
+        Replaces the problem's relative tie (the linear term keeps its own).
+
+    Returns
+    -------
+    int
+        -1 if ``x`` is better than ``y``, 0 if tied, else 1.
 
     Examples
     --------
@@ -183,8 +196,6 @@ def compare(prob: Problem, x: Keys, y: Keys, rel: float | None = None) -> int:
     >>> b = Keys(0.0, 1.0 + 1e-12, (), 0.0, 4.0, 2)
     >>> compare(p, a, b)      # quadratic tied within 1e-9 of the value: sigma decides
     1
-
-    ``rel`` replaces the problem's relative tie (the linear term keeps its own).
     """
     return _OBJECTIVES[prob.objective](prob, x, y, rel)
 
@@ -205,7 +216,18 @@ def progressed(prob: Problem, new: Keys, old: Keys, rel: float) -> bool:
 
 
 def rank_key(prob: Problem) -> Callable[[Keys], Any]:
-    """A sort key ordering Keys best first."""
+    """A sort key ordering Keys best first.
+
+    Parameters
+    ----------
+    prob : Problem
+        Whose objective orders them (:func:`compare`).
+
+    Returns
+    -------
+    callable
+        For ``sorted(..., key=...)`` over :class:`Keys`.
+    """
     return functools.cmp_to_key(lambda x, y: compare(prob, x, y))
 
 

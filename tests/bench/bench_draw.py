@@ -15,7 +15,7 @@ import numpy as np
 from readme_block import replace_block  # this script's folder
 
 from placer.io.pattern import Pattern
-from placer.io.spec import parse_spec
+from placer.jobs.load import parse_spec
 from placer.layout.block import layout_of
 from placer.layout.gdswrite import write_gds
 from placer.model.grade import grade_pattern

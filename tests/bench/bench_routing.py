@@ -24,7 +24,7 @@ import numpy as np
 from readme_block import replace_block  # this script's folder
 
 from placer.io.pattern import Pattern
-from placer.io.spec import parse_spec
+from placer.jobs.load import parse_spec
 from placer.layout.block import area_of, load_tools, prepare
 from placer.layout.cells import load_rules, unit_cell
 from placer.layout.parasitics import extract

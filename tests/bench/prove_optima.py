@@ -20,8 +20,8 @@ from pathlib import Path
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parents[1]))
 
-from placer.io.spec import parse_spec  # noqa: E402
 from placer.jobs.arrange import candidate_shapes, problem_for  # noqa: E402
+from placer.jobs.load import parse_spec  # noqa: E402
 from placer.search import compile_problem, search  # noqa: E402
 from placer.search._exact import n_assignments  # noqa: E402
 from tests.bench.cases import CASES  # noqa: E402

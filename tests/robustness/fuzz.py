@@ -98,7 +98,7 @@ def mutate(data: bytes, rng: np.random.Generator, gds: bool = False) -> bytes:
 
 
 def _spec_case(data: bytes, tmp: Path) -> Callable[[], object]:
-    from placer.io.spec import load_spec
+    from placer.jobs.load import load_spec
 
     path = tmp / "fuzz.toml"
     path.write_bytes(data)
@@ -115,7 +115,7 @@ def _pattern_case(data: bytes, tmp: Path) -> Callable[[], object]:
 
 def _layout_case(data: bytes, tmp: Path, suffix: str) -> Callable[[], object]:
     from placer.io.handlayout import read_layout
-    from placer.io.spec import default_spec
+    from placer.jobs.load import default_spec
     from placer.model.grade import grade_pattern
 
     path = tmp / f"fuzz{suffix}"

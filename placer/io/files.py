@@ -1,0 +1,86 @@
+"""Reading input files with bounds: bytes up to a limit (checked before reading), UTF-8
+text, and TOML whose nesting is measured before the parser sees it."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from placer.errors import LimitError, PlacerError
+from placer.limits import MAX_FILE_BYTES
+
+__all__ = ["read_limited", "read_text", "toml_depth"]
+
+
+def read_limited(path: Path, limit: int, what: str, error: type[PlacerError]) -> bytes:
+    """The bytes of a file of at most ``limit`` bytes (checked before reading), or
+    ``error`` (``LimitError`` past the limit) with one line naming the file."""
+    try:
+        size = path.stat().st_size
+        if size > limit:
+            raise LimitError(f"{path}: file is {size} bytes, the limit for a {what} is {limit}")
+        return path.read_bytes()
+    except OSError as err:
+        raise error(f"{path}: cannot read: {err.strerror or err}") from err
+
+
+def read_text(path: Path, what: str, error: type[PlacerError]) -> str:
+    """A UTF-8 text file of at most MAX_FILE_BYTES, or ``error`` with one line."""
+    raw = read_limited(path, MAX_FILE_BYTES, what, error)
+    try:
+        return raw.decode("utf-8").removeprefix("\ufeff")   # one byte-order mark: allowed
+    except UnicodeDecodeError as err:
+        raise error(f"{path}: not a UTF-8 text file (byte {err.start})") from err
+
+
+def toml_depth(text: str) -> int:
+    """How deeply TOML ``text`` nests (brackets plus dotted-key parts), found by one pass
+    over the characters outside strings and comments -- before the parser, whose cost
+    grows faster than the text on hostile nesting.
+
+    Examples
+    --------
+    >>> toml_depth('a = 1.5\\n[b.c]\\nd = [[1, 2], {e.f = "x.y"}]\\n')
+    3
+    """
+    depth = 0
+    deepest = 0
+    dots = 0
+    stack: list[str] = []
+    in_key = True
+    i, n = 0, len(text)
+    while i < n:
+        ch = text[i]
+        if text.startswith('"""', i) or text.startswith("'''", i):
+            end = text.find(text[i:i + 3], i + 3)
+            i = n if end < 0 else end + 3
+            continue
+        if ch in "\"'":
+            j = i + 1
+            while j < n and text[j] != ch and text[j] != "\n":
+                j += 2 if (ch == '"' and text[j] == "\\") else 1
+            i = j + 1
+            continue
+        if ch == "#":
+            end = text.find("\n", i)
+            i = n if end < 0 else end
+            continue
+        if ch == "\n":
+            if not stack:
+                in_key, dots = True, 0
+        elif ch in "[{":
+            stack.append(ch)
+            depth += 1
+            in_key = ch == "{" or (in_key and len(stack) <= 2)
+        elif ch in "]}":
+            if stack:
+                stack.pop()
+            depth = max(depth - 1, 0)
+        elif ch == "=":
+            in_key = False
+        elif ch == "," and stack and stack[-1] == "{":
+            in_key, dots = True, 0
+        elif ch == "." and in_key:
+            dots += 1
+        deepest = max(deepest, depth + dots)
+        i += 1
+    return deepest
