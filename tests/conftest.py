@@ -14,6 +14,22 @@ settings.register_profile("dev", max_examples=200, deadline=None)
 settings.load_profile(os.environ.get("HYPOTHESIS_PROFILE", "ci"))
 
 
+def pytest_addoption(parser: pytest.Parser) -> None:
+    parser.addoption("--slow", action="store_true",
+                     help="also run the tests marked slow (CI runs them: PLACER_SLOW=1)")
+
+
+def pytest_collection_modifyitems(config: pytest.Config, items: list[pytest.Item]) -> None:
+    """Tests marked ``slow`` (long searches, every sample routed, the adversarial share)
+    run in CI and with ``--slow`` or ``PLACER_SLOW=1``; a local run skips them."""
+    if config.getoption("--slow") or os.environ.get("PLACER_SLOW") == "1":
+        return
+    skip = pytest.mark.skip(reason="slow: run with --slow or PLACER_SLOW=1 (CI runs it)")
+    for item in items:
+        if "slow" in item.keywords:
+            item.add_marker(skip)
+
+
 @pytest.fixture
 def runner() -> CliRunner:
     return CliRunner()

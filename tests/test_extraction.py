@@ -22,8 +22,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from tests.extraction import Report, check, components, main, read_layout
-
-ROOT = Path(__file__).resolve().parents[1]
+from tests.helpers import ROOT
 
 LAYER_MAP = """\
 [layers]

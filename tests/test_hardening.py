@@ -14,38 +14,15 @@ import signal
 import subprocess
 import sys
 import time
-from pathlib import Path
 
 import pytest
 
 from placer.errors import LimitError, PlacerError
-from placer.io.spec import parse_spec
 from placer.io.staging import OutputError, OutputSet
+from placer.jobs.load import parse_spec
+from tests.helpers import ROOT, refused, run_placer, spec_file
 
-ROOT = Path(__file__).resolve().parents[1]
 MIRROR = (ROOT / "samples" / "bias_mirror.toml").read_text()
-
-
-def _run(args: list[str], cwd: Path, env: dict[str, str] | None = None,
-         timeout: float = 120) -> subprocess.CompletedProcess[str]:
-    return subprocess.run([sys.executable, "-m", "placer", *args], cwd=cwd, text=True,
-                          capture_output=True, timeout=timeout,
-                          env={**os.environ, **(env or {})})
-
-
-def _refused(res: subprocess.CompletedProcess[str], *words: str, code: int = 1) -> None:
-    assert res.returncode == code, (res.returncode, res.stderr)
-    assert "Traceback" not in res.stderr
-    lines = [ln for ln in res.stderr.splitlines() if ln.strip()]
-    assert lines and lines[-1].startswith("Error:"), res.stderr
-    for w in words:
-        assert w in res.stderr, (w, res.stderr)
-
-
-def _spec(tmp: Path, text: str, name: str = "s.toml") -> Path:
-    path = tmp / name
-    path.write_text(text)
-    return path
 
 
 # ------------------------------------------------------------- numbers out of range
@@ -83,18 +60,18 @@ def test_electrical_numbers_out_of_range_are_refused(key, value, words):
 
 @pytest.mark.parametrize("value", ["nan", "inf", "-1", "0", "1e9"])
 def test_time_limit_must_be_finite_and_at_most_a_day(tmp_path, value):
-    spec = _spec(tmp_path, MIRROR)
-    res = _run(["arrange", str(spec), "--out", "o", "--time-limit", value], tmp_path)
-    _refused(res, "--time-limit", code=2)
+    spec = spec_file(tmp_path, MIRROR)
+    res = run_placer(["arrange", str(spec), "--out", "o", "--time-limit", value], tmp_path)
+    refused(res, "--time-limit", code=2)
     assert not (tmp_path / "o").exists()
 
 
 def test_template_sizes_must_be_finite(tmp_path):
     tmpl = (ROOT / "templates" / "mos_finger.toml").read_text()
-    bad = _spec(tmp_path, tmpl.replace("contact = ", "contact = inf #", 1), "t.toml")
-    res = _run(["arrange", str(_spec(tmp_path, MIRROR)), "--out", "o", "--template", str(bad),
-                "--time-limit", "1"], tmp_path)
-    _refused(res, "contact must be a number from 0.001")
+    bad = spec_file(tmp_path, tmpl.replace("contact = ", "contact = inf #", 1), "t.toml")
+    res = run_placer(["arrange", str(spec_file(tmp_path, MIRROR)), "--out", "o", "--template",
+                      str(bad), "--time-limit", "1"], tmp_path)
+    refused(res, "contact must be a number from 0.001")
     assert not (tmp_path / "o").exists()
 
 
@@ -144,9 +121,9 @@ def test_work_that_multiplies_is_refused_before_it_starts(text, words):
 def test_a_one_row_spec_at_the_column_limit_keeps_its_time_limit(tmp_path):
     """1024 columns in one row with --time-limit 1: the search stops on time and the
     fixed stages (orientations, routing, pictures) are linear in the size."""
-    spec = _spec(tmp_path, "[devices]\nA = 512\nB = 512\n[array]\nrows = 1\n"
+    spec = spec_file(tmp_path, "[devices]\nA = 512\nB = 512\n[array]\nrows = 1\n"
                            "dummies = \"none\"\n")
-    res = _run(["arrange", str(spec), "--out", "o", "--time-limit", "1", "--quiet"], tmp_path,
+    res = run_placer(["arrange", str(spec), "--out", "o", "--time-limit", "1", "--quiet"], tmp_path,
                timeout=300)
     assert res.returncode == 0, res.stderr
     assert (tmp_path / "o" / "pattern.gds").stat().st_size > 0
@@ -156,19 +133,19 @@ def test_a_one_row_spec_at_the_column_limit_keeps_its_time_limit(tmp_path):
 def test_a_budget_problem_stops_the_run_before_any_file(tmp_path):
     text = 'kind = "cap"\n[devices]\n' + "".join(f"C{i} = 1\n" for i in range(17))
     text += '[electrical]\ntermination = "none"\n'
-    res = _run(["arrange", str(_spec(tmp_path, text)), "--out", "o"], tmp_path)
-    _refused(res, "at most 16 bits")
+    res = run_placer(["arrange", str(spec_file(tmp_path, text)), "--out", "o"], tmp_path)
+    refused(res, "at most 16 bits")
     assert not (tmp_path / "o").exists()
 
 
 def test_force_replaces_the_whole_previous_set(tmp_path):
-    spec = _spec(tmp_path, MIRROR)
-    first = _run(["arrange", str(spec), "--out", "o", "--time-limit", "2", "--quiet",
+    spec = spec_file(tmp_path, MIRROR)
+    first = run_placer(["arrange", str(spec), "--out", "o", "--time-limit", "2", "--quiet",
                   "--candidates", "3"], tmp_path)
     assert first.returncode == 0, first.stderr
     assert list((tmp_path / "o").glob("candidate-*.txt"))
-    second = _run(["arrange", str(spec.with_name("s.toml")), "--out", "o", "--time-limit", "2",
-                   "--quiet", "--force"], tmp_path)
+    second = run_placer(["arrange", str(spec.with_name("s.toml")), "--out", "o",
+                         "--time-limit", "2", "--quiet", "--force"], tmp_path)
     assert second.returncode == 0, second.stderr
     assert not list((tmp_path / "o").glob("candidate-*"))
     assert sorted(p.name for p in (tmp_path / "o").iterdir()) == sorted(
@@ -177,7 +154,7 @@ def test_force_replaces_the_whole_previous_set(tmp_path):
 
 
 def test_two_runs_on_one_new_folder_cannot_both_succeed(tmp_path):
-    spec = _spec(tmp_path, MIRROR)
+    spec = spec_file(tmp_path, MIRROR)
     args = [sys.executable, "-m", "placer", "arrange", str(spec), "--out", "o",
             "--time-limit", "4", "--quiet"]
     a = subprocess.Popen(args, cwd=tmp_path, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
@@ -189,7 +166,7 @@ def test_two_runs_on_one_new_folder_cannot_both_succeed(tmp_path):
     b = subprocess.run(args, cwd=tmp_path, capture_output=True, text=True, timeout=120)
     out_a, err_a = a.communicate(timeout=300)
     assert a.returncode == 0, err_a
-    _refused(b, "another placer run")
+    refused(b, "another placer run")
 
 
 def test_a_run_that_finished_while_another_started_is_not_overwritten(tmp_path, monkeypatch):
@@ -252,9 +229,9 @@ def test_a_killed_run_leaves_no_lock_and_its_staging_is_cleared(tmp_path):
 # ------------------------------------------------------------- environment and start-up
 @pytest.mark.parametrize("value", ["soon", "99999999999999999999", "-5", "1e9"])
 def test_a_bad_source_date_epoch_is_one_line_before_anything_runs(tmp_path, value):
-    res = _run(["arrange", str(_spec(tmp_path, MIRROR)), "--out", "o"], tmp_path,
+    res = run_placer(["arrange", str(spec_file(tmp_path, MIRROR)), "--out", "o"], tmp_path,
                env={"SOURCE_DATE_EPOCH": value})
-    _refused(res, "SOURCE_DATE_EPOCH")
+    refused(res, "SOURCE_DATE_EPOCH")
     assert not (tmp_path / "o").exists()
 
 
@@ -263,7 +240,7 @@ def test_an_interrupt_during_start_up_ends_quietly(tmp_path):
     command line is parsed). One that lands in the interpreter's own start-up, before the
     handler is in place (some 20 ms: the package's three small start-up modules at most),
     is Python's to report."""
-    spec = _spec(tmp_path, MIRROR)
+    spec = spec_file(tmp_path, MIRROR)
     for delay in (0.02, 0.05, 0.1, 0.15, 0.3):
         p = subprocess.Popen([sys.executable, "-m", "placer", "arrange", str(spec), "--out",
                               f"o{delay}"], cwd=tmp_path, stdout=subprocess.PIPE,
@@ -302,7 +279,7 @@ def test_an_interrupt_wrapped_in_another_error_is_still_an_interrupt(tmp_path, m
             raise RuntimeError("Error calling __set_name__") from err
 
     monkeypatch.setattr(cli_mod, "run_arrange", broken)
-    result = CliRunner().invoke(cli_mod.cli, ["arrange", str(_spec(tmp_path, MIRROR)),
+    result = CliRunner().invoke(cli_mod.cli, ["arrange", str(spec_file(tmp_path, MIRROR)),
                                               "--out", str(tmp_path / "o")])
     assert result.exit_code == 130, result.output
     assert "Interrupted; nothing written." in result.output
@@ -312,14 +289,14 @@ def test_an_interrupt_wrapped_in_another_error_is_still_an_interrupt(tmp_path, m
         raise RuntimeError("a real bug")
 
     monkeypatch.setattr(cli_mod, "run_arrange", other)
-    result = CliRunner().invoke(cli_mod.cli, ["arrange", str(_spec(tmp_path, MIRROR)),
+    result = CliRunner().invoke(cli_mod.cli, ["arrange", str(spec_file(tmp_path, MIRROR)),
                                               "--out", str(tmp_path / "o")])
     assert isinstance(result.exception, RuntimeError)     # a bug is not an interrupt
 
 
 def test_successful_runs_print_no_numpy_warnings(tmp_path):
-    res = _run(["arrange", str(_spec(tmp_path, MIRROR)), "--out", "o", "--time-limit", "2",
-                "--quiet"], tmp_path)
+    res = run_placer(["arrange", str(spec_file(tmp_path, MIRROR)), "--out", "o",
+                      "--time-limit", "2", "--quiet"], tmp_path)
     assert res.returncode == 0
     assert "Warning" not in res.stderr and "warn" not in res.stderr.lower(), res.stderr
 
@@ -341,17 +318,17 @@ def test_messages_quote_the_input_not_python(text, shown, hidden):
 @pytest.mark.parametrize("kind", ["spec", "pattern", "csv"])
 def test_a_byte_order_mark_is_read_the_same_everywhere(tmp_path, kind):
     bom = "\ufeff"
-    spec = _spec(tmp_path, bom + MIRROR if kind == "spec" else MIRROR)
+    spec = spec_file(tmp_path, bom + MIRROR if kind == "spec" else MIRROR)
     if kind == "csv":
         body = "x_um,y_um,device\n0,0,MREF\n2.3,0,MOUTA\n4.6,0,MOUTA\n6.9,0,MREF\n"
         layout = tmp_path / "l.csv"
         layout.write_text(bom + body, encoding="utf-8")
-        res = _run(["grade", str(layout)], tmp_path)
+        res = run_placer(["grade", str(layout)], tmp_path)
     else:
         layout = tmp_path / "l.txt"
         layout.write_text((bom if kind == "pattern" else "")
                           + (ROOT / "samples" / "bias_mirror_hand.txt").read_text())
-        res = _run(["grade", str(layout), "--spec", str(spec)], tmp_path)
+        res = run_placer(["grade", str(layout), "--spec", str(spec)], tmp_path)
     assert res.returncode == 0, res.stderr
 
 
@@ -373,33 +350,34 @@ def test_many_gdsii_references_are_read_in_linear_time_and_over_the_limit_refuse
                 top.add(gdstk.Label(("MA", "MB")[k], (3 * i, 3000 * k + 9 * j), layer=10))
     path = tmp_path / "big.gds"
     lib.write_gds(str(path))
-    res = _run(["grade", str(path)], tmp_path)
-    _refused(res, "more than 65536 device labels")
+    res = run_placer(["grade", str(path)], tmp_path)
+    refused(res, "more than 65536 device labels")
 
 
 def test_patterns_and_csv_over_the_unit_limit_are_refused(tmp_path):
     pattern = tmp_path / "p.txt"
     pattern.write_text(("A B " * 140 + "\n") * 250)       # 70 000 units
-    _refused(_run(["grade", str(pattern)], tmp_path), "more than 65536 device units")
+    refused(run_placer(["grade", str(pattern)], tmp_path), "more than 65536 device units")
     csv = tmp_path / "c.csv"
     csv.write_text("x_um,y_um,device\n" + "".join(f"{i % 300},{i // 300},A\n"
                                                    for i in range(70_000)))
-    _refused(_run(["grade", str(csv)], tmp_path), "more than the limit of 65536")
+    refused(run_placer(["grade", str(csv)], tmp_path), "more than the limit of 65536")
 
 
 def test_a_long_device_name_in_a_pattern_is_refused(tmp_path):
     pattern = tmp_path / "p.txt"
     pattern.write_text("N" * 100_001 + " B\n")
-    _refused(_run(["grade", str(pattern)], tmp_path), "longer than 24 characters")
+    refused(run_placer(["grade", str(pattern)], tmp_path), "longer than 24 characters")
 
 
+@pytest.mark.slow
 def test_repair_of_a_large_layout_stays_bounded(tmp_path):
     """20 000 units: swaps among the outermost units only, the time limit kept."""
     pattern = tmp_path / "p.txt"
     rows = [" ".join(("A", "B")[(r + c) % 2 if c < 199 else 0] for c in range(200))
             for r in range(100)]
     pattern.write_text("\n".join(rows) + "\n")
-    res = _run(["repair", str(pattern), "--out", "r", "--time-limit", "2"], tmp_path,
+    res = run_placer(["repair", str(pattern), "--out", "r", "--time-limit", "2"], tmp_path,
                timeout=600)
     assert res.returncode == 0, res.stderr
     assert "Limited: swaps tried among the 800 units" in res.stdout
@@ -410,8 +388,9 @@ def test_repair_of_a_large_layout_stays_bounded(tmp_path):
     (["--out", ""], "is empty"),
 ])
 def test_bad_output_folders_are_one_line(tmp_path, args, words):
-    res = _run(["arrange", str(_spec(tmp_path, MIRROR)), *args, "--time-limit", "1"], tmp_path)
-    _refused(res, words, code=2 if words == "is empty" else 1)
+    res = run_placer(["arrange", str(spec_file(tmp_path, MIRROR)), *args, "--time-limit", "1"],
+                     tmp_path)
+    refused(res, words, code=2 if words == "is empty" else 1)
 
 
 def test_a_full_standard_output_is_one_line(tmp_path):
@@ -437,6 +416,6 @@ def test_meaningless_values_and_names_are_refused(text, words):
 def test_a_csv_coordinate_error_quotes_the_values(tmp_path):
     csv = tmp_path / "c.csv"
     csv.write_text("x_um,y_um,device\n0,0,A\n1.5,abc,B\n")
-    res = _run(["grade", str(csv)], tmp_path)
-    _refused(res, "c.csv:3: x and y must be numbers, got '1.5', 'abc'")
+    res = run_placer(["grade", str(csv)], tmp_path)
+    refused(res, "c.csv:3: x and y must be numbers, got '1.5', 'abc'")
     assert "{x}" not in res.stderr

@@ -16,14 +16,13 @@ from __future__ import annotations
 import json
 import os
 import shutil
-import subprocess
-import sys
 from pathlib import Path
 
 import numpy as np
 import pytest
 
-ROOT = Path(__file__).resolve().parents[1]
+from tests.helpers import ROOT, run_placer
+
 ARTEFACTS = Path(os.environ.get("PLACER_ARTEFACT_DIR", ROOT / "ci-artifacts"))
 REL = 1e-9
 
@@ -31,11 +30,6 @@ if (os.environ.get("PLACER_REQUIRE_BROWSER") != "1"
         and not (shutil.which("chromium") and shutil.which("chromedriver"))):
     pytest.skip("no Chromium here (apt-get install chromium chromium-driver); CI requires it",
                 allow_module_level=True)
-
-
-def _placer(*args: str, cwd: Path) -> subprocess.CompletedProcess[str]:
-    return subprocess.run([sys.executable, "-m", "placer", *args], cwd=cwd,
-                          capture_output=True, text=True, timeout=300)
 
 
 @pytest.fixture(scope="module")
@@ -49,7 +43,7 @@ def browser():
 
 def _page(tmp: Path, sample: str) -> tuple[Path, Path]:
     spec = ROOT / "samples" / f"{sample}.toml"
-    res = _placer("lesson", str(spec), "--out", str(tmp), "--time-limit", "5", cwd=tmp)
+    res = run_placer(["lesson", str(spec), "--out", str(tmp), "--time-limit", "5"], cwd=tmp)
     assert res.returncode == 0, res.stderr
     return spec, next(tmp.glob("*-lesson.html"))
 
@@ -90,7 +84,8 @@ def _grade(pattern: Path, spec: Path) -> dict:
     """``placer grade --json`` of an exported pattern (run once per file)."""
     key = (str(pattern), pattern.read_text())
     if key not in _GRADED:
-        res = _placer("grade", str(pattern), "--spec", str(spec), "--json", cwd=pattern.parent)
+        res = run_placer(["grade", str(pattern), "--spec", str(spec), "--json"],
+                         cwd=pattern.parent)
         assert res.returncode == 0, res.stderr
         _GRADED[key] = json.loads(res.stdout)
     return _GRADED[key]

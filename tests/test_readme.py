@@ -5,11 +5,10 @@ from __future__ import annotations
 import re
 import subprocess
 import sys
-from pathlib import Path
 
 import pytest
 
-ROOT = Path(__file__).resolve().parents[1]
+from tests.helpers import ROOT
 
 
 def _api_blocks() -> list[str]:

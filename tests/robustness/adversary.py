@@ -1706,7 +1706,7 @@ def _two_tops(hand: Hand) -> bytes:
 
 def run_layout(ctx: Ctx, rng: random.Random, layout: str, hand: Hand, benign: bool, why: str,
                extra: list[str], use_spec: bool | None = None) -> None:
-    """grade and repair one layout; equivalent layouts must grade like the pattern text."""
+    """Grade and repair one layout; equivalent layouts must grade like the pattern text."""
     with_spec = benign or (rng.random() < 0.5 if use_spec is None else use_spec)
     spec_args = ["--spec", "spec.toml"] if with_spec else []
     g = ctx.placer(["grade", layout, *spec_args, "--json", *extra])

@@ -35,6 +35,7 @@ SHARE: dict[str, list[str | None]] = {
 }
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("family", list(SHARE))
 def test_adversary_share(family: str) -> None:
     if family == "disk" and shutil.which("mount") is None:

@@ -6,7 +6,6 @@ import signal
 import subprocess
 import sys
 import time
-from pathlib import Path
 
 import pytest
 from hypothesis import given, settings
@@ -14,10 +13,9 @@ from hypothesis import strategies as st
 
 from placer.cli import cli
 from placer.errors import LimitError
-from placer.io.spec import parse_spec
+from placer.jobs.load import parse_spec
+from tests.helpers import ROOT
 from tests.robustness import fuzz
-
-ROOT = Path(__file__).resolve().parents[2]
 
 
 @settings(max_examples=40, deadline=None)
@@ -29,6 +27,7 @@ def test_damaged_inputs_end_in_a_clear_message(reader, seed):
     assert tally["traceback"] == 0 and tally["hang"] == 0, tally
 
 
+@pytest.mark.slow
 @settings(max_examples=20, deadline=None)
 @given(st.integers(0, 2 ** 32 - 1))
 def test_random_command_lines_never_trace_back_or_lose_files(seed):
@@ -60,6 +59,7 @@ def _run(args, cwd, **kw):
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, **kw)
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM])
 def test_interrupting_arrange_keeps_the_best_so_far_and_loses_nothing(tmp_path, sig):
     """A signal during the search stops it; the best arrangement so far is written whole,
@@ -71,7 +71,14 @@ def test_interrupting_arrange_keeps_the_best_so_far_and_loses_nothing(tmp_path, 
                     'dummies = "ring"\n')
     out = tmp_path / "out"
     proc = _run(["arrange", str(spec), "--out", str(out), "--quiet"], tmp_path)
-    time.sleep(2.5)
+    # ready: the command's staging folder exists once its handlers are in place and the
+    # search is about to start (however busy the machine); then let the search run a while
+    deadline = time.monotonic() + 120
+    while not (out.is_dir() and any(p.name.startswith(".placer-staging-")
+                                    for p in out.iterdir())):
+        assert proc.poll() is None and time.monotonic() < deadline, "arrange never started"
+        time.sleep(0.02)
+    time.sleep(1.0)
     proc.send_signal(sig)
     stdout, stderr = proc.communicate(timeout=120)
     assert b"Traceback" not in stderr, stderr.decode()
@@ -91,6 +98,7 @@ def test_interrupting_arrange_keeps_the_best_so_far_and_loses_nothing(tmp_path, 
         assert proc.returncode == 130
 
 
+@pytest.mark.slow
 def test_same_inputs_and_seed_give_byte_identical_outputs(tmp_path, runner):
     spec = ROOT / "samples" / "sar_cdac.toml"
     digests = []
