@@ -9,7 +9,6 @@ import sys
 import time
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
-from dataclasses import asdict
 from functools import wraps
 from pathlib import Path
 from typing import Any, NoReturn, TypeVar
@@ -20,7 +19,7 @@ import numpy as np
 from placer import __version__
 from placer.errors import PlacerError
 from placer.io.handlayout import Recognised, read_layout
-from placer.io.pattern import Pattern, check_against_spec, format_pattern
+from placer.io.pattern import Pattern, check_against_spec
 from placer.io.spec import NAME_RE, Spec
 from placer.io.staging import OutputSet
 from placer.jobs.arrange import METHODS
@@ -28,14 +27,17 @@ from placer.jobs.arrange import arrange as run_arrange
 from placer.jobs.load import default_spec, load_spec
 from placer.jobs.repair import repair as run_repair
 from placer.jobs.repair import sensitivity
+from placer.kinds import KINDS
 from placer.layout import pitch
 from placer.model.grade import Grade, grade_pattern
-from placer.present.outputs import write_block
+from placer.present import outputs
 from placer.present.report import (
     format_arrangement,
     format_budget,
     format_grade,
     format_nets,
+    format_sensitivity,
+    grade_report,
     json_text,
 )
 from placer.search import Keys
@@ -291,22 +293,11 @@ def grade(layout: Path, spec_path: Path | None, as_json: bool, budget_plot: Path
 
         save_budget(bud, spec.name, [budget_plot], devices=spec.devices)
     if as_json:
-        out = result.to_dict()
-        out["budget"] = asdict(bud) if bud is not None else None
-        out["recognised"] = {"format": rec.fmt, "notes": rec.notes,
-                             "pitch_um": list(spec.array.pitch_um)}
-        out["sensitivity"] = {"pair": worst_pair, "units": [asdict(u) for u in sens]}
-        click.echo(json_text(out))
+        click.echo(json_text(grade_report(result, bud, rec, spec, worst_pair, sens)))
     else:
         click.echo(format_grade(result))
         if sens:
-            # positions in the file's own frame, to find the unit in the layout
-            frame = {"gds": " (x, y in the GDSII's coordinates)",
-                     "csv": " (x, y in the CSV's coordinates)"}.get(rec.fmt, "")
-            top = ", ".join(f"{u.device} at row {u.row} col {u.col} "
-                            f"({u.x_um + rec.origin_um[0]:.4g}, {u.y_um + rec.origin_um[1]:.4g}"
-                            f" um): {u.contribution_ppm:+.3g} ppm" for u in sens[:3])
-            click.echo(f"Units adding most to {worst_pair}{frame}: {top}")
+            click.echo(format_sensitivity(sens, worst_pair, rec))
         if bud is not None:
             click.echo("")
             click.echo(format_budget(bud))
@@ -376,10 +367,6 @@ def _gradient_field(spec: Spec, grade: Grade) -> tuple[float, float] | None:
     return (g * float(np.cos(angle)), g * float(np.sin(angle)))
 
 
-_ARRANGE_FILES = ("pattern.txt", "report.json", "pattern.gds", "pattern.sp", "pattern.png",
-                  "pattern.svg", "budget.png", "candidate-*.txt", "candidate-*.png")
-
-
 @cli.command()
 @click.argument("spec_path", metavar="SPEC", type=_FILE)
 @click.option("--out", "out_dir", type=_OUT,
@@ -418,10 +405,8 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
     _sigterm_as_interrupt()          # from here SIGTERM ends the command as Ctrl-C does
     spec = load_spec(spec_path)
     spec, tools = _tools(spec, template_path, layers_path, unit_gds, unit_cell)
-    names = ["pattern.txt", "report.json", "pattern.gds", "pattern.sp", "pattern.png",
-             "pattern.svg", *(["budget.png"] if spec.electrical is not None else []),
-             *(f"candidate-{i}.{x}" for i in range(1, n_candidates + 1) for x in ("txt", "png"))]
-    with OutputSet(out_dir, names, force, _ARRANGE_FILES) as out:
+    names = outputs.arrange_names(spec, n_candidates)
+    with OutputSet(out_dir, names, force, outputs.ARRANGE_FILES) as out:
         progress = _Progress(not quiet and sys.stderr.isatty())
         try:
             result = run_arrange(spec, method=method, seed=seed, time_limit_s=time_limit,
@@ -435,40 +420,8 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
             block = drawing.prepare(result.pattern, spec, tools)
             bud = _budget(result.pattern, spec, result.grade, required=False,
                           block=block)
-            header = [f"{spec.name}: {result.method}, core {result.core_shape[0]} x "
-                      f"{result.core_shape[1]}, seed {seed}",
-                      f"linear {result.keys.linear_um:.6g} um, quadratic "
-                      f"{result.keys.quadratic_ppm:.6g} ppm, sigma "
-                      f"{result.keys.sigma_ppm:.6g} ppm"]
-            out.write("pattern.txt", format_pattern(result.pattern, header))
-            for i, cand in enumerate(result.candidates, start=1):
-                from placer.present.plot import save_preview
-
-                out.write(f"candidate-{i}.txt", format_pattern(cand.pattern, [
-                    f"{spec.name} candidate {i} ({cand.source}): systematic "
-                    f"{cand.systematic_ppm:.6g} ppm, routing {cand.routing_um:.6g} um"
-                    + (f", wiring {cand.wiring_ppm:.6g} ppm, block {cand.block_um2:.6g} um2"
-                       if cand.wiring_ppm is not None else ""),
-                    result.front_reference]))
-                save_preview(cand.pattern, spec.array.pitch_um,
-                             grade_pattern(cand.pattern, spec),
-                             f"{spec.name} candidate {i} ({cand.source}): routing "
-                             f"{cand.routing_um:.4g} um", [out.path(f"candidate-{i}.png")],
-                             cell_extent=block.cell.extent)
-            report = {"spec": str(spec_path), "name": spec.name, "seed": seed,
-                      "time_limit_s": time_limit, **result.to_dict(),
-                      "pattern": format_pattern(result.pattern),
-                      "layout": _layout_report(block),
-                      "budget": asdict(bud) if bud is not None else None}
-            out.write("report.json", json_text(report) + "\n")
-            from placer.layout.netlist import netlist
-
-            out.write("pattern.sp", netlist(spec, block.parasitics))
-            write_block(block, result.grade, out, "pattern")
-            if bud is not None:
-                from placer.present.plot import save_budget
-
-                save_budget(bud, spec.name, [out.path("budget.png")], devices=spec.devices)
+            outputs.write_arrangement(out, result, block, bud, spec_path=spec_path, seed=seed,
+                                      time_limit_s=time_limit)
             written = out.commit()
             # the set is complete: a signal now only shortens the exit, never the report
             click.echo(format_arrangement(result, spec))
@@ -481,23 +434,6 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
     if caught:
         click.echo("Interrupted after the search; the outputs above are complete.", err=True)
         sys.exit(130)
-
-
-def _layout_report(block: Any) -> dict[str, Any]:
-    from placer.layout.block import area_of
-
-    w = block.wiring
-    par = block.parasitics
-    return {"size_um": list(w.size_um), "pitch_um": list(block.spec.array.pitch_um),
-            "pitch_given": block.spec.array.pitch_given,
-            "channel_tracks": w.channel_tracks, "tracks_per_row": list(w.tracks_per_row),
-            "area": asdict(area_of(block)),
-            "nets": [asdict(n) for n in w.nets],
-            "parasitics": {
-                "taps": [{"net": t.net, "slot": list(t.slot), "device": t.device,
-                          "terminal": t.terminal, "r_to_pin_ohm": t.r_to_pin_ohm}
-                         for t in par.taps],
-                "couplings": [asdict(c) for c in par.couplings]}}
 
 
 @cli.command()
@@ -524,10 +460,9 @@ def draw(pattern_path: Path, spec_path: Path | None, out_dir: Path, layers_path:
     block = drawing.prepare(pattern, spec, tools)
     spec = block.spec                        # at the pitch its routing needs
     grade_ = grade_pattern(pattern, spec)
-    names = [f"{stem}.gds", f"{stem}.png", f"{stem}.svg"]
-    with OutputSet(out_dir, names, force) as out:
-        write_block(block, grade_, out, stem,
-                      _gradient_field(spec, grade_) if overlay else None)
+    with OutputSet(out_dir, outputs.draw_names(stem), force) as out:
+        outputs.write_block(block, grade_, out, stem,
+                            _gradient_field(spec, grade_) if overlay else None)
         written = out.commit()
     click.echo(format_nets(block.wiring, area=drawing.area_of(block)))
     click.echo("Wrote " + ", ".join(str(p) for p in written))
@@ -559,15 +494,16 @@ def compare(spec_path: Path, out_dir: Path, seed: int, time_limit: float, paper:
     from placer.present.report import format_table
 
     spec = load_spec(spec_path)
-    names = [f"{spec.name}-compare.png", f"{spec.name}-compare.pdf"]
+    names = outputs.compare_names(spec)
     with OutputSet(out_dir, names, force) as out:
         best = run_arrange(spec, seed=seed, time_limit_s=time_limit)
         spec = best.spec or spec
         rows, cols = best.core_shape
-        nets = mos_finger_nets(spec) if spec.kind == "mos" else None
+        fingers = KINDS[spec.kind].fingers
+        nets = mos_finger_nets(spec) if fingers else None
         entries = []
         for method, pat in baseline_patterns(spec, rows, cols):
-            route = estimate_routing(pat, spec.array.pitch_um, spec.kind == "mos", nets)
+            route = estimate_routing(pat, spec.array.pitch_um, fingers, nets)
             entries.append((method, pat, grade_pattern(pat, spec), route.total_tree_um))
         entries.append(("optimised", best.pattern, best.grade, best.routing.total_tree_um))
         units = ", ".join(f"{n}={c}" for n, c in zip(spec.devices, spec.counts, strict=True))
@@ -620,7 +556,7 @@ def lesson(spec_path: Path, out_dir: Path, pattern_path: Path | None, seed: int,
     own = None
     if pattern_path is not None:
         own = check_against_spec(read_pattern(pattern_path), spec, str(pattern_path))
-    name = f"{spec.name}-lesson.html"
+    name = outputs.lesson_name(spec)
     with OutputSet(out_dir, [name], force) as out:
         best = run_arrange(spec, seed=seed, time_limit_s=time_limit)
         spec = best.spec or spec
@@ -683,47 +619,17 @@ def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, 
         if unit_gds is not None or template_path is not None:
             raise
         tools, note = None, f"repaired.gds not written: {err}"
-    names = ["repaired.txt", *(["repaired.gds"] if tools is not None else []),
-             "repaired.png", "repaired.svg", "repair.json"]
-    with OutputSet(out_dir, names, force) as out:
+    with OutputSet(out_dir, outputs.repair_names(tools is not None), force) as out:
         res = run_repair(pat, spec, spec.array.pitch_um, max_swaps, seed=seed,
                          time_limit_s=time_limit)
-        grade_ = grade_pattern(res.pattern, spec)
         block = drawing.prepare(res.pattern, spec, tools) if tools is not None else None
-        px, py = spec.array.pitch_um
-        ox, oy = rec.origin_um
-
-        def where(slot: tuple[int, int]) -> str:
-            r, c = slot
-            return f"row {r}, col {c} ({ox + c * px:.4g}, {oy - r * py:.4g} um)"
-
-        lines = [f"  {i}. swap {sw.first_device} at {where(sw.first)} with "
-                 f"{sw.second_device} at {where(sw.second)}"
-                 for i, sw in enumerate(res.swaps, start=1)]
-        header = [f"{spec.name} repaired from {layout.name} with {len(res.swaps)} swap(s)",
-                  *(ln.strip() for ln in lines)]
-        out.write("repaired.txt", format_pattern(res.pattern, header))
-        moved = tuple(sorted({s for sw in res.swaps for s in (sw.first, sw.second)}))
-        if block is not None:
-            write_block(block, grade_, out, "repaired", moved=moved)
-        else:
-            from placer.present.plot import save_preview
-
-            save_preview(res.pattern, spec.array.pitch_um, grade_, spec.name,
-                         [out.path("repaired.png"), out.path("repaired.svg")], moved=moved)
-        b, a = res.before, res.after
-        report = {"layout": str(layout), "recognised": rec.notes,
-                  "swaps": [asdict(sw) for sw in res.swaps], "before": asdict(b),
-                  "after": asdict(a), "target_linear_um": res.target_linear_um,
-                  "limited": res.limited or None,
-                  "reached_target": res.reached_target, "grade": grade_.to_dict(),
-                  "layout_nets": _layout_report(block) if block is not None else None}
-        out.write("repair.json", json_text(report) + "\n")
+        outputs.write_repair(out, res, spec, block, layout, rec)
         written = out.commit()
     g = spec.gradient.linear_ppm_per_um
+    b, a = res.before, res.after
     click.echo(f"{len(res.swaps)} swap(s):" if res.swaps
-                else "No swap improves this layout.")
-    for ln in lines:
+               else "No swap improves this layout.")
+    for ln in outputs.swap_lines(res, spec, rec):
         click.echo(ln)
     click.echo(f"Linear worst pair: {b.linear_um:.4g} um ({b.linear_um * g:.4g} ppm) -> "
                f"{a.linear_um:.4g} um ({a.linear_um * g:.4g} ppm); target "

@@ -1,43 +1,146 @@
-"""One record per device kind: its terminals, their default nets and the dummy tie net.
+"""One record per device kind: everything that differs from one kind of unit to another.
 
 A MOS finger has a gate, a source and a drain (and optionally a bulk, which the generic
 cell does not draw); a capacitor unit a top and a bottom plate; a resistor unit two ends,
 ``a`` (top head) and ``b`` (bottom head), the units of one resistor joined in series
 (the default) or in parallel.
+
+The modules that read, search, draw, route, budget and report read a :class:`Kind`'s
+fields; none of them tests a kind's name. A new kind whose units behave like one of
+these (its cell, routing and budget are among those below) is one record here, its
+template under ``templates/`` and its tests (DEVELOPERS.md shows one worked through).
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
-__all__ = ["KindInfo", "KINDS_INFO", "JOINS", "default_nets", "default_dummy_net",
+__all__ = ["Kind", "KINDS", "JOINS", "kind_of", "default_nets", "default_dummy_net",
            "series_node", "MatchedSet", "default_matched_sets"]
+
+#: How the units of one device can be joined.
+JOINS = ("series", "parallel")
 
 
 @dataclass(frozen=True)
-class KindInfo:
-    """Terminals of one kind of unit: all of them, and those the unit cell draws."""
+class Kind:
+    """What placer knows of one kind of unit.
+
+    Parameters
+    ----------
+    name : str
+        The spec's ``kind``.
+    terminals : tuple of str
+        Every terminal a spec may name in ``[terminals]``.
+    drawn : tuple of str
+        The terminals the unit cell draws (a pad and a net each).
+    default_net : dict
+        Each drawn terminal's default net: a name every device shares (``"GATE"``), or
+        ``"_X"``, the device's own net ``<device>_X``.
+    template : str
+        The shipped unit-cell template (``templates/``): its rules and layers.
+    unit_um : tuple of float
+        W x L of a unit when the spec gives none.
+    cell : str
+        The unit cell's geometry and rule set: ``"finger"`` (a gate over diffusion,
+        contacts each side), ``"plate"`` (two plates, the top one notched for its
+        contact), ``"strip"`` (a resistor body with a head at each end).
+    fingers : bool
+        Units are MOS fingers: each is drawn one way or flipped (``>``/``<``), neighbours
+        share diffusion where their facing nets agree, rows count diffusion breaks, and a
+        device's source and drain nets decide the flips.
+    joins : tuple of str
+        How a device's units may join (``JOINS``); the first is the default.
+    routing : str
+        The router's plan: ``"rows"`` (every terminal to its net's track in the channel
+        below), ``"plates"`` (a shared top plate by strap or channel, bottom plates in the
+        channels above and below), ``"chains"`` (series links between a device's units).
+    budget : str
+        The electrical budget: ``"ratio"`` (each device's ratio to a reference) or
+        ``"dac"`` (a binary-weighted array: INL and DNL over every code).
+    anchor : str
+        The ``[electrical]`` key naming the device the others are measured against.
+    quantity : str
+        What a unit contributes, for the budget and the wiring term: ``"current"``,
+        ``"capacitance"`` or ``"resistance"``.
+    unit_value : str or None
+        The ``[electrical]`` key of one unit's value (None: the budget needs none).
+    electrical_needs : str
+        What an ``[electrical]`` table must give, for the message that asks for it.
+    matched : str
+        Default matched net sets per group: ``"terminals"`` (terminals whose nets differ
+        device to device), ``"bottoms"`` (the bottom plates), ``""`` (none).
+    spice_ports : tuple of str
+        The unit subcircuit's ports, in order, in the netlist.
+    device_label : str
+        What a budget table calls one of its devices.
+    """
 
     name: str
     terminals: tuple[str, ...]
     drawn: tuple[str, ...]
-    shared: tuple[str, ...]
+    default_net: dict[str, str]
     template: str
-    unit_um: tuple[float, float] = (1.0, 1.0)    # W x L when the spec gives none
+    cell: str
+    routing: str
+    budget: str
+    anchor: str
+    quantity: str
+    electrical_needs: str
+    spice_ports: tuple[str, ...]
+    device_label: str
+    unit_um: tuple[float, float] = (1.0, 1.0)
+    fingers: bool = False
+    joins: tuple[str, ...] = ("parallel",)
+    unit_value: str | None = None
+    matched: str = ""
+    #: terminals whose default net every device shares (derived from ``default_net``)
+    shared: tuple[str, ...] = field(init=False)
 
-KINDS_INFO = {
-    "mos": KindInfo("mos", ("gate", "source", "drain", "bulk"), ("gate", "source", "drain"),
-                    ("gate", "source"), "mos_finger.toml"),
-    "cap": KindInfo("cap", ("top", "bottom"), ("top", "bottom"), ("top",), "cap_unit.toml",
-                    (2.0, 2.0)),      # the notched plate of cap_unit.toml needs 1.6 x 1.3
-    "res": KindInfo("res", ("a", "b"), ("a", "b"), (), "res_unit.toml"),
-}
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "shared", tuple(
+            t for t, n in self.default_net.items() if not n.startswith("_")))
 
-#: How the units of one resistor are joined.
-JOINS = ("series", "parallel")
 
-_SHARED_NAMES = {"gate": "GATE", "source": "SOURCE", "top": "TOP"}
-_OWN_SUFFIX = {"drain": "D", "bottom": "BOT", "a": "A", "b": "B"}
+KINDS: dict[str, Kind] = {k.name: k for k in (
+    Kind("mos", terminals=("gate", "source", "drain", "bulk"),
+         drawn=("gate", "source", "drain"),
+         default_net={"gate": "GATE", "source": "SOURCE", "drain": "_D"},
+         template="mos_finger.toml", cell="finger", routing="rows", budget="ratio",
+         anchor="reference", quantity="current",
+         electrical_needs="vov_v (V) or gm_id_per_v (1/V), lambda_per_v (1/V), "
+                          "[electrical.vds_v] (V per device)",
+         spice_ports=("drain", "gate", "source"), device_label="output", fingers=True,
+         matched="terminals"),
+    Kind("cap", terminals=("top", "bottom"), drawn=("top", "bottom"),
+         default_net={"top": "TOP", "bottom": "_BOT"}, template="cap_unit.toml",
+         cell="plate", routing="plates", budget="dac", anchor="termination",
+         quantity="capacitance", electrical_needs="termination (device name or \"none\")",
+         spice_ports=("top", "bottom"), device_label="capacitor",
+         unit_um=(2.0, 2.0),      # the notched plate of cap_unit.toml needs 1.6 x 1.3
+         unit_value="unit_cap_ff", matched="bottoms"),
+    Kind("res", terminals=("a", "b"), drawn=("a", "b"),
+         default_net={"a": "_A", "b": "_B"}, template="res_unit.toml", cell="strip",
+         routing="chains", budget="ratio", anchor="reference", quantity="resistance",
+         electrical_needs="reference (device name; optional)", spice_ports=("a", "b"),
+         device_label="resistor", joins=("series", "parallel"), unit_value="unit_ohm"),
+)}
+
+
+def kind_of(name: str) -> Kind:
+    """The record of kind ``name`` (a spec's ``kind``; validated when the spec is read).
+
+    Parameters
+    ----------
+    name : str
+        ``"mos"``, ``"cap"``, ``"res"`` or another registered kind.
+
+    Returns
+    -------
+    Kind
+        Its record.
+    """
+    return KINDS[name]
 
 
 def default_nets(kind: str, device: str) -> dict[str, str]:
@@ -53,9 +156,8 @@ def default_nets(kind: str, device: str) -> dict[str, str]:
     >>> default_nets("res", "R1")
     {'a': 'R1_A', 'b': 'R1_B'}
     """
-    info = KINDS_INFO[kind]
-    return {t: _SHARED_NAMES[t] if t in info.shared else f"{device}_{_OWN_SUFFIX[t]}"
-            for t in info.drawn}
+    return {t: f"{device}{n}" if n.startswith("_") else n
+            for t, n in KINDS[kind].default_net.items()}
 
 
 def default_dummy_net(kind: str, nets: list[dict[str, str]]) -> str:
@@ -76,7 +178,7 @@ def default_dummy_net(kind: str, nets: list[dict[str, str]]) -> str:
     >>> default_dummy_net("cap", [{"top": "TOP", "bottom": "C0_BOT"}])
     'VSS'
     """
-    if kind == "mos" and nets:
+    if KINDS[kind].fingers and nets:
         bulks = {n.get("bulk") for n in nets}
         if len(bulks) == 1 and None not in bulks:
             return str(bulks.pop())
@@ -133,12 +235,13 @@ def default_matched_sets(kind: str, groups: list[list[str]], nets: dict[str, dic
     for group in groups:
         if len(group) < 2:
             continue
-        if kind == "cap":
+        rule = KINDS[kind].matched
+        if rule == "bottoms":
             bottoms = tuple(dict.fromkeys(nets[d]["bottom"] for d in group))
             if len(bottoms) >= 2:
                 out.append(MatchedSet(bottoms, tuple(group), "bottom"))
             continue
-        if kind != "mos":
+        if rule != "terminals":
             continue
         shared = {rail}
         for t in ("gate", "source", "drain"):

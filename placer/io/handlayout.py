@@ -19,6 +19,7 @@ from placer.io.files import read_limited
 from placer.io.gdsread import LayoutError, StreamLibrary, is_gdsii, parse_stream
 from placer.io.pattern import DUMMY, EMPTY, Pattern, parse_pattern
 from placer.io.spec import NAME_RE, Spec
+from placer.kinds import KINDS
 from placer.limits import MAX_DEVICES, MAX_FILE_BYTES, MAX_NAME, MAX_SLOTS, MAX_UNITS
 
 __all__ = ["Unit", "Recognised", "read_layout", "units_to_pattern", "read_csv_units",
@@ -569,7 +570,7 @@ def read_layout(path: Path, *, spec: Spec | None = None, cell: str | None = None
         pattern = parse_pattern(text, source=str(path))
         pitch = spec.array.pitch_um if spec is not None else (0.0, 0.0)   # from the spec
         return Recognised(pattern, pitch, (0.0, 0.0), fmt, notes)
-    mos = spec is None or spec.kind == "mos"
+    mos = spec is None or KINDS[spec.kind].fingers      # units that may be flipped
     if fmt == "csv":
         try:
             text = data.decode("utf-8")

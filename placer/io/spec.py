@@ -11,6 +11,8 @@ from typing import Any
 
 from placer.errors import LimitError, SpecError, shown
 from placer.io.files import read_text, toml_depth
+from placer.kinds import JOINS, default_dummy_net, default_nets
+from placer.kinds import KINDS as KIND_RECORDS
 from placer.limits import (
     MAX_BANDED_DEVICES,
     MAX_DAC_BITS,
@@ -56,7 +58,8 @@ __all__ = [
 ]
 
 NAME_RE = re.compile(r"[A-Za-z][A-Za-z0-9_]*\Z")
-KINDS = ("mos", "cap", "res")
+#: The kinds a spec may name (one record each in :mod:`placer.kinds`).
+KINDS = tuple(KIND_RECORDS)
 DUMMY_STYLES = ("none", "ends", "ring")
 KERNELS = ("exponential", "gaussian")
 
@@ -292,7 +295,7 @@ class Spec:
         e = self.electrical
         if not self.placement.groups or e is None:
             return list(self.devices)
-        anchor = (e.termination if self.kind == "cap" else e.reference) or self.devices[0]
+        anchor = getattr(e, KIND_RECORDS[self.kind].anchor) or self.devices[0]
         for g in self.placement.groups:
             if anchor in g.devices:
                 return [d for d in self.devices if d in g.devices]
@@ -335,12 +338,9 @@ def bare_spec(name: str, devices: tuple[str, ...], counts: tuple[int, ...],
                  kind: str = "mos") -> Spec:
     """Spec with every assumption at its documented default, for a bare pattern (its pitch
     not yet worked out: :func:`placer.jobs.load.default_spec` gives it)."""
-    from placer.kinds import default_dummy_net, default_nets
-
     nets = tuple(default_nets(kind, d) for d in devices)
     spec = Spec(name=name, devices=devices, counts=counts, kind=kind, source="<defaults>",
-                nets=nets, joins=tuple("series" if kind == "res" else "parallel"
-                                       for _ in devices),
+                nets=nets, joins=tuple(KIND_RECORDS[kind].joins[0] for _ in devices),
                 dummy_net=default_dummy_net(kind, list(nets)),
                 array=ArraySpec(pitch_given=False))
     return spec
@@ -558,7 +558,7 @@ def read_spec_text(text: str, source: str = "<spec>", default_name: str = "place
         check_name(name, "spec name")
     except SpecError as err:
         raise SpecError(f"{source}: {err}") from None
-    kind = top.choice("kind", "mos", KINDS)
+    kind = top.choice("kind", "mos", tuple(KIND_RECORDS))
 
     if "devices" not in data:
         raise SpecError(f"{source}: missing [devices] table (name = number of units)")
@@ -633,9 +633,7 @@ def read_spec_text(text: str, source: str = "<spec>", default_name: str = "place
     array = ArraySpec(rows, columns, dummies, pitch, aspect, pitch_given, holes)
 
     un = _Reader(source, "unit", data.get("unit", {}))
-    from placer.kinds import KINDS_INFO
-
-    dw, dl = KINDS_INFO[kind].unit_um
+    dw, dl = KIND_RECORDS[kind].unit_um
     unit = UnitSpec(un.number("width_um", dw) or dw, un.number("length_um", dl) or dl)
 
     raw_el = data.get("electrical")
@@ -726,7 +724,7 @@ def _check_work(spec: Spec) -> None:
     """Refuse, before any work, budgets and Monte Carlo runs too large to finish."""
     src = spec.source
     e = spec.electrical
-    if e is not None and spec.kind == "cap":
+    if e is not None and KIND_RECORDS[spec.kind].budget == "dac":
         bits = len([d for d in spec.budget_devices() if d != e.termination])
         if bits > MAX_DAC_BITS:
             raise LimitError(f"{src}: [electrical] {bits} switched capacitors; the budget "
@@ -762,9 +760,9 @@ def _gradient(source: str, gr: _Reader, kind: str, el: ElectricalSpec | None) ->
                         f"{' and '.join(given + mos_keys)} both describe it")
     vt = beta = None
     if mos_keys:
-        if kind != "mos":
-            raise gr.fail(mos_keys[0],
-                          f"applies to kind = \"mos\" only (this spec is {shown(kind)})")
+        if KIND_RECORDS[kind].quantity != "current":
+            raise gr.fail(mos_keys[0], f"applies to {_kinds_with('quantity', 'current')} only "
+                                       f"(this spec is {shown(kind)})")
         if el is None:
             raise gr.fail(mos_keys[0], "needs gm/ID to combine the threshold and current-factor "
                                        "gradients: give [electrical] vov_v or gm_id_per_v")
@@ -1029,9 +1027,9 @@ def _net_name(where: str, key: str, value: Any) -> str:
 def _terminals(source: str, raw: Any, kind: str, names: list[str], counts: list[int],
                dummy_raw: Any) -> tuple[tuple[dict[str, str], ...], tuple[str, ...], str]:
     """Validate [terminals] and [array] dummy_net; fill the kind's defaults."""
-    from placer.kinds import JOINS, KINDS_INFO, default_dummy_net, default_nets, series_node
+    from placer.kinds import series_node
 
-    info = KINDS_INFO[kind]
+    info = KIND_RECORDS[kind]
     if not isinstance(raw, dict):
         raise SpecError(f"{source}: [terminals] must be a table, got {_typename(raw)}")
     for key in raw:
@@ -1040,7 +1038,7 @@ def _terminals(source: str, raw: Any, kind: str, names: list[str], counts: list[
             hint = (f" (did you mean {shown(near[0])}?)" if near
                     else f" (devices: {', '.join(names)})")
             raise SpecError(f"{source}: [terminals] {shown(key)} is not a device{hint}")
-    allowed = info.terminals + (("join",) if kind == "res" else ())
+    allowed = info.terminals + (("join",) if len(info.joins) > 1 else ())
     nets: list[dict[str, str]] = []
     joins: list[str] = []
     for name in names:
@@ -1059,7 +1057,7 @@ def _terminals(source: str, raw: Any, kind: str, names: list[str], counts: list[
         for t in info.terminals:
             if t in given:
                 mine[t] = _net_name(where, t, given[t])
-        join = given.get("join", "series" if kind == "res" else "parallel")
+        join = given.get("join", info.joins[0])
         if join not in JOINS:
             raise SpecError(f"{where} join must be 'series' or 'parallel', got {shown(join)}")
         nets.append(mine)
@@ -1101,7 +1099,8 @@ def _electrical(source: str, raw: Any, kind: str, names: list[str], counts: list
         "mc_seed": el.integer("mc_seed", d.mc_seed, low=0),
         "fit": el.choice("fit", d.fit, FITS),
     }
-    if kind == "mos":
+    info = KIND_RECORDS[kind]
+    if info.quantity == "current":
         missing = []
         if "vov_v" not in el.data and "gm_id_per_v" not in el.data:
             missing.append("vov_v (overdrive, V) or gm_id_per_v (1/V)")
@@ -1132,11 +1131,10 @@ def _electrical(source: str, raw: Any, kind: str, names: list[str], counts: list
         if absent:
             raise SpecError(f"{source}: [electrical.vds_v] missing {', '.join(absent)} "
                             "(drain voltage, V)")
-        for key in ("unit_cap_ff", "unit_ohm"):
-            if key in el.data:
-                where = "cap" if key == "unit_cap_ff" else "res"
-                raise el.fail(key, f"applies to kind = \"{where}\" only (this spec is "
-                              f"{shown(kind)})")
+        for key in _UNIT_VALUES:
+            if key in el.data and key != info.unit_value:
+                raise el.fail(key, f"applies to {_kinds_with('unit_value', key)} only (this "
+                              f"spec is {shown(kind)})")
         return ElectricalSpec(
             gm_id_per_v=gm_id,
             unit_current_ua=el.number("unit_current_ua", 10.0) or 10.0,
@@ -1146,14 +1144,13 @@ def _electrical(source: str, raw: Any, kind: str, names: list[str], counts: list
             a_beta_pct_um=_num(el, "a_beta_pct_um", mismatch.a_param_pct_um),
             **common,  # type: ignore[arg-type]
         )
-    owner = {"unit_ohm": "res", "unit_cap_ff": "cap"}
-    for key in ("vov_v", "gm_id_per_v", "lambda_per_v", "vds_v", "unit_current_ua",
-                *(("unit_ohm",) if kind == "cap" else ("unit_cap_ff",))):
+    for key in (*_CURRENT_KEYS, *(k for k in _UNIT_VALUES if k != info.unit_value)):
         if key in el.data:
-            raise el.fail(key, f"applies to kind = \"{owner.get(key, 'mos')}\" only (this spec "
-                          f"is {shown(kind)})")
+            owner = (_kinds_with("quantity", "current") if key in _CURRENT_KEYS
+                     else _kinds_with("unit_value", key))
+            raise el.fail(key, f"applies to {owner} only (this spec is {shown(kind)})")
     term = el.data.get("termination")
-    if kind == "cap":
+    if info.anchor == "termination":
         if term is None:
             raise SpecError(f"{source}: [electrical] missing termination (the unswitched "
                             "unit's device name, or \"none\")")
@@ -1177,11 +1174,23 @@ def _electrical(source: str, raw: Any, kind: str, names: list[str], counts: list
                             "capacitor besides the termination")
     elif term is not None or "weights" in el.data:
         raise SpecError(f"{source}: [electrical] termination and weights apply to "
-                        "kind = \"cap\" only")
-    return ElectricalSpec(termination=term,
-                          unit_cap_ff=el.number("unit_cap_ff", None) if kind == "cap" else None,
-                          unit_ohm=el.number("unit_ohm", None) if kind == "res" else None,
-                          **common)  # type: ignore[arg-type]
+                        f"{_kinds_with('anchor', 'termination')} only")
+    value = {info.unit_value: el.number(info.unit_value, None)} if info.unit_value else {}
+    return ElectricalSpec(termination=term, **value, **common)  # type: ignore[arg-type]
+
+
+#: [electrical] keys of a unit carrying a current (a MOS finger's operating point).
+_CURRENT_KEYS = ("vov_v", "gm_id_per_v", "lambda_per_v", "vds_v", "unit_current_ua")
+#: [electrical] keys of one unit's value, each kind's own.
+_UNIT_VALUES = tuple(dict.fromkeys(k.unit_value for k in KIND_RECORDS.values()
+                                   if k.unit_value))
+
+
+def _kinds_with(attribute: str, value: object) -> str:
+    """The kinds whose record has ``attribute`` = ``value``, for a message:
+    'kind = "cap"' or 'kind = "cap" or "mim"'."""
+    names = [f'"{k.name}"' for k in KIND_RECORDS.values() if getattr(k, attribute) == value]
+    return "kind = " + " or ".join(names)
 
 
 def _num(reader: _Reader, key: str, default: float) -> float:

@@ -13,6 +13,7 @@ from numpy.typing import NDArray
 from placer.errors import SpecError
 from placer.io.pattern import Pattern
 from placer.io.spec import Spec
+from placer.kinds import KINDS
 from placer.limits import MAX_SIDE, MAX_SLOT_DEVICES, MAX_SLOTS
 from placer.model.grade import Grade, grade_pattern
 from placer.model.routing_estimate import (
@@ -173,7 +174,7 @@ def problem_for(spec: Spec, rows: int, cols: int,
         kernel=spec.correlated.kernel, cancel_order=spec.search.cancel_order,
         objective=spec.search.objective, relative_tie=spec.search.relative_tie,
         open_edge=grid.open_edge(spec, rows, cols, use),
-        finger_nets=mos_finger_nets(spec) if spec.kind == "mos" else None,
+        finger_nets=mos_finger_nets(spec) if KINDS[spec.kind].fingers else None,
         usable=None if use is None else tuple(bool(x) for x in use),
         pinned=grid.pinned_slots(spec, cols) if usable is None else (),
         pairs=tuple(spec.ranked_pairs()),
@@ -188,7 +189,7 @@ def build_pattern(spec: Spec, assign: IntArray, rows: int, cols: int) -> Pattern
     from placer.model import grid
     ids = grid.full_pattern_ids(spec, np.asarray(assign), rows, cols)
     orient = np.zeros(ids.shape, dtype=np.int8)
-    if spec.kind == "mos":
+    if KINDS[spec.kind].fingers:
         nets = mos_finger_nets(spec)
         tally: dict[int, int] = {}
         for r in range(ids.shape[0]):
@@ -269,7 +270,7 @@ def baseline_pattern(spec: Spec, method: str, rows: int, cols: int,
 
 
 def _nets(spec: Spec) -> FingerNets:
-    return mos_finger_nets(spec) if spec.kind == "mos" else None
+    return mos_finger_nets(spec) if KINDS[spec.kind].fingers else None
 
 
 def _systematic(prob: Problem, keys: Keys) -> float:
@@ -468,7 +469,8 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
             proven = "linear"
     spec = final
     grade = grade_pattern(pattern, spec)
-    routing = estimate_routing(pattern, spec.array.pitch_um, spec.kind == "mos", _nets(spec))
+    routing = estimate_routing(pattern, spec.array.pitch_um, KINDS[spec.kind].fingers,
+                               _nets(spec))
     cands, against = (_candidates(spec, best, n_candidates, weigh) if n_candidates
                       else ((), ""))
     return Arrangement(
@@ -551,7 +553,8 @@ def _candidates(spec: Spec, best: _Tried, k: int, weigh: Weigh | None = None
     for assign, source in pool.values():
         keys = keys_of(prob, assign)
         pattern = build_pattern(spec, assign, rows, cols)
-        route = estimate_routing(pattern, spec.array.pitch_um, spec.kind == "mos", _nets(spec))
+        route = estimate_routing(pattern, spec.array.pitch_um, KINDS[spec.kind].fingers,
+                                 _nets(spec))
         wiring_ppm = block_um2 = None
         if weigh is not None:
             wiring_ppm, block_um2 = weigh(pattern, spec)

@@ -47,15 +47,15 @@ DB_UNIT_UM = 1e-3          # 1 nm database unit, micrometre user unit
 _PER_UM = 1000             # database units per micrometre
 MAX_RULE_UM = 1000.0
 
-#: Rules every kind reads, then the kind's own.
+#: Rules every cell reads, then each cell geometry's own (a kind's ``cell``).
 _COMMON = ("contact", "contact_space", "metal1_width", "metal1_space", "metal1_enclosure",
            "via1", "metal2_width", "metal2_space", "metal2_enclosure")
 RULES = {
-    "mos": _COMMON + ("diffusion_enclosure", "gate_contact_space", "gate_extension",
+    "finger": _COMMON + ("diffusion_enclosure", "gate_contact_space", "gate_extension",
                       "gate_enclosure", "contact_diffusion_space", "diffusion_space",
                       "gate_space"),
-    "cap": _COMMON + ("plate_margin",),
-    "res": _COMMON + ("gate_enclosure", "gate_space"),
+    "plate": _COMMON + ("plate_margin",),
+    "strip": _COMMON + ("gate_enclosure", "gate_space"),
 }
 
 
@@ -275,9 +275,10 @@ def read_toml(path: Path | None, fallback: str) -> tuple[dict[str, Any], str]:
 
 def load_rules(kind: str, path: Path | None = None) -> Rules:
     """The drawing rules of ``kind``'s unit cell: the shipped template or ``path``."""
-    from placer.kinds import KINDS_INFO
+    from placer.kinds import KINDS
 
-    data, src = read_toml(path, KINDS_INFO[kind].template)
+    data, src = read_toml(path, KINDS[kind].template)
+    names = RULES[KINDS[kind].cell]
     for key in data:
         if key not in ("kind", "rules"):
             raise TemplateError(f"{src}: unknown key {shown(key)} (allowed: kind, rules)")
@@ -289,13 +290,13 @@ def load_rules(kind: str, path: Path | None = None) -> Rules:
         raise TemplateError(f"{src}: needs a [rules] table")
     values: dict[str, float] = {}
     for key in raw:
-        if key not in RULES[kind]:
+        if key not in names:
             import difflib
 
-            near = difflib.get_close_matches(key, RULES[kind], n=1)
+            near = difflib.get_close_matches(key, names, n=1)
             hint = f" (did you mean {shown(near[0])}?)" if near else ""
             raise TemplateError(f"{src}: [rules] unknown rule {shown(key)}{hint}")
-    for key in RULES[kind]:
+    for key in names:
         if key not in raw:
             raise TemplateError(f"{src}: [rules] missing {key} (micrometres)")
         v = raw[key]
@@ -311,9 +312,9 @@ def spacing_rules(rules: Rules) -> dict[str, float]:
     """The template's spacing between shapes of different nets, per conductor role."""
     r = rules.values
     out = {"metal1": r["metal1_space"], "metal2": r["metal2_space"]}
-    if rules.kind == "mos":
-        out.update(diffusion=r["diffusion_space"], gate=r["gate_space"])
-    if rules.kind == "res":
+    if "diffusion_space" in r:
+        out["diffusion"] = r["diffusion_space"]
+    if "gate_space" in r:
         out["gate"] = r["gate_space"]
     return out
 
@@ -340,7 +341,9 @@ def unit_cell(kind: str, width_um: float, length_um: float, pitch_x: float | Non
     space from the slot edge); None draws the narrowest cell. Raises TemplateError with
     the smallest size that works when W or L leave no room for the rules.
     """
-    builder = {"mos": _mos, "cap": _cap, "res": _res}[kind]
+    from placer.kinds import KINDS
+
+    builder = {"finger": _mos, "plate": _cap, "strip": _res}[KINDS[kind].cell]
     return builder(width_um, length_um, pitch_x, rules)
 
 

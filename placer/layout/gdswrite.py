@@ -20,6 +20,7 @@ import numpy as np
 from placer.errors import PlacerError
 from placer.io.pattern import DUMMY, EMPTY, Pattern
 from placer.io.spec import Spec
+from placer.kinds import KINDS
 from placer.layout.cells import DB_UNIT_UM, Rect, Rules, UnitCell, snap
 from placer.layout.layers import LayerMap
 from placer.layout.router import Wiring
@@ -115,7 +116,7 @@ def build_library(pattern: Pattern, spec: Spec, cell: UnitCell, wiring: Wiring,
             if d == EMPTY:
                 continue
             x, y = snap(c * px), snap(-r * py)
-            mirrored = spec.kind == "mos" and int(pattern.orient[r, c]) < 0
+            mirrored = KINDS[spec.kind].fingers and int(pattern.orient[r, c]) < 0
             target = unit if d != DUMMY or dummy is None else dummy
             top.add(gdstk.Reference(target, (x, y), rotation=np.pi if mirrored else 0.0,
                                     x_reflection=mirrored))

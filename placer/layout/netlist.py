@@ -20,6 +20,7 @@ from __future__ import annotations
 import re
 
 from placer.io.spec import Spec
+from placer.kinds import KINDS
 from placer.layout.parasitics import Parasitics
 
 __all__ = ["netlist", "subckt_name", "VTO_V"]
@@ -66,12 +67,13 @@ def netlist(spec: Spec, par: Parasitics) -> str:
     """The netlist text: models, the unit subcircuit, and the array subcircuit whose ports
     are the block's pinned nets (in net order)."""
     e = spec.electrical
-    kind = spec.kind
+    kind = KINDS[spec.kind]
+    sub = f"placer_{kind.name}"
     w, length = spec.unit.width_um, spec.unit.length_um
     lines = [f"* {spec.name}: placer's routed array, units and drawn wiring",
              "* model estimates with illustrative devices; use the process's models and "
              "confirm with extraction"]
-    if kind == "mos":
+    if kind.quantity == "current":
         gm_id = e.gm_id_per_v if e is not None else 10.0
         amps = (e.unit_current_ua if e is not None else 10.0) * 1e-6
         lam = e.lambda_per_v if e is not None else 0.0
@@ -79,16 +81,16 @@ def netlist(spec: Spec, par: Parasitics) -> str:
         kp = 2.0 * amps * length / (w * vov * vov)
         lines += [f".model placer_unit nmos (level=1 vto={VTO_V:g} kp={kp:.6g} "
                   f"lambda={lam:.6g})",
-                  ".subckt placer_mos d g s",
+                  f".subckt {sub} d g s",
                   f"M1 d g s s placer_unit W={_value(w, 'u')} L={_value(length, 'u')}",
-                  ".ends placer_mos"]
-    elif kind == "cap":
+                  f".ends {sub}"]
+    elif kind.quantity == "capacitance":
         cu = e.unit_cap_ff if e is not None and e.unit_cap_ff is not None else 1.0
-        lines += [".subckt placer_cap top bottom", f"C1 top bottom {_value(cu, 'f')}",
-                  ".ends placer_cap"]
+        lines += [f".subckt {sub} top bottom", f"C1 top bottom {_value(cu, 'f')}",
+                  f".ends {sub}"]
     else:
         ru = e.unit_ohm if e is not None and e.unit_ohm is not None else 1000.0
-        lines += [".subckt placer_res a b", f"R1 a b {_value(ru, '')}", ".ends placer_res"]
+        lines += [f".subckt {sub} a b", f"R1 a b {_value(ru, '')}", f".ends {sub}"]
     ports = [n for n, nw in par.networks.items() if nw.pin is not None]
     lines.append(f".subckt {subckt_name(spec)} " + " ".join(ports))
     # units
@@ -98,9 +100,7 @@ def netlist(spec: Spec, par: Parasitics) -> str:
         for ti, node in zip(nw.tap_index, nw.tap_nodes, strict=True):
             t = par.taps[ti]
             term_node[t.slot, t.terminal] = named[net][node]
-    order = {"mos": ("drain", "gate", "source"), "cap": ("top", "bottom"),
-             "res": ("a", "b")}[kind]
-    sub = {"mos": "placer_mos", "cap": "placer_cap", "res": "placer_res"}[kind]
+    order = kind.spice_ports
     slots = sorted({(t.slot, t.device) for t in par.taps if t.device in spec.devices})
     for (r, c), dev in slots:
         nodes = [term_node.get(((r, c), t), "0") for t in order]

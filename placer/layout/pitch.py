@@ -17,6 +17,7 @@ from typing import Any
 from placer.errors import LimitError
 from placer.io.pattern import Pattern
 from placer.io.spec import Spec
+from placer.kinds import KINDS
 from placer.layout.cells import Rules, TemplateError, UnitCell, load_rules, min_pitch, unit_cell
 from placer.layout.router import RouteError, plan_tracks
 from placer.limits import MAX_EXTENT_UM
@@ -88,9 +89,10 @@ def track_estimate(spec: Spec) -> int:
     """
     used = {n for m in spec.nets for n in m.values()}
     nets = set(spec.net_names()) - ({spec.dummy_net} - used)
-    if spec.kind == "mos":
+    routing = KINDS[spec.kind].routing
+    if routing == "rows":
         return max(1, len(nets))
-    if spec.kind == "cap":
+    if routing == "plates":
         tops = {n["top"] for n in spec.nets}
         bottoms = {n["bottom"] for n in spec.nets}
         extra = 0 if len(tops) == 1 else len(tops)

@@ -47,7 +47,7 @@ import numpy as np
 
 from placer.errors import RouteError
 from placer.io.pattern import DUMMY, EMPTY, Pattern
-from placer.kinds import KINDS_INFO, series_node
+from placer.kinds import KINDS, series_node
 from placer.layout.cells import (
     Exit,
     Rect,
@@ -189,7 +189,7 @@ def unit_nets(pattern: Pattern, spec: Spec) -> dict[tuple[int, int], dict[str, s
     >>> [nets[0, c]["a"] + "-" + nets[0, c]["b"] for c in range(3)]
     ['R_A-R_N1', 'R_N1-R_N2', 'R_N2-R_B']
     """
-    drawn = KINDS_INFO[spec.kind].drawn
+    drawn = KINDS[spec.kind].drawn
     out: dict[tuple[int, int], dict[str, str]] = {}
     seen = [0] * len(spec.devices)
     for r, c in _snake(pattern.ids):
@@ -200,11 +200,12 @@ def unit_nets(pattern: Pattern, spec: Spec) -> dict[tuple[int, int], dict[str, s
             out[r, c] = {t: spec.dummy_net for t in drawn}
             continue
         nets = {t: spec.nets[d][t] for t in drawn}
-        if spec.kind == "res" and spec.joins[d] == "series":
+        if spec.joins[d] == "series":           # a chain: unit k runs from node k to k + 1
             k, n = seen[d], spec.counts[d]
             name = spec.devices[d]
-            nets["a"] = spec.nets[d]["a"] if k == 0 else series_node(name, k)
-            nets["b"] = spec.nets[d]["b"] if k == n - 1 else series_node(name, k + 1)
+            first, last = drawn[0], drawn[1]
+            nets[first] = spec.nets[d][first] if k == 0 else series_node(name, k)
+            nets[last] = spec.nets[d][last] if k == n - 1 else series_node(name, k + 1)
         seen[d] += 1
         out[r, c] = nets
     return out
@@ -348,13 +349,13 @@ def _plan_at(pattern: Pattern, spec: Spec, rules: Rules, cell: UnitCell, user: b
              ) -> _Plan:
     px = spec.array.pitch_um[0]
     rows, cols = pattern.shape
-    kind = spec.kind
+    routing = KINDS[spec.kind].routing
     nets = unit_nets(pattern, spec)
     rail = spec.dummy_net
-    tops = {n["top"] for n in spec.nets} if kind == "cap" else set()
-    bottoms = {n["bottom"] for n in spec.nets} if kind == "cap" else set()
+    tops = {n["top"] for n in spec.nets} if routing == "plates" else set()
+    bottoms = {n["bottom"] for n in spec.nets} if routing == "plates" else set()
     # the top plates strapped in their rows: one top net that no bottom plate or dummy shares
-    strap = (kind == "cap" and not user and cell.strap_y is not None and len(tops) == 1
+    strap = (routing == "plates" and not user and cell.strap_y is not None and len(tops) == 1
              and not tops & (bottoms | {rail}))
     top_net = next(iter(tops)) if strap else None
     spine_cols = _spine_columns(pattern) if not user and cell.spine is not None else {}
@@ -386,7 +387,7 @@ def _plan_at(pattern: Pattern, spec: Spec, rules: Rules, cell: UnitCell, user: b
     for (r, c), tnets in sorted(nets.items()):
         d = int(pattern.ids[r, c])
         x, y = c * px, -r * spec.array.pitch_um[1]
-        flip = kind == "mos" and int(pattern.orient[r, c]) < 0
+        flip = KINDS[spec.kind].fingers and int(pattern.orient[r, c]) < 0
         if d == DUMMY:
             pads = _abs_pads(cell, tuple(tnets), x, 0.0, flip, True)
             dummy_taps.append(Tap(rail, (r, c), DUMMY_DEVICE, "tie", pads))
@@ -427,7 +428,7 @@ def _plan_at(pattern: Pattern, spec: Spec, rules: Rules, cell: UnitCell, user: b
     tracks: dict[int, int] = defaultdict(int)
     for p in pieces:
         tracks[p.channel] = max(tracks[p.channel], p.track + 1)
-    mode = ("strap" if strap else "channel") if kind == "cap" else kind
+    mode = ("strap" if strap else "channel") if routing == "plates" else routing
     return _Plan(ends, pieces, dict(tracks), strap_rows, ring, spines, dummy_taps, top_net,
                  order, matched, mode)
 
@@ -439,9 +440,10 @@ def _choose_exits(ends: list[_End], spec: Spec, rows: int,
     as it can be; a series resistor's link lands both its ends in one channel."""
     for e in ends:
         e.chosen = e.exits[0]
-    if spec.kind == "cap":
+    routing = KINDS[spec.kind].routing
+    if routing == "plates":
         _cap_exits([e for e in ends if len(e.exits) > 1], rows)
-    elif spec.kind == "res":
+    elif routing == "chains":
         _res_exits(ends, spec, rows)
 
 
@@ -534,7 +536,7 @@ def _pieces(ends: list[_End], spec: Spec, rows: int, cols: int, px: float, rail:
             matched: list[tuple[str, ...]], top_net: str | None = None) -> list[_Piece]:
     """Track pieces per channel and net, by the kind's rule for each net (the strapped
     top plates' net, ``top_net``, has its trunk on the left)."""
-    kind = spec.kind
+    routing = KINDS[spec.kind].routing
     inner = {series_node(d, i) for d, n, j in zip(spec.devices, spec.counts, spec.joins,
                                                    strict=True) if j == "series"
              for i in range(1, n)}
@@ -579,11 +581,11 @@ def _pieces(ends: list[_End], spec: Spec, rows: int, cols: int, px: float, rail:
             else:
                 pieces.append(_Piece(net, ch, xs, lo, _INF))
             continue
-        if kind == "mos":
+        if routing == "rows":
             pieces.append(_Piece(net, ch, xs, -_INF, _INF, full=True))
-        elif kind == "cap" and net == top_net:
+        elif routing == "plates" and net == top_net:
             pieces.append(_Piece(net, ch, xs, -_INF, hi))
-        elif kind == "cap":
+        elif routing == "plates":
             pieces.append(_Piece(net, ch, xs, lo, _INF))
         elif net in inner and len(xs) == 2 and channels_of[net] == 1:
             pieces.append(_Piece(net, ch, xs, lo, hi))
@@ -591,7 +593,7 @@ def _pieces(ends: list[_End], spec: Spec, rows: int, cols: int, px: float, rail:
             pieces.append(_Piece(net, ch, xs, -_INF, hi))
         else:
             pieces.append(_Piece(net, ch, xs, lo, _INF))
-    if kind == "mos":
+    if routing == "rows":
         # a matched net takes a track wherever its partners do (equal length and vias)
         by_ch: dict[int, set[str]] = defaultdict(set)
         for p in pieces:
@@ -667,7 +669,7 @@ def _assign_tracks(pieces: list[_Piece], ends: list[_End], spec: Spec, rules: Ru
     pairs, bigger = _base_order(matched, spec)
     trunk_order: list[str] = []
     flips: dict[int, bool] = {}
-    if spec.kind == "mos":
+    if KINDS[spec.kind].routing == "rows":
         flips = _balance_flips(by_ch, ends_by_ch, pairs, bigger, net_order)
         every = {p.net for p in pieces if p.full}
         trunk_order = _mos_order(every, pairs, bigger, sorted(every, key=lambda n: net_order[n]),
@@ -1007,7 +1009,7 @@ def route(pattern: Pattern, spec: Spec, rules: Rules | None = None,
     _equalise(w, plan, spec)
 
     # diffusion joins, labels, taps
-    if spec.kind == "mos" and cell.diffusion is not None:
+    if KINDS[spec.kind].fingers and cell.diffusion is not None:
         _diffusion_joins(pattern, spec, cell, unit_nets(pattern, spec), w)
     w.vias = vias
     for e in plan.ends:
@@ -1069,7 +1071,7 @@ def _local_nets(spec: Spec) -> set[str]:
 def _equalise(w: Wiring, plan: _Plan, spec: Spec) -> None:
     """Lengthen the trunks of the shorter of two matched MOS nets with equal unit counts
     to the other's wire length."""
-    if spec.kind != "mos":
+    if KINDS[spec.kind].routing != "rows":
         return
     units: dict[str, int] = defaultdict(int)
     for e in plan.ends:

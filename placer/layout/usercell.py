@@ -19,7 +19,7 @@ from pathlib import Path
 from typing import Any
 
 from placer.io.spec import Spec
-from placer.kinds import KINDS_INFO
+from placer.kinds import KINDS
 from placer.layout.cells import Rect, Rules, TemplateError, UnitCell, down_only, snap
 from placer.layout.layers import LayerMap
 
@@ -88,7 +88,7 @@ def load_user_cell(path: Path, name: str | None, spec: Spec, rules: Rules,
     by_layer = {role: layers[role] for role in ("metal1", "metal2")}
     polys = {role: [p for p in flat.polygons if (p.layer, p.datatype) == ld]
              for role, ld in by_layer.items()}
-    wanted = KINDS_INFO[spec.kind].drawn
+    wanted = KINDS[spec.kind].drawn
     found: dict[str, tuple[str, float, float]] = {}
     placed = gcell.copy(gcell.name)
     for lab in gcell.labels:

@@ -34,7 +34,7 @@ from collections import defaultdict
 import numpy as np
 
 from placer.io.spec import ElectricalSpec, Spec
-from placer.kinds import series_node
+from placer.kinds import KINDS, series_node
 from placer.layout.parasitics import Parasitics, effective_resistances, node_voltages
 from placer.model.budget import WiringEffect
 
@@ -43,11 +43,8 @@ __all__ = ["WiringEffect", "wiring_effect"]
 
 def wiring_effect(spec: Spec, par: Parasitics, e: ElectricalSpec) -> WiringEffect:
     """The wiring term of every device of ``spec`` (see the module's rules)."""
-    if spec.kind == "mos":
-        return _mos(spec, par, e)
-    if spec.kind == "res":
-        return _res(spec, par, e)
-    return _cap(spec, par, e)
+    term = {"current": _mos, "resistance": _res, "capacitance": _cap}
+    return term[KINDS[spec.kind].quantity](spec, par, e)
 
 
 def _no_resistance(spec: Spec) -> bool:

@@ -34,6 +34,7 @@ from numpy.typing import NDArray
 from placer.errors import SpecError
 from placer.io.pattern import Pattern, unit_positions
 from placer.io.spec import ElectricalSpec, Spec
+from placer.kinds import KINDS
 from placer.model import variation
 from placer.model.grade import Grade
 
@@ -267,12 +268,8 @@ def check_electrical(spec: Spec) -> ElectricalSpec:
     """The spec's [electrical] table, or a one-line error naming what is missing."""
     e = spec.electrical
     if e is None:
-        keys = {"mos": "vov_v (V) or gm_id_per_v (1/V), lambda_per_v (1/V), [electrical.vds_v] "
-                       "(V per device)",
-                "cap": "termination (device name or \"none\")",
-                "res": "reference (device name; optional)"}[spec.kind]
         raise SpecError(f"{spec.source}: an electrical budget needs an [electrical] table with "
-                        f"{keys}")
+                        f"{KINDS[spec.kind].electrical_needs}")
     return e
 
 
@@ -282,7 +279,7 @@ def budget(pattern: Pattern, spec: Spec, grade: Grade, wiring: WiringEffect | No
     with the ``wiring`` term of its routed block (:func:`placer.layout.block.wiring_of`),
     that term too."""
     e = check_electrical(spec)
-    if spec.kind == "cap":
+    if KINDS[spec.kind].budget == "dac":
         return _dac_budget(pattern, spec, e, wiring)
     return _ratio_budget(pattern, spec, grade, e, wiring)
 
@@ -297,7 +294,7 @@ def _pair(grade: Grade, a: str, b: str) -> Any:
 def _ratio_budget(pattern: Pattern, spec: Spec, grade: Grade, e: ElectricalSpec,
                   wiring: Any = None) -> MirrorBudget:
     ref = e.reference or spec.devices[0]
-    mos = spec.kind == "mos"
+    mos = KINDS[spec.kind].quantity == "current"      # a current: gm/ID, V_T and CLM terms
     area = {n: c * spec.unit.area_um2 for n, c in zip(spec.devices, spec.counts, strict=True)}
     count = dict(zip(spec.devices, spec.counts, strict=True))
     rng = np.random.default_rng(e.mc_seed)

@@ -17,6 +17,7 @@ from typing import Any
 from placer.errors import LimitError
 from placer.io.pattern import Pattern
 from placer.io.spec import Spec
+from placer.kinds import KINDS
 
 __all__ = ["LessonArrangement", "lesson_data", "render_page", "spec_title", "MAX_LESSON_UNITS"]
 
@@ -79,7 +80,7 @@ def _budget_data(spec: Spec) -> dict[str, Any] | None:
         return None
     names = list(spec.devices)
     count = dict(zip(names, spec.counts, strict=True))
-    if spec.kind == "cap":
+    if KINDS[spec.kind].budget == "dac":
         term = e.termination
         switched = [n for n in spec.budget_devices() if n != term]
         bits = sorted(switched, key=lambda n: (count[n], names.index(n)))
@@ -95,7 +96,7 @@ def _budget_data(spec: Spec) -> dict[str, Any] | None:
         if name == ref:
             continue
         line: dict[str, Any] = {"device": name, "pair": [names.index(name), names.index(ref)]}
-        if spec.kind == "mos":
+        if KINDS[spec.kind].quantity == "current":
             s_beta = float(variation.pelgrom_sigma(e.a_beta_pct_um, area[name], area[ref]))
             s_vt = float(variation.pelgrom_sigma(e.a_vt_mv_um, area[name], area[ref]))
             line["clm_pct"] = 100.0 * clm_error(e.lambda_per_v, e.vds_v[name], e.vds_v[ref])

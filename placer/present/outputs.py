@@ -1,26 +1,169 @@
-"""The files of each command's output set, written into a staged set
-(:class:`placer.io.staging.OutputSet`)."""
+"""The output set of each command, declared once: the files' names and how each is
+written into a staged set (:class:`placer.io.staging.OutputSet`), and the JSON reports.
+
+The command line only opens the set with these names, calls the writer and prints.
+"""
 
 from __future__ import annotations
 
-from placer.io.staging import OutputSet
-from placer.layout.block import Block, library
-from placer.layout.gdswrite import write_gds
-from placer.model.grade import Grade
-from placer.present.plot import save_preview
+from dataclasses import asdict
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
 
-__all__ = ["write_block"]
+from placer.io.pattern import format_pattern
+from placer.io.staging import OutputSet
+from placer.layout.block import Block, area_of, library
+from placer.layout.gdswrite import write_gds
+from placer.model.grade import Grade, grade_pattern
+from placer.present.plot import save_budget, save_preview
+from placer.present.report import json_text
+
+if TYPE_CHECKING:
+    from placer.io.handlayout import Recognised
+    from placer.io.spec import Spec
+    from placer.jobs.arrange import Arrangement
+    from placer.jobs.repair import RepairResult
+
+__all__ = ["write_block", "ARRANGE_FILES", "arrange_names", "write_arrangement",
+           "draw_names", "compare_names", "lesson_name", "repair_names", "write_repair",
+           "layout_report", "swap_lines"]
+
+#: Every file an arrange run may write (a --force run replaces them all, and only them).
+ARRANGE_FILES = ("pattern.txt", "report.json", "pattern.gds", "pattern.sp", "pattern.png",
+                 "pattern.svg", "budget.png", "candidate-*.txt", "candidate-*.png")
 
 
 def write_block(block: Block, grade: Grade, out: OutputSet, stem: str,
-          gradient: tuple[float, float] | None = None,
-          moved: tuple[tuple[int, int], ...] = ()) -> list[str]:
+                gradient: tuple[float, float] | None = None,
+                moved: tuple[tuple[int, int], ...] = ()) -> list[str]:
     """Stage ``<stem>.gds``, ``.png`` and ``.svg``; return the names written. ``moved``
     slots are outlined in the pictures."""
     lib = library(block)
-    names = [f"{stem}.gds", f"{stem}.png", f"{stem}.svg"]
+    names = draw_names(stem)
     write_gds(lib, out.path(names[0]))
     save_preview(block.pattern, block.spec.array.pitch_um, grade, block.spec.name,
                  [out.path(names[1]), out.path(names[2])], gradient=gradient,
                  cell_extent=block.cell.extent, moved=moved)
     return names
+
+
+# ----------------------------------------------------------------------------- arrange
+
+def arrange_names(spec: Spec, n_candidates: int) -> list[str]:
+    """The files of an arrange run of ``spec`` with ``n_candidates`` candidates."""
+    return ["pattern.txt", "report.json", "pattern.gds", "pattern.sp", "pattern.png",
+            "pattern.svg", *(["budget.png"] if spec.electrical is not None else []),
+            *(f"candidate-{i}.{x}" for i in range(1, n_candidates + 1) for x in ("txt", "png"))]
+
+
+def write_arrangement(out: OutputSet, result: Arrangement, block: Block, budget: Any, *,
+                      spec_path: Path, seed: int, time_limit_s: float) -> None:
+    """Stage every file of :func:`arrange_names` for ``result`` and its routed ``block``
+    (the block's spec is at the pitch its routing needs)."""
+    from placer.layout.netlist import netlist
+
+    spec = block.spec
+    header = [f"{spec.name}: {result.method}, core {result.core_shape[0]} x "
+              f"{result.core_shape[1]}, seed {seed}",
+              f"linear {result.keys.linear_um:.6g} um, quadratic "
+              f"{result.keys.quadratic_ppm:.6g} ppm, sigma "
+              f"{result.keys.sigma_ppm:.6g} ppm"]
+    out.write("pattern.txt", format_pattern(result.pattern, header))
+    for i, cand in enumerate(result.candidates, start=1):
+        out.write(f"candidate-{i}.txt", format_pattern(cand.pattern, [
+            f"{spec.name} candidate {i} ({cand.source}): systematic "
+            f"{cand.systematic_ppm:.6g} ppm, routing {cand.routing_um:.6g} um"
+            + (f", wiring {cand.wiring_ppm:.6g} ppm, block {cand.block_um2:.6g} um2"
+               if cand.wiring_ppm is not None else ""),
+            result.front_reference]))
+        save_preview(cand.pattern, spec.array.pitch_um, grade_pattern(cand.pattern, spec),
+                     f"{spec.name} candidate {i} ({cand.source}): routing "
+                     f"{cand.routing_um:.4g} um", [out.path(f"candidate-{i}.png")],
+                     cell_extent=block.cell.extent)
+    report = {"spec": str(spec_path), "name": spec.name, "seed": seed,
+              "time_limit_s": time_limit_s, **result.to_dict(),
+              "pattern": format_pattern(result.pattern),
+              "layout": layout_report(block),
+              "budget": asdict(budget) if budget is not None else None}
+    out.write("report.json", json_text(report) + "\n")
+    out.write("pattern.sp", netlist(spec, block.parasitics))
+    write_block(block, result.grade, out, "pattern")
+    if budget is not None:
+        save_budget(budget, spec.name, [out.path("budget.png")], devices=spec.devices)
+
+
+def layout_report(block: Block) -> dict[str, Any]:
+    """The routed block in the JSON reports: size, pitch, tracks, area, nets, parasitics."""
+    w = block.wiring
+    par = block.parasitics
+    return {"size_um": list(w.size_um), "pitch_um": list(block.spec.array.pitch_um),
+            "pitch_given": block.spec.array.pitch_given,
+            "channel_tracks": w.channel_tracks, "tracks_per_row": list(w.tracks_per_row),
+            "area": asdict(area_of(block)),
+            "nets": [asdict(n) for n in w.nets],
+            "parasitics": {
+                "taps": [{"net": t.net, "slot": list(t.slot), "device": t.device,
+                          "terminal": t.terminal, "r_to_pin_ohm": t.r_to_pin_ohm}
+                         for t in par.taps],
+                "couplings": [asdict(c) for c in par.couplings]}}
+
+
+# ----------------------------------------------------------------------------- the others
+
+def draw_names(stem: str) -> list[str]:
+    """The files of a drawing named ``stem``: GDSII and the two previews."""
+    return [f"{stem}.gds", f"{stem}.png", f"{stem}.svg"]
+
+
+def compare_names(spec: Spec) -> list[str]:
+    """The comparison sheet of ``spec``: PNG and PDF."""
+    return [f"{spec.name}-compare.png", f"{spec.name}-compare.pdf"]
+
+
+def lesson_name(spec: Spec) -> str:
+    """The lesson page of ``spec``."""
+    return f"{spec.name}-lesson.html"
+
+
+def repair_names(drawn: bool) -> list[str]:
+    """The files of a repair (``drawn``: the repaired GDSII too)."""
+    return ["repaired.txt", *(["repaired.gds"] if drawn else []), "repaired.png",
+            "repaired.svg", "repair.json"]
+
+
+def swap_lines(result: RepairResult, spec: Spec, rec: Recognised) -> list[str]:
+    """One line per swap, each unit by row, column and its position in the file's frame."""
+    px, py = spec.array.pitch_um
+    ox, oy = rec.origin_um
+
+    def where(slot: tuple[int, int]) -> str:
+        r, c = slot
+        return f"row {r}, col {c} ({ox + c * px:.4g}, {oy - r * py:.4g} um)"
+
+    return [f"  {i}. swap {sw.first_device} at {where(sw.first)} with "
+            f"{sw.second_device} at {where(sw.second)}"
+            for i, sw in enumerate(result.swaps, start=1)]
+
+
+def write_repair(out: OutputSet, result: RepairResult, spec: Spec, block: Block | None,
+                 layout: Path, rec: Recognised) -> None:
+    """Stage every file of :func:`repair_names`: the repaired pattern (its swaps in the
+    header), its drawing (GDSII when ``block`` is given, else the previews alone) and
+    repair.json."""
+    grade = grade_pattern(result.pattern, spec)
+    header = [f"{spec.name} repaired from {layout.name} with {len(result.swaps)} swap(s)",
+              *(ln.strip() for ln in swap_lines(result, spec, rec))]
+    out.write("repaired.txt", format_pattern(result.pattern, header))
+    moved = tuple(sorted({s for sw in result.swaps for s in (sw.first, sw.second)}))
+    if block is not None:
+        write_block(block, grade, out, "repaired", moved=moved)
+    else:
+        save_preview(result.pattern, spec.array.pitch_um, grade, spec.name,
+                     [out.path("repaired.png"), out.path("repaired.svg")], moved=moved)
+    report = {"layout": str(layout), "recognised": rec.notes,
+              "swaps": [asdict(sw) for sw in result.swaps], "before": asdict(result.before),
+              "after": asdict(result.after), "target_linear_um": result.target_linear_um,
+              "limited": result.limited or None,
+              "reached_target": result.reached_target, "grade": grade.to_dict(),
+              "layout_nets": layout_report(block) if block is not None else None}
+    out.write("repair.json", json_text(report) + "\n")

@@ -5,6 +5,7 @@ from __future__ import annotations
 from typing import TYPE_CHECKING, Any
 
 from placer.io.pattern import format_pattern
+from placer.kinds import KINDS
 from placer.model.grade import Grade
 
 if TYPE_CHECKING:
@@ -12,7 +13,7 @@ if TYPE_CHECKING:
     from placer.jobs.arrange import Arrangement
 
 __all__ = ["format_grade", "format_table", "format_arrangement", "format_budget",
-           "format_nets", "CAUTION"]
+           "format_nets", "grade_report", "format_sensitivity", "CAUTION"]
 
 CAUTION = ("Figures are model estimates under the assumptions above; confirm with the "
            "foundry's matching guidelines, extraction and the process's mismatch data.")
@@ -201,7 +202,7 @@ def format_arrangement(result: Arrangement, spec: Spec) -> str:
     out.append(f"Routing: {r.total_tracks} row tracks, spanning trees {r.total_tree_um:.4g} um"
                f"{breaks}.")
     out.append("")
-    mos = spec.kind == "mos"
+    mos = KINDS[spec.kind].fingers                   # diffusion breaks are counted
     rows = []
     label = "this result" if result.method not in result.baselines else result.method
     for name, b in [(label, k), *((n, v) for n, v in result.baselines.items()
@@ -246,7 +247,8 @@ def format_budget(b: Any) -> str:
             f"{_f(b.mc_dnl_mean_lsb)}, sigma {_f(b.mc_dnl_sigma_lsb)} LSB",
             *_dac_wiring(b),
         ])
-    mos = b.kind == "mos"
+    kind = KINDS[b.kind]
+    mos = kind.quantity == "current"                 # gm/ID and channel-length modulation
     if not b.lines:
         return (f"Electrical budget: {b.reference} is the only device it covers, so there is no "
                 "ratio to budget.")
@@ -258,13 +260,13 @@ def format_budget(b: Any) -> str:
                      *([_f(ln.wiring_pct or 0.0)] if wired else []),
                      _f(ln.random_sigma_pct), f"{ln.total_low_pct:+.3g} .. "
                      f"{ln.total_high_pct:+.3g}", f"{100 * ln.within_tolerance:.1f}%"])
-    head = ["output" if mos else "resistor", "ratio", "grad %", "quad %",
+    head = [kind.device_label, "ratio", "grad %", "quad %",
             *(["clm %"] if mos else []), *(["wire %"] if wired else []),
             "sigma %", f"total at {b.k_sigma:g} sigma %", f"within +-{b.tolerance_pct:g}%"]
     out = [f"Electrical budget against {b.reference} (error of I/I_{b.reference}, % of the "
            "ideal ratio; grad = linear gradient in its worst direction, quad = curvature, "
            f"clm = channel-length modulation; gradient: {b.assumptions['gradient']})"
-           if b.kind == "mos" else
+           if mos else
            f"Electrical budget against {b.reference} (ratio error of R/R_{b.reference}, %; "
            f"gradient: {b.assumptions['gradient']})",
            format_table(head, rows)]
@@ -299,3 +301,28 @@ def format_nets(wiring: Any, max_rows: int = 40, area: Any = None) -> str:
     if len(wiring.nets) > max_rows:
         out.append(f"... {len(wiring.nets) - max_rows} more nets in report.json")
     return "\n".join(out)
+
+
+def grade_report(grade: Grade, budget: Any, rec: Any, spec: Spec, worst_pair: str,
+                 sens: list[Any]) -> dict[str, Any]:
+    """``grade --json``: every figure, the budget, what was recognised in the input and
+    each unit's share of the worst pair's linear error."""
+    from dataclasses import asdict
+
+    out = grade.to_dict()
+    out["budget"] = asdict(budget) if budget is not None else None
+    out["recognised"] = {"format": rec.fmt, "notes": rec.notes,
+                         "pitch_um": list(spec.array.pitch_um)}
+    out["sensitivity"] = {"pair": worst_pair, "units": [asdict(u) for u in sens]}
+    return out
+
+
+def format_sensitivity(sens: list[Any], worst_pair: str, rec: Any) -> str:
+    """The three units adding most to the worst pair, at their positions in the file's own
+    frame (to find them in the layout)."""
+    frame = {"gds": " (x, y in the GDSII's coordinates)",
+             "csv": " (x, y in the CSV's coordinates)"}.get(rec.fmt, "")
+    top = ", ".join(f"{u.device} at row {u.row} col {u.col} "
+                    f"({u.x_um + rec.origin_um[0]:.4g}, {u.y_um + rec.origin_um[1]:.4g}"
+                    f" um): {u.contribution_ppm:+.3g} ppm" for u in sens[:3])
+    return f"Units adding most to {worst_pair}{frame}: {top}"
