@@ -9,6 +9,7 @@ from numpy.typing import NDArray
 
 from placer.io.pattern import Pattern, unit_positions
 from placer.io.spec import GradientSpec, Spec
+from placer.model.exact_moments import moment_differences
 from placer.model.grade import Grade
 from placer.search import Keys, Problem, keys_of, search
 
@@ -124,23 +125,17 @@ def _batch_worst(prob: Problem, sums: NDArray[np.int64], pairs: NDArray[np.int64
     """Worst-pair linear (um) and quadratic (ppm) of a batch of states, (K,) each.
 
     ``sums`` (K, D, 6) holds each device's sums of 1, u, v, uu, uv, vv in doubled
-    offsets; the formulas are placer.model.exact_moments' (about the centre of the device units).
+    offsets; the kernel is :func:`placer.model.exact_moments.moment_differences` (about the
+    centre of the device units).
     """
     hx, hy = prob.pitch_um[0] / 2, prob.pitch_um[1] / 2
-    a, b = pairs[:, 0], pairs[:, 1]
-    sa, sb = sums[:, a, :].astype(float), sums[:, b, :].astype(float)
-    na, nb = sa[..., 0], sb[..., 0]
-    du = nb * sa[..., 1] - na * sb[..., 1]
-    dv = nb * sa[..., 2] - na * sb[..., 2]
-    den = na * nb
-    lin = np.sqrt((hx * du) ** 2 + (hy * dv) ** 2) / den
-    tu, tv = float(total[0]), float(total[1])
-    qxx = n_units * (nb * sa[..., 3] - na * sb[..., 3]) - 2 * du * tu
-    qxy = n_units * (nb * sa[..., 4] - na * sb[..., 4]) - (du * tv + dv * tu)
-    qyy = n_units * (nb * sa[..., 5] - na * sb[..., 5]) - 2 * dv * tv
+    # float64: a batch of thousands of states; the integer sums stay exact below 2^53
+    d1, q, nn, _ = moment_differences(sums.astype(float), pairs,
+                                      np.array([n_units, total[0], total[1]], dtype=float))
+    lin = np.sqrt((hx * d1[..., 0]) ** 2 + (hy * d1[..., 1]) ** 2) / nn
     quad = (0.5 * prob.quadratic_ppm_per_um2
-            * np.sqrt((hx * hx * qxx) ** 2 + 2 * (hx * hy * qxy) ** 2 + (hy * hy * qyy) ** 2)
-            / (n_units * den))
+            * np.sqrt((hx * hx * q[..., 0]) ** 2 + 2 * (hx * hy * q[..., 1]) ** 2
+                      + (hy * hy * q[..., 2]) ** 2) / (n_units * nn))
     return lin.max(-1), quad.max(-1)
 
 

@@ -1,0 +1,65 @@
+"""The lesson page's formulas held to Python's by golden vectors, without a browser.
+
+tests/golden/page_vectors.json holds cases of every kind (mirror, resistor ladder,
+capacitor DAC with both line fits) under both correlation kernels: the page's data and
+the figures placer's Python computes for them. Two checks share the file:
+
+* the vectors are still what Python computes (a formula changed on purpose needs the
+  vectors written again: ``python tests/golden/make_page_vectors.py``);
+* the page's own formulas (lesson.js's model and budget sections, run in Node, no
+  browser and no page) give the same figures.
+
+The browser tests (tests/test_lesson.py) check the same agreement on the drawn page.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import subprocess
+
+import pytest
+
+from tests.golden.make_page_vectors import OUT, vectors
+from tests.helpers import ROOT
+
+SCRIPT = ROOT / "placer" / "present" / "web" / "lesson.js"
+
+
+def _stored() -> list[dict]:
+    return json.loads(OUT.read_text())["vectors"]
+
+
+def test_the_vectors_cover_every_kind_both_kernels_and_both_fits():
+    names = {v["name"] for v in _stored()}
+    assert {v["kind"] for v in _stored()} == {"mos", "res", "cap"}
+    assert {n.split("/")[1] for n in names} == {"exponential", "gaussian"}
+    assert {"dac_best_fit/gaussian", "dac_endpoint/exponential"} <= names
+
+
+def test_the_vectors_are_what_python_computes_now():
+    now = {v["name"]: v["figures"] for v in vectors()}
+    for v in _stored():
+        assert set(now[v["name"]]) == set(v["figures"]), v["name"]
+        for key, value in v["figures"].items():
+            assert now[v["name"]][key] == pytest.approx(value, rel=1e-12, abs=1e-12), \
+                (v["name"], key)
+
+
+def test_the_pages_formulas_give_the_vectors_figures_without_a_browser():
+    node = shutil.which("node") or shutil.which("nodejs")
+    if node is None:
+        if os.environ.get("PLACER_REQUIRE_NODE") == "1":
+            pytest.fail("Node.js is required here (PLACER_REQUIRE_NODE=1)")
+        pytest.skip("no Node.js here (apt-get install nodejs); CI requires it")
+    res = subprocess.run([node, str(ROOT / "tests" / "page_model.js"), str(SCRIPT), str(OUT)],
+                         capture_output=True, text=True, timeout=120)
+    assert res.returncode == 0, res.stderr
+    page = {v["name"]: v["figures"] for v in json.loads(res.stdout)}
+    for v in _stored():
+        shown = page[v["name"]]
+        assert set(shown) == set(v["figures"]), v["name"]
+        for key, value in v["figures"].items():
+            # the page sums in float where Python keeps exact integers: agree to rounding
+            assert shown[key] == pytest.approx(value, rel=1e-9, abs=1e-9), (v["name"], key)
