@@ -1,8 +1,8 @@
 """The ``placer`` command's first steps, before any heavy import.
 
-An interrupt during start-up ends quietly (nothing has been written yet), and the
-environment placer reads is checked here, so a bad value ends in one line instead of a
-traceback from a library that reads it while importing.
+An interrupt (SIGINT or SIGTERM) during start-up ends quietly (nothing has been written
+yet), and the environment placer reads is checked here, so a bad value ends in one line
+instead of a traceback from a library that reads it while importing.
 """
 
 from __future__ import annotations
@@ -45,6 +45,7 @@ def check_environment(env: dict[str, str] | os._Environ[str] = os.environ) -> st
 def main() -> None:
     """Entry point of the ``placer`` command."""
     signal.signal(signal.SIGINT, _quiet_exit)
+    signal.signal(signal.SIGTERM, _quiet_exit)      # SIGTERM ends a start-up as Ctrl-C does
     problem = check_environment()
     if problem is not None:
         sys.stderr.write(f"Error: {problem}\n")

@@ -100,6 +100,8 @@ def _user_errors(func: F) -> F:
         # (the API, a test runner) leaves the caller's handlers as they were
         before = {sig: signal.getsignal(sig) for sig in (signal.SIGINT, signal.SIGTERM)}
         signal.signal(signal.SIGINT, signal.default_int_handler)
+        _sigterm_as_interrupt()        # SIGTERM ends every command as Ctrl-C does
+        OutputSet.last_committed = None
         try:
             # overflow and 0/0 inside a model are handled where they matter (figures are
             # checked finite before they are written); numpy's warnings are not for users
@@ -119,7 +121,10 @@ def _user_errors(func: F) -> F:
             except OSError:
                 pass
             if err.errno != errno.EPIPE:           # a reader that stopped: be quiet
-                click.echo(f"Error: cannot write the output: {err.strerror or err}", err=True)
+                done = OutputSet.last_committed
+                kept = (f" (the files in {done} are complete)" if done is not None else "")
+                click.echo(f"Error: cannot write the output: {err.strerror or err}{kept}",
+                           err=True)
             sys.exit(1)
         except KeyboardInterrupt:
             _interrupted()
@@ -142,8 +147,10 @@ def _user_errors(func: F) -> F:
 
 def _interrupted() -> NoReturn:
     """End an interrupted command: the message and exit code 130 (the command's own
-    clean-up has run by now: its outputs are complete or removed)."""
-    click.echo("Interrupted; nothing written.", err=True)
+    clean-up has run by now: its outputs are complete or removed, never half)."""
+    done = OutputSet.last_committed
+    click.echo(f"Interrupted; the outputs in {done} are complete." if done is not None
+               else "Interrupted; nothing written.", err=True)
     sys.exit(130)
 
 
@@ -304,8 +311,9 @@ def grade(layout: Path, spec_path: Path | None, as_json: bool, budget_plot: Path
 
 
 def _sigterm_as_interrupt() -> None:
-    """Let SIGTERM stop a search the way Ctrl-C does, so the best result is kept (until
-    the command ends: :func:`_user_errors` puts the handler before it back)."""
+    """Let SIGTERM stop a command the way Ctrl-C does (arrange keeps the best result so
+    far; the others write nothing), until the command ends: :func:`_user_errors` puts
+    the handler before it back."""
     def handler(signum: int, frame: object) -> None:
         raise KeyboardInterrupt
 
@@ -402,7 +410,6 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
     (budget.png).
     """
     from placer.layout import block as drawing
-    _sigterm_as_interrupt()          # from here SIGTERM ends the command as Ctrl-C does
     spec = load_spec(spec_path)
     spec, tools = _tools(spec, template_path, layers_path, unit_gds, unit_cell)
     names = outputs.arrange_names(spec, n_candidates)
@@ -497,6 +504,8 @@ def compare(spec_path: Path, out_dir: Path, seed: int, time_limit: float, paper:
     names = outputs.compare_names(spec)
     with OutputSet(out_dir, names, force) as out:
         best = run_arrange(spec, seed=seed, time_limit_s=time_limit)
+        if best.stopped == "interrupted":
+            raise KeyboardInterrupt            # a comparison of a cut search: none at all
         spec = best.spec or spec
         rows, cols = best.core_shape
         fingers = KINDS[spec.kind].fingers
@@ -559,6 +568,8 @@ def lesson(spec_path: Path, out_dir: Path, pattern_path: Path | None, seed: int,
     name = outputs.lesson_name(spec)
     with OutputSet(out_dir, [name], force) as out:
         best = run_arrange(spec, seed=seed, time_limit_s=time_limit)
+        if best.stopped == "interrupted":
+            raise KeyboardInterrupt
         spec = best.spec or spec
         rows, cols = best.core_shape
         notes = {"clustered": "each device's units side by side",

@@ -752,3 +752,58 @@ def test_grade_known_direction_along_the_centroid_gap():
                           "s.toml")
         g = grade_pattern(parse_pattern("A A\nB B").reordered(spec.devices), spec)
         assert g.pairs[0].known_direction_ppm == pytest.approx(want, abs=1e-12)
+
+
+# ------------------------------------------- formula lines each with a test that fails
+def _pair_spec(extra: str) -> str:
+    return ("[devices]\nMR = 2\nMA = 2\n[array]\nrows = 1\n[unit]\nwidth_um = 2.0\n"
+            "length_um = 1.0\n" + extra)
+
+
+def test_random_sigma_is_the_root_sum_square_of_the_correlated_and_white_parts():
+    """Independent random parts add in variance (root-sum-square), not in sigma. Hand
+    calculation: A B at 2 um (pitch [2, 2]); the correlated field gives each unit variance
+    1 and the pair covariance exp(-2/6), so sigma = 300 sqrt(2 - 2 exp(-1/3)) ppm; the
+    area law, A = 1 %um over 2 um2 each, gives 1e4 x 1 / sqrt(2) ppm."""
+    from math import exp, hypot, sqrt
+
+    spec = parse_spec("[devices]\nA = 1\nB = 1\n[array]\nrows = 1\npitch_um = [2.0, 2.0]\n"
+                      "[unit]\nwidth_um = 2.0\nlength_um = 1.0\n[mismatch]\n"
+                      "a_param_pct_um = 1.0\n[correlated]\nsigma_ppm = 300.0\nlength_um = 6.0\n"
+                      'kernel = "exponential"\n')
+    pair = grade_pattern(parse_pattern("A B"), spec).pairs[0]
+    corr = 300.0 * sqrt(2.0 - 2.0 * exp(-2.0 / 6.0))
+    white = 1e4 * 1.0 / sqrt(2.0)
+    assert pair.correlated_sigma_ppm == pytest.approx(corr, rel=1e-9)
+    assert pair.white_sigma_ppm == pytest.approx(white, rel=1e-12)
+    assert pair.random_sigma_ppm == pytest.approx(hypot(corr, white), rel=1e-9)
+
+
+@pytest.mark.parametrize("vov", [0.1, 0.4])
+def test_mirror_random_part_weighs_the_threshold_by_gm_over_id(vov):
+    """sigma(dI/I) = sqrt(sigma(dbeta/beta)^2 + (gm/ID sigma(dVT))^2) with gm/ID = 2/V_ov
+    (square law; Pelgrom et al. 1989 for the area law). Two devices of 4 um2, A_VT = 5 mV um,
+    A_beta = 1 %um: sigma(dVT) = 2.5 mV, sigma(dbeta/beta) = 0.5 %; at V_ov = 0.1 V the
+    threshold term is 20 x 2.5 mV = 5 %, at 0.4 V it is 1.25 % -- two operating points,
+    so A_VT and A_beta cannot stand in for each other unnoticed."""
+    from math import hypot
+
+    spec = parse_spec(_pair_spec(f'[electrical]\nreference = "MR"\nvov_v = {vov}\n'
+                                 "lambda_per_v = 0.0\na_vt_mv_um = 5.0\na_beta_pct_um = 1.0\n"
+                                 "[electrical.vds_v]\nMR = 0.5\nMA = 0.5\n"
+                                 "[correlated]\nsigma_ppm = 0.0\n"))
+    pattern = parse_pattern("MR MA MA MR")
+    (line,) = budget(pattern, spec, grade_pattern(pattern, spec)).lines
+    expected = hypot(0.5, (2.0 / vov) * 2.5e-3 * 100.0)          # in %
+    assert line.random_sigma_pct == pytest.approx(expected, rel=1e-9)
+
+
+def test_channel_length_modulation_keeps_its_sign_when_the_output_sits_lower():
+    """(1 + lambda V_out)/(1 + lambda V_ref) - 1 is negative for V_out < V_ref: 0.1/V,
+    0.5 V against 0.9 V gives 1.05/1.09 - 1 = -3.6697 %."""
+    spec = parse_spec(_pair_spec('[electrical]\nreference = "MR"\nvov_v = 0.2\n'
+                                 "lambda_per_v = 0.1\n[electrical.vds_v]\nMR = 0.9\nMA = 0.5\n"))
+    pattern = parse_pattern("MR MA MA MR")
+    (line,) = budget(pattern, spec, grade_pattern(pattern, spec)).lines
+    assert line.clm_pct == pytest.approx(100.0 * (1.05 / 1.09 - 1.0), rel=1e-12)
+    assert line.clm_pct < 0

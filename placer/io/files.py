@@ -3,6 +3,8 @@ text, and TOML whose nesting is measured before the parser sees it."""
 
 from __future__ import annotations
 
+import os
+import stat
 from pathlib import Path
 
 from placer.errors import LimitError, PlacerError
@@ -12,15 +14,47 @@ __all__ = ["read_limited", "read_text", "toml_depth"]
 
 
 def read_limited(path: Path, limit: int, what: str, error: type[PlacerError]) -> bytes:
-    """The bytes of a file of at most ``limit`` bytes (checked before reading), or
-    ``error`` (``LimitError`` past the limit) with one line naming the file."""
+    """The bytes of a regular file of at most ``limit`` bytes, or one line naming it.
+
+    The file is opened without waiting (a pipe with no writer does not hang) and checked
+    to be a regular file before anything is read: a device (``/dev/zero``), a pipe or a
+    folder is refused, so no input is read without bound. The size is checked before
+    reading, and at most ``limit`` + 1 bytes are ever read (a file growing meanwhile).
+
+    Raises
+    ------
+    LimitError
+        Past the limit.
+    PlacerError
+        ``error`` when the file cannot be read or is not a regular file.
+    """
     try:
-        size = path.stat().st_size
-        if size > limit:
-            raise LimitError(f"{path}: file is {size} bytes, the limit for a {what} is {limit}")
-        return path.read_bytes()
+        fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
     except OSError as err:
         raise error(f"{path}: cannot read: {err.strerror or err}") from err
+    try:
+        st = os.fstat(fd)
+        if not stat.S_ISREG(st.st_mode):
+            raise error(f"{path}: not a regular file (a device, pipe or folder); save the "
+                        f"{what} to a file and give that")
+        if st.st_size > limit:
+            raise LimitError(f"{path}: file is {st.st_size} bytes, the limit for a {what} is "
+                             f"{limit}")
+        chunks, got = [], 0
+        while got <= limit:
+            chunk = os.read(fd, min(1 << 20, limit + 1 - got))
+            if not chunk:
+                break
+            chunks.append(chunk)
+            got += len(chunk)
+        if got > limit:
+            raise LimitError(f"{path}: file is more than {limit} bytes, the limit for a "
+                             f"{what}")
+        return b"".join(chunks)
+    except OSError as err:
+        raise error(f"{path}: cannot read: {err.strerror or err}") from err
+    finally:
+        os.close(fd)
 
 
 def read_text(path: Path, what: str, error: type[PlacerError]) -> str:

@@ -29,6 +29,8 @@ _MAX_STRUCTURES = 100_000
 _MAX_ELEMENTS = 5_000_000
 #: References after expanding arrays, over the whole file.
 MAX_REFS = 400_000
+#: Text elements over the whole file (device labels are at most one per unit).
+MAX_TEXTS = 262_144
 #: Sane database units: 1 pm to 1 mm per database unit, user unit 1 pm to 1 m.
 _DB_M = (1e-12, 1e-3)
 _USER_M = (1e-12, 1.0)
@@ -143,6 +145,7 @@ def parse_stream(data: bytes, source: str) -> StreamLibrary:
     current: Structure | None = None
     elements = 0
     total_refs = 0
+    texts = 0
     while True:
         rtype, dtype, body, at = record()
         if rtype == _LIBNAME:
@@ -185,6 +188,11 @@ def parse_stream(data: bytes, source: str) -> StreamLibrary:
             if elements > _MAX_ELEMENTS:
                 raise LayoutError(f"{source}: more than {_MAX_ELEMENTS} elements, the limit")
             before = len(current.refs)
+            if rtype == _TEXT:
+                texts += 1
+                if texts > MAX_TEXTS:
+                    raise LayoutError(f"{source}: more than {MAX_TEXTS} text labels, the "
+                                      "limit (a unit array needs one per unit at most)")
             _element(rtype, current, record, ascii_of, ints, fail, db_in_user, source)
             total_refs += len(current.refs) - before
             if total_refs > MAX_REFS:

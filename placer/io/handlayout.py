@@ -8,7 +8,9 @@ inferred from them, and what was recognised (and skipped, and why) is reported.
 from __future__ import annotations
 
 import math
+import re
 from collections import Counter
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -16,7 +18,7 @@ import numpy as np
 
 from placer.errors import LimitError, shown
 from placer.io.files import read_limited
-from placer.io.gdsread import LayoutError, StreamLibrary, is_gdsii, parse_stream
+from placer.io.gdsread import LayoutError, StreamLibrary, Structure, is_gdsii, parse_stream
 from placer.io.pattern import DUMMY, EMPTY, Pattern, parse_pattern
 from placer.io.spec import NAME_RE, Spec
 from placer.kinds import KINDS
@@ -107,10 +109,12 @@ def read_csv_units(text: str, source: str) -> list[Unit]:
 
     The first row may be a header naming the columns in any case and order (x_um or x,
     y_um or y, device or name, orientation); without one the columns are taken in that
-    order. Fields are separated by ',', ';' or a tab; device '.' is a dummy.
+    order. Fields are separated by ',', ';' or a tab; device '.' (or DUMMY, any case) is a
+    dummy; two device names that differ only by case are refused, as in pattern text.
     """
     units: list[Unit] = []
     cols: dict[str, int] | None = None
+    seen: dict[str, str] = {}                   # device names by their lower case
     for lineno, line in enumerate(text.removeprefix("\ufeff").splitlines(), start=1):
         s = line.strip()
         if not s or s.startswith("#"):
@@ -146,6 +150,8 @@ def read_csv_units(text: str, source: str) -> list[Unit]:
             raise LayoutError(f"{source}:{lineno}: coordinates must be finite and within "
                               f"1 m, got {x:g}, {y:g}")
         name = cells[cols["device"]]
+        if name.lower() == "dummy":
+            name = "."                          # a dummy by name, as a GDSII cell may be
         if name != "." and not NAME_RE.match(name):
             raise LayoutError(f"{source}:{lineno}: device {shown(name)} is not a name "
                               "(letter, then letters, digits, _) or '.' for a dummy")
@@ -154,6 +160,11 @@ def read_csv_units(text: str, source: str) -> list[Unit]:
         if mark_text not in ("", ">", "<"):
             raise LayoutError(f"{source}:{lineno}: orientation must be '>', '<' or empty, got "
                               f"{shown(mark_text[:10])}")
+        if name != ".":
+            other = seen.setdefault(name.lower(), name)
+            if other != name:
+                raise LayoutError(f"{source}:{lineno}: device {shown(name)} differs from "
+                                  f"{shown(other)} only by case; name a device one way")
         units.append(Unit(x, y, None if name == "." else name,
                           {"": 0, ">": 1, "<": -1}[mark_text]))
         if len(units) > MAX_SLOTS:
@@ -212,6 +223,7 @@ def gds_units(lib: StreamLibrary, source: str, *, cell: str | None,
                               or any(has_label(r.cell, depth + 1) for r in c.refs))
         return labelled[name]
 
+    _check_work(cells, top, has_label, set(mapping) | set(dummy_cells), boxes, source)
     placed: list[tuple[str, float, float, bool, float]] = []
     texts: list[tuple[str, float, float]] = []
     skipped_texts: Counter[tuple[int, int]] = Counter()
@@ -290,6 +302,51 @@ def gds_units(lib: StreamLibrary, source: str, *, cell: str | None,
         notes.append(f"skipped {k} labels on layer {layer}/{dtype} (labels are read on "
                      f"{label_layer[0]}/{label_layer[1]})")
     return _label_units(placed, texts, mapping, dummy_cells, mos, source, notes)
+
+
+def _check_work(cells: dict[str, Structure], top: str, has_label: Callable[[str], bool],
+                named: set[str], boxes: dict[str, tuple[float, float, float, float]],
+                source: str) -> None:
+    """Refuse, from the reference counts alone and before any instance is expanded, a
+    hierarchy the walk below would certainly find too large.
+
+    The walk descends into a placed cell unless it may be a unit: a cell that places
+    nothing, a named or dummy cell, or one whose subtree holds a label. So it visits at
+    least the references reached through cells it must descend into, and at least the
+    leaf cells among them are units: lower bounds, computed once per cell (each capped,
+    so a nested bomb's product never grows past the limit).
+    """
+    cap_visits, cap_units = 2 * MAX_SLOTS + 1, MAX_SLOTS + 1
+    memo: dict[str, tuple[int, int]] = {}
+
+    def bounds(name: str, depth: int) -> tuple[int, int]:
+        if name in memo:
+            return memo[name]
+        if depth > 64:
+            raise LayoutError(f"{source}: references nest deeper than 64 levels (a cycle?)")
+        visits = units = 0
+        for r in cells[name].refs:
+            child = cells[r.cell]
+            visits += 1
+            if not child.refs:
+                units += boxes.get(r.cell) is not None
+            elif not (r.cell in named or "DUMMY" in r.cell.upper() or has_label(r.cell)):
+                v, u = bounds(r.cell, depth + 1)        # certainly descended into
+                visits, units = visits + v, units + u
+            visits, units = min(visits, cap_visits), min(units, cap_units)
+            if visits >= cap_visits and units >= cap_units:
+                break
+        memo[name] = (visits, units)
+        return memo[name]
+
+    visits, units = bounds(top, 0)
+    if units > MAX_SLOTS:
+        raise LimitError(f"{source}: more than {MAX_SLOTS} unit cells, the limit "
+                         "(counted from the references before expanding them)")
+    if visits > 2 * MAX_SLOTS:
+        raise LimitError(f"{source}: the hierarchy places more than {2 * MAX_SLOTS} cells "
+                         "once flattened, the limit (counted from the references before "
+                         "expanding them)")
 
 
 def _full_boxes(lib: StreamLibrary, source: str) -> dict[str, tuple[float, float, float,
@@ -567,6 +624,9 @@ def read_layout(path: Path, *, spec: Spec | None = None, cell: str | None = None
         except UnicodeDecodeError as err:
             raise LayoutError(f"{path}: neither GDSII nor UTF-8 text (byte {err.start})"
                               ) from err
+        if re.search(r"^\s*\[devices\]\s*(#.*)?$", text, re.M):
+            raise LayoutError(f"{path}: this is a spec, not a layout: give a pattern, GDSII "
+                              "or CSV layout, and the spec with --spec")
         pattern = parse_pattern(text, source=str(path))
         pitch = spec.array.pitch_um if spec is not None else (0.0, 0.0)   # from the spec
         return Recognised(pattern, pitch, (0.0, 0.0), fmt, notes)

@@ -1180,7 +1180,8 @@ def _electrical(source: str, raw: Any, kind: str, names: list[str], counts: list
 
 
 #: [electrical] keys of a unit carrying a current (a MOS finger's operating point).
-_CURRENT_KEYS = ("vov_v", "gm_id_per_v", "lambda_per_v", "vds_v", "unit_current_ua")
+_CURRENT_KEYS = ("vov_v", "gm_id_per_v", "lambda_per_v", "vds_v", "unit_current_ua",
+                 "a_vt_mv_um", "a_beta_pct_um")
 #: [electrical] keys of one unit's value, each kind's own.
 _UNIT_VALUES = tuple(dict.fromkeys(k.unit_value for k in KIND_RECORDS.values()
                                    if k.unit_value))

@@ -15,12 +15,14 @@ import fcntl
 import fnmatch
 import os
 import shutil
+import signal
 import tempfile
+import threading
 from collections.abc import Iterable
 from pathlib import Path
 from types import TracebackType
 
-from placer.errors import OutputError
+from placer.errors import OutputError, PlacerError
 
 __all__ = ["OutputError", "OutputSet", "atomic_write", "file_mode"]
 
@@ -67,6 +69,10 @@ class OutputSet:
     does not rewrite).
     """
 
+    #: The folder of the set committed last in this process (None: none yet), so that an
+    #: interrupt after a commit can say the outputs are complete.
+    last_committed: Path | None = None
+
     def __init__(self, out: Path, names: Iterable[str], force: bool,
                  family: Iterable[str] = ()):
         self.out = out
@@ -105,7 +111,8 @@ class OutputSet:
             raise OutputError(f"{out}: folder is not writable")
         self._take_lock()
         # checked under the lock: a run that finished a moment ago has its files in place
-        existing = [n for n in self.names if (out / n).exists()]
+        # lexists: a dangling symbolic link under a name is a file of that name too
+        existing = [n for n in self.names if os.path.lexists(out / n)]
         if existing and not self.force:
             more = f" (and {len(existing) - 1} more)" if len(existing) > 1 else ""
             raise OutputError(f"{out}: {existing[0]} already exists{more}; use --force to "
@@ -166,25 +173,52 @@ class OutputSet:
         atomic_write(self.path(name), data)
 
     def commit(self) -> list[Path]:
-        """Move every staged file into the output folder; return the final paths."""
+        """Move every staged file into the output folder; return the final paths.
+
+        Everything that can refuse is checked before the first file moves (a name taken
+        by a folder, a file missing from the stage), and SIGINT and SIGTERM are held
+        while the files move in: an interrupt lands before the move-in (nothing changes)
+        or after it (the set is whole), never between two files.
+        """
         assert self.stage is not None
         missing = [n for n in self.written if not (self.stage / n).is_file()]
         if missing:
             raise OutputError(f"{self.out}: {missing[0]} was not written")
-        if self.force:
-            for entry in self.out.iterdir():
-                if (entry.is_file() and entry.name not in self.written
-                        and any(fnmatch.fnmatch(entry.name, pat) for pat in self.family)):
-                    entry.unlink()
-        final = []
         for name in self.written:
-            os.replace(self.stage / name, self.out / name)
-            final.append(self.out / name)
-        self.committed = True
+            target = self.out / name
+            if target.is_dir() and not target.is_symlink():
+                raise OutputError(f"{target}: is a folder, where this run writes a file; "
+                                  "move it or choose another --out")
+        # held at the Python level (any thread may take a process's signal; the handler
+        # always runs in the main thread, between two bytecodes): recorded, then
+        # delivered again once the set is whole
+        caught: list[int] = []
+        old = {}
+        if threading.current_thread() is threading.main_thread():
+            old = {sig: signal.signal(sig, lambda signum, frame: caught.append(signum))
+                   for sig in (signal.SIGINT, signal.SIGTERM)}
+        try:
+            if self.force:
+                for entry in self.out.iterdir():
+                    if ((entry.is_file() or entry.is_symlink()) and entry.name not in self.written
+                            and any(fnmatch.fnmatch(entry.name, pat) for pat in self.family)):
+                        entry.unlink()
+            final = []
+            for name in self.written:
+                os.replace(self.stage / name, self.out / name)
+                final.append(self.out / name)
+            self.committed = True
+            OutputSet.last_committed = self.out
+        finally:
+            for sig, handler in old.items():
+                signal.signal(sig, handler)
+            if caught:
+                signal.raise_signal(caught[0])    # now, with the set whole (or untouched)
         return final
 
     def __exit__(self, exc_type: type[BaseException] | None, exc: BaseException | None,
                  tb: TracebackType | None) -> None:
+        stage = str(self.stage) if self.stage is not None else None
         if self.stage is not None:
             shutil.rmtree(self.stage, ignore_errors=True)
             self.stage = None
@@ -201,3 +235,6 @@ class OutputSet:
             return                   # after the commit a failure is not about these files
         if isinstance(exc, OSError):
             raise OutputError(f"{self.out}: cannot write: {exc.strerror or exc}") from exc
+        if isinstance(exc, PlacerError) and stage is not None and stage in str(exc):
+            # a message names the file where the user will look for it, not the staging
+            raise type(exc)(str(exc).replace(stage, str(self.out))) from None

@@ -183,7 +183,10 @@ def repair(pattern: Pattern, spec: Spec, pitch_um: tuple[float, float], max_swap
     assign = np.where(flat >= 0, flat, -2)
     movable = np.nonzero(flat >= 0)[0]
     before = keys_of(prob, assign)
-    target = search(prob, seed=seed, time_limit_s=0.5 * time_limit_s).keys.linear_um
+    found = search(prob, seed=seed, time_limit_s=0.5 * time_limit_s)
+    if found.stopped == "interrupted":
+        raise KeyboardInterrupt                # Ctrl-C in the search: no repair at all
+    target = found.keys.linear_um
     target = min(target, before.linear_um)
     deadline = t0 + time_limit_s
     limited = []

@@ -252,23 +252,17 @@ def shipped_text(name: str) -> str:
 
 def read_toml(path: Path | None, fallback: str) -> tuple[dict[str, Any], str]:
     """A template or layer-map file as a dict, with the name to quote in messages."""
-    from placer.io.files import toml_depth
-    from placer.limits import MAX_FILE_BYTES, MAX_TOML_DEPTH
+    from placer.io.files import read_text, toml_depth
+    from placer.limits import MAX_TOML_DEPTH
 
     if path is None:
         return tomllib.loads(shipped_text(fallback)), f"templates/{fallback}"
-    try:
-        if Path(path).stat().st_size > MAX_FILE_BYTES:
-            raise TemplateError(f"{path}: larger than {MAX_FILE_BYTES} bytes")
-        text = Path(path).read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as err:
-        raise TemplateError(f"{path}: cannot read: {getattr(err, 'strerror', None) or err}"
-                            ) from err
+    text = read_text(Path(path), "template or layer map", TemplateError)
     if toml_depth(text) > MAX_TOML_DEPTH:
         raise TemplateError(f"{path}: tables, arrays or dotted keys nest deeper than "
                             f"{MAX_TOML_DEPTH} levels")
     try:
-        return tomllib.loads(text.removeprefix("\ufeff")), str(path)
+        return tomllib.loads(text), str(path)
     except (tomllib.TOMLDecodeError, RecursionError) as err:
         raise TemplateError(f"{path}: invalid TOML: {str(err)[:200]}") from None
 

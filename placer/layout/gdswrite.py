@@ -135,6 +135,10 @@ def build_library(pattern: Pattern, spec: Spec, cell: UnitCell, wiring: Wiring,
     return lib
 
 
+#: The last record of every GDSII stream: length 4, ENDLIB (0x04), no data (0x00).
+_ENDLIB = b"\x00\x04\x04\x00"
+
+
 def write_gds(lib: Any, path: Path) -> bytes:
     """Write the library to ``path`` atomically and return the bytes written."""
     import tempfile
@@ -147,6 +151,12 @@ def write_gds(lib: Any, path: Path) -> bytes:
     try:
         lib.write_gds(str(tmp), timestamp=gds_timestamp())
         data = tmp.read_bytes()
+        # gdstk does not report a short write (a full disk, a file-size limit): a whole
+        # stream ends with its ENDLIB record
+        if data[-4:] != _ENDLIB:
+            raise PlacerError(f"{path}: cannot write: the GDSII stream came out cut short "
+                              f"({len(data)} bytes; the disk is full or a file-size limit "
+                              "was reached)")
     except OSError as err:
         raise PlacerError(f"{path}: cannot write: {err.strerror or err}") from err
     finally:

@@ -64,6 +64,9 @@ def load_user_cell(path: Path, name: str | None, spec: Spec, rules: Rules,
         raise TemplateError(f"{src}: user unit is {parsed.user_in_m:g} m; a unit-cell "
                             "library must be drawn in micrometres")
     lib = gdstk.read_gds(src)
+    if any(not c.name for c in lib.cells):
+        raise TemplateError(f"{src}: a cell has an empty name; give every cell of the "
+                            "unit-cell library a name")
     cells = {c.name: c for c in lib.cells if isinstance(c, gdstk.Cell)}
     if name is None:
         tops = lib.top_level()

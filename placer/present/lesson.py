@@ -118,10 +118,12 @@ def _asset(name: str) -> str:
 def render_page(data: dict[str, Any]) -> str:
     """The page: the template with the style sheet, the script and the data inlined.
 
-    The data is JSON inside a ``<script type="application/json">`` element; ``</`` is
-    escaped so no name can close the element early.
+    The data is JSON inside a ``<script type="application/json">`` element; every ``<``
+    in it is escaped, so no name can close the element early or open a comment.
     """
-    blob = json.dumps(data, allow_nan=False, separators=(",", ":")).replace("</", "<\\/")
+    # "<" occurs in JSON only inside strings, where \u003c reads the same: no name can
+    # close the element ("</script>") or open a comment ("<!--") in the page
+    blob = json.dumps(data, allow_nan=False, separators=(",", ":")).replace("<", "\\u003c")
     page = _asset("lesson.html")
     for key, value in (("/*STYLE*/", _asset("lesson.css")), ("/*DATA*/", blob),
                        ("/*SCRIPT*/", _asset("lesson.js")),

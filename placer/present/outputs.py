@@ -30,7 +30,7 @@ __all__ = ["write_block", "ARRANGE_FILES", "arrange_names", "write_arrangement",
 
 #: Every file an arrange run may write (a --force run replaces them all, and only them).
 ARRANGE_FILES = ("pattern.txt", "report.json", "pattern.gds", "pattern.sp", "pattern.png",
-                 "pattern.svg", "budget.png", "candidate-*.txt", "candidate-*.png")
+                 "pattern.svg", "budget.png", "candidate-[0-9]*.txt", "candidate-[0-9]*.png")
 
 
 def write_block(block: Block, grade: Grade, out: OutputSet, stem: str,

@@ -266,7 +266,7 @@ def _held() -> set[Any]:
     return {getattr(signal, name) for name in _HELD}
 
 
-def _worker_entry(*args: Any) -> None:
+def _worker_entry(parent: int, *args: Any) -> None:
     """The second process's start: Ctrl-C ignored (the parent handles it), SIGTERM the
     system's default (the parent stops it so), and only then the signals the fork held
     back let through; then :func:`_worker` (looked up now, so a test may replace it).
@@ -276,9 +276,29 @@ def _worker_entry(*args: Any) -> None:
 
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    _end_with_parent(parent)
     if hasattr(signal, "pthread_sigmask"):
         signal.pthread_sigmask(signal.SIG_UNBLOCK, _held())
     _worker(*args)
+
+
+def _end_with_parent(parent: int) -> None:
+    """Have the kernel send this process SIGTERM when its parent ends, however the parent
+    ends (killed outright too), so no worker searches on alone (Linux; elsewhere the
+    parent's clean-up stops it). If the parent is already gone, end now."""
+    import signal
+    import sys
+
+    if sys.platform.startswith("linux"):
+        import ctypes
+
+        try:
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(1, int(signal.SIGTERM), 0, 0, 0)      # PR_SET_PDEATHSIG = 1
+        except (OSError, AttributeError):
+            pass
+    if os.getppid() != parent:
+        os._exit(0)
 
 
 def _worker(send: Any, comp: Compiled, start: IntArray, seed: int, deadline: float,
@@ -355,8 +375,9 @@ def search(prob: Problem, *, seed: int = 0, time_limit_s: float = 60.0,
 
             ctx = mp.get_context("fork")
             recv, send = ctx.Pipe(duplex=False)
-            child = (ctx.Process(target=_worker_entry, args=(send, comp, start, seeds[1],
-                                                            deadline, floor, restarts),
+            child = (ctx.Process(target=_worker_entry, args=(os.getpid(), send, comp, start,
+                                                            seeds[1], deadline, floor,
+                                                            restarts),
                                  daemon=True), recv)
             import signal
 
