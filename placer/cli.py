@@ -18,7 +18,7 @@ import numpy as np
 
 from placer import __version__
 from placer.errors import PlacerError
-from placer.io.handlayout import Recognised, read_layout
+from placer.io.handlayout import Recognised, hot_spot_in_pattern_frame, read_layout
 from placer.io.pattern import Pattern, check_against_spec
 from placer.io.spec import NAME_RE, Spec
 from placer.io.staging import OutputSet
@@ -242,6 +242,7 @@ def _load_graded(path: Path, spec_path: Path | None, *, cell: str | None = None,
         if rec.fmt != "pattern":
             spec = pitch.given(spec, rec.pitch_um)
         return rec.pattern, spec, rec
+    spec = hot_spot_in_pattern_frame(spec, rec)
     if rec.fmt != "pattern" and tuple(rec.pitch_um) != tuple(spec.array.pitch_um):
         click.echo(f"Note: {path} has pitch {rec.pitch_um[0]:g} x {rec.pitch_um[1]:g} um; "
                    f"grading with it, not the spec's {spec.array.pitch_um[0]:g} x "

@@ -549,8 +549,10 @@ def _dac_spec(extra: str) -> str:
 
 
 def test_dac_curvature_inl_by_hand():
-    """The bowl of Hessian norm h: each capacitor off by (h / sqrt 2)/2 x mean r^2 about
-    the centre of all units (relative), in exact fractions, end-point INL in LSB."""
+    """The worst Hessian of norm h on a row of units (y = 0): only its xx part acts, so
+    the worst field is H = diag(h, 0) and each capacitor is off by h/2 x its mean x^2
+    about the centre of all units (relative); end-point INL and DNL in LSB by hand, in
+    exact fractions."""
     from fractions import Fraction as F
 
     spec = parse_spec(_dac_spec("[gradient]\nlinear_ppm_per_um = 0.0\n"
@@ -558,7 +560,7 @@ def test_dac_curvature_inl_by_hand():
                       + "mc_samples = 2\n", "c.toml")
     pattern = parse_pattern("C1 C0 CT C1").reordered(spec.devices)   # x = 0, 1, 2, 3 um
     b = budget(pattern, spec, grade_pattern(pattern, spec))
-    h = 2.0e-6 / np.sqrt(2.0)
+    h = 2.0e-6
     r2 = {"C1": (1.5 ** 2 + 1.5 ** 2) / 2, "C0": 0.5 ** 2, "CT": 0.5 ** 2}
     err = {d: 0.5 * h * r2[d] for d in r2}
     caps = [F(1) * (1 + F(err["C0"])), F(2) * (1 + F(err["C1"]))]
@@ -583,6 +585,16 @@ def _levels_inl(err, weights=(("C0", 1), ("C1", 2), ("C2", 4)), term="CT"):
     levels = np.array([sum(c for b, c in enumerate(caps) if k >> b & 1)
                        for k in range(8)]) / total
     return _endpoint_inl(levels)
+
+
+def _levels_dnl(err, weights=(("C0", 1), ("C1", 2), ("C2", 4)), term="CT"):
+    """End-point DNL of the same 3-bit DAC: each step over the end-point LSB, less one."""
+    caps = [w * (1 + err[name]) for name, w in weights]
+    total = sum(caps) + 1 * (1 + err[term])
+    levels = np.array([sum(c for b, c in enumerate(caps) if k >> b & 1)
+                       for k in range(8)]) / total
+    lsb = (levels[-1] - levels[0]) / 7
+    return np.diff(levels) / lsb - 1
 
 
 def _positions_2d():
@@ -629,16 +641,45 @@ def test_dac_gradient_inl_in_the_reported_direction_on_a_two_dimensional_array()
 
 
 def test_dac_curvature_inl_on_a_two_dimensional_array():
-    """The bowl on a 3 x 3 grid: each capacitor off by (h / sqrt 2) / 2 x its mean
-    squared distance r^2 = x^2 + y^2 from the centre of all eight units; both axes
-    count."""
+    """The worst Hessian of norm h on a 3 x 3 grid, by brute force: fields
+    1/2 r^T H r over 4000 Hessians spread evenly on the sphere a^2 + 2 b^2 + c^2 = h^2
+    (a Fibonacci lattice), each capacitor off by its units' mean field about the centre
+    of all eight units, end-point INL and DNL of the levels. The budget's worst must lie
+    at or above every sample, and within the lattice's spacing of the largest."""
     b = _budget_2d(linear=0.0, quadratic=2.0)
     pos = _positions_2d()
     centre = np.concatenate(list(pos.values())).mean(0)
-    h = 2.0e-6 / np.sqrt(2.0)
-    err = {d: 0.5 * h * float(((p - centre) ** 2).sum(1).mean()) for d, p in pos.items()}
-    assert b.quadratic_inl_lsb == pytest.approx(float(np.abs(_levels_inl(err)).max()),
-                                                rel=1e-6)
+    moments = {d: ((p - centre)[:, 0] ** 2, (p - centre)[:, 0] * (p - centre)[:, 1],
+                   (p - centre)[:, 1] ** 2) for d, p in pos.items()}
+    n = 4000
+    k = np.arange(n) + 0.5
+    z = 1 - 2 * k / n
+    phi = np.pi * (1 + 5 ** 0.5) * k
+    u = np.column_stack([np.sqrt(1 - z * z) * np.cos(phi), np.sqrt(1 - z * z) * np.sin(phi), z])
+    h = 2.0e-6
+    inl_max = dnl_max = 0.0
+    for ua, ub, uc in u:
+        a, bb, c = h * ua, h * ub / np.sqrt(2.0), h * uc
+        err = {d: float(np.mean(0.5 * (a * xx + 2 * bb * xy + c * yy)))
+               for d, (xx, xy, yy) in moments.items()}
+        inl_max = max(inl_max, float(np.abs(_levels_inl(err)).max()))
+        dnl_max = max(dnl_max, float(np.abs(_levels_dnl(err)).max()))
+    assert inl_max * (1 - 1e-6) <= b.quadratic_inl_lsb <= inl_max * 1.005
+    assert dnl_max * (1 - 1e-6) <= b.quadratic_dnl_lsb <= dnl_max * 1.005
+
+
+def test_dac_worst_gradient_dnl_is_the_worst_over_every_direction():
+    """The DNL line is the largest |DNL| of any direction (it was the DNL in the worst
+    INL's direction): brute force over directions, 1 degree apart as the budget scans."""
+    b = _budget_2d(linear=5.0, quadratic=0.0)
+    pos = _positions_2d()
+    centre = np.concatenate(list(pos.values())).mean(0)
+    cen = {k: v.mean(0) - centre for k, v in pos.items()}
+    every = []
+    for t in np.radians(np.arange(0.0, 360.0, 1.0)):
+        u = np.array([np.cos(t), np.sin(t)])
+        every.append(float(np.abs(_levels_dnl({d: 5e-6 * u @ c for d, c in cen.items()})).max()))
+    assert b.worst_gradient_dnl_lsb == pytest.approx(max(every), rel=1e-6)
 
 
 @pytest.mark.parametrize("devices, text", [

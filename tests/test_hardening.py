@@ -542,3 +542,23 @@ def test_a_pattern_name_that_opens_a_comment_cannot_break_the_lesson_page():
     blob = page.split('<script type="application/json" id="lesson-data">')[1].split(
         "</script>")[0]
     assert "<" not in blob and json.loads(blob)["arrangements"][0]["label"] == "a<!--b</script>"
+
+
+def test_a_hot_spot_is_read_in_the_frame_the_report_uses_for_each_input(tmp_path):
+    """For a CSV (or GDSII) layout the hot spot is in the file's coordinates, as the
+    report's positions are; for pattern text, from the top-left slot's centre. The same
+    arrangement with the spot on its first unit grades alike both ways (the CSV's spot
+    was read from the top-left slot and landed 100 um away: a spot column of 0)."""
+    spot = "hot_spot = {{ x_um = {x}, y_um = {y}, ppm = 200.0, fall_off_um = 2.0 }}\n"
+    base = "[devices]\nA = 2\nB = 2\n[array]\npitch_um = [1.0, 1.0]\n[gradient]\n"
+    csv = spec_file(tmp_path, "x_um,y_um,device\n100,50,A\n101,50,B\n102,50,B\n103,50,A\n",
+                    "u.csv")
+    text = spec_file(tmp_path, "A B B A\n", "u.txt")
+    figures = []
+    for layout, x, y in ((csv, 100, 50), (text, 0, 0)):
+        spec = spec_file(tmp_path, base + spot.format(x=x, y=y), f"s{x}.toml")
+        res = run_placer(["grade", str(layout), "--spec", str(spec), "--json"], tmp_path)
+        assert res.returncode == 0, res.stderr
+        figures.append([p["hot_spot_ppm"] for p in json.loads(res.stdout)["pairs"]])
+    assert figures[0] == pytest.approx(figures[1], rel=1e-12)
+    assert abs(figures[0][0]) > 1.0

@@ -11,7 +11,7 @@ import math
 import re
 from collections import Counter
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
@@ -25,6 +25,7 @@ from placer.kinds import KINDS
 from placer.limits import MAX_DEVICES, MAX_FILE_BYTES, MAX_NAME, MAX_SLOTS, MAX_UNITS
 
 __all__ = ["Unit", "Recognised", "read_layout", "units_to_pattern", "read_csv_units",
+           "hot_spot_in_pattern_frame",
            "gds_units", "detect_format", "MAX_LAYOUT_BYTES"]
 
 MAX_LAYOUT_BYTES = 256 * 1024 * 1024
@@ -665,3 +666,19 @@ def read_layout(path: Path, *, spec: Spec | None = None, cell: str | None = None
         raise LimitError(f"{path}: {len(names)} devices, more than the limit of {MAX_DEVICES}")
     pattern, pitch, origin = units_to_pattern(units, str(path), notes, spec)
     return Recognised(pattern, pitch, origin, fmt, notes)
+
+
+def hot_spot_in_pattern_frame(spec: Spec, rec: Recognised) -> Spec:
+    """``spec`` with its ``[gradient] hot_spot`` moved into the pattern's frame.
+
+    A hot spot is given in the frame the report gives positions in: for a CSV or GDSII
+    layout, the file's own coordinates; for pattern text (and ``arrange``), micrometres
+    from the centre of the top-left slot, y up. The grade works in the pattern's frame,
+    whose origin lies at ``rec.origin_um`` in the file.
+    """
+    hs = spec.gradient.hot_spot
+    if hs is None or rec.fmt == "pattern":
+        return spec
+    ox, oy = rec.origin_um
+    moved = replace(hs, x_um=hs.x_um - ox, y_um=hs.y_um - oy)
+    return replace(spec, gradient=replace(spec.gradient, hot_spot=moved))

@@ -423,6 +423,27 @@ def _upper_percentile(top: FloatArray, n: int, q: float) -> FloatArray:
     return np.asarray(a_lo + (pos - lo) * (a_hi - a_lo), dtype=float)
 
 
+def _curvature_worst(inl_of: Any, m2: FloatArray, norm: float) -> tuple[float, float]:
+    """The largest |INL| and |DNL| over every quadratic field 1/2 r^T H r with
+    ||H||_F = ``norm`` (relative per um^2), as grade and the mirror budget take the worst
+    Hessian of the spec's norm.
+
+    A device's error is 1/2 H : M_d = a (M_xx / 2) + b M_xy + c (M_yy / 2) with
+    H = [[a, b], [b, c]] and M_d its second moments about the centre, and INL and DNL are
+    linear in the errors to first order (they are parts per million). So each code's
+    value is a I_a + b I_b + c I_c, the I from one field per component at the norm, and
+    its largest over a^2 + 2 b^2 + c^2 = norm^2 is sqrt(I_a^2 + I_b^2 / 2 + I_c^2)
+    (Cauchy-Schwarz in that norm).
+    """
+    if norm == 0.0:
+        return 0.0, 0.0
+    fields = norm * np.stack([0.5 * m2[:, 0, 0], m2[:, 0, 1], 0.5 * m2[:, 1, 1]])
+    inl, dnl = inl_of(fields)
+    weight = np.array([1.0, 0.5, 1.0])[:, None]
+    return (float(np.sqrt((weight * inl ** 2).sum(0)).max()),
+            float(np.sqrt((weight * dnl ** 2).sum(0)).max()))
+
+
 def _dac_budget(pattern: Pattern, spec: Spec, e: ElectricalSpec, wiring: Any = None
                 ) -> DacBudget:
     names = list(spec.devices)
@@ -448,17 +469,15 @@ def _dac_budget(pattern: Pattern, spec: Spec, e: ElectricalSpec, wiring: Any = N
         e_term = err[..., t_idx] if t_idx is not None else 0.0
         return dac_inl_dnl(w, w_term, err[..., idx], e_term, e.fit)
 
-    # the gradient of [gradient], its two parts apart: a linear field in every direction
-    # (the worst one kept) and the bowl of the same Hessian norm, in relative units
+    # the gradient of [gradient], its two parts apart, in relative units: a linear field
+    # in every direction (the worst INL's direction kept; the worst DNL over all of them)
     g = spec.gradient.linear_ppm_per_um * 1e-6
-    h = spec.gradient.quadratic_ppm_per_um2 * 1e-6 / np.sqrt(2.0)
     theta = np.radians(np.arange(0, 360, 1.0))
     lin = g * (np.cos(theta)[:, None] * cen[None, :, 0] + np.sin(theta)[:, None] * cen[None, :, 1])
-    bowl = 0.5 * h * (m2[:, 0, 0] + m2[:, 1, 1])
     inl, dnl = inl_of(lin)
-    q_inl, q_dnl = inl_of(bowl[None, :])
     worst = np.abs(inl).max(-1)
     k = int(np.argmax(worst))
+    q_inl, q_dnl = _curvature_worst(inl_of, m2, spec.gradient.quadratic_ppm_per_um2 * 1e-6)
 
     # random parts: correlated device means (exact covariance) and white per device
     c = spec.correlated
@@ -496,9 +515,9 @@ def _dac_budget(pattern: Pattern, spec: Spec, e: ElectricalSpec, wiring: Any = N
     return DacBudget(
         bits=tuple(bits), termination=term, fit=e.fit,
         worst_gradient_inl_lsb=float(np.abs(inl[k]).max()),
-        worst_gradient_dnl_lsb=float(np.abs(dnl[k]).max()),
-        quadratic_inl_lsb=float(np.abs(q_inl).max()),
-        quadratic_dnl_lsb=float(np.abs(q_dnl).max()),
+        worst_gradient_dnl_lsb=float(np.abs(dnl).max()),
+        quadratic_inl_lsb=q_inl,
+        quadratic_dnl_lsb=q_dnl,
         worst_direction_deg=float(np.degrees(theta[k])),
         mc_samples=n, mc_inl_sigma_lsb=float(iw.std()) if n > 1 else 0.0,
         mc_dnl_sigma_lsb=float(dw.std()) if n > 1 else 0.0,
@@ -509,7 +528,7 @@ def _dac_budget(pattern: Pattern, spec: Spec, e: ElectricalSpec, wiring: Any = N
         mc_inl_p99_lsb=tuple(float(v) for v in p99),
         mc_dnl_p99_lsb=tuple(float(v) for v in p99_d),
         assumptions={"fit": e.fit, "gradient_ppm_per_um": spec.gradient.linear_ppm_per_um,
-                     "bowl_hessian_norm_ppm_per_um2": spec.gradient.quadratic_ppm_per_um2,
+                     "hessian_norm_ppm_per_um2": spec.gradient.quadratic_ppm_per_um2,
                      "correlated_sigma_ppm": c.sigma_ppm, "a_param_pct_um":
                      spec.mismatch.a_param_pct_um, "unit_area_um2": spec.unit.area_um2,
                      "mc_seed": e.mc_seed,

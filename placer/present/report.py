@@ -239,9 +239,10 @@ def format_budget(b: Any) -> str:
             f"Electrical budget: capacitor array, bits {', '.join(b.bits)} (LSB first), "
             f"termination {b.termination or 'none'}, INL/DNL in LSB against the {fit} line",
             f"  linear gradient (worst direction {b.worst_direction_deg:.0f} deg): |INL| "
-            f"{_f(b.worst_gradient_inl_lsb)} LSB, |DNL| {_f(b.worst_gradient_dnl_lsb)} LSB",
-            f"  quadratic (bowl of the spec's Hessian norm): |INL| {_f(b.quadratic_inl_lsb)} "
-            f"LSB, |DNL| {_f(b.quadratic_dnl_lsb)} LSB",
+            f"{_f(b.worst_gradient_inl_lsb)} LSB; in the worst direction for it, |DNL| "
+            f"{_f(b.worst_gradient_dnl_lsb)} LSB",
+            f"  quadratic (the worst Hessian of the spec's norm): |INL| "
+            f"{_f(b.quadratic_inl_lsb)} LSB, |DNL| {_f(b.quadratic_dnl_lsb)} LSB",
             f"  random ({b.mc_samples} Monte Carlo samples): worst |INL| mean "
             f"{_f(b.mc_inl_mean_lsb)}, sigma {_f(b.mc_inl_sigma_lsb)} LSB; worst |DNL| mean "
             f"{_f(b.mc_dnl_mean_lsb)}, sigma {_f(b.mc_dnl_sigma_lsb)} LSB",

@@ -282,18 +282,27 @@ function dacBudget(sc) {
     const err = cen.map(([x, y]) => g * (Math.cos(t) * x + Math.sin(t) * y));
     const [inl, dnl] = inlOf(err);
     const w = maxAbs(inl);
-    if (w > best) { best = w; bestInl = w; bestDnl = maxAbs(dnl); bestAngle = deg; }
+    if (w > best) { best = w; bestInl = w; bestAngle = deg; }
+    bestDnl = Math.max(bestDnl, maxAbs(dnl));       // the worst DNL over every direction
   }
-  // the bowl of the same Hessian norm: 0.5 h (Mxx + Myy) per device, h = norm / sqrt 2
-  const hb = D.quadratic_ppm_per_um2 * 1e-6 / Math.sqrt(2);
-  const m = Array.from({ length: nDev }, () => [0, 0]);
-  sc.us.forEach(([, , d], i) => {
-    const x = sc.xy[i][0] - cx, y = sc.xy[i][1] - cy;
-    m[d][0] += x * x; m[d][1] += y * y;
-  });
-  const bowl = m.map(([xx, yy], d) => 0.5 * hb * (xx / sc.n[d] + yy / sc.n[d]));
-  const [qi, qd] = inlOf(bowl);
-  return { inl: bestInl, dnl: bestDnl, angle: bestAngle, qinl: maxAbs(qi), qdnl: maxAbs(qd) };
+  // the worst Hessian of the spec's norm (as placer's budget): one field per component
+  // (a Mxx/2, b Mxy, c Myy/2 at the norm), then per code sqrt(Ia^2 + Ib^2/2 + Ic^2)
+  const hq = D.quadratic_ppm_per_um2 * 1e-6;
+  let qinl = 0, qdnl = 0;
+  if (hq > 0) {
+    const m = Array.from({ length: nDev }, () => [0, 0, 0]);
+    sc.us.forEach(([, , d], i) => {
+      const x = sc.xy[i][0] - cx, y = sc.xy[i][1] - cy;
+      m[d][0] += x * x; m[d][1] += x * y; m[d][2] += y * y;
+    });
+    const parts = [0, 1, 2].map((j) => inlOf(m.map((v, d) =>
+      hq * (j === 1 ? 1 : 0.5) * v[j] / sc.n[d])));
+    const comb = (k, idx) => Math.sqrt(parts[0][k][idx] ** 2 + parts[1][k][idx] ** 2 / 2 +
+                                       parts[2][k][idx] ** 2);
+    for (let i = 0; i < parts[0][0].length; i++) qinl = Math.max(qinl, comb(0, i));
+    for (let i = 0; i < parts[0][1].length; i++) qdnl = Math.max(qdnl, comb(1, i));
+  }
+  return { inl: bestInl, dnl: bestDnl, angle: bestAngle, qinl, qdnl };
 }
 
 // ---------------------------------------------------------------- drawing
