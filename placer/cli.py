@@ -627,10 +627,15 @@ def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, 
     try:
         spec, tools = _tools(pitch.given(spec),
                              template_path, layers_path, unit_gds, unit_cell)
-    except RouteError as err:      # a hand layout's pitch may not hold placer's unit cell
+    except RouteError:             # a hand layout's pitch may not hold placer's unit cell
         if unit_gds is not None or template_path is not None:
             raise
-        tools, note = None, f"repaired.gds not written: {err}"
+        need = pitch.pitch_needed(spec, tracks=1)
+        px, py = spec.array.pitch_um
+        tools, note = None, (f"repaired.gds not written: {layout.name}'s pitch, {px:g} x "
+                             f"{py:g} um, is too small for placer's generic unit cell with "
+                             f"one routing track (at least {need[0]:g} x {need[1]:g} um); "
+                             "give your own cell with --unit-gds or rules with --template")
     with OutputSet(out_dir, outputs.repair_names(tools is not None), force) as out:
         res = run_repair(pat, spec, spec.array.pitch_um, max_swaps, seed=seed,
                          time_limit_s=time_limit)

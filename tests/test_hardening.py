@@ -562,3 +562,37 @@ def test_a_hot_spot_is_read_in_the_frame_the_report_uses_for_each_input(tmp_path
         figures.append([p["hot_spot_ppm"] for p in json.loads(res.stdout)["pairs"]])
     assert figures[0] == pytest.approx(figures[1], rel=1e-12)
     assert abs(figures[0][0]) > 1.0
+
+
+def test_a_unit_cell_nested_too_deep_for_grade_is_refused_when_read(tmp_path):
+    """A unit cell 101 levels deep was drawn into a layout that grade then refused (it
+    reads 64 levels); the unit-cell reader refuses it in one line."""
+    import gdstk
+
+    lib = gdstk.Library()
+    prev = lib.new_cell("L0")
+    prev.add(gdstk.rectangle((0, 0), (1, 1), layer=4))
+    for i in range(1, 101):
+        cell = lib.new_cell(f"L{i}")
+        cell.add(gdstk.Reference(prev))
+        prev = cell
+    path = tmp_path / "deep.gds"
+    lib.write_gds(str(path))
+    res = run_placer(["arrange", str(ROOT / "samples" / "bias_mirror.toml"), "--out", "o",
+                      "--unit-gds", str(path), "--unit-cell", "L100", "--time-limit", "1"],
+                     tmp_path)
+    refused(res, "deeper than 60 levels")
+    assert not (tmp_path / "o").exists()
+
+
+def test_repair_of_a_layout_too_fine_for_the_generic_cell_names_the_layouts_pitch(tmp_path):
+    """The note blamed a pitch_um the spec does not have; it names the layout's pitch and
+    the two ways to draw it anyway."""
+    rows = "x_um,y_um,device\n" + "".join(
+        f"{0.5 * c},0,{d}\n" for c, d in enumerate("AABBBBAA"))
+    layout = spec_file(tmp_path, rows, "fine.csv")
+    res = run_placer(["repair", str(layout), "--out", "o", "--time-limit", "1"], tmp_path)
+    assert res.returncode == 0, res.stderr
+    assert "fine.csv's pitch, 0.5 x" in res.stderr and "--unit-gds" in res.stderr
+    assert "omit pitch_um" not in res.stderr
+    assert not (tmp_path / "o" / "repaired.gds").exists()

@@ -10,7 +10,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from placer.errors import SpecError
+from placer.errors import InfeasibleError, SpecError
 from placer.io.pattern import Pattern
 from placer.io.spec import Spec
 from placer.kinds import KINDS
@@ -429,6 +429,9 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
         except KeyboardInterrupt:
             interrupted = True
             break
+        except InfeasibleError as err:
+            # the search knows no file: the message names the spec and the core
+            raise InfeasibleError(f"{spec.source}: on the {rows} x {cols} core, {err}") from None
         tried.append(t)
         if t.result is not None and t.result.stopped == "interrupted":
             interrupted = True

@@ -38,6 +38,36 @@ class UserCell:
     source: str
 
 
+#: Levels of references a user's unit cell may nest: placer's layout adds its top cell
+#: and the array around it, and grade reads 64 levels in all.
+MAX_CELL_DEPTH = 60
+
+
+def _depth(cell: Any) -> int:
+    """Levels of references below ``cell`` (1: it places none), found without recursion;
+    a cycle of references counts as deeper than any limit."""
+    import gdstk
+
+    memo: dict[int, int] = {}
+    open_: set[int] = set()
+    stack: list[tuple[Any, bool]] = [(cell, False)]
+    while stack:
+        c, done = stack.pop()
+        kids = [r.cell for r in c.references if isinstance(r.cell, gdstk.Cell)]
+        if done:
+            open_.discard(id(c))
+            memo[id(c)] = 1 + max((memo[id(k)] for k in kids), default=0)
+            continue
+        if id(c) in memo:
+            continue
+        if any(id(k) in open_ for k in kids) or id(c) in open_:
+            return 1 << 30                        # a cycle: no depth holds it
+        open_.add(id(c))
+        stack.append((c, True))
+        stack.extend((k, False) for k in kids if id(k) not in memo)
+    return memo[id(cell)]
+
+
 def _bbox(cell: Any) -> tuple[float, float, float, float]:
     box = None
     for poly in cell.get_polygons():
@@ -83,6 +113,10 @@ def load_user_cell(path: Path, name: str | None, spec: Spec, rules: Rules,
     else:
         gcell = cells[name]
     where = f"{src}: cell {gcell.name!r}"
+    if _depth(gcell) > MAX_CELL_DEPTH:
+        raise TemplateError(f"{where} nests its references deeper than {MAX_CELL_DEPTH} "
+                            "levels; the layout placer writes around it must stay readable "
+                            "(grade reads 64 levels): flatten it")
     try:
         x0, y0, x1, y1 = (snap(v) for v in _bbox(gcell))
     except TemplateError as err:

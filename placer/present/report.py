@@ -182,8 +182,12 @@ def format_arrangement(result: Arrangement, spec: Spec) -> str:
         out.append(f"MILP: solver {sv['solver_s']:.2f} s, status {sv['status']}, gap {gap}; "
                    "no bound is claimed.")
     elif searched:
+        stopped = result.stopped
+        if result.proven and stopped == "time limit":
+            # the chosen core's search was proven; the time limit cut another shape's
+            stopped = "proven optimal (the time limit cut the search on another core shape)"
         out.append(f"Search: {result.elapsed_s:.2f} s, {result.moves} moves, "
-                   f"{result.nodes} branch-and-bound nodes, stopped: {result.stopped}.")
+                   f"{result.nodes} branch-and-bound nodes, stopped: {stopped}.")
     else:
         out.append("A baseline arrangement: no search, no bound.")
     if result.proven:
