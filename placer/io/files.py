@@ -3,14 +3,17 @@ text, and TOML whose nesting is measured before the parser sees it."""
 
 from __future__ import annotations
 
+import mmap
 import os
 import stat
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 
 from placer.errors import LimitError, PlacerError
 from placer.limits import MAX_FILE_BYTES
 
-__all__ = ["read_limited", "read_text", "toml_depth"]
+__all__ = ["read_limited", "read_text", "mapped", "toml_depth"]
 
 
 def read_limited(path: Path, limit: int, what: str, error: type[PlacerError]) -> bytes:
@@ -53,6 +56,41 @@ def read_limited(path: Path, limit: int, what: str, error: type[PlacerError]) ->
         return b"".join(chunks)
     except OSError as err:
         raise error(f"{path}: cannot read: {err.strerror or err}") from err
+    finally:
+        os.close(fd)
+
+
+@contextmanager
+def mapped(path: Path, limit: int, what: str, error: type[PlacerError]
+           ) -> Iterator[bytes | mmap.mmap]:
+    """A regular file of at most ``limit`` bytes, mapped read-only: a parser that stops
+    early (a limit reached, damage found) touches only the pages it read, so a large
+    hostile file costs neither the time nor the memory of reading it whole. The same
+    checks as :func:`read_limited`."""
+    try:
+        fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
+    except OSError as err:
+        raise error(f"{path}: cannot read: {err.strerror or err}") from err
+    try:
+        st = os.fstat(fd)
+        if not stat.S_ISREG(st.st_mode):
+            raise error(f"{path}: not a regular file (a device, pipe or folder); save the "
+                        f"{what} to a file and give that")
+        if st.st_size > limit:
+            raise LimitError(f"{path}: file is {st.st_size} bytes, the limit for a {what} is "
+                             f"{limit}")
+        if st.st_size == 0:
+            yield b""
+            return
+        try:
+            view = mmap.mmap(fd, st.st_size, access=mmap.ACCESS_READ)
+        except (OSError, ValueError) as err:
+            raise error(f"{path}: cannot read: {getattr(err, 'strerror', None) or err}"
+                        ) from err
+        try:
+            yield view
+        finally:
+            view.close()
     finally:
         os.close(fd)
 

@@ -9,8 +9,10 @@ the 4-byte header, a record type byte and a data type byte; reals are 8-byte exc
 
 from __future__ import annotations
 
+import mmap
 import struct
-from dataclasses import dataclass, field
+from collections.abc import Iterator
+from dataclasses import dataclass, field, replace
 
 from placer.errors import LayoutError, LimitError
 
@@ -29,8 +31,9 @@ _MAX_STRUCTURES = 100_000
 _MAX_ELEMENTS = 5_000_000
 #: References after expanding arrays, over the whole file.
 MAX_REFS = 400_000
-#: Text elements over the whole file (device labels are at most one per unit).
-MAX_TEXTS = 262_144
+#: Text elements over the whole file: twice the unit limit (a device label per unit, and
+#: as many others).
+MAX_TEXTS = 131_072
 #: Sane database units: 1 pm to 1 mm per database unit, user unit 1 pm to 1 m.
 _DB_M = (1e-12, 1e-3)
 _USER_M = (1e-12, 1.0)
@@ -39,7 +42,8 @@ _USER_M = (1e-12, 1.0)
 
 @dataclass(frozen=True)
 class Ref:
-    """A structure reference (an AREF is expanded into one Ref per instance)."""
+    """A structure reference: one instance, or an AREF's ``cols`` x ``rows`` of them kept
+    whole (``instances`` places them; counts are checked before anything is placed)."""
 
     cell: str
     x: float
@@ -47,6 +51,41 @@ class Ref:
     reflect: bool
     angle_deg: float
     mag: float
+    cols: int = 1
+    rows: int = 1
+    col_step: tuple[float, float] = (0.0, 0.0)
+    row_step: tuple[float, float] = (0.0, 0.0)
+
+    @property
+    def count(self) -> int:
+        """Instances this reference places."""
+        return self.cols * self.rows
+
+    def instances(self) -> Iterator[Ref]:
+        """Every instance, rows then columns in each row, as single references."""
+        if self.count == 1:
+            yield self
+            return
+        for r in range(self.rows):
+            for c in range(self.cols):
+                yield replace(self, x=self.x + c * self.col_step[0] + r * self.row_step[0],
+                              y=self.y + c * self.col_step[1] + r * self.row_step[1],
+                              cols=1, rows=1, col_step=(0.0, 0.0), row_step=(0.0, 0.0))
+
+    def corners(self) -> Iterator[Ref]:
+        """The instances at the array's corners: together they span every instance's
+        bounding box (the instances are translations of one another)."""
+        if self.count == 1:
+            yield self
+            return
+        seen = set()
+        for r in (0, self.rows - 1):
+            for c in (0, self.cols - 1):
+                if (r, c) not in seen:
+                    seen.add((r, c))
+                    yield replace(self, x=self.x + c * self.col_step[0] + r * self.row_step[0],
+                                  y=self.y + c * self.col_step[1] + r * self.row_step[1],
+                                  cols=1, rows=1, col_step=(0.0, 0.0), row_step=(0.0, 0.0))
 
 
 @dataclass(frozen=True)
@@ -100,8 +139,9 @@ def _real8(raw: bytes) -> float:
     return sign * mantissa / 2 ** 56 * 16.0 ** exponent
 
 
-def parse_stream(data: bytes, source: str) -> StreamLibrary:
-    """Parse a whole GDSII stream; any damage raises LayoutError naming the byte offset."""
+def parse_stream(data: bytes | mmap.mmap, source: str) -> StreamLibrary:
+    """Parse a whole GDSII stream (bytes, or a read-only map of a file); any damage raises
+    LayoutError naming the byte offset."""
     pos = 0
     n = len(data)
 
@@ -187,14 +227,15 @@ def parse_stream(data: bytes, source: str) -> StreamLibrary:
             elements += 1
             if elements > _MAX_ELEMENTS:
                 raise LayoutError(f"{source}: more than {_MAX_ELEMENTS} elements, the limit")
-            before = len(current.refs)
+            n_before = len(current.refs)
             if rtype == _TEXT:
                 texts += 1
                 if texts > MAX_TEXTS:
                     raise LayoutError(f"{source}: more than {MAX_TEXTS} text labels, the "
                                       "limit (a unit array needs one per unit at most)")
             _element(rtype, current, record, ascii_of, ints, fail, db_in_user, source)
-            total_refs += len(current.refs) - before
+            if len(current.refs) > n_before:              # a reference: its instances
+                total_refs += current.refs[-1].count
             if total_refs > MAX_REFS:
                 raise LayoutError(f"{source}: more than {MAX_REFS} references after "
                                   "expanding arrays, the limit")
@@ -277,10 +318,8 @@ def _element(kind: int, cell: Structure, record, ascii_of, ints, fail, db: float
             ox, oy = xy[0], xy[1]
             cx, cy = (xy[2] - ox) / cols, (xy[3] - oy) / cols
             rx, ry = (xy[4] - ox) / rows, (xy[5] - oy) / rows
-            for r in range(rows):
-                for c in range(cols):
-                    cell.refs.append(Ref(sname, (ox + c * cx + r * rx) * db,
-                                         (oy + c * cy + r * ry) * db, reflect, angle, mag))
+            cell.refs.append(Ref(sname, ox * db, oy * db, reflect, angle, mag, cols, rows,
+                                 (cx * db, cy * db), (rx * db, ry * db)))
     elif kind == _TEXT:
         if text is None or len(xy) < 2:
             raise fail("TEXT without STRING or XY", at)

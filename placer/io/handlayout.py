@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 
 from placer.errors import LimitError, shown
-from placer.io.files import read_limited
+from placer.io.files import mapped
 from placer.io.gdsread import LayoutError, StreamLibrary, Structure, is_gdsii, parse_stream
 from placer.io.pattern import DUMMY, EMPTY, Pattern, parse_pattern
 from placer.io.spec import NAME_RE, Spec
@@ -249,13 +249,14 @@ def gds_units(lib: StreamLibrary, source: str, *, cell: str | None,
                                      "flattened; the limit is that many units")
             elif depth == 0:
                 skipped_texts[(t.layer, t.texttype)] += 1
-        for r in s.refs:
-            if not has_label(r.cell):
+        for ref in s.refs:
+            if not has_label(ref.cell):
                 continue
-            count("labelled cells")
-            x, y = _apply(r.x, r.y, tx, ty, refl, ang, mag)
-            a = ang + (-r.angle_deg if refl else r.angle_deg)
-            gather(r.cell, x, y, refl ^ r.reflect, a, mag * r.mag, depth + 1)
+            for r in ref.instances():
+                count("labelled cells")
+                x, y = _apply(r.x, r.y, tx, ty, refl, ang, mag)
+                a = ang + (-r.angle_deg if refl else r.angle_deg)
+                gather(r.cell, x, y, refl ^ r.reflect, a, mag * r.mag, depth + 1)
 
     gather(top, 0.0, 0.0, False, 0.0, 1.0, 0)
     lab_xy = np.array([(x, y) for _, x, y in texts]).reshape(-1, 2)
@@ -274,28 +275,31 @@ def gds_units(lib: StreamLibrary, source: str, *, cell: str | None,
              depth: int) -> None:
         if depth > 64:
             raise LayoutError(f"{source}: references nest deeper than 64 levels (a cycle?)")
-        for r in cells[name].refs:
-            count("cells")
-            x, y = _apply(r.x, r.y, tx, ty, refl, ang, mag)
-            a = ang + (-r.angle_deg if refl else r.angle_deg)
-            rf, m = refl ^ r.reflect, mag * r.mag
-            child = cells[r.cell]
-            box = boxes.get(r.cell)
-            if box is None:                          # nothing drawn: not a unit
-                continue
-            corners = [_apply(cx, cy, x, y, rf, a, m) for cx in (box[0], box[2])
-                       for cy in (box[1], box[3])]
-            inst = (min(c[0] for c in corners), min(c[1] for c in corners),
-                    max(c[0] for c in corners), max(c[1] for c in corners))
-            n_labels = labels_in(inst)
-            unit = (not child.refs or r.cell in named or "DUMMY" in r.cell.upper()
-                    or n_labels == 1)
-            if unit:
-                placed.append((r.cell, (inst[0] + inst[2]) / 2, (inst[1] + inst[3]) / 2, rf, a))
-                if len(placed) > MAX_SLOTS:
-                    raise LimitError(f"{source}: more than {MAX_SLOTS} unit cells, the limit")
-            else:
-                walk(r.cell, x, y, rf, a, m, depth + 1)
+        for ref in cells[name].refs:
+            for r in ref.instances():
+                count("cells")
+                x, y = _apply(r.x, r.y, tx, ty, refl, ang, mag)
+                a = ang + (-r.angle_deg if refl else r.angle_deg)
+                rf, m = refl ^ r.reflect, mag * r.mag
+                child = cells[r.cell]
+                box = boxes.get(r.cell)
+                if box is None:                          # nothing drawn: not a unit
+                    continue
+                corners = [_apply(cx, cy, x, y, rf, a, m) for cx in (box[0], box[2])
+                           for cy in (box[1], box[3])]
+                inst = (min(c[0] for c in corners), min(c[1] for c in corners),
+                        max(c[0] for c in corners), max(c[1] for c in corners))
+                n_labels = labels_in(inst)
+                unit = (not child.refs or r.cell in named or "DUMMY" in r.cell.upper()
+                        or n_labels == 1)
+                if unit:
+                    placed.append((r.cell, (inst[0] + inst[2]) / 2, (inst[1] + inst[3]) / 2,
+                                   rf, a))
+                    if len(placed) > MAX_SLOTS:
+                        raise LimitError(f"{source}: more than {MAX_SLOTS} unit cells, the "
+                                         "limit")
+                else:
+                    walk(r.cell, x, y, rf, a, m, depth + 1)
 
     walk(top, 0.0, 0.0, False, 0.0, 1.0, 0)
     notes.append(f"top cell {shown(top[:64])}: {len(placed)} unit references")
@@ -328,12 +332,12 @@ def _check_work(cells: dict[str, Structure], top: str, has_label: Callable[[str]
         visits = units = 0
         for r in cells[name].refs:
             child = cells[r.cell]
-            visits += 1
+            visits += r.count
             if not child.refs:
-                units += boxes.get(r.cell) is not None
+                units += r.count if boxes.get(r.cell) is not None else 0
             elif not (r.cell in named or "DUMMY" in r.cell.upper() or has_label(r.cell)):
                 v, u = bounds(r.cell, depth + 1)        # certainly descended into
-                visits, units = visits + v, units + u
+                visits, units = visits + r.count * v, units + r.count * u
             visits, units = min(visits, cap_visits), min(units, cap_units)
             if visits >= cap_visits and units >= cap_units:
                 break
@@ -363,16 +367,17 @@ def _full_boxes(lib: StreamLibrary, source: str) -> dict[str, tuple[float, float
             raise LayoutError(f"{source}: references nest deeper than 64 levels (a cycle?)")
         s = cells[name]
         b = s.bbox
-        for r in s.refs:
-            child = box(r.cell, depth + 1)
+        for ref in s.refs:
+            child = box(ref.cell, depth + 1)
             if child is None:
                 continue
-            corners = [_apply(cx, cy, r.x, r.y, r.reflect, r.angle_deg, r.mag)
-                       for cx in (child[0], child[2]) for cy in (child[1], child[3])]
-            xs, ys = [c[0] for c in corners], [c[1] for c in corners]
-            cb = (min(xs), min(ys), max(xs), max(ys))
-            b = cb if b is None else (min(b[0], cb[0]), min(b[1], cb[1]), max(b[2], cb[2]),
-                                      max(b[3], cb[3]))
+            for r in ref.corners():                   # an array's corners span it
+                corners = [_apply(cx, cy, r.x, r.y, r.reflect, r.angle_deg, r.mag)
+                           for cx in (child[0], child[2]) for cy in (child[1], child[3])]
+                xs, ys = [c[0] for c in corners], [c[1] for c in corners]
+                cb = (min(xs), min(ys), max(xs), max(ys))
+                b = cb if b is None else (min(b[0], cb[0]), min(b[1], cb[1]),
+                                          max(b[2], cb[2]), max(b[3], cb[3]))
         out[name] = b
         return b
 
@@ -613,8 +618,14 @@ def read_layout(path: Path, *, spec: Spec | None = None, cell: str | None = None
                 mapping: dict[str, str] | None = None, label_layer: tuple[int, int] = (10, 0),
                 dummy_cells: set[str] | None = None) -> Recognised:
     """Read a pattern, a CSV of unit centres or a GDSII layout, chosen by content."""
-    data = read_limited(path, MAX_LAYOUT_BYTES, "layout", LayoutError)
-    fmt = detect_format(data[:4096])
+    lib = None
+    with mapped(path, MAX_LAYOUT_BYTES, "layout", LayoutError) as view:
+        fmt = detect_format(bytes(view[:4096]))
+        if fmt == "gds":
+            lib = parse_stream(view, str(path))       # reads only as far as it must
+            data = b""
+        else:
+            data = bytes(view)                        # text: a pattern or a CSV
     notes: list[str] = []
     if fmt == "pattern":
         if len(data) > MAX_FILE_BYTES:
@@ -640,7 +651,7 @@ def read_layout(path: Path, *, spec: Spec | None = None, cell: str | None = None
         units = read_csv_units(text, str(path))
         notes.append(f"{len(units)} units from CSV rows")
     else:
-        lib = parse_stream(data, str(path))
+        assert lib is not None
         notes.append(f"GDSII library {shown(lib.name)}, {len(lib.structures)} cells, user unit "
                      f"{lib.user_in_m:g} m")
         if abs(lib.user_in_m - 1e-6) > 1e-12:
