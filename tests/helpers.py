@@ -4,6 +4,7 @@ process, one-line refusals, and writing a spec file."""
 from __future__ import annotations
 
 import os
+import struct
 import subprocess
 import sys
 from pathlib import Path
@@ -36,3 +37,61 @@ def spec_file(tmp: Path, text: str, name: str = "s.toml") -> Path:
     path = tmp / name
     path.write_text(text)
     return path
+
+
+# ----------------------------------------------------------- GDSII written record by record
+# From the stream format's definition (record = 2-byte length, type, data type, data),
+# so tests and benchmarks can build files no library would write.
+
+def _rec(rt: int, dt: int, data: bytes = b"") -> bytes:
+    data += b"\0" * (len(data) % 2)
+    return struct.pack(">HBB", 4 + len(data), rt, dt) + data
+
+
+def _real8(x: float) -> bytes:
+    """GDSII's excess-64 base-16 real of a positive ``x``."""
+    exp = 64
+    while x >= 1:
+        x, exp = x / 16, exp + 1
+    while x < 1 / 16:
+        x, exp = x * 16, exp - 1
+    return bytes([exp]) + int(x * (1 << 56)).to_bytes(7, "big")
+
+
+def gds_records(cells: list[tuple[bytes, bytes]]) -> bytes:
+    """A stream (user unit 1 um, database unit 1 nm) of ``cells``: (name, elements)."""
+    date = struct.pack(">12h", *([2026, 1, 1, 0, 0, 0] * 2))
+    out = (_rec(0x00, 0x02, struct.pack(">h", 600)) + _rec(0x01, 0x02, date)
+           + _rec(0x02, 0x06, b"LIB") + _rec(0x03, 0x05, _real8(1e-3) + _real8(1e-9)))
+    for name, body in cells:
+        out += _rec(0x05, 0x02, date) + _rec(0x06, 0x06, name) + body + _rec(0x07, 0x00)
+    return out + _rec(0x04, 0x00)
+
+
+def gds_box(layer: int = 1) -> bytes:
+    """A 1 x 1 um boundary at the origin."""
+    return (_rec(0x08, 0x00) + _rec(0x0D, 0x02, struct.pack(">h", layer))
+            + _rec(0x0E, 0x02, struct.pack(">h", 0))
+            + _rec(0x10, 0x03, struct.pack(">10i", 0, 0, 1000, 0, 1000, 1000, 0, 1000, 0, 0))
+            + _rec(0x11, 0x00))
+
+
+def gds_ref(name: bytes, x: int) -> bytes:
+    """An SREF of ``name`` at (x, 0) database units."""
+    return (_rec(0x0A, 0x00) + _rec(0x12, 0x06, name)
+            + _rec(0x10, 0x03, struct.pack(">2i", x, 0)) + _rec(0x11, 0x00))
+
+
+def gds_aref(name: bytes, cols: int, rows: int) -> bytes:
+    """An AREF of ``name``, ``cols`` x ``rows`` at a 2 um step."""
+    return (_rec(0x0B, 0x00) + _rec(0x12, 0x06, name)
+            + _rec(0x13, 0x02, struct.pack(">hh", cols, rows))
+            + _rec(0x10, 0x03, struct.pack(">6i", 0, 0, cols * 2000, 0, 0, rows * 2000))
+            + _rec(0x11, 0x00))
+
+
+def gds_text(text: bytes, x: int, y: int, layer: int = 10) -> bytes:
+    """A TEXT element on ``layer``/0 at (x, y) database units."""
+    return (_rec(0x0C, 0x00) + _rec(0x0D, 0x02, struct.pack(">h", layer))
+            + _rec(0x16, 0x02, struct.pack(">h", 0)) + _rec(0x10, 0x03, struct.pack(">2i", x, y))
+            + _rec(0x19, 0x06, text) + _rec(0x11, 0x00))

@@ -21,7 +21,17 @@ import pytest
 from placer.errors import LimitError, PlacerError
 from placer.io.staging import OutputError, OutputSet
 from placer.jobs.load import parse_spec
-from tests.helpers import ROOT, refused, run_placer, spec_file
+from tests.helpers import (
+    ROOT,
+    gds_aref,
+    gds_box,
+    gds_records,
+    gds_ref,
+    gds_text,
+    refused,
+    run_placer,
+    spec_file,
+)
 
 MIRROR = (ROOT / "samples" / "bias_mirror.toml").read_text()
 
@@ -422,69 +432,17 @@ def test_a_csv_coordinate_error_quotes_the_values(tmp_path):
     assert "{x}" not in res.stderr
 
 
-def _gds_records(cells: list[tuple[bytes, bytes]]) -> bytes:
-    """A GDSII stream (user unit 1 um, database unit 1 nm) of ``cells`` (name, elements),
-    written record by record from the stream format's definition."""
-    import struct
-
-    def rec(rt: int, dt: int, data: bytes = b"") -> bytes:
-        data += b"\0" * (len(data) % 2)
-        return struct.pack(">HBB", 4 + len(data), rt, dt) + data
-
-    def real8(x: float) -> bytes:
-        exp = 64
-        while x >= 1:
-            x, exp = x / 16, exp + 1
-        while x < 1 / 16:
-            x, exp = x * 16, exp - 1
-        return bytes([exp]) + int(x * (1 << 56)).to_bytes(7, "big")
-
-    date = struct.pack(">12h", *([2026, 1, 1, 0, 0, 0] * 2))
-    out = (rec(0x00, 0x02, struct.pack(">h", 600)) + rec(0x01, 0x02, date)
-           + rec(0x02, 0x06, b"LIB") + rec(0x03, 0x05, real8(1e-3) + real8(1e-9)))
-    for name, body in cells:
-        out += rec(0x05, 0x02, date) + rec(0x06, 0x06, name) + body + rec(0x07, 0x00)
-    return out + rec(0x04, 0x00)
-
-
-def _box() -> bytes:
-    import struct
-
-    return (struct.pack(">HBB", 4, 0x08, 0) + struct.pack(">HBBh", 6, 0x0D, 2, 1)
-            + struct.pack(">HBBh", 6, 0x0E, 2, 0)
-            + struct.pack(">HBB10i", 44, 0x10, 3, 0, 0, 1000, 0, 1000, 1000, 0, 1000, 0, 0)
-            + struct.pack(">HBB", 4, 0x11, 0))
-
-
-def _ref(name: bytes, x: int) -> bytes:
-    import struct
-
-    name += b"\0" * (len(name) % 2)
-    return (struct.pack(">HBB", 4, 0x0A, 0) + struct.pack(">HBB", 4 + len(name), 0x12, 6)
-            + name + struct.pack(">HBB2i", 12, 0x10, 3, x, 0) + struct.pack(">HBB", 4, 0x11, 0))
-
-
-def _aref(name: bytes, cols: int, rows: int) -> bytes:
-    import struct
-
-    name += b"\0" * (len(name) % 2)
-    return (struct.pack(">HBB", 4, 0x0B, 0) + struct.pack(">HBB", 4 + len(name), 0x12, 6)
-            + name + struct.pack(">HBBhh", 8, 0x13, 2, cols, rows)
-            + struct.pack(">HBB6i", 28, 0x10, 3, 0, 0, cols * 2000, 0, 0, rows * 2000)
-            + struct.pack(">HBB", 4, 0x11, 0))
-
-
 @pytest.mark.parametrize("bomb", ["aref", "nested"])
 def test_header_bombs_are_refused_from_the_reference_counts(tmp_path, bomb):
     """A 334-byte file with one 1000 x 400 AREF of a unit (11 s before its refusal) and
     three levels of 100 references each (9 s) are refused from the reference counts,
     before any instance is placed (bench_limits.py times them)."""
     if bomb == "aref":
-        data = _gds_records([(b"U", _box()), (b"TOP", _aref(b"U", 1000, 400))])
+        data = gds_records([(b"U", gds_box()), (b"TOP", gds_aref(b"U", 1000, 400))])
     else:
         names = [b"U", b"A", b"B", b"TOP"]
-        data = _gds_records([(b"U", _box())] + [
-            (names[i], b"".join(_ref(names[i - 1], k * 2000) for k in range(100)))
+        data = gds_records([(b"U", gds_box())] + [
+            (names[i], b"".join(gds_ref(names[i - 1], k * 2000) for k in range(100)))
             for i in range(1, 4)])
     path = tmp_path / f"{bomb}.gds"
     path.write_bytes(data)
@@ -493,15 +451,10 @@ def test_header_bombs_are_refused_from_the_reference_counts(tmp_path, bomb):
 
 
 def test_a_file_of_text_records_is_refused_at_the_text_limit(tmp_path):
-    import struct
-
     from placer.io.gdsread import MAX_TEXTS
 
-    text = (struct.pack(">HBB", 4, 0x0C, 0) + struct.pack(">HBBh", 6, 0x0D, 2, 9)
-            + struct.pack(">HBBh", 6, 0x16, 2, 0) + struct.pack(">HBB2i", 12, 0x10, 3, 0, 0)
-            + struct.pack(">HBB", 6, 0x19, 6) + b"AB" + struct.pack(">HBB", 4, 0x11, 0))
     path = tmp_path / "texts.gds"
-    path.write_bytes(_gds_records([(b"TOP", text * (MAX_TEXTS + 1))]))
+    path.write_bytes(gds_records([(b"TOP", gds_text(b"AB", 0, 0, 9) * (MAX_TEXTS + 1))]))
     res = run_placer(["grade", str(path)], tmp_path)
     refused(res, f"more than {MAX_TEXTS} text labels")
 

@@ -46,6 +46,23 @@ CASES: list[tuple[str, str, int]] = [
      + "[monte_carlo]\nsamples = 1000000\n", 1),
 ]
 
+def _layout_bombs() -> list[tuple[str, bytes]]:
+    """Hand layouts that would expand to far more than the limits, for ``grade``."""
+    from tests.helpers import gds_aref, gds_box, gds_records, gds_ref, gds_text
+
+    names = [b"U", b"A", b"B", b"TOP"]
+    return [
+        ("refused (grade): one 1000 x 400 AREF of a unit",
+         gds_records([(b"U", gds_box()), (b"TOP", gds_aref(b"U", 1000, 400))])),
+        ("refused (grade): 3 levels of 100 references",
+         gds_records([(b"U", gds_box())] + [
+             (names[i], b"".join(gds_ref(names[i - 1], k * 2000) for k in range(100)))
+             for i in range(1, 4)])),
+        ("refused (grade): 4 900 000 text records",
+         gds_records([(b"TOP", gds_text(b"AB", 0, 0, 9) * 4_900_000)])),
+    ]
+
+
 _WRAP = """
 import resource, subprocess, sys, time
 t = time.perf_counter()
@@ -68,6 +85,17 @@ def measure(text: str) -> tuple[int, float, float, str]:
     return int(out[0]), float(out[1]), int(out[2]) / 1024, out[3].strip()
 
 
+def measure_grade(data: bytes) -> tuple[int, float, float, str]:
+    """(exit code, wall seconds, peak MB, last stderr line) of grading one GDSII file."""
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / "bomb.gds"
+        path.write_bytes(data)
+        out = subprocess.run([sys.executable, "-c", _WRAP, sys.executable, "-m", "placer",
+                              "grade", str(path)],
+                             capture_output=True, text=True, cwd=tmp).stdout.split(" ", 3)
+    return int(out[0]), float(out[1]), int(out[2]) / 1024, out[3].strip()
+
+
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--update-readme", action="store_true")
@@ -80,8 +108,14 @@ def main() -> int:
         bad += code != want
         rows.append(f"| {label} | {code} | {wall:.1f} | {mb:.0f} |")
         print(rows[-1], last if code else "", flush=True)
+    for label, data in _layout_bombs():
+        code, wall, mb, last = measure_grade(data)
+        bad += code != 1
+        rows.append(f"| {label} | {code} | {wall:.1f} | {mb:.0f} |")
+        print(rows[-1], last, flush=True)
     block = "\n".join([*rows, "", f"`python tests/bench/bench_limits.py` "
-                       f"(`arrange --time-limit 1`, each in a fresh process; "
+                       f"(`arrange --time-limit 1`, or `grade` where marked, each in a fresh "
+                       f"process; "
                        f"{time.perf_counter() - t0:.0f} s in all)."])
     if args.update_readme:
         replace_block("bench:limits", block)
