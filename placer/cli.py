@@ -358,6 +358,17 @@ class _Progress:
             click.echo("\r" + " " * 72 + "\r", err=True, nl=False)
 
 
+def no_drawing_note(spec: Spec) -> str:
+    """Why an arrangement at the spec's pitch has no GDSII, and the ways to get one."""
+    need = pitch.pitch_needed(spec, tracks=1)
+    px, py = spec.array.pitch_um
+    return (f"No GDSII written: the spec's pitch_um = [{px:g}, {py:g}] is smaller than "
+            f"placer's generic unit cell with one routing track needs ([{need[0]:g}, "
+            f"{need[1]:g}] um); the pattern, figures and pictures hold at this pitch. Give "
+            "your own cell with --unit-gds, rules with --template, or omit pitch_um for "
+            "placer's drawing.")
+
+
 def _tools(spec: Spec, template_path: Path | None, layers_path: Path | None,
            unit_gds: Path | None, unit_cell: str | None) -> tuple[Spec, Any]:
     from placer.layout.block import load_tools
@@ -411,30 +422,45 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
     (budget.png).
     """
     from placer.layout import block as drawing
+    from placer.layout.router import RouteError
+
     spec = load_spec(spec_path)
-    spec, tools = _tools(spec, template_path, layers_path, unit_gds, unit_cell)
-    names = outputs.arrange_names(spec, n_candidates)
+    note = None
+    try:
+        spec, tools = _tools(spec, template_path, layers_path, unit_gds, unit_cell)
+    except RouteError:
+        # a given pitch too fine for placer's generic cell: the pattern, the scores, the
+        # budget and the pictures hold at any pitch; only the drawing needs a cell
+        if unit_gds is not None or template_path is not None or not spec.array.pitch_given:
+            raise
+        tools, note = None, no_drawing_note(spec)
+    names = outputs.arrange_names(spec, n_candidates, drawn=tools is not None)
     with OutputSet(out_dir, names, force, outputs.ARRANGE_FILES) as out:
         progress = _Progress(not quiet and sys.stderr.isatty())
         try:
             result = run_arrange(spec, method=method, seed=seed, time_limit_s=time_limit,
                                  n_candidates=n_candidates, progress=progress,
-                                 fit=tools.fit, weigh=tools.weigh)
+                                 fit=tools.fit if tools is not None else None,
+                                 weigh=tools.weigh if tools is not None else None)
         finally:
             progress.done()
         spec = result.spec or spec           # at the pitch its routing needs
         # the search is over: finish the outputs as one set before honouring a signal
         with _deferred_signals() as caught:
-            block = drawing.prepare(result.pattern, spec, tools)
+            block = (drawing.prepare(result.pattern, spec, tools) if tools is not None
+                     else None)
             bud = _budget(result.pattern, spec, result.grade, required=False,
                           block=block)
             outputs.write_arrangement(out, result, block, bud, spec_path=spec_path, seed=seed,
-                                      time_limit_s=time_limit)
+                                      time_limit_s=time_limit, spec=spec, note=note)
             written = out.commit()
             # the set is complete: a signal now only shortens the exit, never the report
             click.echo(format_arrangement(result, spec))
             click.echo("")
-            click.echo(format_nets(block.wiring, area=drawing.area_of(block)))
+            if block is not None:
+                click.echo(format_nets(block.wiring, area=drawing.area_of(block)))
+            else:
+                click.echo(note)
             if bud is not None:
                 click.echo("")
                 click.echo(format_budget(bud))

@@ -4,6 +4,7 @@ import json
 
 from placer.cli import cli
 from placer.io.pattern import read_pattern
+from tests.helpers import ROOT
 
 SPEC = '[devices]\nMREF = 2\nMOUT = 4\n[array]\nrows = 1\ncolumns = 6\ndummies = "ends"\n'
 
@@ -84,3 +85,39 @@ def test_baseline_methods_run(runner, write, tmp_path):
         else:
             assert f"Method {method};" in result.output
             assert "no search, no bound" in result.output
+
+
+def test_a_pitch_finer_than_placers_cell_still_gives_the_pattern_and_its_figures(tmp_path,
+                                                                                 runner):
+    """pitch_um = [0.5, 2.0] (tall cells of the user's own): the search, the figures, the
+    budget and the pictures hold at any pitch; only the GDSII and its netlist need a cell
+    that fits, and the run says in one line why they are not there."""
+    import json
+
+    spec = tmp_path / "tall.toml"
+    spec.write_text("[devices]\nA = 4\nB = 4\n[array]\nrows = 2\npitch_um = [0.5, 2.0]\n")
+    out = tmp_path / "o"
+    result = runner.invoke(cli, ["arrange", str(spec), "--out", str(out), "--time-limit", "2",
+                                 "--quiet"])
+    assert result.exit_code == 0, result.output
+    assert sorted(p.name for p in out.iterdir()) == ["pattern.png", "pattern.svg",
+                                                     "pattern.txt", "report.json"]
+    assert "No GDSII written: the spec's pitch_um = [0.5, 2]" in result.output
+    report = json.loads((out / "report.json").read_text())
+    assert report["layout"] is None and "--unit-gds" in report["layout_note"]
+    graded = runner.invoke(cli, ["grade", str(out / "pattern.txt"), "--spec", str(spec),
+                                 "--json"])
+    assert graded.exit_code == 0, graded.output
+    pairs = json.loads(graded.output)["pairs"]
+    assert [p["linear_ppm"] for p in pairs] == [p["linear_ppm"] for p in report["grade"]["pairs"]]
+
+
+def test_a_pitch_finer_than_a_given_template_is_still_refused(tmp_path, runner):
+    """With --template (or --unit-gds) the user asked for a drawing with that cell: a
+    pitch it cannot hold stays a one-line refusal."""
+    spec = tmp_path / "tall.toml"
+    spec.write_text("[devices]\nA = 4\nB = 4\n[array]\nrows = 2\npitch_um = [0.5, 2.0]\n")
+    template = ROOT / "templates" / "mos_finger.toml"
+    result = runner.invoke(cli, ["arrange", str(spec), "--out", str(tmp_path / "o"),
+                                 "--template", str(template), "--time-limit", "1"])
+    assert result.exit_code == 1 and "leaves no room for the unit cell" in result.output

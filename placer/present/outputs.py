@@ -49,20 +49,25 @@ def write_block(block: Block, grade: Grade, out: OutputSet, stem: str,
 
 # ----------------------------------------------------------------------------- arrange
 
-def arrange_names(spec: Spec, n_candidates: int) -> list[str]:
-    """The files of an arrange run of ``spec`` with ``n_candidates`` candidates."""
-    return ["pattern.txt", "report.json", "pattern.gds", "pattern.sp", "pattern.png",
-            "pattern.svg", *(["budget.png"] if spec.electrical is not None else []),
+def arrange_names(spec: Spec, n_candidates: int, drawn: bool = True) -> list[str]:
+    """The files of an arrange run of ``spec`` with ``n_candidates`` candidates
+    (``drawn``: with the routed GDSII and its netlist)."""
+    return ["pattern.txt", "report.json", *(["pattern.gds", "pattern.sp"] if drawn else []),
+            "pattern.png", "pattern.svg",
+            *(["budget.png"] if spec.electrical is not None else []),
             *(f"candidate-{i}.{x}" for i in range(1, n_candidates + 1) for x in ("txt", "png"))]
 
 
-def write_arrangement(out: OutputSet, result: Arrangement, block: Block, budget: Any, *,
-                      spec_path: Path, seed: int, time_limit_s: float) -> None:
+def write_arrangement(out: OutputSet, result: Arrangement, block: Block | None, budget: Any,
+                      *, spec_path: Path, seed: int, time_limit_s: float, spec: Spec,
+                      note: str | None = None) -> None:
     """Stage every file of :func:`arrange_names` for ``result`` and its routed ``block``
-    (the block's spec is at the pitch its routing needs)."""
+    (the block's spec is at the pitch its routing needs); with no block (a pitch placer's
+    cell cannot be drawn at), no GDSII or netlist, and ``note`` in the report says why."""
     from placer.layout.netlist import netlist
 
-    spec = block.spec
+    spec = block.spec if block is not None else spec
+    extent = block.cell.extent if block is not None else None
     header = [f"{spec.name}: {result.method}, core {result.core_shape[0]} x "
               f"{result.core_shape[1]}, seed {seed}",
               f"linear {result.keys.linear_um:.6g} um, quadratic "
@@ -79,15 +84,20 @@ def write_arrangement(out: OutputSet, result: Arrangement, block: Block, budget:
         save_preview(cand.pattern, spec.array.pitch_um, grade_pattern(cand.pattern, spec),
                      f"{spec.name} candidate {i} ({cand.source}): routing "
                      f"{cand.routing_um:.4g} um", [out.path(f"candidate-{i}.png")],
-                     cell_extent=block.cell.extent)
+                     cell_extent=extent)
     report = {"spec": str(spec_path), "name": spec.name, "seed": seed,
               "time_limit_s": time_limit_s, **result.to_dict(),
               "pattern": format_pattern(result.pattern),
-              "layout": layout_report(block),
+              "layout": layout_report(block) if block is not None else None,
+              **({"layout_note": note} if note is not None else {}),
               "budget": asdict(budget) if budget is not None else None}
     out.write("report.json", json_text(report) + "\n")
-    out.write("pattern.sp", netlist(spec, block.parasitics))
-    write_block(block, result.grade, out, "pattern")
+    if block is not None:
+        out.write("pattern.sp", netlist(spec, block.parasitics))
+        write_block(block, result.grade, out, "pattern")
+    else:
+        save_preview(result.pattern, spec.array.pitch_um, result.grade, spec.name,
+                     [out.path("pattern.png"), out.path("pattern.svg")])
     if budget is not None:
         save_budget(budget, spec.name, [out.path("budget.png")], devices=spec.devices)
 
