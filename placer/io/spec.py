@@ -202,6 +202,9 @@ class SearchSpec:
     #: the drawn wiring's error joins the objective: among the arrangements the search
     #: kept, the least gradient + wiring error wins (each one routed and extracted)
     wiring: bool = False
+    #: a core with spare slots inside is chosen over a full one only when its systematic
+    #: error is lower by at least this fraction of the worst pair's random sigma
+    hole_gain: float = 0.01
 
 
 FITS = ("endpoint", "best")
@@ -378,7 +381,7 @@ _SCHEMA: dict[str, tuple[str, ...]] = {
     "correlated": ("sigma_ppm", "length_um", "kernel"),
     "mismatch": ("a_param_pct_um", "a_vt_mv_um"),
     "monte_carlo": ("samples", "seed"),
-    "search": ("objective", "cancel_order", "relative_tie", "wiring"),
+    "search": ("objective", "cancel_order", "relative_tie", "wiring", "hole_gain"),
     "routing": ("metal1_ohm_per_sq", "metal2_ohm_per_sq", "via_ohm", "wire_ff_per_um",
                 "coupling_ff_per_um", "overlap_ff_per_um2"),
     "electrical": ("reference", "vov_v", "gm_id_per_v", "lambda_per_v", "vds_v",
@@ -401,6 +404,7 @@ _RANGES: dict[tuple[str, str], tuple[float, float, str]] = {
     ("mismatch", "a_param_pct_um"): (0.0, 100.0, " %um"),
     ("mismatch", "a_vt_mv_um"): (0.0, 1000.0, " mV um"),
     ("search", "relative_tie"): (0.0, 0.1, ""),
+    ("search", "hole_gain"): (0.0, 1000.0, ""),
     ("routing", "metal1_ohm_per_sq"): (0.0, 1e6, " ohm/sq"),
     ("routing", "metal2_ohm_per_sq"): (0.0, 1e6, " ohm/sq"),
     ("routing", "via_ohm"): (0.0, 1e6, " ohm"),
@@ -678,6 +682,7 @@ def read_spec_text(text: str, source: str = "<spec>", default_name: str = "place
         se.integer("cancel_order", ds.cancel_order, low=1, high=4) or ds.cancel_order,
         tie,
         se.flag("wiring", ds.wiring),
+        _num(se, "hole_gain", ds.hole_gain),
     )
 
     electrical = None

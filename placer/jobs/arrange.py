@@ -352,16 +352,35 @@ def _holes(t: _Tried) -> bool:
     return t.prob.n_spare() > 0
 
 
-def _pick(tried: list[_Tried]) -> _Tried:
-    """The best shape; one with spare slots must beat the best full one by HOLE_MARGIN."""
+def _pick(tried: list[_Tried], spec: Spec) -> _Tried:
+    """The best shape; one with spare slots inside must beat the best full one by
+    HOLE_MARGIN and by ``[search] hole_gain`` of the worst pair's random sigma: a full,
+    regular core is the default, and holes must buy a gain that matters beside the random
+    error (not a fraction of a ppm beside thousands)."""
     order = sorted(range(len(tried)), key=lambda i: (rank_key(tried[i].prob)(tried[i].keys), i))
     best = tried[order[0]]
     full = [tried[i] for i in order if not _holes(tried[i])]
     if _holes(best) and full:
         f = full[0]
-        if _systematic(best.prob, best.keys) > HOLE_MARGIN * _systematic(f.prob, f.keys):
+        gain = _systematic(f.prob, f.keys) - _systematic(best.prob, best.keys)
+        sigma = float(np.hypot(f.keys.sigma_ppm, _white_sigma_ppm(spec)))
+        if (_systematic(best.prob, best.keys) > HOLE_MARGIN * _systematic(f.prob, f.keys)
+                or gain < spec.search.hole_gain * sigma):
             return f
     return best
+
+
+def _white_sigma_ppm(spec: Spec) -> float:
+    """The area law's sigma of the worst ranked pair (the two smallest devices), ppm."""
+    from placer.model.variation import pelgrom_sigma
+
+    area = {n: c * spec.unit.area_um2 for n, c in zip(spec.devices, spec.counts, strict=True)}
+    pairs = spec.ranked_pairs()
+    if not pairs:
+        return 0.0
+    return max(1e4 * float(pelgrom_sigma(spec.mismatch.a_param_pct_um,
+                                         area[spec.devices[a]], area[spec.devices[b]]))
+               for a, b in pairs)
 
 
 def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
@@ -438,7 +457,7 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
             break
     if not tried:
         raise KeyboardInterrupt
-    best = _pick(tried)
+    best = _pick(tried, spec)
     rows, cols = best.shape
     out = best.result
     # a shape whose share of the time ran out makes the whole run "time limit", even

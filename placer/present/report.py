@@ -184,8 +184,9 @@ def format_arrangement(result: Arrangement, spec: Spec) -> str:
     elif searched:
         stopped = result.stopped
         if result.proven and stopped == "time limit":
-            # the chosen core's search was proven; the time limit cut another shape's
-            stopped = "proven optimal (the time limit cut the search on another core shape)"
+            # beside "(proven optimal)" on the linear line: what the limit cut was the
+            # rest (the later keys, or another core shape), not the proof
+            stopped = "time limit, after the linear optimum was proven"
         out.append(f"Search: {result.elapsed_s:.2f} s, {result.moves} moves, "
                    f"{result.nodes} branch-and-bound nodes, stopped: {stopped}.")
     else:
