@@ -388,6 +388,47 @@ def _gradient_field(spec: Spec, grade: Grade) -> tuple[float, float] | None:
 
 
 @cli.command()
+@click.argument("paths", metavar="SPEC_OR_FOLDER...", nargs=-1, required=True,
+                type=click.Path(exists=True, path_type=Path))
+@click.option("--out", "out_dir", type=_OUT, required=True,
+              help="Folder for the batch: one folder per block, summary.json, index.html.")
+@click.option("--time-limit", "time_limit", type=_TIME, default=10.0, show_default=True,
+              help="Each block's search time limit, seconds.")
+@click.option("--seed", type=_SEED, default=0, show_default=True, help="Each block's seed.")
+@click.option("--jobs", type=click.IntRange(min=1, max=64), default=None,
+              help="Blocks at once [default: the machine's cores].")
+@click.option("--quiet", is_flag=True, help="No line per finished block.")
+@click.option("--force", is_flag=True, help="Replace a previous batch's files.")
+@_user_errors
+def batch(paths: tuple[Path, ...], out_dir: Path, time_limit: float, seed: int,
+          jobs: int | None, quiet: bool, force: bool) -> None:
+    """Arrange every spec (a folder: its *.toml files), several at a time.
+
+    Each block is an arrange run into OUT/<spec name>/ with its own outputs; the batch
+    adds summary.json and index.html (every block's figures and preview). Exit 1 when a
+    block failed (the summary says which and why).
+    """
+    from placer.jobs.batch import find_specs, run_batch
+    from placer.present.report import format_batch
+
+    specs = find_specs(list(paths))
+    n_jobs = jobs or (len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity")
+                      else (os.cpu_count() or 1))
+    t0 = time.monotonic()
+    with OutputSet(out_dir, outputs.BATCH_FILES, force) as out:
+        runs = run_batch(specs, out_dir, time_limit_s=time_limit, seed=seed, jobs=n_jobs,
+                         force=force, progress=not quiet)
+        wall = time.monotonic() - t0
+        outputs.write_batch(out, runs, wall_s=wall, jobs=n_jobs, time_limit_s=time_limit,
+                            seed=seed)
+        out.commit()
+    click.echo(format_batch(runs, wall, n_jobs))
+    click.echo(f"Wrote {out_dir}/index.html, summary.json and a folder per block.")
+    if any(r.exit_code != 0 for r in runs):
+        sys.exit(1)
+
+
+@cli.command()
 @click.argument("spec_path", metavar="SPEC", type=_FILE)
 @click.option("--out", "out_dir", type=_OUT,
               required=True,

@@ -26,7 +26,7 @@ if TYPE_CHECKING:
 
 __all__ = ["write_block", "ARRANGE_FILES", "arrange_names", "write_arrangement",
            "draw_names", "compare_names", "lesson_name", "repair_names", "write_repair",
-           "layout_report", "swap_lines"]
+           "layout_report", "swap_lines", "BATCH_FILES", "write_batch"]
 
 #: Every file an arrange run may write (a --force run replaces them all, and only them).
 ARRANGE_FILES = ("pattern.txt", "report.json", "pattern.gds", "pattern.sp", "pattern.png",
@@ -177,3 +177,57 @@ def write_repair(out: OutputSet, result: RepairResult, spec: Spec, block: Block 
               "reached_target": result.reached_target, "grade": grade.to_dict(),
               "layout_nets": layout_report(block) if block is not None else None}
     out.write("repair.json", json_text(report) + "\n")
+
+
+# ----------------------------------------------------------------------------- batch
+
+#: The batch's own files, beside the blocks' folders.
+BATCH_FILES = ["summary.json", "index.html"]
+
+
+def write_batch(out: OutputSet, runs: list[Any], *, wall_s: float, jobs: int,
+                time_limit_s: float, seed: int) -> None:
+    """Stage the batch's summary.json and index.html (a page of every block: its figures,
+    its preview and links to its files, relative to the batch folder)."""
+    import html
+    from dataclasses import asdict
+
+    out.write("summary.json", json_text({
+        "blocks": [asdict(r) for r in runs], "wall_s": wall_s, "jobs": jobs,
+        "time_limit_s": time_limit_s, "seed": seed}) + "\n")
+
+    def num(v: float | None, digits: int = 4) -> str:
+        return "-" if v is None else f"{v:.{digits}g}"
+
+    rows = []
+    for r in runs:
+        name = html.escape(r.name)
+        if r.exit_code == 0:
+            cells = [f'<a href="{name}/pattern.png"><img src="{name}/pattern.png" alt="{name}" '
+                     'width="160"></a>',
+                     f"{r.devices}", f"{r.units}", f"{r.core[0]} x {r.core[1]}" if r.core else "",
+                     num(r.linear_ppm), num(r.quadratic_ppm), num(r.random_sigma_ppm),
+                     num(r.block_um2, 4),
+                     f'<a href="{name}/report.json">report</a> '
+                     f'<a href="{name}/pattern.txt">pattern</a> '
+                     f'<a href="{name}/pattern.gds">GDSII</a>']
+        else:
+            cells = ["", "", "", "", "", "", "", "", html.escape(r.error)]
+        rows.append(f"<tr><th>{name}</th>" + "".join(f"<td>{c}</td>" for c in cells) + "</tr>")
+    head = "".join(f"<th>{h}</th>" for h in ("block", "preview", "devices", "units", "core",
+                                              "linear ppm", "quad ppm", "sigma ppm",
+                                              "block um2", "files"))
+    page = f"""<!DOCTYPE html>
+<html lang="en"><head><meta charset="utf-8"><title>placer batch: {len(runs)} blocks</title>
+<style>body {{ font-family: sans-serif; margin: 1.5em; }} table {{ border-collapse: collapse; }}
+th, td {{ border: 1px solid #bbb; padding: 0.3em 0.6em; text-align: right; }}
+th:first-child {{ text-align: left; }}</style></head><body>
+<h1>{len(runs)} matched blocks</h1>
+<p>Each block arranged with a {time_limit_s:g} s time limit and seed {seed}, {jobs} at a time,
+in {wall_s:.1f} s. Figures are the worst pair's, in ppm: model estimates; confirm with the
+foundry's matching guidelines, extraction and the process's mismatch data.</p>
+<table><tr>{head}</tr>
+{chr(10).join(rows)}
+</table></body></html>
+"""
+    out.write("index.html", page)

@@ -13,7 +13,7 @@ if TYPE_CHECKING:
     from placer.jobs.arrange import Arrangement
 
 __all__ = ["format_grade", "format_table", "format_arrangement", "format_budget",
-           "format_nets", "grade_report", "format_sensitivity", "CAUTION"]
+           "format_nets", "grade_report", "format_sensitivity", "format_batch", "CAUTION"]
 
 CAUTION = ("Figures are model estimates under the assumptions above; confirm with the "
            "foundry's matching guidelines, extraction and the process's mismatch data.")
@@ -332,3 +332,19 @@ def format_sensitivity(sens: list[Any], worst_pair: str, rec: Any) -> str:
                     f"({u.x_um + rec.origin_um[0]:.4g}, {u.y_um + rec.origin_um[1]:.4g}"
                     f" um): {u.contribution_ppm:+.3g} ppm" for u in sens[:3])
     return f"Units adding most to {worst_pair}{frame}: {top}"
+
+
+def format_batch(runs: list[Any], wall_s: float, jobs: int) -> str:
+    """The batch's summary table: one line per block, then the totals."""
+    def num(v: float | None, digits: int = 3) -> str:
+        return "-" if v is None else _f(v, digits)
+
+    rows = [[r.name, str(r.devices or "-"), str(r.units or "-"),
+             f"{r.core[0]} x {r.core[1]}" if r.core else "-", num(r.linear_ppm),
+             num(r.quadratic_ppm), num(r.random_sigma_ppm), num(r.block_um2, 4),
+             f"{r.wall_s:.1f}", "ok" if r.exit_code == 0 else r.error[:70]] for r in runs]
+    failed = sum(r.exit_code != 0 for r in runs)
+    table = format_table(["block", "devices", "units", "core", "linear ppm", "quad ppm",
+                          "sigma ppm", "block um2", "s", "result"], rows)
+    return (f"{table}\n{len(runs)} blocks ({failed} failed), {jobs} at a time, in "
+            f"{wall_s:.1f} s. Figures are the worst pair's, model estimates.")

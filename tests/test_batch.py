@@ -1,0 +1,57 @@
+"""The batch command: every spec of a folder arranged, several at a time, each into its
+own folder with its own outputs, and a summary and an index page of all of them."""
+
+from __future__ import annotations
+
+import json
+import shutil
+
+from tests.helpers import SAMPLES, refused, run_placer, spec_file
+
+
+def test_a_folder_of_specs_is_arranged_into_a_folder_per_block_with_a_summary(tmp_path):
+    specs = tmp_path / "specs"
+    specs.mkdir()
+    for name in ("bias_mirror", "input_pair", "ref_ladder"):
+        shutil.copy(SAMPLES / f"{name}.toml", specs / f"{name}.toml")
+    res = run_placer(["batch", str(specs), "--out", "chip", "--time-limit", "1", "--jobs",
+                      "2", "--quiet"], tmp_path)
+    assert res.returncode == 0, res.stderr
+    chip = tmp_path / "chip"
+    summary = json.loads((chip / "summary.json").read_text())
+    assert [b["name"] for b in summary["blocks"]] == ["bias_mirror", "input_pair", "ref_ladder"]
+    for block in summary["blocks"]:
+        folder = chip / block["name"]
+        report = json.loads((folder / "report.json").read_text())
+        assert block["core"] == report["core_shape"] and block["exit_code"] == 0
+        assert (folder / "pattern.gds").stat().st_size > 0
+        assert f'{block["name"]}/pattern.png' in (chip / "index.html").read_text()
+    assert "3 blocks (0 failed), 2 at a time" in res.stdout
+
+
+def test_a_failing_block_is_reported_and_the_others_complete(tmp_path):
+    specs = tmp_path / "specs"
+    specs.mkdir()
+    shutil.copy(SAMPLES / "input_pair.toml", specs / "good.toml")
+    spec_file(specs, "[devices]\nA = 2\nB = 2\n[array]\nrows = 3\ncolumns = 3\n"
+                     "holes = false\n", "bad.toml")
+    res = run_placer(["batch", str(specs), "--out", "chip", "--time-limit", "1", "--quiet"],
+                     tmp_path)
+    assert res.returncode == 1
+    blocks = {b["name"]: b for b in json.loads((tmp_path / "chip" / "summary.json")
+                                               .read_text())["blocks"]}
+    assert blocks["good"]["exit_code"] == 0 and blocks["bad"]["exit_code"] == 1
+    assert "holes = false" in blocks["bad"]["error"]
+    assert not (tmp_path / "chip" / "bad").exists() or not any((tmp_path / "chip" / "bad")
+                                                                .iterdir())
+
+
+def test_two_specs_of_one_name_are_refused_before_any_run(tmp_path):
+    (tmp_path / "a").mkdir()
+    (tmp_path / "b").mkdir()
+    shutil.copy(SAMPLES / "input_pair.toml", tmp_path / "a" / "block.toml")
+    shutil.copy(SAMPLES / "bias_mirror.toml", tmp_path / "b" / "block.toml")
+    res = run_placer(["batch", str(tmp_path / "a"), str(tmp_path / "b"), "--out", "chip"],
+                     tmp_path)
+    refused(res, "would both write block/")
+    assert not (tmp_path / "chip").exists()
