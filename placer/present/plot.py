@@ -30,6 +30,8 @@ PALETTE = ("#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#C
            "#999999")
 DUMMY_COLOUR = "#FFFFFF"
 DUMMY_HATCH = "///"
+#: Outline of an empty slot (keep-out, or outside a masked footprint): faint, no fill.
+EMPTY_EDGE = "#C8C8C8"
 #: Hatches for devices past the 24 plain colours; slanted lines stay the dummies' own.
 _HATCHES = ("", "..", "oo", "++", "xx", "--", "||", "**", "O.", "+o", "x.")
 #: Patterns of more slots than this are drawn as one image (one pixel block a slot).
@@ -126,17 +128,24 @@ def draw_pattern(ax: Any, pattern: Pattern, pitch_um: tuple[float, float],
         xs = np.linspace(-px, cols * px, 64)
         ys = np.linspace(-rows * py, py, 64)
         gx, gy = np.meshgrid(xs, ys)
-        ax.imshow(gradient[0] * gx + gradient[1] * gy, extent=(xs[0], xs[-1], ys[0], ys[-1]),
-                  origin="lower", cmap="Greys", alpha=0.35, zorder=0, aspect="auto")
+        shade = ax.imshow(gradient[0] * gx + gradient[1] * gy,
+                          extent=(xs[0], xs[-1], ys[0], ys[-1]), origin="lower", cmap="Greys",
+                          alpha=0.35, zorder=0, aspect="auto")
+        ax.get_figure().colorbar(shade, ax=ax, orientation="horizontal", fraction=0.04,
+                                 pad=0.1, label="shading: the linear field, ppm from the "
+                                                "top-left slot (darker: higher)")
     by_style: dict[tuple[str, str, str], list[Any]] = {}
     if rows * cols > RASTER_SLOTS:
         _raster(ax, pattern, pitch_um, colours)
     for r in range(rows if rows * cols <= RASTER_SLOTS else 0):
         for c in range(cols):
             d = int(pattern.ids[r, c])
-            if d == EMPTY:
-                continue
             x, y = c * px, -r * py
+            if d == EMPTY:
+                # an empty slot (keep-out, or outside a masked footprint): a faint outline
+                by_style.setdefault(("none", "", EMPTY_EDGE), []).append(
+                    Rectangle((x + ox, y + oy), w, h))
+                continue
             if d == DUMMY:
                 key = (DUMMY_COLOUR, DUMMY_HATCH, "#888888")
             else:
@@ -260,6 +269,9 @@ def _legend(ax: Any, pattern: Pattern, grade: Grade | None, moved: bool = False)
         else:
             handles.append(Patch(facecolor=DUMMY_COLOUR, hatch=DUMMY_HATCH,
                                  edgecolor="#888888", label="dummy"))
+    if np.any(pattern.ids == EMPTY) and pattern.ids.size <= RASTER_SLOTS:
+        handles.append(Patch(facecolor="none", edgecolor=EMPTY_EDGE,
+                             label="empty slot"))
     if moved:
         handles.append(Patch(facecolor="none", edgecolor="#D00000", linewidth=2.2,
                              label="moved by the repair"))
