@@ -16,6 +16,7 @@ from placer.layout.block import layout_of
 from placer.layout.gdswrite import write_gds
 from placer.model.grade import grade_pattern
 from tests import streamread
+from tests.helpers import SAMPLES
 
 SPEC = ('name = "pair"\n[devices]\nA = 4\nB = 4\n[array]\npitch_um = [2.5, 5.5]\n'
         '[unit]\nwidth_um = 1.0\nlength_um = 0.5\n')
@@ -312,3 +313,51 @@ def test_repairs_batched_pair_moments_equal_the_compiled_kernels_keys():
         keys = keys_of(prob, np.where(flat >= 0, flat, -2))
         assert lin[0] == pytest.approx(keys.linear_um, rel=1e-9, abs=1e-12), trial
         assert quad[0] == pytest.approx(keys.quadratic_ppm, rel=1e-9, abs=1e-12), trial
+
+
+def _ct_in_a_corner(spec_text: str, time_limit: float):
+    """An arranged DAC with its termination unit swapped into the core's first slot."""
+    from placer.jobs.arrange import arrange
+
+    spec = parse_spec(spec_text)
+    res = arrange(spec, seed=0, time_limit_s=time_limit)
+    ids = res.pattern.ids.copy()
+    t = spec.devices.index("CT")
+    (r, c), = np.argwhere(ids == t)
+    rr, cc = np.argwhere(ids >= 0)[0]
+    ids[r, c], ids[rr, cc] = ids[rr, cc], ids[r, c]
+    return res.spec, Pattern(res.pattern.devices, ids, res.pattern.orient), res.keys.linear_um
+
+
+def test_repair_past_its_unit_limit_finds_the_one_swap_fix(monkeypatch):
+    """Past REPAIR_UNITS the swaps tried are those of the units adding most to the worst
+    pair's error (per-unit sensitivity) with any unit: a termination unit moved into a
+    corner goes back in one swap (only the outermost units were tried, so its partner
+    near the centre never was)."""
+    from placer.jobs import repair as rep
+
+    monkeypatch.setattr(rep, "REPAIR_UNITS", 16)
+    monkeypatch.setattr(rep, "SWAP_PAIRS", 16 * 64)
+    spec, moved, best = _ct_in_a_corner((SAMPLES / "sar_cdac.toml").read_text(), 3.0)
+    res = rep.repair(moved, spec, spec.array.pitch_um, 4, time_limit_s=10.0)
+    assert len(res.swaps) == 1 and res.reached_target
+    assert res.after.linear_um <= best * (1 + 1e-9)
+    assert "adding most" in res.limited
+
+
+@pytest.mark.slow
+def test_repair_of_a_1024_unit_array_with_its_termination_in_a_corner(tmp_path):
+    """The case that made 2 swaps, stopped at 396 ppm and took 164 s on a 30 s limit: one
+    swap to the target, within the time limit (plus start-up)."""
+    import time
+
+    bits = "".join(f"C{b} = {2 ** b}\n" for b in range(1, 10))
+    text = ('kind = "cap"\n[devices]\nCT = 1\nC0 = 1\n' + bits
+            + '[array]\nrows = 32\ncolumns = 32\ndummies = "ring"\n')
+    spec, moved, best = _ct_in_a_corner(text, 10.0)
+    from placer.jobs.repair import repair
+
+    t0 = time.monotonic()
+    res = repair(moved, spec, spec.array.pitch_um, 4, time_limit_s=30.0)
+    assert len(res.swaps) == 1 and res.reached_target
+    assert time.monotonic() - t0 < 30.0 + 5.0

@@ -103,6 +103,8 @@ class RepairResult:
 #: Swaps are tried between at most this many units (the pairs grow as its square): a
 #: larger layout offers the units farthest out along its worst pair's gradient.
 REPAIR_UNITS = 800
+#: Past REPAIR_UNITS, the swaps scored per state: sources x every unit (about this many).
+SWAP_PAIRS = 200_000
 
 
 def _problem(pattern: Pattern, spec: Spec, pitch_um: tuple[float, float]) -> Problem:
@@ -148,9 +150,9 @@ def repair(pattern: Pattern, spec: Spec, pitch_um: tuple[float, float], max_swap
     is searched exhaustively; longer sequences by a beam of the ``beam`` best states per
     depth, each expanded by every swap (numpy-batched). The result is never worse than the
     layout given: with no improving swap it comes back unchanged. Past ``REPAIR_UNITS``
-    units, swaps are tried among the units farthest out along the worst pair's worst
-    gradient direction (they move the centroids most); the time limit covers the target's
-    search and the swaps, and ``limited`` says what either cut short.
+    units, the swaps tried are those of the units adding most to the worst pair's error
+    (per-unit sensitivity over the whole array) with any unit; the time limit covers the
+    target's search and the swaps, and ``limited`` says what either cut short.
 
     Parameters
     ----------
@@ -190,11 +192,14 @@ def repair(pattern: Pattern, spec: Spec, pitch_um: tuple[float, float], max_swap
     target = min(target, before.linear_um)
     deadline = t0 + time_limit_s
     limited = []
+    sources = movable
     if len(movable) > REPAIR_UNITS:
-        movable = _outermost(pattern, pitch_um, movable, REPAIR_UNITS)
-        limited.append(f"swaps tried among the {REPAIR_UNITS} units farthest out along the "
-                       "worst gradient direction (of "
-                       f"{int(np.sum(flat >= 0))})")
+        # a large layout: every swap of a unit that adds most to the worst pair's error
+        # (per-unit sensitivity over the whole array) with any unit, not all pairs
+        k = int(np.clip(SWAP_PAIRS // len(movable), 8, REPAIR_UNITS))
+        sources = _adding_most(pattern, spec, pitch_um, movable, k)
+        limited.append(f"swaps tried from the {len(sources)} units adding most to the worst "
+                       f"pair's error, each with any of the {len(movable)} units")
 
     rows, cols = pattern.shape
     r_idx, c_idx = np.divmod(np.arange(rows * cols), cols)
@@ -207,8 +212,15 @@ def repair(pattern: Pattern, spec: Spec, pitch_um: tuple[float, float], max_swap
     n_units = len(every)
     total = mono[every, 1:3].sum(axis=0)
     tol = 1e-9 * max(1.0, target)
-    si, ti = np.triu_indices(len(movable), 1)
-    s_all, t_all = movable[si], movable[ti]
+    if len(sources) == len(movable):
+        si, ti = np.triu_indices(len(movable), 1)
+        s_all, t_all = movable[si], movable[ti]
+    else:
+        s_all = np.repeat(sources, len(movable))
+        t_all = np.tile(movable, len(sources))
+        keep = ~np.isin(t_all, sources) | (s_all < t_all)      # each pair once
+        s_all, t_all = s_all[keep], t_all[keep]
+    cut = [False]
 
     def expand(state: IntArray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         keep = state[s_all] != state[t_all]
@@ -218,6 +230,11 @@ def repair(pattern: Pattern, spec: Spec, pitch_um: tuple[float, float], max_swap
         lin = np.empty(len(s))
         quad = np.empty(len(s))
         for k in range(0, len(s), 4096):
+            if k and time.monotonic() > deadline:
+                # the limit covers the swaps too: what was scored stands, the rest is left
+                cut[0] = True
+                s, t, lin, quad = s[:k], t[:k], lin[:k], quad[:k]
+                break
             ss, tt = s[k:k + 4096], t[k:k + 4096]
             a, b = state[ss], state[tt]
             d = mono[tt] - mono[ss]
@@ -255,6 +272,8 @@ def repair(pattern: Pattern, spec: Spec, pitch_um: tuple[float, float], max_swap
         top = states[0]
         if (round(top[0], 9), top[1]) < (round(best[0], 9), best[1]):
             best = top
+    if cut[0]:
+        limited.append("the time limit cut a round of swaps short")
     _, _, final, path = best
     flat_ids = pattern.ids.copy().ravel()
     orient = pattern.orient.copy().ravel()
@@ -271,19 +290,22 @@ def repair(pattern: Pattern, spec: Spec, pitch_um: tuple[float, float], max_swap
                         after.linear_um <= target + tol, "; ".join(limited))
 
 
-def _outermost(pattern: Pattern, pitch_um: tuple[float, float], movable: IntArray,
-               k: int) -> IntArray:
-    """The ``k`` of ``movable`` slots farthest from the centre along the worst pair's
-    centroid difference (half from each end), in slot order."""
-    xy, dev = unit_positions(pattern, pitch_um)
-    n = np.bincount(dev, minlength=len(pattern.devices))
-    cen = np.array([xy[dev == d].mean(axis=0) if n[d] else (0.0, 0.0)
-                    for d in range(len(pattern.devices))])
-    gap = max(((a, b) for a in range(len(cen)) for b in range(a + 1, len(cen))),
-              key=lambda p: float(np.hypot(*(cen[p[0]] - cen[p[1]]))), default=(0, 0))
-    u = cen[gap[0]] - cen[gap[1]]
-    u = u / np.hypot(*u) if np.hypot(*u) > 0 else np.array([1.0, 0.0])
-    along = (xy - xy.mean(axis=0)) @ u            # unit_positions: the movable slots, in order
-    order = np.argsort(along, kind="stable")
-    pick = np.concatenate([order[:k // 2], order[len(order) - (k - k // 2):]])
-    return np.sort(movable[pick])
+def _adding_most(pattern: Pattern, spec: Spec, pitch_um: tuple[float, float],
+                 movable: IntArray, k: int) -> IntArray:
+    """The ``k`` movable slots whose units add most to the worst pair's linear error
+    (:func:`sensitivity`, over the whole array), in slot order; when fewer units add to
+    it, the other slots fill up to ``k`` in slot order."""
+    from dataclasses import replace as _replace
+
+    from placer.model.grade import grade_pattern
+
+    spec_here = _replace(spec, array=_replace(spec.array, pitch_um=pitch_um))
+    _, sens = sensitivity(pattern, pitch_um, grade_pattern(pattern, spec_here),
+                          spec.gradient.linear_ppm_per_um)
+    cols = pattern.shape[1]
+    chosen = [u.row * cols + u.col for u in sens if u.contribution_ppm > 0][:k]
+    if len(chosen) < k:
+        taken = set(chosen)
+        rest = [int(s) for s in movable if int(s) not in taken]
+        chosen += rest[:k - len(chosen)]
+    return np.sort(np.array(chosen, dtype=np.int64))
