@@ -46,6 +46,11 @@ def main() -> None:
     """Entry point of the ``placer`` command."""
     signal.signal(signal.SIGINT, _quiet_exit)
     signal.signal(signal.SIGTERM, _quiet_exit)      # SIGTERM ends a start-up as Ctrl-C does
+    if sys.argv[1:] == ["--version"]:              # no numpy, no CLI: the answer is here
+        from placer import __version__
+
+        sys.stdout.write(f"placer, version {__version__}\n")
+        return
     problem = check_environment()
     if problem is not None:
         sys.stderr.write(f"Error: {problem}\n")

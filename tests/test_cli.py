@@ -116,3 +116,19 @@ def test_units_adding_most_are_placed_in_the_input_files_own_frame(runner):
     txt = runner.invoke(cli, ["grade", "samples/bias_mirror_hand.txt"]).output
     assert "coordinates)" not in next(ln for ln in txt.splitlines()
                                       if ln.startswith("Units adding most"))
+
+
+def test_version_answers_without_loading_numpy_or_the_commands():
+    import subprocess
+    import sys
+
+    code = ("import sys; sys.argv = ['placer', '--version']\n"
+            "from placer._entry import main\n"
+            "main()\n"
+            "print('numpy' in sys.modules, 'placer.cli' in sys.modules)")
+    res = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         timeout=60)
+    assert res.returncode == 0, res.stderr
+    from placer import __version__
+
+    assert res.stdout.splitlines() == [f"placer, version {__version__}", "False False"]
