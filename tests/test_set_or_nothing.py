@@ -20,7 +20,15 @@ import pytest
 
 from placer.cli import cli
 from placer.io import staging
-from tests.helpers import ROOT, SAMPLES, refused, run_placer, spec_file
+from tests.helpers import (
+    ROOT,
+    SAMPLES,
+    gds_box,
+    gds_records,
+    refused,
+    run_placer,
+    spec_file,
+)
 
 HAND = SAMPLES / "bias_mirror_hand.txt"
 MIRROR = SAMPLES / "bias_mirror.toml"
@@ -250,31 +258,8 @@ def test_inputs_that_are_not_regular_files_are_refused_at_once(tmp_path, make):
 
 def test_a_unit_cell_library_with_an_empty_cell_name_is_one_line(tmp_path):
     """Gdstk raised 'ValueError: Empty cell name' through the command."""
-    import struct
-
-    def rec(rt: int, dt: int, data: bytes = b"") -> bytes:
-        data += b"\0" * (len(data) % 2)
-        return struct.pack(">HBB", 4 + len(data), rt, dt) + data
-
-    def real8(x: float) -> bytes:
-        """GDSII's excess-64 base-16 real (the stream format's definition)."""
-        exp = 64
-        while x >= 1:
-            x, exp = x / 16, exp + 1
-        while x < 1 / 16:
-            x, exp = x * 16, exp - 1
-        return bytes([exp]) + int(x * (1 << 56)).to_bytes(7, "big")
-
-    units = real8(1e-3) + real8(1e-9)            # user unit 1 um, database unit 1 nm
-    date = struct.pack(">12h", *([2026, 1, 1, 0, 0, 0] * 2))
-    stream = (rec(0x00, 0x02, struct.pack(">h", 600)) + rec(0x01, 0x02, date)
-              + rec(0x02, 0x06, b"LIB") + rec(0x03, 0x05, units) + rec(0x05, 0x02, date)
-              + rec(0x06, 0x06, b"") + rec(0x08, 0x00) + rec(0x0D, 0x02, struct.pack(">h", 4))
-              + rec(0x0E, 0x02, struct.pack(">h", 0))
-              + rec(0x10, 0x03, struct.pack(">10i", 0, 0, 1000, 0, 1000, 1000, 0, 1000, 0, 0))
-              + rec(0x11, 0x00) + rec(0x07, 0x00) + rec(0x04, 0x00))
     lib = tmp_path / "cells.gds"
-    lib.write_bytes(stream)
+    lib.write_bytes(gds_records([(b"", gds_box(4))]))
     res = run_placer(["arrange", str(MIRROR), "--out", "o", "--unit-gds", str(lib),
                       "--time-limit", "1"], tmp_path)
     refused(res, "empty name")

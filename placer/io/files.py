@@ -16,20 +16,13 @@ from placer.limits import MAX_FILE_BYTES
 __all__ = ["read_limited", "read_text", "mapped", "toml_depth"]
 
 
-def read_limited(path: Path, limit: int, what: str, error: type[PlacerError]) -> bytes:
-    """The bytes of a regular file of at most ``limit`` bytes, or one line naming it.
+def _open_regular(path: Path, limit: int, what: str, error: type[PlacerError]
+                  ) -> tuple[int, int]:
+    """An open descriptor and the size of a regular file of at most ``limit`` bytes.
 
-    The file is opened without waiting (a pipe with no writer does not hang) and checked
-    to be a regular file before anything is read: a device (``/dev/zero``), a pipe or a
-    folder is refused, so no input is read without bound. The size is checked before
-    reading, and at most ``limit`` + 1 bytes are ever read (a file growing meanwhile).
-
-    Raises
-    ------
-    LimitError
-        Past the limit.
-    PlacerError
-        ``error`` when the file cannot be read or is not a regular file.
+    Opened without waiting (a pipe with no writer does not hang) and checked before
+    anything is read: a device (``/dev/zero``), a pipe or a folder is refused, and so is
+    a file over the limit (``LimitError``).
     """
     try:
         fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
@@ -43,6 +36,26 @@ def read_limited(path: Path, limit: int, what: str, error: type[PlacerError]) ->
         if st.st_size > limit:
             raise LimitError(f"{path}: file is {st.st_size} bytes, the limit for a {what} is "
                              f"{limit}")
+    except BaseException:
+        os.close(fd)
+        raise
+    return fd, st.st_size
+
+
+def read_limited(path: Path, limit: int, what: str, error: type[PlacerError]) -> bytes:
+    """The bytes of a regular file of at most ``limit`` bytes, or one line naming it (the
+    checks of :func:`_open_regular`); at most ``limit`` + 1 bytes are ever read (a file
+    growing meanwhile).
+
+    Raises
+    ------
+    LimitError
+        Past the limit.
+    PlacerError
+        ``error`` when the file cannot be read or is not a regular file.
+    """
+    fd, _ = _open_regular(path, limit, what, error)
+    try:
         chunks, got = [], 0
         while got <= limit:
             chunk = os.read(fd, min(1 << 20, limit + 1 - got))
@@ -65,25 +78,15 @@ def mapped(path: Path, limit: int, what: str, error: type[PlacerError]
            ) -> Iterator[bytes | mmap.mmap]:
     """A regular file of at most ``limit`` bytes, mapped read-only: a parser that stops
     early (a limit reached, damage found) touches only the pages it read, so a large
-    hostile file costs neither the time nor the memory of reading it whole. The same
-    checks as :func:`read_limited`."""
+    hostile file costs neither the time nor the memory of reading it whole. The checks
+    of :func:`_open_regular`."""
+    fd, size = _open_regular(path, limit, what, error)
     try:
-        fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
-    except OSError as err:
-        raise error(f"{path}: cannot read: {err.strerror or err}") from err
-    try:
-        st = os.fstat(fd)
-        if not stat.S_ISREG(st.st_mode):
-            raise error(f"{path}: not a regular file (a device, pipe or folder); save the "
-                        f"{what} to a file and give that")
-        if st.st_size > limit:
-            raise LimitError(f"{path}: file is {st.st_size} bytes, the limit for a {what} is "
-                             f"{limit}")
-        if st.st_size == 0:
+        if size == 0:
             yield b""
             return
         try:
-            view = mmap.mmap(fd, st.st_size, access=mmap.ACCESS_READ)
+            view = mmap.mmap(fd, size, access=mmap.ACCESS_READ)
         except (OSError, ValueError) as err:
             raise error(f"{path}: cannot read: {getattr(err, 'strerror', None) or err}"
                         ) from err
