@@ -80,6 +80,9 @@ _RESTART_STAGES = ("linear", "quadratic", "order3", "order4")
 EXACT_MAX_ORBITS = 80
 EXACT_MAX_ASSIGNMENTS = 10 ** 15
 EXACT_ALWAYS = 10 ** 8
+#: At most this many assignments, the search is branch and bound alone (it proves the
+#: optimum in a few milliseconds; local search first would only spend time).
+TINY_ASSIGNMENTS = 5_000
 EXACT_NODE_BUDGET = 1_000_000
 #: A second worker process runs its own chains on cores at least this large.
 PARALLEL_MIN_ORBITS = 96
@@ -369,8 +372,15 @@ def search(prob: Problem, *, seed: int = 0, time_limit_s: float = 60.0,
     restarts = n_restarts(time_limit_s) if restarts is None else restarts
     found: list[tuple[IntArray, Keys]] = []
     child = None
+    # so few assignments that branch and bound settles them at once: no local search
+    tiny = (prob.objective == "lexicographic" and comp.n_orb <= EXACT_MAX_ORBITS
+            and n_assignments(comp) <= TINY_ASSIGNMENTS)
+    if tiny:
+        workers = 1
     try:
-        if workers > 1:
+        if tiny:
+            found.append((start, evaluate(comp, start)))
+        elif workers > 1:
             import multiprocessing as mp
 
             ctx = mp.get_context("fork")
@@ -390,7 +400,9 @@ def search(prob: Problem, *, seed: int = 0, time_limit_s: float = 60.0,
             else:
                 child[0].start()
             send.close()
-        found += _chains(comp, start, seeds[0], deadline, floor, progress, run, restarts)
+        if not tiny:
+            found += _chains(comp, start, seeds[0], deadline, floor, progress, run,
+                             restarts)
         if run.status == 2:
             # interrupted: the worker ignores Ctrl-C and would run on to its deadline;
             # it is stopped (finally, below) and the parent's best so far is kept
