@@ -145,10 +145,17 @@ function score(ids) {
     linear: worstOf("linear"), quadratic: worstOf("quadratic"),
     corr: worstOf("corr"), white: worstOf("white"),
   };
-  const devices = D.devices.map((name, d) => ({
-    name, units: n[d], centroid: cen[d],
-    offset: Math.hypot(cen[d][0] - cx, cen[d][1] - cy), edge: edgeUnits(ids, d),
-  }));
+  // each centroid's offset from the centre of all device units, from the integer sums
+  // (N S1_d - n_d T) / (n_d N): an exact zero stays zero, with no float noise
+  const nAll = s.reduce((acc, t) => acc + t[0], 0n);
+  const tu = s.reduce((acc, t) => acc + t[1], 0n), tv = s.reduce((acc, t) => acc + t[2], 0n);
+  const devices = D.devices.map((name, d) => {
+    const den = Number(s[d][0] * nAll);
+    const du = den ? Number(nAll * s[d][1] - s[d][0] * tu) / den * px : 0;
+    const dv = den ? Number(nAll * s[d][2] - s[d][0] * tv) / den * py : 0;
+    return { name, units: n[d], centroid: cen[d], offset: Math.hypot(du, dv),
+             edge: edgeUnits(ids, d) };
+  });
   return { pairs, worst, devices, centre: [cx, cy], cen, xy, us, n };
 }
 
