@@ -55,3 +55,26 @@ def test_two_specs_of_one_name_are_refused_before_any_run(tmp_path):
                      tmp_path)
     refused(res, "would both write block/")
     assert not (tmp_path / "chip").exists()
+
+
+def test_blocks_import_the_package_the_batch_runs_from_not_the_working_folders(tmp_path):
+    """Run from a folder holding another 'placer' (a source checkout, say), every block
+    failed with ModuleNotFoundError: a block started as `python -m placer` imported the
+    working folder's package instead of the installed one."""
+    import os
+    import subprocess
+    import sys
+
+    from tests.helpers import ROOT
+
+    decoy = tmp_path / "placer"
+    decoy.mkdir()
+    (decoy / "__init__.py").write_text("raise ImportError('the working folder, not placer')\n")
+    (decoy / "__main__.py").write_text("raise SystemExit('the working folder, not placer')\n")
+    shutil.copy(SAMPLES / "input_pair.toml", tmp_path / "pair.toml")
+    res = subprocess.run([sys.executable, "-P", "-m", "placer", "batch", "pair.toml", "--out",
+                          "chip", "--time-limit", "1", "--quiet"], cwd=tmp_path, text=True,
+                         capture_output=True, timeout=300,
+                         env={**os.environ, "PYTHONPATH": str(ROOT)})
+    assert res.returncode == 0, res.stdout + res.stderr
+    assert (tmp_path / "chip" / "pair" / "pattern.txt").is_file()

@@ -123,20 +123,29 @@ def run_batch(specs: list[Path], out: Path, *, time_limit_s: float, seed: int, j
         In the order of ``specs``; a block that failed carries its exit code and its
         last error line, and its folder holds nothing of the run.
     """
+    # each block imports the very package this run does: -P keeps the working folder
+    # (a source checkout, say) off the front of its path, and the package's own root
+    # goes first
+    import placer
+
+    root = str(Path(placer.__file__).resolve().parent.parent)
+    env = {**os.environ,
+           "PYTHONPATH": os.pathsep.join(p for p in (root, os.environ.get("PYTHONPATH"))
+                                         if p)}
     running: set[subprocess.Popen[str]] = set()
     lock = threading.Lock()
     stop = threading.Event()
 
     def one(spec: Path) -> BlockRun:
         folder = out / spec.stem
-        args = [sys.executable, "-m", "placer", "arrange", str(spec), "--out", str(folder),
+        args = [sys.executable, "-P", "-m", "placer", "arrange", str(spec), "--out", str(folder),
                 "--time-limit", f"{time_limit_s:g}", "--seed", str(seed), "--quiet",
                 *(["--force"] if force else [])]
         if stop.is_set():
             return BlockRun(spec.stem, str(spec), 130, 0.0, "not started: interrupted")
         t0 = time.monotonic()
         proc = subprocess.Popen(args, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE,
-                                text=True, start_new_session=True)
+                                text=True, start_new_session=True, env=env)
         with lock:
             running.add(proc)
         try:
