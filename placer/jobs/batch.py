@@ -126,9 +126,7 @@ def run_batch(specs: list[Path], out: Path, *, time_limit_s: float, seed: int, j
     # each block imports the very package this run does: -P keeps the working folder
     # (a source checkout, say) off the front of its path, and the package's own root
     # goes first
-    import placer
-
-    root = str(Path(placer.__file__).resolve().parent.parent)
+    root = str(Path(__file__).resolve().parents[2])      # holds placer/ itself
     env = {**os.environ,
            "PYTHONPATH": os.pathsep.join(p for p in (root, os.environ.get("PYTHONPATH"))
                                          if p)}
