@@ -15,7 +15,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-__all__ = ["Kind", "KINDS", "JOINS", "kind_of", "default_nets", "default_dummy_net",
+__all__ = ["Kind", "KINDS", "JOINS", "default_nets", "default_dummy_net",
            "series_node", "MatchedSet", "default_matched_sets"]
 
 #: How the units of one device can be joined.
@@ -125,22 +125,6 @@ KINDS: dict[str, Kind] = {k.name: k for k in (
          electrical_needs="reference (device name; optional)", spice_ports=("a", "b"),
          device_label="resistor", joins=("series", "parallel"), unit_value="unit_ohm"),
 )}
-
-
-def kind_of(name: str) -> Kind:
-    """The record of kind ``name`` (a spec's ``kind``; validated when the spec is read).
-
-    Parameters
-    ----------
-    name : str
-        ``"mos"``, ``"cap"``, ``"res"`` or another registered kind.
-
-    Returns
-    -------
-    Kind
-        Its record.
-    """
-    return KINDS[name]
 
 
 def default_nets(kind: str, device: str) -> dict[str, str]:

@@ -31,7 +31,6 @@ from placer.limits import (
 
 __all__ = [
     "NAME_RE",
-    "KINDS",
     "DUMMY_STYLES",
     "KERNELS",
     "ArraySpec",
@@ -58,8 +57,6 @@ __all__ = [
 ]
 
 NAME_RE = re.compile(r"[A-Za-z][A-Za-z0-9_]*\Z")
-#: The kinds a spec may name (one record each in :mod:`placer.kinds`).
-KINDS = tuple(KIND_RECORDS)
 DUMMY_STYLES = ("none", "ends", "ring")
 KERNELS = ("exponential", "gaussian")
 
