@@ -21,7 +21,7 @@ from placer.errors import PlacerError
 from placer.io.handlayout import Recognised, hot_spot_in_pattern_frame, read_layout
 from placer.io.pattern import Pattern, check_against_spec
 from placer.io.spec import NAME_RE, Spec
-from placer.io.staging import OutputSet
+from placer.io.staging import FileSet, OutputSet
 from placer.jobs.arrange import METHODS
 from placer.jobs.arrange import arrange as run_arrange
 from placer.jobs.load import default_spec, load_spec
@@ -291,15 +291,18 @@ def grade(layout: Path, spec_path: Path | None, as_json: bool, budget_plot: Path
     worst_pair, sens = sensitivity(pat, spec.array.pitch_um, result,
                                    spec.gradient.linear_ppm_per_um, spec.gradient)
     bud = _budget(pat, spec, result, required=budget_plot is not None)
-    if sensitivity_plot is not None:
-        from placer.present.plot import save_sensitivity
+    pictures = [p for p in (sensitivity_plot, budget_plot if bud is not None else None) if p]
+    with FileSet(pictures) as files:      # both pictures, or neither
+        if sensitivity_plot is not None:
+            from placer.present.plot import save_sensitivity
 
-        save_sensitivity(pat, spec.array.pitch_um, sens, worst_pair, spec.name,
-                         [sensitivity_plot])
-    if budget_plot is not None and bud is not None:
-        from placer.present.plot import save_budget
+            save_sensitivity(pat, spec.array.pitch_um, sens, worst_pair, spec.name,
+                             [files.path(sensitivity_plot)])
+        if budget_plot is not None and bud is not None:
+            from placer.present.plot import save_budget
 
-        save_budget(bud, spec.name, [budget_plot], devices=spec.devices)
+            save_budget(bud, spec.name, [files.path(budget_plot)], devices=spec.devices)
+        files.commit()
     if as_json:
         click.echo(json_text(grade_report(result, bud, rec, spec, worst_pair, sens)))
     else:

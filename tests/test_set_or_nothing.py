@@ -82,6 +82,29 @@ def test_a_signal_during_the_move_in_leaves_the_whole_set(tmp_path, runner, monk
     assert "nothing written" not in result.output
 
 
+@pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM])
+def test_grades_two_pictures_move_in_together(tmp_path, runner, monkeypatch, sig):
+    """grade --sensitivity-plot and --budget-plot: an interrupt while the pictures move
+    in leaves both (grade wrote one picture, then the interrupt, then none of the other)."""
+    pictures = [tmp_path / "units.svg", tmp_path / "budget.png"]
+    real, sent = os.replace, []
+
+    def replace(src, dst, *a, **k):
+        if not sent and Path(dst) in pictures:      # the first picture to land
+            sent.append(sig)
+            os.kill(os.getpid(), sig)
+        return real(src, dst, *a, **k)
+
+    monkeypatch.setattr(os, "replace", replace)
+    result = runner.invoke(cli, ["grade", str(HAND), "--spec", str(MIRROR),
+                                 "--sensitivity-plot", str(pictures[0]),
+                                 "--budget-plot", str(pictures[1])])
+    assert result.exit_code == 130, result.output
+    assert all(p.is_file() and p.stat().st_size > 1000 for p in pictures)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["budget.png", "units.svg"]
+    assert "are complete" in result.output
+
+
 def test_with_force_a_folder_in_the_way_changes_nothing(tmp_path, runner):
     """--force with a folder where a file of the set goes: refused before any file is
     replaced (the .gds and .png were replaced, then the .svg failed)."""
@@ -254,6 +277,11 @@ def test_inputs_that_are_not_regular_files_are_refused_at_once(tmp_path, make):
     assert time.monotonic() - t0 < 30
     res = run_placer(["arrange", str(path), "--out", "o"], tmp_path, timeout=60)
     refused(res, "not a regular file")
+    # batch: a named spec that is a pipe or device was run as a block that failed, and
+    # the batch wrote a summary of one failure with no Error line
+    res = run_placer(["batch", str(path), "--out", "b"], tmp_path, timeout=60)
+    refused(res, "not a regular file")
+    assert not (tmp_path / "b").exists()
 
 
 def test_a_unit_cell_library_with_an_empty_cell_name_is_one_line(tmp_path):

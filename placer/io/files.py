@@ -13,7 +13,18 @@ from pathlib import Path
 from placer.errors import LimitError, PlacerError
 from placer.limits import MAX_FILE_BYTES
 
-__all__ = ["read_limited", "read_text", "mapped", "toml_depth"]
+__all__ = ["read_limited", "read_text", "mapped", "regular", "toml_depth"]
+
+
+def regular(path: Path, what: str, error: type[PlacerError]) -> None:
+    """Refuse, without opening it, a ``path`` that is missing or not a regular file."""
+    try:
+        st = os.stat(path)
+    except OSError as err:
+        raise error(f"{path}: cannot read: {err.strerror or err}") from err
+    if not stat.S_ISREG(st.st_mode):
+        raise error(f"{path}: not a regular file (a device, pipe or folder); save the "
+                    f"{what} to a file and give that")
 
 
 def _open_regular(path: Path, limit: int, what: str, error: type[PlacerError]

@@ -139,9 +139,36 @@ def _real8(raw: bytes) -> float:
     return sign * mantissa / 2 ** 56 * 16.0 ** exponent
 
 
+def _census(data: bytes | mmap.mmap, source: str) -> None:
+    """Count the elements and text labels from the record headers alone (a few
+    operations a record), so that a file of millions is refused before any is parsed;
+    damage is left to the parse, which names it."""
+    unpack = struct.unpack_from
+    pos, n = 0, len(data)
+    elements = texts = 0
+    elems = _ELEMENTS
+    while pos + 4 <= n:
+        length, rtype = unpack(">HB", data, pos)
+        if length < 4:
+            return
+        if rtype in elems:
+            elements += 1
+            if rtype == _TEXT:
+                texts += 1
+                if texts > MAX_TEXTS:
+                    raise LayoutError(f"{source}: more than {MAX_TEXTS} text labels, the "
+                                      "limit (a unit array needs one per unit at most)")
+            if elements > _MAX_ELEMENTS:
+                raise LayoutError(f"{source}: more than {_MAX_ELEMENTS} elements, the limit")
+        elif rtype == _ENDLIB:
+            return
+        pos += length
+
+
 def parse_stream(data: bytes | mmap.mmap, source: str) -> StreamLibrary:
     """Parse a whole GDSII stream (bytes, or a read-only map of a file); any damage raises
     LayoutError naming the byte offset."""
+    _census(data, source)
     pos = 0
     n = len(data)
 

@@ -18,13 +18,14 @@ import shutil
 import signal
 import tempfile
 import threading
-from collections.abc import Iterable
+from collections.abc import Iterable, Iterator
+from contextlib import contextmanager
 from pathlib import Path
 from types import TracebackType
 
 from placer.errors import OutputError, PlacerError
 
-__all__ = ["OutputError", "OutputSet", "atomic_write", "file_mode"]
+__all__ = ["FileSet", "OutputError", "OutputSet", "atomic_write", "file_mode", "signals_held"]
 
 _STAGE_PREFIX = ".placer-staging-"
 
@@ -59,6 +60,28 @@ def atomic_write(path: Path, data: str | bytes) -> None:
         if isinstance(err, OSError):
             raise OutputError(f"{path}: cannot write: {err.strerror or err}") from err
         raise
+
+
+@contextmanager
+def signals_held() -> Iterator[None]:
+    """Hold SIGINT and SIGTERM for the block: recorded, then delivered again at its end.
+
+    Held at the Python level (any thread may take a process's signal; the handler always
+    runs in the main thread, between two bytecodes), so files moved in under it are all
+    moved or none: an interrupt lands before the block or after it, never inside.
+    """
+    caught: list[int] = []
+    old = {}
+    if threading.current_thread() is threading.main_thread():
+        old = {sig: signal.signal(sig, lambda signum, frame: caught.append(signum))
+               for sig in (signal.SIGINT, signal.SIGTERM)}
+    try:
+        yield
+    finally:
+        for sig, handler in old.items():
+            signal.signal(sig, handler)
+        if caught:
+            signal.raise_signal(caught[0])    # now, with the files whole (or untouched)
 
 
 class OutputSet:
@@ -189,15 +212,7 @@ class OutputSet:
             if target.is_dir() and not target.is_symlink():
                 raise OutputError(f"{target}: is a folder, where this run writes a file; "
                                   "move it or choose another --out")
-        # held at the Python level (any thread may take a process's signal; the handler
-        # always runs in the main thread, between two bytecodes): recorded, then
-        # delivered again once the set is whole
-        caught: list[int] = []
-        old = {}
-        if threading.current_thread() is threading.main_thread():
-            old = {sig: signal.signal(sig, lambda signum, frame: caught.append(signum))
-                   for sig in (signal.SIGINT, signal.SIGTERM)}
-        try:
+        with signals_held():
             if self.force:
                 for entry in self.out.iterdir():
                     if ((entry.is_file() or entry.is_symlink()) and entry.name not in self.written
@@ -209,11 +224,6 @@ class OutputSet:
                 final.append(self.out / name)
             self.committed = True
             OutputSet.last_committed = self.out
-        finally:
-            for sig, handler in old.items():
-                signal.signal(sig, handler)
-            if caught:
-                signal.raise_signal(caught[0])    # now, with the set whole (or untouched)
         return final
 
     def __exit__(self, exc_type: type[BaseException] | None, exc: BaseException | None,
@@ -238,3 +248,60 @@ class OutputSet:
         if isinstance(exc, PlacerError) and stage is not None and stage in str(exc):
             # a message names the file where the user will look for it, not the staging
             raise type(exc)(str(exc).replace(stage, str(self.out))) from None
+
+
+class FileSet:
+    """Files at paths the user names (each in a folder of its own choosing), written
+    together: each is staged beside its target under a hidden name and all move in at
+    :meth:`commit` with signals held; on any failure or interrupt the staged files go
+    and the targets stay as they were."""
+
+    def __init__(self, targets: Iterable[Path]):
+        self.targets = list(dict.fromkeys(targets))
+        self.staged: dict[Path, Path] = {}
+        self.committed = False
+
+    def __enter__(self) -> FileSet:
+        return self
+
+    def path(self, target: Path) -> Path:
+        """Where to write ``target`` now: a hidden sibling with the same suffix."""
+        if target not in self.staged:
+            token = os.urandom(4).hex()
+            self.staged[target] = target.parent / f"{_STAGE_PREFIX}{token}-{target.name}"
+        return self.staged[target]
+
+    def commit(self) -> list[Path]:
+        """Move every staged file onto its target; return the targets written."""
+        missing = [t for t, s in self.staged.items() if not s.is_file()]
+        if missing:
+            raise OutputError(f"{missing[0]}: was not written")
+        for target in self.staged:
+            if target.is_dir() and not target.is_symlink():
+                raise OutputError(f"{target}: is a folder, where this run writes a file; "
+                                  "move it or choose another name")
+        with signals_held():
+            for target, staged in self.staged.items():
+                try:
+                    os.replace(staged, target)
+                except OSError as err:
+                    raise OutputError(f"{target}: cannot write: {err.strerror or err}"
+                                      ) from err
+            self.committed = True
+            if self.staged:
+                OutputSet.last_committed = next(iter(self.staged)).parent
+        return list(self.staged)
+
+    def __exit__(self, exc_type: type[BaseException] | None, exc: BaseException | None,
+                 tb: TracebackType | None) -> None:
+        for staged in self.staged.values():
+            try:
+                os.unlink(staged)
+            except OSError:
+                pass
+        if isinstance(exc, PlacerError) and not self.committed:
+            text = str(exc)
+            for target, staged in self.staged.items():
+                text = text.replace(str(staged), str(target))
+            if text != str(exc):     # a message names the file the user asked for
+                raise type(exc)(text) from None

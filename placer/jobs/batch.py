@@ -18,7 +18,8 @@ from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 
-from placer.errors import PlacerError
+from placer.errors import PlacerError, SpecError
+from placer.io.files import regular
 from placer.io.spec import NAME_RE
 
 __all__ = ["BlockRun", "find_specs", "run_batch", "MAX_SPECS"]
@@ -63,6 +64,7 @@ def find_specs(paths: list[Path]) -> list[Path]:
                 raise PlacerError(f"{p}: a folder with no .toml spec in it")
             found += inside
         else:
+            regular(p, "spec", SpecError)     # a pipe or a device: refused, not run
             found.append(p)
     if len(found) > MAX_SPECS:
         raise PlacerError(f"{len(found)} specs; a batch runs at most {MAX_SPECS}")
