@@ -22,6 +22,7 @@ from placer.io.handlayout import Recognised, hot_spot_in_pattern_frame, read_lay
 from placer.io.pattern import Pattern, check_against_spec
 from placer.io.spec import NAME_RE, Spec
 from placer.io.staging import FileSet, OutputSet
+from placer.jobs import workload
 from placer.jobs.arrange import METHODS
 from placer.jobs.arrange import arrange as run_arrange
 from placer.jobs.load import default_spec, load_spec
@@ -427,7 +428,12 @@ def batch(paths: tuple[Path, ...], out_dir: Path, time_limit: float, seed: int,
         out.commit()
     click.echo(format_batch(runs, wall, n_jobs))
     click.echo(f"Wrote {out_dir}/index.html, summary.json and a folder per block.")
-    if any(r.exit_code != 0 for r in runs):
+    failed = [r for r in runs if r.exit_code != 0]
+    if failed:
+        # one line for scripts and logs; the table above and summary.json say why
+        more = f" and {len(failed) - 1} more" if len(failed) > 1 else ""
+        click.echo(f"Error: {len(failed)} of {len(runs)} blocks failed ({failed[0].name}"
+                   f"{more}); {out_dir}/summary.json gives each one's reason", err=True)
         sys.exit(1)
 
 
@@ -469,6 +475,7 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
     from placer.layout.router import RouteError
 
     spec = load_spec(spec_path)
+    workload.check(spec, str(spec_path), time_limit)
     note = None
     try:
         spec, tools = _tools(spec, template_path, layers_path, unit_gds, unit_cell)
@@ -533,6 +540,7 @@ def draw(pattern_path: Path, spec_path: Path | None, out_dir: Path, layers_path:
     """Write the routed GDSII layout and preview pictures of PATTERN."""
     from placer.layout import block as drawing
     pattern, spec, _ = _load_graded(pattern_path, spec_path)
+    workload.check(spec, str(pattern_path), None)     # memory only: draw has no limit
     spec, tools = _tools(spec, template_path, layers_path, unit_gds, unit_cell)
     stem = pattern_path.stem if NAME_RE.match(pattern_path.stem) else spec.name
     block = drawing.prepare(pattern, spec, tools)
@@ -572,6 +580,7 @@ def compare(spec_path: Path, out_dir: Path, seed: int, time_limit: float, paper:
     from placer.present.report import format_table
 
     spec = load_spec(spec_path)
+    workload.check(spec, str(spec_path), time_limit, routed=False)
     names = outputs.compare_names(spec)
     with OutputSet(out_dir, names, force) as out:
         best = run_arrange(spec, seed=seed, time_limit_s=time_limit)
@@ -629,6 +638,7 @@ def lesson(spec_path: Path, out_dir: Path, pattern_path: Path | None, seed: int,
     from placer.present.lesson import MAX_LESSON_UNITS, LessonArrangement, lesson_data, render_page
 
     spec = load_spec(spec_path)
+    workload.check(spec, str(spec_path), time_limit, routed=False)
     if spec.n_units > MAX_LESSON_UNITS:
         raise PlacerError(f"{spec_path}: {spec.n_units} units; the lesson page recomputes "
                           f"every figure on each swap and handles at most "
@@ -691,6 +701,7 @@ def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, 
     pat, spec, rec = _load_graded(layout, spec_path, cell=cell, mapping=mapping,
                                   dummy_cells=dummy_cells, layers_path=layers_path,
                                   echo_notes=True)
+    workload.check(spec, str(layout), time_limit)
     from placer.layout.router import RouteError
 
     note = None

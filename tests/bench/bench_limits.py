@@ -3,9 +3,10 @@ of the command, each run in a fresh process.
 
     python tests/bench/bench_limits.py [--update-readme]
 
-With ``--time-limit 1`` the search stops on time at any size; what remains is the fixed
-work (reading, scoring the baselines and the result, routing, GDSII, pictures), linear or
-n log n in the size. Refusals must come before any work.
+The search stops on its time limit at any size; what remains is the fixed work (reading,
+scoring the baselines and the result, routing, GDSII, pictures). The largest blocks get
+the smallest limit their estimated fixed work allows (placer/jobs/workload.py); the rest
+run at ``--time-limit 1``. Refusals must come before any work.
 """
 
 from __future__ import annotations
@@ -22,20 +23,20 @@ sys.path.insert(0, str(ROOT))
 
 from tests.bench.readme_block import replace_block  # noqa: E402
 
-# (label, spec text, expected exit code)
-CASES: list[tuple[str, str, int]] = [
-    ("65 536 units (the limit), 256 x 256 core + ring, 2 devices",
+# (label, spec text, expected exit code[, time limit])
+CASES: list[tuple] = [
+    ("65 536 units (the limit), 256 x 256 core + ring, 2 devices (`--time-limit 27`)",
      "[devices]\nA = 32768\nB = 32768\n[array]\nrows = 256\ncolumns = 256\n"
-     "dummies = \"ring\"\n", 0),
+     "dummies = \"ring\"\n", 0, 27),
     ("one row of 1024 fingers (the column limit)",
      "[devices]\nA = 512\nB = 512\n[array]\nrows = 1\ndummies = \"none\"\n", 0),
-    ("256 devices (the limit) of 16 units",
-     "[devices]\n" + "".join(f"D{i} = 16\n" for i in range(256)), 0),
-    ("12-bit capacitor array, 64 x 64 + ring, with its budget",
+    ("256 devices (the limit) of 16 units (`--time-limit 23`)",
+     "[devices]\n" + "".join(f"D{i} = 16\n" for i in range(256)), 0, 23),
+    ("12-bit capacitor array, 64 x 64 + ring, with its budget (`--time-limit 2`)",
      "kind = \"cap\"\n[devices]\nCT = 1\nC0 = 1\n" + "".join(f"C{b} = {2 ** b}\n"
                                                           for b in range(1, 12))
      + "[array]\nrows = 64\ncolumns = 64\ndummies = \"ring\"\n[electrical]\n"
-       "termination = \"CT\"\nmc_samples = 200\n", 0),
+       "termination = \"CT\"\nmc_samples = 200\n", 0, 2),
     ("refused: one row of 32 768 columns",
      "[devices]\nA = 16384\nB = 16384\n[array]\nrows = 1\n", 1),
     ("refused: 1000 devices", "[devices]\n" + "".join(f"D{i} = 1\n" for i in range(1000)), 1),
@@ -44,6 +45,12 @@ CASES: list[tuple[str, str, int]] = [
     ("refused: Monte Carlo of 1 000 000 samples x 136 pairs",
      "[devices]\n" + "".join(f"D{i} = 1\n" for i in range(17))
      + "[monte_carlo]\nsamples = 1000000\n", 1),
+    ("refused: 2048 units with 16 Monte Carlo samples at `--time-limit 0.3`",
+     "[devices]\nA = 1024\nB = 1024\n[array]\nrows = 32\n[monte_carlo]\nsamples = 16\n",
+     1, 0.3),
+    ("refused (memory, at any limit): 256 devices on 256 x 256",
+     "[devices]\n" + "".join(f"D{i} = 256\n" for i in range(256))
+     + "[array]\nrows = 256\ncolumns = 256\ndummies = \"none\"\n", 1, 86400),
 ]
 
 def _layout_bombs() -> list[tuple[str, bytes]]:
@@ -73,14 +80,14 @@ print(r.returncode, f"{dt:.2f}", kb, (r.stderr.strip().splitlines() or [""])[-1]
 """
 
 
-def measure(text: str) -> tuple[int, float, float, str]:
+def measure(text: str, limit: float = 1) -> tuple[int, float, float, str]:
     """(exit code, wall seconds, peak MB, last stderr line) of one arrange run."""
     with tempfile.TemporaryDirectory() as tmp:
         spec = Path(tmp) / "s.toml"
         spec.write_text(text)
         out = subprocess.run([sys.executable, "-c", _WRAP, sys.executable, "-m", "placer",
                               "arrange", str(spec), "--out", str(Path(tmp) / "o"),
-                              "--time-limit", "1", "--quiet"],
+                              "--time-limit", f"{limit:g}", "--quiet"],
                              capture_output=True, text=True, cwd=tmp).stdout.split(" ", 3)
     return int(out[0]), float(out[1]), int(out[2]) / 1024, out[3].strip()
 
@@ -103,8 +110,8 @@ def main() -> int:
     rows = ["| input | exit | wall s | peak MB |", "|---|---|---|---|"]
     t0 = time.perf_counter()
     bad = 0
-    for label, text, want in CASES:
-        code, wall, mb, last = measure(text)
+    for label, text, want, *limit in CASES:
+        code, wall, mb, last = measure(text, *limit)
         bad += code != want
         rows.append(f"| {label} | {code} | {wall:.1f} | {mb:.0f} |")
         print(rows[-1], last if code else "", flush=True)
@@ -114,7 +121,8 @@ def main() -> int:
         rows.append(f"| {label} | {code} | {wall:.1f} | {mb:.0f} |")
         print(rows[-1], last, flush=True)
     block = "\n".join([*rows, "", f"`python tests/bench/bench_limits.py` "
-                       f"(`arrange --time-limit 1`, or `grade` where marked, each in a fresh "
+                       f"(`arrange --time-limit 1` unless marked, or `grade` where marked, "
+                       f"each in a fresh "
                        f"process; "
                        f"{time.perf_counter() - t0:.0f} s in all)."])
     if args.update_readme:

@@ -1,0 +1,140 @@
+"""The fixed work of a run, estimated from the spec's sizes before any of it starts.
+
+``--time-limit`` caps the search; around it comes work that grows with the block, not
+with the limit: scoring the baselines and the result (a covariance field per device),
+routing and extracting the wiring (every net's tracks, and every crossing of two nets'
+wires), the Monte Carlo tables and the pictures. :func:`estimate` puts a number on it
+from the sizes alone, and :func:`check` refuses, in one line and before any work, a run
+whose fixed work would go far past the limit it was given (it names the limit that would
+do) or whose memory would go past :data:`MAX_PEAK_MB` at any limit.
+
+The coefficients were fitted to whole runs on the reference machine (two cores; see
+``tests/bench/bench_workload.py``, which prints the estimate beside the measured time of
+every case, for anyone to refit on their own machine); a faster machine finishes sooner,
+a slower one later. They are deliberately simple: a term per unit (pictures, GDSII, the
+netlist), one per unit and net to the power 1.5 (the routing's tracks and the
+extraction's crossings), one per device and slot (the covariance fields), the cube of the
+units sampled by ``[monte_carlo]`` (factorising their correlation) and the capacitor
+budget's code samples.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from placer.errors import LimitError
+from placer.io.spec import Spec
+from placer.kinds import KINDS
+
+__all__ = ["MAX_PEAK_MB", "Workload", "allowed_seconds", "check", "estimate"]
+
+#: start-up, reading, the report and the smallest pictures (seconds)
+_BASE_S = 2.0
+#: per unit: pictures, GDSII, netlist, the block's geometry (seconds)
+_PER_UNIT_S = 1.2e-3
+#: per unit x nets^1.5: routing tracks and the extraction's crossings (seconds)
+_PER_UNIT_NET_S = 3.6e-6
+#: per device x slot: each device's covariance field for every scored arrangement
+_PER_DEVICE_SLOT_S = 3.0e-6
+#: per sampled unit cubed: factorising the units' correlation for [monte_carlo]
+_PER_MC_UNIT3_S = 5.5e-10
+#: per capacitor-budget code sample (mc_samples x 2^bits)
+_PER_CODE_SAMPLE_S = 6e-7
+#: memory: the interpreter and libraries, per unit, per unit x nets^1.5, per device x
+#: slot, per sampled unit squared, per code sample (MB)
+_BASE_MB = 100.0
+_PER_UNIT_MB = 0.026
+_PER_UNIT_NET_MB = 1.17e-4
+_PER_DEVICE_SLOT_MB = 1.8e-3
+_PER_MC_UNIT2_MB = 3.5e-5
+_PER_CODE_SAMPLE_MB = 4e-5
+
+#: a run estimated to need more memory than this is refused at any time limit (MB)
+MAX_PEAK_MB = 8192.0
+#: the fixed work may take three times the time limit plus this (seconds)
+MARGIN_S = 5.0
+
+
+@dataclass(frozen=True)
+class Workload:
+    """Estimated fixed work of one run: seconds and peak memory on the reference
+    machine, and the seconds of each part (largest first)."""
+
+    seconds: float
+    peak_mb: float
+    parts: tuple[tuple[str, float], ...]
+
+
+def _slots(spec: Spec) -> int:
+    rows, cols = spec.array.rows, spec.array.columns
+    if rows is not None and cols is not None:
+        return rows * cols
+    return spec.n_units
+
+
+def _code_samples(spec: Spec) -> int:
+    e = spec.electrical
+    if e is None or KINDS[spec.kind].budget != "dac":     # a budget over every code
+        return 0
+    return e.mc_samples * 2 ** min(max(len(spec.devices) - 1, 0), 16)
+
+
+def estimate(spec: Spec, routed: bool = True) -> Workload:
+    """The fixed work of arranging (or drawing) ``spec``; ``routed``: the run routes and
+    extracts the block's wiring.
+
+    >>> from placer.jobs.load import parse_spec
+    >>> small = estimate(parse_spec('[devices]\\nA = 2\\nB = 2\\n', "s.toml"))
+    >>> big = estimate(parse_spec('[devices]\\nA = 2048\\nB = 2048\\n', "s.toml"))
+    >>> small.seconds < big.seconds and small.peak_mb < big.peak_mb
+    True
+    """
+    units = spec.n_units
+    nets = len(spec.net_names()) if routed else 0
+    parts = {
+        "start-up and report": _BASE_S,
+        f"pictures and geometry of {units} units": _PER_UNIT_S * units,
+        f"routing and extracting {nets} nets": _PER_UNIT_NET_S * units * nets ** 1.5,
+        f"covariance fields of {len(spec.devices)} devices": (
+            _PER_DEVICE_SLOT_S * len(spec.devices) * _slots(spec)),
+    }
+    peak = (_BASE_MB + _PER_UNIT_MB * units + _PER_UNIT_NET_MB * units * nets ** 1.5
+            + _PER_DEVICE_SLOT_MB * len(spec.devices) * _slots(spec))
+    if spec.monte_carlo.samples > 0:
+        parts["[monte_carlo] correlation"] = _PER_MC_UNIT3_S * units ** 3
+        peak += _PER_MC_UNIT2_MB * units ** 2
+    codes = _code_samples(spec)
+    if codes:
+        parts["capacitor budget codes"] = _PER_CODE_SAMPLE_S * codes
+        peak += _PER_CODE_SAMPLE_MB * codes
+    ordered = tuple(sorted(parts.items(), key=lambda kv: -kv[1]))
+    return Workload(sum(parts.values()), peak, ordered)
+
+
+def allowed_seconds(time_limit_s: float) -> float:
+    """The most fixed work a run with this time limit takes on (seconds).
+
+    >>> allowed_seconds(0.3), allowed_seconds(60.0)
+    (5.9, 185.0)
+    """
+    return round(3 * time_limit_s + MARGIN_S, 6)
+
+
+def check(spec: Spec, source: str, time_limit_s: float | None, routed: bool = True) -> Workload:
+    """Refuse (:class:`LimitError`) a run whose fixed work is out of proportion: memory
+    past :data:`MAX_PEAK_MB`, or (with a time limit) seconds past
+    :func:`allowed_seconds`. Returns the estimate otherwise."""
+    work = estimate(spec, routed)
+    what, secs = work.parts[0]
+    if work.peak_mb > MAX_PEAK_MB:
+        raise LimitError(
+            f"{source}: {what} over {spec.n_units} units would need about "
+            f"{work.peak_mb / 1024:.0f} GB (estimate; the limit is {MAX_PEAK_MB / 1024:.0f} "
+            "GB); split the block into smaller ones or join terminals onto fewer nets")
+    if time_limit_s is not None and work.seconds > allowed_seconds(time_limit_s):
+        need = max(1, int((work.seconds - MARGIN_S) / 3 + 0.999))
+        raise LimitError(
+            f"{source}: the work around the search ({what}: about {secs:.0f} s of "
+            f"{work.seconds:.0f} s, estimated) is far past --time-limit {time_limit_s:g}; "
+            f"give --time-limit {need} or more")
+    return work

@@ -1,0 +1,98 @@
+"""The fixed work around the search is estimated from the sizes and checked against
+--time-limit (and memory) before any of it starts.
+
+Before the check, ``arrange --time-limit 0.3`` of 2048 units with 16 Monte Carlo samples
+ran about 9 s (24 s CPU when the issue was filed) and exited 0, and 256 devices on a
+256 x 256 core ran out of a 24 GB machine's memory after six minutes (killed by the
+kernel): each test below failed then."""
+
+from __future__ import annotations
+
+import math
+import time
+
+import pytest
+
+from placer.cli import cli
+from placer.errors import LimitError
+from placer.jobs import workload
+from placer.jobs.load import parse_spec
+from tests.helpers import spec_file
+
+MC_2048 = ("[devices]\nA = 1024\nB = 1024\n[array]\nrows = 32\n"
+           "[monte_carlo]\nsamples = 16\n")
+WIDE_256 = ("[devices]\n" + "".join(f"D{i} = 256\n" for i in range(256))
+            + "[array]\nrows = 256\ncolumns = 256\ndummies = \"none\"\n")
+
+
+def _refused_fast(result, *words: str) -> None:
+    assert result.exit_code == 1, result.output
+    lines = [ln for ln in result.output.splitlines() if ln.strip()]
+    assert len(lines) == 1 and lines[0].startswith("Error:"), result.output
+    for w in words:
+        assert w in lines[0], (w, lines[0])
+
+
+def test_monte_carlo_far_past_a_short_limit_is_refused_before_any_work(tmp_path, runner):
+    spec = spec_file(tmp_path, MC_2048)
+    out = tmp_path / "o"
+    t0 = time.process_time()
+    result = runner.invoke(cli, ["arrange", str(spec), "--out", str(out),
+                                 "--time-limit", "0.3"])
+    cpu = time.process_time() - t0
+    _refused_fast(result, "--time-limit 0.3", "[monte_carlo]", "give --time-limit")
+    assert not out.exists()
+    assert cpu < 1.0                  # refused from the sizes, not after the work
+
+
+@pytest.mark.parametrize("command", ["arrange", "compare", "lesson"])
+def test_the_named_limit_is_one_the_check_accepts(command):
+    """The limit the message names lets the same spec through (no dead end)."""
+    spec = parse_spec(MC_2048, "s.toml")
+    routed = command == "arrange"
+    with pytest.raises(LimitError) as err:
+        workload.check(spec, "s.toml", 0.3, routed=routed)
+    need = float(str(err.value).split("give --time-limit ")[1].split()[0])
+    assert workload.check(spec, "s.toml", need, routed=routed).seconds > 0
+
+
+def test_a_block_past_the_memory_bound_is_refused_at_any_limit(tmp_path, runner):
+    spec = spec_file(tmp_path, WIDE_256)
+    for limit in ("0.3", "86400"):
+        result = runner.invoke(cli, ["arrange", str(spec), "--out", str(tmp_path / "o"),
+                                     "--time-limit", limit])
+        _refused_fast(result, "258 nets", "65536 units", "GB")
+    # draw has no time limit, but the same memory bound
+    with pytest.raises(LimitError, match="GB"):
+        workload.check(parse_spec(WIDE_256, "s.toml"), "s.toml", None)
+
+
+def test_samples_and_ordinary_blocks_pass_at_short_limits():
+    """Every shipped sample at --time-limit 0.5, and a 4096-unit pair at 1 s."""
+    from tests.helpers import SAMPLES
+
+    for path in sorted(SAMPLES.glob("*.toml")):
+        spec = parse_spec(path.read_text(), path.name)
+        workload.check(spec, path.name, 0.5)
+    pair = parse_spec("[devices]\nA = 2048\nB = 2048\n[array]\nrows = 64\n", "p.toml")
+    workload.check(pair, "p.toml", 1.0)
+
+
+def test_the_estimate_is_the_stated_sum_of_its_terms():
+    """Hand calculation from the module's stated terms: 2 devices of 512 units on
+    32 x 32, nets GATE, SOURCE and a drain each (4): 2.0 + 1.2e-3 * 1024
+    + 3.6e-6 * 1024 * 4^1.5 + 3.0e-6 * 2 * 1024 = 3.2644352 s; memory
+    100 + 0.026 * 1024 + 1.17e-4 * 1024 * 8 + 1.8e-3 * 2 * 1024 = 131.268864 MB."""
+    spec = parse_spec("[devices]\nA = 512\nB = 512\n[array]\nrows = 32\ncolumns = 32\n",
+                      "s.toml")
+    work = workload.estimate(spec)
+    assert math.isclose(work.seconds, 3.2644352, rel_tol=1e-9)
+    assert math.isclose(work.peak_mb, 131.268864, rel_tol=1e-9)
+    assert math.isclose(sum(s for _, s in work.parts), work.seconds, rel_tol=1e-12)
+    unrouted = workload.estimate(spec, routed=False)
+    assert math.isclose(work.seconds - unrouted.seconds, 3.6e-6 * 1024 * 8, rel_tol=1e-9)
+    # the Monte Carlo term: units cubed
+    mc = parse_spec(MC_2048, "s.toml")
+    plain = parse_spec(MC_2048.split("[monte_carlo]")[0], "s.toml")
+    assert math.isclose(workload.estimate(mc).seconds - workload.estimate(plain).seconds,
+                        5.5e-10 * 2048 ** 3, rel_tol=1e-9)
