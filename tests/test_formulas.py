@@ -668,6 +668,38 @@ def test_dac_curvature_inl_on_a_two_dimensional_array():
     assert dnl_max * (1 - 1e-6) <= b.quadratic_dnl_lsb <= dnl_max * 1.005
 
 
+def test_dac_curvature_curve_is_the_worst_hessians_inl_by_code():
+    """The budget picture's curvature curve (it showed none): the INL by code under one
+    Hessian of the spec's norm, the one worst for |INL|. By brute force as above: the
+    lattice Hessian with the largest |INL| gives, code by code, the same curve (up to the
+    sign of H, within the lattice's spacing), and the curve's largest |INL| is the
+    budget's quadratic INL."""
+    b = _budget_2d(linear=0.0, quadratic=2.0)
+    pos = _positions_2d()
+    centre = np.concatenate(list(pos.values())).mean(0)
+    moments = {d: ((p - centre)[:, 0] ** 2, (p - centre)[:, 0] * (p - centre)[:, 1],
+                   (p - centre)[:, 1] ** 2) for d, p in pos.items()}
+    n = 4000
+    k = np.arange(n) + 0.5
+    z = 1 - 2 * k / n
+    phi = np.pi * (1 + 5 ** 0.5) * k
+    u = np.column_stack([np.sqrt(1 - z * z) * np.cos(phi), np.sqrt(1 - z * z) * np.sin(phi), z])
+    h = 2.0e-6
+    best, best_curve = -1.0, None
+    for ua, ub, uc in u:
+        a, bb, c = h * ua, h * ub / np.sqrt(2.0), h * uc
+        err = {d: float(np.mean(0.5 * (a * xx + 2 * bb * xy + c * yy)))
+               for d, (xx, xy, yy) in moments.items()}
+        curve = _levels_inl(err)
+        if np.abs(curve).max() > best:
+            best, best_curve = float(np.abs(curve).max()), curve
+    got = np.array(b.quadratic_inl_curve_lsb)
+    assert np.abs(got).max() == pytest.approx(b.quadratic_inl_lsb, rel=1e-12)
+    sign = np.sign(got @ best_curve)
+    assert np.abs(sign * got - best_curve).max() <= 0.03 * best
+    assert len(b.quadratic_dnl_curve_lsb) == len(got) - 1
+
+
 def test_dac_worst_gradient_dnl_is_the_worst_over_every_direction():
     """The DNL line is the largest |DNL| of any direction (it was the DNL in the worst
     INL's direction): brute force over directions, 1 degree apart as the budget scans."""

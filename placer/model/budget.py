@@ -238,6 +238,10 @@ class DacBudget:
     mc_inl_p99_lsb: tuple[float, ...]
     mc_dnl_p99_lsb: tuple[float, ...]
     assumptions: dict[str, Any]
+    #: INL and DNL by code under the one Hessian (of the spec's norm) that gives the worst
+    #: |INL| (its largest value is ``quadratic_inl_lsb``)
+    quadratic_inl_curve_lsb: tuple[float, ...] = ()
+    quadratic_dnl_curve_lsb: tuple[float, ...] = ()
     wiring_inl_lsb: float | None = None     # None: not routed
     wiring_dnl_lsb: float | None = None
 
@@ -444,6 +448,23 @@ def _curvature_worst(inl_of: Any, m2: FloatArray, norm: float) -> tuple[float, f
             float(np.sqrt((weight * dnl ** 2).sum(0)).max()))
 
 
+def _curvature_curves(inl_of: Any, m2: FloatArray, norm: float
+                      ) -> tuple[FloatArray, FloatArray]:
+    """INL and DNL by code under the Hessian of norm ``norm`` that makes the worst |INL|
+    (see :func:`_curvature_worst`): at the code k where the bound sqrt(I_a^2 + I_b^2 / 2 +
+    I_c^2) is largest, Cauchy-Schwarz is an equality for (a, b, c) proportional to
+    (I_a, I_b / 2, I_c) at k; the curves are that one field's INL and DNL at every code."""
+    fields = norm * np.stack([0.5 * m2[:, 0, 0], m2[:, 0, 1], 0.5 * m2[:, 1, 1]])
+    inl, dnl = inl_of(fields)
+    weight = np.array([1.0, 0.5, 1.0])[:, None]
+    bound = np.sqrt((weight * inl ** 2).sum(0))
+    k = int(np.argmax(bound))
+    if norm == 0.0 or bound[k] == 0.0:
+        return np.zeros(inl.shape[1]), np.zeros(dnl.shape[1])
+    coef = np.array([inl[0, k], 0.5 * inl[1, k], inl[2, k]]) / bound[k]
+    return coef @ inl, coef @ dnl
+
+
 def _dac_budget(pattern: Pattern, spec: Spec, e: ElectricalSpec, wiring: Any = None
                 ) -> DacBudget:
     names = list(spec.devices)
@@ -478,6 +499,8 @@ def _dac_budget(pattern: Pattern, spec: Spec, e: ElectricalSpec, wiring: Any = N
     worst = np.abs(inl).max(-1)
     k = int(np.argmax(worst))
     q_inl, q_dnl = _curvature_worst(inl_of, m2, spec.gradient.quadratic_ppm_per_um2 * 1e-6)
+    q_curve, q_dnl_curve = _curvature_curves(inl_of, m2,
+                                             spec.gradient.quadratic_ppm_per_um2 * 1e-6)
 
     # random parts: correlated device means (exact covariance) and white per device
     c = spec.correlated
@@ -527,6 +550,8 @@ def _dac_budget(pattern: Pattern, spec: Spec, e: ElectricalSpec, wiring: Any = N
         gradient_dnl_lsb=tuple(float(v) for v in dnl[k]),
         mc_inl_p99_lsb=tuple(float(v) for v in p99),
         mc_dnl_p99_lsb=tuple(float(v) for v in p99_d),
+        quadratic_inl_curve_lsb=tuple(float(v) for v in q_curve),
+        quadratic_dnl_curve_lsb=tuple(float(v) for v in q_dnl_curve),
         assumptions={"fit": e.fit, "gradient_ppm_per_um": spec.gradient.linear_ppm_per_um,
                      "hessian_norm_ppm_per_um2": spec.gradient.quadratic_ppm_per_um2,
                      "correlated_sigma_ppm": c.sigma_ppm, "a_param_pct_um":

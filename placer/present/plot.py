@@ -18,6 +18,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+from numpy.typing import NDArray
 
 from placer.io.pattern import DUMMY, EMPTY, Pattern
 from placer.model.grade import Grade
@@ -418,10 +419,38 @@ def _save(fig: Any, paths: Sequence[Path], dpi: int = 100) -> None:
         _write_figure(fig, path, dpi)
 
 
-def save_budget(b: Any, name: str, paths: Sequence[Path], seed: int = 0,
+def ratio_error_density(ln: Any, points: int = 801, directions: int = 720
+                        ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """The probability density of one output's ratio error (%), exactly as the budget
+    models it: fixed parts (channel-length modulation, the wiring, the curvature at its
+    worst sign) plus the linear part turning with a gradient of uniformly random direction
+    (``g cos theta``) plus normal random mismatch -- the average over the direction of a
+    normal density (no sampling). Returns (x, density) on ``points`` abscissae.
+
+    >>> from types import SimpleNamespace as L
+    >>> x, f = ratio_error_density(L(clm_pct=0.1, wiring_pct=None, quadratic_pct=0.0,
+    ...                              gradient_pct=0.0, random_sigma_pct=0.5))
+    >>> round(float(np.sum(f) * (x[1] - x[0])), 4), round(float(x[np.argmax(f)]), 3)
+    (1.0, 0.1)
+    """
+    centre = ln.clm_pct + (ln.wiring_pct or 0.0) + ln.quadratic_pct
+    g = abs(ln.gradient_pct)
+    sigma = abs(ln.random_sigma_pct)
+    half = g + 5.0 * max(sigma, 0.02 * g) if g + sigma > 0 else 1e-6
+    x = np.linspace(centre - half, centre + half, points)
+    # a tiny sigma against the gradient: smooth to two grid steps (the arcsine peaks)
+    s = max(sigma, 2.0 * (x[1] - x[0]))
+    theta = (np.arange(directions) + 0.5) * (2.0 * np.pi / directions)
+    z = (x[:, None] - centre - g * np.cos(theta)[None, :]) / s
+    density = np.exp(-0.5 * z * z).mean(axis=1) / (s * np.sqrt(2.0 * np.pi))
+    return x, density
+
+
+def save_budget(b: Any, name: str, paths: Sequence[Path],
                 devices: Sequence[str] = ()) -> None:
-    """Budget picture: ratio-error histograms (mirrors, resistors), one panel per output
-    wrapped into rows of three, in each device's colour (``devices``: the spec's order,
+    """Budget picture: the ratio error's exact density (mirrors, resistors; see
+    :func:`ratio_error_density`), one panel per output wrapped into rows of three, in
+    each device's colour (``devices``: the spec's order,
     which fixes the colours); or INL and DNL by code for a capacitor array, the gradient
     curve with the random 99th-percentile band."""
     from placer.model.budget import DacBudget
@@ -435,14 +464,20 @@ def save_budget(b: Any, name: str, paths: Sequence[Path], seed: int = 0,
         dnl = np.array(b.gradient_dnl_lsb)
         band_i = np.array(b.mc_inl_p99_lsb)
         band_d = np.array(b.mc_dnl_p99_lsb)
-        for ax, band, curve, x, what in ((ax1, band_i, inl, codes, "INL"),
-                                         (ax2, band_d, dnl, codes[:-1], "DNL")):
+        quad_i = np.array(b.quadratic_inl_curve_lsb)
+        quad_d = np.array(b.quadratic_dnl_curve_lsb)
+        for ax, band, curve, quad, x, what in ((ax1, band_i, inl, quad_i, codes, "INL"),
+                                               (ax2, band_d, dnl, quad_d, codes[:-1], "DNL")):
             ax.fill_between(x, -band, band, color=PALETTE[1], alpha=0.4, lw=0,
                             label=f"random: 99th percentile of |{what}| ({b.mc_samples} "
                                   f"samples), up to {band.max(initial=0.0):.3g} LSB")
             ax.plot(x, curve, color="black", lw=1.2,
-                    label=f"gradient, worst direction {b.worst_direction_deg:.0f} deg: up "
-                          f"to {np.abs(curve).max(initial=0.0):.3g} LSB")
+                    label=f"linear gradient, worst direction {b.worst_direction_deg:.0f} "
+                          f"deg: up to {np.abs(curve).max(initial=0.0):.3g} LSB")
+            if len(quad) == len(x) and np.any(quad):
+                ax.plot(x, quad, color=PALETTE[5], lw=1.2, ls="--",
+                        label=f"curvature, the Hessian worst for INL: up to "
+                              f"{np.abs(quad).max(initial=0.0):.3g} LSB")
             ax.axhline(0.0, color="#888888", lw=0.5)
             ax.set_ylabel(f"{what} (LSB)")
             ax.legend(fontsize=8, loc="best", framealpha=0.85)
@@ -460,32 +495,28 @@ def save_budget(b: Any, name: str, paths: Sequence[Path], seed: int = 0,
     axes = np.atleast_1d(fig.subplots(nrows, ncols, squeeze=False)).ravel()
     index = {d: i for i, d in enumerate(devices)}
     colours = device_colours(max(len(devices), 1))
-    rng = np.random.default_rng(seed)
     for k, ln in enumerate(b.lines):
         ax = axes[k]
         colour = colours[index[ln.device]][0] if ln.device in index else PALETTE[k % 8]
-        m = 20000
-        theta = rng.uniform(0, 2 * np.pi, m)
-        # the linear part turns with the gradient; the curvature part (worst sign),
-        # channel-length modulation and the drawn wiring do not
-        sample = (ln.clm_pct + (ln.wiring_pct or 0.0) + ln.quadratic_pct
-                  + ln.gradient_pct * np.cos(theta) + rng.normal(0, ln.random_sigma_pct, m))
-        ax.hist(sample, bins=80, color=colour, edgecolor="none")
+        err, density = ratio_error_density(ln)
+        ax.fill_between(err, 0.0, density, color=colour, lw=0)
         for v in (-b.tolerance_pct, b.tolerance_pct):
             ax.axvline(v, color="black", ls="--", lw=1)
         ax.set_title(f"{ln.device} / {b.reference}: {100 * ln.within_tolerance:.1f}% within "
-                     f"+-{b.tolerance_pct:g}%", fontsize=9)
+                     f"+-{b.tolerance_pct:g}%\n(gradient at its worst)", fontsize=9)
         ax.set_xlabel("ratio error (%)")
+        ax.set_ylim(bottom=0.0)
         if k % ncols == 0:
-            ax.set_ylabel("parts (of 20 000)")
+            ax.set_ylabel("probability density (1/%)")
     for ax in axes[len(b.lines):]:
         ax.set_axis_off()
     if not b.lines:
         axes[0].text(0.5, 0.5, "one device: no ratio to budget", ha="center", va="center",
                      transform=axes[0].transAxes)
     # wrapped to the figure's width (about 13 characters an inch at 10 pt)
-    fig.suptitle(textwrap.fill(f"{name}: electrical budget (model estimates; Monte Carlo "
-                               "over random gradient direction, dashed: the tolerance)",
+    fig.suptitle(textwrap.fill(f"{name}: electrical budget (model estimates; the exact "
+                               "distribution over a gradient of random direction and the "
+                               "random mismatch, dashed: the tolerance)",
                                int(width_in * 13)), fontsize=10)
     _save(fig, paths)
 
