@@ -33,6 +33,7 @@ from placer.layout import pitch
 from placer.model.grade import Grade, grade_pattern
 from placer.present import outputs
 from placer.present.report import (
+    file_frame,
     format_arrangement,
     format_budget,
     format_grade,
@@ -307,7 +308,7 @@ def grade(layout: Path, spec_path: Path | None, as_json: bool, budget_plot: Path
     if as_json:
         click.echo(json_text(grade_report(result, bud, rec, spec, worst_pair, sens)))
     else:
-        click.echo(format_grade(result))
+        click.echo(format_grade(result, origin_um=rec.origin_um, frame=file_frame(rec)))
         if sens:
             click.echo(format_sensitivity(sens, worst_pair, rec))
         if bud is not None:

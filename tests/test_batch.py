@@ -40,7 +40,7 @@ def test_a_failing_block_is_reported_and_the_others_complete(tmp_path):
     assert res.returncode == 1
     # one Error line for scripts and logs (exit 1 came with none)
     errors = [ln for ln in res.stderr.splitlines() if ln.startswith("Error:")]
-    assert errors == [f"Error: 1 of 2 blocks failed (bad); chip/summary.json gives each "
+    assert errors == ["Error: 1 of 2 blocks failed (bad); chip/summary.json gives each "
                       "one's reason"], res.stderr
     blocks = {b["name"]: b for b in json.loads((tmp_path / "chip" / "summary.json")
                                                .read_text())["blocks"]}

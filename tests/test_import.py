@@ -165,3 +165,26 @@ def test_array_reference_bombs_and_absurd_units_are_refused(tmp_path, runner):
     result = runner.invoke(cli, ["grade", str(tmp_path / "units.gds"), "--json"])
     assert result.exit_code == 1 and "Traceback" not in result.output
     assert "UNITS" in result.output
+
+
+def test_grade_gives_every_position_in_the_files_own_frame(runner):
+    """One report, one frame: for a CSV the device table's centroids were in the pattern's
+    frame (x from 0, y down from 0) while the units adding most were in the CSV's. Each
+    centroid must be the mean of that device's rows of the CSV, read here directly."""
+    import csv
+
+    from tests.helpers import SAMPLES
+
+    path = SAMPLES / "bias_mirror_hand.csv"
+    rows = list(csv.DictReader(ln for ln in path.read_text().splitlines()
+                               if not ln.startswith("#")))
+    result = runner.invoke(cli, ["grade", str(path), "--spec", str(SAMPLES / "bias_mirror.toml")])
+    assert result.exit_code == 0, result.output
+    lines = result.output.splitlines()
+    assert "in the CSV's coordinates" in next(ln for ln in lines if ln.startswith("Devices"))
+    for device in ("MREF", "MOUTA", "MOUTB"):
+        xs = [float(r["x_um"]) for r in rows if r["device"] == device]
+        ys = [float(r["y_um"]) for r in rows if r["device"] == device]
+        row = next(ln.split() for ln in lines if ln.split()[:1] == [device])
+        assert float(row[2]) == pytest.approx(np.mean(xs), abs=0.06)
+        assert float(row[3]) == pytest.approx(np.mean(ys), abs=0.006)

@@ -84,8 +84,8 @@ def test_a_signal_during_the_move_in_leaves_the_whole_set(tmp_path, runner, monk
 
 @pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM])
 def test_grades_two_pictures_move_in_together(tmp_path, runner, monkeypatch, sig):
-    """grade --sensitivity-plot and --budget-plot: an interrupt while the pictures move
-    in leaves both (grade wrote one picture, then the interrupt, then none of the other)."""
+    """Both of grade's pictures (--sensitivity-plot, --budget-plot): an interrupt while they move
+    in leaves both (grade wrote one picture, then the interrupt, and none of the other)."""
     pictures = [tmp_path / "units.svg", tmp_path / "budget.png"]
     real, sent = os.replace, []
 

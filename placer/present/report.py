@@ -76,24 +76,31 @@ def _f(value: float, digits: int = 3) -> str:
     return f"{value:.{digits}g}"
 
 
-def format_grade(grade: Grade, max_pairs: int = 40) -> str:
-    """The grade as text: devices, pairs, worst pairs, assumptions, caution."""
+def format_grade(grade: Grade, max_pairs: int = 40, origin_um: tuple[float, float] = (0.0, 0.0),
+                 frame: str = "") -> str:
+    """The grade as text: devices, pairs, worst pairs, assumptions, caution.
+
+    ``origin_um`` and ``frame`` (e.g. "the CSV's coordinates") put the positions in the
+    input file's own frame, the one the rest of the report uses for that file.
+    """
     a = grade.assumptions
     rows, cols = grade.shape
+    ox, oy = origin_um
+    where = f" ({frame})" if frame else ""
     out = [f"{grade.name}: {grade.kind} array of {rows} x {cols} slots, pitch "
            f"{grade.pitch_um[0]:g} x {grade.pitch_um[1]:g} um, centre of device units at "
-           f"({grade.centre_um[0]:.4g}, {grade.centre_um[1]:.4g}) um", ""]
+           f"({grade.centre_um[0] + ox:.4g}, {grade.centre_um[1] + oy:.4g}) um{where}", ""]
     dev_rows = []
     for d in grade.devices:
         right, left, _ = d.orientation
         dev_rows.append([
-            d.name, str(d.units), f"{d.centroid_um[0]:.4g}", f"{d.centroid_um[1]:.4g}",
+            d.name, str(d.units), f"{d.centroid_um[0] + ox:.4g}", f"{d.centroid_um[1] + oy:.4g}",
             _f(d.offset_um), _f(d.second_moment_um2[0]), _f(d.second_moment_um2[1]),
             _f(d.second_moment_um2[2]), str(d.edge_units),
             f"{right}/{left}" if right + left else "-",
         ])
-    out.append("Devices (centroid in um; offset from centre in um; second moments about "
-               "the centre in um^2)")
+    out.append(f"Devices (centroid in um{', in ' + frame if frame else ''}; offset from centre "
+               "in um; second moments about the centre in um^2)")
     out.append(format_table(["device", "units", "x", "y", "offset", "Mxx", "Mxy", "Myy",
                              "edge", ">/<"], dev_rows))
     out.append("")
@@ -323,11 +330,15 @@ def grade_report(grade: Grade, budget: Any, rec: Any, spec: Spec, worst_pair: st
     return out
 
 
+def file_frame(rec: Any) -> str:
+    """The name of an input file's own coordinate frame ('' for a pattern text)."""
+    return {"gds": "the GDSII's coordinates", "csv": "the CSV's coordinates"}.get(rec.fmt, "")
+
+
 def format_sensitivity(sens: list[Any], worst_pair: str, rec: Any) -> str:
     """The three units adding most to the worst pair, at their positions in the file's own
     frame (to find them in the layout)."""
-    frame = {"gds": " (x, y in the GDSII's coordinates)",
-             "csv": " (x, y in the CSV's coordinates)"}.get(rec.fmt, "")
+    frame = f" (x, y in {file_frame(rec)})" if file_frame(rec) else ""
     top = ", ".join(f"{u.device} at row {u.row} col {u.col} "
                     f"({u.x_um + rec.origin_um[0]:.4g}, {u.y_um + rec.origin_um[1]:.4g}"
                     f" um): {u.contribution_ppm:+.3g} ppm" for u in sens[:3])
