@@ -420,9 +420,20 @@ def batch(paths: tuple[Path, ...], out_dir: Path, time_limit: float, seed: int,
     n_jobs = jobs or (len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity")
                       else (os.cpu_count() or 1))
     t0 = time.monotonic()
+    finished: list[Any] = []
     with OutputSet(out_dir, outputs.BATCH_FILES, force) as out:
-        runs = run_batch(specs, out_dir, time_limit_s=time_limit, seed=seed, jobs=n_jobs,
-                         force=force, progress=not quiet)
+        try:
+            runs = run_batch(specs, out_dir, time_limit_s=time_limit, seed=seed, jobs=n_jobs,
+                             force=force, progress=not quiet, finished=finished)
+        except KeyboardInterrupt:
+            # each block is a set of its own: the ones that finished stay whole
+            if not finished:
+                raise
+            names = ", ".join(r.name for r in finished[:5]) + (" ..." if len(finished) > 5
+                                                                else "")
+            click.echo(f"Interrupted; the {len(finished)} block(s) that finished are complete "
+                       f"in {out_dir} ({names}); no summary written.", err=True)
+            sys.exit(130)
         wall = time.monotonic() - t0
         outputs.write_batch(out, runs, wall_s=wall, jobs=n_jobs, time_limit_s=time_limit,
                             seed=seed)

@@ -82,3 +82,38 @@ def test_blocks_import_the_package_the_batch_runs_from_not_the_working_folders(t
                          env={**os.environ, "PYTHONPATH": str(ROOT)})
     assert res.returncode == 0, res.stdout + res.stderr
     assert (tmp_path / "chip" / "pair" / "pattern.txt").is_file()
+
+
+def test_an_interrupted_batch_keeps_its_finished_blocks_and_says_so(tmp_path):
+    """Ctrl-C after the first of two blocks: that block's folder is whole, there is no
+    summary, and the message says which blocks are complete (it said 'nothing written'
+    beside a finished block)."""
+    import os
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    from tests.helpers import ROOT
+
+    specs = tmp_path / "specs"
+    specs.mkdir()
+    shutil.copy(SAMPLES / "input_pair.toml", specs / "a_pair.toml")
+    shutil.copy(SAMPLES / "bias_mirror.toml", specs / "b_mirror.toml")
+    env = {**os.environ, "PYTHONPATH": str(ROOT)}
+    proc = subprocess.Popen([sys.executable, "-m", "placer", "batch", str(specs), "--out",
+                             "chip", "--jobs", "1", "--time-limit", "3", "--quiet"],
+                            cwd=tmp_path, env=env, stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True)
+    first = tmp_path / "chip" / "a_pair" / "report.json"
+    deadline = time.monotonic() + 120
+    while not first.exists() and proc.poll() is None and time.monotonic() < deadline:
+        time.sleep(0.02)
+    proc.send_signal(signal.SIGINT)
+    _, err = proc.communicate(timeout=120)
+    assert proc.returncode == 130, err
+    assert "1 block(s) that finished are complete" in err and "a_pair" in err, err
+    names = {p.name for p in (tmp_path / "chip" / "a_pair").iterdir()}
+    assert {"pattern.txt", "report.json", "pattern.gds", "pattern.png"} <= names
+    assert not (tmp_path / "chip" / "summary.json").exists()
+    assert not any(p.name.startswith(".placer-staging") for p in (tmp_path / "chip").iterdir())

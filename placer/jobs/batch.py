@@ -99,7 +99,8 @@ def _read(name: str, spec: Path, code: int, wall: float, err: str, folder: Path)
 
 
 def run_batch(specs: list[Path], out: Path, *, time_limit_s: float, seed: int, jobs: int,
-              force: bool, progress: bool = False) -> list[BlockRun]:
+              force: bool, progress: bool = False,
+              finished: list[BlockRun] | None = None) -> list[BlockRun]:
     """Arrange every spec into ``out/<spec name>/``, ``jobs`` at a time.
 
     Parameters
@@ -118,6 +119,9 @@ def run_batch(specs: list[Path], out: Path, *, time_limit_s: float, seed: int, j
         Replace a previous run's files in each block's folder.
     progress : bool
         Print a line to standard error as each block ends.
+    finished : list of BlockRun, optional
+        Each block that completes is appended here as it ends, so that a caller whose
+        batch is interrupted knows which blocks' folders are whole.
 
     Returns
     -------
@@ -154,6 +158,11 @@ def run_batch(specs: list[Path], out: Path, *, time_limit_s: float, seed: int, j
             with lock:
                 running.discard(proc)
         run = _read(spec.stem, spec, proc.returncode, time.monotonic() - t0, err, folder)
+        # a block ended by the interrupt after its files moved in is whole too
+        whole = run.exit_code == 0 or (proc.returncode == 130 and "are complete" in err)
+        if finished is not None and whole:
+            with lock:
+                finished.append(run)
         if progress:
             sys.stderr.write(f"{spec.stem}: {'done' if run.exit_code == 0 else run.error}\n")
         return run
