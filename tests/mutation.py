@@ -3,14 +3,23 @@
 Run:  python tests/mutation.py [--modules model/variation model/budget ...] [--jobs 2]
                                [--list-only] [--out mutation-report.txt]
 
-Each mutant changes one thing in one function of a module -- an arithmetic operator
-(+ -, * /, ** *), a comparison (< <=, > >=), a numeric constant (doubled, or 0 <-> 1) or
-a unary minus (dropped) -- and the quick tests (tests/test_formulas.py, test_budget.py,
-test_model.py, test_score.py when present, test_search.py's exactness checks) run on a
-copy of the package holding it. A mutant the tests do not fail *survives*; survivors are
-printed with their line, for a person to judge: a survivor on a formula line is a
-missing test; one on a message, a default or a guard may be harmless (say why in
-DEVELOPERS.md).
+Run:  python tests/mutation.py --kinds semantic --whole-suite [--modules ...]
+
+Each mutant changes one thing in one function of a module. *Operator* mutants change an
+arithmetic operator (+ -, * /, ** *), a comparison (< <=, > >=), a numeric constant
+(doubled, or 0 <-> 1) or a unary minus (dropped). *Semantic* mutants make the mistakes a
+person makes in a formula: two arguments of a call swapped (``f(a, b)`` -> ``f(b, a)``,
+commutative functions left out), a factor dropped (``a * b`` -> ``a`` and -> ``b``, ``a /
+b`` -> ``a``) and a sum taken for a root-sum-square (``sqrt(a + b)`` -> ``sqrt(a) +
+sqrt(b)``, ``hypot(a, b)`` -> ``abs(a) + abs(b)``).
+
+The formula tests (tests/test_formulas.py, test_budget.py, test_model.py, test_workload.py,
+test_search.py's exactness checks, the modules' doctests) run first on a copy of the
+package holding the mutant; with ``--whole-suite`` a mutant they miss is run again
+against the whole default suite (every test file, as ``pytest`` runs them locally), and
+only a mutant that passes that too *survives*. Survivors are printed with their line,
+for a person to judge: a survivor on a formula line is a missing test; one on a message,
+a default or a guard may be harmless (say why in DEVELOPERS.md).
 """
 
 from __future__ import annotations
@@ -28,13 +37,29 @@ from dataclasses import dataclass
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
+MODULES = ["model/variation", "model/budget", "model/grade", "model/exact_moments",
+           "model/routing_estimate", "layout/wiring_error", "layout/parasitics",
+           "search/_problem", "search/_compiled", "search/baselines", "jobs/workload"]
 TESTS = ["tests/test_formulas.py", "tests/test_budget.py", "tests/test_model.py",
+         "tests/test_workload.py",
          "tests/test_search.py::test_exact_search_agrees_with_plain_enumeration",
          "tests/test_search.py::test_keys_of_a_baseline_equal_grade_with_an_offset_centre",
          "tests/test_layout.py::test_sensitivity_contributions_add_up_to_the_worst_pair_error",
          # the examples in the formula modules' docstrings are checks too
          "--doctest-modules", "placer/model/variation.py", "placer/model/budget.py",
-         "placer/model/grade.py", "placer/model/exact_moments.py"]
+         "placer/model/grade.py", "placer/model/exact_moments.py",
+         "placer/jobs/workload.py"]
+WHOLE = ["tests"]
+#: calls whose first two arguments may be swapped without changing the result
+_COMMUTATIVE = {"min", "max", "maximum", "minimum", "hypot", "add", "multiply", "isclose",
+                "allclose", "array_equal", "logical_and", "logical_or", "gcd", "lcm",
+                "fmax", "fmin", "union1d", "intersect1d", "dot", "inner", "zip", "print",
+                "isinstance", "issubclass", "getattr", "hasattr", "setattr", "setdefault",
+                "get", "pop", "replace", "split", "startswith", "endswith", "format",
+                "join", "append", "insert", "add_argument", "raise_signal", "kill",
+                "signal", "open", "write", "LayoutError", "SpecError", "LimitError",
+                "PlacerError", "RouteError", "TemplateError", "OutputError"}
+_SQRT = {"sqrt"}
 COPIED = ["placer", "tests", "samples", "templates", "pyproject.toml"]
 _SWAP = {ast.Add: ast.Sub, ast.Sub: ast.Add, ast.Mult: ast.Div, ast.Div: ast.Mult,
          ast.Pow: ast.Mult, ast.FloorDiv: ast.Div}
@@ -93,6 +118,107 @@ class _Sites(ast.NodeVisitor):
             self.sites.append((node, "const"))
 
 
+def _call_name(node: ast.Call) -> str:
+    f = node.func
+    return f.id if isinstance(f, ast.Name) else (f.attr if isinstance(f, ast.Attribute) else "")
+
+
+class _Semantic(ast.NodeVisitor):
+    """Every site of a semantic mutant inside a function body (docstrings, messages and
+    raised errors excluded): (node, kind)."""
+
+    def __init__(self) -> None:
+        self.sites: list[tuple[ast.AST, str]] = []
+        self.depth = 0
+
+    def visit_FunctionDef(self, node: ast.FunctionDef) -> None:
+        self.depth += 1
+        for stmt in node.body:
+            if isinstance(stmt, ast.Expr) and isinstance(stmt.value, ast.Constant):
+                continue
+            self.visit(stmt)
+        self.depth -= 1
+
+    def visit_JoinedStr(self, node: ast.JoinedStr) -> None:
+        return
+
+    def visit_Raise(self, node: ast.Raise) -> None:
+        return
+
+    def visit_BinOp(self, node: ast.BinOp) -> None:
+        if self.depth and isinstance(node.op, ast.Mult):
+            self.sites += [(node, "drop-right"), (node, "drop-left")]
+        elif self.depth and isinstance(node.op, ast.Div):
+            self.sites.append((node, "drop-right"))
+        self.generic_visit(node)
+
+    def visit_Call(self, node: ast.Call) -> None:
+        name = _call_name(node)
+        if self.depth:
+            pos = [a for a in node.args if not isinstance(a, ast.Starred)]
+            if (len(pos) >= 2 and len(pos) == len(node.args) and name not in _COMMUTATIVE
+                    and ast.dump(pos[0]) != ast.dump(pos[1])):
+                self.sites.append((node, "swap"))
+            if (name in _SQRT and len(node.args) == 1 and isinstance(node.args[0], ast.BinOp)
+                    and isinstance(node.args[0].op, ast.Add)):
+                self.sites.append((node, "rss"))
+            if name == "hypot" and len(node.args) == 2:
+                self.sites.append((node, "hypot"))
+        self.generic_visit(node)
+
+
+def _semantic_change(node: ast.AST, kind: str) -> tuple[ast.AST, str]:
+    """The replacement of ``node`` for a semantic mutant, and what it did."""
+    if kind == "drop-right":
+        assert isinstance(node, ast.BinOp)
+        return node.left, f"factor dropped: {ast.unparse(node)} -> {ast.unparse(node.left)}"
+    if kind == "drop-left":
+        assert isinstance(node, ast.BinOp)
+        return node.right, f"factor dropped: {ast.unparse(node)} -> {ast.unparse(node.right)}"
+    assert isinstance(node, ast.Call)
+    if kind == "swap":
+        new = ast.Call(node.func, [node.args[1], node.args[0], *node.args[2:]], node.keywords)
+        return new, f"arguments swapped: {ast.unparse(node)[:60]}"
+    if kind == "rss":
+        add = node.args[0]
+        assert isinstance(add, ast.BinOp)
+        new = ast.BinOp(ast.Call(node.func, [add.left], []), ast.Add(),
+                        ast.Call(node.func, [add.right], []))
+        return new, f"sum for root-sum-square: {ast.unparse(node)[:60]}"
+    a, b = node.args
+    new = ast.BinOp(ast.Call(ast.Name("abs", ast.Load()), [a], []), ast.Add(),
+                    ast.Call(ast.Name("abs", ast.Load()), [b], []))
+    return new, f"sum for root-sum-square: {ast.unparse(node)[:60]}"
+
+
+class _Replace(ast.NodeTransformer):
+    def __init__(self, target: ast.AST, new: ast.AST) -> None:
+        self.target, self.new = target, new
+
+    def generic_visit(self, node: ast.AST) -> ast.AST:
+        if node is self.target:
+            return self.new
+        return super().generic_visit(node)
+
+
+def semantic_mutants(module: str) -> list[Mutant]:
+    """Every semantic mutant of placer/<module>.py."""
+    text = (ROOT / "placer" / f"{module}.py").read_text()
+    finder = _Semantic()
+    finder.visit(ast.parse(text))
+    out = []
+    for i in range(len(finder.sites)):
+        tree = ast.parse(text)
+        f = _Semantic()
+        f.visit(tree)
+        node, kind = f.sites[i]
+        new, what = _semantic_change(node, kind)
+        tree = ast.fix_missing_locations(_Replace(node, new).visit(tree))
+        source = ast.unparse(tree)
+        out.append(Mutant(module, getattr(node, "lineno", 0), what, source))
+    return out
+
+
 def mutants(module: str) -> list[Mutant]:
     """Every single-change mutant of placer/<module>.py (``module`` a path below placer/)."""
     path = ROOT / "placer" / f"{module}.py"
@@ -140,7 +266,8 @@ def _copy(origin: Path, dest: Path) -> None:
             shutil.copy2(src, dest / part)
 
 
-def _run(m: Mutant, workdir: Path, timeout: float, origin: Path = ROOT) -> bool:
+def _run(m: Mutant, workdir: Path, timeout: float, origin: Path = ROOT,
+         tests: list[str] | None = None) -> bool:
     """True if the tests fail (the mutant is killed); the copy is taken from origin."""
     with tempfile.TemporaryDirectory(dir=workdir) as tmp:
         # a whole copy, run from inside it: the checkout (and an editable install of
@@ -151,7 +278,7 @@ def _run(m: Mutant, workdir: Path, timeout: float, origin: Path = ROOT) -> bool:
         try:
             res = subprocess.run([sys.executable, "-m", "pytest", "-x", "-q", "-p",
                                   "no:cacheprovider", "--no-header", "-o", "addopts=",
-                                  *TESTS], cwd=tmp, env=env, capture_output=True,
+                                  *(tests or TESTS)], cwd=tmp, env=env, capture_output=True,
                                  timeout=timeout)
         except subprocess.TimeoutExpired:
             return True                             # a hang counts as caught
@@ -160,15 +287,21 @@ def _run(m: Mutant, workdir: Path, timeout: float, origin: Path = ROOT) -> bool:
 
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--modules", nargs="+",
-                    default=["model/variation", "model/budget", "model/grade",
-                             "model/exact_moments"])
+    ap.add_argument("--modules", nargs="+", default=MODULES)
+    ap.add_argument("--kinds", choices=["operator", "semantic", "all"], default="all")
+    ap.add_argument("--whole-suite", action="store_true",
+                    help="run the formula tests' survivors against the whole suite")
     ap.add_argument("--jobs", type=int, default=2)
     ap.add_argument("--timeout", type=float, default=300.0)
     ap.add_argument("--list-only", action="store_true")
     ap.add_argument("--out", default=None)
     args = ap.parse_args()
-    all_m = [m for mod in args.modules for m in mutants(mod)]
+    all_m = []
+    for mod in args.modules:
+        if args.kinds in ("operator", "all"):
+            all_m += mutants(mod)
+        if args.kinds in ("semantic", "all"):
+            all_m += semantic_mutants(mod)
     print(f"{len(all_m)} mutants in {', '.join(args.modules)}", flush=True)
     if args.list_only:
         for m in all_m:
@@ -193,6 +326,15 @@ def main() -> int:
             return 1
         with ThreadPoolExecutor(args.jobs) as pool:
             killed = list(pool.map(lambda m: _run(m, Path(work), args.timeout, snap), all_m))
+        if args.whole_suite:
+            missed = [i for i, k in enumerate(killed) if not k]
+            print(f"{len(missed)} passed the formula tests; running them against the whole "
+                  "suite", flush=True)
+            with ThreadPoolExecutor(args.jobs) as pool:
+                again = list(pool.map(lambda i: _run(all_m[i], Path(work), args.timeout * 4,
+                                                     snap, WHOLE), missed))
+            for i, k in zip(missed, again, strict=True):
+                killed[i] = k
     lines = []
     survivors = [m for m, k in zip(all_m, killed, strict=True) if not k]
     for m in survivors:

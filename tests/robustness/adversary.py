@@ -59,7 +59,8 @@ SEVERITY = {name: i for i, name in enumerate(["ok", "clear", "wrong", "half", "t
                                                "memory", "hang"])}
 HEADINGS = ["ok", "clear error", "tracebacks", "hangs", "memory errors", "half-written sets",
             "wrong results"]
-FAMILIES = ["spec", "gds", "csv", "pattern", "cli", "concurrency", "interrupt", "disk", "env"]
+FAMILIES = ["spec", "gds", "csv", "pattern", "cli", "concurrency", "interrupt", "disk", "env",
+            "movein", "sigterm", "shortwrite", "special", "bomb"]
 TITLES = {
     "spec": "spec (TOML grammar, hostile values)",
     "gds": "GDSII (record-level, hostile contents)",
@@ -70,6 +71,11 @@ TITLES = {
     "interrupt": "SIGINT / SIGTERM during arrange",
     "disk": "full disk (small tmpfs)",
     "env": "environment",
+    "movein": "SIGINT / SIGTERM during the move-in, every writing command",
+    "sigterm": "SIGTERM / Ctrl-C at any moment, every writing command",
+    "shortwrite": "writes cut short (ulimit -f), every writing command",
+    "special": "special files as inputs (devices, FIFO, folder)",
+    "bomb": "header bombs (refused within 1 s CPU, 200 MB)",
 }
 
 MEMORY_CAP = 2 << 30          # address-space cap of every run, bytes
@@ -102,6 +108,7 @@ class Run:
     maxrss_mb: float
     hung: bool = False
     leftover: bool = False       # a process of its group still ran after it exited
+    cpu_s: float = 0.0           # user + system CPU of the process and its children
 
 
 @dataclass
@@ -126,9 +133,11 @@ class Outcome:
             self.reasons.append(f"{cls}: {reason}")
 
 
-def _child_setup(umask: int | None) -> Callable[[], None]:
+def _child_setup(umask: int | None, fsize: int | None = None) -> Callable[[], None]:
     def setup() -> None:
         resource.setrlimit(resource.RLIMIT_AS, (MEMORY_CAP, MEMORY_CAP))
+        if fsize is not None:         # ulimit -f: a write past it fails with EFBIG
+            resource.setrlimit(resource.RLIMIT_FSIZE, (fsize, fsize))
         # a child of a background job inherits SIGINT ignored: give it the default back
         signal.signal(signal.SIGINT, signal.SIG_DFL)
         signal.signal(signal.SIGTERM, signal.SIG_DFL)
@@ -186,7 +195,8 @@ class Ctx:
 
     # processes -------------------------------------------------------------
     def start(self, args: list[str], env: dict[str, str] | None = None,
-              umask: int | None = None, stdout: int | None = None) -> Proc:
+              umask: int | None = None, stdout: int | None = None,
+              launcher: list[str] | None = None, fsize: int | None = None) -> Proc:
         full_env = base_env()
         changed = dict(env or {})
         for key, value in changed.items():
@@ -208,15 +218,15 @@ class Ctx:
             if stdout is None:
                 with open(out_path, "wb") as out_file:
                     popen = subprocess.Popen(
-                        [PLACER, *args], cwd=self.dir, env=full_env, stdin=subprocess.DEVNULL,
-                        stdout=out_file, stderr=err_file, preexec_fn=_child_setup(umask),
-                        start_new_session=True)
+                        [*(launcher or [PLACER]), *args], cwd=self.dir, env=full_env,
+                        stdin=subprocess.DEVNULL, stdout=out_file, stderr=err_file,
+                        preexec_fn=_child_setup(umask, fsize), start_new_session=True)
             else:
                 out_path.write_bytes(b"")
                 popen = subprocess.Popen(
-                    [PLACER, *args], cwd=self.dir, env=full_env, stdin=subprocess.DEVNULL,
-                    stdout=stdout, stderr=err_file, preexec_fn=_child_setup(umask),
-                    start_new_session=True)
+                    [*(launcher or [PLACER]), *args], cwd=self.dir, env=full_env,
+                    stdin=subprocess.DEVNULL, stdout=stdout, stderr=err_file,
+                    preexec_fn=_child_setup(umask, fsize), start_new_session=True)
         return Proc(popen, args, time.monotonic(), out_path, err_path)
 
     def wait(self, proc: Proc, timeout: float | None = None) -> Run:
@@ -245,7 +255,8 @@ class Ctx:
         out = proc.out_path.read_bytes().decode("utf-8", "replace")
         err = proc.err_path.read_bytes().decode("utf-8", "replace")
         shutil.rmtree(proc.out_path.parent, ignore_errors=True)
-        run = Run(proc.args, rc, out, err, seconds, usage.ru_maxrss / 1024.0, hung, leftover)
+        run = Run(proc.args, rc, out, err, seconds, usage.ru_maxrss / 1024.0, hung, leftover,
+                  usage.ru_utime + usage.ru_stime)
         self.runs.append(run)
         return run
 
@@ -2622,12 +2633,391 @@ class CaseResult:
     summary: str = ""
 
 
+# --------------------------------------------------------------------------- output sets
+# Every command that writes: interrupts during the move-in, SIGTERM at any moment, short
+# writes under a file-size limit; every input for special files; header bombs within a
+# CPU and memory budget. The promise checked is the README's: the previous outputs or
+# the whole new set, never a mix, nothing staged left behind.
+
+WRITERS = ["arrange", "draw", "repair", "compare", "lesson", "batch", "grade"]
+BOMB_CPU_S = 1.0              # a bomb-like input is refused within this much CPU ...
+BOMB_MB = 200.0               # ... and this much memory (the issue's budget)
+
+# the second version of the mirror: same names, other ratios, so every output differs
+_MIRROR_V2 = ("MREF = 2\nMOUTA = 6\nMOUTB = 6\n")
+_HAND_V2 = (". MREF> MOUTA> MOUTA< MOUTB> MOUTB< MOUTB> MOUTA< .\n"
+            ". MREF< MOUTA> MOUTA< MOUTB> MOUTB< MOUTB> MOUTA< .\n")
+
+# run placer with every move of a file into --out slowed down, so that a signal can land
+# while a set moves in (argv: the --out folder, then placer's arguments)
+_SLOW_MOVE_IN = r'''
+import os, sys, time
+real = os.replace
+out = os.path.realpath(sys.argv[1])
+def slow(src, dst, *a, **k):
+    d = os.path.realpath(os.fspath(dst))
+    rel = os.path.relpath(d, out)
+    if not rel.startswith("..") and not any(p.startswith(".") for p in rel.split(os.sep)):
+        time.sleep(0.3)            # a visible name in --out: the move-in itself
+    return real(src, dst, *a, **k)
+os.replace = slow
+sys.argv = ["placer", *sys.argv[2:]]
+from placer._entry import main
+sys.exit(main())
+'''
+
+
+def writer_inputs(ctx: Ctx, version: int) -> None:
+    """The inputs every writing command uses, as version 1 or 2 (same names)."""
+    spec = (SAMPLES / "bias_mirror.toml").read_text()
+    hand = (SAMPLES / "bias_mirror_hand.txt").read_text()
+    if version == 2:
+        spec = spec.replace("MREF = 2\nMOUTA = 4\nMOUTB = 8\n", _MIRROR_V2)
+        hand = _HAND_V2
+    ctx.write("spec.toml", spec)
+    ctx.write("hand.txt", hand)
+    ctx.write("specs/mirror.toml", spec)
+
+
+def writer_args(command: str, out: str = "out") -> list[str]:
+    """The command line of one writing command on the inputs of :func:`writer_inputs`."""
+    return {
+        "arrange": ["arrange", "spec.toml", "--out", out, "--time-limit", "1", "--quiet"],
+        "draw": ["draw", "hand.txt", "--spec", "spec.toml", "--out", out],
+        "repair": ["repair", "hand.txt", "--spec", "spec.toml", "--out", out,
+                   "--time-limit", "1"],
+        "compare": ["compare", "spec.toml", "--out", out, "--time-limit", "1"],
+        "lesson": ["lesson", "spec.toml", "--out", out, "--time-limit", "1"],
+        "batch": ["batch", "specs", "--out", out, "--time-limit", "1", "--jobs", "1",
+                  "--quiet"],
+        "grade": ["grade", "hand.txt", "--spec", "spec.toml", "--budget-plot",
+                  f"{out}/budget.png", "--sensitivity-plot", f"{out}/units.svg"],
+    }[command]
+
+
+def _visible(snap: dict | None) -> dict:
+    return {n: v for n, v in (snap or {}).items()
+            if not any(p.startswith(".") for p in n.split("/"))}
+
+
+def reference_set(ctx: Ctx, command: str, version: int, name: str) -> dict | None:
+    """The outputs of an undisturbed run of ``command`` on version ``version``."""
+    writer_inputs(ctx, version)
+    if command == "grade":
+        (ctx.dir / name).mkdir(exist_ok=True)
+    run = ctx.placer(writer_args(command, name) + (["--force"] if command != "grade" else []))
+    if run.rc != 0:
+        ctx.outcome.flag("wrong", f"the undisturbed {command} run failed: {_tail(run.err)}")
+        return None
+    return _visible(snapshot(ctx.dir / name))
+
+
+def check_set(ctx: Ctx, run: Run, command: str, before: dict | None, after: dict | None,
+              ref_old: dict | None, ref_new: dict, when: str) -> None:
+    """The folder after a disturbed run: as it was, or the whole new set (never a mix)."""
+    what = f"`placer {_show(run.args)}` ({when}, exit {run.rc})"
+    staged = sorted(n for n in (after or {}) if ".placer-staging" in n
+                    and n not in (before or {}))
+    if staged:
+        ctx.outcome.flag("half", f"{what} left {', '.join(staged[:3])}")
+    if _visible(after) == _visible(before):
+        return
+    got = _visible(after)
+    if command == "batch":
+        _check_batch(ctx, what, before, got, ref_new)
+        return
+    missing = sorted(set(ref_new) - set(got))
+    if missing:
+        ctx.outcome.flag("half", f"{what}: neither the previous outputs nor the whole new "
+                                 f"set; missing {', '.join(missing[:4])}: "
+                                 f"{_diff(before, after)}")
+        return
+    if before and ref_old is not None:
+        # files whose content differs between the two versions: all new, or all old
+        telling = [n for n in ref_new if ref_new[n][0] == "file"
+                   and ref_old.get(n) != ref_new[n] and n in before]
+        old = [n for n in telling if got.get(n) == before.get(n)]
+        if old and len(old) < len(telling):
+            ctx.outcome.flag("half", f"{what}: a mix of the two runs; still the previous "
+                                     f"{', '.join(old[:4])}")
+    if run.rc not in (0, 130):
+        ctx.outcome.flag("wrong", f"{what} changed the outputs yet failed: {_tail(run.err)}")
+
+
+def _check_batch(ctx: Ctx, what: str, before: dict | None, got: dict, ref: dict) -> None:
+    """A batch is a set per block plus its own pair (summary.json, index.html): each
+    block's folder as it was or whole, and the pair both old or both new."""
+    old = _visible(before)
+    pair = ("summary.json", "index.html")
+    changed = [n for n in pair if got.get(n) != old.get(n)]
+    if changed and (len(changed) < len(pair) or any(n not in got for n in pair)):
+        ctx.outcome.flag("half", f"{what}: summary.json and index.html are not one set: "
+                                 f"{_diff(before, got)}")
+    for block in sorted(n for n, v in got.items() if "/" not in n and v[0] == "dir"):
+        mine = {n: v for n, v in got.items() if n.startswith(block + "/")}
+        if mine == {n: v for n, v in old.items() if n.startswith(block + "/")}:
+            continue
+        missing = sorted(n for n in ref if n.startswith(block + "/") and n not in mine)
+        if missing:
+            ctx.outcome.flag("half", f"{what}: block {block}/ is neither as it was nor whole; "
+                                     f"missing {', '.join(missing[:4])}")
+
+
+def _new_file_in(out: Path, seen: dict[str, int]) -> bool:
+    """A regular file at the top of ``out`` that was not there (by inode) before."""
+    try:
+        with os.scandir(out) as it:
+            for e in it:
+                if e.name.startswith(".") or not e.is_file(follow_symlinks=False):
+                    continue
+                if seen.get(e.name) != e.inode():
+                    return True
+    except OSError:
+        return False
+    return False
+
+
+def _inodes(out: Path) -> dict[str, int]:
+    try:
+        with os.scandir(out) as it:
+            return {e.name: e.inode() for e in it}
+    except OSError:
+        return {}
+
+
+def _disturbed(ctx: Ctx, rng: random.Random, command: str
+               ) -> tuple[dict | None, dict | None, dict, bool] | None:
+    """Reference sets of both versions and the starting state of ``out``: (before,
+    ref_old, ref_new, existing) -- None when a reference run failed."""
+    ref_old = reference_set(ctx, command, 1, "ref1")
+    ref_new = reference_set(ctx, command, 2, "ref2")
+    if ref_old is None or ref_new is None:
+        return None
+    existing = rng.random() < 0.6
+    writer_inputs(ctx, 1)
+    out = ctx.dir / "out"
+    if command == "grade":
+        out.mkdir(exist_ok=True)
+    if existing:
+        prep = ctx.placer(writer_args(command))
+        if prep.rc != 0:
+            ctx.outcome.flag("wrong", f"the preparing run failed: {_tail(prep.err)}")
+            return None
+    writer_inputs(ctx, 2)
+    return snapshot(out), ref_old, ref_new, existing
+
+
+def _send(pid: int, how: str) -> None:
+    try:
+        if how == "INT":
+            os.kill(pid, signal.SIGINT)
+        elif how == "INT-group":
+            os.killpg(pid, signal.SIGINT)
+        else:
+            os.kill(pid, signal.SIGTERM)
+    except ProcessLookupError:
+        pass
+
+
+def gen_movein(ctx: Ctx, rng: random.Random) -> None:
+    """SIGINT or SIGTERM while a command's files move into --out."""
+    variant = ctx.pick([f"{c}-{s}" for c in WRITERS for s in ("INT", "TERM")])
+    command, how = variant.split("-")
+    state = _disturbed(ctx, rng, command)
+    if state is None:
+        return
+    before, ref_old, ref_new, existing = state
+    out = ctx.dir / "out"
+    args = writer_args(command) + (["--force"] if existing and command != "grade" else [])
+    seen = _inodes(out)
+    proc = ctx.start(args, launcher=[sys.executable, "-c", _SLOW_MOVE_IN, str(out)])
+    ctx.note(f"send SIG{how} when the first file appears in out/ (moves into out/ slowed "
+             "by 0.3 s each)")
+    sent = False
+    deadline = proc.start + ctx.timeout
+    while proc.popen.poll() is None and time.monotonic() < deadline:
+        if _new_file_in(out, seen):
+            _send(proc.popen.pid, how)
+            sent = True
+            break
+        time.sleep(0.005)
+    run = ctx.wait(proc)
+    verdict = ctx.judge(run, allow_130=True)
+    if verdict in ("hang", "memory", "traceback"):
+        return
+    if not sent:
+        ctx.outcome.notes.append("the move-in was not seen; the run ended first")
+    elif run.rc != 0 and (run.rc != 130 or "complete" not in run.err):
+        ctx.outcome.flag("wrong", f"SIG{how} during the move-in: exit {run.rc}, "
+                                  f"{_tail(run.err)} (expected 130 and the set complete)")
+    check_set(ctx, run, command, before, snapshot(out), ref_old, ref_new,
+              f"SIG{how} during the move-in")
+
+
+def gen_sigterm(ctx: Ctx, rng: random.Random) -> None:
+    """SIGTERM (or Ctrl-C to the group) at a random moment of a writing command."""
+    command = ctx.pick(WRITERS)
+    state = _disturbed(ctx, rng, command)
+    if state is None:
+        return
+    before, ref_old, ref_new, existing = state
+    out = ctx.dir / "out"
+    args = writer_args(command) + (["--force"] if existing and command != "grade" else [])
+    how = rng.choice(["TERM", "TERM", "INT-group"])
+    delay = round(rng.uniform(0.02, 3.0), 2)
+    proc = ctx.start(args)
+    ctx.note(f"send SIG{how} {delay} s after the start of the command above")
+    time.sleep(max(0.0, proc.start + delay - time.monotonic()))
+    _send(proc.popen.pid, how)
+    run = ctx.wait(proc)
+    verdict = ctx.judge(run, allow_130=True)
+    if verdict in ("hang", "memory", "traceback"):
+        return
+    check_set(ctx, run, command, before, snapshot(out), ref_old, ref_new,
+              f"SIG{how} at {delay} s")
+
+
+_ENDINGS = {".gds": b"\x00\x04\x04\x00", ".png": b"IEND\xaeB`\x82", ".svg": b"</svg>\n",
+            ".pdf": b"%%EOF\n", ".html": b"</html>\n"}
+
+
+def gen_shortwrite(ctx: Ctx, rng: random.Random) -> None:
+    """A file-size limit (``ulimit -f``) that cuts the command's writes short."""
+    command = ctx.pick(WRITERS)
+    limit_kb = rng.choice([1, 16, 40, 120, 400])
+    writer_inputs(ctx, 1)
+    out = ctx.dir / "out"
+    if command == "grade":
+        out.mkdir()
+    before = snapshot(out)
+    proc = ctx.start(writer_args(command), fsize=limit_kb * 1024)
+    ctx.script[-1] = f"(ulimit -f {limit_kb}; {ctx.script[-1]})"
+    run = ctx.wait(proc)
+    verdict = ctx.judge(run)
+    if verdict in ("hang", "memory", "traceback"):
+        return
+    after = snapshot(out)
+    if run.rc == 1 and command == "batch" and "blocks failed" in run.err:
+        # a block whose writes were cut short failed; the batch's own summary says so
+        summary = parse_json((out / "summary.json").read_text()) if (
+            out / "summary.json").is_file() else None
+        if not isinstance(summary, dict):
+            ctx.outcome.flag("half", f"batch exit 1 under ulimit -f {limit_kb} without a "
+                                     "readable summary.json")
+        return
+    if run.rc != 0:
+        if _visible(after) != _visible(before):
+            ctx.outcome.flag("half", f"a write cut short at {limit_kb} KB (exit {run.rc}) "
+                                     f"changed out/: {_diff(before, after)}")
+        return
+    for name in _visible(after):        # exit 0: every file whole
+        path = out / name
+        end = _ENDINGS.get(path.suffix)
+        if path.is_file() and end is not None and not path.read_bytes().rstrip(
+                b"\n").endswith(end.rstrip(b"\n")):
+            ctx.outcome.flag("half", f"exit 0 under ulimit -f {limit_kb} but {name} is cut "
+                                     f"short ({path.stat().st_size} bytes)")
+        if path.suffix == ".json" and parse_json(path.read_text(errors="replace")) is None:
+            ctx.outcome.flag("half", f"exit 0 under ulimit -f {limit_kb} but {name} does not "
+                                     "parse")
+
+
+_SPECIAL = ["/dev/zero", "/dev/urandom", "fifo", "folder", "/dev/null"]
+
+
+def gen_special(ctx: Ctx, rng: random.Random) -> None:
+    """A special file where a command reads an input: refused at once, never read whole."""
+    place = ctx.pick(["spec", "layout", "pattern", "unit-gds", "layers", "template",
+                      "batch-spec"])
+    source = rng.choice(_SPECIAL)
+    writer_inputs(ctx, 1)
+    if source == "fifo":
+        path = str(ctx.dir / "pipe")
+        os.mkfifo(path)                 # nobody writes: an open() would wait for ever
+    elif source == "folder":
+        (ctx.dir / "adir").mkdir()
+        path = "adir"
+    else:
+        path = source
+    args = {"spec": ["arrange", path, "--out", "out", "--quiet"],
+            "layout": ["grade", path],
+            "pattern": ["draw", path, "--spec", "spec.toml", "--out", "out"],
+            "unit-gds": ["arrange", "spec.toml", "--unit-gds", path, "--out", "out"],
+            "layers": ["arrange", "spec.toml", "--layers", path, "--out", "out"],
+            "template": ["arrange", "spec.toml", "--template", path, "--out", "out"],
+            "batch-spec": ["batch", path, "--out", "out"]}[place]
+    run = ctx.placer(args, timeout=min(ctx.timeout, 15.0))
+    ctx.judge(run, must_refuse=f"{source} as the {place}")
+    if run.rc == 0:
+        return
+    if snapshot(ctx.dir / "out") not in (None, {}):
+        ctx.outcome.flag("half", f"refusing {source} as the {place} left out/ behind")
+
+
+def _bombs(variant: str) -> tuple[str, bytes, list[str]]:
+    """(file name, contents, placer arguments) of one header bomb."""
+    if variant == "aref":           # 400 000 units from one 334-byte record set
+        return "bomb.gds", gds_library([(b"U", [g_box(1, 0, 0, 0, 1000, 1000)]),
+                                        (b"TOP", [g_aref(b"U", 1000, 400, 0, 0, 2000,
+                                                         2000)])]), ["grade", "bomb.gds"]
+    if variant == "nest":           # 100^3 placements through three levels
+        cells: list[tuple[bytes | str, list[bytes]]] = [(b"L0", [g_box(1, 0, 0, 0, 100, 100)])]
+        for lvl in range(1, 4):
+            cells.append((f"L{lvl}".encode(),
+                          [g_sref(f"L{lvl - 1}", k * 2000 * 100 ** (lvl - 1), 0)
+                           for k in range(100)]))
+        return "bomb.gds", gds_library(cells), ["grade", "bomb.gds"]
+    if variant == "texts":          # millions of text records in one cell
+        one = g_text(10, 0, 0, 0, b"AB")
+        return "bomb.gds", gds_library([(b"TOP", [one * 4_900_000])]), ["grade", "bomb.gds"]
+    if variant == "deep":           # a unit cell nested 101 levels
+        cells = [(b"C0", [g_box(1, 0, 0, 0, 1000, 1000)])]
+        cells += [(f"C{k}".encode(), [g_sref(f"C{k - 1}", 0, 0)]) for k in range(1, 102)]
+        return "cell.gds", gds_library(cells), ["arrange", "spec.toml", "--unit-gds",
+                                                "cell.gds", "--out", "out", "--quiet"]
+    if variant == "toml":           # dotted keys 100 000 deep
+        return "deep.toml", ("[devices]\nA = 1\n" + "a" + ".a" * 100_000 + " = 1\n").encode(), \
+            ["arrange", "deep.toml", "--out", "out"]
+    if variant == "columns":        # one pattern row of 400 000 tokens
+        return "wide.txt", (" ".join(["A>", "B<"] * 200_000) + "\n").encode(), \
+            ["grade", "wide.txt"]
+    raise ValueError(variant)
+
+
+def gen_bomb(ctx: Ctx, rng: random.Random) -> None:
+    """An input whose headers promise far more than the limits: refused within the
+    budget of CPU and memory, before any expansion."""
+    variant = ctx.pick(["aref", "nest", "texts", "deep", "toml", "columns"])
+    writer_inputs(ctx, 1)
+    name, data, args = _bombs(variant)
+    ctx.write(name, data)
+    # a child's peak memory counts the parent it was forked from: drop the file's bytes
+    del data
+    run = ctx.placer(args)
+    if ctx.judge(run, must_refuse=f"the {variant} bomb") in ("hang", "memory", "traceback"):
+        return
+    if run.cpu_s > BOMB_CPU_S:
+        ctx.outcome.flag("hang", f"the {variant} bomb took {run.cpu_s:.2f} s CPU to refuse "
+                                 f"(budget {BOMB_CPU_S} s)")
+    if run.maxrss_mb > BOMB_MB:
+        ctx.outcome.flag("memory", f"the {variant} bomb took {run.maxrss_mb:.0f} MB to refuse "
+                                   f"(budget {BOMB_MB:.0f} MB)")
+
+
+_OUTPUT_FAMILIES: dict[str, Callable[[Ctx, random.Random], None]] = {
+    "movein": gen_movein, "sigterm": gen_sigterm, "shortwrite": gen_shortwrite,
+    "special": gen_special, "bomb": gen_bomb}
+
+
 def family_counts(cases: int) -> dict[str, int]:
     return {
         "spec": cases, "gds": max(1, cases * 3 // 5), "csv": max(1, cases * 2 // 5),
         "pattern": max(1, cases * 2 // 5), "cli": max(1, cases * 3 // 5),
         "concurrency": max(1, cases // 12), "interrupt": max(1, cases // 6),
         "disk": max(1, cases // 12), "env": len(ENV_CASES) if cases >= 20 else max(1, cases // 4),
+        "movein": max(1, cases // 4), "sigterm": max(1, cases // 4),
+        "shortwrite": max(1, cases // 6), "special": max(1, cases // 6),
+        "bomb": max(1, cases // 10),
     }
 
 
@@ -2659,6 +3049,8 @@ def run_case(family: str, index: int, seed: int, work: Path, keep: Path, timeout
             gen_disk(ctx, rng)
         elif family == "env":
             gen_env(ctx, rng)
+        elif family in _OUTPUT_FAMILIES:
+            _OUTPUT_FAMILIES[family](ctx, rng)
         else:
             raise ValueError(family)
     except OSError as exc:   # our own trouble (not placer's): record it, do not hide it

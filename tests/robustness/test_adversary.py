@@ -32,6 +32,15 @@ SHARE: dict[str, list[str | None]] = {
     "interrupt": [None, None],
     "disk": ["free-0"],
     "env": ["sde_text", "out_long", "readonly_out", "umask_077", "stdout_full"],
+    # every command that writes: a signal while its files move in, SIGTERM at a random
+    # moment, a file-size limit; every input place with a special file; header bombs
+    "movein": ["arrange-INT", "draw-TERM", "repair-INT", "compare-TERM", "lesson-INT",
+               "batch-TERM", "grade-INT", "arrange-TERM", "draw-INT", "repair-TERM",
+               "compare-INT", "lesson-TERM", "batch-INT", "grade-TERM"],
+    "sigterm": list(adv.WRITERS),
+    "shortwrite": list(adv.WRITERS),
+    "special": ["spec", "layout", "pattern", "unit-gds", "layers", "template", "batch-spec"],
+    "bomb": ["aref", "nest", "texts", "deep", "toml", "columns"],
 }
 
 
