@@ -458,7 +458,10 @@ def batch(paths: tuple[Path, ...], out_dir: Path, time_limit: float, seed: int,
                    "candidate-K.txt/.png.")
 @click.option("--time-limit", "time_limit", type=_TIME,
               default=60.0, show_default=True,
-              help="Safety cap on the search in seconds; the search usually ends sooner.")
+              help="Safety cap on the search in seconds; the search usually ends sooner. "
+                   "A block whose other work (scoring, routing, pictures) is estimated "
+                   "at more than 3 x this + 5 s is refused at once, naming the limit it "
+                   "needs.")
 @click.option("--seed", type=_SEED, default=0, show_default=True,
               help="Random seed; the same spec, seed and time limit give the same "
                    "result.")
@@ -574,7 +577,9 @@ def draw(pattern_path: Path, spec_path: Path | None, out_dir: Path, layers_path:
 @click.option("--seed", type=_SEED, default=0, show_default=True,
               help="Seed of the optimised arrangement.")
 @click.option("--time-limit", "time_limit", type=_TIME,
-              default=60.0, show_default=True, help="Safety cap on the search in seconds.")
+              default=60.0, show_default=True,
+              help="Safety cap on the search in seconds (work estimated far past it is "
+                   "refused at once, as for arrange).")
 @click.option("--paper", type=click.Choice(["a4", "letter"]), default="a4", show_default=True,
               help="Page size of the sheet (landscape).")
 @click.option("--force", is_flag=True, help="Overwrite files already in --out.")
@@ -634,7 +639,9 @@ def compare(spec_path: Path, out_dir: Path, seed: int, time_limit: float, paper:
 @click.option("--seed", type=_SEED, default=0, show_default=True,
               help="Seed of the optimised arrangement.")
 @click.option("--time-limit", "time_limit", type=_TIME,
-              default=60.0, show_default=True, help="Safety cap on the search in seconds.")
+              default=60.0, show_default=True,
+              help="Safety cap on the search in seconds (work estimated far past it is "
+                   "refused at once, as for arrange).")
 @click.option("--force", is_flag=True, help="Overwrite files already in --out.")
 @_user_errors
 def lesson(spec_path: Path, out_dir: Path, pattern_path: Path | None, seed: int,
@@ -693,7 +700,9 @@ def lesson(spec_path: Path, out_dir: Path, pattern_path: Path | None, seed: int,
 @click.option("--seed", type=_SEED, default=0, show_default=True,
               help="Seed of the search that sets the target.")
 @click.option("--time-limit", "time_limit", type=_TIME,
-              default=30.0, show_default=True, help="Safety cap on that search in seconds.")
+              default=30.0, show_default=True,
+              help="Safety cap on that search in seconds (work estimated far past it is "
+                   "refused at once, as for arrange).")
 @click.option("--force", is_flag=True, help="Overwrite files already in --out.")
 @_layout_options
 @_drawing_options

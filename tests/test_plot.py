@@ -104,3 +104,27 @@ def test_the_budget_density_is_the_modelled_distribution(g, sigma):
         hist, edges = np.histogram(draws, bins=60, range=(x[0], x[-1]), density=True)
         mids = 0.5 * (edges[1:] + edges[:-1])
         assert np.max(np.abs(np.interp(mids, x, f) - hist)) < 0.03 * f.max()
+
+
+def test_a_shared_centroid_label_stays_inside_the_picture():
+    """Sixteen devices sharing one centroid: one short label inside the figure (the list
+    of sixteen names ran off the picture's right edge)."""
+    from placer.jobs.load import default_spec
+    from placer.model.grade import grade_pattern
+
+    names = [f"D{i}" for i in range(16)]
+    row = " ".join(names + names[::-1])
+    pattern = parse_pattern(f"{row}\n{row}\n")
+    spec = default_spec("many", tuple(names), (4,) * 16)
+    grade = grade_pattern(pattern, spec)
+    fig = Figure(figsize=(8, 4), dpi=100)
+    FigureCanvasAgg(fig)
+    ax = fig.add_subplot()
+    draw_pattern(ax, pattern, spec.array.pitch_um, grade)
+    fig.canvas.draw()
+    from matplotlib.text import Annotation
+
+    labels = [t for t in ax.texts if isinstance(t, Annotation) and t.get_text()]
+    assert [t.get_text() for t in labels] == ["all 16 devices"]
+    box = labels[0].get_window_extent()
+    assert box.x1 <= fig.bbox.x1 and box.x0 >= fig.bbox.x0

@@ -219,7 +219,14 @@ def draw_pattern(ax: Any, pattern: Pattern, pitch_um: tuple[float, float],
             for k, ds in enumerate(spots.values()):
                 x, y = grade.devices[ds[0]].centroid_um
                 angle = np.radians(40 + 70 * (k % 5))
-                text = ", ".join(grade.devices[d].name for d in ds)
+                names = [grade.devices[d].name for d in ds]
+                # many names at one place: a count (every device) or a short wrapped list,
+                # so that the label stays inside the figure
+                text = (f"all {len(names)} devices" if len(names) == len(grade.devices)
+                        and len(names) > 4 else
+                        textwrap.fill(", ".join(names[:12]) + (f" (+{len(names) - 12})"
+                                                               if len(names) > 12 else ""),
+                                      28))
                 ax.annotate(text, (x, y), xytext=(16 * np.cos(angle), 16 * np.sin(angle)),
                             textcoords="offset points", fontsize=7, zorder=6,
                             ha="left" if np.cos(angle) >= 0 else "right", va="center",
