@@ -128,3 +128,44 @@ def test_a_shared_centroid_label_stays_inside_the_picture():
     assert [t.get_text() for t in labels] == ["all 16 devices"]
     box = labels[0].get_window_extent()
     assert box.x1 <= fig.bbox.x1 and box.x0 >= fig.bbox.x0
+
+
+def test_a_preview_of_many_devices_keeps_its_legend_and_array_in_the_picture(tmp_path):
+    """64 devices: the three-column legend squeezed the array to nothing, matplotlib
+    warned on the user's terminal ('constrained_layout not applied') and the last column
+    ran off the picture. Now the picture grows to hold the legend."""
+    import warnings
+
+    import matplotlib.figure
+
+    from placer.jobs.load import default_spec
+    from placer.model.grade import grade_pattern
+    from placer.present.plot import save_preview
+
+    names = [f"D{i}" for i in range(64)]
+    row = " ".join(names + names[::-1])
+    pattern = parse_pattern(f"{row}\n{row}\n")
+    spec = default_spec("many", tuple(names), (4,) * 64)
+    grade = grade_pattern(pattern, spec)
+    seen = []
+    real = matplotlib.figure.Figure.savefig
+
+    def savefig(fig, *a, **k):
+        real(fig, *a, **k)
+        seen.append(fig)
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")          # any warning fails the test
+        matplotlib.figure.Figure.savefig = savefig
+        try:
+            save_preview(pattern, spec.array.pitch_um, grade, "many", [tmp_path / "p.png"])
+        finally:
+            matplotlib.figure.Figure.savefig = real
+    fig = seen[0]
+    ax = fig.axes[0]
+    FigureCanvasAgg(fig)
+    fig.canvas.draw()
+    texts = [t.get_window_extent() for t in ax.get_legend().get_texts()]
+    assert max(t.x1 for t in texts) <= fig.bbox.x1 and min(t.y0 for t in texts) >= 0
+    box = ax.get_window_extent()
+    assert box.width > 50 and box.height > 50

@@ -31,6 +31,8 @@ PALETTE = ("#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#C
            "#999999")
 DUMMY_COLOUR = "#FFFFFF"
 DUMMY_HATCH = "///"
+#: Entries in one column of a preview's legend (more go into further columns).
+LEGEND_ROWS = 30
 #: Outline of an empty slot (keep-out, or outside a masked footprint): faint, no fill.
 EMPTY_EDGE = "#C8C8C8"
 #: Hatches for devices past the 24 plain colours; slanted lines stay the dummies' own.
@@ -286,7 +288,7 @@ def _legend(ax: Any, pattern: Pattern, grade: Grade | None, moved: bool = False)
     # a long legend goes into columns so it never runs off the page
     ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=8,
               frameon=False, title="o centroid, + centre", title_fontsize=8,
-              ncols=max(1, -(-len(handles) // 30)))
+              ncols=max(1, -(-len(handles) // LEGEND_ROWS)))
 
 
 def _title(name: str, grade: Grade | None) -> str:
@@ -312,6 +314,11 @@ def save_preview(pattern: Pattern, pitch_um: tuple[float, float], grade: Grade |
     span_x, span_y = (cols + 1) * px, (rows + 1) * py
     width = float(np.clip(span_x / max(span_x, span_y) * 7.0, 2.5, 9.0)) + 3.2
     height = float(np.clip(span_y / max(span_x, span_y) * 7.0, 1.6, 9.0)) + 1.2
+    # room for the legend: a column of up to LEGEND_ROWS entries each, side by side, so
+    # that many devices never squeeze the array or run off the picture
+    entries = len(pattern.devices) + 3
+    width += 2.9 * (-(-entries // LEGEND_ROWS) - 1)
+    height = max(height, 0.19 * min(entries, LEGEND_ROWS) + 1.9)
     fig = _figure(width, height)
     fig.set_layout_engine("constrained")
     ax = fig.add_subplot()
