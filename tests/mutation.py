@@ -291,6 +291,8 @@ def main() -> int:
     ap.add_argument("--kinds", choices=["operator", "semantic", "all"], default="all")
     ap.add_argument("--whole-suite", action="store_true",
                     help="run the formula tests' survivors against the whole suite")
+    ap.add_argument("--survivors", default=None,
+                    help="only the mutants listed as SURVIVED in this earlier report")
     ap.add_argument("--jobs", type=int, default=2)
     ap.add_argument("--timeout", type=float, default=300.0)
     ap.add_argument("--list-only", action="store_true")
@@ -302,6 +304,11 @@ def main() -> int:
             all_m += mutants(mod)
         if args.kinds in ("semantic", "all"):
             all_m += semantic_mutants(mod)
+    if args.survivors:
+        listed = {ln.split("    |")[0].removeprefix("SURVIVED ")
+                  for ln in Path(args.survivors).read_text().splitlines()
+                  if ln.startswith("SURVIVED ")}
+        all_m = [m for m in all_m if f"{m.module}.py:{m.line}: {m.what}" in listed]
     print(f"{len(all_m)} mutants in {', '.join(args.modules)}", flush=True)
     if args.list_only:
         for m in all_m:
@@ -324,8 +331,18 @@ def main() -> int:
             print("a copy that cannot import passed: the copy is not what runs",
                   file=sys.stderr)
             return 1
+        done = [0]
+
+        def run_one(m: Mutant) -> bool:
+            k = _run(m, Path(work), args.timeout, snap)
+            done[0] += 1
+            if not k or done[0] % 50 == 0:
+                print(f"[{done[0]}/{len(all_m)}] {'killed' if k else 'passed'}: "
+                      f"{m.module}.py:{m.line}: {m.what}", flush=True)
+            return k
+
         with ThreadPoolExecutor(args.jobs) as pool:
-            killed = list(pool.map(lambda m: _run(m, Path(work), args.timeout, snap), all_m))
+            killed = list(pool.map(run_one, all_m))
         if args.whole_suite:
             missed = [i for i, k in enumerate(killed) if not k]
             print(f"{len(missed)} passed the formula tests; running them against the whole "
