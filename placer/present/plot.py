@@ -221,14 +221,13 @@ def draw_pattern(ax: Any, pattern: Pattern, pitch_um: tuple[float, float],
             for k, ds in enumerate(spots.values()):
                 x, y = grade.devices[ds[0]].centroid_um
                 angle = np.radians(40 + 70 * (k % 5))
-                names = [grade.devices[d].name for d in ds]
+                here = [grade.devices[d].name for d in ds]
                 # many names at one place: a count (every device) or a short wrapped list,
                 # so that the label stays inside the figure
-                text = (f"all {len(names)} devices" if len(names) == len(grade.devices)
-                        and len(names) > 4 else
-                        textwrap.fill(", ".join(names[:12]) + (f" (+{len(names) - 12})"
-                                                               if len(names) > 12 else ""),
-                                      28))
+                text = (f"all {len(here)} devices" if len(here) == len(grade.devices)
+                        and len(here) > 4 else
+                        textwrap.fill(", ".join(here[:12]) + (f" (+{len(here) - 12})"
+                                                              if len(here) > 12 else ""), 28))
                 ax.annotate(text, (x, y), xytext=(16 * np.cos(angle), 16 * np.sin(angle)),
                             textcoords="offset points", fontsize=7, zorder=6,
                             ha="left" if np.cos(angle) >= 0 else "right", va="center",
