@@ -17,7 +17,7 @@ import click
 import numpy as np
 
 from placer import __version__
-from placer.errors import PlacerError
+from placer.errors import LayoutError, PlacerError
 from placer.io.handlayout import Recognised, hot_spot_in_pattern_frame, read_layout
 from placer.io.pattern import Pattern, check_against_spec
 from placer.io.spec import NAME_RE, Spec
@@ -738,11 +738,24 @@ def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, 
                              f"{py:g} um, is too small for placer's generic unit cell with "
                              f"one routing track (at least {need[0]:g} x {need[1]:g} um); "
                              "give your own cell with --unit-gds or rules with --template")
-    with OutputSet(out_dir, outputs.repair_names(tools is not None), force) as out:
+    own = rec.fmt == "gds"           # the user's GDSII, its swaps applied in place
+    own_note = None
+    with OutputSet(out_dir, outputs.repair_names(tools is not None, own), force) as out:
         res = run_repair(pat, spec, spec.array.pitch_um, max_swaps, seed=seed,
                          time_limit_s=time_limit)
         block = drawing.prepare(res.pattern, spec, tools) if tools is not None else None
         outputs.write_repair(out, res, spec, block, layout, rec)
+        if own and res.swaps:
+            from placer.io.gdsswap import swap_units
+            from placer.layout.layers import load_layers
+
+            try:
+                edited = swap_units(layout, outputs.swap_centres(res, spec, rec), cell=cell,
+                                    label_layer=load_layers(layers_path)["label"],
+                                    tolerance_um=min(spec.array.pitch_um) / 4)
+                out.write(outputs.OWN_REPAIRED, edited.data)
+            except LayoutError as err:
+                own_note = f"{outputs.OWN_REPAIRED} not written: {err}"
         written = out.commit()
     g = spec.gradient.linear_ppm_per_um
     b, a = res.before, res.after
@@ -761,3 +774,5 @@ def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, 
     click.echo("Wrote " + ", ".join(str(p) for p in written))
     if note is not None:
         click.echo(f"Note: {note}", err=True)
+    if own_note is not None:
+        click.echo(f"Note: {own_note}", err=True)

@@ -55,6 +55,8 @@ class Ref:
     rows: int = 1
     col_step: tuple[float, float] = (0.0, 0.0)
     row_step: tuple[float, float] = (0.0, 0.0)
+    #: byte offset of the element's XY record in the stream (to edit a copy in place)
+    xy_at: int = -1
 
     @property
     def count(self) -> int:
@@ -97,6 +99,7 @@ class Text:
     texttype: int
     x: float
     y: float
+    xy_at: int = -1          # byte offset of its XY record
 
 
 @dataclass
@@ -285,6 +288,7 @@ def _element(kind: int, cell: Structure, record, ascii_of, ints, fail, db: float
     """Read one element up to ENDEL into ``cell``."""
     layer = texttype = 0
     xy: tuple[int, ...] = ()
+    xy_at = -1
     sname = None
     text = None
     reflect = False
@@ -304,6 +308,7 @@ def _element(kind: int, cell: Structure, record, ascii_of, ints, fail, db: float
             texttype = ints(body, 2, at)[0]
         elif rtype == _XY:
             xy = ints(body, 4, at)
+            xy_at = at
         elif rtype == _SNAME:
             sname = ascii_of(body, at)
         elif rtype == _STRING:
@@ -334,7 +339,8 @@ def _element(kind: int, cell: Structure, record, ascii_of, ints, fail, db: float
         if kind == _SREF:
             if len(xy) != 2:
                 raise fail("SREF needs one XY point", at)
-            cell.refs.append(Ref(sname, xy[0] * db, xy[1] * db, reflect, angle, mag))
+            cell.refs.append(Ref(sname, xy[0] * db, xy[1] * db, reflect, angle, mag,
+                                 xy_at=xy_at))
         else:
             if len(xy) != 6:
                 raise fail("AREF needs three XY points", at)
@@ -346,11 +352,11 @@ def _element(kind: int, cell: Structure, record, ascii_of, ints, fail, db: float
             cx, cy = (xy[2] - ox) / cols, (xy[3] - oy) / cols
             rx, ry = (xy[4] - ox) / rows, (xy[5] - oy) / rows
             cell.refs.append(Ref(sname, ox * db, oy * db, reflect, angle, mag, cols, rows,
-                                 (cx * db, cy * db), (rx * db, ry * db)))
+                                 (cx * db, cy * db), (rx * db, ry * db), xy_at))
     elif kind == _TEXT:
         if text is None or len(xy) < 2:
             raise fail("TEXT without STRING or XY", at)
-        cell.texts.append(Text(text, layer, texttype, xy[0] * db, xy[1] * db))
+        cell.texts.append(Text(text, layer, texttype, xy[0] * db, xy[1] * db, xy_at))
     else:
         cell.shapes += 1
         if len(xy) >= 2:

@@ -26,7 +26,9 @@ from placer.limits import MAX_DEVICES, MAX_FILE_BYTES, MAX_NAME, MAX_SLOTS, MAX_
 
 __all__ = ["Unit", "Recognised", "read_layout", "units_to_pattern", "read_csv_units",
            "hot_spot_in_pattern_frame",
-           "gds_units", "detect_format", "MAX_LAYOUT_BYTES"]
+           "gds_units", "top_cell", "full_boxes", "apply_transform", "detect_format",
+           "MAX_LAYOUT_BYTES"]
+
 
 MAX_LAYOUT_BYTES = 256 * 1024 * 1024
 
@@ -176,6 +178,27 @@ def read_csv_units(text: str, source: str) -> list[Unit]:
     return units
 
 
+def top_cell(lib: StreamLibrary, cell: str | None, source: str) -> str:
+    """The cell holding the array: ``cell`` when given, else the one top cell that places
+    others (a library with one cell: that one)."""
+    cells = lib.structures
+    if cell is not None:
+        if cell not in cells:
+            raise LayoutError(f"{source}: no cell {shown(cell[:64])} (cells: "
+                              f"{', '.join(sorted(cells)[:10])[:300]})")
+        return cell
+    referenced = {r.cell for s in cells.values() for r in s.refs}
+    tops = [n for n in cells if n not in referenced]
+    with_refs = [n for n in tops if cells[n].refs]
+    if not with_refs and len(tops) == 1:
+        with_refs = tops
+    if len(with_refs) != 1:
+        found = ", ".join(with_refs or tops)[:300] or "none"
+        raise LayoutError(f"{source}: cannot tell the top cell (candidates: {found}); "
+                          "name it with --cell")
+    return with_refs[0]
+
+
 def gds_units(lib: StreamLibrary, source: str, *, cell: str | None,
               mapping: dict[str, str], label_layer: tuple[int, int],
               dummy_cells: set[str], mos: bool, notes: list[str]) -> list[Unit]:
@@ -194,25 +217,10 @@ def gds_units(lib: StreamLibrary, source: str, *, cell: str | None,
     axis points left is '<'; one turned by 90 or 270 degrees keeps no orientation (noted).
     """
     cells = lib.structures
-    if cell is not None:
-        if cell not in cells:
-            raise LayoutError(f"{source}: no cell {shown(cell[:64])} (cells: "
-                              f"{', '.join(sorted(cells)[:10])[:300]})")
-        top = cell
-    else:
-        referenced = {r.cell for s in cells.values() for r in s.refs}
-        tops = [n for n in cells if n not in referenced]
-        with_refs = [n for n in tops if cells[n].refs]
-        if not with_refs and len(tops) == 1:
-            with_refs = tops
-        if len(with_refs) != 1:
-            found = ", ".join(with_refs or tops)[:300] or "none"
-            raise LayoutError(f"{source}: cannot tell the top cell (candidates: {found}); "
-                              "name it with --cell")
-        top = with_refs[0]
+    top = top_cell(lib, cell, source)
     if not cells[top].refs:
         raise LayoutError(f"{source}: cell {shown(top[:64])} places no unit cells by reference")
-    boxes = _full_boxes(lib, source)
+    boxes = full_boxes(lib, source)
     labelled: dict[str, bool] = {}
 
     def has_label(name: str, depth: int = 0) -> bool:
@@ -241,7 +249,7 @@ def gds_units(lib: StreamLibrary, source: str, *, cell: str | None,
         """Every device label, flattened (only subtrees that hold one are visited)."""
         s = cells[name]
         for t in s.texts:
-            x, y = _apply(t.x, t.y, tx, ty, refl, ang, mag)
+            x, y = apply_transform(t.x, t.y, tx, ty, refl, ang, mag)
             if (t.layer, t.texttype) == label_layer:
                 texts.append((t.text, x, y))
                 if len(texts) > MAX_UNITS:
@@ -254,7 +262,7 @@ def gds_units(lib: StreamLibrary, source: str, *, cell: str | None,
                 continue
             for r in ref.instances():
                 count("labelled cells")
-                x, y = _apply(r.x, r.y, tx, ty, refl, ang, mag)
+                x, y = apply_transform(r.x, r.y, tx, ty, refl, ang, mag)
                 a = ang + (-r.angle_deg if refl else r.angle_deg)
                 gather(r.cell, x, y, refl ^ r.reflect, a, mag * r.mag, depth + 1)
 
@@ -278,14 +286,14 @@ def gds_units(lib: StreamLibrary, source: str, *, cell: str | None,
         for ref in cells[name].refs:
             for r in ref.instances():
                 count("cells")
-                x, y = _apply(r.x, r.y, tx, ty, refl, ang, mag)
+                x, y = apply_transform(r.x, r.y, tx, ty, refl, ang, mag)
                 a = ang + (-r.angle_deg if refl else r.angle_deg)
                 rf, m = refl ^ r.reflect, mag * r.mag
                 child = cells[r.cell]
                 box = boxes.get(r.cell)
                 if box is None:                          # nothing drawn: not a unit
                     continue
-                corners = [_apply(cx, cy, x, y, rf, a, m) for cx in (box[0], box[2])
+                corners = [apply_transform(cx, cy, x, y, rf, a, m) for cx in (box[0], box[2])
                            for cy in (box[1], box[3])]
                 inst = (min(c[0] for c in corners), min(c[1] for c in corners),
                         max(c[0] for c in corners), max(c[1] for c in corners))
@@ -354,7 +362,7 @@ def _check_work(cells: dict[str, Structure], top: str, has_label: Callable[[str]
                          "expanding them)")
 
 
-def _full_boxes(lib: StreamLibrary, source: str) -> dict[str, tuple[float, float, float,
+def full_boxes(lib: StreamLibrary, source: str) -> dict[str, tuple[float, float, float,
                                                                       float]]:
     """Each cell's bounding box with its sub-cells, in its own user units."""
     cells = lib.structures
@@ -372,7 +380,7 @@ def _full_boxes(lib: StreamLibrary, source: str) -> dict[str, tuple[float, float
             if child is None:
                 continue
             for r in ref.corners():                   # an array's corners span it
-                corners = [_apply(cx, cy, r.x, r.y, r.reflect, r.angle_deg, r.mag)
+                corners = [apply_transform(cx, cy, r.x, r.y, r.reflect, r.angle_deg, r.mag)
                            for cx in (child[0], child[2]) for cy in (child[1], child[3])]
                 xs, ys = [c[0] for c in corners], [c[1] for c in corners]
                 cb = (min(xs), min(ys), max(xs), max(ys))
@@ -386,7 +394,7 @@ def _full_boxes(lib: StreamLibrary, source: str) -> dict[str, tuple[float, float
     return {k: v for k, v in out.items() if v is not None}
 
 
-def _apply(x: float, y: float, tx: float, ty: float, refl: bool, ang: float,
+def apply_transform(x: float, y: float, tx: float, ty: float, refl: bool, ang: float,
            mag: float) -> tuple[float, float]:
     """Stream transform: reflect about x, magnify, rotate, translate (Calma manual 6.0)."""
     if refl:

@@ -135,10 +135,27 @@ def lesson_name(spec: Spec) -> str:
     return f"{spec.name}-lesson.html"
 
 
-def repair_names(drawn: bool) -> list[str]:
-    """The files of a repair (``drawn``: the repaired GDSII too)."""
-    return ["repaired.txt", *(["repaired.gds"] if drawn else []), "repaired.png",
-            "repaired.svg", "repair.json"]
+#: The user's own GDSII with a repair's swaps applied in place.
+OWN_REPAIRED = "repaired-own.gds"
+
+
+def repair_names(drawn: bool, own: bool = False) -> list[str]:
+    """The files of a repair (``drawn``: the repaired GDSII too; ``own``: the user's GDSII
+    with the swaps applied)."""
+    return ["repaired.txt", *(["repaired.gds"] if drawn else []),
+            *([OWN_REPAIRED] if own else []), "repaired.png", "repaired.svg", "repair.json"]
+
+
+def swap_centres(result: RepairResult, spec: Spec, rec: Recognised
+                 ) -> list[tuple[tuple[float, float], tuple[float, float]]]:
+    """The two units' centres of each swap, in um in the file's own frame."""
+    px, py = spec.array.pitch_um
+    ox, oy = rec.origin_um
+
+    def at(slot: tuple[int, int]) -> tuple[float, float]:
+        return ox + slot[1] * px, oy - slot[0] * py
+
+    return [(at(sw.first), at(sw.second)) for sw in result.swaps]
 
 
 def swap_lines(result: RepairResult, spec: Spec, rec: Recognised) -> list[str]:

@@ -389,7 +389,8 @@ def expected_set(kind: str, out: Path, note: str = "") -> tuple[set[str], set[st
         required = set(REPAIR_OUTPUTS)
         if note and "repaired.gds not written" in note:
             required.discard("repaired.gds")   # the layout's pitch cannot hold the cell: noted
-        return required, set(REPAIR_OUTPUTS), problems
+        # a GDSII layout's repair may add the user's own file with the swaps applied
+        return required, set(REPAIR_OUTPUTS) | {"repaired-own.gds"}, problems
     if kind == "draw":
         stems = {n.rsplit(".", 1)[0] for n in names if n.endswith(".gds")}
         required = {f"{s}.{e}" for s in stems for e in ("gds", "png", "svg")}
