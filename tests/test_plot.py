@@ -169,3 +169,19 @@ def test_a_preview_of_many_devices_keeps_its_legend_and_array_in_the_picture(tmp
     assert max(t.x1 for t in texts) <= fig.bbox.x1 and min(t.y0 for t in texts) >= 0
     box = ax.get_window_extent()
     assert box.width > 50 and box.height > 50
+
+
+def test_the_unit_share_picture_of_a_layout_with_no_linear_error_says_so(monkeypatch, tmp_path):
+    """Its title read 'each unit's share of the no linear error error' over a blank
+    array; now it says that no pair has a linear error and names the units."""
+    from placer.present import plot
+
+    figs = []
+    monkeypatch.setattr(plot, "_save", lambda fig, paths: figs.append(fig))
+    pattern = parse_pattern(". A B B A .\n. B A A B .\n")
+    plot.save_sensitivity(pattern, (2.3, 4.0), [], "no linear error", "bal",
+                          [tmp_path / "s.png"])
+    title = figs[0]._suptitle.get_text()
+    assert "no pair has a linear error" in title and "error error" not in title
+    names = sorted(t.get_text() for t in figs[0].axes[0].texts)
+    assert names == ["A"] * 4 + ["B"] * 4

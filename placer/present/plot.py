@@ -583,9 +583,23 @@ def save_sensitivity(pattern: Pattern, pitch_um: tuple[float, float], units: Seq
     ax.set_xlabel("x (um)")
     ax.set_ylabel("y (um)")
 
+    width_chars = int(fig.get_size_inches()[0] * 13)
+    if not units:
+        # no pair has a linear error: every unit's share is zero, nothing to shade
+        if rows * cols <= 400:
+            for r in range(rows):
+                for c in range(cols):
+                    d = pattern.ids[r, c]
+                    if d >= 0:
+                        ax.text(c * px, -r * py, pattern.devices[d], ha="center",
+                                va="center", fontsize=7, color="black")
+        fig.suptitle(textwrap.fill(f"{name}: no pair has a linear error (every device's "
+                                   "centroid on the common centre): no unit adds to one",
+                                   width_chars), fontsize=9, x=0.02, ha="left")
+        _save(fig, paths)
+        return
     what = pair.replace(" under the ", " error under the ", 1) if " under the " in pair \
         else f"{pair} error"
-    width_chars = int(fig.get_size_inches()[0] * 13)
     fig.suptitle(textwrap.fill(f"{name}: each unit's share of the {what}", width_chars)
                  + "\n" + textwrap.fill("(red adds, blue cancels; grey: units of other "
                                          "devices, not in this pair)", width_chars),
