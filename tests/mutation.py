@@ -76,8 +76,9 @@ class Mutant:
     source: str
 
 
-class _Sites(ast.NodeVisitor):
-    """Every mutable node inside a function body (docstrings and messages excluded)."""
+class _InFunctions(ast.NodeVisitor):
+    """Visits function bodies only, skipping docstrings, messages and raised errors;
+    subclasses append (node, kind) to ``sites``."""
 
     def __init__(self) -> None:
         self.sites: list[tuple[ast.AST, str]] = []
@@ -96,6 +97,10 @@ class _Sites(ast.NodeVisitor):
 
     def visit_Raise(self, node: ast.Raise) -> None:
         return
+
+
+class _Sites(_InFunctions):
+    """Every operator-mutant site inside a function body."""
 
     def visit_BinOp(self, node: ast.BinOp) -> None:
         if self.depth and type(node.op) in _SWAP:
@@ -123,27 +128,8 @@ def _call_name(node: ast.Call) -> str:
     return f.id if isinstance(f, ast.Name) else (f.attr if isinstance(f, ast.Attribute) else "")
 
 
-class _Semantic(ast.NodeVisitor):
-    """Every site of a semantic mutant inside a function body (docstrings, messages and
-    raised errors excluded): (node, kind)."""
-
-    def __init__(self) -> None:
-        self.sites: list[tuple[ast.AST, str]] = []
-        self.depth = 0
-
-    def visit_FunctionDef(self, node: ast.FunctionDef) -> None:
-        self.depth += 1
-        for stmt in node.body:
-            if isinstance(stmt, ast.Expr) and isinstance(stmt.value, ast.Constant):
-                continue
-            self.visit(stmt)
-        self.depth -= 1
-
-    def visit_JoinedStr(self, node: ast.JoinedStr) -> None:
-        return
-
-    def visit_Raise(self, node: ast.Raise) -> None:
-        return
+class _Semantic(_InFunctions):
+    """Every site of a semantic mutant inside a function body: (node, kind)."""
 
     def visit_BinOp(self, node: ast.BinOp) -> None:
         if self.depth and isinstance(node.op, ast.Mult):

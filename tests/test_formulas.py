@@ -640,6 +640,21 @@ def test_dac_gradient_inl_in_the_reported_direction_on_a_two_dimensional_array()
     assert abs(np.sin(2 * np.radians(b.worst_direction_deg))) > 0.05
 
 
+def _hessian_lattice(n: int = 4000):
+    """Second-moment samples of each capacitor of the 3 x 3 grid about the centre of
+    its eight units, and ``n`` unit vectors spread evenly on the sphere (a Fibonacci
+    lattice) that scale to Hessians of a given norm."""
+    pos = _positions_2d()
+    centre = np.concatenate(list(pos.values())).mean(0)
+    moments = {d: ((p - centre)[:, 0] ** 2, (p - centre)[:, 0] * (p - centre)[:, 1],
+                   (p - centre)[:, 1] ** 2) for d, p in pos.items()}
+    k = np.arange(n) + 0.5
+    z = 1 - 2 * k / n
+    phi = np.pi * (1 + 5 ** 0.5) * k
+    u = np.column_stack([np.sqrt(1 - z * z) * np.cos(phi), np.sqrt(1 - z * z) * np.sin(phi), z])
+    return moments, u
+
+
 def test_dac_curvature_inl_on_a_two_dimensional_array():
     """The worst Hessian of norm h on a 3 x 3 grid, by brute force: fields
     1/2 r^T H r over 4000 Hessians spread evenly on the sphere a^2 + 2 b^2 + c^2 = h^2
@@ -647,15 +662,7 @@ def test_dac_curvature_inl_on_a_two_dimensional_array():
     of all eight units, end-point INL and DNL of the levels. The budget's worst must lie
     at or above every sample, and within the lattice's spacing of the largest."""
     b = _budget_2d(linear=0.0, quadratic=2.0)
-    pos = _positions_2d()
-    centre = np.concatenate(list(pos.values())).mean(0)
-    moments = {d: ((p - centre)[:, 0] ** 2, (p - centre)[:, 0] * (p - centre)[:, 1],
-                   (p - centre)[:, 1] ** 2) for d, p in pos.items()}
-    n = 4000
-    k = np.arange(n) + 0.5
-    z = 1 - 2 * k / n
-    phi = np.pi * (1 + 5 ** 0.5) * k
-    u = np.column_stack([np.sqrt(1 - z * z) * np.cos(phi), np.sqrt(1 - z * z) * np.sin(phi), z])
+    moments, u = _hessian_lattice()
     h = 2.0e-6
     inl_max = dnl_max = 0.0
     for ua, ub, uc in u:
@@ -675,15 +682,7 @@ def test_dac_curvature_curve_is_the_worst_hessians_inl_by_code():
     sign of H, within the lattice's spacing), and the curve's largest |INL| is the
     budget's quadratic INL."""
     b = _budget_2d(linear=0.0, quadratic=2.0)
-    pos = _positions_2d()
-    centre = np.concatenate(list(pos.values())).mean(0)
-    moments = {d: ((p - centre)[:, 0] ** 2, (p - centre)[:, 0] * (p - centre)[:, 1],
-                   (p - centre)[:, 1] ** 2) for d, p in pos.items()}
-    n = 4000
-    k = np.arange(n) + 0.5
-    z = 1 - 2 * k / n
-    phi = np.pi * (1 + 5 ** 0.5) * k
-    u = np.column_stack([np.sqrt(1 - z * z) * np.cos(phi), np.sqrt(1 - z * z) * np.sin(phi), z])
+    moments, u = _hessian_lattice()
     h = 2.0e-6
     best, best_curve = -1.0, None
     for ua, ub, uc in u:

@@ -2787,9 +2787,10 @@ def _inodes(out: Path) -> dict[str, int]:
 
 
 def _disturbed(ctx: Ctx, rng: random.Random, command: str
-               ) -> tuple[dict | None, dict | None, dict, bool] | None:
-    """Reference sets of both versions and the starting state of ``out``: (before,
-    ref_old, ref_new, existing) -- None when a reference run failed."""
+               ) -> tuple[dict | None, dict | None, dict, list[str]] | None:
+    """Reference sets of both versions, the starting state of ``out`` and the command
+    line to disturb: (before, ref_old, ref_new, args) -- None when a reference run
+    failed."""
     ref_old = reference_set(ctx, command, 1, "ref1")
     ref_new = reference_set(ctx, command, 2, "ref2")
     if ref_old is None or ref_new is None:
@@ -2805,7 +2806,8 @@ def _disturbed(ctx: Ctx, rng: random.Random, command: str
             ctx.outcome.flag("wrong", f"the preparing run failed: {_tail(prep.err)}")
             return None
     writer_inputs(ctx, 2)
-    return snapshot(out), ref_old, ref_new, existing
+    args = writer_args(command) + (["--force"] if existing and command != "grade" else [])
+    return snapshot(out), ref_old, ref_new, args
 
 
 def _send(pid: int, how: str) -> None:
@@ -2827,9 +2829,8 @@ def gen_movein(ctx: Ctx, rng: random.Random) -> None:
     state = _disturbed(ctx, rng, command)
     if state is None:
         return
-    before, ref_old, ref_new, existing = state
+    before, ref_old, ref_new, args = state
     out = ctx.dir / "out"
-    args = writer_args(command) + (["--force"] if existing and command != "grade" else [])
     seen = _inodes(out)
     proc = ctx.start(args, launcher=[sys.executable, "-c", _SLOW_MOVE_IN, str(out)])
     ctx.note(f"send SIG{how} when the first file appears in out/ (moves into out/ slowed "
@@ -2861,9 +2862,8 @@ def gen_sigterm(ctx: Ctx, rng: random.Random) -> None:
     state = _disturbed(ctx, rng, command)
     if state is None:
         return
-    before, ref_old, ref_new, existing = state
+    before, ref_old, ref_new, args = state
     out = ctx.dir / "out"
-    args = writer_args(command) + (["--force"] if existing and command != "grade" else [])
     how = rng.choice(["TERM", "TERM", "INT-group"])
     delay = round(rng.uniform(0.02, 3.0), 2)
     proc = ctx.start(args)
