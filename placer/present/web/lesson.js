@@ -664,9 +664,9 @@ const STEPS = [
   ["4. Dummies and edges",
     ["A unit at the edge of an array sees different surroundings (etch, stress, implant shadowing) than its " +
      "neighbours inside. Dummy units (hatched) shield the edge so every real unit has the same surroundings.",
-     "The devices table counts each device's units with an open side. Swap a unit onto the dummy ring and its " +
-     "count rises; keep every device's share of edge units equal, or better zero. Then export the arrangement " +
-     "and grade it with placer."]],
+     "The devices table counts each device's units with an open side. Swap a unit with a dummy at the " +
+     "edge (a ring around the array, or the ends of each row) and its count rises; keep every device's share " +
+     "of edge units equal, or better zero. Then export the arrangement and grade it with placer."]],
 ];
 
 function drawStep() {
