@@ -255,3 +255,35 @@ def test_dac_figure_matches_grade(dac_run, key):
     shown, want = _shown(dac_run["figs"]), _expected(g)
     assert _agree(key, shown[key], want[key], g), (key, shown[key], want[key])
 
+
+
+def test_a_32_column_board_fits_a_1280_pixel_window_without_a_sideways_scroll(tmp_path):
+    """At a 1280 px window an 18-slot board needed a horizontal scroll; the board now
+    shrinks to its column. Checked on a 32-column board (plus its end dummies) and on
+    the sample: neither the page nor the board scrolls sideways, and a swap by clicks
+    still works on the shrunk board."""
+    from tests.browser import chromium
+
+    spec = tmp_path / "wide.toml"
+    spec.write_text("name = \"wide\"\n[devices]\nA = 128\nB = 128\n[array]\nrows = 8\n")
+    res = run_placer(["lesson", str(spec), "--out", str(tmp_path), "--time-limit", "2"],
+                     cwd=tmp_path)
+    assert res.returncode == 0, res.stderr
+    (tmp_path / "s").mkdir()
+    sample = _page(tmp_path / "s", "bias_mirror")[1]
+    driver = chromium(1280, 900)
+    try:
+        for page in (tmp_path / "wide-lesson.html", sample):
+            _open(driver, page)
+            widths = driver.execute_script(
+                "const a = document.getElementById('array');"
+                "return [document.documentElement.scrollWidth, window.innerWidth,"
+                " a.scrollWidth, a.clientWidth];")
+            assert widths[0] <= widths[1] and widths[2] <= widths[3], widths
+        cols = len(driver.find_elements("css selector", '.slot[data-row="0"]'))
+        assert cols >= 9
+        before = driver.execute_script("return document.body.dataset.swaps")
+        _swap_by_clicks(driver, (0, 1), (1, 2))
+        assert driver.execute_script("return document.body.dataset.swaps") != before
+    finally:
+        driver.quit()
