@@ -347,11 +347,14 @@ def test_bowl_error_by_hand():
         4.0 / (2 * np.sqrt(2.0)) * 8.0, rel=1e-15)
 
 
+@pytest.mark.parametrize("fft", [True, False])
 @pytest.mark.parametrize("kernel", ["exponential", "gaussian"])
-def test_grid_covariance_on_an_uneven_pitch_with_an_absent_device(kernel):
-    """The FFT covariance equals the direct double sum over unit pairs (the definition)
-    on a 3 x 4 grid at pitch 2 x 3 um with dummies; a device with no unit gets zeros."""
+def test_grid_covariance_on_an_uneven_pitch_with_an_absent_device(kernel, fft, monkeypatch):
+    """The grid covariance -- by FFTs, and by K E directly as small grids take it --
+    equals the direct double sum over unit pairs (the definition) on a 3 x 4 grid at
+    pitch 2 x 3 um with dummies; a device with no unit gets zeros."""
     from placer.model import variation
+    monkeypatch.setattr(variation, "DIRECT_SLOTS", 0 if fft else 10_000)
     ids = np.array([[0, 1, -1, 0], [1, 0, 0, -1], [-1, 1, 0, 1]])
     r, c = np.nonzero(ids >= 0)
     xy = np.column_stack([c * 2.0, -r * 3.0])

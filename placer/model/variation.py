@@ -186,6 +186,11 @@ def device_covariance(xy: FloatArray, dev: IntArray, n_dev: int, length_um: floa
     return np.asarray(e.T @ ke, dtype=float)
 
 
+#: Grids up to this many slots multiply K E directly (S^2 lookups): cheaper than the FFTs
+#: there, and a small run need not load the FFT library at all.
+DIRECT_SLOTS = 256
+
+
 def grid_kernel_products(ids: IntArray, pitch_um: tuple[float, float], n_groups: int,
                          length_um: float, kernel: str) -> FloatArray:
     """K E on a slot grid: for every slot, the sum of its correlation with each group's
@@ -194,18 +199,28 @@ def grid_kernel_products(ids: IntArray, pitch_um: tuple[float, float], n_groups:
     ``ids`` (rows, cols) holds each slot's group (negative: none). On a grid the
     correlation of two slots depends only on their offset, so each column of K E is the
     2-D linear convolution of the kernel with the group's map of 1/n, done with
-    zero-padded FFTs in O(n_groups S log S) time instead of O(S^2).
+    zero-padded FFTs in O(n_groups S log S) time instead of O(S^2) (on grids of at most
+    :data:`DIRECT_SLOTS` slots, K E directly).
     """
     rows, cols = ids.shape
     dr = np.arange(-(rows - 1), rows)[:, None] * pitch_um[1]
     dc = np.arange(-(cols - 1), cols)[None, :] * pitch_um[0]
     kern = correlation(np.sqrt(dr * dr + dc * dc), length_um, kernel)   # (2R-1, 2C-1)
+    counts = np.bincount(ids[ids >= 0], minlength=n_groups).astype(float)
+    if rows * cols <= DIRECT_SLOTS:
+        # a small grid: K itself (S x S, looked up by offset) times E, no FFT needed
+        r, c = np.divmod(np.arange(rows * cols), cols)
+        k_full = kern[r[:, None] - r[None, :] + rows - 1, c[:, None] - c[None, :] + cols - 1]
+        flat = ids.ravel()
+        have = np.nonzero(flat >= 0)[0]
+        e = np.zeros((rows * cols, n_groups))
+        e[have, flat[have]] = 1.0 / counts[flat[have]]
+        return np.asarray(k_full @ e, dtype=float)
     from scipy import fft as sfft
 
     shape = (sfft.next_fast_len(3 * rows - 2, real=True),
              sfft.next_fast_len(3 * cols - 2, real=True))
     fk = sfft.rfft2(kern, shape)
-    counts = np.bincount(ids[ids >= 0], minlength=n_groups).astype(float)
     out = np.zeros((rows * cols, n_groups))
     present = np.nonzero(counts)[0]
     # several groups per FFT call, in chunks of about 4 M grid points (32 MB a chunk)
