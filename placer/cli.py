@@ -691,8 +691,9 @@ def lesson(spec_path: Path, out_dir: Path, pattern_path: Path | None, seed: int,
 @click.argument("layout", type=_FILE)
 @click.option("--out", "out_dir", type=_OUT,
               required=True,
-              help="Folder for repaired.txt, .png, .svg, repair.json and repaired.gds (when "
-                   "placer's unit cell fits the layout's pitch).")
+              help="Folder for repaired.txt, .png, .svg, repair.json, repaired.gds (when "
+                   "placer's unit cell fits the layout's pitch) and repaired-own.gds (a "
+                   "GDSII layout with the swaps applied).")
 @click.option("--spec", "spec_path", type=_FILE, default=None,
               help="Spec with the model assumptions (defaults apply without it).")
 @click.option("--max-swaps", type=click.IntRange(min=1, max=64), default=4, show_default=True,
@@ -716,7 +717,8 @@ def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, 
     The target is the linear error the search reaches on the same slots; within
     --max-swaps the quadratic error is lowered next. Prints the swaps by slot (row,
     column, coordinates) with the scores before and after, and writes the repaired
-    pattern with its routed drawing.
+    pattern with its routed drawing; for a GDSII layout also repaired-own.gds, the
+    layout itself with the swapped units' references exchanged.
     """
     from placer.layout import block as drawing
     pat, spec, rec = _load_graded(layout, spec_path, cell=cell, mapping=mapping,
