@@ -425,19 +425,20 @@ def batch(paths: tuple[Path, ...], out_dir: Path, time_limit: float, seed: int,
         try:
             runs = run_batch(specs, out_dir, time_limit_s=time_limit, seed=seed, jobs=n_jobs,
                              force=force, progress=not quiet, finished=finished)
+            wall = time.monotonic() - t0
+            outputs.write_batch(out, runs, wall_s=wall, jobs=n_jobs, time_limit_s=time_limit,
+                                seed=seed)
+            out.commit()
         except KeyboardInterrupt:
-            # each block is a set of its own: the ones that finished stay whole
-            if not finished:
+            # each block is a set of its own: the ones that finished stay whole (after the
+            # summary's move-in, the usual message says the whole set is complete)
+            if not finished or out.committed:
                 raise
             names = ", ".join(r.name for r in finished[:5]) + (" ..." if len(finished) > 5
                                                                 else "")
             click.echo(f"Interrupted; the {len(finished)} block(s) that finished are complete "
                        f"in {out_dir} ({names}); no summary written.", err=True)
             sys.exit(130)
-        wall = time.monotonic() - t0
-        outputs.write_batch(out, runs, wall_s=wall, jobs=n_jobs, time_limit_s=time_limit,
-                            seed=seed)
-        out.commit()
     click.echo(format_batch(runs, wall, n_jobs))
     click.echo(f"Wrote {out_dir}/index.html, summary.json and a folder per block.")
     failed = [r for r in runs if r.exit_code != 0]
@@ -752,9 +753,9 @@ def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, 
             from placer.layout.layers import load_layers
 
             try:
-                edited = swap_units(layout, outputs.swap_centres(res, spec, rec), cell=cell,
-                                    label_layer=load_layers(layers_path)["label"],
-                                    tolerance_um=min(spec.array.pitch_um) / 4)
+                edited = swap_units(layout, outputs.unit_move_centres(res, spec, rec),
+                                    cell=cell, label_layer=load_layers(layers_path)["label"],
+                                    pitch_um=spec.array.pitch_um)
                 out.write(outputs.OWN_REPAIRED, edited.data)
             except LayoutError as err:
                 own_note = f"{outputs.OWN_REPAIRED} not written: {err}"

@@ -130,3 +130,81 @@ def test_the_sample_hand_layout_is_repaired_in_place(tmp_path, runner):
     assert len(own) == len(orig) and own != orig
     repaired = parse_pattern((out / "repaired.txt").read_text())
     assert _names(read_layout(out / "repaired-own.gds").pattern) == _names(repaired)
+
+
+def _layout(path, rows: list[str], *, box=(0.8, 1.6), label_off=(0.0, 0.0),
+            pitch=(1.0, 2.0), aref1: bool = False) -> None:
+    """One leaf unit cell (a ``box`` rectangle about its origin) per slot of ``rows``
+    (one letter a device), placed by SREFs (or one-instance AREFs), a label per unit in
+    the array cell at the unit's centre plus ``label_off``."""
+    lib = gdstk.Library("hand", unit=1e-6, precision=1e-9)
+    unit = lib.new_cell("U")
+    unit.add(gdstk.rectangle((-box[0] / 2, -box[1] / 2), (box[0] / 2, box[1] / 2), layer=1))
+    top = lib.new_cell("TOP")
+    for r, row in enumerate(rows):
+        for c, name in enumerate(row):
+            x, y = c * pitch[0], -r * pitch[1]
+            if aref1:
+                top.add(gdstk.Reference(unit, (x, y), columns=1, rows=1, spacing=(1, 1)))
+            else:
+                top.add(gdstk.Reference(unit, (x, y)))
+            top.add(gdstk.Label(name, (x + label_off[0], y + label_off[1]), layer=10))
+    lib.write_gds(str(path))
+
+
+def _repair_in_place(tmp_path, runner, hand):
+    out = tmp_path / "o"
+    res = runner.invoke(cli, ["repair", str(hand), "--out", str(out), "--time-limit", "3"])
+    assert res.exit_code == 0, res.output
+    return res, out
+
+
+@pytest.mark.parametrize("case", ["chained", "label_beside", "overlapping", "aref1",
+                                  "flat_units"])
+def test_the_edited_layout_reads_back_as_the_repaired_pattern(tmp_path, runner, case):
+    """Cases a review found wrong: a slot in two swaps (the swaps compose into one move
+    per unit), a label beside its unit's box or inside a neighbour's (each label goes
+    with the unit the importer gives it to), one-instance AREFs (all three points move),
+    units much flatter than the pitch (the importer's per-axis tolerance)."""
+    hand = tmp_path / "hand.gds"
+    kw: dict = {
+        "chained": {"rows": ["BCCACA", "ABBCAB"]},
+        "label_beside": {"rows": ["AAAABBBB", "AAAABBBB"], "box": (0.6, 1.6),
+                         "label_off": (0.4, 0.0)},
+        "overlapping": {"rows": ["AAAACBBB", "AAAABBBB"], "box": (1.2, 1.6),
+                        "label_off": (-0.45, 0.0)},
+        "aref1": {"rows": ["AAAABBBB", "AAAABBBB"], "aref1": True},
+        "flat_units": {"rows": ["AAAABBBB", "AAAABBBB"], "box": (0.8, 0.3)},
+    }[case]
+    _layout(hand, **kw)
+    res, out = _repair_in_place(tmp_path, runner, hand)
+    assert res.output.count(". swap ") >= 1
+    assert (out / "repaired-own.gds").is_file(), res.output
+    repaired = parse_pattern((out / "repaired.txt").read_text())
+    assert _names(read_layout(out / "repaired-own.gds").pattern) == _names(repaired)
+
+
+def test_a_row_cell_holding_several_units_is_not_moved_whole(tmp_path):
+    """Rows of three units placed as cells: a row's centre is its middle unit's, and
+    moving the middle units moved whole rows; now such a unit is named and nothing is
+    edited."""
+    from placer.errors import LayoutError
+    from placer.io.gdsswap import swap_units
+
+    lib = gdstk.Library("hand", unit=1e-6, precision=1e-9)
+    unit = lib.new_cell("U")
+    unit.add(gdstk.rectangle((-0.4, -0.8), (0.4, 0.8), layer=1))
+    row = lib.new_cell("ROW")
+    for c in range(3):
+        row.add(gdstk.Reference(unit, (c * 1.0, 0)))
+    top = lib.new_cell("TOP")
+    for r, names in enumerate(["ABA", "BAB"]):
+        top.add(gdstk.Reference(row, (0, -2.0 * r)))
+        for c, n in enumerate(names):
+            top.add(gdstk.Label(n, (c * 1.0, -2.0 * r), layer=10))
+    path = tmp_path / "rows.gds"
+    lib.write_gds(str(path))
+    middle = [((1.0, 0.0), (1.0, -2.0)), ((1.0, -2.0), (1.0, 0.0))]
+    with pytest.raises(LayoutError, match=r"unit at \(1, 0\) um is not placed by a "
+                                          r"reference of cell 'TOP' of its own"):
+        swap_units(path, middle, cell=None, label_layer=(10, 0), pitch_um=(1.0, 2.0))

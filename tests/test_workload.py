@@ -96,3 +96,17 @@ def test_the_estimate_is_the_stated_sum_of_its_terms():
     plain = parse_spec(MC_2048.split("[monte_carlo]")[0], "s.toml")
     assert math.isclose(workload.estimate(mc).seconds - workload.estimate(plain).seconds,
                         5.5e-10 * 2048 ** 3, rel_tol=1e-9)
+
+
+@pytest.mark.parametrize("seconds", [35.0015, 26.0001, 8.0001, 5.1, 9.5])
+def test_the_named_limit_passes_for_estimates_just_past_a_whole_limit(seconds, monkeypatch):
+    """int(x + 0.999) is no ceiling: estimates of 35.0015, 26.0001 and 8.0001 s named
+    limits (10, 7, 1) that the check then refused again."""
+    spec = parse_spec(MC_2048, "s.toml")
+    monkeypatch.setattr(workload, "estimate", lambda *a, **k: workload.Workload(
+        seconds, 100.0, (("the work", seconds),)))
+    with pytest.raises(LimitError) as err:
+        workload.check(spec, "s.toml", 0.001)
+    need = float(str(err.value).split("give --time-limit ")[1].split()[0])
+    assert workload.allowed_seconds(need) >= seconds
+    assert workload.allowed_seconds(need - 1) < seconds or need == 1

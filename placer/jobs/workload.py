@@ -20,6 +20,7 @@ budget's code samples.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 from placer.errors import LimitError
@@ -132,7 +133,9 @@ def check(spec: Spec, source: str, time_limit_s: float | None, routed: bool = Tr
             f"{work.peak_mb / 1024:.0f} GB (estimate; the limit is {MAX_PEAK_MB / 1024:.0f} "
             "GB); split the block into smaller ones or join terminals onto fewer nets")
     if time_limit_s is not None and work.seconds > allowed_seconds(time_limit_s):
-        need = max(1, int((work.seconds - MARGIN_S) / 3 + 0.999))
+        need = max(1, math.ceil((work.seconds - MARGIN_S) / 3))
+        while allowed_seconds(need) < work.seconds:      # rounding: the named limit passes
+            need += 1
         raise LimitError(
             f"{source}: the work around the search ({what}: about {secs:.0f} s of "
             f"{work.seconds:.0f} s, estimated) is far past --time-limit {time_limit_s:g}; "

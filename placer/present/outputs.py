@@ -146,16 +146,20 @@ def repair_names(drawn: bool, own: bool = False) -> list[str]:
             *([OWN_REPAIRED] if own else []), "repaired.png", "repaired.svg", "repair.json"]
 
 
-def swap_centres(result: RepairResult, spec: Spec, rec: Recognised
-                 ) -> list[tuple[tuple[float, float], tuple[float, float]]]:
-    """The two units' centres of each swap, in um in the file's own frame."""
+def unit_move_centres(result: RepairResult, spec: Spec, rec: Recognised
+                      ) -> list[tuple[tuple[float, float], tuple[float, float]]]:
+    """Each moved unit's slot centre and the centre of the slot it ends in, after all
+    the swaps in order (um, in the file's own frame)."""
+    from placer.io.gdsswap import unit_moves
+
     px, py = spec.array.pitch_um
     ox, oy = rec.origin_um
 
     def at(slot: tuple[int, int]) -> tuple[float, float]:
         return ox + slot[1] * px, oy - slot[0] * py
 
-    return [(at(sw.first), at(sw.second)) for sw in result.swaps]
+    moves = unit_moves([(sw.first, sw.second) for sw in result.swaps])
+    return [(at(a), at(b)) for a, b in sorted(moves.items())]
 
 
 def swap_lines(result: RepairResult, spec: Spec, rec: Recognised) -> list[str]:
