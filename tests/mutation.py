@@ -14,8 +14,8 @@ b`` -> ``a``) and a sum taken for a root-sum-square (``sqrt(a + b)`` -> ``sqrt(a
 sqrt(b)``, ``hypot(a, b)`` -> ``abs(a) + abs(b)``).
 
 The formula tests (tests/test_formulas.py, test_budget.py, test_model.py, test_workload.py,
-test_search.py's exactness checks, the modules' doctests) run first on a copy of the
-package holding the mutant; with ``--whole-suite`` a mutant they miss is run again
+test_search.py's exactness checks, the modules' doctests) and the mutated module's own
+tests (MODULE_TESTS) run first on a copy of the package holding the mutant; with ``--whole-suite`` a mutant they miss is run again
 against the whole default suite (every test file, as ``pytest`` runs them locally), and
 only a mutant that passes that too *survives*. Survivors are printed with their line,
 for a person to judge: a survivor on a formula line is a missing test; one on a message,
@@ -50,6 +50,19 @@ TESTS = ["tests/test_formulas.py", "tests/test_budget.py", "tests/test_model.py"
          "placer/model/grade.py", "placer/model/exact_moments.py",
          "placer/jobs/workload.py"]
 WHOLE = ["tests"]
+#: the tests of each module beyond the formula tests (they run with them, first)
+MODULE_TESTS = {
+    "layout/parasitics": ["tests/test_parasitics.py", "tests/test_parasitics_checker.py",
+                          "tests/test_wiring.py"],
+    "layout/wiring_error": ["tests/test_wiring.py", "tests/test_wiring_objective.py"],
+    "model/routing_estimate": ["tests/test_wiring_objective.py", "tests/test_layout.py"],
+    "search/_problem": ["tests/test_search.py", "tests/test_constraints.py"],
+    "search/_compiled": ["tests/test_search.py", "tests/test_constraints.py"],
+    "search/baselines": ["tests/test_search.py", "tests/test_constraints.py"],
+    "model/variation": ["tests/test_page_vectors.py"],
+    "model/budget": ["tests/test_page_vectors.py"],
+    "model/grade": ["tests/test_page_vectors.py", "tests/test_layout.py"],
+}
 #: calls whose first two arguments may be swapped without changing the result
 _COMMUTATIVE = {"min", "max", "maximum", "minimum", "hypot", "add", "multiply", "isclose",
                 "allclose", "array_equal", "logical_and", "logical_or", "gcd", "lcm",
@@ -264,7 +277,8 @@ def _run(m: Mutant, workdir: Path, timeout: float, origin: Path = ROOT,
         try:
             res = subprocess.run([sys.executable, "-m", "pytest", "-x", "-q", "-p",
                                   "no:cacheprovider", "--no-header", "-o", "addopts=",
-                                  *(tests or TESTS)], cwd=tmp, env=env, capture_output=True,
+                                  *(tests or [*TESTS, *MODULE_TESTS.get(m.module, [])])],
+                                 cwd=tmp, env=env, capture_output=True,
                                  timeout=timeout)
         except subprocess.TimeoutExpired:
             return True                             # a hang counts as caught
