@@ -286,6 +286,10 @@ def grade(layout: Path, spec_path: Path | None, as_json: bool, budget_plot: Path
     """
     _picture_path(budget_plot)
     _picture_path(sensitivity_plot)
+    if (budget_plot is not None and sensitivity_plot is not None
+            and os.path.abspath(budget_plot) == os.path.abspath(sensitivity_plot)):
+        raise PlacerError(f"{budget_plot}: named for both --budget-plot and "
+                          "--sensitivity-plot; give each picture a file of its own")
     pat, spec, rec = _load_graded(layout, spec_path, cell=cell, mapping=mapping,
                                   dummy_cells=dummy_cells, layers_path=layers_path,
                                   echo_notes=not as_json)

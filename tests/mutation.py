@@ -15,9 +15,10 @@ sqrt(b)``, ``hypot(a, b)`` -> ``abs(a) + abs(b)``).
 
 The formula tests (tests/test_formulas.py, test_budget.py, test_model.py, test_workload.py,
 test_search.py's exactness checks, the modules' doctests) and the mutated module's own
-tests (MODULE_TESTS) run first on a copy of the package holding the mutant; with ``--whole-suite`` a mutant they miss is run again
-against the whole default suite (every test file, as ``pytest`` runs them locally), and
-only a mutant that passes that too *survives*. Survivors are printed with their line,
+tests (MODULE_TESTS) run first on a copy of the package holding the mutant; with
+``--whole-suite`` a mutant they miss is run again against the whole default suite
+(every test file, as ``pytest`` runs them locally), and only a mutant that passes that
+too *survives*. Survivors are printed with their line,
 for a person to judge: a survivor on a formula line is a missing test; one on a message,
 a default or a guard may be harmless (say why in DEVELOPERS.md).
 """

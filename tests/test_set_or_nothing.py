@@ -291,3 +291,12 @@ def test_a_unit_cell_library_with_an_empty_cell_name_is_one_line(tmp_path):
     res = run_placer(["arrange", str(MIRROR), "--out", "o", "--unit-gds", str(lib),
                       "--time-limit", "1"], tmp_path)
     refused(res, "empty name")
+
+
+def test_one_file_named_for_both_of_grades_pictures_is_refused(tmp_path, runner):
+    """The same file for --budget-plot and --sensitivity-plot kept one picture silently."""
+    res = runner.invoke(cli, ["grade", str(HAND), "--spec", str(MIRROR), "--budget-plot",
+                              str(tmp_path / "p.png"), "--sensitivity-plot",
+                              str(tmp_path / "." / "p.png")])
+    assert res.exit_code == 1 and "give each picture a file of its own" in res.output
+    assert list(tmp_path.iterdir()) == []
