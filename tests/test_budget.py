@@ -290,3 +290,25 @@ def test_no_coupling_means_no_dac_wiring_term():
                              grade_pattern(result.pattern, block.spec), wiring_of(block)))
     assert grades[0].wiring_inl_lsb == 0.0 and grades[0].wiring_dnl_lsb == 0.0
     assert grades[1].wiring_dnl_lsb > 0.0
+
+
+def test_mirror_wiring_term_scales_with_the_finger_current():
+    """The wiring network is linear: every IR drop, and so every device's wiring term,
+    doubles when the current per finger doubles (superposition) -- checked on the
+    sample bias mirror, drawn once, at 10 and 20 uA a finger."""
+    from dataclasses import replace
+
+    from placer.io.spec import ElectricalSpec
+    from placer.layout.block import layout_of
+    from tests.helpers import SAMPLES
+
+    spec = parse_spec((SAMPLES / "bias_mirror.toml").read_text(), "bias_mirror.toml")
+    pattern = parse_pattern((SAMPLES / "bias_mirror_hand.txt").read_text()).reordered(
+        spec.devices)
+    _, block = layout_of(pattern, spec)
+    e = block.spec.electrical or ElectricalSpec()
+    at10 = wiring_of(block, replace(e, unit_current_ua=10.0)).relative
+    at20 = wiring_of(block, replace(e, unit_current_ua=20.0)).relative
+    assert any(abs(v) > 1e-9 for v in at10.values())
+    for d in spec.devices:
+        assert at20[d] == pytest.approx(2.0 * at10[d], rel=1e-9, abs=1e-15)

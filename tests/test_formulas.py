@@ -882,3 +882,53 @@ def test_channel_length_modulation_keeps_its_sign_when_the_output_sits_lower():
     (line,) = budget(pattern, spec, grade_pattern(pattern, spec)).lines
     assert line.clm_pct == pytest.approx(100.0 * (1.05 / 1.09 - 1.0), rel=1e-12)
     assert line.clm_pct < 0
+
+
+def test_mirror_monte_carlo_at_a_larger_overdrive_where_vt_dominates():
+    """The same Monte Carlo at V_ov = 0.5 V (gm/ID = 2 / 0.5 V = 4 /V, square law) with
+    the VT term carrying nearly all of it: each device's VT draw counts gm/ID x dVT in
+    the current. At V_ov = 0.2 V gm/ID x 1 mV is exactly 1 %, which hides a dropped
+    gm/ID; here it is 0.4 %."""
+    text = (MIRROR.format(corr=0.0, avt=5.0, abeta=0.01)
+            .replace("vov_v = 0.2", "vov_v = 0.5").replace("mc_samples = 2",
+                                                          "mc_samples = 60000"))
+    spec = parse_spec(text, "m.toml")
+    pattern = parse_pattern("MREF MOUT MOUT MREF MOUT MOUT").reordered(spec.devices)
+    (line,) = budget(pattern, spec, grade_pattern(pattern, spec)).lines
+    s_beta = 0.01 * np.sqrt((1 / 4 + 1 / 8) / 2)           # %
+    s_vt = 5.0 * np.sqrt((1 / 4 + 1 / 8) / 2) * 1e-3       # V
+    want = np.hypot(s_beta, 4.0 * s_vt * 100.0)            # %
+    assert 4.0 * s_vt * 100.0 / want > 0.99
+    assert line.random_sigma_pct == pytest.approx(want, rel=1e-12)
+    assert line.mc_std_pct == pytest.approx(want, rel=0.015)
+
+
+def test_mirror_dominant_term_weighs_the_random_part_at_k_sigma():
+    """The budget names as dominant the largest of its terms, the random one taken at
+    k sigma (k = 3 by default): gradient 0.0015 % (as hand-worked above) against a
+    random sigma of 0.001 % -- three sigma (0.003 %) dominates, one sigma would not."""
+    abeta = 0.001 / np.sqrt((1 / 4 + 1 / 8) / 2)            # s_beta = 0.001 %
+    b, _, spec = _mirror(corr=0.0, avt=1e-9, abeta=abeta)
+    (line,) = b.lines
+    assert spec.electrical.k_sigma == 3
+    assert line.gradient_pct == pytest.approx(0.0015, rel=1e-12)
+    assert line.random_sigma_pct == pytest.approx(0.001, rel=1e-6)
+    assert line.dominant == "random"
+
+
+def test_monte_carlo_hessian_keeps_its_off_diagonal_term():
+    """A at (0, 0) and (1, -1) um, B at (1, 0) and (0, -1): the same centroid and the same
+    Mxx and Myy, second moments differing only in Mxy (+0.25 against -0.25 um^2), so
+    ||dM||_F^2 = 2 x 0.5^2 = 0.5 um^4. A symmetric Hessian with E||H||_F^2 = h^2 gives the
+    pair a variance h^2 ||dM||_F^2 / 12 (isotropy, as above): h = 4 ppm/um^2 makes the
+    standard deviation 4 sqrt(0.5 / 12) = 0.8165 ppm, all of it from the xy term."""
+    spec = parse_spec("[devices]\nA = 2\nB = 2\n[array]\npitch_um = [1.0, 1.0]\n"
+                      "[gradient]\nlinear_ppm_per_um = 0.0\nquadratic_ppm_per_um2 = 4.0\n"
+                      "[correlated]\nsigma_ppm = 0.0\n[mismatch]\na_param_pct_um = 1e-9\n"
+                      "[monte_carlo]\nsamples = 20000\nseed = 5\n", "s.toml")
+    pattern = parse_pattern("A B\nB A\n").reordered(spec.devices)
+    g = grade_pattern(pattern, spec)
+    want = 4.0 * np.sqrt(0.5 / 12.0)
+    assert g.monte_carlo is not None
+    assert g.monte_carlo.exact_std_ppm[0] == pytest.approx(want, rel=1e-6)
+    assert g.monte_carlo.std_ppm[0] == pytest.approx(want, rel=4 / np.sqrt(2 * 20000))

@@ -110,3 +110,20 @@ def test_the_named_limit_passes_for_estimates_just_past_a_whole_limit(seconds, m
     need = float(str(err.value).split("give --time-limit ")[1].split()[0])
     assert workload.allowed_seconds(need) >= seconds
     assert workload.allowed_seconds(need - 1) < seconds or need == 1
+
+
+def test_the_capacitor_budget_and_monte_carlo_terms_by_hand():
+    """A 4-bit array with its termination and the default 2000 budget samples: 2000 x
+    2^4 = 32 000 code samples, 6e-7 s and 4e-5 MB each (0.0192 s, 1.28 MB); and the
+    Monte Carlo's memory, 3.5e-5 MB per sampled unit squared (2048 units: 146.8 MB)."""
+    base = ("kind = \"cap\"\n[devices]\nCT = 1\nC0 = 1\nC1 = 2\nC2 = 4\nC3 = 8\n"
+            "[array]\nrows = 4\ncolumns = 4\n")
+    with_budget = parse_spec(base + "[electrical]\ntermination = \"CT\"\n", "c.toml")
+    plain = parse_spec(base, "c.toml")
+    a, b = workload.estimate(with_budget), workload.estimate(plain)
+    assert math.isclose(a.seconds - b.seconds, 6e-7 * 32_000, rel_tol=1e-9)
+    assert math.isclose(a.peak_mb - b.peak_mb, 4e-5 * 32_000, rel_tol=1e-9)
+    mc = parse_spec(MC_2048, "s.toml")
+    no_mc = parse_spec(MC_2048.split("[monte_carlo]")[0], "s.toml")
+    assert math.isclose(workload.estimate(mc).peak_mb - workload.estimate(no_mc).peak_mb,
+                        3.5e-5 * 2048 ** 2, rel_tol=1e-9)
