@@ -294,7 +294,8 @@ def test_no_coupling_means_no_dac_wiring_term():
 
 def test_mirror_wiring_term_scales_with_the_finger_current():
     """The wiring network is linear: every IR drop, and so every device's wiring term,
-    doubles when the current per finger doubles (superposition) -- checked on the
+    doubles when the current per finger doubles (superposition), and the drain drops enter
+    through channel-length modulation, linearly in lambda -- checked on the
     sample bias mirror, drawn once, at 10 and 20 uA a finger."""
     from dataclasses import replace
 
@@ -312,3 +313,9 @@ def test_mirror_wiring_term_scales_with_the_finger_current():
     assert any(abs(v) > 1e-9 for v in at10.values())
     for d in spec.devices:
         assert at20[d] == pytest.approx(2.0 * at10[d], rel=1e-9, abs=1e-15)
+    # the drain's IR drop enters through channel-length modulation, linearly in lambda
+    lam = {v: wiring_of(block, replace(e, lambda_per_v=v)).relative for v in (0.0, 0.1, 0.2)}
+    step = {d: lam[0.1][d] - lam[0.0][d] for d in spec.devices}
+    assert any(abs(v) > 1e-12 for v in step.values())
+    for d in spec.devices:
+        assert lam[0.2][d] - lam[0.0][d] == pytest.approx(2.0 * step[d], rel=1e-9, abs=1e-15)
