@@ -99,6 +99,7 @@ def test_reported_parasitics_agree_with_the_independent_checker(tmp_path, sample
         m = _coupling(measured, c.a, c.b)
         assert c.c_ff == pytest.approx(m["c_ff"], rel=1e-3, abs=1e-4), (c.a, c.b)
         assert c.facing_min_um == pytest.approx(m["facing_min_um"], abs=2e-3), (c.a, c.b)
+        assert c.facing_um == pytest.approx(m["facing_um"], abs=2e-3), (c.a, c.b)
 
 
 # ------------------------------------------------------------------------- matched routing
