@@ -269,3 +269,32 @@ def test_dac_wiring_term_is_the_hand_calculated_transfer_from_the_checkers_coupl
     assert bud.wiring_inl_lsb == pytest.approx(np.abs(inl).max(), rel=1e-2, abs=1e-7)
     assert bud.wiring_dnl_lsb == pytest.approx(np.abs(dnl).max(), rel=1e-2, abs=1e-7)
     assert bud.wiring_dnl_lsb > 1e-5          # the coupling is not the same per unit
+
+
+@pytest.mark.parametrize("sample", ["bias_mirror", "input_pair", "ref_ladder"])
+def test_the_netlists_lumped_capacitors_add_up_to_the_nets_figures(sample):
+    """Conservation: the capacitors the netlist places node by node must add up, per net,
+    to the net's ground capacitance, and per pair of nets to their coupling (the lumping
+    only decides where each part sits, never how much there is)."""
+    from placer.io.pattern import parse_pattern
+    from tests.helpers import SAMPLES
+
+    spec = load_spec(SAMPLES / f"{sample}.toml")
+    hand = SAMPLES / f"{sample}_hand.txt"
+    if hand.exists():
+        pattern = parse_pattern(hand.read_text()).reordered(spec.devices)
+    else:
+        pattern = arrange(spec, seed=0, time_limit_s=1.0).pattern
+    _, block = layout_of(pattern, spec)
+    par = block.parasitics
+    ground: dict[str, float] = defaultdict(float)
+    for net, _, c in par.node_ground:
+        ground[net] += c
+    for net, fig in par.nets.items():
+        assert ground[net] == pytest.approx(fig.ground_ff, rel=1e-9, abs=1e-12), net
+    pairs: dict[frozenset, float] = defaultdict(float)
+    for a, _, b, _, c in par.node_couplings:
+        pairs[frozenset((a, b))] += c
+    assert pairs
+    for c in par.couplings:
+        assert pairs[frozenset((c.a, c.b))] == pytest.approx(c.c_ff, rel=1e-9, abs=1e-12)
