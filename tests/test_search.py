@@ -579,3 +579,21 @@ def test_a_core_with_holes_must_buy_a_gain_that_matters_beside_the_random_error(
     assert res.core_shape == (8, 32)                                # 256 slots: full
     loose = arrange(parse_spec(text + "[search]\nhole_gain = 0.0\n"), seed=0, time_limit_s=8.0)
     assert loose.core_shape[0] * loose.core_shape[1] > 256          # the spare-slot core
+
+
+def test_the_weighted_objective_orders_by_linear_plus_quadratic_ppm():
+    """The weighted objective: keys order by linear (um) x gradient (ppm/um) + quadratic
+    (ppm) first. By hand at 10 ppm/um: a = 0.1 um and 2 ppm -> 3 ppm; b = 0 um and 5 ppm
+    -> 5 ppm; so a is better although its linear term is larger (lexicographically it is
+    worse). Progress is measured on the same sum."""
+    from placer.search._problem import Keys, Problem, compare, progressed
+
+    lex = Problem((2, 2), 1, 4, linear_ppm_per_um=10.0)
+    wtd = Problem((2, 2), 1, 4, linear_ppm_per_um=10.0, objective="weighted")
+    a = Keys(0.1, 2.0, (), 0.0, 5.0, 2)
+    b = Keys(0.0, 5.0, (), 0.0, 5.0, 2)
+    assert a.systematic_ppm(wtd) == pytest.approx(3.0, rel=1e-12)
+    assert compare(wtd, a, b) == -1 and compare(wtd, b, a) == 1
+    assert compare(lex, a, b) == 1
+    assert progressed(wtd, a, b, 1e-6) and not progressed(wtd, b, a, 1e-6)
+    assert progressed(lex, b, a, 1e-6) and not progressed(lex, a, b, 1e-6)
