@@ -322,6 +322,25 @@ def test_keys_of_a_baseline_equal_grade_with_an_offset_centre():
     assert keys.higher == ()
 
 
+@pytest.mark.parametrize("method", ["clustered", "interdigitated", "mirrored"])
+def test_higher_order_keys_equal_the_grades_moment_norms(method):
+    """cancel_order = 4: the search's third- and fourth-order keys (integer moment sums of
+    the compiled problem) equal the grade's |dM3| and |dM4| (float moments about the
+    centre), on an uneven pitch where every mixed term (u^2 v, u v^3 ...) counts."""
+    from placer.jobs.arrange import build_pattern
+
+    spec = parse_spec("[devices]\nA = 5\nB = 7\n[array]\nrows = 3\ncolumns = 4\n"
+                      'dummies = "none"\npitch_um = [1.5, 2.5]\n[gradient]\norder = 4\n'
+                      "[search]\ncancel_order = 4\n", "s.toml")
+    prob = problem_for(spec, 3, 4)
+    assign = baselines.BASELINES[method](prob)
+    keys = keys_of(prob, assign)
+    (pair,) = grade_pattern(build_pattern(spec, assign, 3, 4), spec).pairs
+    assert len(keys.higher) == 2
+    assert keys.higher == pytest.approx(pair.moment_norms[2:], rel=1e-12)
+    assert min(keys.higher) > 0
+
+
 # ---------------------------------------------------------------- ties and objectives
 
 def test_relative_ties_keep_the_quadratic_order():
