@@ -339,6 +339,13 @@ def test_higher_order_keys_equal_the_grades_moment_norms(method):
     assert len(keys.higher) == 2
     assert keys.higher == pytest.approx(pair.moment_norms[2:], rel=1e-12)
     assert min(keys.higher) > 0
+    # and the later keys: the correlated sigma, and the edge-share gap from the grade's
+    # device table (each device's share of units with an open side against the whole's)
+    grade = grade_pattern(build_pattern(spec, assign, 3, 4), spec)
+    assert keys.sigma_ppm == pytest.approx(pair.correlated_sigma_ppm, rel=1e-9)
+    share = sum(d.edge_units for d in grade.devices) / sum(d.units for d in grade.devices)
+    gap = max(abs(d.edge_units / d.units - share) for d in grade.devices)
+    assert keys.edge_imbalance == pytest.approx(gap, rel=1e-12, abs=1e-15)
 
 
 # ---------------------------------------------------------------- ties and objectives
