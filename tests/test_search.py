@@ -346,6 +346,10 @@ def test_higher_order_keys_equal_the_grades_moment_norms(method):
     share = sum(d.edge_units for d in grade.devices) / sum(d.units for d in grade.devices)
     gap = max(abs(d.edge_units / d.units - share) for d in grade.devices)
     assert keys.edge_imbalance == pytest.approx(gap, rel=1e-12, abs=1e-15)
+    # and the routing key: distinct devices per row of the 3 x 4 pattern, summed
+    pattern = build_pattern(spec, assign, 3, 4)
+    per_row = [len({d for d in row if d >= 0}) for row in pattern.ids.tolist()]
+    assert keys.tracks == sum(per_row)
 
 
 # ---------------------------------------------------------------- ties and objectives
