@@ -298,3 +298,79 @@ def test_the_netlists_lumped_capacitors_add_up_to_the_nets_figures(sample):
     assert pairs
     for c in par.couplings:
         assert pairs[frozenset((c.a, c.b))] == pytest.approx(c.c_ff, rel=1e-9, abs=1e-12)
+
+
+# ------------------------------------------------------ effective resistance, two solvers
+
+def _random_network(rng: np.random.Generator, n: int, loops: int):
+    """A random tree on ``n`` nodes plus ``loops`` extra resistors (some parallel, some of
+    zero ohms, one self-loop) and two nodes left unconnected."""
+    from placer.layout.parasitics import Network
+
+    edges = [(k, int(rng.integers(0, k))) for k in range(1, n - 2)]
+    edges += [tuple(int(v) for v in rng.integers(0, n - 2, size=2)) for _ in range(loops)]
+    edges += [edges[0], (3, 3)]
+    ohms = rng.uniform(0.1, 50.0, size=len(edges))
+    ohms[rng.random(len(edges)) < 0.1] = 0.0
+    return Network("N", n, np.array(edges, dtype=np.int64), ohms,
+                   np.zeros(len(edges), dtype=bool), 0, (), (), np.zeros((n, 2)))
+
+
+def _dense_resistances(nw, ground: int) -> dict[int, float]:
+    """R(v) = (L_g^-1)[v, v] of the grounded Laplacian (Kirchhoff; any circuit-analysis
+    text) by numpy's dense inverse, zero-ohm resistors first merged into one node each,
+    for every node connected to ``ground``."""
+    root = list(range(nw.n_nodes))
+
+    def find(v: int) -> int:
+        while root[v] != v:
+            v = root[v]
+        return v
+
+    for (i, j), r in zip(nw.edges.tolist(), nw.ohms, strict=True):
+        if r == 0.0:
+            root[find(i)] = find(j)
+    lap = np.zeros((nw.n_nodes, nw.n_nodes))
+    for (i, j), r in zip(nw.edges.tolist(), nw.ohms, strict=True):
+        a, b = find(i), find(j)
+        if r > 0.0 and a != b:
+            lap[a, a] += 1 / r
+            lap[b, b] += 1 / r
+            lap[a, b] -= 1 / r
+            lap[b, a] -= 1 / r
+    g = find(ground)
+    reach, todo = {g}, [g]
+    while todo:
+        v = todo.pop()
+        for u in np.flatnonzero(lap[v]).tolist():
+            if u not in reach:
+                reach.add(u)
+                todo.append(u)
+    keep = sorted(reach - {g})
+    inv = np.linalg.inv(lap[np.ix_(keep, keep)]).diagonal()
+    at = dict(zip(keep, inv.tolist(), strict=True))
+    return {v: at.get(find(v), 0.0) for v in range(nw.n_nodes) if find(v) in reach}
+
+
+@pytest.mark.parametrize("loops", [0, 1, 7, 40])
+def test_the_spanning_tree_solve_is_the_dense_inverse(monkeypatch, loops):
+    """Resistance from each node to the ground node by the tree-plus-loops (Woodbury)
+    solve, against the definition by a dense inverse (above); unconnected nodes are inf.
+    The sparse LU path the solver falls back to agrees where no resistor is zero (its
+    1e12 S for a zero-ohm resistor costs it digits: placer's networks merge those)."""
+    from dataclasses import replace
+
+    from placer.layout import parasitics as par
+
+    nw = _random_network(np.random.default_rng(loops), 60, loops)
+    want = _dense_resistances(nw, 0)
+    assert set(want) == set(range(58))
+    nodes = list(range(nw.n_nodes))
+    fast = par.effective_resistances(nw, nodes, 0)
+    assert fast[:58] == pytest.approx([want[v] for v in range(58)], rel=1e-9, abs=1e-9)
+    assert fast[58:] == [math.inf, math.inf]
+    positive = replace(nw, ohms=np.where(nw.ohms > 0, nw.ohms, 0.01))
+    fast = par.effective_resistances(positive, nodes, 0)
+    monkeypatch.setattr(par, "TREE_LOOPS", -1)              # the sparse LU path
+    assert par._tree_resistances(positive, 0) is None
+    assert par.effective_resistances(positive, nodes, 0) == pytest.approx(fast, rel=1e-9)

@@ -24,7 +24,6 @@ from the GDSII alone):
 
 from __future__ import annotations
 
-import bisect
 import math
 from collections import defaultdict
 from dataclasses import dataclass, field
@@ -201,8 +200,8 @@ def _net_network(net: str, wires: list[Rect], taps: list[tuple[int, Tap]],
     shorted: list[list[tuple[float, float]]] = [[] for _ in wires]
     pos: dict[int, tuple[float, float]] = {}
     for k, (_, t) in enumerate(taps):
-        cx = float(np.mean([p.centre[0] for p in t.pads]))
-        cy = float(np.mean([p.centre[1] for p in t.pads]))
+        cx = math.fsum(p.centre[0] for p in t.pads) / len(t.pads)
+        cy = math.fsum(p.centre[1] for p in t.pads) / len(t.pads)
         pos[pad_node[k]] = (cx, cy)
 
     def at(i: int, x: float, y: float) -> int:
@@ -362,6 +361,9 @@ def effective_resistances(nw: Network, nodes: list[int], ground: int) -> list[fl
 
     if not nodes:
         return []
+    fast = _tree_resistances(nw, ground)
+    if fast is not None:
+        return [float(fast[n]) for n in nodes]
     comp = _component(nw, ground)
     out = [math.inf] * len(nodes)
     keep = [k for k in range(nw.n_nodes) if comp[k] and k != ground]
@@ -383,6 +385,83 @@ def effective_resistances(nw: Network, nodes: list[int], ground: int) -> list[fl
         sol = lu.solve(rhs)
         for col, (k, row) in enumerate(block):
             out[k] = float(sol[row, col])
+    return out
+
+
+#: The spanning-tree solve takes networks of at most this many independent loops.
+TREE_LOOPS = 256
+
+
+def _tree_resistances(nw: Network, ground: int) -> NDArray[np.float64] | None:
+    """Every node's resistance to ``ground`` (inf where not connected), exactly, for a
+    network that is a tree plus a few loops; None past TREE_LOOPS loops.
+
+    On a spanning tree rooted at ground, the grounded Laplacian's inverse is
+    (L_T^-1)[x, y] = d(lca(x, y)), d being the path resistance from the root; the k edges
+    off the tree add B G B^T, and the Woodbury identity gives
+    R(v) = d(v) - phi(v)^T (G^-1 + B^T L_T^-1 B)^-1 phi(v) with phi(v) = B^T L_T^-1 e_v
+    (Golub & Van Loan, Matrix Computations, 4th ed., sec. 2.1.4). Zero-ohm resistors are
+    the 1e12 S of the LU path, so both solve the same network."""
+    from scipy.sparse import coo_matrix
+    from scipy.sparse.csgraph import breadth_first_order
+
+    n = nw.n_nodes
+    r = np.where(nw.ohms > 0, nw.ohms, 1e-12)
+    ei, ej = nw.edges[:, 0], nw.edges[:, 1]
+    adj = coo_matrix((np.ones(len(ei)), (ei, ej)), shape=(n, n)).tocsr()
+    order, pred = breadth_first_order(adj, ground, directed=False, return_predecessors=True)
+    reached = np.zeros(n, dtype=bool)
+    reached[order] = True
+    # one edge per tree link (the first of parallel ones); the rest close loops
+    lo, hi = np.minimum(ei, ej), np.maximum(ei, ej)
+    code = lo * n + hi
+    by_code = np.argsort(code, kind="stable")
+    child = order[1:]
+    tcode = np.minimum(child, pred[child]) * n + np.maximum(child, pred[child])
+    tree_edge = by_code[np.searchsorted(code[by_code], tcode)]
+    off = np.ones(len(ei), dtype=bool)
+    off[tree_edge] = False
+    off &= (ei != ej) & reached[ei] & reached[ej]
+    k = int(off.sum())
+    if k > TREE_LOOPS:
+        return None
+    # depth and path resistance, level by level from the root
+    d = np.full(n, np.inf)
+    d[ground] = 0.0
+    depth = np.zeros(n, dtype=np.int64)
+    r_up = np.zeros(n)
+    r_up[child] = r[tree_edge]
+    parent = np.where(reached, pred, -1)
+    parent[ground] = ground
+    for x in order[1:].tolist():                 # BFS order: parents first
+        p = parent[x]
+        depth[x] = depth[p] + 1
+    levels = np.argsort(depth[order], kind="stable")
+    by_level = order[levels]
+    cuts = np.flatnonzero(np.diff(depth[by_level])) + 1
+    groups = np.split(by_level, cuts)
+    for g in groups[1:]:
+        d[g] = d[parent[g]] + r_up[g]
+    if k == 0:
+        return d
+    a, b = ei[off], ej[off]
+    ends, inv = np.unique(np.concatenate([a, b]), return_inverse=True)
+    # f[p, x] = d(lca(x, end p)): d(x) on the end's root path, else the parent's value
+    on_path = np.zeros((len(ends), n), dtype=bool)
+    walk = ends.copy()
+    for _ in range(int(depth[ends].max()) + 1):
+        on_path[np.arange(len(ends)), walk] = True
+        walk = parent[walk]
+    f = np.zeros((len(ends), n))
+    for g in groups[1:]:
+        f[:, g] = np.where(on_path[:, g], d[g], f[:, parent[g]])
+    ia, ib = inv[:k], inv[k:]
+    phi = f[ia] - f[ib]                          # k x n
+    s_mat = np.diag(r[off]) + (phi[:, a] - phi[:, b])
+    z = np.linalg.solve(s_mat, phi[:, reached])
+    out = np.full(n, np.inf)
+    out[reached] = d[reached] - np.einsum("ij,ij->j", phi[:, reached], z)
+    out[ground] = 0.0
     return out
 
 
@@ -426,23 +505,30 @@ def _component(nw: Network, start: int) -> NDArray[np.bool_]:
 
 
 def _shapes(wiring: Wiring) -> tuple[NDArray[np.float64], NDArray[np.int64], list[str],
-                                     list[str], NDArray[np.int64], NDArray[np.int64]]:
+                                     list[str], NDArray[np.int64], NDArray[np.int64],
+                                     NDArray[np.int64], NDArray[np.int64]]:
     """Every metal shape for coupling: rectangles, layer (0 metal1, 1 metal2), net names,
-    net index and unit instance (-1 for a wire)."""
+    each shape's net, net index, unit instance (-1 for a wire) and source (a wire's index
+    in ``wiring.wires``; for a terminal's metal, -1 - the tap's index, with the pad's
+    index in the tap's pads beside it; -1 for a wire)."""
     rects: list[tuple[float, float, float, float]] = []
     layer: list[int] = []
     nets: list[str] = []
     inst: list[int] = []
+    src: list[int] = []
+    pad: list[int] = []
     slot_id: dict[tuple[int, int], int] = {}
-    for w in wiring.wires:
+    for k, w in enumerate(wiring.wires):
         rects.append((w.x0, w.y0, w.x1, w.y1))
         layer.append(0 if w.layer == "metal1" else 1)
         nets.append(w.net)
         inst.append(-1)
+        src.append(k)
+        pad.append(-1)
     seen: set[tuple[tuple[int, int], str, Rect]] = set()
-    for t in wiring.taps:
+    for ti, t in enumerate(wiring.taps):
         sid = slot_id.setdefault(t.slot, len(slot_id))
-        for p in t.pads:
+        for pi, p in enumerate(t.pads):
             if p.role not in ("metal1", "metal2") or (t.slot, t.net, p) in seen:
                 continue
             seen.add((t.slot, t.net, p))
@@ -450,11 +536,14 @@ def _shapes(wiring: Wiring) -> tuple[NDArray[np.float64], NDArray[np.int64], lis
             layer.append(0 if p.role == "metal1" else 1)
             nets.append(t.net)
             inst.append(sid)
+            src.append(-1 - ti)
+            pad.append(pi)
     names = sorted(set(nets))
     idx = {n: i for i, n in enumerate(names)}
     return (np.array(rects, dtype=float).reshape(-1, 4), np.array(layer, dtype=np.int64),
             names, nets, np.array([idx[n] for n in nets], dtype=np.int64),
-            np.array(inst, dtype=np.int64))
+            np.array(inst, dtype=np.int64), np.array(src, dtype=np.int64),
+            np.array(pad, dtype=np.int64))
 
 
 def _candidate_pairs(rects: NDArray[np.float64], reach: float) -> NDArray[np.int64]:
@@ -535,13 +624,13 @@ def extract(wiring: Wiring, routing: RoutingSpec, rules: Rules) -> Parasitics:
         for ti, r in zip(nw.tap_index, rs, strict=True):
             tap_r[ti] = r if math.isfinite(r) else None
     # capacitance
-    rects, layer, names, net_names, net_id, inst = _shapes(wiring)
+    rects, layer, names, net_names, net_id, inst, src, pad = _shapes(wiring)
     s_min = np.array([rules.metal1_space, rules.metal2_space])
     reach = REACH * float(s_min.max())
     pairs = _candidate_pairs(rects, reach)
     coup: dict[tuple[str, str], list[float]] = defaultdict(lambda: [0.0, 0.0, 0.0, 0.0])
     node_c: dict[tuple[str, int, str, int], float] = defaultdict(float)
-    lumps = _Lumps(networks, strips, wiring)
+    lumps = _Lumps(networks, strips, wiring, src, pad)
     if len(pairs):
         i, j = pairs[:, 0], pairs[:, 1]
         keep = (net_id[i] != net_id[j]) & ~((inst[i] >= 0) & (inst[i] == inst[j]))
@@ -583,8 +672,8 @@ def extract(wiring: Wiring, routing: RoutingSpec, rules: Rules) -> Parasitics:
         # lumped onto the nearest node of each shape (the netlist's capacitors)
         mx = (np.maximum(a[:, 0], b[:, 0]) + np.minimum(a[:, 2], b[:, 2])) / 2
         my = (np.maximum(a[:, 1], b[:, 1]) + np.minimum(a[:, 3], b[:, 3])) / 2
-        n1 = lumps.nodes(i, net_names, inst, rects, mx, my)
-        n2 = lumps.nodes(j, net_names, inst, rects, mx, my)
+        n1 = lumps.nodes(i, mx, my)
+        n2 = lumps.nodes(j, mx, my)
         g1 = np.where(first, net_id[i], net_id[j])
         m1 = np.where(first, n1, n2)
         g2 = np.where(first, net_id[j], net_id[i])
@@ -637,76 +726,98 @@ def order_key(net: str, order: list[str]) -> tuple[int, str]:
         return (len(order), net)
 
 
-def _key(r: NDArray[np.float64] | Rect) -> tuple[int, int, int, int]:
-    """A rectangle as whole nanometres, for lookups."""
-    if isinstance(r, Rect):
-        r = np.array([r.x0, r.y0, r.x1, r.y1])
-    return tuple(int(round(float(v) * 1000)) for v in r)  # type: ignore[return-value]
-
-
 class _Lumps:
     """Where a coupling on a shape lumps: the node of a unit's metal, or a wire's nearest
-    connection point (the netlist's capacitors)."""
+    connection point (the netlist's capacitors). A shape is known by its source (see
+    :func:`_shapes`); a pad drawn alike for two terminals of one net, or a wire drawn
+    twice, lumps on the first."""
 
-    def __init__(self, par_networks: dict[str, Network],
+    def __init__(self, networks: dict[str, Network],
                  strips: dict[str, list[tuple[Rect, list[tuple[float, int]]]]],
-                 wiring: Wiring) -> None:
-        self.pad: dict[tuple[str, tuple[int, int, int, int]], int] = {}
-        for net, nw in par_networks.items():
+                 wiring: Wiring, src: NDArray[np.int64], pad: NDArray[np.int64]) -> None:
+        pad_node: dict[tuple[str, Rect], int] = {}
+        for net, nw in networks.items():
             for ti, node in zip(nw.tap_index, nw.tap_nodes, strict=True):
                 for p in wiring.taps[ti].pads:
-                    self.pad.setdefault((net, _key(p)), node)
-        self.strip: dict[tuple[str, tuple[int, int, int, int]],
-                         tuple[Rect, list[tuple[float, int]], list[float]]] = {}
-        for net, kept in strips.items():
-            for w, ev in kept:
-                if ev:       # events are sorted along the strip
-                    self.strip.setdefault((net, _key(w)), (w, ev, [e[0] for e in ev]))
-        self.networks = par_networks
+                    pad_node.setdefault((net, p), node)
+        # every wire's events, in wiring.wires order (extract keeps each net's in it)
+        first: dict[tuple[str, Rect], int] = {}
+        kept_of: list[tuple[Rect, list[tuple[float, int]]]] = []
+        seen_net: dict[str, int] = defaultdict(int)
+        for k, w in enumerate(wiring.wires):
+            kept_of.append(strips[w.net][seen_net[w.net]])
+            seen_net[w.net] += 1
+            if kept_of[-1][1]:
+                first.setdefault((w.net, w.rect), k)
+        # per shape: a fixed node (a pad), a strip (its events) or neither (-1, -1)
+        self.fixed = np.full(len(src), -1, dtype=np.int64)
+        self.strip = np.full(len(src), -1, dtype=np.int64)
+        starts: list[int] = []
+        cuts: list[float] = []
+        nodes: list[int] = []
+        along: list[int] = []
+        strip_of_wire: dict[int, int] = {}
+        for s_i, code in enumerate(src.tolist()):
+            if code < 0:
+                t = wiring.taps[-1 - code]
+                self.fixed[s_i] = pad_node.get((t.net, t.pads[int(pad[s_i])]), -1)
+                continue
+            w = wiring.wires[code]
+            k = first.get((w.net, w.rect), -1)
+            if k < 0:
+                continue
+            w0, ev = kept_of[k]
+            if k not in strip_of_wire:
+                strip_of_wire[k] = len(starts)
+                starts.append(len(cuts))
+                cuts.extend(e[0] for e in ev)
+                nodes.extend(e[1] for e in ev)
+                along.append(_axis(w0))
+            self.strip[s_i] = strip_of_wire[k]
+        self.starts = np.array(starts + [len(cuts)], dtype=np.int64)
+        self.cuts = np.array(cuts, dtype=float)
+        self.cut_nodes = np.array(nodes, dtype=np.int64)
+        self.along = np.array(along, dtype=np.int64)
+        self.networks = networks
+        self.wiring = wiring
+        self.src = src
 
-    def nodes(self, idx: NDArray[np.int64], net_names: list[str], inst: NDArray[np.int64],
-              rects: NDArray[np.float64], xs: NDArray[np.float64], ys: NDArray[np.float64]
-              ) -> NDArray[np.int64]:
-        """:meth:`node` for many couplings at once: shape ``idx[k]`` at (xs[k], ys[k])."""
+    def nodes(self, idx: NDArray[np.int64], xs: NDArray[np.float64],
+              ys: NDArray[np.float64]) -> NDArray[np.int64]:
+        """The node each coupling lumps on: shape ``idx[k]`` at (xs[k], ys[k])."""
         out = np.zeros(len(idx), dtype=np.int64)
         if not len(idx):
             return out
-        order = np.argsort(idx, kind="stable")
-        for grp in np.split(order, np.flatnonzero(np.diff(idx[order])) + 1):
-            shape = int(idx[grp[0]])
-            net = net_names[shape]
-            k = _key(rects[shape])
-            if inst[shape] >= 0 and (net, k) in self.pad:
-                out[grp] = self.pad[net, k]
-                continue
-            hit = self.strip.get((net, k))
-            if hit is None:
-                for g in grp.tolist():
-                    out[g] = self.node(net, int(inst[shape]), rects[shape], float(xs[g]),
-                                       float(ys[g]))
-                continue
-            w, ev, cuts = hit
-            at = xs[grp] if _axis(w) == 0 else ys[grp]
-            cut = np.asarray(cuts)
-            q = np.searchsorted(cut, at, side="left")
-            lo = np.clip(q - 1, 0, len(cut) - 1)
-            hi = np.clip(q, 0, len(cut) - 1)
-            pick = np.where(np.abs(cut[lo] - at) <= np.abs(cut[hi] - at), lo, hi)
-            out[grp] = np.array([e[1] for e in ev], dtype=np.int64)[pick]
+        fixed = self.fixed[idx]
+        strip = self.strip[idx]
+        out[fixed >= 0] = fixed[fixed >= 0]
+        on = np.flatnonzero((fixed < 0) & (strip >= 0))
+        if len(on):
+            s = strip[on]
+            at = np.where(self.along[s] == 0, xs[on], ys[on])
+            lo_b, hi_b = self.starts[s], self.starts[s + 1]
+            # the first cut at or after ``at`` within each strip's (sorted) cuts
+            q = lo_b.copy()
+            span = hi_b - lo_b
+            while True:
+                step = span // 2
+                if not np.any(span > 0):
+                    break
+                mid = q + step
+                go = (span > 0) & (self.cuts[np.minimum(mid, len(self.cuts) - 1)] < at)
+                q = np.where(go, mid + 1, q)
+                span = np.where(go, span - step - 1, step)
+            lo = np.clip(q - 1, lo_b, hi_b - 1)
+            hi = np.clip(q, lo_b, hi_b - 1)
+            pick = np.where(np.abs(self.cuts[lo] - at) <= np.abs(self.cuts[hi] - at), lo, hi)
+            out[on] = self.cut_nodes[pick]
+        for g in np.flatnonzero((fixed < 0) & (strip < 0)).tolist():
+            out[g] = self._nearest(int(idx[g]), float(xs[g]), float(ys[g]))
         return out
 
-    def node(self, net: str, inst: int, rect: NDArray[np.float64], x: float, y: float
-             ) -> int:
-        k = _key(rect)
-        if inst >= 0 and (net, k) in self.pad:
-            return self.pad[net, k]
-        hit = self.strip.get((net, k))
-        if hit is not None:
-            w, ev, cuts = hit
-            at = x if _axis(w) == 0 else y
-            q = bisect.bisect_left(cuts, at)
-            near = [c for c in (q - 1, q) if 0 <= c < len(ev)]
-            return ev[min(near, key=lambda c: abs(cuts[c] - at))][1]
+    def _nearest(self, shape: int, x: float, y: float) -> int:
+        code = int(self.src[shape])
+        net = (self.wiring.taps[-1 - code].net if code < 0 else self.wiring.wires[code].net)
         nw = self.networks[net]
         if nw.n_nodes:
             return int(np.argmin(np.hypot(nw.xy[:, 0] - x, nw.xy[:, 1] - y)))
