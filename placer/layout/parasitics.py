@@ -330,12 +330,12 @@ def _tap_resistances(nw: Network) -> list[float]:
     """Each tap's resistance to the pin: exact for every tap of a net of at most
     EXACT_TAPS terminal nodes; on a larger net for the FARTHEST_TAPS nodes with the largest
     path resistance to the pin (where the net's worst lies), NaN for the rest."""
-    from scipy.sparse import coo_matrix
-    from scipy.sparse.csgraph import dijkstra
-
     assert nw.pin is not None
     uniq = sorted(set(nw.tap_nodes))
     if len(uniq) > EXACT_TAPS:
+        from scipy.sparse import coo_matrix
+        from scipy.sparse.csgraph import dijkstra
+
         n = nw.n_nodes
         w = nw.ohms + 1e-9                     # csgraph drops explicit zero weights
         adj = coo_matrix((w, (nw.edges[:, 0], nw.edges[:, 1])), shape=(n, n)).tocsr()
@@ -357,13 +357,13 @@ def effective_resistances(nw: Network, nodes: list[int], ground: int) -> list[fl
     >>> effective_resistances(nw, [1, 2], 0)
     [2.0, 5.0]
     """
-    import scipy.sparse.linalg as spl
-
     if not nodes:
         return []
     fast = _tree_resistances(nw, ground)
     if fast is not None:
         return [float(fast[n]) for n in nodes]
+    import scipy.sparse.linalg as spl
+
     comp = _component(nw, ground)
     out = [math.inf] * len(nodes)
     keep = [k for k in range(nw.n_nodes) if comp[k] and k != ground]
@@ -388,6 +388,28 @@ def effective_resistances(nw: Network, nodes: list[int], ground: int) -> list[fl
     return out
 
 
+def _breadth_first(n: int, ei: NDArray[np.int64], ej: NDArray[np.int64], root: int
+                   ) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
+    """Nodes reached from ``root`` in breadth-first order, and each one's predecessor
+    (-1 for the root and the unreached), over undirected edges (ei, ej)."""
+    a = np.concatenate([ei, ej])
+    b = np.concatenate([ej, ei])
+    srt = np.argsort(a, kind="stable")
+    nbr = b[srt].tolist()
+    start = np.searchsorted(a[srt], np.arange(n + 1)).tolist()
+    pred = [-1] * n
+    seen = [False] * n
+    seen[root] = True
+    order = [root]
+    for x in order:                    # grows as it goes: a queue
+        for y in nbr[start[x]:start[x + 1]]:
+            if not seen[y]:
+                seen[y] = True
+                pred[y] = x
+                order.append(y)
+    return np.array(order, dtype=np.int64), np.array(pred, dtype=np.int64)
+
+
 #: The spanning-tree solve takes networks of at most this many independent loops.
 TREE_LOOPS = 256
 
@@ -402,14 +424,10 @@ def _tree_resistances(nw: Network, ground: int) -> NDArray[np.float64] | None:
     R(v) = d(v) - phi(v)^T (G^-1 + B^T L_T^-1 B)^-1 phi(v) with phi(v) = B^T L_T^-1 e_v
     (Golub & Van Loan, Matrix Computations, 4th ed., sec. 2.1.4). Zero-ohm resistors are
     the 1e12 S of the LU path, so both solve the same network."""
-    from scipy.sparse import coo_matrix
-    from scipy.sparse.csgraph import breadth_first_order
-
     n = nw.n_nodes
     r = np.where(nw.ohms > 0, nw.ohms, 1e-12)
     ei, ej = nw.edges[:, 0], nw.edges[:, 1]
-    adj = coo_matrix((np.ones(len(ei)), (ei, ej)), shape=(n, n)).tocsr()
-    order, pred = breadth_first_order(adj, ground, directed=False, return_predecessors=True)
+    order, pred = _breadth_first(n, ei, ej, ground)
     reached = np.zeros(n, dtype=bool)
     reached[order] = True
     # one edge per tree link (the first of parallel ones); the rest close loops
