@@ -193,3 +193,19 @@ def test_round_trip_of_graded_pattern_text():
     """The writer's output parses back to the same pattern (format round trip)."""
     p = parse_pattern("A> B<\n. -\n")
     assert parse_pattern(format_pattern(p)) == p
+
+
+@pytest.mark.parametrize("n", [2, 5, 40, 256, 300])
+def test_spanning_tree_length_is_scipys_minimum_spanning_tree(n):
+    """The routing estimate's tree length (dense Prim up to DENSE_PRIM_MAX points, scipy
+    on all pairs above) against scipy's minimum_spanning_tree over every pair written
+    here, an independent reference implementation."""
+    from scipy.sparse.csgraph import minimum_spanning_tree
+
+    from placer.model.routing_estimate import spanning_tree_length
+
+    rng = np.random.default_rng(n)
+    pts = np.unique(np.round(rng.uniform(0, 40, size=(n, 2)), 1), axis=0)
+    d = np.hypot(pts[:, None, 0] - pts[None, :, 0], pts[:, None, 1] - pts[None, :, 1])
+    want = float(minimum_spanning_tree(np.triu(d)).sum())
+    assert spanning_tree_length(pts) == pytest.approx(want, rel=1e-12)

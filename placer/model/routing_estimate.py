@@ -145,6 +145,27 @@ def diffusion_breaks(ids: NDArray[np.int_], orient: NDArray[np.int8],
 ALL_PAIRS_MAX = 1500
 
 
+#: Up to this many points, Prim's algorithm on the dense distances (no graph library to
+#: load: small blocks start faster).
+DENSE_PRIM_MAX = 256
+
+
+def _prim(pts: NDArray[np.float64]) -> float:
+    """Minimum spanning tree length by Prim's algorithm on all pairwise distances
+    (Cormen et al., Introduction to Algorithms, 3rd ed., sec. 23.2)."""
+    n = len(pts)
+    best = np.hypot(*(pts - pts[0]).T)
+    done = np.zeros(n, dtype=bool)
+    done[0] = True
+    total = 0.0
+    for _ in range(n - 1):
+        k = int(np.argmin(np.where(done, np.inf, best)))
+        total += float(best[k])
+        done[k] = True
+        best = np.minimum(best, np.hypot(*(pts - pts[k]).T))
+    return total
+
+
 def spanning_tree_length(pts: NDArray[np.float64]) -> float:
     """Length (um) of the Euclidean minimum spanning tree of ``pts`` (n, 2).
 
@@ -153,12 +174,14 @@ def spanning_tree_length(pts: NDArray[np.float64]) -> float:
     >>> spanning_tree_length(np.array([[0.0, 0.0], [3.0, 0.0], [3.0, 4.0]]))
     7.0
     """
-    from scipy.sparse import coo_matrix
-    from scipy.sparse.csgraph import minimum_spanning_tree
-
     n = len(pts)
     if n < 2:
         return 0.0
+    if n <= DENSE_PRIM_MAX:
+        return _prim(pts)
+    from scipy.sparse import coo_matrix
+    from scipy.sparse.csgraph import minimum_spanning_tree
+
     if n <= ALL_PAIRS_MAX:
         i, j = np.triu_indices(n, 1)
     else:
