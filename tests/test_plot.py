@@ -185,3 +185,28 @@ def test_the_unit_share_picture_of_a_layout_with_no_linear_error_says_so(monkeyp
     assert "no pair has a linear error" in title and "error error" not in title
     names = sorted(t.get_text() for t in figs[0].axes[0].texts)
     assert names == ["A"] * 4 + ["B"] * 4
+
+
+def test_finger_arrows_are_one_artist_pointing_each_fingers_way():
+    """Every oriented finger gets an arrow (source to drain side: common practice) in
+    one artist, centred low in its unit, pointing the way its orientation says; none on
+    a dummy."""
+    from matplotlib.quiver import Quiver
+
+    pattern = parse_pattern(". A> B< A< B> .\n. B> A> B< A< .\n")
+    pitch = (2.0, 6.0)
+    fig = Figure(figsize=(8, 6), dpi=100)
+    FigureCanvasAgg(fig)
+    ax = fig.add_subplot()
+    draw_pattern(ax, pattern, pitch, None, markers=False)
+    quivers = [c for c in ax.collections if isinstance(c, Quiver)]
+    assert len(quivers) == 1
+    q = quivers[0]
+    rr, cc = np.nonzero(pattern.ids >= 0)
+    tails = q.get_offsets()
+    assert len(tails) == len(rr) == 8
+    for (x, y), u, r, c in zip(tails, q.U, rr, cc, strict=True):
+        o = pattern.orient[r, c]
+        assert np.sign(u) == o
+        assert x + u / 2 == pytest.approx(c * pitch[0])     # centred on its slot
+        assert -(r + 0.5) * pitch[1] < y < -r * pitch[1]    # in the unit's lower half

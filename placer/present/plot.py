@@ -180,24 +180,24 @@ def draw_pattern(ax: Any, pattern: Pattern, pitch_um: tuple[float, float],
     if names is None:
         names = fs >= 3.5
     arrows = arrows and min(cell_w, cell_h) >= 6.0     # smaller arrows are noise (and slow)
-    if names or arrows:
+    if names:
         for r in range(rows):
             for c in range(cols):
                 d = int(pattern.ids[r, c])
-                if d < 0:
-                    continue
-                x, y = c * px, -r * py
-                if names:
-                    ax.text(x + ox + w / 2, y + oy + 0.75 * h, pattern.devices[d],
+                if d >= 0:
+                    ax.text(c * px + ox + w / 2, -r * py + oy + 0.75 * h, pattern.devices[d],
                             ha="center", va="center",
                             fontsize=fs, color="black", zorder=3, clip_on=True,
                             rotation=90 if upright else 0)
-                o = int(pattern.orient[r, c])
-                if arrows and o:
-                    xc, ya = x + ox + w / 2, y + oy + 0.2 * h
-                    ax.annotate("", xy=(xc + 0.3 * o * w, ya), xytext=(xc - 0.3 * o * w, ya),
-                                arrowprops={"arrowstyle": "->", "lw": 0.8, "color": "black"},
-                                zorder=3)
+    if arrows:
+        # every finger's arrow in one artist (one per unit would cost a draw each)
+        rr, cc = np.nonzero((pattern.ids >= 0) & (pattern.orient != 0))
+        if len(rr):
+            o = pattern.orient[rr, cc].astype(float)
+            ax.quiver(cc * px + ox + w / 2 - 0.3 * o * w, -rr * py + oy + 0.2 * h,
+                      0.6 * o * w, np.zeros_like(o), angles="xy", scale_units="xy", scale=1,
+                      color="black", width=0.0035, headwidth=4.5, headlength=5,
+                      headaxislength=4.5, zorder=3)
     if moved:
         pad = 0.04 * min(px, py)
         ax.add_collection(PatchCollection(
