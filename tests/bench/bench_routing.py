@@ -1,7 +1,8 @@
 """Benchmark of routing: time and area of the routed block at 64, 256, 1024 and 4096 units.
 
 For each size: a binary-weighted capacitor array and a mirror (1:1:2) in a seeded random
-order inside a ring of dummies, at the pitch its routing needs. Times are the best of
+order inside a ring of dummies (and the 6-bit array without one), at the pitch its
+routing needs. Times are the best of
 ``--repeat`` runs of each step (pitch fit, route, parasitic extraction); beside them the
 share of that layout work in a whole ``placer arrange`` of the same spec with
 ``--time-limit 5`` (search, grading, routing, files; one run in a fresh process).
@@ -34,13 +35,14 @@ from placer.layout.router import route
 SIZES = (64, 256, 1024, 4096)
 
 
-def _cap_spec(n: int):
+def _cap_spec(n: int, ring: bool = True):
     bits = int(np.log2(n))
     counts = [1, 1, *(2 ** b for b in range(1, bits))]
     names = ["CT", *(f"C{i}" for i in range(len(counts) - 1))]
     text = ('name = "bench_cap"\nkind = "cap"\n[devices]\n'
             + "".join(f"{a} = {c}\n" for a, c in zip(names, counts, strict=True))
-            + '[array]\ndummies = "ring"\n[unit]\nwidth_um = 5.0\nlength_um = 5.0\n')
+            + f'[array]\ndummies = "{"ring" if ring else "none"}"\n[unit]\nwidth_um = 5.0\n'
+            'length_um = 5.0\n')
     return parse_spec(text, "bench_cap.toml"), counts, text
 
 
@@ -52,11 +54,12 @@ def _mos_spec(n: int):
     return parse_spec(text, "bench_mirror.toml"), counts, text
 
 
-def _pattern(spec, counts):
+def _pattern(spec, counts, ring: bool = True):
     side = int(round(np.sqrt(sum(counts))))
     ids = np.random.default_rng(0).permutation(
         np.repeat(np.arange(len(counts)), counts)).reshape(side, side)
-    ids = np.pad(ids, 1, constant_values=-1)
+    if ring:
+        ids = np.pad(ids, 1, constant_values=-1)
     orient = np.where(ids >= 0, 1, 0).astype(np.int8)
     return Pattern(spec.devices, ids, orient)
 
@@ -78,38 +81,40 @@ def main() -> int:
     rows = ["| block | units | fit s | route s | extract s | arrange s | layout share | "
             "block um | units fill |",
             "|---|---|---|---|---|---|---|---|---|"]
-    for kind, make in (("capacitor array", _cap_spec), ("mirror 1:1:2", _mos_spec)):
-        for n in SIZES:
-            spec, counts, text = make(n)
-            pattern = _pattern(spec, counts)
-            rules = load_rules(spec.kind)
-            t_fit, spec_f = _time(lambda s=spec, p=pattern, r=rules: fitted(p, s, r),
-                                  args.repeat)
-            cell = unit_cell(spec.kind, spec.unit.width_um, spec.unit.length_um,
-                             spec_f.array.pitch_um[0], rules)
-            t_route, wiring = _time(lambda p=pattern, s=spec_f, r=rules, c=cell:
-                                    route(p, s, r, c), args.repeat)
-            t_ext, _ = _time(lambda w=wiring, s=spec_f, r=rules: extract(w, s.routing, r),
-                             args.repeat)
-            spec_t, tools = load_tools(spec)
-            area = area_of(prepare(pattern, spec_t, tools))
-            w, h = wiring.size_um
-            with tempfile.TemporaryDirectory() as tmp:
-                path = Path(tmp) / "s.toml"
-                path.write_text(text)
-                t0 = time.perf_counter()
-                subprocess.run([sys.executable, "-m", "placer", "arrange", str(path), "--out",
-                                str(Path(tmp) / "o"), "--time-limit", "5", "--quiet"],
-                               check=True, capture_output=True)
-                t_arr = time.perf_counter() - t0
-            share = (t_fit + t_route + t_ext) / t_arr
-            rows.append(f"| {kind} | {n} | {t_fit:.2f} | {t_route:.2f} | {t_ext:.2f} | "
-                        f"{t_arr:.1f} | {100 * share:.0f}% | {w:.0f} x {h:.0f} | "
-                        f"{100 * area.unit_fraction:.1f}% |")
-            print(rows[-1], flush=True)
+    cases = ([("capacitor array", _cap_spec, n, True) for n in SIZES]
+             + [("capacitor array, no ring", _cap_spec, 64, False)]
+             + [("mirror 1:1:2", _mos_spec, n, True) for n in SIZES])
+    for kind, make, n, ring in cases:
+        spec, counts, text = make(n) if ring else make(n, ring=False)
+        pattern = _pattern(spec, counts, ring)
+        rules = load_rules(spec.kind)
+        t_fit, spec_f = _time(lambda s=spec, p=pattern, r=rules: fitted(p, s, r),
+                              args.repeat)
+        cell = unit_cell(spec.kind, spec.unit.width_um, spec.unit.length_um,
+                         spec_f.array.pitch_um[0], rules)
+        t_route, wiring = _time(lambda p=pattern, s=spec_f, r=rules, c=cell:
+                                route(p, s, r, c), args.repeat)
+        t_ext, _ = _time(lambda w=wiring, s=spec_f, r=rules: extract(w, s.routing, r),
+                         args.repeat)
+        spec_t, tools = load_tools(spec)
+        area = area_of(prepare(pattern, spec_t, tools))
+        w, h = wiring.size_um
+        with tempfile.TemporaryDirectory() as tmp:
+            path = Path(tmp) / "s.toml"
+            path.write_text(text)
+            t0 = time.perf_counter()
+            subprocess.run([sys.executable, "-m", "placer", "arrange", str(path), "--out",
+                            str(Path(tmp) / "o"), "--time-limit", "5", "--quiet"],
+                           check=True, capture_output=True)
+            t_arr = time.perf_counter() - t0
+        share = (t_fit + t_route + t_ext) / t_arr
+        rows.append(f"| {kind} | {n} | {t_fit:.2f} | {t_route:.2f} | {t_ext:.2f} | "
+                    f"{t_arr:.1f} | {100 * share:.0f}% | {w:.0f} x {h:.0f} | "
+                    f"{100 * area.unit_fraction:.1f}% |")
+        print(rows[-1], flush=True)
     head = (f"Machine: {platform.machine()}, {os.cpu_count()} CPUs, Python "
             f"{platform.python_version()}; `python tests/bench/bench_routing.py` (best of "
-            f"{args.repeat}; seeded random arrangements in a ring of dummies).")
+            f"{args.repeat}; seeded random arrangements, in a ring of dummies unless marked).")
     table = head + "\n\n" + "\n".join(rows)
     print(table)
     if args.update_readme:
