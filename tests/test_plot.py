@@ -210,3 +210,32 @@ def test_finger_arrows_are_one_artist_pointing_each_fingers_way():
         assert np.sign(u) == o
         assert x + u / 2 == pytest.approx(c * pitch[0])     # centred on its slot
         assert -(r + 0.5) * pitch[1] < y < -r * pitch[1]    # in the unit's lower half
+
+
+def test_each_unit_carries_its_devices_name():
+    """A name per unit, in the upper part of the unit and centred across it: one
+    collection of the name's glyph outlines (matplotlib's TextPath of the name) per
+    device, placed at that device's units and nowhere else."""
+    from matplotlib.collections import PathCollection
+    from matplotlib.textpath import TextPath
+
+    pattern = parse_pattern(". A> BB< A< BB> .\n. BB> A> BB< A< .\n")
+    pitch = (2.0, 6.0)
+    fig = Figure(figsize=(8, 6), dpi=100)
+    FigureCanvasAgg(fig)
+    ax = fig.add_subplot()
+    draw_pattern(ax, pattern, pitch, None, markers=False, names=True)
+    glyphs = [c for c in ax.collections if isinstance(c, PathCollection)]
+    assert len(glyphs) == 2
+    for d, name in enumerate(pattern.devices):
+        want = {(round(c * pitch[0], 6), r) for r, c in zip(*np.nonzero(pattern.ids == d),
+                                                             strict=True)}
+        hit = [g for g in glyphs
+               if len(g.get_paths()[0].vertices) == len(TextPath((0, 0), name).vertices)]
+        assert len(hit) == 1, name
+        offsets = hit[0].get_offsets()
+        got = {(round(x, 6), int(np.floor(-y / pitch[1] + 0.5))) for x, y in offsets}
+        assert got == want, name
+        for _, y in offsets:                 # the upper part: above the unit's centre
+            r = round(-y / pitch[1])
+            assert 0.0 < y + r * pitch[1] < 0.5 * pitch[1]

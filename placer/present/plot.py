@@ -181,14 +181,9 @@ def draw_pattern(ax: Any, pattern: Pattern, pitch_um: tuple[float, float],
         names = fs >= 3.5
     arrows = arrows and min(cell_w, cell_h) >= 6.0     # smaller arrows are noise (and slow)
     if names:
-        for r in range(rows):
-            for c in range(cols):
-                d = int(pattern.ids[r, c])
-                if d >= 0:
-                    ax.text(c * px + ox + w / 2, -r * py + oy + 0.75 * h, pattern.devices[d],
-                            ha="center", va="center",
-                            fontsize=fs, color="black", zorder=3, clip_on=True,
-                            rotation=90 if upright else 0)
+        rr, cc = np.nonzero(pattern.ids >= 0)
+        _names(ax, cc * px + ox + w / 2, -rr * py + oy + 0.75 * h,
+               [pattern.devices[d] for d in pattern.ids[rr, cc]], fs, upright)
     if arrows:
         # every finger's arrow in one artist (one per unit would cost a draw each)
         rr, cc = np.nonzero((pattern.ids >= 0) & (pattern.orient != 0))
@@ -236,6 +231,36 @@ def draw_pattern(ax: Any, pattern: Pattern, pitch_um: tuple[float, float],
                             arrowprops={"arrowstyle": "-", "lw": 0.5, "color": "black"})
     ax.set_xlabel("x (um)")
     ax.set_ylabel("y (um)")
+
+
+def _names(ax: Any, xs: NDArray[np.float64], ys: NDArray[np.float64], labels: list[str],
+           size_pt: float, upright: bool) -> None:
+    """Each label centred at its (x, y) in data units, ``size_pt`` high: one collection of
+    glyph outlines per distinct label (a text artist per unit would cost a layout and a
+    draw each; the outlines are drawn once and placed at every offset)."""
+    from matplotlib.collections import PathCollection
+    from matplotlib.font_manager import FontProperties
+    from matplotlib.path import Path as MPath
+    from matplotlib.textpath import TextPath
+    from matplotlib.transforms import Affine2D
+
+    fig = ax.get_figure()
+    points = Affine2D().scale(1 / 72) + fig.dpi_scale_trans     # path units: points
+    font = FontProperties(family="DejaVu Sans")
+    where: dict[str, list[int]] = {}
+    for k, label in enumerate(labels):
+        where.setdefault(label, []).append(k)
+    for label, ks in where.items():
+        glyphs = TextPath((0, 0), label, size=size_pt, prop=font)
+        v = glyphs.vertices
+        (x0, y0), (x1, y1) = v.min(axis=0), v.max(axis=0)
+        v = v - [(x0 + x1) / 2, (y0 + y1) / 2]
+        if upright:
+            v = v @ np.array([[0.0, 1.0], [-1.0, 0.0]])        # a quarter turn left
+        path = MPath(v, glyphs.codes)
+        ax.add_collection(PathCollection(
+            [path], offsets=np.column_stack([xs[ks], ys[ks]]), offset_transform=ax.transData,
+            transform=points, facecolors="black", edgecolors="none", zorder=3))
 
 
 def _raster(ax: Any, pattern: Pattern, pitch_um: tuple[float, float],
