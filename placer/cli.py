@@ -463,10 +463,11 @@ def batch(paths: tuple[Path, ...], out_dir: Path, time_limit: float, seed: int,
                    "candidate-K.txt/.png.")
 @click.option("--time-limit", "time_limit", type=_TIME,
               default=60.0, show_default=True,
-              help="Safety cap on the search in seconds; the search usually ends sooner. "
-                   "A block whose other work (scoring, routing, pictures) is estimated "
-                   "at more than 3 x this + 5 s is refused at once, naming the limit it "
-                   "needs.")
+              help="Limit on the whole run in seconds: the search gets what start-up and "
+                   "the estimated work after it (scoring, routing, files) leave, at least "
+                   "a quarter of it, and usually ends sooner. A block whose other work is "
+                   "estimated at more than 3 x this + 5 s is refused at once, naming the "
+                   "limit it needs.")
 @click.option("--seed", type=_SEED, default=0, show_default=True,
               help="Random seed; the same spec, seed and time limit give the same "
                    "result.")
@@ -491,9 +492,11 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
     (pattern.png, pattern.svg) and, with an [electrical] table, the budget picture
     (budget.png).
     """
+    from placer import _entry
     from placer.layout import block as drawing
     from placer.layout.router import RouteError
 
+    started = _entry.STARTED if _entry.STARTED is not None else time.monotonic()
     spec = load_spec(spec_path)
     workload.check(spec, str(spec_path), time_limit)
     note = None
@@ -508,8 +511,13 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
     names = outputs.arrange_names(spec, n_candidates, drawn=tools is not None)
     with OutputSet(out_dir, names, force, outputs.ARRANGE_FILES) as out:
         progress = _Progress(not quiet and sys.stderr.isatty())
+        # the limit is the whole run's: the search gets what start-up and the estimated
+        # work after it leave (never less than a quarter of it)
+        search_limit = workload.search_seconds(
+            time_limit, time.monotonic() - started,
+            workload.after_search(spec, routed=tools is not None, candidates=n_candidates))
         try:
-            result = run_arrange(spec, method=method, seed=seed, time_limit_s=time_limit,
+            result = run_arrange(spec, method=method, seed=seed, time_limit_s=search_limit,
                                  n_candidates=n_candidates, progress=progress,
                                  fit=tools.fit if tools is not None else None,
                                  weigh=tools.weigh if tools is not None else None)
@@ -523,7 +531,8 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
             bud = _budget(result.pattern, spec, result.grade, required=False,
                           block=block)
             outputs.write_arrangement(out, result, block, bud, spec_path=spec_path, seed=seed,
-                                      time_limit_s=time_limit, spec=spec, note=note)
+                                      time_limit_s=time_limit, spec=spec, note=note,
+                                      search_limit_s=search_limit)
             written = out.commit()
             # the set is complete: a signal now only shortens the exit, never the report
             click.echo(format_arrangement(result, spec))

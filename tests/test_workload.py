@@ -127,3 +127,70 @@ def test_the_capacitor_budget_and_monte_carlo_terms_by_hand():
     no_mc = parse_spec(MC_2048.split("[monte_carlo]")[0], "s.toml")
     assert math.isclose(workload.estimate(mc).peak_mb - workload.estimate(no_mc).peak_mb,
                         3.5e-5 * 2048 ** 2, rel_tol=1e-9)
+
+
+# ------------------------------------------------------------- arrange's whole-run limit
+
+def test_the_search_gets_what_the_limit_leaves_never_under_a_quarter():
+    """search = limit - spent - 1.15 x after, floored at a quarter of the limit."""
+    assert workload.search_seconds(10.0, 1.0, 2.0) == pytest.approx(10.0 - 1.0 - 2.3)
+    assert workload.search_seconds(2.0, 0.5, 5.0) == pytest.approx(0.5)
+    assert workload.search_seconds(2.0, 0.0, 0.0) == pytest.approx(2.0)
+
+
+def test_the_work_after_the_search_grows_with_each_of_its_terms():
+    base = parse_spec("[devices]\nA = 64\nB = 64\n", "s.toml")
+    more_units = parse_spec("[devices]\nA = 256\nB = 256\n", "s.toml")
+    more_devices = parse_spec("[devices]\n" + "".join(f"D{i} = 16\n" for i in range(8)),
+                              "s.toml")
+    budget = parse_spec("[devices]\nA = 64\nB = 64\n[electrical]\nvov_v = 0.2\n"
+                        "lambda_per_v = 0.1\n[electrical.vds_v]\nA = 1.0\nB = 1.0\n", "s.toml")
+    after = workload.after_search
+    assert after(more_units) > after(base)
+    assert after(more_devices) > after(base)
+    assert after(budget) > after(base)
+    assert after(base, routed=False) < after(base)
+    assert after(base, candidates=2) > after(base)
+
+
+def test_arrange_gives_the_search_its_share_of_the_whole_limit(tmp_path):
+    """The command's own start-up and the estimated work after the search come out of
+    --time-limit; report.json says what the search got."""
+    import json
+
+    from tests.helpers import run_placer
+
+    spec = spec_file(tmp_path, "[devices]\nA = 64\nB = 64\n")
+    res = run_placer(["arrange", str(spec), "--out", str(tmp_path / "o"), "--time-limit",
+                      "6", "--quiet"], cwd=tmp_path)
+    assert res.returncode == 0, res.stderr
+    report = json.loads((tmp_path / "o" / "report.json").read_text())
+    after = workload.after_search(parse_spec(spec.read_text(), str(spec)))
+    assert report["time_limit_s"] == 6.0
+    # less than the limit by the work after it and some start-up, never under a quarter
+    assert 1.5 <= report["search_limit_s"] < 6.0 - workload.AFTER_SAFETY * after
+
+
+def test_the_search_runs_with_the_share_the_report_gives(tmp_path, monkeypatch):
+    import json
+
+    from click.testing import CliRunner
+
+    import placer.cli as cli_mod
+
+    seen = []
+    real = cli_mod.run_arrange
+
+    def spy(spec, **kw):
+        seen.append(kw["time_limit_s"])
+        return real(spec, **kw)
+
+    monkeypatch.setattr(cli_mod, "run_arrange", spy)
+    spec = spec_file(tmp_path, "[devices]\nA = 8\nB = 8\n")
+    res = CliRunner().invoke(cli, ["arrange", str(spec), "--out", str(tmp_path / "o"),
+                                   "--time-limit", "3", "--quiet"])
+    assert res.exit_code == 0, res.output
+    report = json.loads((tmp_path / "o" / "report.json").read_text())
+    after = workload.after_search(parse_spec(spec.read_text(), str(spec)))
+    assert seen == [report["search_limit_s"]]
+    assert 0.75 <= seen[0] <= 3.0 - workload.AFTER_SAFETY * after

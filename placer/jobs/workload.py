@@ -27,7 +27,8 @@ from placer.errors import LimitError
 from placer.io.spec import Spec
 from placer.kinds import KINDS
 
-__all__ = ["MAX_PEAK_MB", "Workload", "allowed_seconds", "check", "estimate"]
+__all__ = ["MAX_PEAK_MB", "Workload", "after_search", "allowed_seconds", "check", "estimate",
+           "search_seconds"]
 
 #: start-up, reading, the report and the smallest pictures (seconds)
 _BASE_S = 2.0
@@ -110,6 +111,65 @@ def estimate(spec: Spec, routed: bool = True) -> Workload:
         peak += _PER_CODE_SAMPLE_MB * codes
     ordered = tuple(sorted(parts.items(), key=lambda kv: -kv[1]))
     return Workload(sum(parts.values()), peak, ordered)
+
+
+#: The work after the search, for ``arrange``'s share of its limit: the result's grade
+#: and routing (the pitch refit, the router, the extraction), the budget, the GDSII, the
+#: netlist, the pictures and the report. Terms as in :func:`estimate` and one for the
+#: electrical budget (its picture), fitted to the time from the search's end to the
+#: process's end (``tests/bench/bench_workload.py --fit``); a candidate's grade and picture
+#: are assumed, not fitted.
+_AFTER_BASE_S = 0.56
+_AFTER_PER_UNIT_S = 6.7e-4
+_AFTER_PER_UNIT_NET_S = 2.41e-6
+_AFTER_PER_DEVICE_SLOT_S = 1.37e-5
+_AFTER_PER_MC_UNIT3_S = 1.22e-10
+_AFTER_BUDGET_S = 0.234
+_AFTER_CANDIDATE_S = 0.25
+#: the estimate is raised by this share before the search's time is set (a slower start
+#: on a busy machine)
+AFTER_SAFETY = 1.15
+#: the search keeps at least this share of the limit, however much work comes after it
+MIN_SEARCH_SHARE = 0.25
+
+
+def after_search(spec: Spec, routed: bool = True, candidates: int = 0) -> float:
+    """Seconds of ``arrange``'s work after its search (reference machine), with
+    ``candidates`` more arrangements graded and drawn.
+
+    >>> from placer.jobs.load import parse_spec
+    >>> small = after_search(parse_spec('[devices]\\nA = 2\\nB = 2\\n', "s.toml"))
+    >>> big = after_search(parse_spec('[devices]\\nA = 2048\\nB = 2048\\n', "s.toml"))
+    >>> 0 < small < big
+    True
+    """
+    units = spec.n_units
+    nets = len(spec.net_names()) if routed else 0
+    secs = (_AFTER_BASE_S + _AFTER_PER_UNIT_S * units
+            + _AFTER_PER_UNIT_NET_S * units * nets ** 1.5
+            + _AFTER_PER_DEVICE_SLOT_S * len(spec.devices) * _slots(spec))
+    if spec.electrical is not None:
+        secs += _AFTER_BUDGET_S
+    if spec.monte_carlo.samples > 0:
+        secs += _AFTER_PER_MC_UNIT3_S * units ** 3
+    # each candidate: its grade and picture
+    secs += candidates * (_AFTER_CANDIDATE_S + _AFTER_PER_UNIT_S * units
+                          + _AFTER_PER_DEVICE_SLOT_S * len(spec.devices) * _slots(spec))
+    return secs
+
+
+def search_seconds(time_limit_s: float, spent_s: float, after_s: float) -> float:
+    """The search's share of a whole-run limit: what is left of ``time_limit_s`` after the
+    ``spent_s`` already gone and the work after the search (``after_s``, raised by
+    :data:`AFTER_SAFETY`), but never less than :data:`MIN_SEARCH_SHARE` of the limit.
+
+    >>> search_seconds(10.0, 0.5, 2.0)
+    7.2
+    >>> search_seconds(0.5, 0.4, 1.0)
+    0.125
+    """
+    left = time_limit_s - spent_s - AFTER_SAFETY * after_s
+    return round(max(left, MIN_SEARCH_SHARE * time_limit_s), 6)
 
 
 def allowed_seconds(time_limit_s: float) -> float:

@@ -60,7 +60,7 @@ def arrange_names(spec: Spec, n_candidates: int, drawn: bool = True) -> list[str
 
 def write_arrangement(out: OutputSet, result: Arrangement, block: Block | None, budget: Any,
                       *, spec_path: Path, seed: int, time_limit_s: float, spec: Spec,
-                      note: str | None = None) -> None:
+                      note: str | None = None, search_limit_s: float | None = None) -> None:
     """Stage every file of :func:`arrange_names` for ``result`` and its routed ``block``
     (the block's spec is at the pitch its routing needs); with no block (a pitch placer's
     cell cannot be drawn at), no GDSII or netlist, and ``note`` in the report says why."""
@@ -86,7 +86,9 @@ def write_arrangement(out: OutputSet, result: Arrangement, block: Block | None, 
                      f"{cand.routing_um:.4g} um", [out.path(f"candidate-{i}.png")],
                      cell_extent=extent)
     report = {"spec": str(spec_path), "name": spec.name, "seed": seed,
-              "time_limit_s": time_limit_s, **result.to_dict(),
+              "time_limit_s": time_limit_s,
+              "search_limit_s": time_limit_s if search_limit_s is None else search_limit_s,
+              **result.to_dict(),
               "pattern": format_pattern(result.pattern),
               "layout": layout_report(block) if block is not None else None,
               **({"layout_note": note} if note is not None else {}),
