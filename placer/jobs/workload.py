@@ -119,12 +119,12 @@ def estimate(spec: Spec, routed: bool = True) -> Workload:
 #: electrical budget (its picture), fitted to the time from the search's end to the
 #: process's end (``tests/bench/bench_workload.py --fit``); a candidate's grade and picture
 #: are assumed, not fitted.
-_AFTER_BASE_S = 0.56
-_AFTER_PER_UNIT_S = 6.7e-4
-_AFTER_PER_UNIT_NET_S = 2.41e-6
-_AFTER_PER_DEVICE_SLOT_S = 1.37e-5
-_AFTER_PER_MC_UNIT3_S = 1.22e-10
-_AFTER_BUDGET_S = 0.234
+_AFTER_BASE_S = 0.49
+_AFTER_PER_UNIT_S = 6.5e-4
+_AFTER_PER_UNIT_NET_S = 2.13e-6
+_AFTER_PER_DEVICE_SLOT_S = 1.66e-5
+_AFTER_PER_MC_UNIT3_S = 1.26e-10
+_AFTER_BUDGET_S = 0.26
 _AFTER_CANDIDATE_S = 0.25
 #: the estimate is raised by this share before the search's time is set (a slower start
 #: on a busy machine)
