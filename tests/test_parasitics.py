@@ -372,5 +372,5 @@ def test_the_spanning_tree_solve_is_the_dense_inverse(monkeypatch, loops):
     positive = replace(nw, ohms=np.where(nw.ohms > 0, nw.ohms, 0.01))
     fast = par.effective_resistances(positive, nodes, 0)
     monkeypatch.setattr(par, "TREE_LOOPS", -1)              # the sparse LU path
-    assert par._tree_resistances(positive, 0) is None
+    assert par._tree_resistances(positive, 0, nodes) is None
     assert par.effective_resistances(positive, nodes, 0) == pytest.approx(fast, rel=1e-9)

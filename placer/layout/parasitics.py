@@ -359,9 +359,9 @@ def effective_resistances(nw: Network, nodes: list[int], ground: int) -> list[fl
     """
     if not nodes:
         return []
-    fast = _tree_resistances(nw, ground)
+    fast = _tree_resistances(nw, ground, nodes)
     if fast is not None:
-        return [float(fast[n]) for n in nodes]
+        return [float(v) for v in fast]
     import scipy.sparse.linalg as spl
 
     comp = _component(nw, ground)
@@ -412,11 +412,14 @@ def _breadth_first(n: int, ei: NDArray[np.int64], ej: NDArray[np.int64], root: i
 
 #: The spanning-tree solve takes networks of at most this many independent loops.
 TREE_LOOPS = 256
+#: ... and follows this many loop ends down the tree at a time.
+TREE_CHUNK = 32
 
 
-def _tree_resistances(nw: Network, ground: int) -> NDArray[np.float64] | None:
-    """Every node's resistance to ``ground`` (inf where not connected), exactly, for a
-    network that is a tree plus a few loops; None past TREE_LOOPS loops.
+def _tree_resistances(nw: Network, ground: int, nodes: list[int]
+                      ) -> NDArray[np.float64] | None:
+    """Each of ``nodes``' resistance to ``ground`` (inf where not connected), exactly,
+    for a network that is a tree plus a few loops; None past TREE_LOOPS loops.
 
     On a spanning tree rooted at ground, the grounded Laplacian's inverse is
     (L_T^-1)[x, y] = d(lca(x, y)), d being the path resistance from the root; the k edges
@@ -461,25 +464,37 @@ def _tree_resistances(nw: Network, ground: int) -> NDArray[np.float64] | None:
     for g in groups[1:]:
         d[g] = d[parent[g]] + r_up[g]
     if k == 0:
-        return d
+        out = d[np.asarray(nodes, dtype=np.int64)]
+        return out
     a, b = ei[off], ej[off]
     ends, inv = np.unique(np.concatenate([a, b]), return_inverse=True)
-    # f[p, x] = d(lca(x, end p)): d(x) on the end's root path, else the parent's value
-    on_path = np.zeros((len(ends), n), dtype=bool)
-    walk = ends.copy()
-    for _ in range(int(depth[ends].max()) + 1):
-        on_path[np.arange(len(ends)), walk] = True
-        walk = parent[walk]
-    f = np.zeros((len(ends), n))
-    for g in groups[1:]:
-        f[:, g] = np.where(on_path[:, g], d[g], f[:, parent[g]])
+    want = np.asarray(nodes, dtype=np.int64)
+    # the columns kept: the nodes asked for, then every loop edge's two ends
+    cols = np.concatenate([want, ends])
+    # f[p, x] = d(lca(x, end p)): d(x) on the end's root path, else the parent's value;
+    # TREE_CHUNK ends at a time, so memory stays TREE_CHUNK x nodes
+    f = np.zeros((len(ends), len(cols)))
+    for c0 in range(0, len(ends), TREE_CHUNK):
+        part = ends[c0:c0 + TREE_CHUNK]
+        on_path = np.zeros((len(part), n), dtype=bool)
+        walk = part.copy()
+        for _ in range(int(depth[part].max()) + 1):
+            on_path[np.arange(len(part)), walk] = True
+            walk = parent[walk]
+        fp = np.zeros((len(part), n))
+        for g in groups[1:]:
+            fp[:, g] = np.where(on_path[:, g], d[g], fp[:, parent[g]])
+        f[c0:c0 + len(part)] = fp[:, cols]
     ia, ib = inv[:k], inv[k:]
-    phi = f[ia] - f[ib]                          # k x n
-    s_mat = np.diag(r[off]) + (phi[:, a] - phi[:, b])
-    z = np.linalg.solve(s_mat, phi[:, reached])
-    out = np.full(n, np.inf)
-    out[reached] = d[reached] - np.einsum("ij,ij->j", phi[:, reached], z)
-    out[ground] = 0.0
+    phi = f[ia] - f[ib]                          # k x columns
+    at_a = len(want) + ia                        # the column of each loop edge's ends
+    at_b = len(want) + ib
+    s_mat = np.diag(r[off]) + (phi[:, at_a] - phi[:, at_b])
+    ok = reached[want]
+    z = np.linalg.solve(s_mat, phi[:, :len(want)][:, ok])
+    out = np.full(len(want), np.inf)
+    out[ok] = d[want[ok]] - np.einsum("ij,ij->j", phi[:, :len(want)][:, ok], z)
+    out[want == ground] = 0.0
     return out
 
 

@@ -5,7 +5,8 @@ order inside a ring of dummies (and the 6-bit array without one), at the pitch i
 routing needs. Times are the best of
 ``--repeat`` runs of each step (pitch fit, route, parasitic extraction); beside them the
 share of that layout work in a whole ``placer arrange`` of the same spec with
-``--time-limit 5`` (search, grading, routing, files; one run in a fresh process).
+``--time-limit 10`` (the whole run: search, grading, routing, files; one run in a
+fresh process).
 
 Run:  python tests/bench/bench_routing.py [--repeat 3] [--update-readme]
 """
@@ -104,7 +105,7 @@ def main() -> int:
             path.write_text(text)
             t0 = time.perf_counter()
             subprocess.run([sys.executable, "-m", "placer", "arrange", str(path), "--out",
-                            str(Path(tmp) / "o"), "--time-limit", "5", "--quiet"],
+                            str(Path(tmp) / "o"), "--time-limit", "10", "--quiet"],
                            check=True, capture_output=True)
             t_arr = time.perf_counter() - t0
         share = (t_fit + t_route + t_ext) / t_arr
