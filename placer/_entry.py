@@ -10,13 +10,9 @@ from __future__ import annotations
 import os
 import signal
 import sys
-import time
 
 #: SOURCE_DATE_EPOCH must be whole seconds from 1970 up to the end of year 9999.
 MAX_EPOCH = 253_402_300_799
-#: time.monotonic() when the command started (set by :func:`main`; None when the command
-#: runs some other way, e.g. in a test's runner): ``arrange``'s limit counts from here
-STARTED: float | None = None
 
 
 def _quiet_exit(signum: int, frame: object) -> None:
@@ -48,8 +44,6 @@ def check_environment(env: dict[str, str] | os._Environ[str] = os.environ) -> st
 
 def main() -> None:
     """Entry point of the ``placer`` command."""
-    global STARTED
-    STARTED = time.monotonic()
     signal.signal(signal.SIGINT, _quiet_exit)
     signal.signal(signal.SIGTERM, _quiet_exit)      # SIGTERM ends a start-up as Ctrl-C does
     if sys.argv[1:] == ["--version"]:              # no numpy, no CLI: the answer is here
@@ -85,4 +79,3 @@ def main() -> None:
         # the interpreter's shutdown must not end the process by the signal instead
         signal.signal(signal.SIGINT, signal.SIG_IGN)
         signal.signal(signal.SIGTERM, signal.SIG_IGN)
-        STARTED = None

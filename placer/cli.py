@@ -492,11 +492,9 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
     (pattern.png, pattern.svg) and, with an [electrical] table, the budget picture
     (budget.png).
     """
-    from placer import _entry
     from placer.layout import block as drawing
     from placer.layout.router import RouteError
 
-    started = _entry.STARTED if _entry.STARTED is not None else time.monotonic()
     spec = load_spec(spec_path)
     workload.check(spec, str(spec_path), time_limit)
     note = None
@@ -511,10 +509,10 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
     names = outputs.arrange_names(spec, n_candidates, drawn=tools is not None)
     with OutputSet(out_dir, names, force, outputs.ARRANGE_FILES) as out:
         progress = _Progress(not quiet and sys.stderr.isatty())
-        # the limit is the whole run's: the search gets what start-up and the estimated
-        # work after it leave (never less than a quarter of it)
+        # the limit is the whole run's: the search gets what the work before and after it
+        # leave (never less than a quarter of it), from the spec alone (see search_seconds)
         search_limit = workload.search_seconds(
-            time_limit, time.monotonic() - started,
+            time_limit,
             workload.after_search(spec, routed=tools is not None, candidates=n_candidates))
         try:
             result = run_arrange(spec, method=method, seed=seed, time_limit_s=search_limit,

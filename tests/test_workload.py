@@ -132,10 +132,12 @@ def test_the_capacitor_budget_and_monte_carlo_terms_by_hand():
 # ------------------------------------------------------------- arrange's whole-run limit
 
 def test_the_search_gets_what_the_limit_leaves_never_under_a_quarter():
-    """search = limit - spent - 1.15 x after, floored at a quarter of the limit."""
-    assert workload.search_seconds(10.0, 1.0, 2.0) == pytest.approx(10.0 - 1.0 - 2.3)
-    assert workload.search_seconds(2.0, 0.5, 5.0) == pytest.approx(0.5)
-    assert workload.search_seconds(2.0, 0.0, 0.0) == pytest.approx(2.0)
+    """search = limit - before - 1.15 x after, floored at a quarter of the limit."""
+    assert workload.search_seconds(10.0, 2.0, before_s=1.0) == pytest.approx(10.0 - 1.0 - 2.3)
+    assert workload.search_seconds(2.0, 5.0) == pytest.approx(0.5)
+    assert workload.search_seconds(2.0, 0.0, before_s=0.0) == pytest.approx(2.0)
+    assert workload.search_seconds(4.0, 1.0) == pytest.approx(
+        4.0 - workload.BEFORE_SEARCH_S - 1.15)
 
 
 def test_the_work_after_the_search_grows_with_each_of_its_terms():
@@ -154,7 +156,7 @@ def test_the_work_after_the_search_grows_with_each_of_its_terms():
 
 
 def test_arrange_gives_the_search_its_share_of_the_whole_limit(tmp_path):
-    """The command's own start-up and the estimated work after the search come out of
+    """The work before the search and the estimated work after it come out of
     --time-limit; report.json says what the search got."""
     import json
 
@@ -167,8 +169,9 @@ def test_arrange_gives_the_search_its_share_of_the_whole_limit(tmp_path):
     report = json.loads((tmp_path / "o" / "report.json").read_text())
     after = workload.after_search(parse_spec(spec.read_text(), str(spec)))
     assert report["time_limit_s"] == 6.0
-    # less than the limit by the work after it and some start-up, never under a quarter
-    assert 1.5 <= report["search_limit_s"] < 6.0 - workload.AFTER_SAFETY * after
+    # from the spec and the limit alone: the same on every run
+    assert report["search_limit_s"] == workload.search_seconds(6.0, after)
+    assert report["search_limit_s"] < 6.0 - workload.AFTER_SAFETY * after
 
 
 def test_the_search_runs_with_the_share_the_report_gives(tmp_path, monkeypatch):
@@ -192,5 +195,4 @@ def test_the_search_runs_with_the_share_the_report_gives(tmp_path, monkeypatch):
     assert res.exit_code == 0, res.output
     report = json.loads((tmp_path / "o" / "report.json").read_text())
     after = workload.after_search(parse_spec(spec.read_text(), str(spec)))
-    assert seen == [report["search_limit_s"]]
-    assert 0.75 <= seen[0] <= 3.0 - workload.AFTER_SAFETY * after
+    assert seen == [report["search_limit_s"]] == [workload.search_seconds(3.0, after)]
