@@ -402,7 +402,7 @@ def _gradient_field(spec: Spec, grade: Grade) -> tuple[float, float] | None:
 @click.option("--out", "out_dir", type=_OUT, required=True,
               help="Folder for the batch: one folder per block, summary.json, index.html.")
 @click.option("--time-limit", "time_limit", type=_TIME, default=10.0, show_default=True,
-              help="Each block's search time limit, seconds.")
+              help="Each block's time limit in seconds (its whole arrange run).")
 @click.option("--seed", type=_SEED, default=0, show_default=True, help="Each block's seed.")
 @click.option("--jobs", type=click.IntRange(min=1, max=64), default=None,
               help="Blocks at once [default: the machine's cores].")
