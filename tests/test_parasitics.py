@@ -374,3 +374,20 @@ def test_the_spanning_tree_solve_is_the_dense_inverse(monkeypatch, loops):
     monkeypatch.setattr(par, "TREE_LOOPS", -1)              # the sparse LU path
     assert par._tree_resistances(positive, 0, nodes) is None
     assert par.effective_resistances(positive, nodes, 0) == pytest.approx(fast, rel=1e-9)
+
+
+def test_near_zero_resistors_in_loops_are_shorts():
+    """Loops of (near) zero-ohm resistors: their ends are one node (Kirchhoff: a short),
+    so three parallel paths of which two are shorts give 0, and a triangle of 1e-300 ohm
+    joined to ground by three 1-ohm resistors gives three 1-ohm resistors in parallel
+    (1/3 ohm). These left the loop correction's matrix singular before."""
+    from placer.layout.parasitics import Network, effective_resistances
+
+    def net(n, edges, ohms):
+        return Network("N", n, np.array(edges), np.array(ohms, dtype=float),
+                       np.zeros(len(edges), dtype=bool), 0, (), (), np.zeros((n, 2)))
+
+    assert effective_resistances(net(2, [(0, 1)] * 3, [1e5, 0.0, 0.0]), [1], 0) == [0.0]
+    k4 = net(4, [(0, 1), (0, 2), (0, 3), (1, 2), (2, 3), (1, 3)],
+             [1.0, 1.0, 1.0, 1e-300, 1e-300, 1e-300])
+    assert effective_resistances(k4, [1, 2, 3], 0) == pytest.approx([1 / 3] * 3)

@@ -132,7 +132,7 @@ def test_the_capacitor_budget_and_monte_carlo_terms_by_hand():
 # ------------------------------------------------------------- arrange's whole-run limit
 
 def test_the_search_gets_what_the_limit_leaves_never_under_a_quarter():
-    """search = limit - before - 1.15 x after, floored at a quarter of the limit."""
+    """The share: limit - before - 1.15 x after, floored at a quarter of the limit."""
     assert workload.search_seconds(10.0, 2.0, before_s=1.0) == pytest.approx(10.0 - 1.0 - 2.3)
     assert workload.search_seconds(2.0, 5.0) == pytest.approx(0.5)
     assert workload.search_seconds(2.0, 0.0, before_s=0.0) == pytest.approx(2.0)
@@ -153,6 +153,10 @@ def test_the_work_after_the_search_grows_with_each_of_its_terms():
     assert after(budget) > after(base)
     assert after(base, routed=False) < after(base)
     assert after(base, candidates=2) > after(base)
+    dac = "kind = \"cap\"\n[devices]\nCT = 1\nC0 = 1\nC1 = 2\n[electrical]\n" \
+          "termination = \"CT\"\nmc_samples = {}\n"
+    assert after(parse_spec(dac.format(200000), "s.toml")) > \
+        after(parse_spec(dac.format(2000), "s.toml")) + 0.05
 
 
 def test_arrange_gives_the_search_its_share_of_the_whole_limit(tmp_path):

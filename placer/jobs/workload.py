@@ -125,6 +125,9 @@ _AFTER_PER_UNIT_NET_S = 2.13e-6
 _AFTER_PER_DEVICE_SLOT_S = 1.66e-5
 _AFTER_PER_MC_UNIT3_S = 1.26e-10
 _AFTER_BUDGET_S = 0.26
+#: a capacitor budget's code samples (mc_samples x 2^bits), measured apart: samples/
+#: sar_cdac.toml at 2000, 20 000 and 100 000 samples (the fit's cases hold too few)
+_AFTER_PER_CODE_SAMPLE_S = 7.5e-8
 _AFTER_CANDIDATE_S = 0.25
 #: the estimate is raised by this share before the search's time is set (a slower start
 #: on a busy machine)
@@ -153,7 +156,7 @@ def after_search(spec: Spec, routed: bool = True, candidates: int = 0) -> float:
             + _AFTER_PER_UNIT_NET_S * units * nets ** 1.5
             + _AFTER_PER_DEVICE_SLOT_S * len(spec.devices) * _slots(spec))
     if spec.electrical is not None:
-        secs += _AFTER_BUDGET_S
+        secs += _AFTER_BUDGET_S + _AFTER_PER_CODE_SAMPLE_S * _code_samples(spec)
     if spec.monte_carlo.samples > 0:
         secs += _AFTER_PER_MC_UNIT3_S * units ** 3
     # each candidate: its grade and picture

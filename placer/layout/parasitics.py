@@ -412,6 +412,8 @@ def _breadth_first(n: int, ei: NDArray[np.int64], ej: NDArray[np.int64], root: i
 
 #: The spanning-tree solve takes networks of at most this many independent loops.
 TREE_LOOPS = 256
+#: A resistor of at most this many ohms is a short (its ends one node) for that solve.
+SHORT_OHM = 1e-9
 #: ... and follows this many loop ends down the tree at a time.
 TREE_CHUNK = 32
 
@@ -425,11 +427,41 @@ def _tree_resistances(nw: Network, ground: int, nodes: list[int]
     (L_T^-1)[x, y] = d(lca(x, y)), d being the path resistance from the root; the k edges
     off the tree add B G B^T, and the Woodbury identity gives
     R(v) = d(v) - phi(v)^T (G^-1 + B^T L_T^-1 B)^-1 phi(v) with phi(v) = B^T L_T^-1 e_v
-    (Golub & Van Loan, Matrix Computations, 4th ed., sec. 2.1.4). Zero-ohm resistors are
-    the 1e12 S of the LU path, so both solve the same network."""
+    (Golub & Van Loan, Matrix Computations, 4th ed., sec. 2.1.4). A resistor of at most
+    SHORT_OHM is a short: its two ends are merged first (a near-zero resistor in a loop
+    would leave the correction's matrix singular). None also when that matrix cannot be
+    solved: the LU path then takes the network."""
     n = nw.n_nodes
-    r = np.where(nw.ohms > 0, nw.ohms, 1e-12)
-    ei, ej = nw.edges[:, 0], nw.edges[:, 1]
+    short = nw.ohms <= SHORT_OHM
+    rep = np.arange(n)
+    if short.any():
+        root = list(range(n))
+
+        def find(x: int) -> int:
+            while root[x] != x:
+                root[x] = root[root[x]]
+                x = root[x]
+            return x
+
+        for i, j in nw.edges[short].tolist():
+            a, b = find(i), find(j)
+            if a != b:
+                root[max(a, b)] = min(a, b)
+        rep = np.unique([find(x) for x in range(n)], return_inverse=True)[1].reshape(-1)
+    keep = ~short
+    try:
+        return _tree_solve(int(rep.max()) + 1 if n else 0, rep[nw.edges[keep, 0]],
+                           rep[nw.edges[keep, 1]], nw.ohms[keep], int(rep[ground]),
+                           rep[np.asarray(nodes, dtype=np.int64)])
+    except np.linalg.LinAlgError:
+        return None
+
+
+def _tree_solve(n: int, ei: NDArray[np.int64], ej: NDArray[np.int64],
+                r: NDArray[np.float64], ground: int, nodes: NDArray[np.int64]
+                ) -> NDArray[np.float64] | None:
+    """:func:`_tree_resistances` on a network without shorts: ``n`` nodes, resistors
+    (ei, ej) of ``r`` ohms."""
     order, pred = _breadth_first(n, ei, ej, ground)
     reached = np.zeros(n, dtype=bool)
     reached[order] = True

@@ -191,8 +191,8 @@ def draw_pattern(ax: Any, pattern: Pattern, pitch_um: tuple[float, float],
             o = pattern.orient[rr, cc].astype(float)
             ax.quiver(cc * px + ox + w / 2 - 0.3 * o * w, -rr * py + oy + 0.2 * h,
                       0.6 * o * w, np.zeros_like(o), angles="xy", scale_units="xy", scale=1,
-                      color="black", width=0.0035, headwidth=4.5, headlength=5,
-                      headaxislength=4.5, zorder=3)
+                      units="xy", width=0.05 * min(w, h), headwidth=3.5, headlength=4,
+                      headaxislength=3.5, color="black", zorder=3)
     if moved:
         pad = 0.04 * min(px, py)
         ax.add_collection(PatchCollection(
@@ -233,8 +233,8 @@ def draw_pattern(ax: Any, pattern: Pattern, pitch_um: tuple[float, float],
     ax.set_ylabel("y (um)")
 
 
-def _names(ax: Any, xs: NDArray[np.float64], ys: NDArray[np.float64], labels: list[str],
-           size_pt: float, upright: bool) -> None:
+def _names(ax: Any, xs: NDArray[np.floating[Any]], ys: NDArray[np.floating[Any]],
+           labels: list[str], size_pt: float, upright: bool) -> None:
     """Each label centred at its (x, y) in data units, ``size_pt`` high: one collection of
     glyph outlines per distinct label (a text artist per unit would cost a layout and a
     draw each; the outlines are drawn once and placed at every offset)."""
