@@ -293,10 +293,15 @@ def test_generated_patterns_route_without_shorts_opens_strays_or_spacing(tmp_pat
 
 # ---------------------------------------------------------------- the user's own unit cell
 
-def _user_cell_gds(path: Path, *, labels: bool = True) -> None:
+def _user_cell_gds(path: Path, *, labels: bool = True, outline: bool = True,
+                   strap: float = 0.2, gate_pad: str = "rect",
+                   gate_label: tuple[float, float] = (0.0, -1.8),
+                   extra_metal1: tuple[float, float, float, float] | None = None) -> None:
     """A MOS unit cell of the test's own making (not placer's): gate over diffusion, contact
-    columns with metal1 straps, a gate pad below; terminals labelled by name on metal1;
-    an outline rectangle sets its bounding box, so abutted cells keep their spacing."""
+    columns with metal1 straps (``strap`` wide on each side of their centre), a gate pad
+    below (a rectangle, or an L whose bounding box's centre is off its metal); terminals
+    labelled by name on metal1; an outline rectangle sets its bounding box, so abutted
+    cells keep their spacing (without it the diffusion sets the box)."""
     layers = load_layers()
 
     def rect(cell, role, x0, y0, x1, y1):
@@ -305,19 +310,27 @@ def _user_cell_gds(path: Path, *, labels: bool = True) -> None:
 
     lib = gdstk.Library("userlib", unit=1e-6, precision=1e-9)
     cell = lib.new_cell("MYFINGER")
-    rect(cell, "outline", -1.3, -2.4, 1.3, 1.6)
+    if outline:
+        rect(cell, "outline", -1.3, -2.4, 1.3, 1.6)
     rect(cell, "diffusion", -1.0, -1.0, 1.0, 1.0)
     rect(cell, "gate", -0.25, -1.75, 0.25, 1.3)
     rect(cell, "gate", -0.3, -2.1, 0.3, -1.5)
     rect(cell, "contact", -0.1, -1.9, 0.1, -1.7)
-    rect(cell, "metal1", -0.2, -2.0, 0.2, -1.6)
+    if gate_pad == "rect":
+        rect(cell, "metal1", -0.2, -2.0, 0.2, -1.6)
+    else:                     # an L: a foot under the gate, an arm up at the right; the
+        m1 = layers["metal1"]  # centre of its bounding box, (0.3, -1.5), is off its metal
+        cell.add(gdstk.Polygon([(-0.2, -2.0), (0.8, -2.0), (0.8, -1.0), (0.4, -1.0),
+                                (0.4, -1.6), (-0.2, -1.6)], layer=m1[0], datatype=m1[1]))
+    if extra_metal1 is not None:
+        rect(cell, "metal1", *extra_metal1)
     for x in (-0.75, 0.75):
         for y in (-0.6, 0.0, 0.6):
             rect(cell, "contact", x - 0.1, y - 0.1, x + 0.1, y + 0.1)
-        rect(cell, "metal1", x - 0.15, -0.75, x + 0.15, 0.75)
+        rect(cell, "metal1", x - strap, -0.75, x + strap, 0.75)
     if labels:
         m1 = layers["metal1"]
-        for text, x, y in (("gate", 0.0, -1.8), ("source", -0.75, -0.5),
+        for text, x, y in (("gate", *gate_label), ("source", -0.75, -0.5),
                            ("drain", 0.75, -0.5)):
             cell.add(gdstk.Label(text, (x, y), layer=m1[0], texttype=m1[1]))
     lib.write_gds(str(path))
@@ -390,3 +403,62 @@ def test_outputs_get_the_users_usual_permissions(runner, tmp_path):
         os.umask(old)
     modes = {p.name: p.stat().st_mode & 0o777 for p in out.iterdir()}
     assert modes and all(m == 0o644 for m in modes.values()), modes
+
+
+def _draw_with_cell(runner, tmp_path, **cell):
+    _user_cell_gds(tmp_path / "cell.gds", **cell)
+    spec = tmp_path / "s.toml"
+    spec.write_text(DIFF_PAIR)
+    pat = tmp_path / "p.txt"
+    pat.write_text(". MINP> MINN< MINN> MINP< .\n. MINN> MINP< MINP> MINN< .\n")
+    return runner.invoke(cli, ["draw", str(pat), "--spec", str(spec), "--out",
+                               str(tmp_path / "o"), "--unit-gds", str(tmp_path / "cell.gds")])
+
+
+@pytest.mark.parametrize("cell,words", [
+    # metal1 at the cell's right side: the next unit's metal1 would touch it (a short
+    # through every unit of the row, which placer drew and exited 0 on)
+    ({"extra_metal1": (0.95, 1.2, 1.3, 1.5)}, ["metal1", "right side", "touch"]),
+    # no outline: the diffusion sets the box, so abutting units join their diffusion
+    ({"outline": False}, ["diffusion", "left side", "touch"]),
+    # straps 0.3 um wide: a 0.25 um via1 with 0.05 um of enclosure needs 0.35 um
+    ({"strap": 0.15}, ["metal1 pad of terminal 'source'", "does not enclose the via1"]),
+    # inside the L's bounding box, off its metal
+    ({"gate_pad": "L", "gate_label": (0.0, -1.3)}, ["label 'gate'", "not on a metal1"]),
+])
+def test_a_user_cell_that_would_draw_wrong_is_refused_in_one_line(runner, tmp_path, cell,
+                                                                  words):
+    result = _draw_with_cell(runner, tmp_path, **cell)
+    assert result.exit_code == 1 and "Traceback" not in result.output, result.output
+    for w in words:
+        assert w in result.output, (w, result.output)
+    assert not (tmp_path / "o").exists()
+
+
+def test_an_l_shaped_pad_gets_its_net_label_and_via_on_its_metal(runner, tmp_path):
+    """The gate label sits in the L's foot (its bounding box's centre is off the metal);
+    every net label placer writes on metal1 lies on metal1 of the layout (shapely on the
+    flattened GDSII, apart from placer's own data), every via1 lies within metal1, and the
+    extraction finds no short, open or stray label."""
+    from shapely.geometry import Point, Polygon, box
+    from shapely.ops import unary_union
+
+    result = _draw_with_cell(runner, tmp_path, gate_pad="L", gate_label=(0.0, -1.8))
+    assert result.exit_code == 0, result.output
+    layers = load_layers()
+    lib = gdstk.read_gds(str(tmp_path / "o" / "p.gds"))
+    top = lib.top_level()[0]
+    flat = top.copy("flat").flatten()
+    m1 = unary_union([Polygon(p.points) for p in flat.polygons
+                      if (p.layer, p.datatype) == tuple(layers["metal1"])])
+    labels = [lb for lb in top.labels if (lb.layer, lb.texttype) == tuple(layers["metal1"])]
+    assert labels
+    for lb in labels:
+        assert m1.buffer(1e-6).contains(Point(*lb.origin)), (lb.text, lb.origin)
+    for p in flat.polygons:
+        if (p.layer, p.datatype) == tuple(layers["via1"]):
+            (x0, y0), (x1, y1) = p.bounding_box()
+            assert m1.buffer(1e-6).contains(box(x0 - 0.05, y0 - 0.05, x1 + 0.05, y1 + 0.05))
+    report = extraction.check(tmp_path / "o" / "p.gds", LAYERS,
+                              spacing_um={"metal1": 0.25, "metal2": 0.3})
+    assert not report.shorts and not report.stray_labels, report

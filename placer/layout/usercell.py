@@ -10,6 +10,12 @@ The router leaves each terminal by a vertical metal2 stub straight down from the
 (through a via1 when the pad is metal1), so nothing of metal2 in the cell may lie below
 a label except that terminal's own pad. The pitch is the cell's
 bounding box in x, and in y the box plus the routing channel, unless the spec gives one.
+
+A cell that would draw wrong is refused before use: a conductor reaching a side where the
+next unit abuts (diffusion or gate touching it, metal nearer than half its spacing), a
+label off its pad's metal, a metal1 pad that cannot enclose the via1 dropped at its label.
+The pad the router and the extraction see is the largest rectangle of the pad's metal
+around the label, so every net label and landing stays on metal.
 """
 
 from __future__ import annotations
@@ -146,16 +152,25 @@ def load_user_cell(path: Path, name: str | None, spec: Spec, rules: Rules,
             f"terminal's name on its metal1 or metal2 pad (layer/texttype "
             f"{by_layer['metal1'][0]}/{by_layer['metal1'][1]} or {by_layer['metal2'][0]}/"
             f"{by_layer['metal2'][1]})")
+    _check_sides(flat, (x0, y0, x1, y1), spec, rules, layers, where)
     terminals = []
     sw, m2s = rules.stub_width, rules.metal2_space
     for t in wanted:
         role, x, y = found[t]
-        pad = next((p for p in polys[role] if p.contain(x, y) or _on_edge(p, x, y)), None)
+        pad = next((p for p in polys[role] if _on(p, x, y)), None)
         if pad is None:
             raise TemplateError(f"{where}: label {t!r} at ({x:g}, {y:g}) is not on a {role} "
-                                "shape")
-        (px0, py0), (px1, py1) = pad.bounding_box()
-        pad_rect = Rect(role, snap(px0), snap(py0), snap(px1), snap(py1))
+                                "shape; put it on the terminal's pad")
+        if role == "metal1" and not _holds(pad, x, y, rules.land1):
+            raise TemplateError(
+                f"{where}: the metal1 pad of terminal {t!r} does not enclose the via1 placer "
+                f"drops at its label ({rules.via1:g} um with {rules.metal1_enclosure:g} um "
+                f"of metal1 around it: a {rules.land1:g} um square centred on the label at "
+                f"({x:g}, {y:g})); widen the pad or move the label")
+        # the pad as the router and the extraction see it: the largest rectangle of the
+        # pad's metal around the label (the whole pad when it is a rectangle), so the net's
+        # label and every landing stay on metal
+        pad_rect = Rect(role, *(snap(v) for v in _inner_rect(pad, x, y)))
         # nothing of metal2 but the terminal's own pad below the label, within a stub's reach
         for p in polys["metal2"]:
             if role == "metal2" and p is pad:
@@ -180,6 +195,99 @@ def load_user_cell(path: Path, name: str | None, spec: Spec, rules: Rules,
     return UserCell(placed, cell, rules, f"{src}:{gcell.name}")
 
 
-def _on_edge(poly: Any, x: float, y: float) -> bool:
-    (x0, y0), (x1, y1) = poly.bounding_box()
-    return x0 - 1e-9 <= x <= x1 + 1e-9 and y0 - 1e-9 <= y <= y1 + 1e-9
+def _shape(poly: Any) -> Any:
+    from shapely.geometry import Polygon
+
+    return Polygon(poly.points).buffer(0)
+
+
+def _on(poly: Any, x: float, y: float) -> bool:
+    """The point lies on the polygon's metal (inside or on its edge, within 1 nm)."""
+    from shapely.geometry import Point
+
+    return bool(_shape(poly).distance(Point(x, y)) <= 1e-9)
+
+
+def _holds(poly: Any, x: float, y: float, side: float) -> bool:
+    """The polygon covers the square of ``side`` centred at (x, y) (within 1 nm)."""
+    from shapely.geometry import box
+
+    h = side / 2
+    return bool(_shape(poly).buffer(1e-9, join_style=2).covers(box(x - h, y - h, x + h, y + h)))
+
+
+#: A pad with more corners than this is taken as the square a via landing needs.
+MAX_PAD_CORNERS = 32
+
+
+def _inner_rect(poly: Any, x: float, y: float) -> tuple[float, float, float, float]:
+    """The largest axis-aligned rectangle on the polygon's metal that holds (x, y), its
+    sides on the polygon's own x and y coordinates (a rectilinear pad's rectangles all
+    are); a point's neighbourhood of zero size when none holds it."""
+    from shapely.geometry import box
+
+    shape = _shape(poly).buffer(1e-9, join_style=2)
+    pts = poly.points
+    if len(pts) > MAX_PAD_CORNERS:
+        return (x, y, x, y)
+    xs = sorted({float(v) for v in pts[:, 0]})
+    ys = sorted({float(v) for v in pts[:, 1]})
+    best, area = (x, y, x, y), -1.0
+    for i, xa in enumerate(xs):
+        if xa > x + 1e-9:
+            break
+        for xb in xs[i + 1:]:
+            if xb < x - 1e-9:
+                continue
+            for j, ya in enumerate(ys):
+                if ya > y + 1e-9:
+                    break
+                for yb in ys[j + 1:]:
+                    if yb < y - 1e-9:
+                        continue
+                    a = (xb - xa) * (yb - ya)
+                    if a > area and shape.covers(box(xa, ya, xb, yb)):
+                        best, area = (xa, ya, xb, yb), a
+    return best
+
+
+#: A conductor of these roles reaching a side where a neighbour abuts joins (or comes too
+#: near) the neighbour's: metal keeps half its spacing from the side, the rest stays off it.
+_SIDE_ROLES = ("diffusion", "gate", "metal1", "metal2")
+
+
+def _check_sides(flat: Any, bbox: tuple[float, float, float, float], spec: Spec,
+                 rules: Rules, layers: LayerMap, where: str) -> None:
+    """Refuse a cell whose conductors would touch or crowd a neighbour's: units abut at the
+    cell's sides in x (at the spec's pitch, when it gives one), and in y when the spec's
+    row pitch leaves no more than the cell's height."""
+    x0, y0, x1, y1 = bbox
+    width, height = x1 - x0, y1 - y0
+    given = spec.array.pitch_um if spec.array.pitch_given else None
+    gap_x = given[0] - width if given else 0.0
+    gap_y = given[1] - height if given else None
+    for role in _SIDE_ROLES:
+        try:
+            ld = layers[role]
+        except KeyError:
+            continue
+        space = {"metal1": rules.values.get("metal1_space", 0.0),
+                 "metal2": rules.values.get("metal2_space", 0.0)}.get(role, 0.0)
+        for p in flat.polygons:
+            if (p.layer, p.datatype) != ld:
+                continue
+            (px0, py0), (px1, py1) = p.bounding_box()
+            sides = [("left", px0 - x0, gap_x), ("right", x1 - px1, gap_x)]
+            if gap_y is not None:
+                sides += [("bottom", py0 - y0, gap_y), ("top", y1 - py1, gap_y)]
+            for side, d, gap in sides:
+                # the neighbour's nearest like shape may be as near its own side (mirrored
+                # fingers face each other side for side)
+                if 2 * d + gap < space - 1e-9 or (space == 0.0 and 2 * d + gap <= 1e-9):
+                    need = f"{space / 2:g} um from" if space > 0 else "off"
+                    raise TemplateError(
+                        f"{where}: {role} at ({px0:g}, {py0:g})..({px1:g}, {py1:g}) reaches "
+                        f"the cell's {side} side, where the next unit abuts: it would "
+                        f"{'touch' if 2 * d + gap <= 1e-9 else 'come closer than the spacing to'}"
+                        f" the neighbour's; keep {role} {need} the cell's sides (a shape on "
+                        "another layer may set the cell's box)")

@@ -2074,13 +2074,15 @@ def cli_files(ctx: Ctx) -> None:
     ctx.write("tmpl_good.toml", tmpl)
     for name, (old, new, _) in BAD_TEMPLATES.items():
         ctx.write(name, tmpl.replace(old, new, 1))
-    # a user's own unit cell: terminals as texts on metal1 (4/0)
-    cell = [g_box(1, 0, -1000, -1500, 1000, 1500), g_box(4, 0, -900, -1400, -500, 1400),
+    # a user's own unit cell: terminals as texts on metal1 (4/0); its outline (11/0) keeps
+    # the diffusion off the sides where the next unit abuts
+    cell = [g_box(11, 0, -1300, -1500, 1300, 1900),
+            g_box(1, 0, -1000, -1500, 1000, 1500), g_box(4, 0, -900, -1400, -500, 1400),
             g_box(4, 0, 500, -1400, 900, 1400), g_box(4, 0, -200, 1500, 200, 1900),
             g_text(4, 0, -700, 0, "source"), g_text(4, 0, 700, 0, "drain"),
             g_text(4, 0, 0, 1700, "gate")]
     ctx.write("cell_good.gds", gds_library([("MYFINGER", cell)]))
-    ctx.write("cell_nolabels.gds", gds_library([("MYFINGER", cell[:4])]))
+    ctx.write("cell_nolabels.gds", gds_library([("MYFINGER", cell[:5])]))
     ctx.write("cell_cycle.gds", gds_library([("A", [g_sref("B", 0, 0)]),
                                              ("B", [g_sref("A", 0, 0)])]))
     ctx.write("not_a_dir", b"x")
