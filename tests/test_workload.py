@@ -200,3 +200,4 @@ def test_the_search_runs_with_the_share_the_report_gives(tmp_path, monkeypatch):
     report = json.loads((tmp_path / "o" / "report.json").read_text())
     after = workload.after_search(parse_spec(spec.read_text(), str(spec)))
     assert seen == [report["search_limit_s"]] == [workload.search_seconds(3.0, after)]
+    assert f" of its {seen[0]:.3g} s, " in res.output          # the report says it too

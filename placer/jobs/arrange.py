@@ -86,6 +86,8 @@ class Arrangement:
     front_reference: str = ""
     #: the spec at the pitch the arrangement was scored at (and is drawn at)
     spec: Spec | None = None
+    #: the time limit the search was given (seconds; 0 when not recorded)
+    time_limit_s: float = 0.0
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready summary (the grade and routing in full)."""
@@ -507,6 +509,7 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
         nodes=sum(t.result.nodes for t in tried if t.result),
         baselines={name: k for name, (_, k) in best.baselines.items()},
         candidates=cands, solver=best.solver, front_reference=against, spec=spec,
+        time_limit_s=time_limit_s,
     )
 
 

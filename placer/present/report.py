@@ -194,7 +194,8 @@ def format_arrangement(result: Arrangement, spec: Spec) -> str:
             # beside "(proven optimal)" on the linear line: what the limit cut was the
             # rest (the later keys, or another core shape), not the proof
             stopped = "time limit, after the linear optimum was proven"
-        out.append(f"Search: {result.elapsed_s:.2f} s, {result.moves} moves, "
+        given = (f" of its {result.time_limit_s:.3g} s" if result.time_limit_s > 0 else "")
+        out.append(f"Search: {result.elapsed_s:.2f} s{given}, {result.moves} moves, "
                    f"{result.nodes} branch-and-bound nodes, stopped: {stopped}.")
     else:
         out.append("A baseline arrangement: no search, no bound.")
