@@ -287,3 +287,38 @@ def test_a_32_column_board_fits_a_1280_pixel_window_without_a_sideways_scroll(tm
         assert driver.execute_script("return document.body.dataset.swaps") != before
     finally:
         driver.quit()
+
+
+def test_the_printed_handout_holds_the_board_figures_and_every_step(tmp_path):
+    """Printed (print media emulated in headless Chromium), the page shows the board as it
+    stands after a swap, its figures and every step's text, and none of the controls; on
+    screen the handout stays hidden. Chromium's own print to PDF of it gives a document."""
+    import base64
+
+    from tests.browser import chromium
+
+    page = _page(tmp_path, "bias_mirror")[1]
+    driver = chromium(1280, 900)
+    try:
+        _open(driver, page)
+        shown = ("return [...arguments[0]].map(s => {const e = document.querySelector(s);"
+                 " return e !== null && getComputedStyle(e).display !== 'none'"
+                 " && e.getBoundingClientRect().height > 0;});")
+        parts = ["#array svg", "#worst", "#polar svg", "#devices", "#handout",
+                 "#controls", "#guide", "#export-block"]
+        assert driver.execute_script(shown, parts) == [True] * 4 + [False, True, True, True]
+        _swap_by_clicks(driver, (0, 1), (1, 2))
+        swapped = driver.execute_script("return document.getElementById('array').innerHTML")
+        driver.execute_cdp_cmd("Emulation.setEmulatedMedia", {"media": "print"})
+        assert driver.execute_script(shown, parts) == [True] * 5 + [False] * 3
+        # the board printed is the board as it stands, and every step is there
+        assert driver.execute_script(
+            "return document.getElementById('array').innerHTML") == swapped
+        titles = driver.execute_script(
+            "return [...document.querySelectorAll('#handout-steps h3')]"
+            ".map(h => h.textContent);")
+        assert len(titles) == 4 and titles[0].startswith("1. ") and titles[3].startswith("4. ")
+        pdf = base64.b64decode(driver.execute_cdp_cmd("Page.printToPDF", {})["data"])
+        assert pdf.startswith(b"%PDF") and pdf.count(b"/Type /Page") >= 1
+    finally:
+        driver.quit()

@@ -680,6 +680,20 @@ function drawStep() {
   document.getElementById("step-next").disabled = state.step === STEPS.length - 1;
 }
 
+// every step's text for the printed handout (the page shows one step at a time)
+function drawHandout() {
+  const box = document.getElementById("handout-steps");
+  box.replaceChildren();
+  for (const [title, paras] of STEPS) {
+    const part = el("section");
+    const h = el("h3");
+    h.textContent = title;
+    part.appendChild(h);
+    for (const p of paras) { const e = el("p"); e.innerHTML = p; part.appendChild(e); }
+    box.appendChild(part);
+  }
+}
+
 // ---------------------------------------------------------------- wiring up
 function render() {
   const sc = score(state.ids);
@@ -694,7 +708,9 @@ document.getElementById("title").textContent =
 document.getElementById("step-back").addEventListener("click", () => { state.step = Math.max(0, state.step - 1); drawStep(); });
 document.getElementById("step-next").addEventListener("click", () => { state.step = Math.min(STEPS.length - 1, state.step + 1); drawStep(); });
 document.getElementById("export").addEventListener("click", exportPattern);
+document.getElementById("print").addEventListener("click", () => window.print());
 drawLegend();
 drawStep();
+drawHandout();
 load(0);
 document.body.dataset.ready = "true";
