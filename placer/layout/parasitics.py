@@ -389,15 +389,17 @@ def effective_resistances(nw: Network, nodes: list[int], ground: int) -> list[fl
 
 
 def _breadth_first(n: int, ei: NDArray[np.int64], ej: NDArray[np.int64], root: int
-                   ) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
-    """Nodes reached from ``root`` in breadth-first order, and each one's predecessor
-    (-1 for the root and the unreached), over undirected edges (ei, ej)."""
+                   ) -> tuple[NDArray[np.int64], NDArray[np.int64], NDArray[np.int64]]:
+    """Nodes reached from ``root`` in breadth-first order, each one's predecessor (-1 for
+    the root and the unreached) and depth (edges from the root; 0 when unreached), over
+    undirected edges (ei, ej)."""
     a = np.concatenate([ei, ej])
     b = np.concatenate([ej, ei])
     srt = np.argsort(a, kind="stable")
     nbr = b[srt].tolist()
     start = np.searchsorted(a[srt], np.arange(n + 1)).tolist()
     pred = [-1] * n
+    depth = [0] * n
     seen = [False] * n
     seen[root] = True
     order = [root]
@@ -406,8 +408,10 @@ def _breadth_first(n: int, ei: NDArray[np.int64], ej: NDArray[np.int64], root: i
             if not seen[y]:
                 seen[y] = True
                 pred[y] = x
+                depth[y] = depth[x] + 1
                 order.append(y)
-    return np.array(order, dtype=np.int64), np.array(pred, dtype=np.int64)
+    return (np.array(order, dtype=np.int64), np.array(pred, dtype=np.int64),
+            np.array(depth, dtype=np.int64))
 
 
 #: The spanning-tree solve takes networks of at most this many independent loops.
@@ -462,7 +466,7 @@ def _tree_solve(n: int, ei: NDArray[np.int64], ej: NDArray[np.int64],
                 ) -> NDArray[np.float64] | None:
     """:func:`_tree_resistances` on a network without shorts: ``n`` nodes, resistors
     (ei, ej) of ``r`` ohms."""
-    order, pred = _breadth_first(n, ei, ej, ground)
+    order, pred, depth = _breadth_first(n, ei, ej, ground)
     reached = np.zeros(n, dtype=bool)
     reached[order] = True
     # one edge per tree link (the first of parallel ones); the rest close loops
@@ -481,26 +485,21 @@ def _tree_solve(n: int, ei: NDArray[np.int64], ej: NDArray[np.int64],
     # depth and path resistance, level by level from the root
     d = np.full(n, np.inf)
     d[ground] = 0.0
-    depth = np.zeros(n, dtype=np.int64)
     r_up = np.zeros(n)
     r_up[child] = r[tree_edge]
     parent = np.where(reached, pred, -1)
     parent[ground] = ground
-    for x in order[1:].tolist():                 # BFS order: parents first
-        p = parent[x]
-        depth[x] = depth[p] + 1
     levels = np.argsort(depth[order], kind="stable")
     by_level = order[levels]
     cuts = np.flatnonzero(np.diff(depth[by_level])) + 1
     groups = np.split(by_level, cuts)
     for g in groups[1:]:
         d[g] = d[parent[g]] + r_up[g]
+    want = nodes
     if k == 0:
-        out = d[np.asarray(nodes, dtype=np.int64)]
-        return out
+        return d[want]
     a, b = ei[off], ej[off]
     ends, inv = np.unique(np.concatenate([a, b]), return_inverse=True)
-    want = np.asarray(nodes, dtype=np.int64)
     # the columns kept: the nodes asked for, then every loop edge's two ends
     cols = np.concatenate([want, ends])
     # f[p, x] = d(lca(x, end p)): d(x) on the end's root path, else the parent's value;

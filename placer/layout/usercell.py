@@ -251,22 +251,19 @@ def _inner_rect(poly: Any, x: float, y: float) -> tuple[float, float, float, flo
     return best
 
 
-#: A conductor of these roles reaching a side where a neighbour abuts joins (or comes too
-#: near) the neighbour's: metal keeps half its spacing from the side, the rest stays off it.
-_SIDE_ROLES = ("diffusion", "gate", "metal1", "metal2")
-
-
 def _check_sides(flat: Any, bbox: tuple[float, float, float, float], spec: Spec,
                  rules: Rules, layers: LayerMap, where: str) -> None:
     """Refuse a cell whose conductors would touch or crowd a neighbour's: units abut at the
     cell's sides in x (at the spec's pitch, when it gives one), and in y when the spec's
-    row pitch leaves no more than the cell's height."""
+    row pitch leaves no more than the cell's height. A conductor of the layer map reaching
+    a side joins (or comes too near) the neighbour's: metal keeps half its spacing from
+    the side, the rest stays off it."""
     x0, y0, x1, y1 = bbox
     width, height = x1 - x0, y1 - y0
     given = spec.array.pitch_um if spec.array.pitch_given else None
     gap_x = given[0] - width if given else 0.0
     gap_y = given[1] - height if given else None
-    for role in _SIDE_ROLES:
+    for role in layers.conductors:
         try:
             ld = layers[role]
         except KeyError:
