@@ -11,38 +11,25 @@ from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from functools import wraps
 from pathlib import Path
-from typing import Any, NoReturn, TypeVar
+from typing import TYPE_CHECKING, Any, NoReturn, TypeVar
 
 import click
-import numpy as np
 
+# only what the help texts and the wrapper need is imported here: the commands import
+# the library (numpy and the rest) in their bodies, so --help and --version start quickly
 from placer import __version__
 from placer.errors import LayoutError, PlacerError
-from placer.io.handlayout import Recognised, hot_spot_in_pattern_frame, read_layout
-from placer.io.pattern import Pattern, check_against_spec
-from placer.io.spec import NAME_RE, Spec
 from placer.io.staging import FileSet, OutputSet
-from placer.jobs import workload
-from placer.jobs.arrange import METHODS
-from placer.jobs.arrange import arrange as run_arrange
-from placer.jobs.load import default_spec, load_spec
-from placer.jobs.repair import repair as run_repair
-from placer.jobs.repair import sensitivity
-from placer.kinds import KINDS
-from placer.layout import pitch
-from placer.model.grade import Grade, grade_pattern
-from placer.present import outputs
-from placer.present.report import (
-    file_frame,
-    format_arrangement,
-    format_budget,
-    format_grade,
-    format_nets,
-    format_sensitivity,
-    grade_report,
-    json_text,
-)
-from placer.search import Keys
+from placer.jobs import METHODS
+
+if TYPE_CHECKING:
+    from placer.io.handlayout import Recognised
+    from placer.io.pattern import Pattern
+    from placer.io.spec import Spec
+    from placer.jobs.arrange import Arrangement
+    from placer.jobs.repair import RepairResult
+    from placer.model.grade import Grade
+    from placer.search import Keys
 
 __all__ = ["cli"]
 
@@ -88,12 +75,35 @@ _TIME = _Seconds()
 _SEED = click.IntRange(min=0, max=2**63 - 1)
 
 
+def run_arrange(spec: Spec, **options: Any) -> Arrangement:
+    """The search of arrange, compare and lesson (:func:`placer.jobs.arrange.arrange`).
+
+    The commands call it by this module's name, so a test can put another in its place;
+    the search and numpy load on the first call.
+    """
+    from placer.jobs.arrange import arrange as search_arrangement
+
+    return search_arrangement(spec, **options)
+
+
+def run_repair(pattern: Pattern, spec: Spec, pitch_um: tuple[float, float], max_swaps: int,
+               **options: Any) -> RepairResult:
+    """The swap search of repair (:func:`placer.jobs.repair.repair`), loaded on first call."""
+    from placer.jobs.repair import repair as search_swaps
+
+    return search_swaps(pattern, spec, pitch_um, max_swaps, **options)
+
+
 def _user_errors(func: F) -> F:
     """Turn input problems into click's one-line ``Error:`` and exit code 1."""
 
     @wraps(func)
     def wrapper(*args: Any, **kwargs: Any) -> Any:
         import warnings
+
+        # numpy loads here, before the handlers below, so an interrupt while it loads ends
+        # quietly; the rest of the library loads in the command's body, under them
+        import numpy as np
 
         # until here (imports, argument parsing) Ctrl-C ends the process quietly with 130;
         # from here it is a KeyboardInterrupt the command handles (Python runs a pending
@@ -215,6 +225,8 @@ def _drawing_options(func: F) -> F:
 
 
 def _parse_map(items: tuple[str, ...]) -> dict[str, str]:
+    from placer.io.spec import NAME_RE
+
     out = {}
     for item in items:
         cell, sep, device = item.partition("=")
@@ -229,6 +241,11 @@ def _load_graded(path: Path, spec_path: Path | None, *, cell: str | None = None,
                  layers_path: Path | None = None, echo_notes: bool = False
                  ) -> tuple[Pattern, Spec, Recognised]:
     """Read a pattern, CSV or GDSII layout and the spec that grades it."""
+    from placer.io.handlayout import hot_spot_in_pattern_frame, read_layout
+    from placer.io.pattern import check_against_spec
+    from placer.io.spec import NAME_RE
+    from placer.jobs.load import default_spec, load_spec
+    from placer.layout import pitch
     from placer.layout.layers import load_layers
 
     spec = load_spec(spec_path) if spec_path is not None else None
@@ -284,6 +301,17 @@ def grade(layout: Path, spec_path: Path | None, as_json: bool, budget_plot: Path
     in the spec, also the electrical budget: mirror current error, capacitor-array
     INL/DNL or resistor ratio error.
     """
+    from placer.jobs.repair import sensitivity
+    from placer.model.grade import grade_pattern
+    from placer.present.report import (
+        file_frame,
+        format_budget,
+        format_grade,
+        format_sensitivity,
+        grade_report,
+        json_text,
+    )
+
     _picture_path(budget_plot)
     _picture_path(sensitivity_plot)
     if (budget_plot is not None and sensitivity_plot is not None
@@ -369,6 +397,8 @@ class _Progress:
 
 def no_drawing_note(spec: Spec) -> str:
     """Why an arrangement at the spec's pitch has no GDSII, and the ways to get one."""
+    from placer.layout import pitch
+
     need = pitch.pitch_needed(spec, tracks=1)
     px, py = spec.array.pitch_um
     return (f"No GDSII written: the spec's pitch_um = [{px:g}, {py:g}] is smaller than "
@@ -388,6 +418,8 @@ def _tools(spec: Spec, template_path: Path | None, layers_path: Path | None,
 
 
 def _gradient_field(spec: Spec, grade: Grade) -> tuple[float, float] | None:
+    import numpy as np
+
     w = grade.worst("linear_ppm")
     if w is None:
         return None
@@ -418,6 +450,7 @@ def batch(paths: tuple[Path, ...], out_dir: Path, time_limit: float, seed: int,
     block failed (the summary says which and why).
     """
     from placer.jobs.batch import find_specs, run_batch
+    from placer.present import outputs
     from placer.present.report import format_batch
 
     specs = find_specs(list(paths))
@@ -492,8 +525,12 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
     (pattern.png, pattern.svg) and, with an [electrical] table, the budget picture
     (budget.png).
     """
+    from placer.jobs import workload
+    from placer.jobs.load import load_spec
     from placer.layout import block as drawing
     from placer.layout.router import RouteError
+    from placer.present import outputs
+    from placer.present.report import format_arrangement, format_budget, format_nets
 
     spec = load_spec(spec_path)
     workload.check(spec, str(spec_path), time_limit)
@@ -565,7 +602,13 @@ def draw(pattern_path: Path, spec_path: Path | None, out_dir: Path, layers_path:
          template_path: Path | None, unit_gds: Path | None, unit_cell: str | None,
          overlay: bool, force: bool) -> None:
     """Write the routed GDSII layout and preview pictures of PATTERN."""
+    from placer.io.spec import NAME_RE
+    from placer.jobs import workload
     from placer.layout import block as drawing
+    from placer.model.grade import grade_pattern
+    from placer.present import outputs
+    from placer.present.report import format_nets
+
     pattern, spec, _ = _load_graded(pattern_path, spec_path)
     workload.check(spec, str(pattern_path), None)     # memory only: draw has no limit
     spec, tools = _tools(spec, template_path, layers_path, unit_gds, unit_cell)
@@ -603,8 +646,13 @@ def compare(spec_path: Path, out_dir: Path, seed: int, time_limit: float, paper:
     Every arrangement is made on the core the search chose, so the figures differ by
     arrangement alone.
     """
+    from placer.jobs import workload
     from placer.jobs.arrange import baseline_patterns
+    from placer.jobs.load import load_spec
+    from placer.kinds import KINDS
+    from placer.model.grade import grade_pattern
     from placer.model.routing_estimate import estimate_routing, mos_finger_nets
+    from placer.present import outputs
     from placer.present.plot import save_comparison
     from placer.present.report import format_table
 
@@ -664,8 +712,11 @@ def lesson(spec_path: Path, out_dir: Path, pattern_path: Path | None, seed: int,
     clustered, interdigitated, mirrored and optimised arrangements (and yours, with
     --pattern), and it exports the board as pattern text for grade.
     """
-    from placer.io.pattern import read_pattern
+    from placer.io.pattern import check_against_spec, read_pattern
+    from placer.jobs import workload
     from placer.jobs.arrange import baseline_patterns
+    from placer.jobs.load import load_spec
+    from placer.present import outputs
     from placer.present.lesson import MAX_LESSON_UNITS, LessonArrangement, lesson_data, render_page
 
     spec = load_spec(spec_path)
@@ -732,7 +783,11 @@ def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, 
     pattern with its routed drawing; for a GDSII layout also repaired-own.gds, the
     layout itself with the swapped units' references exchanged.
     """
+    from placer.jobs import workload
     from placer.layout import block as drawing
+    from placer.layout import pitch
+    from placer.present import outputs
+
     pat, spec, rec = _load_graded(layout, spec_path, cell=cell, mapping=mapping,
                                   dummy_cells=dummy_cells, layers_path=layers_path,
                                   echo_notes=True)
