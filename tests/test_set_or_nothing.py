@@ -186,7 +186,12 @@ def test_a_signal_during_a_search_ends_the_command_with_nothing_written(tmp_path
         pattern.write_text("\n".join(rows) + "\n")
         args = ["repair", str(pattern), "--spec", str(big)]
     else:
-        args = [command, str(big)]
+        # a mixed-ratio core: its restarts and chains search for seconds (the 512-unit
+        # array converges within a second or two)
+        mixed = spec_file(tmp_path, "[devices]\n" + "\n".join(
+            f"D{i} = {c}" for i, c in enumerate([5, 6, 7, 8, 9, 10])) +
+            "\n[array]\nrows = 5\ncolumns = 9\n", "mixed.toml")
+        args = [command, str(mixed)]
     env = {**os.environ, "PYTHONPATH": str(ROOT)}
     proc = subprocess.Popen([sys.executable, "-m", "placer", *args, "--out", str(out),
                              "--time-limit", "60"], cwd=tmp_path, env=env,

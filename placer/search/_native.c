@@ -167,6 +167,7 @@ typedef struct {
     double g1;                  /* linear gradient (ppm / um), weighted objective */
     const int64_t *base;        /* (n_dev + 1) x NM sums of pinned orbits */
     const double *base_h;       /* (n_dev + 1) x NH */
+    int i64;                    /* the quadratic sums fit in 64 bits (see fits_64) */
 } prob_t;
 
 static const int BIN[5][5] = {{1, 0, 0, 0, 0}, {1, 1, 0, 0, 0}, {1, 2, 1, 0, 0},
@@ -200,6 +201,23 @@ static double central_diff(const prob_t *P, const int64_t *Sa, const double *Ha,
     return sqrt(acc);
 }
 
+/* Whether every quadratic sum of pair_terms fits in 64 bits: with r2 the largest squared
+ * (doubled) radius of an orbit or pinned sum and N units, each product is at most
+ * N^3 r2 in size and the three of a difference at most 6 N^3 r2. */
+static int fits_64(const prob_t *P) {
+    double r2 = 1.0;
+    for (int64_t o = 0; o < P->n_orb; o++) {
+        const int64_t *m = P->orb_m + NM * o;
+        r2 = fmax(r2, (double)(m[3] + m[5]));
+    }
+    for (int64_t d = 0; d <= P->n_dev; d++) {
+        const int64_t *m = P->base + NM * d;
+        r2 = fmax(r2, (double)(m[3] + m[5]));
+    }
+    double n = (double)P->N;
+    return 6.0 * n * n * n * r2 < 0x1p62;
+}
+
 /* Linear (um), quadratic (ppm) and higher-order (um^k) terms of one pair. */
 static void pair_terms(const prob_t *P, const int64_t *S, const double *H, const int64_t *T,
                        int64_t p, double *lin, double *quad, double *hi3, double *hi4) {
@@ -210,11 +228,20 @@ static void pair_terms(const prob_t *P, const int64_t *S, const double *H, const
     double den = (double)na * (double)nb;
     *lin = sqrt(P->hx * P->hx * (double)du * (double)du + P->hy * P->hy * (double)dv * (double)dv)
            / den;
-    i128 qxx = (i128)N * ((i128)nb * Sa[3] - (i128)na * Sb[3]) - (i128)2 * du * T[0];
-    i128 qxy = (i128)N * ((i128)nb * Sa[4] - (i128)na * Sb[4]) - ((i128)du * T[1] + (i128)dv * T[0]);
-    i128 qyy = (i128)N * ((i128)nb * Sa[5] - (i128)na * Sb[5]) - (i128)2 * dv * T[1];
-    double xx = P->hx * P->hx * (double)qxx, xy = P->hx * P->hy * (double)qxy,
-           yy = P->hy * P->hy * (double)qyy;
+    double xx, xy, yy;
+    if (P->i64) {               /* the same exact integers, in 64 bits where they fit */
+        int64_t qxx = N * (nb * Sa[3] - na * Sb[3]) - 2 * du * T[0];
+        int64_t qxy = N * (nb * Sa[4] - na * Sb[4]) - (du * T[1] + dv * T[0]);
+        int64_t qyy = N * (nb * Sa[5] - na * Sb[5]) - 2 * dv * T[1];
+        xx = P->hx * P->hx * (double)qxx; xy = P->hx * P->hy * (double)qxy;
+        yy = P->hy * P->hy * (double)qyy;
+    } else {
+        i128 qxx = (i128)N * ((i128)nb * Sa[3] - (i128)na * Sb[3]) - (i128)2 * du * T[0];
+        i128 qxy = (i128)N * ((i128)nb * Sa[4] - (i128)na * Sb[4]) - ((i128)du * T[1] + (i128)dv * T[0]);
+        i128 qyy = (i128)N * ((i128)nb * Sa[5] - (i128)na * Sb[5]) - (i128)2 * dv * T[1];
+        xx = P->hx * P->hx * (double)qxx; xy = P->hx * P->hy * (double)qxy;
+        yy = P->hy * P->hy * (double)qyy;
+    }
     *quad = P->g2half * sqrt(xx * xx + 2.0 * xy * xy + yy * yy) / ((double)N * den);
     *hi3 = *hi4 = 0.0;
     if (P->order >= 3) {
@@ -311,6 +338,40 @@ static void key_of(const state_t *st, const double *pk, int j, double edge, doub
     }
     *worst = mx;
     *smooth = mx + (P->n_pairs ? lam * sum / (double)P->n_pairs : 0.0);
+}
+
+/* A key's worst pair, which pair that is (-1: every value zero) and its sum over pairs:
+ * kept for the current state so that a trial move rescans only the pairs it touched. */
+typedef struct { double mx, sum; int64_t arg; } agg_t;
+
+static void agg_full(const prob_t *P, const double *pk, int j, agg_t *g) {
+    g->mx = 0.0; g->sum = 0.0; g->arg = -1;
+    for (int64_t p = 0; p < P->n_pairs; p++) {
+        double v = pk[NK * p + j];
+        if (v > g->mx) { g->mx = v; g->arg = p; }
+        g->sum += v;
+    }
+}
+
+/* Worst and summed value of key j after a trial move: the touched pairs (list tl, marked
+ * with stamp == mark) hold their new values in pk2, the others keep theirs in pk. The
+ * worst untouched value is the current worst unless the move touched that pair. */
+static void agg_trial(const prob_t *P, const double *pk, const double *pk2, const int64_t *tl,
+                      int64_t nt, const int64_t *stamp, int64_t mark, const agg_t *g, int j,
+                      double *worst, double *sum) {
+    double m = 0.0, s = g->sum, u = 0.0;
+    for (int64_t i = 0; i < nt; i++) {
+        int64_t p = tl[i];
+        double v = pk2[NK * p + j];
+        if (v > m) m = v;
+        s += v - pk[NK * p + j];
+    }
+    if (g->arg < 0 || stamp[g->arg] != mark) u = g->mx;
+    else
+        for (int64_t p = 0; p < P->n_pairs; p++)
+            if (stamp[p] != mark && pk[NK * p + j] > u) u = pk[NK * p + j];
+    *worst = m > u ? m : u;
+    *sum = s;
 }
 
 /* The field's K E comes in from Python (an FFT convolution on the grid); the covariance
@@ -472,6 +533,7 @@ static PyObject *py_anneal(PyObject *self, PyObject *args) {
     prob_t P = {n_orb, n_dev, n_pairs, n_slots, order, N, bf[0].b.buf, bf[1].b.buf,
                 bf[2].b.buf, bf[3].b.buf, bf[10].b.buf, bf[9].b.buf, fp[0], fp[1], fp[2],
                 fp[3], bf[11].b.buf, bf[12].b.buf};
+    P.i64 = fits_64(&P);
     double lam = fp[4], t_end = fp[5], deadline = fp[6], floor = fp[7];
     const int64_t *orb_key = bf[4].b.buf, *key_grid = bf[5].b.buf;
     const uint8_t *movable = bf[6].b.buf;
@@ -496,7 +558,7 @@ static PyObject *py_anneal(PyObject *self, PyObject *args) {
     int64_t *where = malloc(sizeof(int64_t) * (n_orb ? n_orb : 1));
     int64_t *lst_len = calloc(D1, sizeof(int64_t));
     double *cov2 = NULL;
-    int64_t *lst = NULL, *cnt2 = NULL;
+    int64_t *lst = NULL, *stamp = NULL, *tl = NULL, *dp = NULL, *dp_start = NULL;
     if (!st.dev_of || !st.S || !st.H || !st.pk || !st.edge_cnt || !pk2 || !best || !mov ||
         !where || !lst_len) goto no_memory;
     memcpy(st.dev_of, dev_of, sizeof(int64_t) * n_orb);
@@ -548,10 +610,40 @@ static PyObject *py_anneal(PyObject *self, PyObject *args) {
     double t0 = -1.0;
     int64_t n_gather = 0;
     double gather[64];
-    cnt2 = malloc(sizeof(int64_t) * D1);
-    if (!cnt2) goto no_memory;
+    /* the pairs of each device (dp, from dp_start[d]), the touched-pair list and marks */
+    stamp = calloc(n_pairs ? n_pairs : 1, sizeof(int64_t));
+    tl = malloc(sizeof(int64_t) * (n_pairs ? n_pairs : 1));
+    dp = malloc(sizeof(int64_t) * (2 * n_pairs ? 2 * n_pairs : 1));
+    dp_start = calloc(D1 + 1, sizeof(int64_t));
+    if (!stamp || !tl || !dp || !dp_start) goto no_memory;
+    for (int64_t p = 0; p < n_pairs; p++) {
+        dp_start[P.pairs[2 * p] + 1]++; dp_start[P.pairs[2 * p + 1] + 1]++;
+    }
+    for (int64_t d = 0; d < D1; d++) dp_start[d + 1] += dp_start[d];
+    {
+        int64_t *fill = calloc(D1, sizeof(int64_t));
+        if (!fill) goto no_memory;
+        for (int64_t p = 0; p < n_pairs; p++)
+            for (int e = 0; e < 2; e++) {
+                int64_t d = P.pairs[2 * p + e];
+                dp[dp_start[d] + fill[d]++] = p;
+            }
+        free(fill);
+    }
+    int64_t mark = 0;
+    /* the correlated field changes every pair's sigma: such stages evaluate every pair */
+    int full = st.field && (stage == K_SIG || isfinite(caps[K_SIG]));
+    agg_t agg[NK];
+    int need[NK];
+    for (int j = 0; j < NK; j++) {
+        need[j] = j != K_EDGE && (j == stage || (isfinite(caps[j]) && j != K_SIG)
+                                  || (j == K_SIG && isfinite(caps[K_SIG])));
+        agg_full(&P, st.pk, j, &agg[j]);
+    }
+    /* temperature factor t_end^(it / (n_moves - 1)), kept by one product a move */
+    double cool = 1.0, ratio = pow(t_end, 1.0 / (double)(n_moves > 1 ? n_moves - 1 : 1));
 
-    for (int64_t it = 0; it < n_moves && n_mov >= 2; it++) {
+    for (int64_t it = 0; it < n_moves && n_mov >= 2; it++, cool *= ratio) {
         if ((it & 4095) == 0) {
             if (now_monotonic() > deadline) { status = 1; break; }
             if (PyErr_CheckSignals() < 0) { PyErr_Clear(); status = 2; break; }
@@ -610,42 +702,59 @@ static PyObject *py_anneal(PyObject *self, PyObject *args) {
             if (!ok) continue;
         }
         tried++;
-        /* trial sums: apply, evaluate, undo */
+        /* trial sums: apply, evaluate the pairs the move touches, undo if refused */
         apply_move(&st, &mv);
-        for (int64_t p = 0; p < n_pairs; p++) {
+        int64_t nt = 0;
+        mark++;
+        if (full || a == n_dev || b == n_dev) {     /* a spare moved: the centre moved */
+            for (int64_t p = 0; p < n_pairs; p++) { tl[nt++] = p; stamp[p] = mark; }
+        } else {
+            int64_t ends[2] = {a, b};
+            for (int e = 0; e < 2; e++)
+                for (int64_t i = dp_start[ends[e]]; i < dp_start[ends[e] + 1]; i++) {
+                    int64_t p = dp[i];
+                    if (stamp[p] != mark) { stamp[p] = mark; tl[nt++] = p; }
+                }
+        }
+        for (int64_t i = 0; i < nt; i++) {
+            int64_t p = tl[i];
             double *k = pk2 + NK * p;
-            int64_t pa = P.pairs[2 * p], pb = P.pairs[2 * p + 1];
-            int touched = pa == a || pa == b || pb == a || pb == b
-                          || (a == n_dev || b == n_dev);   /* spare moved: the centre moved */
-            if (touched) {
-                pair_terms(&P, st.S, st.H, st.T, p, &k[K_LIN], &k[K_QUAD], &k[K_HI3], &k[K_HI4]);
-                k[K_WSUM] = P.g1 * k[K_LIN] + k[K_QUAD];
-            } else memcpy(k, st.pk + NK * p, sizeof(double) * NK);
+            pair_terms(&P, st.S, st.H, st.T, p, &k[K_LIN], &k[K_QUAD], &k[K_HI3], &k[K_HI4]);
+            k[K_WSUM] = P.g1 * k[K_LIN] + k[K_QUAD];
+            k[K_EDGE] = st.pk[NK * p + K_EDGE];
+            k[K_SIG] = st.pk[NK * p + K_SIG];
         }
         double edge2 = edge_gap(&st, st.edge_cnt, st.edge_total);
-        memcpy(cnt2, st.edge_cnt, sizeof(int64_t) * D1);
         int feasible = 1;
-        double w2, s2;
+        double w2 = 0.0, s2 = 0.0;
         for (int j = 0; j < NK && feasible; j++) {
             if (!isfinite(caps[j]) || j == K_SIG) continue;
-            double w, s; key_of(&st, pk2, j, edge2, &w, &s, lam);
+            double w, sm;
+            if (j == K_EDGE) w = edge2;
+            else agg_trial(&P, st.pk, pk2, tl, nt, stamp, mark, &agg[j], j, &w, &sm);
             if (w > caps[j]) feasible = 0;
         }
         if (feasible && st.field && (stage == K_SIG || isfinite(caps[K_SIG]))) {
-            field_trial(&st, &mv, cov2);
+            field_trial(&st, &mv, cov2);              /* full: every pair is touched */
             for (int64_t p = 0; p < n_pairs; p++) {
                 int64_t pa = P.pairs[2 * p], pb = P.pairs[2 * p + 1];
                 double v = cov2[pa * D1 + pa] + cov2[pb * D1 + pb] - 2.0 * cov2[pa * D1 + pb];
                 pk2[NK * p + K_SIG] = st.sigma * sqrt(v > 0 ? v : 0.0);
             }
             if (isfinite(caps[K_SIG])) {
-                double w, s; key_of(&st, pk2, K_SIG, edge2, &w, &s, lam);
+                double w, sm;
+                agg_trial(&P, st.pk, pk2, tl, nt, stamp, mark, &agg[K_SIG], K_SIG, &w, &sm);
                 if (w > caps[K_SIG]) feasible = 0;
             }
         }
         int take = 0;
         if (feasible) {
-            key_of(&st, pk2, (int)stage, edge2, &w2, &s2, lam);
+            if (stage == K_EDGE) { w2 = edge2; s2 = edge2; }
+            else {
+                double sum;
+                agg_trial(&P, st.pk, pk2, tl, nt, stamp, mark, &agg[stage], (int)stage, &w2, &sum);
+                s2 = w2 + (n_pairs ? lam * sum / (double)n_pairs : 0.0);
+            }
             double de = s2 - cur_s;
             if (t0 < 0) {                      /* temperature from the first uphill steps */
                 if (de > 0 && n_gather < 64) gather[n_gather++] = de;
@@ -655,14 +764,16 @@ static PyObject *py_anneal(PyObject *self, PyObject *args) {
                     t0 = n_gather ? m / (double)n_gather : fmax(fabs(cur_s), 1e-12);
                 }
             }
-            double frac = (double)it / (double)(n_moves > 1 ? n_moves - 1 : 1);
-            double temp = (t0 > 0 ? t0 : fmax(fabs(cur_s), 1e-12)) * pow(t_end, frac);
+            double temp = (t0 > 0 ? t0 : fmax(fabs(cur_s), 1e-12)) * cool;
             take = de <= 0 || rng_unit(&rng) < exp(-de / (temp > 1e-300 ? temp : 1e-300));
         }
         if (take) {
             accepted++;
             if (st.field) field_accept(&st, &mv, cov2);
-            memcpy(st.pk, pk2, sizeof(double) * NK * (n_pairs ? n_pairs : 1));
+            for (int64_t i = 0; i < nt; i++)
+                memcpy(st.pk + NK * tl[i], pk2 + NK * tl[i], sizeof(double) * NK);
+            for (int j = 0; j < NK; j++)
+                if (need[j]) agg_full(&P, st.pk, j, &agg[j]);
             cur_s = s2;
             cur_w = w2;
             edge = edge2;
@@ -697,13 +808,15 @@ static PyObject *py_anneal(PyObject *self, PyObject *args) {
     out[0] = best_w; out[1] = (double)tried; out[2] = (double)accepted;
     for (int j = 0; j < NK; j++) out[3 + j] = best_keys[j];
     free(st.dev_of); free(st.S); free(st.H); free(st.pk); free(st.edge_cnt); free(pk2);
-    free(best); free(mov); free(lst); free(lst_len); free(where); free(cnt2);
+    free(best); free(mov); free(lst); free(lst_len); free(where);
+    free(stamp); free(tl); free(dp); free(dp_start);
     if (use_field) { free(st.G); free(st.cov); free(cov2); free(st.ncount); }
     drop(bf, 21);
     return PyLong_FromLong(status);
 no_memory:
     free(st.dev_of); free(st.S); free(st.H); free(st.pk); free(st.edge_cnt); free(pk2);
-    free(best); free(mov); free(lst); free(lst_len); free(where); free(cnt2);
+    free(best); free(mov); free(lst); free(lst_len); free(where);
+    free(stamp); free(tl); free(dp); free(dp_start);
     free(st.G); free(st.cov); free(cov2); free(st.ncount);
     drop(bf, 21);
     return PyErr_NoMemory();
