@@ -13,6 +13,7 @@ from numpy.typing import NDArray
 from placer.errors import InfeasibleError, SpecError
 from placer.io.pattern import Pattern
 from placer.io.spec import Spec
+from placer.jobs import METHODS
 from placer.kinds import KINDS
 from placer.limits import MAX_SIDE, MAX_SLOT_DEVICES, MAX_SLOTS
 from placer.model.grade import Grade, grade_pattern
@@ -32,6 +33,7 @@ from placer.search import (
     compare,
     keys_of,
     n_restarts,
+    quadratic_bound,
     rank_key,
     search,
 )
@@ -39,7 +41,6 @@ from placer.search import (
 __all__ = ["METHODS", "Arrangement", "Candidate", "candidate_shapes", "build_pattern",
            "problem_for", "arrange", "baseline_pattern", "HOLE_MARGIN", "DEFAULT_TIME_LIMIT_S"]
 
-METHODS = ("auto", "clustered", "interdigitated", "mirrored", "milp")
 IntArray = NDArray[np.int64]
 #: A core with spare (empty) slots beats one without them only when its worst-pair
 #: linear + quadratic error is below this fraction of the full core's.
@@ -88,6 +89,9 @@ class Arrangement:
     spec: Spec | None = None
     #: the time limit the search was given (seconds; 0 when not recorded)
     time_limit_s: float = 0.0
+    #: no arrangement whose linear error is at most this one's has a smaller worst-pair
+    #: quadratic error (ppm; nan where no bound is claimed)
+    quadratic_bound_ppm: float = float("nan")
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready summary (the grade and routing in full)."""
@@ -100,6 +104,8 @@ class Arrangement:
             "keys": asdict(self.keys),
             "linear_bound_um": (None if self.linear_bound_um != self.linear_bound_um
                                 else self.linear_bound_um),
+            "quadratic_bound_ppm": (None if self.quadratic_bound_ppm != self.quadratic_bound_ppm
+                                    else self.quadratic_bound_ppm),
             "proven_optimal": self.proven,
             "stopped": self.stopped,
             "moves": self.moves,
@@ -503,6 +509,7 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
         shape_reason=_shape_reason(spec, tried, best, len(shapes) - len(tried),
                                    interrupted),
         linear_bound_um=lin_bound,
+        quadratic_bound_ppm=quadratic_bound(best.prob, best.keys.linear_um),
         proven=proven,
         stopped=stopped, elapsed_s=time.monotonic() - t0,
         moves=sum(t.result.moves for t in tried if t.result),

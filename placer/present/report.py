@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from typing import TYPE_CHECKING, Any
 
 from placer.io.pattern import format_pattern
@@ -66,6 +67,12 @@ def format_table(header: list[str], rows: list[list[str]]) -> str:
                                                                      strict=True)]
         lines.append("  ".join(cells).rstrip())
     return "\n".join(lines)
+
+
+def _floor(value: float, digits: int) -> str:
+    """A positive bound to ``digits`` significant digits, rounded down (never above it)."""
+    step = 10.0 ** (math.floor(math.log10(value)) - digits + 1)
+    return f"{math.floor(value / step) * step:.{digits}g}"
 
 
 def _f(value: float, digits: int = 3) -> str:
@@ -207,8 +214,14 @@ def format_arrangement(result: Arrangement, spec: Spec) -> str:
         bound = "no bound"
     out.append(f"Linear: worst pair centroid distance {_f(k.linear_um, 4)} um = "
                f"{_f(k.linear_um * g)} ppm ({bound}).")
-    quad_note = (" (proven optimal at that linear error)"
-                 if result.proven == "linear and quadratic" else "")
+    qb = result.quadratic_bound_ppm
+    if result.proven == "linear and quadratic":
+        quad_note = " (proven optimal at that linear error)"
+    elif searched and qb == qb and qb > 0:
+        quad_note = (f" (lower bound {_floor(qb, 4)} ppm for any arrangement with that "
+                     f"linear error)")
+    else:
+        quad_note = ""
     out.append(f"Quadratic: worst pair {_f(k.quadratic_ppm, 4)} ppm{quad_note}.")
     r = result.routing
     breaks = "" if r.diffusion_breaks is None else f", {r.diffusion_breaks} diffusion breaks"

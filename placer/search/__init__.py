@@ -9,11 +9,13 @@ One public entry, :func:`search`, takes a :class:`Problem` and returns a frozen
 ``_construct``  symmetric and near-symmetric starts, the fair deal, random starts
 ``_local``      the compiled Metropolis loop, one stage at a time
 ``_exact``      branch and bound, the linear bound, assignment counts
+``_bounds``     the quadratic bound at a given linear error
 ``_driver``     stages, restarts, chains, the exact path and the worker process
 
 ``baselines`` (public) builds the textbook arrangements on the same problem.
 """
 
+from placer.search._bounds import quadratic_bound
 from placer.search._compiled import compile_problem, evaluate, orbit_assignment
 from placer.search._construct import core_coords, deal
 from placer.search._driver import SearchResult, n_restarts, search
@@ -28,7 +30,7 @@ from placer.search._problem import (
 
 __all__ = ["Problem", "Keys", "SearchResult", "search", "n_restarts", "compare", "rank_key",
            "keys_of", "core_coords", "deal", "DEFAULT_RELATIVE_TIE", "SYMMETRIES",
-           "compile_problem", "evaluate", "orbit_assignment"]
+           "compile_problem", "evaluate", "orbit_assignment", "quadratic_bound"]
 
 
 def keys_of(prob: Problem, assign: object) -> Keys:
