@@ -498,7 +498,7 @@ def batch(paths: tuple[Path, ...], out_dir: Path, time_limit: float, seed: int,
               default=60.0, show_default=True,
               help="Limit on the whole run in seconds: the search gets what start-up and "
                    "the estimated work after it (scoring, routing, files) leave, at least "
-                   "a quarter of it, and usually ends sooner. A block whose other work is "
+                   "a fifth of it, and usually ends sooner. A block whose other work is "
                    "estimated at more than 3 x this + 5 s is refused at once, naming the "
                    "limit it needs.")
 @click.option("--seed", type=_SEED, default=0, show_default=True,
@@ -525,6 +525,9 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
     (pattern.png, pattern.svg) and, with an [electrical] table, the budget picture
     (budget.png).
     """
+    from dataclasses import replace
+
+    from placer.io import forked
     from placer.jobs import workload
     from placer.jobs.load import load_spec
     from placer.layout import block as drawing
@@ -547,7 +550,7 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
     with OutputSet(out_dir, names, force, outputs.ARRANGE_FILES) as out:
         progress = _Progress(not quiet and sys.stderr.isatty())
         # the limit is the whole run's: the search gets what the work before and after it
-        # leave (never less than a quarter of it), from the spec alone (see search_seconds)
+        # leave (never less than a fifth of it), from the spec alone (see search_seconds)
         search_limit = workload.search_seconds(
             time_limit,
             workload.after_search(spec, routed=tools is not None, candidates=n_candidates))
@@ -561,13 +564,19 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
         spec = result.spec or spec           # at the pitch its routing needs
         # the search is over: finish the outputs as one set before honouring a signal
         with _deferred_signals() as caught:
-            block = (drawing.prepare(result.pattern, spec, tools) if tools is not None
-                     else None)
-            bud = _budget(result.pattern, spec, result.grade, required=False,
-                          block=block)
-            outputs.write_arrangement(out, result, block, bud, spec_path=spec_path, seed=seed,
-                                      time_limit_s=time_limit, spec=spec, note=note,
-                                      search_limit_s=search_limit)
+            # the previews need only the arrangement and the cell: a child process draws
+            # them while this one routes and extracts (the two take turns on one CPU)
+            previews = outputs.arrangement_previews(
+                out, result, spec, tools.cell(spec).extent if tools is not None else None)
+            with forked.aside(previews.draw) as pictures:
+                block = (drawing.prepare(result.pattern, spec, tools) if tools is not None
+                         else None)
+                bud = _budget(result.pattern, spec, result.grade, required=False,
+                              block=block)
+                outputs.write_arrangement(out, result, block, bud, spec_path=spec_path,
+                                          seed=seed, time_limit_s=time_limit, spec=spec,
+                                          note=note, search_limit_s=search_limit,
+                                          drawn=replace(previews, done=pictures.wait))
             written = out.commit()
             # the set is complete: a signal now only shortens the exit, never the report
             click.echo(format_arrangement(result, spec))

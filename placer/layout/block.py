@@ -7,9 +7,9 @@ previews in an output set.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from pathlib import Path
-from typing import Any
+from typing import Any, cast
 
 from placer.errors import LimitError
 from placer.io.pattern import EMPTY, Pattern
@@ -35,10 +35,27 @@ class Tools:
     rules: Rules
     layers: LayerMap
     user: Any = None
+    #: the specs this fit gave, by pattern: a spec fitted to a pattern is its own fit, so
+    #: the block is drawn at the very pitch the arrangement was scored at (and the router's
+    #: plan is not run twice)
+    _given: list[tuple[Pattern, Spec]] = field(default_factory=list, compare=False,
+                                               repr=False)
 
     def fit(self, pattern: Pattern, spec: Spec) -> Spec:
         """``spec`` at the pitch the routing of ``pattern`` needs with these tools."""
-        return fitted(pattern, spec, self.rules, user=self.user)
+        for p, s in self._given:
+            if p is pattern and s is spec:
+                return spec
+        out = fitted(pattern, spec, self.rules, user=self.user)
+        self._given[:] = [*self._given[-7:], (pattern, out)]
+        return out
+
+    def cell(self, spec: Spec) -> UnitCell:
+        """The unit cell drawn at the spec's pitch: the user's, else placer's generic."""
+        if self.user is not None:
+            return cast(UnitCell, self.user.cell)
+        return unit_cell(spec.kind, spec.unit.width_um, spec.unit.length_um,
+                         spec.array.pitch_um[0], self.rules)
 
     def weigh(self, pattern: Pattern, spec: Spec) -> tuple[float, float]:
         """The routed block of ``pattern`` (at the pitch its routing needs): its worst-pair
@@ -86,11 +103,7 @@ def prepare(pattern: Pattern, spec: Spec, tools: Tools) -> Block:
     gives a pitch, the block's spec carries the pitch this routing needs
     (:func:`placer.layout.pitch.fitted`): grade the pattern with ``block.spec``."""
     spec = tools.fit(pattern, spec)
-    if tools.user is not None:
-        cell = tools.user.cell
-    else:
-        cell = unit_cell(spec.kind, spec.unit.width_um, spec.unit.length_um,
-                         spec.array.pitch_um[0], tools.rules)
+    cell = tools.cell(spec)
     rows, cols = pattern.shape
     px, py = spec.array.pitch_um
     if max((cols + 2) * px, (rows + 2) * py) > MAX_EXTENT_UM:

@@ -6,11 +6,12 @@ The command line only opens the set with these names, calls the writer and print
 
 from __future__ import annotations
 
-from dataclasses import asdict
+from collections.abc import Callable
+from dataclasses import asdict, dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from placer.io.pattern import format_pattern
+from placer.io.pattern import Pattern, format_pattern
 from placer.io.staging import OutputSet
 from placer.layout.block import Block, area_of, library
 from placer.layout.gdswrite import write_gds
@@ -24,8 +25,9 @@ if TYPE_CHECKING:
     from placer.jobs.arrange import Arrangement
     from placer.jobs.repair import RepairResult
 
-__all__ = ["write_block", "ARRANGE_FILES", "arrange_names", "write_arrangement",
-           "draw_names", "compare_names", "lesson_name", "repair_names", "write_repair",
+__all__ = ["write_block", "Previews", "arrangement_previews", "ARRANGE_FILES",
+           "arrange_names", "write_arrangement", "draw_names", "compare_names", "lesson_name",
+           "repair_names", "write_repair",
            "layout_report", "swap_lines", "BATCH_FILES", "write_batch"]
 
 #: Every file an arrange run may write (a --force run replaces them all, and only them).
@@ -35,16 +37,57 @@ ARRANGE_FILES = ("pattern.txt", "report.json", "pattern.gds", "pattern.sp", "pat
 
 def write_block(block: Block, grade: Grade, out: OutputSet, stem: str,
                 gradient: tuple[float, float] | None = None,
-                moved: tuple[tuple[int, int], ...] = ()) -> list[str]:
-    """Stage ``<stem>.gds``, ``.png`` and ``.svg``; return the names written. ``moved``
-    slots are outlined in the pictures."""
+                moved: tuple[tuple[int, int], ...] = (), pictures: bool = True) -> list[str]:
+    """Stage ``<stem>.gds``, ``.png`` and ``.svg`` (the pictures unless ``pictures`` is
+    false: drawn already); return the names written. ``moved`` slots are outlined in the
+    pictures."""
     lib = library(block)
     names = draw_names(stem)
     write_gds(lib, out.path(names[0]))
-    save_preview(block.pattern, block.spec.array.pitch_um, grade, block.spec.name,
-                 [out.path(names[1]), out.path(names[2])], gradient=gradient,
-                 cell_extent=block.cell.extent, moved=moved)
+    if pictures:
+        save_preview(block.pattern, block.spec.array.pitch_um, grade, block.spec.name,
+                     [out.path(names[1]), out.path(names[2])], gradient=gradient,
+                     cell_extent=block.cell.extent, moved=moved)
     return names
+
+
+@dataclass(frozen=True, eq=False)
+class Previews:
+    """What an arrangement's preview pictures are drawn from: drawn by :meth:`draw`
+    (``arrange`` does so in a forked child while the block routes, see
+    :func:`placer.io.forked.aside`)."""
+
+    pattern: Pattern
+    grade: Grade
+    name: str
+    pitch_um: tuple[float, float]
+    cell_extent: tuple[float, float, float, float] | None
+    paths: tuple[Path, ...]
+    #: for previews drawn elsewhere: waits for that work, and tells whether it succeeded
+    done: Callable[[], bool] | None = None
+
+    def same(self, other: Previews | None) -> bool:
+        """Whether ``other`` drew the very same pictures into the same files (waiting for
+        its work to end first, so that nothing else writes them meanwhile)."""
+        if other is None or not (other.done is None or other.done()):
+            return False
+        return (other.pattern is self.pattern
+                and other.grade is self.grade and other.name == self.name
+                and other.pitch_um == self.pitch_um and other.cell_extent == self.cell_extent
+                and other.paths == self.paths)
+
+    def draw(self) -> None:
+        """Write both pictures."""
+        save_preview(self.pattern, self.pitch_um, self.grade, self.name, list(self.paths),
+                     cell_extent=self.cell_extent)
+
+
+def arrangement_previews(out: OutputSet, result: Arrangement, spec: Spec,
+                         cell_extent: tuple[float, float, float, float] | None,
+                         done: Callable[[], bool] | None = None) -> Previews:
+    """The previews of ``result`` at ``spec``'s pitch (the block's when it is drawn)."""
+    return Previews(result.pattern, result.grade, spec.name, spec.array.pitch_um,
+                    cell_extent, (out.path("pattern.png"), out.path("pattern.svg")), done)
 
 
 # ----------------------------------------------------------------------------- arrange
@@ -60,10 +103,13 @@ def arrange_names(spec: Spec, n_candidates: int, drawn: bool = True) -> list[str
 
 def write_arrangement(out: OutputSet, result: Arrangement, block: Block | None, budget: Any,
                       *, spec_path: Path, seed: int, time_limit_s: float, spec: Spec,
-                      note: str | None = None, search_limit_s: float | None = None) -> None:
+                      note: str | None = None, search_limit_s: float | None = None,
+                      drawn: Previews | None = None) -> None:
     """Stage every file of :func:`arrange_names` for ``result`` and its routed ``block``
     (the block's spec is at the pitch its routing needs); with no block (a pitch placer's
-    cell cannot be drawn at), no GDSII or netlist, and ``note`` in the report says why."""
+    cell cannot be drawn at), no GDSII or netlist, and ``note`` in the report says why.
+    ``drawn``: the previews are written already, from these facts (drawn again if the
+    block's differ)."""
     from placer.layout.netlist import netlist
 
     spec = block.spec if block is not None else spec
@@ -96,10 +142,11 @@ def write_arrangement(out: OutputSet, result: Arrangement, block: Block | None, 
     out.write("report.json", json_text(report) + "\n")
     if block is not None:
         out.write("pattern.sp", netlist(spec, block.parasitics))
-        write_block(block, result.grade, out, "pattern")
-    else:
-        save_preview(result.pattern, spec.array.pitch_um, result.grade, spec.name,
-                     [out.path("pattern.png"), out.path("pattern.svg")])
+        write_block(block, result.grade, out, "pattern", pictures=False)
+    here = arrangement_previews(out, result, spec,
+                                block.cell.extent if block is not None else None)
+    if not here.same(drawn):
+        here.draw()
     if budget is not None:
         save_budget(budget, spec.name, [out.path("budget.png")], devices=spec.devices)
 
@@ -213,7 +260,6 @@ def write_batch(out: OutputSet, runs: list[Any], *, wall_s: float, jobs: int,
     """Stage the batch's summary.json and index.html (a page of every block: its figures,
     its preview and links to its files, relative to the batch folder)."""
     import html
-    from dataclasses import asdict
 
     out.write("summary.json", json_text({
         "blocks": [asdict(r) for r in runs], "wall_s": wall_s, "jobs": jobs,

@@ -259,49 +259,13 @@ def n_restarts(time_limit_s: float) -> int:
     return int(np.clip(round(RESTARTS_PER_S * time_limit_s), 1, MAX_RESTARTS))
 
 
-#: Signals held back across the fork: the child sets its own handlers before it takes any.
-_HELD = ("SIGINT", "SIGTERM")
-
-
-def _held() -> set[Any]:
-    import signal
-
-    return {getattr(signal, name) for name in _HELD}
-
-
 def _worker_entry(parent: int, *args: Any) -> None:
-    """The second process's start: Ctrl-C ignored (the parent handles it), SIGTERM the
-    system's default (the parent stops it so), and only then the signals the fork held
-    back let through; then :func:`_worker` (looked up now, so a test may replace it).
-    A handler inherited from the parent (one that raises) must never run here: raised
-    before the worker's own code, it would unwind into the parent's copied stack."""
-    import signal
+    """The second process's start: a child's signal rules (:mod:`placer.io.forked`),
+    then :func:`_worker` (looked up now, so a test may replace it)."""
+    from placer.io.forked import child_start
 
-    signal.signal(signal.SIGINT, signal.SIG_IGN)
-    signal.signal(signal.SIGTERM, signal.SIG_DFL)
-    _end_with_parent(parent)
-    if hasattr(signal, "pthread_sigmask"):
-        signal.pthread_sigmask(signal.SIG_UNBLOCK, _held())
+    child_start(parent)
     _worker(*args)
-
-
-def _end_with_parent(parent: int) -> None:
-    """Have the kernel send this process SIGTERM when its parent ends, however the parent
-    ends (killed outright too), so no worker searches on alone (Linux; elsewhere the
-    parent's clean-up stops it). If the parent is already gone, end now."""
-    import signal
-    import sys
-
-    if sys.platform.startswith("linux"):
-        import ctypes
-
-        try:
-            libc = ctypes.CDLL(None, use_errno=True)
-            libc.prctl(1, int(signal.SIGTERM), 0, 0, 0)      # PR_SET_PDEATHSIG = 1
-        except (OSError, AttributeError):
-            pass
-    if os.getppid() != parent:
-        os._exit(0)
 
 
 def _worker(send: Any, comp: Compiled, start: IntArray, seed: int, deadline: float,
@@ -389,15 +353,9 @@ def search(prob: Problem, *, seed: int = 0, time_limit_s: float = 60.0,
                                                             seeds[1], deadline, floor,
                                                             restarts),
                                  daemon=True), recv)
-            import signal
+            from placer.io.forked import blocked
 
-            if hasattr(signal, "pthread_sigmask"):
-                before = signal.pthread_sigmask(signal.SIG_BLOCK, _held())
-                try:
-                    child[0].start()
-                finally:
-                    signal.pthread_sigmask(signal.SIG_SETMASK, before)
-            else:
+            with blocked():                 # held until the child sets its handlers
                 child[0].start()
             send.close()
         if not tiny:
