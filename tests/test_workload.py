@@ -131,10 +131,10 @@ def test_the_capacitor_budget_and_monte_carlo_terms_by_hand():
 
 # ------------------------------------------------------------- arrange's whole-run limit
 
-def test_the_search_gets_what_the_limit_leaves_never_under_a_quarter():
-    """The share: limit - before - 1.15 x after, floored at a quarter of the limit."""
+def test_the_search_gets_what_the_limit_leaves_never_under_a_fifth():
+    """The share: limit - before - 1.15 x after, floored at a fifth of the limit."""
     assert workload.search_seconds(10.0, 2.0, before_s=1.0) == pytest.approx(10.0 - 1.0 - 2.3)
-    assert workload.search_seconds(2.0, 5.0) == pytest.approx(0.5)
+    assert workload.search_seconds(2.0, 5.0) == pytest.approx(0.4)
     assert workload.search_seconds(2.0, 0.0, before_s=0.0) == pytest.approx(2.0)
     assert workload.search_seconds(4.0, 1.0) == pytest.approx(
         4.0 - workload.BEFORE_SEARCH_S - 1.15)
@@ -201,3 +201,22 @@ def test_the_search_runs_with_the_share_the_report_gives(tmp_path, monkeypatch):
     after = workload.after_search(parse_spec(spec.read_text(), str(spec)))
     assert seen == [report["search_limit_s"]] == [workload.search_seconds(3.0, after)]
     assert f" of its {seen[0]:.3g} s, " in res.output          # the report says it too
+
+
+def test_a_short_limit_goes_to_fewer_core_shapes_a_full_one_kept():
+    """Each core shape costs fixed work before its search moves (the pitch fit, the
+    baselines, the starts): a short limit tries fewer of them, always keeping a full
+    rectangle where the list holds one, and the report says why the others were left."""
+    from placer.jobs.arrange import _keep_shapes, arrange, candidate_shapes
+
+    big = parse_spec("[devices]\nA = 2048\nB = 2048\n", "s.toml")
+    assert workload.shapes_affordable(big, 0.5) == 1
+    assert workload.shapes_affordable(big, 10.0) > len(candidate_shapes(big))
+    shapes = [(2, 9), (3, 6), (4, 5)]
+    assert _keep_shapes(shapes, 1, 18) == [(2, 9)]
+    assert _keep_shapes(shapes, 1, 20) == [(4, 5)]          # the full one, not the first
+    assert _keep_shapes(shapes, 2, 20) == [(2, 9), (4, 5)]
+    assert _keep_shapes(shapes, 5, 20) == shapes
+    spec = parse_spec("[devices]\nA = 200\nB = 200\n", "s.toml")
+    res = arrange(spec, time_limit_s=0.05, fit=None)
+    assert "not tried: the time limit affords 1" in res.shape_reason

@@ -13,7 +13,7 @@ from numpy.typing import NDArray
 from placer.errors import InfeasibleError, SpecError
 from placer.io.pattern import Pattern
 from placer.io.spec import Spec
-from placer.jobs import METHODS
+from placer.jobs import METHODS, workload
 from placer.kinds import KINDS
 from placer.limits import MAX_SIDE, MAX_SLOT_DEVICES, MAX_SLOTS
 from placer.model.grade import Grade, grade_pattern
@@ -443,6 +443,11 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
     if not shapes:
         raise SpecError(f"{spec.source}: no core shape holds {spec.n_units} units within "
                         f"{MAX_SLOTS} slots")
+    # a short limit goes to moves on fewer shapes (each costs fixed work before its
+    # search moves); the count comes from the spec and the limit, never from a clock
+    afford = workload.shapes_affordable(spec, time_limit_s)
+    unafforded = max(0, len(shapes) - afford)
+    shapes = _keep_shapes(shapes, afford, spec.n_units)
     t0 = time.monotonic()
     share = time_limit_s / len(shapes)
     tried: list[_Tried] = []
@@ -507,7 +512,7 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
         pattern=pattern, grade=grade, routing=routing, keys=best.keys, method=best.method,
         core_shape=(rows, cols),
         shape_reason=_shape_reason(spec, tried, best, len(shapes) - len(tried),
-                                   interrupted),
+                                   interrupted, unafforded),
         linear_bound_um=lin_bound,
         quadratic_bound_ppm=quadratic_bound(best.prob, best.keys.linear_um),
         proven=proven,
@@ -520,11 +525,26 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
     )
 
 
+def _keep_shapes(shapes: list[tuple[int, int]], n: int, units: int) -> list[tuple[int, int]]:
+    """The first ``n`` shapes, a full rectangle among them when the list holds one."""
+    if n >= len(shapes):
+        return shapes
+    kept = shapes[:n]
+    full = [s for s in shapes if s[0] * s[1] == units]
+    if full and not any(r * c == units for r, c in kept):
+        kept[-1] = full[0]
+    return kept
+
+
 def _shape_reason(spec: Spec, tried: list[_Tried], best: _Tried, untried: int = 0,
-                  interrupted: bool = False) -> str:
+                  interrupted: bool = False, unafforded: int = 0) -> str:
     why = "the run was interrupted" if interrupted else "the time limit was spent"
     late = (f"; {untried} more shape{'s' if untried > 1 else ''} not tried: {why}"
             if untried else "")
+    if unafforded:
+        late += (f"; {unafforded} more shape{'s' if unafforded > 1 else ''} not tried: the "
+                 f"time limit affords {len(tried) + untried} (each costs fixed work before "
+                 f"its search)")
     if len(tried) == 1:
         r, c = tried[0].shape
         given = spec.array.rows is not None or spec.array.columns is not None

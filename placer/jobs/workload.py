@@ -133,7 +133,7 @@ _AFTER_CANDIDATE_S = 0.25
 #: on a busy machine)
 AFTER_SAFETY = 1.15
 #: the search keeps at least this share of the limit, however much work comes after it
-MIN_SEARCH_SHARE = 0.25
+MIN_SEARCH_SHARE = 0.2
 #: start-up and the work before the search (imports, reading, the tools, the pitch fit)
 #: as the share counts it: a fixed figure, not a clock reading, so that the share (and
 #: the number of restarts it sets) is the same on every run of a spec, seed and limit
@@ -165,6 +165,29 @@ def after_search(spec: Spec, routed: bool = True, candidates: int = 0) -> float:
     return secs
 
 
+#: Each core shape ``arrange`` tries costs fixed work before its search moves (the pitch
+#: fitted to a textbook arrangement of it, the baselines scored, the starts built):
+#: measured 0.05, 0.07 and 0.27 s for mirrors of 256, 1024 and 4096 units and 0.11 and
+#: 0.41 s for capacitor arrays of 1024 and 4096 (this machine).
+_SHAPE_BASE_S = 0.02
+_SHAPE_PER_UNIT_S = 1.0e-4
+#: a shape is tried only when its fixed work is at most this share of its part of the
+#: search's limit: at a short limit the search's time goes to moves on fewer shapes
+SHAPE_WORK_SHARE = 1 / 3
+
+
+def shapes_affordable(spec: Spec, search_s: float) -> int:
+    """How many core shapes a search of ``search_s`` seconds tries (at least one).
+
+    >>> from placer.jobs.load import parse_spec
+    >>> big = parse_spec('[devices]\\nA = 2048\\nB = 2048\\n', "s.toml")
+    >>> shapes_affordable(big, 0.5), shapes_affordable(big, 10.0)
+    (1, 7)
+    """
+    per_shape = _SHAPE_BASE_S + _SHAPE_PER_UNIT_S * spec.n_units
+    return max(1, int(SHAPE_WORK_SHARE * search_s / per_shape))
+
+
 def search_seconds(time_limit_s: float, after_s: float,
                    before_s: float = BEFORE_SEARCH_S) -> float:
     """The search's share of a whole-run limit: what is left of ``time_limit_s`` after the
@@ -174,7 +197,7 @@ def search_seconds(time_limit_s: float, after_s: float,
     >>> search_seconds(10.0, 2.0, before_s=0.5)
     7.2
     >>> search_seconds(0.5, 1.0)
-    0.125
+    0.1
     """
     left = time_limit_s - before_s - AFTER_SAFETY * after_s
     return round(max(left, MIN_SEARCH_SHARE * time_limit_s), 6)
