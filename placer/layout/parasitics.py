@@ -162,13 +162,22 @@ def _overlap(a: Rect, b: Rect) -> tuple[float, float, float, float] | None:
     return x0, y0, x1, y1
 
 
-def _touching(a: list[Rect], b: list[Rect] | None = None) -> list[tuple[int, int]]:
-    """Index pairs (i in ``a``, j in ``b``) of rectangles that overlap or touch (within
-    1 nm); with ``b`` None, pairs i < j within ``a``. A grid keeps it near linear."""
-    both = a if b is None else a + b
-    if len(both) < 2:
+def _boxes(rects: list[Rect]) -> NDArray[np.float64]:
+    """(x0, y0, x1, y1) of each rectangle, shape (n, 4)."""
+    return np.array([(r.x0, r.y0, r.x1, r.y1) for r in rects], dtype=float).reshape(-1, 4)
+
+
+def _touching(a: list[Rect] | NDArray[np.float64],
+              b: list[Rect] | NDArray[np.float64] | None = None) -> list[tuple[int, int]]:
+    """Index pairs (i in ``a``, j in ``b``) of rectangles (or their :func:`_boxes`) that
+    overlap or touch (within 1 nm); with ``b`` None, pairs i < j within ``a``. A grid
+    keeps it near linear."""
+    a = a if isinstance(a, np.ndarray) else _boxes(a)
+    if b is not None:
+        b = b if isinstance(b, np.ndarray) else _boxes(b)
+    rects = a if b is None else np.concatenate([a, b])
+    if len(rects) < 2:
         return []
-    rects = np.array([(r.x0, r.y0, r.x1, r.y1) for r in both], dtype=float)
     pairs = _candidate_pairs(rects, 1e-3)
     if not len(pairs):
         return []
@@ -212,8 +221,9 @@ def _net_network(net: str, wires: list[Rect], taps: list[tuple[int, Tap]],
 
     pads = [(k, p) for k, (_, t) in enumerate(taps) for p in t.pads]
     pad_rects = [p for _, p in pads]
+    wire_box, pad_box = _boxes(wires), _boxes(pad_rects)      # each converted once
     # wires overlapping terminal metal on their layer: that stretch is the terminal
-    for i, q in sorted(_touching(wires, pad_rects)):
+    for i, q in sorted(_touching(wire_box, pad_box)):
         w = wires[i]
         k, p = pads[q]
         if p.role != w.role:
@@ -230,7 +240,7 @@ def _net_network(net: str, wires: list[Rect], taps: list[tuple[int, Tap]],
             uf.join(n, pad_node[k])
         shorted[i].append((lo, hi))
     # wires overlapping wires of the net on the same layer
-    for i, j in sorted(_touching(wires)):
+    for i, j in sorted(_touching(wire_box)):
         if wires[i].role != wires[j].role:
             continue
         o = _overlap(wires[i], wires[j])
@@ -240,13 +250,13 @@ def _net_network(net: str, wires: list[Rect], taps: list[tuple[int, Tap]],
         uf.join(at(i, cx, cy), at(j, cx, cy))
     # pins
     pin_pts = _points([(x, y) for x, y, _ in pins])
-    for q, i in sorted(_touching(pin_pts, wires)):
+    for q, i in sorted(_touching(pin_pts, wire_box)):
         x, y, layer = pins[q]
         if wires[i].role == layer:
             assert pin_node is not None
             uf.join(at(i, x, y), pin_node)
             pos.setdefault(pin_node, (x, y))
-    for q, m in sorted(_touching(pin_pts, pad_rects)):
+    for q, m in sorted(_touching(pin_pts, pad_box)):
         x, y, layer = pins[q]
         k, p = pads[m]
         if p.role == layer:
@@ -255,12 +265,12 @@ def _net_network(net: str, wires: list[Rect], taps: list[tuple[int, Tap]],
     if pin_node is not None and pin_node not in pos:
         pos[pin_node] = (pins[0][0], pins[0][1])
     # vias: metal1 side to metal2 side
-    via_pts = _points(vias)
+    via_box = np.array([(x, y, x, y) for x, y in vias], dtype=float).reshape(-1, 4)
     on_wire: dict[int, list[int]] = defaultdict(list)
-    for q, i in _touching(via_pts, wires):
+    for q, i in _touching(via_box, wire_box):
         on_wire[q].append(i)
     on_pad: dict[int, list[int]] = defaultdict(list)
-    for q, m in _touching(via_pts, pad_rects):
+    for q, m in _touching(via_box, pad_box):
         on_pad[q].append(m)
     edges: list[tuple[int, int, float, bool]] = []
     for q, (x, y) in enumerate(vias):
@@ -295,21 +305,30 @@ def _net_network(net: str, wires: list[Rect], taps: list[tuple[int, Tap]],
                 uf.join(n0, n1)
                 continue
             edges.append((n0, n1, sheet[w.role] * (s1 - s0) / width, False))
-    # compact the nodes
-    roots = sorted({uf.find(i) for i in range(len(uf.parent))})
-    index = {r: k for k, r in enumerate(roots)}
-    e_arr = np.array([(index[uf.find(a)], index[uf.find(b)]) for a, b, _, _ in edges],
-                     dtype=np.int64).reshape(-1, 2)
+    # compact the nodes: every node to its root (the smallest node of its set: a join
+    # keeps the smaller root), the roots numbered in order
+    parent = np.array(uf.parent, dtype=np.int64)
+    while True:
+        up = parent[parent]
+        if np.array_equal(up, parent):
+            break
+        parent = up
+    roots, index = np.unique(parent, return_inverse=True)
+    index = index.astype(np.int64)
+    e_arr = (index[np.array([(a, b) for a, b, _, _ in edges], dtype=np.int64).reshape(-1, 2)]
+             if edges else np.zeros((0, 2), dtype=np.int64))
     ohm = np.array([r for _, _, r, _ in edges], dtype=float)
     is_via = np.array([v for _, _, _, v in edges], dtype=bool)
     xy = np.zeros((len(roots), 2))
-    for n, at_xy in pos.items():
-        xy[index[uf.find(n)]] = at_xy
+    if pos:
+        nodes = np.fromiter(pos.keys(), dtype=np.int64, count=len(pos))
+        xy[index[nodes]] = np.array(list(pos.values()), dtype=float)
     network = Network(net, len(roots), e_arr, ohm, is_via,
-                      None if pin_node is None else index[uf.find(pin_node)],
+                      None if pin_node is None else int(index[pin_node]),
                       tuple(ti for ti, _ in taps),
-                      tuple(index[uf.find(n)] for n in pad_node), xy)
-    kept = [(w, [(s, index[uf.find(n)]) for s, n in ev]) for w, ev in kept]
+                      tuple(index[pad_node].tolist()) if pad_node else (), xy)
+    named = index.tolist()
+    kept = [(w, [(s, named[n]) for s, n in ev]) for w, ev in kept]
     return network, kept
 
 
