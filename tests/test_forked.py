@@ -61,19 +61,27 @@ def _arrange(tmp_path, name: str) -> bytes:
 def test_arrange_previews_drawn_aside_are_the_ones_drawn_in_process(tmp_path, monkeypatch):
     """The child's pictures are byte for byte those the parent draws (the writer is
     deterministic), and when the child fails the parent draws them itself."""
-    aside_svg = _arrange(tmp_path, "a")
+    import placer.cli as cli_module
+
+    monkeypatch.setattr(cli_module, "ASIDE_MIN_UNITS", 0)       # a child even for 16 units
     parent = os.getpid()
-    drawn_in: list[int] = []
+    log = tmp_path / "drawn-by"
     real = outputs.Previews.draw
 
-    def draw(self: outputs.Previews) -> None:
-        if os.getpid() != parent:
+    def draw(self: outputs.Previews, fail_in_child: bool = False) -> None:
+        if fail_in_child and os.getpid() != parent:
             raise RuntimeError("the child fails")
-        drawn_in.append(os.getpid())
+        with log.open("a") as fh:
+            fh.write(f"{os.getpid()}\n")
         real(self)
 
     monkeypatch.setattr(outputs.Previews, "draw", draw)
+    aside_svg = _arrange(tmp_path, "a")
+    assert [int(x) for x in log.read_text().split()] != [parent]  # drawn by the child
+    log.unlink()
+    monkeypatch.setattr(outputs.Previews, "draw",
+                        lambda self: draw(self, fail_in_child=True))
     again_svg = _arrange(tmp_path, "b")
-    assert drawn_in == [parent]                  # the parent redrew them
+    assert [int(x) for x in log.read_text().split()] == [parent]   # the parent redrew
     assert again_svg == aside_svg
     assert (tmp_path / "b" / "pattern.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"

@@ -99,12 +99,12 @@ class Aside:
 
 
 @contextmanager
-def aside(work: Callable[[], None]) -> Iterator[Aside]:
+def aside(work: Callable[[], None] | None) -> Iterator[Aside]:
     """Run ``work`` in a forked child while the block runs; on leaving the block the
     child has ended (stopped if the block raised, so that nothing it writes outlives
     the parent's clean-up). ``Aside.wait`` tells whether it succeeded: on failure (or
-    with no fork on this system) the caller does the work itself."""
-    if not hasattr(os, "fork"):
+    with no fork on this system, or no ``work``) the caller does the work itself."""
+    if work is None or not hasattr(os, "fork"):
         yield Aside(None)
         return
     parent = os.getpid()

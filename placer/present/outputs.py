@@ -145,10 +145,10 @@ def write_arrangement(out: OutputSet, result: Arrangement, block: Block | None, 
         write_block(block, result.grade, out, "pattern", pictures=False)
     here = arrangement_previews(out, result, spec,
                                 block.cell.extent if block is not None else None)
+    if budget is not None:             # before the wait: while the previews are drawn aside
+        save_budget(budget, spec.name, [out.path("budget.png")], devices=spec.devices)
     if not here.same(drawn):
         here.draw()
-    if budget is not None:
-        save_budget(budget, spec.name, [out.path("budget.png")], devices=spec.devices)
 
 
 def layout_report(block: Block) -> dict[str, Any]:
