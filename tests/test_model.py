@@ -195,17 +195,23 @@ def test_round_trip_of_graded_pattern_text():
     assert parse_pattern(format_pattern(p)) == p
 
 
-@pytest.mark.parametrize("n", [2, 5, 40, 256, 300])
-def test_spanning_tree_length_is_scipys_minimum_spanning_tree(n):
-    """The routing estimate's tree length (dense Prim up to DENSE_PRIM_MAX points, scipy
-    on all pairs above) against scipy's minimum_spanning_tree over every pair written
-    here, an independent reference implementation."""
+@pytest.mark.parametrize("n", [2, 5, 40, 256, 300, 1800])
+@pytest.mark.parametrize("layout", ["scattered", "clusters"])
+def test_spanning_tree_length_is_scipys_minimum_spanning_tree(n, layout):
+    """The routing estimate's tree length (dense Prim up to DENSE_PRIM_MAX points, the
+    pairs within a growing radius above) against scipy's minimum_spanning_tree over every
+    pair written here, an independent reference implementation; the clusters lie far
+    apart, so the radius must grow to join them."""
     from scipy.sparse.csgraph import minimum_spanning_tree
 
     from placer.model.routing_estimate import spanning_tree_length
 
     rng = np.random.default_rng(n)
-    pts = np.unique(np.round(rng.uniform(0, 40, size=(n, 2)), 1), axis=0)
+    pts = rng.uniform(0, 40, size=(n, 2))
+    if layout == "clusters":
+        pts[: n // 3] += 500.0
+        pts[n // 3: n // 2] += [0.0, 2000.0]
+    pts = np.unique(np.round(pts, 1), axis=0)
     d = np.hypot(pts[:, None, 0] - pts[None, :, 0], pts[:, None, 1] - pts[None, :, 1])
     want = float(minimum_spanning_tree(np.triu(d)).sum())
     assert spanning_tree_length(pts) == pytest.approx(want, rel=1e-12)

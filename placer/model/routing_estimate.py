@@ -140,11 +140,6 @@ def diffusion_breaks(ids: NDArray[np.int_], orient: NDArray[np.int8],
     return breaks
 
 
-#: Up to this many points the spanning tree is taken over all pairs; beyond, over the
-#: Delaunay edges (the Euclidean minimum spanning tree is one of their subgraphs).
-ALL_PAIRS_MAX = 1500
-
-
 #: Up to this many points, Prim's algorithm on the dense distances (no graph library to
 #: load: small blocks start faster).
 DENSE_PRIM_MAX = 256
@@ -179,22 +174,22 @@ def spanning_tree_length(pts: NDArray[np.float64]) -> float:
         return 0.0
     if n <= DENSE_PRIM_MAX:
         return _prim(pts)
-    from scipy.sparse import coo_matrix
-    from scipy.sparse.csgraph import minimum_spanning_tree
+    from scipy.sparse.csgraph import connected_components, minimum_spanning_tree
+    from scipy.spatial import cKDTree
 
-    if n <= ALL_PAIRS_MAX:
-        i, j = np.triu_indices(n, 1)
-    else:
-        from scipy.spatial import Delaunay
-
-        tri = Delaunay(pts, qhull_options="QJ")   # joggled: rows of collinear units too
-        s = tri.simplices
-        e = np.vstack([s[:, [0, 1]], s[:, [1, 2]], s[:, [0, 2]]])
-        e = np.unique(np.sort(e, axis=1), axis=0)
-        i, j = e[:, 0], e[:, 1]
-    w = np.hypot(*(pts[i] - pts[j]).T)
-    # distinct slots: no zero-length edge, so a stored 0 never stands for "no edge"
-    graph = coo_matrix((w, (i, j)), shape=(n, n)).tocsr()
+    # the pairs within a radius r: once they connect the points, Kruskal's algorithm on
+    # every pair would take only such pairs, so their spanning tree is the whole one.
+    # r starts at twice the largest nearest-neighbour distance (no tree is shorter in
+    # its longest edge than that) and doubles until the points connect
+    tree = cKDTree(pts)
+    r = 2.0 * float(tree.query(pts, k=2)[0][:, 1].max())
+    while True:
+        graph = tree.sparse_distance_matrix(tree, r, output_type="coo_matrix").tocsr()
+        if connected_components(graph, directed=False)[0] == 1:
+            break
+        r *= 2.0
+    # distinct slots: no zero-length edge between two points, so a stored 0 (a point's
+    # distance to itself) never stands for an edge
     return float(minimum_spanning_tree(graph).sum())
 
 
