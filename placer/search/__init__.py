@@ -12,7 +12,9 @@ One public entry, :func:`search`, takes a :class:`Problem` and returns a frozen
 ``_bounds``     the quadratic bound at a given linear error
 ``_driver``     stages, restarts, chains, the exact path and the worker process
 
-``baselines`` (public) builds the textbook arrangements on the same problem.
+``baselines`` (public) builds the textbook arrangements on the same problem;
+``switching`` (public) places the cells of a unary array and orders their switching (the
+textbook orders and a search of its own, scored by :mod:`placer.model.unary`).
 """
 
 from placer.search._bounds import quadratic_bound

@@ -1,0 +1,280 @@
+"""Switching sequences of unary arrays: the textbook orders and a search for a better one.
+
+The baselines (each a placement and an order at once):
+
+``row_by_row``
+    cells in reading order -- what a plain thermometer decoder over a raster gives; its
+    INL grows with the array under a linear gradient.
+``row_column``
+    rows taken from the middle outwards, alternately above and below, and within each
+    row the columns likewise: the symmetric row-column order of thermometer decoders
+    [1] (placer's rendition).
+``centre_pairs``
+    consecutive codes on slots mirrored through the centre, pairs from the centre out:
+    each pair's linear error cancels (symmetric switching [1], placer's rendition).
+``quadrant_split``
+    every cell split into four sub-units mirrored about both axes, the quadrant's slots
+    in the symmetric row-column order: hierarchical symmetric switching [1]; it needs
+    ``sub_units = 4`` and even rows and columns.
+
+:func:`switching_sequence` searches placement and order together for the least worst
+|INL| over every code (linear gradient in its worst direction plus the bowl,
+:func:`placer.model.unary.worst_inl`): a greedy order that keeps each partial sum of
+centred positions and bowl values small, then simulated annealing [2] on exchanges of
+two sub-units (one of them possibly a dummy slot), from the best of the greedy order and
+the baselines. A quadrant-split random walk in the manner of [3] is not built.
+
+References
+----------
+[1] Y. Nakamura, T. Miki, A. Maeda, H. Kondoh, N. Yazawa, "A 10-b 70-MS/s CMOS D/A
+    converter", IEEE J. Solid-State Circuits 26(4), 637-642, 1991 (symmetrical and
+    hierarchical symmetrical switching) -- cited from memory.
+[2] S. Kirkpatrick, C. D. Gelatt, M. P. Vecchi, "Optimization by simulated annealing",
+    Science 220(4598), 671-680, 1983.
+[3] G. Van der Plas, J. Vandenbussche, W. Sansen, M. Steyaert, G. Gielen, "A 14-bit
+    intrinsic accuracy Q^2 random walk CMOS DAC", IEEE J. Solid-State Circuits 34(12),
+    1708-1718, 1999 -- cited from memory.
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+
+from placer.model.unary import UnaryFields, UnaryLayout, slot_xy, worst_inl
+
+__all__ = ["BASELINES", "row_by_row", "row_column", "centre_pairs", "quadrant_split",
+           "switching_sequence", "SequenceResult"]
+
+IntArray = NDArray[np.int64]
+
+
+def _centre_out(n: int) -> list[int]:
+    """0 .. n-1 from the middle outwards, alternately below and above: for 8,
+    3 4 2 5 1 6 0 7."""
+    lo, hi = (n - 1) // 2, (n - 1) // 2 + 1
+    out = []
+    while lo >= 0 or hi < n:
+        if lo >= 0:
+            out.append(lo)
+            lo -= 1
+        if hi < n:
+            out.append(hi)
+            hi += 1
+    return out
+
+
+def _cells(order: list[int], n_cells: int, sub_units: int) -> IntArray:
+    need = n_cells * sub_units
+    if len(order) < need:
+        raise ValueError(f"{n_cells} cells of {sub_units} sub-units need {need} slots; "
+                         f"the core has {len(order)}")
+    return np.array(order[:need], dtype=np.int64).reshape(n_cells, sub_units)
+
+
+def row_by_row(rows: int, cols: int, pitch: tuple[float, float], n_cells: int,
+               sub_units: int = 1) -> UnaryLayout:
+    """Cells in reading order (a cell's sub-units on consecutive slots)."""
+    return UnaryLayout(rows, cols, pitch, _cells(list(range(rows * cols)), n_cells,
+                                                 sub_units))
+
+
+def row_column(rows: int, cols: int, pitch: tuple[float, float], n_cells: int,
+               sub_units: int = 1) -> UnaryLayout:
+    """Rows from the middle out, and the columns of each row from the middle out."""
+    order = [r * cols + c for r in _centre_out(rows) for c in _centre_out(cols)]
+    return UnaryLayout(rows, cols, pitch, _cells(order, n_cells, sub_units))
+
+
+def centre_pairs(rows: int, cols: int, pitch: tuple[float, float], n_cells: int,
+                 sub_units: int = 1) -> UnaryLayout:
+    """Consecutive slots mirrored through the centre, nearest the centre first."""
+    xy = slot_xy(rows, cols, pitch)
+    n = rows * cols
+    rank = np.lexsort((np.arctan2(xy[:, 1], xy[:, 0]), np.round((xy * xy).sum(axis=1), 9)))
+    used = np.zeros(n, dtype=bool)
+    order: list[int] = []
+    for s in rank.tolist():
+        if used[s]:
+            continue
+        twin = n - 1 - s                       # the slot mirrored through the centre
+        used[s] = used[twin] = True
+        order += [s] if twin == s else [s, twin]
+    return UnaryLayout(rows, cols, pitch, _cells(order, n_cells, sub_units))
+
+
+def quadrant_split(rows: int, cols: int, pitch: tuple[float, float], n_cells: int,
+                   sub_units: int = 4) -> UnaryLayout:
+    """Each cell on four slots mirrored about both axes, the quadrant's slots taken in the
+    symmetric row-column order (nearest the centre lines first)."""
+    if sub_units != 4 or rows % 2 or cols % 2:
+        raise ValueError("the quadrant split needs 4 sub-units a cell and even rows and "
+                         "columns")
+    hr, hc = rows // 2, cols // 2
+    cells = []
+    for r in range(hr):
+        for c in range(hc):
+            # distance from the centre lines: r rows above the middle, c columns left
+            rr, cc = hr - 1 - r, hc - 1 - c
+            cells.append([rr * cols + cc, rr * cols + (cols - 1 - cc),
+                          (rows - 1 - rr) * cols + cc, (rows - 1 - rr) * cols + (cols - 1 - cc)])
+    # quadrant slots in the symmetric order: rows then columns nearest the centre first
+    cells.sort(key=lambda q: (_quad_rank(q[0], cols, hr, hc)))
+    if len(cells) < n_cells:
+        raise ValueError(f"{n_cells} cells of 4 sub-units need {4 * n_cells} slots; the "
+                         f"core has {rows * cols}")
+    return UnaryLayout(rows, cols, pitch, np.array(cells[:n_cells], dtype=np.int64))
+
+
+def _quad_rank(slot: int, cols: int, hr: int, hc: int) -> tuple[int, int]:
+    r, c = divmod(slot, cols)
+    return (hr - 1 - r, hc - 1 - c)
+
+
+BASELINES: dict[str, Callable[..., UnaryLayout]] = {
+    "row-by-row": row_by_row,
+    "row-column": row_column,
+    "centre pairs": centre_pairs,
+    "quadrant split": quadrant_split,
+}
+
+
+@dataclass(frozen=True)
+class SequenceResult:
+    """The best layout found, its worst |INL| (LSB) and the work done."""
+
+    layout: UnaryLayout
+    worst_inl_lsb: float
+    start: str
+    moves: int
+    seconds: float
+
+
+def _greedy(rows: int, cols: int, pitch: tuple[float, float], n_cells: int,
+            fields: UnaryFields) -> UnaryLayout:
+    """One sub-unit a cell: each next cell the free slot that keeps the partial sums of
+    the centred positions (weighted by the gradient) and bowl values smallest. The
+    centre of the N cells is taken as the core's (exact when no slot is spare)."""
+    xy = slot_xy(rows, cols, pitch)
+    b = (fields.quadratic_ppm_per_um2 / (2 * np.sqrt(2))) * (xy * xy).sum(axis=1)
+    # the cells' mean position and bowl, assuming the spare slots are the outermost
+    n = rows * cols
+    keep = np.argsort((xy * xy).sum(axis=1), kind="stable")[:n_cells]
+    p_bar, b_bar = xy[keep].mean(axis=0), b[keep].mean()
+    g = fields.linear_ppm_per_um
+    free = np.ones(n, dtype=bool)
+    d = np.zeros(2)
+    q = 0.0
+    order = []
+    for _ in range(n_cells):
+        cand = np.nonzero(free)[0]
+        nd = d + (xy[cand] - p_bar)
+        nq = q + (b[cand] - b_bar)
+        cost = g * np.hypot(nd[:, 0], nd[:, 1]) + np.abs(nq)
+        # ties: nearer the centre first (keeps the outer slots for later, or as dummies)
+        pick = cand[np.lexsort(((xy[cand] ** 2).sum(axis=1), np.round(cost, 9)))[0]]
+        order.append(int(pick))
+        free[pick] = False
+        d += xy[pick] - p_bar
+        q += b[pick] - b_bar
+    return UnaryLayout(rows, cols, pitch, np.array(order, dtype=np.int64).reshape(-1, 1))
+
+
+def switching_sequence(rows: int, cols: int, pitch: tuple[float, float], n_cells: int,
+                       fields: UnaryFields, *, sub_units: int = 1, seed: int = 0,
+                       moves: int = 200_000, time_limit_s: float = 10.0) -> SequenceResult:
+    """Placement and switching order of ``n_cells`` cells of ``sub_units`` sub-units on a
+    ``rows`` x ``cols`` core for the least worst |INL| (see the module's text).
+
+    Parameters
+    ----------
+    rows, cols : int
+        The core; ``rows * cols`` must hold ``n_cells * sub_units`` slots.
+    pitch : tuple of float
+        Slot pitch (x, y) in um.
+    n_cells : int
+        Unary cells (e.g. 63 for six thermometer bits).
+    fields : UnaryFields
+        The linear gradient (worst direction) and the bowl.
+    sub_units, seed, moves, time_limit_s
+        Sub-units a cell; the random seed; the annealing's move budget and its time
+        cap (the move budget makes the result repeatable when the cap is not reached).
+
+    Returns
+    -------
+    SequenceResult
+        The best layout and its worst |INL| in LSB.
+    """
+    t0 = time.monotonic()
+    m = sub_units
+    starts: dict[str, UnaryLayout] = {}
+    for name, fn in BASELINES.items():
+        try:
+            starts[name] = fn(rows, cols, pitch, n_cells, m)
+        except ValueError:
+            continue
+    if m == 1:
+        starts["greedy"] = _greedy(rows, cols, pitch, n_cells, fields)
+    if not starts:
+        raise ValueError(f"{n_cells} cells of {m} sub-units do not fit {rows} x {cols}")
+    scores = {k: worst_inl(v, fields) for k, v in starts.items()}
+    start = min(scores, key=lambda k: (scores[k], k))
+    lay = starts[start]
+    best_f = scores[start]
+    # state: every slot in a permutation; the first N m form the cells in order
+    n = rows * cols
+    used = lay.cells.reshape(-1)
+    rest = np.setdiff1d(np.arange(n), used)
+    perm = np.concatenate([used, rest]).astype(np.int64)
+    xy = slot_xy(rows, cols, pitch)
+    bowl = (fields.quadratic_ppm_per_um2 / (2 * np.sqrt(2))) * (xy * xy).sum(axis=1)
+    g = fields.linear_ppm_per_um
+    nm = n_cells * m
+
+    def cost(pm: IntArray) -> float:
+        cells = pm[:nm].reshape(n_cells, m)
+        p = xy[cells].mean(axis=1)
+        bb = bowl[cells].mean(axis=1)
+        d = np.cumsum(p - p.mean(axis=0), axis=0)
+        qq = np.cumsum(bb - bb.mean())
+        return float(1e-6 * (g * np.hypot(d[:, 0], d[:, 1]) + np.abs(qq)).max())
+
+    rng = np.random.default_rng(seed)
+    cur = cost(perm)
+    best = perm.copy()
+    best_f = cur
+    # temperature from the mean uphill step of a few trial moves
+    ups = []
+    for _ in range(64):
+        a, b = int(rng.integers(nm)), int(rng.integers(n))
+        trial = perm.copy()
+        trial[a], trial[b] = trial[b], trial[a]
+        dv = cost(trial) - cur
+        if dv > 0:
+            ups.append(dv)
+    t_start = float(np.mean(ups)) if ups else max(cur, 1e-12)
+    done = 0
+    for it in range(moves):
+        if (it & 1023) == 0 and time.monotonic() - t0 > time_limit_s:
+            break
+        a, b = int(rng.integers(nm)), int(rng.integers(n))
+        if a // m == b // m and b < nm:
+            continue
+        perm[a], perm[b] = perm[b], perm[a]
+        new = cost(perm)
+        temp = t_start * (1e-4 ** (it / max(moves - 1, 1)))
+        if new <= cur or rng.random() < np.exp(-(new - cur) / max(temp, 1e-300)):
+            cur = new
+            if cur < best_f:
+                best_f = cur
+                best = perm.copy()
+        else:
+            perm[a], perm[b] = perm[b], perm[a]
+        done += 1
+    cells = best[:nm].reshape(n_cells, m)
+    out = UnaryLayout(rows, cols, pitch, cells.copy())
+    return SequenceResult(out, worst_inl(out, fields), start, done, time.monotonic() - t0)

@@ -1,0 +1,155 @@
+"""Unary arrays: the INL model (placer/model/unary.py) against a routine written apart
+from it, a textbook closed form, Monte Carlo, and the sequence search against the
+baselines (placer/search/switching.py)."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from placer.model.unary import (
+    UnaryFields,
+    UnaryLayout,
+    cell_errors,
+    correlated_inl_sigma,
+    inl,
+    random_inl_sigma,
+    worst_inl,
+)
+from placer.search.switching import BASELINES, row_by_row, switching_sequence
+
+
+def _transfer_inl(values: list[float]) -> list[float]:
+    """End-point INL (LSB) straight from the definition: the output at each code is the
+    sum of the cells switched on; the line through the outputs at codes 0 and N is the
+    ideal; INL is the distance from it in that line's LSB (IEEE Std 1658, from memory).
+    Written with plain loops, apart from the model."""
+    n = len(values)
+    out = [0.0]
+    for v in values:
+        out.append(out[-1] + v)
+    lsb = (out[n] - out[0]) / n
+    return [(out[c] - out[0]) / lsb - c for c in range(n + 1)]
+
+
+def _field(x: float, y: float, theta: float, g_ppm: float, h_ppm: float) -> float:
+    """The fields at one point, as a fraction: linear along theta plus the radial bowl of
+    Hessian (h / sqrt 2) I (the grade's bowl)."""
+    lin = g_ppm * (x * math.cos(theta) + y * math.sin(theta))
+    bowl = 0.5 * (h_ppm / math.sqrt(2.0)) * (x * x + y * y)
+    return 1e-6 * (lin + bowl)
+
+
+def _values(lay: UnaryLayout, theta: float, g: float, h: float) -> list[float]:
+    vals = []
+    for slots in lay.cells:
+        pts = []
+        for s in slots:
+            r, c = divmod(int(s), lay.cols)
+            pts.append(((c - (lay.cols - 1) / 2) * lay.pitch_um[0],
+                        -(r - (lay.rows - 1) / 2) * lay.pitch_um[1]))
+        vals.append(1.0 + sum(_field(x, y, theta, g, h) for x, y in pts) / len(pts))
+    return vals
+
+
+def _random_layout(rng, rows, cols, n, m, pitch=(10.0, 8.0)) -> UnaryLayout:
+    slots = rng.permutation(rows * cols)[:n * m]
+    return UnaryLayout(rows, cols, pitch, slots.reshape(n, m).astype(np.int64))
+
+
+@pytest.mark.parametrize("m", [1, 2])
+def test_inl_agrees_with_the_transfer_curve_computed_apart(m):
+    """The model's first-order INL against the exact end-point INL of the summed cell
+    values (the difference is second order in the errors, ~1e-4 of them here)."""
+    rng = np.random.default_rng(m)
+    g, h = 10.0, 0.02
+    for _ in range(5):
+        lay = _random_layout(rng, 6, 8, 15, m)
+        theta = float(rng.uniform(0, 2 * np.pi))
+        model = inl(cell_errors(lay, UnaryFields(g, h), theta))
+        exact = np.array(_transfer_inl(_values(lay, theta, g, h)))
+        assert model == pytest.approx(exact, abs=1e-3 * np.abs(exact).max() + 1e-12)
+
+
+def test_worst_inl_is_the_worst_over_every_direction_and_code():
+    """The closed form max_c (g |D_c| + |Q_c|) against a scan of 3600 gradient directions
+    of the exact transfer-curve INL."""
+    rng = np.random.default_rng(7)
+    g, h = 10.0, 0.05
+    for _ in range(3):
+        lay = _random_layout(rng, 5, 6, 15, 2)
+        scan = max(max(abs(v) for v in _transfer_inl(_values(lay, t, g, h)))
+                   for t in np.linspace(0, 2 * np.pi, 3600, endpoint=False))
+        assert worst_inl(lay, UnaryFields(g, h)) == pytest.approx(scan, rel=2e-3)
+
+
+def test_sequential_switching_of_a_row_has_the_textbook_n_squared_over_8():
+    """A row of N cells switched in order under a gradient g along it: INL_c =
+    g p c (c - N) / 2, at most g p N^2 / 8 at mid-scale (the sum of an arithmetic
+    series; the quadratic growth of row-by-row switching is textbook, from memory)."""
+    n, p, g = 64, 10.0, 10.0
+    lay = row_by_row(1, n, (p, p), n)
+    worst = worst_inl(lay, UnaryFields(g, 0.0))
+    assert worst == pytest.approx(1e-6 * g * p * n * n / 8, rel=1e-12)
+
+
+def test_random_inl_sigma_agrees_with_monte_carlo():
+    """Independent cells of relative sigma s: the end-point INL's sigma at each code
+    against 20 000 sampled arrays (a Brownian bridge, s sqrt(c (N - c) / N))."""
+    rng = np.random.default_rng(0)
+    n, s = 31, 1e-3
+    e = rng.normal(0.0, s, size=(20000, n))
+    sampled = np.cumsum(e - e.mean(axis=1, keepdims=True), axis=1).std(axis=0)
+    model = random_inl_sigma(n, s)[1:]
+    assert sampled == pytest.approx(model, rel=0.03, abs=1e-6)
+
+
+def test_correlated_inl_sigma_agrees_with_a_direct_quadratic_form():
+    """The correlated part as w' K w (w = 1[i <= c] - c/N), by plain loops over the
+    sub-units' covariance."""
+    rng = np.random.default_rng(3)
+    lay = _random_layout(rng, 4, 5, 9, 2)
+    sig, length = 50.0, 20.0
+    model = correlated_inl_sigma(lay, sig, length)
+    pts = []
+    for slots in lay.cells:
+        pts.append([((int(s) % lay.cols - (lay.cols - 1) / 2) * lay.pitch_um[0],
+                     -(int(s) // lay.cols - (lay.rows - 1) / 2) * lay.pitch_um[1])
+                    for s in slots])
+    n = len(pts)
+
+    def cov(i: int, j: int) -> float:
+        tot = 0.0
+        for a in pts[i]:
+            for b in pts[j]:
+                tot += math.exp(-math.dist(a, b) / length)
+        return (1e-6 * sig) ** 2 * tot / (len(pts[i]) * len(pts[j]))
+
+    for c in range(n + 1):
+        w = [(1.0 if i < c else 0.0) - c / n for i in range(n)]
+        var = sum(w[i] * w[j] * cov(i, j) for i in range(n) for j in range(n))
+        assert model[c] == pytest.approx(math.sqrt(max(var, 0.0)), rel=1e-9, abs=1e-15)
+
+
+def test_the_search_beats_every_baseline_and_row_by_row_tenfold():
+    f = UnaryFields(10.0, 0.02)
+    res = switching_sequence(8, 8, (10.0, 10.0), 63, f, moves=20000, seed=1)
+    for name, fn in BASELINES.items():
+        try:
+            base = fn(8, 8, (10.0, 10.0), 63, 1)
+        except ValueError:
+            continue
+        assert res.worst_inl_lsb <= worst_inl(base, f) * (1 + 1e-12), name
+    assert res.worst_inl_lsb <= 0.1 * worst_inl(row_by_row(8, 8, (10.0, 10.0), 63), f)
+    # every cell once, on distinct slots
+    assert len(set(res.layout.cells.reshape(-1).tolist())) == 63
+
+
+def test_quadrant_split_cells_cancel_the_linear_gradient():
+    """Four sub-units mirrored about both axes: every cell's mean position is the centre,
+    so a linear gradient alone leaves no INL at all."""
+    lay = BASELINES["quadrant split"](8, 8, (10.0, 10.0), 15, 4)
+    assert worst_inl(lay, UnaryFields(10.0, 0.0)) == pytest.approx(0.0, abs=1e-15)
+    assert sorted(lay.cells.reshape(-1).tolist()) == sorted(set(lay.cells.reshape(-1).tolist()))
