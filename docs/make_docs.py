@@ -2,9 +2,10 @@
 
     python docs/make_docs.py
 
-Writes docs/bias_mirror.png (arrange's preview) and docs/bias_mirror-compare.png (the
-comparison sheet), and replaces the README blocks between <!-- sample:NAME --> markers
-with what the commands print, so no figure in the README is typed by hand.
+Writes docs/bias_mirror.png (arrange's preview), docs/bias_mirror-compare.png (the
+comparison sheet) and docs/heron_msb-sequence.png (a unary array's order and INL), and
+replaces the README blocks between <!-- sample:NAME --> markers with what the commands
+print, so no figure in the README is typed by hand.
 """
 
 from __future__ import annotations
@@ -83,6 +84,10 @@ def main() -> None:
             blocks[name] = block("\n".join(ln for ln in pattern if not ln.startswith("#"))
                                  + "\n\n" + section(out, "Linear:", "Routing:") + "\n"
                                  + section(out, "Layout:", "Wrote").rstrip())
+        seq = run(["sequence", "samples/unary/heron_msb.toml", "--out", str(t / "u")])
+        grid = (t / "u" / "sequence.txt").read_text()
+        blocks["sequence"] = block(grid + "\n" + section(seq, "heron_msb:", "Figures are"))
+        shutil.copy(t / "u" / "sequence.png", ROOT / "docs" / "heron_msb-sequence.png")
     for name, body in blocks.items():
         replace_block(f"sample:{name}", body)
 

@@ -28,7 +28,8 @@ if TYPE_CHECKING:
 __all__ = ["write_block", "Previews", "arrangement_previews", "ARRANGE_FILES",
            "arrange_names", "write_arrangement", "draw_names", "compare_names", "lesson_name",
            "repair_names", "write_repair",
-           "layout_report", "swap_lines", "BATCH_FILES", "write_batch"]
+           "layout_report", "swap_lines", "BATCH_FILES", "write_batch", "SEQUENCE_FILES",
+           "write_sequence"]
 
 #: Every file an arrange run may write (a --force run replaces them all, and only them).
 ARRANGE_FILES = ("pattern.txt", "report.json", "pattern.gds", "pattern.sp", "pattern.png",
@@ -300,3 +301,23 @@ foundry's matching guidelines, extraction and the process's mismatch data.</p>
 </table></body></html>
 """
     out.write("index.html", page)
+
+
+# ----------------------------------------------------------------------------- sequence
+
+#: The files of a ``sequence`` run.
+SEQUENCE_FILES = ("sequence.txt", "report.json", "sequence.png")
+
+
+def write_sequence(out: OutputSet, rep: Any) -> None:
+    """Stage a unary array's sequence grid, its JSON report and its picture."""
+    from placer.io.unaryspec import format_sequence_grid
+    from placer.present.plot import save_sequence
+
+    out.write("sequence.txt", format_sequence_grid(rep.layout, [
+        f"{rep.spec.name}: switching order ({rep.method}); each slot's cell number "
+        "(1 switches on first), . a dummy",
+        f"worst |INL| {rep.worst_inl_lsb:.6g} LSB (linear gradient in its worst direction "
+        "plus the bowl)"]))
+    out.write("report.json", json_text(rep.to_dict()) + "\n")
+    save_sequence(rep, [out.path("sequence.png")])

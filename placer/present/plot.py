@@ -24,7 +24,8 @@ from placer.io.pattern import DUMMY, EMPTY, Pattern
 from placer.model.grade import Grade
 
 __all__ = ["PALETTE", "DUMMY_COLOUR", "device_colours", "draw_pattern", "save_preview",
-           "save_comparison", "direction_errors", "save_budget", "save_sensitivity"]
+           "save_comparison", "direction_errors", "save_budget", "save_sensitivity",
+           "save_sequence"]
 
 #: Okabe-Ito colours [1] without black (kept for text), most distinct first.
 PALETTE = ("#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#CC79A7",
@@ -642,3 +643,62 @@ def save_sensitivity(pattern: Pattern, pitch_um: tuple[float, float], units: Seq
                                          "devices, not in this pair)", width_chars),
                  fontsize=9, x=0.02, ha="left")
     _save(fig, paths)
+
+
+def save_sequence(rep: Any, paths: Sequence[Path]) -> None:
+    """A unary array's picture: the core with each slot's sequence number (shaded from the
+    first cell on to the last), and INL against code -- in the gradient's worst
+    direction, its linear and bowl parts, and the random and correlated 3-sigma bands."""
+    spec, lay = rep.spec, rep.layout
+    grid = lay.grid()
+    rows, cols = grid.shape
+    fig = _figure(12.0, 5.6)
+    fig.set_layout_engine("constrained")
+    ax1, ax2 = fig.subplots(1, 2, width_ratios=[1.0, 1.3])
+    shade = np.where(grid > 0, grid, np.nan).astype(float)
+    px, py = spec.pitch_um
+    img = ax1.imshow(shade, cmap="viridis", interpolation="nearest",
+                     extent=(-0.5 * px, (cols - 0.5) * px, -(rows - 0.5) * py, 0.5 * py))
+    fig.colorbar(img, ax=ax1, fraction=0.046, pad=0.02, label="sequence number (code)")
+    # the numbers, where a slot is big enough on the page to hold them
+    size = min(9.0, 260.0 / max(rows, cols) / max(1, len(str(lay.n_cells))) * 1.6)
+    if size >= 3.0:
+        for r in range(rows):
+            for c in range(cols):
+                v = int(grid[r, c])
+                ax1.text(c * px, -r * py, "." if v == 0 else str(v), ha="center",
+                         va="center", fontsize=size,
+                         color="white" if v and v < 0.6 * lay.n_cells else "black")
+    ax1.set_xlabel("x (um)")
+    ax1.set_ylabel("y (um)")
+    ax1.set_title(f"{spec.name}: {lay.n_cells} cells x {spec.sub_units} sub-unit"
+                  f"{'s' if spec.sub_units > 1 else ''} on {rows} x {cols}", fontsize=9)
+    codes = np.arange(lay.n_cells + 1)
+    ax2.fill_between(codes, -3 * rep.random_sigma_lsb, 3 * rep.random_sigma_lsb,
+                     color=PALETTE[1], alpha=0.35, lw=0,
+                     label=f"random, 3 sigma (area law): up to "
+                           f"{3 * rep.random_sigma_lsb.max():.3g} LSB (may run off the axis)")
+    if np.any(rep.correlated_sigma_lsb):
+        ax2.plot(codes, 3 * rep.correlated_sigma_lsb, color=PALETTE[4], lw=1.0, ls="-.",
+                 label=f"correlated field, 3 sigma: up to "
+                       f"{3 * rep.correlated_sigma_lsb.max():.3g} LSB")
+    ax2.plot(codes, rep.inl_lsb, color="black", lw=1.4,
+             label=f"gradient + bowl, worst direction {rep.worst_direction_deg:.0f} deg: "
+                   f"worst {rep.worst_inl_lsb:.3g} LSB at code {rep.worst_code}")
+    ax2.plot(codes, rep.linear_part_lsb, color=PALETTE[0], lw=1.0, ls="--",
+             label="linear part, each code in its own worst direction")
+    ax2.plot(codes, rep.bowl_part_lsb, color=PALETTE[5], lw=1.0, ls=":",
+             label="bowl part")
+    ax2.axhline(0, color="#888888", lw=0.5)
+    # the scale of the systematic curves: a random band many times wider runs off it
+    # (its size is in the legend)
+    top = 1.3 * max(float(np.abs(rep.inl_lsb).max()), float(rep.linear_part_lsb.max()),
+                    float(3 * rep.correlated_sigma_lsb.max()), 1e-12)
+    if 3 * rep.random_sigma_lsb.max() > top:
+        ax2.set_ylim(-top, 1.6 * top)
+    ax2.set_xlabel("code")
+    ax2.set_ylabel("INL (LSB, end points fitted)")
+    ax2.legend(fontsize=7, loc="upper left", frameon=False)
+    ax2.set_title(f"{rep.method} (model estimates)", fontsize=9)
+    for path in paths:
+        _write_figure(fig, path, 110)

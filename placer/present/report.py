@@ -14,7 +14,8 @@ if TYPE_CHECKING:
     from placer.jobs.arrange import Arrangement
 
 __all__ = ["format_grade", "format_table", "format_arrangement", "format_budget",
-           "format_nets", "grade_report", "format_sensitivity", "format_batch", "CAUTION"]
+           "format_nets", "grade_report", "format_sensitivity", "format_batch",
+           "format_sequence", "CAUTION"]
 
 CAUTION = ("Figures are model estimates under the assumptions above; confirm with the "
            "foundry's matching guidelines, extraction and the process's mismatch data.")
@@ -373,3 +374,31 @@ def format_batch(runs: list[Any], wall_s: float, jobs: int) -> str:
                           "sigma ppm", "block um2", "s", "result"], rows)
     return (f"{table}\n{len(runs)} blocks ({failed} failed), {jobs} at a time, in "
             f"{wall_s:.1f} s. Figures are the worst pair's, model estimates.")
+
+
+def format_sequence(rep: Any) -> str:
+    """The text report of a unary array's placement and switching order."""
+    s = rep.spec
+    f = s.fields
+    out = [f"{s.name}: {s.cells} unary cells x {s.sub_units} sub-unit"
+           f"{'s' if s.sub_units > 1 else ''} on {s.rows} x {s.cols} slots, pitch "
+           f"{s.pitch_um[0]:g} x {s.pitch_um[1]:g} um",
+           f"Method: {rep.method}" + (f" ({rep.moves} moves, {rep.seconds:.2f} s)."
+                                      if rep.moves else "."),
+           f"Worst |INL| (linear gradient {f.linear_ppm_per_um:g} ppm/um in its worst "
+           f"direction, {rep.worst_direction_deg:.0f} deg, plus the bowl of "
+           f"{f.quadratic_ppm_per_um2:g} ppm/um^2): {rep.worst_inl_lsb:.4g} LSB at code "
+           f"{rep.worst_code}; linear part up to {rep.linear_part_lsb.max():.4g} LSB, bowl "
+           f"part up to {abs(rep.bowl_part_lsb).max():.4g} LSB; |DNL| up to "
+           f"{abs(rep.dnl_lsb).max():.4g} LSB.",
+           f"Random: a cell's sigma {100 * s.cell_sigma:.3g} % (area law, A = "
+           f"{s.a_param_pct_um:g} %um): INL sigma up to {rep.random_sigma_lsb.max():.4g} "
+           f"LSB at mid-scale; the correlated field ({s.corr_sigma_ppm:g} ppm, "
+           f"{s.corr_length_um:g} um): up to {rep.correlated_sigma_lsb.max():.4g} LSB."]
+    if rep.baselines:
+        out += ["", "Textbook orders on the same core (worst |INL|, LSB)"]
+        rows = [[k, f"{v:.4g}", f"{v / rep.worst_inl_lsb:.3g} x this"
+                 if rep.worst_inl_lsb > 0 else "-"] for k, v in rep.baselines.items()]
+        out.append(format_table(["order", "worst |INL|", "against"], rows))
+    out += ["", CAUTION]
+    return "\n".join(out)

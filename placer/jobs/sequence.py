@@ -1,0 +1,118 @@
+"""What ``placer sequence`` computes: a unary array's placement and switching order (found,
+or read from a sequence grid) and every figure of its transfer curve."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from placer.io.unaryspec import UnarySpec
+from placer.model.unary import (
+    UnaryLayout,
+    cell_errors,
+    correlated_inl_sigma,
+    dnl,
+    inl,
+    random_inl_sigma,
+    worst_inl,
+    worst_inl_parts,
+)
+from placer.search.switching import BASELINES, switching_sequence
+
+__all__ = ["SequenceReport", "score_sequence", "find_sequence"]
+
+FloatArray = NDArray[np.float64]
+
+
+@dataclass(frozen=True)
+class SequenceReport:
+    """A placement and order with its figures (LSB unless named otherwise)."""
+
+    spec: UnarySpec
+    layout: UnaryLayout
+    method: str
+    worst_inl_lsb: float
+    worst_code: int
+    worst_direction_deg: float
+    inl_lsb: FloatArray              # codes 0 .. N, the gradient in its worst direction
+    dnl_lsb: FloatArray              # steps 1 .. N, the same field
+    linear_part_lsb: FloatArray      # codes 0 .. N, each in its own worst direction
+    bowl_part_lsb: FloatArray
+    random_sigma_lsb: FloatArray
+    correlated_sigma_lsb: FloatArray
+    baselines: dict[str, float] = field(default_factory=dict)
+    moves: int = 0
+    seconds: float = 0.0
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready figures."""
+        return {
+            "name": self.spec.name, "cells": self.spec.cells,
+            "sub_units": self.spec.sub_units, "core": [self.spec.rows, self.spec.cols],
+            "pitch_um": list(self.spec.pitch_um), "method": self.method,
+            "worst_inl_lsb": self.worst_inl_lsb, "worst_code": self.worst_code,
+            "worst_direction_deg": self.worst_direction_deg,
+            "max_dnl_lsb": float(np.abs(self.dnl_lsb).max()),
+            "max_random_inl_sigma_lsb": float(self.random_sigma_lsb.max()),
+            "max_correlated_inl_sigma_lsb": float(self.correlated_sigma_lsb.max()),
+            "inl_lsb": self.inl_lsb.tolist(), "dnl_lsb": self.dnl_lsb.tolist(),
+            "linear_part_lsb": self.linear_part_lsb.tolist(),
+            "bowl_part_lsb": self.bowl_part_lsb.tolist(),
+            "random_sigma_lsb": self.random_sigma_lsb.tolist(),
+            "correlated_sigma_lsb": self.correlated_sigma_lsb.tolist(),
+            "baselines_worst_inl_lsb": self.baselines,
+            "sequence": self.layout.grid().tolist(),
+            "assumptions": {
+                "linear_ppm_per_um": self.spec.fields.linear_ppm_per_um,
+                "quadratic_ppm_per_um2": self.spec.fields.quadratic_ppm_per_um2,
+                "correlated_sigma_ppm": self.spec.corr_sigma_ppm,
+                "correlated_length_um": self.spec.corr_length_um,
+                "kernel": self.spec.kernel, "a_param_pct_um": self.spec.a_param_pct_um,
+                "cell_sigma": self.spec.cell_sigma},
+        }
+
+
+def score_sequence(spec: UnarySpec, layout: UnaryLayout, method: str,
+                   baselines: bool = True, moves: int = 0,
+                   seconds: float = 0.0) -> SequenceReport:
+    """Every figure of ``layout`` under ``spec``'s fields."""
+    lin, bowl = worst_inl_parts(layout, spec.fields)
+    total = lin + np.abs(bowl)
+    c = int(np.argmax(total))
+    # the direction that makes code c worst: along its partial sum, signed with the bowl
+    p = layout.cells
+    from placer.model.unary import slot_xy
+
+    xy = slot_xy(layout.rows, layout.cols, layout.pitch_um)[p].mean(axis=1)
+    d = (xy - xy.mean(axis=0))[:c].sum(axis=0)
+    sign = 1.0 if bowl[c] >= 0 else -1.0
+    theta = math.atan2(sign * d[1], sign * d[0]) if np.hypot(*d) > 0 else 0.0
+    e = cell_errors(layout, spec.fields, theta)
+    base: dict[str, float] = {}
+    if baselines:
+        for name, fn in BASELINES.items():
+            try:
+                base[name] = worst_inl(fn(spec.rows, spec.cols, spec.pitch_um, spec.cells,
+                                          spec.sub_units), spec.fields)
+            except ValueError:
+                continue
+    return SequenceReport(
+        spec, layout, method, float(total[c]), c, math.degrees(theta) % 360.0, inl(e),
+        dnl(e), lin, bowl, random_inl_sigma(spec.cells, spec.cell_sigma),
+        correlated_inl_sigma(layout, spec.corr_sigma_ppm, spec.corr_length_um, spec.kernel)
+        if spec.corr_sigma_ppm > 0 else np.zeros(spec.cells + 1),
+        base, moves, seconds)
+
+
+def find_sequence(spec: UnarySpec, *, seed: int = 0, time_limit_s: float = 10.0,
+                  moves: int = 200_000) -> SequenceReport:
+    """Search placement and order (:func:`placer.search.switching.switching_sequence`)."""
+    res = switching_sequence(spec.rows, spec.cols, spec.pitch_um, spec.cells, spec.fields,
+                             sub_units=spec.sub_units, seed=seed, moves=moves,
+                             time_limit_s=time_limit_s)
+    return score_sequence(spec, res.layout, f"search from the {res.start} order",
+                          moves=res.moves, seconds=res.seconds)

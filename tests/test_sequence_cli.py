@@ -1,0 +1,92 @@
+"""placer sequence: a unary array's order found or graded, its files, and bad input."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+
+from placer.cli import cli
+from placer.io.unaryspec import read_sequence_grid, read_unary_spec
+from placer.model.unary import worst_inl
+from tests.helpers import spec_file
+from tests.test_unary import _transfer_inl, _values
+
+SMALL = """name = "wren_msb"
+[unary]
+cells = 15
+rows = 4
+columns = 4
+pitch_um = [8.0, 6.0]
+[gradient]
+linear_ppm_per_um = 20.0
+quadratic_ppm_per_um2 = 0.05
+"""
+
+
+def _run(args: list[str]):
+    return CliRunner().invoke(cli, ["sequence", *args])
+
+
+def test_search_writes_the_grid_report_and_picture_and_the_grid_grades_alike(tmp_path):
+    spec = spec_file(tmp_path, SMALL)
+    res = _run([str(spec), "--out", str(tmp_path / "o"), "--time-limit", "30"])
+    assert res.exit_code == 0, res.output
+    out = tmp_path / "o"
+    assert sorted(p.name for p in out.iterdir()) == ["report.json", "sequence.png",
+                                                      "sequence.txt"]
+    rep = json.loads((out / "report.json").read_text())
+    s = read_unary_spec(spec)
+    lay = read_sequence_grid(out / "sequence.txt", s)     # the written grid reads back
+    assert rep["worst_inl_lsb"] == pytest.approx(worst_inl(lay, s.fields), rel=1e-12)
+    assert rep["sequence"] == lay.grid().tolist()
+    # the INL curve in the worst direction: the transfer curve computed apart
+    theta = np.radians(rep["worst_direction_deg"])
+    want = _transfer_inl(_values(lay, theta, 20.0, 0.05))
+    assert rep["inl_lsb"] == pytest.approx(want, abs=1e-3 * max(map(abs, want)))
+    assert max(map(abs, want)) == pytest.approx(rep["worst_inl_lsb"], rel=2e-3)
+    # graded from the grid: the same figures, and every baseline no better
+    again = _run([str(spec), "--grid", str(out / "sequence.txt"), "--out",
+                  str(tmp_path / "g")])
+    assert again.exit_code == 0, again.output
+    graded = json.loads((tmp_path / "g" / "report.json").read_text())
+    assert graded["worst_inl_lsb"] == pytest.approx(rep["worst_inl_lsb"], rel=1e-12)
+    assert all(v >= rep["worst_inl_lsb"] * (1 - 1e-12)
+               for v in graded["baselines_worst_inl_lsb"].values())
+    assert "Worst |INL|" in res.output and "row-by-row" in res.output
+
+
+def test_the_same_seed_gives_the_same_order(tmp_path):
+    spec = spec_file(tmp_path, SMALL)
+    for name in ("a", "b"):
+        assert _run([str(spec), "--out", str(tmp_path / name), "--seed", "3",
+                     "--time-limit", "60"]).exit_code == 0
+    assert (tmp_path / "a" / "sequence.txt").read_text() == \
+        (tmp_path / "b" / "sequence.txt").read_text()
+
+
+@pytest.mark.parametrize("text, grid, message", [
+    ('[devices]\nA = 2\n', None, "needs a [unary] table"),
+    ('[unary]\ncells = 20\nrows = 4\ncolumns = 4\n', None, "need 20 slots"),
+    ('[unary]\ncells = 15\ncolums = 4\n', None, "unknown key 'colums'"),
+    ('[unary]\ncells = 4095\nsub_units = 4\n', None, "more than the limit of 4096"),
+    ('[unary]\ncells = 15\nrows = 1000\ncolumns = 1000\n', None, "limit of 16384"),
+    ('[unary]\ncells = 15\n[gradient]\nvt_mv_per_mm = 1.0\n', None, "not used by a unary"),
+    ('[unary]\ncells = 3\nrows = 2\ncolumns = 2\n', "1 2\n2 .\n", "cell 2 is on 2 slots"),
+    ('[unary]\ncells = 3\nrows = 2\ncolumns = 2\n', "1 2\n3 x\n", "no cell number"),
+    ('[unary]\ncells = 3\nrows = 2\ncolumns = 2\n', "1 2 3\n", "the grid is 1 rows"),
+])
+def test_bad_input_is_one_line_and_writes_nothing(tmp_path, text, grid, message):
+    spec = spec_file(tmp_path, text)
+    args = [str(spec), "--out", str(tmp_path / "o")]
+    if grid is not None:
+        g = tmp_path / "g.txt"
+        g.write_text(grid)
+        args += ["--grid", str(g)]
+    res = _run(args)
+    assert res.exit_code == 1
+    assert message in res.output and "Traceback" not in res.output
+    assert len(res.output.strip().splitlines()) == 1
+    assert not (tmp_path / "o").exists() or not any((tmp_path / "o").iterdir())
