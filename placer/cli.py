@@ -868,7 +868,9 @@ def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, 
 @cli.command()
 @click.argument("spec_path", metavar="SPEC", type=_FILE)
 @click.option("--out", "out_dir", type=_OUT, required=True,
-              help="Folder for sequence.txt, report.json and sequence.png.")
+              help="Folder for sequence.txt, report.json, sequence.png and sequence.gds.")
+@click.option("--layers", "layers_path", type=_FILE, default=None,
+              help="Layer map (TOML: [layers] role = [layer, datatype]) for the GDSII.")
 @click.option("--grid", "grid_path", type=_FILE, default=None,
               help="Grade this sequence grid (each slot's cell number, . a dummy) instead "
                    "of searching.")
@@ -878,16 +880,18 @@ def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, 
               help="Random seed; the same spec and seed give the same order.")
 @click.option("--force", is_flag=True, help="Overwrite files already in --out.")
 @_user_errors
-def sequence(spec_path: Path, out_dir: Path, grid_path: Path | None, time_limit: float,
-             seed: int, force: bool) -> None:
+def sequence(spec_path: Path, out_dir: Path, layers_path: Path | None,
+             grid_path: Path | None, time_limit: float, seed: int, force: bool) -> None:
     """Place a unary (thermometer-coded) array and order its switching for the least INL,
     or grade a given order (--grid); a SPEC with a [unary] table (see the README)."""
     from placer.io.unaryspec import read_sequence_grid, read_unary_spec
     from placer.jobs.sequence import find_sequence, score_sequence
+    from placer.layout.layers import load_layers
     from placer.present import outputs
     from placer.present.report import format_sequence
 
     spec = read_unary_spec(spec_path)
+    layers = load_layers(layers_path)
     if grid_path is not None:
         rep = score_sequence(spec, read_sequence_grid(grid_path, spec),
                              f"given ({grid_path.name})")
@@ -895,7 +899,7 @@ def sequence(spec_path: Path, out_dir: Path, grid_path: Path | None, time_limit:
         rep = find_sequence(spec, seed=seed, time_limit_s=time_limit)
     with OutputSet(out_dir, list(outputs.SEQUENCE_FILES), force,
                    outputs.SEQUENCE_FILES) as out:
-        outputs.write_sequence(out, rep)
+        outputs.write_sequence(out, rep, layers)
         written = out.commit()
     click.echo(format_sequence(rep))
     click.echo("Wrote " + ", ".join(str(p) for p in written))

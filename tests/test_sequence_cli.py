@@ -35,8 +35,8 @@ def test_search_writes_the_grid_report_and_picture_and_the_grid_grades_alike(tmp
     res = _run([str(spec), "--out", str(tmp_path / "o"), "--time-limit", "30"])
     assert res.exit_code == 0, res.output
     out = tmp_path / "o"
-    assert sorted(p.name for p in out.iterdir()) == ["report.json", "sequence.png",
-                                                      "sequence.txt"]
+    assert sorted(p.name for p in out.iterdir()) == ["report.json", "sequence.gds",
+                                                      "sequence.png", "sequence.txt"]
     rep = json.loads((out / "report.json").read_text())
     s = read_unary_spec(spec)
     lay = read_sequence_grid(out / "sequence.txt", s)     # the written grid reads back
@@ -90,3 +90,29 @@ def test_bad_input_is_one_line_and_writes_nothing(tmp_path, text, grid, message)
     assert message in res.output and "Traceback" not in res.output
     assert len(res.output.strip().splitlines()) == 1
     assert not (tmp_path / "o").exists() or not any((tmp_path / "o").iterdir())
+
+
+def test_the_gdsii_labels_every_slot_with_its_sequence_number(tmp_path):
+    """Read back by the independent stream parser (tests/streamread.py): one reference a
+    slot at its pitch, and at each cell's slot the label S<n> of its sequence number on
+    the layer map's label layer; the dummy slot gets the dummy cell and no label."""
+    from tests.streamread import flatten, read
+
+    spec = spec_file(tmp_path, SMALL)
+    assert _run([str(spec), "--out", str(tmp_path / "o")]).exit_code == 0
+    s = read_unary_spec(spec)
+    grid = read_sequence_grid(tmp_path / "o" / "sequence.txt", s).grid()
+    lib = read((tmp_path / "o" / "sequence.gds").read_bytes())
+    top = lib.order[-1]
+    refs = [e for e in lib.cells[top] if e.kind == "SREF"]
+    assert len(refs) == grid.size
+    labels = {}
+    for el, _ in flatten(lib, top):
+        if el.kind == "TEXT":
+            assert el.layer == 10                 # the generic layer map's label layer
+            (x, y), = el.xy
+            labels[(round(-y / 6000), round(x / 8000))] = el.text  # 8 x 6 um pitch, in nm
+    want = {(r, c): f"S{int(grid[r, c])}" for r in range(4) for c in range(4) if grid[r, c]}
+    assert labels == want
+    dummy_refs = [e for e in refs if e.sname.endswith("DUMMY")]
+    assert len(dummy_refs) == int((grid == 0).sum()) == 1

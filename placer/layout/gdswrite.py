@@ -25,7 +25,8 @@ from placer.layout.cells import DB_UNIT_UM, Rect, Rules, UnitCell, snap
 from placer.layout.layers import LayerMap
 from placer.layout.router import Wiring
 
-__all__ = ["cell_name", "build_library", "write_gds", "gds_timestamp", "DB_UNIT_UM"]
+__all__ = ["cell_name", "build_library", "build_sequence_library", "write_gds",
+           "gds_timestamp", "DB_UNIT_UM"]
 
 
 def cell_name(base: str, suffix: str, taken: set[str]) -> str:
@@ -132,6 +133,41 @@ def build_library(pattern: Pattern, spec: Spec, cell: UnitCell, wiring: Wiring,
     x0, y0, x1, y1 = wiring.bbox
     margin = snap(0.5 * min(px, py) * 0.1 + 0.1)
     _add_rect(top, Rect("outline", x0 - margin, y0 - margin, x1 + margin, y1 + margin), layers)
+    return lib
+
+
+def build_sequence_library(layout: Any, name: str, layers: LayerMap) -> Any:
+    """The gdstk library of a unary array's order: a placeholder cell (its outline, 0.9 of
+    the pitch) referenced at every slot of a cell, a dummy cell at every other slot, and
+    at each slot's centre a label with its cell's sequence number (``S<n>``, on the label
+    layer): the pattern a layout engineer fills with the real current cell (same name)."""
+    import gdstk
+
+    px, py = layout.pitch_um
+    lib = gdstk.Library(name=name[:32] or "placer", unit=1e-6, precision=1e-9)
+    taken: set[str] = set()
+    hw, hh = snap(0.45 * px), snap(0.45 * py)
+    unit = lib.new_cell(cell_name(name, "CELL", taken))
+    _add_rect(unit, Rect("outline", -hw, -hh, hw, hh), layers)
+    grid = layout.grid()
+    dummy = None
+    if np.any(grid == 0):
+        dummy = lib.new_cell(cell_name(name, "DUMMY", taken))
+        _add_rect(dummy, Rect("outline", -hw, -hh, hw, hh), layers)
+        _add_rect(dummy, Rect("dummy", -hw, -hh, hw, hh), layers)
+    top = lib.new_cell(cell_name(name, "TOP", taken))
+    lab_layer, lab_type = layers["label"]
+    rows, cols = grid.shape
+    for r in range(rows):
+        for c in range(cols):
+            x, y = snap(c * px), snap(-r * py)
+            k = int(grid[r, c])
+            top.add(gdstk.Reference(unit if k > 0 or dummy is None else dummy, (x, y)))
+            if k > 0:
+                top.add(gdstk.Label(f"S{k}", (x, y), layer=lab_layer, texttype=lab_type))
+    m = snap(0.1 * min(px, py))
+    _add_rect(top, Rect("outline", snap(-0.5 * px) - m, snap(-(rows - 0.5) * py) - m,
+                        snap((cols - 0.5) * px) + m, snap(0.5 * py) + m), layers)
     return lib
 
 

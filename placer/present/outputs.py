@@ -306,11 +306,12 @@ foundry's matching guidelines, extraction and the process's mismatch data.</p>
 # ----------------------------------------------------------------------------- sequence
 
 #: The files of a ``sequence`` run.
-SEQUENCE_FILES = ("sequence.txt", "report.json", "sequence.png")
+SEQUENCE_FILES = ("sequence.txt", "report.json", "sequence.png", "sequence.gds")
 
 
-def write_sequence(out: OutputSet, rep: Any) -> None:
-    """Stage a unary array's sequence grid, its JSON report and its picture."""
+def write_sequence(out: OutputSet, rep: Any, layers: Any = None) -> None:
+    """Stage a unary array's sequence grid, its JSON report, its picture and its GDSII
+    (every slot's cell labelled with its sequence number)."""
     from placer.io.unaryspec import format_sequence_grid
     from placer.present.plot import save_sequence
 
@@ -321,3 +322,9 @@ def write_sequence(out: OutputSet, rep: Any) -> None:
         "plus the bowl)"]))
     out.write("report.json", json_text(rep.to_dict()) + "\n")
     save_sequence(rep, [out.path("sequence.png")])
+    from placer.layout.gdswrite import build_sequence_library
+    from placer.layout.layers import load_layers
+
+    write_gds(build_sequence_library(rep.layout, rep.spec.name,
+                                     layers if layers is not None else load_layers(None)),
+              out.path("sequence.gds"))
