@@ -874,25 +874,36 @@ def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, 
 @click.option("--grid", "grid_path", type=_FILE, default=None,
               help="Grade this sequence grid (each slot's cell number, . a dummy) instead "
                    "of searching.")
+@click.option("--max-swaps", "max_swaps", type=click.IntRange(0, 64), default=0,
+              show_default=True,
+              help="With --grid: repair the given order by up to this many exchanges of "
+                   "two slots (each the one that lowers the worst |INL| most).")
 @click.option("--time-limit", "time_limit", type=_TIME, default=10.0, show_default=True,
-              help="Cap on the search in seconds (its move budget usually ends it sooner).")
+              help="Cap on the search (or the repair) in seconds (the search's move "
+                   "budget usually ends it sooner).")
 @click.option("--seed", type=_SEED, default=0, show_default=True,
               help="Random seed; the same spec and seed give the same order.")
 @click.option("--force", is_flag=True, help="Overwrite files already in --out.")
 @_user_errors
 def sequence(spec_path: Path, out_dir: Path, layers_path: Path | None,
-             grid_path: Path | None, time_limit: float, seed: int, force: bool) -> None:
+             grid_path: Path | None, max_swaps: int, time_limit: float, seed: int,
+             force: bool) -> None:
     """Place a unary (thermometer-coded) array and order its switching for the least INL,
     or grade a given order (--grid); a SPEC with a [unary] table (see the README)."""
     from placer.io.unaryspec import read_sequence_grid, read_unary_spec
-    from placer.jobs.sequence import find_sequence, score_sequence
+    from placer.jobs.sequence import find_sequence, repair_given, score_sequence
     from placer.layout.layers import load_layers
     from placer.present import outputs
     from placer.present.report import format_sequence
 
     spec = read_unary_spec(spec_path)
     layers = load_layers(layers_path)
-    if grid_path is not None:
+    if max_swaps and grid_path is None:
+        raise click.UsageError("--max-swaps repairs a given order: give it with --grid")
+    if grid_path is not None and max_swaps:
+        rep = repair_given(spec, read_sequence_grid(grid_path, spec), grid_path.name,
+                           max_swaps, time_limit)
+    elif grid_path is not None:
         rep = score_sequence(spec, read_sequence_grid(grid_path, spec),
                              f"given ({grid_path.name})")
     else:

@@ -23,7 +23,7 @@ from placer.model.unary import (
 )
 from placer.search.switching import BASELINES, switching_sequence
 
-__all__ = ["SequenceReport", "score_sequence", "find_sequence"]
+__all__ = ["SequenceReport", "score_sequence", "find_sequence", "repair_given"]
 
 FloatArray = NDArray[np.float64]
 
@@ -47,6 +47,9 @@ class SequenceReport:
     baselines: dict[str, float] = field(default_factory=dict)
     moves: int = 0
     seconds: float = 0.0
+    #: a repair's exchanges (slot, slot) and the worst |INL| before it
+    swaps: tuple[tuple[int, int], ...] = ()
+    before_lsb: float | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready figures."""
@@ -65,6 +68,9 @@ class SequenceReport:
             "random_sigma_lsb": self.random_sigma_lsb.tolist(),
             "correlated_sigma_lsb": self.correlated_sigma_lsb.tolist(),
             "baselines_worst_inl_lsb": self.baselines,
+            "swaps": [[list(divmod(a, self.spec.cols)), list(divmod(b, self.spec.cols))]
+                      for a, b in self.swaps],
+            "worst_inl_before_repair_lsb": self.before_lsb,
             "sequence": self.layout.grid().tolist(),
             "assumptions": {
                 "linear_ppm_per_um": self.spec.fields.linear_ppm_per_um,
@@ -116,3 +122,17 @@ def find_sequence(spec: UnarySpec, *, seed: int = 0, time_limit_s: float = 10.0,
                              time_limit_s=time_limit_s)
     return score_sequence(spec, res.layout, f"search from the {res.start} order",
                           moves=res.moves, seconds=res.seconds)
+
+
+def repair_given(spec: UnarySpec, layout: UnaryLayout, name: str, max_swaps: int,
+                 time_limit_s: float = 60.0) -> SequenceReport:
+    """A given order repaired by the fewest exchanges found
+    (:func:`placer.search.switching.repair_sequence`), scored in full."""
+    from dataclasses import replace
+
+    from placer.search.switching import repair_sequence
+
+    fix = repair_sequence(layout, spec.fields, max_swaps, time_limit_s)
+    rep = score_sequence(spec, fix.layout, f"given ({name}), repaired by {len(fix.swaps)} "
+                                           f"exchange{'s' if len(fix.swaps) != 1 else ''}")
+    return replace(rep, swaps=fix.swaps, before_lsb=fix.before_lsb)

@@ -395,6 +395,14 @@ def format_sequence(rep: Any) -> str:
            f"{s.a_param_pct_um:g} %um): INL sigma up to {rep.random_sigma_lsb.max():.4g} "
            f"LSB at mid-scale; the correlated field ({s.corr_sigma_ppm:g} ppm, "
            f"{s.corr_length_um:g} um): up to {rep.correlated_sigma_lsb.max():.4g} LSB."]
+    if rep.before_lsb is not None:
+        out.append(f"Repair: worst |INL| {rep.before_lsb:.4g} -> {rep.worst_inl_lsb:.4g} "
+                   f"LSB by {len(rep.swaps)} exchange{'s' if len(rep.swaps) != 1 else ''}"
+                   + (":" if rep.swaps else " (no exchange helps)."))
+        for a, b in rep.swaps:
+            (ra, ca), (rb, cb) = divmod(a, s.cols), divmod(b, s.cols)
+            out.append(f"  exchange the slots at row {ra}, column {ca} and row {rb}, "
+                       f"column {cb} (rows and columns from 0 at the top left)")
     if rep.baselines:
         out += ["", "Textbook orders on the same core (worst |INL|, LSB)"]
         rows = [[k, f"{v:.4g}", f"{v / rep.worst_inl_lsb:.3g} x this"

@@ -48,7 +48,7 @@ from numpy.typing import NDArray
 from placer.model.unary import UnaryFields, UnaryLayout, slot_xy, worst_inl
 
 __all__ = ["BASELINES", "row_by_row", "row_column", "centre_pairs", "quadrant_split",
-           "switching_sequence", "SequenceResult"]
+           "switching_sequence", "SequenceResult", "repair_sequence", "SequenceRepair"]
 
 IntArray = NDArray[np.int64]
 
@@ -278,3 +278,66 @@ def switching_sequence(rows: int, cols: int, pitch: tuple[float, float], n_cells
     cells = best[:nm].reshape(n_cells, m)
     out = UnaryLayout(rows, cols, pitch, cells.copy())
     return SequenceResult(out, worst_inl(out, fields), start, done, time.monotonic() - t0)
+
+
+@dataclass(frozen=True)
+class SequenceRepair:
+    """The fewest exchanges found that bring a given order's worst |INL| down."""
+
+    layout: UnaryLayout
+    swaps: tuple[tuple[int, int], ...]      # (slot, slot) exchanged, in the order made
+    before_lsb: float
+    after_lsb: float
+
+
+def repair_sequence(layout: UnaryLayout, fields: UnaryFields, max_swaps: int = 4,
+                    time_limit_s: float = 60.0) -> SequenceRepair:
+    """Greedy repair of a given placement and order: each step makes the one exchange of
+    two slots' contents (two cells, or a cell and a dummy slot; a cell's sub-units move
+    one at a time) that lowers the worst |INL| most, until ``max_swaps`` are made or no
+    exchange helps (or ``time_limit_s`` is spent: the best exchange of a step cut short
+    is still made)."""
+    t_end = time.monotonic() + time_limit_s
+    n_cells, m = layout.cells.shape
+    rows, cols = layout.rows, layout.cols
+    n = rows * cols
+    used = layout.cells.reshape(-1)
+    perm = np.concatenate([used, np.setdiff1d(np.arange(n), used)]).astype(np.int64)
+    nm = n_cells * m
+    xy = slot_xy(rows, cols, layout.pitch_um)
+    bowl = (fields.quadratic_ppm_per_um2 / (2 * np.sqrt(2))) * (xy * xy).sum(axis=1)
+    g = fields.linear_ppm_per_um
+
+    def cost(pm: IntArray) -> float:
+        cells = pm[:nm].reshape(n_cells, m)
+        p = xy[cells].mean(axis=1)
+        bb = bowl[cells].mean(axis=1)
+        d = np.cumsum(p - p.mean(axis=0), axis=0)
+        qq = np.cumsum(bb - bb.mean())
+        return float(1e-6 * (g * np.hypot(d[:, 0], d[:, 1]) + np.abs(qq)).max())
+
+    before = cur = cost(perm)
+    swaps: list[tuple[int, int]] = []
+    for _ in range(max_swaps):
+        best = (cur * (1 - 1e-12), -1, -1)
+        for a in range(nm):
+            if time.monotonic() > t_end:
+                break
+            for b in range(a + 1, n):
+                if b < nm and a // m == b // m:
+                    continue
+                perm[a], perm[b] = perm[b], perm[a]
+                f = cost(perm)
+                perm[a], perm[b] = perm[b], perm[a]
+                if f < best[0]:
+                    best = (f, a, b)
+        f, a, b = best
+        if a < 0:
+            break
+        swaps.append((int(perm[a]), int(perm[b])))
+        perm[a], perm[b] = perm[b], perm[a]
+        cur = f
+        if time.monotonic() > t_end:
+            break
+    out = UnaryLayout(rows, cols, layout.pitch_um, perm[:nm].reshape(n_cells, m).copy())
+    return SequenceRepair(out, tuple(swaps), before, cur)
