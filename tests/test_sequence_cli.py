@@ -56,6 +56,13 @@ def test_search_writes_the_grid_report_and_picture_and_the_grid_grades_alike(tmp
     assert all(v >= rep["worst_inl_lsb"] * (1 - 1e-12)
                for v in graded["baselines_worst_inl_lsb"].values())
     assert "Worst |INL|" in res.output and "row-by-row" in res.output
+    # the budget: per code, the systematic envelope plus 3 sigma of the independent
+    # random and correlated parts (variances add), at its worst code
+    env = np.array(rep["linear_part_lsb"]) + np.abs(rep["bowl_part_lsb"])
+    rnd, cor = np.array(rep["random_sigma_lsb"]), np.array(rep["correlated_sigma_lsb"])
+    assert rep["inl_at_3_sigma_lsb"] == pytest.approx(
+        float((env + 3 * np.sqrt(rnd ** 2 + cor ** 2)).max()), rel=1e-12)
+    assert "Budget: |INL| at 3 sigma" in res.output
 
 
 def test_the_same_seed_gives_the_same_order(tmp_path):

@@ -47,6 +47,9 @@ class SequenceReport:
     baselines: dict[str, float] = field(default_factory=dict)
     moves: int = 0
     seconds: float = 0.0
+    #: the budget: per code, the systematic envelope plus 3 sigma of the random and
+    #: correlated parts together; its worst over every code
+    inl_3sigma_lsb: float = 0.0
     #: a repair's exchanges (slot, slot) and the worst |INL| before it
     swaps: tuple[tuple[int, int], ...] = ()
     before_lsb: float | None = None
@@ -62,6 +65,7 @@ class SequenceReport:
             "max_dnl_lsb": float(np.abs(self.dnl_lsb).max()),
             "max_random_inl_sigma_lsb": float(self.random_sigma_lsb.max()),
             "max_correlated_inl_sigma_lsb": float(self.correlated_sigma_lsb.max()),
+            "inl_at_3_sigma_lsb": self.inl_3sigma_lsb,
             "inl_lsb": self.inl_lsb.tolist(), "dnl_lsb": self.dnl_lsb.tolist(),
             "linear_part_lsb": self.linear_part_lsb.tolist(),
             "bowl_part_lsb": self.bowl_part_lsb.tolist(),
@@ -106,12 +110,14 @@ def score_sequence(spec: UnarySpec, layout: UnaryLayout, method: str,
                                           spec.sub_units), spec.fields)
             except ValueError:
                 continue
+    rnd = random_inl_sigma(spec.cells, spec.cell_sigma)
+    cor = (correlated_inl_sigma(layout, spec.corr_sigma_ppm, spec.corr_length_um,
+                                spec.kernel)
+           if spec.corr_sigma_ppm > 0 else np.zeros(spec.cells + 1))
+    budget = float((total + 3.0 * np.hypot(rnd, cor)).max())
     return SequenceReport(
         spec, layout, method, float(total[c]), c, math.degrees(theta) % 360.0, inl(e),
-        dnl(e), lin, bowl, random_inl_sigma(spec.cells, spec.cell_sigma),
-        correlated_inl_sigma(layout, spec.corr_sigma_ppm, spec.corr_length_um, spec.kernel)
-        if spec.corr_sigma_ppm > 0 else np.zeros(spec.cells + 1),
-        base, moves, seconds)
+        dnl(e), lin, bowl, rnd, cor, base, moves, seconds, inl_3sigma_lsb=budget)
 
 
 def find_sequence(spec: UnarySpec, *, seed: int = 0, time_limit_s: float = 10.0,

@@ -394,7 +394,11 @@ def format_sequence(rep: Any) -> str:
            f"Random: a cell's sigma {100 * s.cell_sigma:.3g} % (area law, A = "
            f"{s.a_param_pct_um:g} %um): INL sigma up to {rep.random_sigma_lsb.max():.4g} "
            f"LSB at mid-scale; the correlated field ({s.corr_sigma_ppm:g} ppm, "
-           f"{s.corr_length_um:g} um): up to {rep.correlated_sigma_lsb.max():.4g} LSB."]
+           f"{s.corr_length_um:g} um): up to {rep.correlated_sigma_lsb.max():.4g} LSB.",
+           f"Budget: |INL| at 3 sigma up to {rep.inl_3sigma_lsb:.4g} LSB (per code, the "
+           f"systematic part in its worst direction plus 3 sigma of the random and "
+           f"correlated parts together; in steps of one unary cell); within 0.5 LSB: "
+           f"{'yes' if rep.inl_3sigma_lsb <= 0.5 else 'no'}."]
     if rep.before_lsb is not None:
         out.append(f"Repair: worst |INL| {rep.before_lsb:.4g} -> {rep.worst_inl_lsb:.4g} "
                    f"LSB by {len(rep.swaps)} exchange{'s' if len(rep.swaps) != 1 else ''}"
