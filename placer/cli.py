@@ -882,7 +882,8 @@ def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, 
               help="Cap on the search (or the repair) in seconds (the search's move "
                    "budget usually ends it sooner).")
 @click.option("--seed", type=_SEED, default=0, show_default=True,
-              help="Random seed; the same spec and seed give the same order.")
+              help="Random seed; the same spec and seed give the same order when the time "
+                   "limit does not cut the search.")
 @click.option("--force", is_flag=True, help="Overwrite files already in --out.")
 @_user_errors
 def sequence(spec_path: Path, out_dir: Path, layers_path: Path | None,

@@ -126,8 +126,9 @@ def find_sequence(spec: UnarySpec, *, seed: int = 0, time_limit_s: float = 10.0,
     res = switching_sequence(spec.rows, spec.cols, spec.pitch_um, spec.cells, spec.fields,
                              sub_units=spec.sub_units, seed=seed, moves=moves,
                              time_limit_s=time_limit_s)
-    return score_sequence(spec, res.layout, f"search from the {res.start} order",
-                          moves=res.moves, seconds=res.seconds)
+    how = f"search from the {res.start} order" + (", cut by the time limit" if res.cut
+                                                   else "")
+    return score_sequence(spec, res.layout, how, moves=res.moves, seconds=res.seconds)
 
 
 def repair_given(spec: UnarySpec, layout: UnaryLayout, name: str, max_swaps: int,

@@ -152,6 +152,7 @@ class SequenceResult:
     start: str
     moves: int
     seconds: float
+    cut: bool = False                # the time limit ended it before its move budget
 
 
 def _greedy(rows: int, cols: int, pitch: tuple[float, float], n_cells: int,
@@ -258,8 +259,10 @@ def switching_sequence(rows: int, cols: int, pitch: tuple[float, float], n_cells
             ups.append(dv)
     t_start = float(np.mean(ups)) if ups else max(cur, 1e-12)
     done = 0
+    cut = False
     for it in range(moves):
         if (it & 1023) == 0 and time.monotonic() - t0 > time_limit_s:
+            cut = True
             break
         a, b = int(rng.integers(nm)), int(rng.integers(n))
         if a // m == b // m and b < nm:
@@ -277,7 +280,8 @@ def switching_sequence(rows: int, cols: int, pitch: tuple[float, float], n_cells
         done += 1
     cells = best[:nm].reshape(n_cells, m)
     out = UnaryLayout(rows, cols, pitch, cells.copy())
-    return SequenceResult(out, worst_inl(out, fields), start, done, time.monotonic() - t0)
+    return SequenceResult(out, worst_inl(out, fields), start, done, time.monotonic() - t0,
+                          cut)
 
 
 @dataclass(frozen=True)
