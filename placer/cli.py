@@ -897,10 +897,10 @@ def sequence(spec_path: Path, out_dir: Path, layers_path: Path | None,
     from placer.present import outputs
     from placer.present.report import format_sequence
 
-    spec = read_unary_spec(spec_path)
-    layers = load_layers(layers_path)
     if max_swaps and grid_path is None:
         raise click.UsageError("--max-swaps repairs a given order: give it with --grid")
+    spec = read_unary_spec(spec_path)
+    layers = load_layers(layers_path)
     if grid_path is not None and max_swaps:
         rep = repair_given(spec, read_sequence_grid(grid_path, spec), grid_path.name,
                            max_swaps, time_limit)

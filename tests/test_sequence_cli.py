@@ -153,3 +153,33 @@ def test_repair_of_a_given_order_finds_the_one_exchange_that_broke_it(tmp_path):
     assert len(rep["swaps"]) == 1 and "exchange the slots" in res.output
     # --max-swaps without --grid is a usage error
     assert _run([str(spec), "--max-swaps", "2", "--out", str(tmp_path / "x")]).exit_code == 2
+
+
+@pytest.mark.parametrize("token", ["\u00b2", "9" * 5000, "\u0661"])
+def test_grid_tokens_that_only_look_like_numbers_are_one_line(tmp_path, token):
+    """Superscripts, other scripts' digits and huge numbers are no cell numbers (the
+    review found the first two ending in a traceback and the third read as 1)."""
+    spec = spec_file(tmp_path, '[unary]\ncells = 3\nrows = 2\ncolumns = 2\n')
+    g = tmp_path / "g.txt"
+    g.write_text(f"{token} 2\n3 .\n")
+    res = _run([str(spec), "--grid", str(g), "--out", str(tmp_path / "o")])
+    assert res.exit_code == 1 and "no cell number" in res.output
+    assert "Traceback" not in res.output
+
+
+def test_a_core_wider_than_gdsii_holds_is_refused(tmp_path):
+    spec = spec_file(tmp_path, '[unary]\ncells = 1000\nrows = 1\ncolumns = 1024\n'
+                               'pitch_um = [100000.0, 100000.0]\n')
+    res = _run([str(spec), "--out", str(tmp_path / "o")])
+    assert res.exit_code == 1 and "a GDSII coordinate holds" in res.output
+
+
+def test_a_repair_cut_by_the_time_limit_says_so(tmp_path):
+    spec = spec_file(tmp_path, '[unary]\ncells = 63\nrows = 8\ncolumns = 8\n')
+    g = tmp_path / "g.txt"
+    g.write_text("\n".join(" ".join(str(r * 8 + c + 1) if r * 8 + c < 63 else "."
+                                    for c in range(8)) for r in range(8)) + "\n")
+    res = _run([str(spec), "--grid", str(g), "--max-swaps", "3", "--time-limit", "0.000001",
+                "--out", str(tmp_path / "o")])
+    assert res.exit_code == 0, res.output
+    assert "time limit" in res.output and "no exchange helps" not in res.output

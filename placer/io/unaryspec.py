@@ -34,7 +34,7 @@ import numpy as np
 from placer.errors import LimitError, SpecError, shown
 from placer.io.files import read_text, toml_depth
 from placer.io.spec import _pitch, _Reader, _safe_default_name, check_name
-from placer.limits import MAX_TOML_DEPTH
+from placer.limits import MAX_EXTENT_UM, MAX_TOML_DEPTH
 from placer.model.unary import UnaryFields, UnaryLayout
 
 __all__ = ["UnarySpec", "read_unary_spec", "read_sequence_grid", "format_sequence_grid",
@@ -127,6 +127,11 @@ def read_unary_spec(path: str | Path) -> UnarySpec:
     if rows * cols > MAX_CORE_SLOTS:
         raise LimitError(f"{src}: [unary] a core of {rows} x {cols} slots is more than the "
                          f"limit of {MAX_CORE_SLOTS}")
+    px, py = _pitch(un)
+    if max((cols + 2) * px, (rows + 2) * py) > MAX_EXTENT_UM:
+        raise LimitError(f"{src}: [unary] {rows} x {cols} slots at pitch [{px:g}, {py:g}] um "
+                         f"would span {(cols + 2) * px:.4g} x {(rows + 2) * py:.4g} um, more "
+                         f"than the {MAX_EXTENT_UM:g} um a GDSII coordinate holds at 1 nm")
     if rows * cols < need:
         raise SpecError(f"{src}: [unary] {cells} cells of {m} sub-units need {need} slots; "
                         f"{rows} x {cols} holds {rows * cols} (give more rows or columns)")
@@ -182,7 +187,8 @@ def read_sequence_grid(path: str | Path, spec: UnarySpec) -> UnaryLayout:
         for tok in line.split():
             if tok == ".":
                 row.append(0)
-            elif tok.isdigit() and 1 <= int(tok) <= spec.cells:
+            elif (tok.isascii() and tok.isdecimal() and len(tok) <= 6
+                  and 1 <= int(tok) <= spec.cells):
                 row.append(int(tok))
             else:
                 raise SpecError(f"{src}:{n}: {shown(tok)} is no cell number (1 to "

@@ -53,6 +53,7 @@ class SequenceReport:
     #: a repair's exchanges (slot, slot) and the worst |INL| before it
     swaps: tuple[tuple[int, int], ...] = ()
     before_lsb: float | None = None
+    repair_cut: bool = False
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready figures."""
@@ -75,6 +76,7 @@ class SequenceReport:
             "swaps": [[list(divmod(a, self.spec.cols)), list(divmod(b, self.spec.cols))]
                       for a, b in self.swaps],
             "worst_inl_before_repair_lsb": self.before_lsb,
+            "repair_cut_by_time_limit": self.repair_cut,
             "sequence": self.layout.grid().tolist(),
             "assumptions": {
                 "linear_ppm_per_um": self.spec.fields.linear_ppm_per_um,
@@ -141,5 +143,6 @@ def repair_given(spec: UnarySpec, layout: UnaryLayout, name: str, max_swaps: int
 
     fix = repair_sequence(layout, spec.fields, max_swaps, time_limit_s)
     rep = score_sequence(spec, fix.layout, f"given ({name}), repaired by {len(fix.swaps)} "
-                                           f"exchange{'s' if len(fix.swaps) != 1 else ''}")
-    return replace(rep, swaps=fix.swaps, before_lsb=fix.before_lsb)
+                                           f"exchange{'s' if len(fix.swaps) != 1 else ''}"
+                                           + (", cut by the time limit" if fix.cut else ""))
+    return replace(rep, swaps=fix.swaps, before_lsb=fix.before_lsb, repair_cut=fix.cut)

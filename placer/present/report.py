@@ -400,13 +400,17 @@ def format_sequence(rep: Any) -> str:
            f"correlated parts together; in steps of one unary cell); within 0.5 LSB: "
            f"{'yes' if rep.inl_3sigma_lsb <= 0.5 else 'no'}."]
     if rep.before_lsb is not None:
+        tail = (":" if rep.swaps else " (the time limit came first)." if rep.repair_cut
+                else " (no exchange helps).")
         out.append(f"Repair: worst |INL| {rep.before_lsb:.4g} -> {rep.worst_inl_lsb:.4g} "
                    f"LSB by {len(rep.swaps)} exchange{'s' if len(rep.swaps) != 1 else ''}"
-                   + (":" if rep.swaps else " (no exchange helps)."))
+                   + tail)
         for a, b in rep.swaps:
             (ra, ca), (rb, cb) = divmod(a, s.cols), divmod(b, s.cols)
             out.append(f"  exchange the slots at row {ra}, column {ca} and row {rb}, "
                        f"column {cb} (rows and columns from 0 at the top left)")
+        if rep.repair_cut and rep.swaps:
+            out.append("  (cut by the time limit: a longer --time-limit may find more)")
     if rep.baselines:
         out += ["", "Textbook orders on the same core (worst |INL|, LSB)"]
         rows = [[k, f"{v:.4g}", f"{v / rep.worst_inl_lsb:.3g} x this"

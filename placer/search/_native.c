@@ -774,8 +774,11 @@ static PyObject *py_anneal(PyObject *self, PyObject *args) {
                 memcpy(st.pk + NK * tl[i], pk2 + NK * tl[i], sizeof(double) * NK);
             for (int j = 0; j < NK; j++)
                 if (need[j]) agg_full(&P, st.pk, j, &agg[j]);
-            cur_s = s2;
-            cur_w = w2;
+            if (stage == K_EDGE) { cur_s = s2; cur_w = w2; }
+            else {              /* from the full sums: an unchanged move is then exactly 0 */
+                cur_w = agg[stage].mx;
+                cur_s = cur_w + (n_pairs ? lam * agg[stage].sum / (double)n_pairs : 0.0);
+            }
             edge = edge2;
             /* keep the device lists of single-slot orbits */
             for (int64_t i = 0; i < mv.ns; i++) {

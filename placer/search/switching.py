@@ -292,6 +292,7 @@ class SequenceRepair:
     swaps: tuple[tuple[int, int], ...]      # (slot, slot) exchanged, in the order made
     before_lsb: float
     after_lsb: float
+    cut: bool = False                # the time limit ended it before max_swaps or a stop
 
 
 def repair_sequence(layout: UnaryLayout, fields: UnaryFields, max_swaps: int = 4,
@@ -322,10 +323,12 @@ def repair_sequence(layout: UnaryLayout, fields: UnaryFields, max_swaps: int = 4
 
     before = cur = cost(perm)
     swaps: list[tuple[int, int]] = []
+    cut = False
     for _ in range(max_swaps):
         best = (cur * (1 - 1e-12), -1, -1)
         for a in range(nm):
             if time.monotonic() > t_end:
+                cut = True
                 break
             for b in range(a + 1, n):
                 if b < nm and a // m == b // m:
@@ -341,7 +344,8 @@ def repair_sequence(layout: UnaryLayout, fields: UnaryFields, max_swaps: int = 4
         swaps.append((int(perm[a]), int(perm[b])))
         perm[a], perm[b] = perm[b], perm[a]
         cur = f
-        if time.monotonic() > t_end:
+        if time.monotonic() > t_end and len(swaps) < max_swaps:
+            cut = True
             break
     out = UnaryLayout(rows, cols, layout.pitch_um, perm[:nm].reshape(n_cells, m).copy())
-    return SequenceRepair(out, tuple(swaps), before, cur)
+    return SequenceRepair(out, tuple(swaps), before, cur, cut)
