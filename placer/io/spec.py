@@ -52,6 +52,7 @@ __all__ = [
     "Spec",
     "bare_spec",
     "read_spec",
+    "toml_data",
     "read_spec_text",
     "check_name",
 ]
@@ -523,6 +524,21 @@ def _typename(value: Any) -> str:
             list: "an array", dict: "a table"}.get(type(value), type(value).__name__)
 
 
+def toml_data(text: str, source: str) -> dict[str, Any]:
+    """The TOML ``text`` of a spec (``source`` names it in errors), its nesting measured
+    before it is parsed."""
+    if toml_depth(text) > MAX_TOML_DEPTH:
+        raise LimitError(f"{source}: tables, arrays or dotted keys nest deeper than "
+                         f"{MAX_TOML_DEPTH} levels; a spec needs at most 4")
+    try:
+        return tomllib.loads(text.removeprefix("\ufeff"))
+    except tomllib.TOMLDecodeError as err:
+        raise SpecError(f"{source}: invalid TOML: {err}") from err
+    except RecursionError:
+        raise SpecError(f"{source}: invalid TOML: nested too deeply (a spec needs at most "
+                        "3 levels)") from None
+
+
 def read_spec(path: str | Path) -> Spec:
     """Read and validate the spec file at ``path`` (its pitch, unless given, not yet worked
     out: :func:`placer.jobs.load.load_spec` gives it).
@@ -540,16 +556,7 @@ def read_spec(path: str | Path) -> Spec:
 def read_spec_text(text: str, source: str = "<spec>", default_name: str = "placer") -> Spec:
     """Parse and validate spec text; ``source`` names it in error messages. The pitch,
     unless the spec gives it, is left for :mod:`placer.layout.pitch` to work out."""
-    if toml_depth(text) > MAX_TOML_DEPTH:
-        raise LimitError(f"{source}: tables, arrays or dotted keys nest deeper than "
-                         f"{MAX_TOML_DEPTH} levels; a spec needs at most 4")
-    try:
-        data = tomllib.loads(text.removeprefix("\ufeff"))
-    except tomllib.TOMLDecodeError as err:
-        raise SpecError(f"{source}: invalid TOML: {err}") from err
-    except RecursionError:
-        raise SpecError(f"{source}: invalid TOML: nested too deeply (a spec needs at most "
-                        "3 levels)") from None
+    data = toml_data(text, source)
     top = _Reader(source, "", data)
 
     name = data.get("name", _safe_default_name(default_name))

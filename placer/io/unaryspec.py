@@ -25,16 +25,15 @@ the sub-units of a cell share its number. Lines starting with ``#`` are comments
 from __future__ import annotations
 
 import math
-import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
 from placer.errors import LimitError, SpecError, shown
-from placer.io.files import read_text, toml_depth
-from placer.io.spec import _pitch, _Reader, _safe_default_name, check_name
-from placer.limits import MAX_EXTENT_UM, MAX_TOML_DEPTH
+from placer.io.files import read_text
+from placer.io.spec import _pitch, _Reader, _safe_default_name, check_name, toml_data
+from placer.limits import MAX_EXTENT_UM
 from placer.model.unary import UnaryFields, UnaryLayout
 
 __all__ = ["UnarySpec", "read_unary_spec", "read_sequence_grid", "format_sequence_grid",
@@ -80,16 +79,7 @@ def read_unary_spec(path: str | Path) -> UnarySpec:
     """Read and check a unary spec; one :class:`SpecError` line names what is wrong."""
     path = Path(path)
     src = str(path)
-    text = read_text(path, "spec", SpecError)
-    if toml_depth(text) > MAX_TOML_DEPTH:
-        raise LimitError(f"{src}: tables, arrays or dotted keys nest deeper than "
-                         f"{MAX_TOML_DEPTH} levels; a unary spec needs 2")
-    try:
-        data = tomllib.loads(text.removeprefix("\ufeff"))
-    except tomllib.TOMLDecodeError as err:
-        raise SpecError(f"{src}: invalid TOML: {err}") from err
-    except RecursionError:
-        raise SpecError(f"{src}: invalid TOML: nested too deeply") from None
+    data = toml_data(read_text(path, "spec", SpecError), src)
     if "unary" not in data:
         what = (" (this is an arrangement spec, for arrange)" if "devices" in data else "")
         raise SpecError(f"{src}: needs a [unary] table (cells = the number of unary "

@@ -155,6 +155,23 @@ class SequenceResult:
     cut: bool = False                # the time limit ended it before its move budget
 
 
+def _cost(xy: NDArray[np.float64], bowl: NDArray[np.float64], g: float, n_cells: int,
+          m: int) -> Callable[[IntArray], float]:
+    """The worst |INL| (LSB) of a permutation of slots whose first ``n_cells * m`` form the
+    cells in order (:func:`placer.model.unary.worst_inl`, on positions looked up once)."""
+    nm = n_cells * m
+
+    def cost(pm: IntArray) -> float:
+        cells = pm[:nm].reshape(n_cells, m)
+        p = xy[cells].mean(axis=1)
+        bb = bowl[cells].mean(axis=1)
+        d = np.cumsum(p - p.mean(axis=0), axis=0)
+        qq = np.cumsum(bb - bb.mean())
+        return float(1e-6 * (g * np.hypot(d[:, 0], d[:, 1]) + np.abs(qq)).max())
+
+    return cost
+
+
 def _greedy(rows: int, cols: int, pitch: tuple[float, float], n_cells: int,
             fields: UnaryFields) -> UnaryLayout:
     """One sub-unit a cell: each next cell the free slot that keeps the partial sums of
@@ -236,13 +253,7 @@ def switching_sequence(rows: int, cols: int, pitch: tuple[float, float], n_cells
     g = fields.linear_ppm_per_um
     nm = n_cells * m
 
-    def cost(pm: IntArray) -> float:
-        cells = pm[:nm].reshape(n_cells, m)
-        p = xy[cells].mean(axis=1)
-        bb = bowl[cells].mean(axis=1)
-        d = np.cumsum(p - p.mean(axis=0), axis=0)
-        qq = np.cumsum(bb - bb.mean())
-        return float(1e-6 * (g * np.hypot(d[:, 0], d[:, 1]) + np.abs(qq)).max())
+    cost = _cost(xy, bowl, g, n_cells, m)
 
     rng = np.random.default_rng(seed)
     cur = cost(perm)
@@ -313,13 +324,7 @@ def repair_sequence(layout: UnaryLayout, fields: UnaryFields, max_swaps: int = 4
     bowl = (fields.quadratic_ppm_per_um2 / (2 * np.sqrt(2))) * (xy * xy).sum(axis=1)
     g = fields.linear_ppm_per_um
 
-    def cost(pm: IntArray) -> float:
-        cells = pm[:nm].reshape(n_cells, m)
-        p = xy[cells].mean(axis=1)
-        bb = bowl[cells].mean(axis=1)
-        d = np.cumsum(p - p.mean(axis=0), axis=0)
-        qq = np.cumsum(bb - bb.mean())
-        return float(1e-6 * (g * np.hypot(d[:, 0], d[:, 1]) + np.abs(qq)).max())
+    cost = _cost(xy, bowl, g, n_cells, m)
 
     before = cur = cost(perm)
     swaps: list[tuple[int, int]] = []
