@@ -1,4 +1,6 @@
-"""The spec of a unary array, and the sequence grid: placer's own text of a switching order.
+"""The spec of a unary array, its layout (each cell's slots in switching order: what the
+model scores, as :class:`placer.io.pattern.Pattern` is for arrangements), and the sequence
+grid: placer's own text of a switching order.
 
 A unary spec (TOML) names the array and takes the model's tables as an arrangement spec
 does::
@@ -29,15 +31,15 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
+from numpy.typing import NDArray
 
 from placer.errors import LimitError, SpecError, shown
 from placer.io.files import read_text
 from placer.io.spec import _pitch, _Reader, _safe_default_name, check_name, toml_data
 from placer.limits import MAX_EXTENT_UM
-from placer.model.unary import UnaryFields, UnaryLayout
 
-__all__ = ["UnarySpec", "read_unary_spec", "read_sequence_grid", "format_sequence_grid",
-           "MAX_CELLS", "MAX_SUB_UNITS"]
+__all__ = ["UnaryLayout", "UnaryFields", "UnarySpec", "read_unary_spec", "read_sequence_grid",
+           "format_sequence_grid", "MAX_CELLS", "MAX_SUB_UNITS"]
 
 #: The largest unary array a spec may hold (12 thermometer bits), sub-units a cell, all
 #: sub-units together (the correlated field's covariance is their square: 134 MB at the
@@ -48,6 +50,41 @@ MAX_SUB_UNITS_ALL = 4096
 MAX_CORE_SLOTS = 16384
 _TABLES = ("name", "unary", "unit", "gradient", "correlated", "mismatch")
 _UNARY_KEYS = ("cells", "sub_units", "rows", "columns", "pitch_um")
+
+
+@dataclass(frozen=True)
+class UnaryLayout:
+    """Where each cell's sub-units sit, in switching order.
+
+    ``cells[k]`` lists the slots (reading order over ``rows`` x ``cols``) of the cell that
+    code k + 1 turns on; slots in no cell are dummies.
+    """
+
+    rows: int
+    cols: int
+    pitch_um: tuple[float, float]
+    cells: NDArray[np.int64]                      # (N, m) slot indices
+
+    @property
+    def n_cells(self) -> int:
+        """N, the unary cells."""
+        return int(self.cells.shape[0])
+
+    def grid(self) -> NDArray[np.int64]:
+        """Each slot's sequence number (1 .. N), 0 for a dummy: the order as a grid."""
+        out = np.zeros(self.rows * self.cols, dtype=np.int64)
+        for k, slots in enumerate(self.cells):
+            out[slots] = k + 1
+        return out.reshape(self.rows, self.cols)
+
+
+@dataclass(frozen=True)
+class UnaryFields:
+    """The systematic fields: a linear gradient (ppm/um, its worst direction) and the
+    radial bowl of Frobenius norm ``quadratic_ppm_per_um2``."""
+
+    linear_ppm_per_um: float = 10.0
+    quadratic_ppm_per_um2: float = 0.02
 
 
 @dataclass(frozen=True)

@@ -30,51 +30,16 @@ References
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
 from numpy.typing import NDArray
+
+from placer.io.unaryspec import UnaryFields, UnaryLayout
 
 __all__ = ["UnaryLayout", "UnaryFields", "slot_xy", "cell_errors", "inl", "dnl",
            "worst_inl", "worst_inl_parts", "random_inl_sigma", "correlated_inl_sigma"]
 
 FloatArray = NDArray[np.float64]
 IntArray = NDArray[np.int64]
-
-
-@dataclass(frozen=True)
-class UnaryLayout:
-    """Where each cell's sub-units sit, in switching order.
-
-    ``cells[k]`` lists the slots (reading order over ``rows`` x ``cols``) of the cell that
-    code k + 1 turns on; slots in no cell are dummies.
-    """
-
-    rows: int
-    cols: int
-    pitch_um: tuple[float, float]
-    cells: IntArray                      # (N, m) slot indices
-
-    @property
-    def n_cells(self) -> int:
-        """N, the unary cells."""
-        return int(self.cells.shape[0])
-
-    def grid(self) -> IntArray:
-        """Each slot's sequence number (1 .. N), 0 for a dummy: the order as a grid."""
-        out = np.zeros(self.rows * self.cols, dtype=np.int64)
-        for k, slots in enumerate(self.cells):
-            out[slots] = k + 1
-        return out.reshape(self.rows, self.cols)
-
-
-@dataclass(frozen=True)
-class UnaryFields:
-    """The systematic fields: a linear gradient (ppm/um, its worst direction) and the
-    radial bowl of Frobenius norm ``quadratic_ppm_per_um2``."""
-
-    linear_ppm_per_um: float = 10.0
-    quadratic_ppm_per_um2: float = 0.02
 
 
 def slot_xy(rows: int, cols: int, pitch_um: tuple[float, float]) -> FloatArray:
