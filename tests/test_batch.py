@@ -117,3 +117,25 @@ def test_an_interrupted_batch_keeps_its_finished_blocks_and_says_so(tmp_path):
     assert {"pattern.txt", "report.json", "pattern.gds", "pattern.png"} <= names
     assert not (tmp_path / "chip" / "summary.json").exists()
     assert not any(p.name.startswith(".placer-staging") for p in (tmp_path / "chip").iterdir())
+
+
+def test_a_block_killed_after_its_files_moved_in_counts_as_finished(tmp_path):
+    """The race CI once met: the batch's SIGTERM reached a block between its command's end
+    (the set moved in) and its process's end, where the default action kills it (-15);
+    its set is whole, so it counts as finished -- but only with a report of this run."""
+    import signal
+    import time
+
+    from placer.jobs.batch import finished_whole
+
+    folder = tmp_path / "blk"
+    folder.mkdir()
+    started = time.time()
+    assert not finished_whole(-signal.SIGTERM, "", folder, started)       # nothing moved in
+    (folder / "report.json").write_text("{}")
+    assert finished_whole(-signal.SIGTERM, "", folder, started)
+    assert not finished_whole(-signal.SIGTERM, "", folder, started + 3600)  # an old report
+    assert finished_whole(0, "", folder, started)
+    assert finished_whole(130, "Interrupted; the outputs in x are complete.", folder, 0.0)
+    assert not finished_whole(130, "Interrupted; nothing written.", tmp_path / "none", 0.0)
+    assert not finished_whole(1, "Error: x", folder, started)

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 import os
+import signal
 import subprocess
 import sys
 import threading
@@ -22,7 +23,7 @@ from placer.errors import PlacerError, SpecError
 from placer.io.files import regular
 from placer.io.spec import NAME_RE
 
-__all__ = ["BlockRun", "find_specs", "run_batch", "MAX_SPECS"]
+__all__ = ["BlockRun", "find_specs", "run_batch", "finished_whole", "MAX_SPECS"]
 
 #: Specs one batch runs at most (a chip has dozens of matched blocks, not thousands).
 MAX_SPECS = 1000
@@ -77,6 +78,22 @@ def find_specs(paths: list[Path]) -> list[Path]:
             raise PlacerError(f"{p} and {seen[p.stem]} would both write {p.stem}/; rename one")
         seen[p.stem] = p
     return found
+
+
+def finished_whole(code: int, err: str, folder: Path, started: float) -> bool:
+    """Whether a block's run left its whole set: it ended well, or the interrupt ended it
+    after its files moved in -- saying so (exit 130), or killed by the batch's SIGTERM in
+    the moment between its command's end and its process's end, after a move-in of this
+    run (its report.json is newer than its start; a move-in holds the signals, so a
+    report moved in means the whole set did)."""
+    if code == 0 or (code == 130 and "are complete" in err):
+        return True
+    if code != -signal.SIGTERM:
+        return False
+    try:
+        return (folder / "report.json").stat().st_mtime >= started - 1.0
+    except OSError:
+        return False
 
 
 def _read(name: str, spec: Path, code: int, wall: float, err: str, folder: Path) -> BlockRun:
@@ -148,6 +165,7 @@ def run_batch(specs: list[Path], out: Path, *, time_limit_s: float, seed: int, j
         if stop.is_set():
             return BlockRun(spec.stem, str(spec), 130, 0.0, "not started: interrupted")
         t0 = time.monotonic()
+        started = time.time()
         proc = subprocess.Popen(args, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE,
                                 text=True, start_new_session=True, env=env)
         with lock:
@@ -158,8 +176,7 @@ def run_batch(specs: list[Path], out: Path, *, time_limit_s: float, seed: int, j
             with lock:
                 running.discard(proc)
         run = _read(spec.stem, spec, proc.returncode, time.monotonic() - t0, err, folder)
-        # a block ended by the interrupt after its files moved in is whole too
-        whole = run.exit_code == 0 or (proc.returncode == 130 and "are complete" in err)
+        whole = finished_whole(proc.returncode, err, folder, started)
         if finished is not None and whole:
             with lock:
                 finished.append(run)
