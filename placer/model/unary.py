@@ -35,7 +35,7 @@ from numpy.typing import NDArray
 
 from placer.io.unaryspec import UnaryFields, UnaryLayout
 
-__all__ = ["UnaryLayout", "UnaryFields", "slot_xy", "cell_errors", "inl", "dnl",
+__all__ = ["UnaryLayout", "UnaryFields", "slot_xy", "slot_bowl", "cell_errors", "inl", "dnl",
            "worst_inl", "worst_inl_parts", "random_inl_sigma", "correlated_inl_sigma"]
 
 FloatArray = NDArray[np.float64]
@@ -54,11 +54,15 @@ def _cell_xy(lay: UnaryLayout) -> FloatArray:
     return xy[lay.cells].mean(axis=1)
 
 
+def slot_bowl(xy: FloatArray, h: float) -> FloatArray:
+    """The bowl's value (ppm) at each slot centre ``xy`` (um, about the core's centre):
+    h / (2 sqrt 2) |p|^2, the Hessian (h / sqrt 2) I of Frobenius norm h."""
+    return (h / (2.0 * np.sqrt(2.0))) * (xy * xy).sum(axis=1)
+
+
 def _bowl(lay: UnaryLayout, h: float) -> FloatArray:
-    """Each cell's bowl value (ppm): h / (2 sqrt 2) |p|^2 averaged over its sub-units."""
-    xy = slot_xy(lay.rows, lay.cols, lay.pitch_um)
-    r2 = (xy * xy).sum(axis=1)
-    return (h / (2.0 * np.sqrt(2.0))) * r2[lay.cells].mean(axis=1)
+    """Each cell's bowl value (ppm), averaged over its sub-units."""
+    return slot_bowl(slot_xy(lay.rows, lay.cols, lay.pitch_um), h)[lay.cells].mean(axis=1)
 
 
 def cell_errors(lay: UnaryLayout, fields: UnaryFields, theta: float) -> FloatArray:

@@ -45,7 +45,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
-from placer.model.unary import UnaryFields, UnaryLayout, slot_xy, worst_inl
+from placer.model.unary import UnaryFields, UnaryLayout, slot_bowl, slot_xy, worst_inl
 
 __all__ = ["BASELINES", "row_by_row", "row_column", "centre_pairs", "quadrant_split",
            "switching_sequence", "SequenceResult", "repair_sequence", "SequenceRepair"]
@@ -178,7 +178,7 @@ def _greedy(rows: int, cols: int, pitch: tuple[float, float], n_cells: int,
     the centred positions (weighted by the gradient) and bowl values smallest. The
     centre of the N cells is taken as the core's (exact when no slot is spare)."""
     xy = slot_xy(rows, cols, pitch)
-    b = (fields.quadratic_ppm_per_um2 / (2 * np.sqrt(2))) * (xy * xy).sum(axis=1)
+    b = slot_bowl(xy, fields.quadratic_ppm_per_um2)
     # the cells' mean position and bowl, assuming the spare slots are the outermost
     n = rows * cols
     keep = np.argsort((xy * xy).sum(axis=1), kind="stable")[:n_cells]
@@ -249,7 +249,7 @@ def switching_sequence(rows: int, cols: int, pitch: tuple[float, float], n_cells
     rest = np.setdiff1d(np.arange(n), used)
     perm = np.concatenate([used, rest]).astype(np.int64)
     xy = slot_xy(rows, cols, pitch)
-    bowl = (fields.quadratic_ppm_per_um2 / (2 * np.sqrt(2))) * (xy * xy).sum(axis=1)
+    bowl = slot_bowl(xy, fields.quadratic_ppm_per_um2)
     g = fields.linear_ppm_per_um
     nm = n_cells * m
 
@@ -321,7 +321,7 @@ def repair_sequence(layout: UnaryLayout, fields: UnaryFields, max_swaps: int = 4
     perm = np.concatenate([used, np.setdiff1d(np.arange(n), used)]).astype(np.int64)
     nm = n_cells * m
     xy = slot_xy(rows, cols, layout.pitch_um)
-    bowl = (fields.quadratic_ppm_per_um2 / (2 * np.sqrt(2))) * (xy * xy).sum(axis=1)
+    bowl = slot_bowl(xy, fields.quadratic_ppm_per_um2)
     g = fields.linear_ppm_per_um
 
     cost = _cost(xy, bowl, g, n_cells, m)
