@@ -872,8 +872,11 @@ def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, 
 @click.option("--layers", "layers_path", type=_FILE, default=None,
               help="Layer map (TOML: [layers] role = [layer, datatype]) for the GDSII.")
 @click.option("--grid", "grid_path", type=_FILE, default=None,
-              help="Grade this sequence grid (each slot's cell number, . a dummy) instead "
-                   "of searching.")
+              help="Grade this order instead of searching: a sequence grid (each slot's "
+                   "cell number, b<j> a binary cell, . a dummy) or a GDSII layout whose "
+                   "cells carry S<n> and B<j> labels (as sequence.gds).")
+@click.option("--cell", "cell", default=None,
+              help="With a GDSII --grid: the cell holding the array (default: the top cell).")
 @click.option("--max-swaps", "max_swaps", type=click.IntRange(0, 64), default=0,
               show_default=True,
               help="With --grid: repair the given order by up to this many exchanges of "
@@ -887,11 +890,11 @@ def repair(layout: Path, out_dir: Path, spec_path: Path | None, max_swaps: int, 
 @click.option("--force", is_flag=True, help="Overwrite files already in --out.")
 @_user_errors
 def sequence(spec_path: Path, out_dir: Path, layers_path: Path | None,
-             grid_path: Path | None, max_swaps: int, time_limit: float, seed: int,
-             force: bool) -> None:
+             grid_path: Path | None, cell: str | None, max_swaps: int, time_limit: float,
+             seed: int, force: bool) -> None:
     """Place a unary (thermometer-coded) array and order its switching for the least INL,
     or grade a given order (--grid); a SPEC with a [unary] table (see the README)."""
-    from placer.io.unaryspec import read_sequence_grid, read_unary_spec
+    from placer.io.unaryspec import read_sequence_layout, read_unary_spec
     from placer.jobs.sequence import find_sequence, repair_given, score_sequence
     from placer.layout.layers import load_layers
     from placer.present import outputs
@@ -899,14 +902,21 @@ def sequence(spec_path: Path, out_dir: Path, layers_path: Path | None,
 
     if max_swaps and grid_path is None:
         raise click.UsageError("--max-swaps repairs a given order: give it with --grid")
+    if cell is not None and grid_path is None:
+        raise click.UsageError("--cell names the cell of a GDSII --grid: give it with --grid")
     spec = read_unary_spec(spec_path)
     layers = load_layers(layers_path)
-    if grid_path is not None and max_swaps:
-        rep = repair_given(spec, read_sequence_grid(grid_path, spec), grid_path.name,
-                           max_swaps, time_limit)
-    elif grid_path is not None:
-        rep = score_sequence(spec, read_sequence_grid(grid_path, spec),
-                             f"given ({grid_path.name})")
+    notes: list[str] = []
+    given = (read_sequence_layout(grid_path, spec, label_layer=layers["label"], cell=cell,
+                                  notes=notes) if grid_path is not None else None)
+    if notes:
+        click.echo(f"Read {grid_path}: " + "; ".join(notes))
+    if given is not None and max_swaps:
+        assert grid_path is not None
+        rep = repair_given(spec, given, grid_path.name, max_swaps, time_limit)
+    elif given is not None:
+        assert grid_path is not None
+        rep = score_sequence(spec, given, f"given ({grid_path.name})")
     else:
         rep = find_sequence(spec, seed=seed, time_limit_s=time_limit)
     with OutputSet(out_dir, list(outputs.SEQUENCE_FILES), force,

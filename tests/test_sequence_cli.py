@@ -84,6 +84,14 @@ def test_the_same_seed_gives_the_same_order(tmp_path):
     ('[unary]\ncells = 3\nrows = 2\ncolumns = 2\n', "1 2\n2 .\n", "cell 2 is on 2 slots"),
     ('[unary]\ncells = 3\nrows = 2\ncolumns = 2\n', "1 2\n3 x\n", "no cell number"),
     ('[unary]\ncells = 3\nrows = 2\ncolumns = 2\n', "1 2 3\n", "the grid is 1 rows"),
+    ('[unary]\ncells = 3\nbinary_bits = 2\nsub_units = 6\n', None,
+     "no multiple of 2^binary_bits = 4"),
+    ('[unary]\ncells = 1\nbinary_bits = 7\n', None, "binary_bits"),
+    ('[unary]\ncells = 64\nbinary_bits = 6\n', None, "and 6 binary bits are 4159 sub-units"),
+    ('[unary]\ncells = 1\nbinary_bits = 1\nrows = 2\ncolumns = 2\n', "1 b0\nb0 1\n",
+     "binary cell b0 is on 2 slots; it takes 1"),
+    ('[unary]\ncells = 1\nbinary_bits = 1\nrows = 2\ncolumns = 2\n', "1 b1\n. 1\n",
+     "or . (a dummy)"),
 ])
 def test_bad_input_is_one_line_and_writes_nothing(tmp_path, text, grid, message):
     spec = spec_file(tmp_path, text)
@@ -183,3 +191,127 @@ def test_a_repair_cut_by_the_time_limit_says_so(tmp_path):
                 "--out", str(tmp_path / "o")])
     assert res.exit_code == 0, res.output
     assert "time limit" in res.output and "no exchange helps" not in res.output
+
+
+SEGMENTED = """name = "wren_dac"
+[unary]
+cells = 3
+binary_bits = 2
+rows = 4
+columns = 4
+pitch_um = [8.0, 6.0]
+[gradient]
+linear_ppm_per_um = 20.0
+quadratic_ppm_per_um2 = 0.05
+"""
+
+
+def test_a_segmented_array_is_searched_graded_and_labelled(tmp_path):
+    """Three unary cells of 4 unit sources and binary cells of 1 and 2 (a 4-bit
+    segmented DAC, codes 0 to 15): the report's INL in the worst direction is the transfer
+    curve computed apart, the grid names the binary cells b0 and b1 and reads back, and
+    the GDSII labels each binary slot B<j> (read by the independent stream parser)."""
+    from tests.streamread import flatten, read
+    from tests.test_unary import _segmented_transfer_inl
+
+    spec = spec_file(tmp_path, SEGMENTED)
+    res = _run([str(spec), "--out", str(tmp_path / "o"), "--time-limit", "20"])
+    assert res.exit_code == 0, res.output
+    assert "2 binary cells of 1, 2 sub-units (codes 0 to 15)" in res.output
+    rep = json.loads((tmp_path / "o" / "report.json").read_text())
+    s = read_unary_spec(spec)
+    lay = read_sequence_grid(tmp_path / "o" / "sequence.txt", s)
+    text = (tmp_path / "o" / "sequence.txt").read_text()
+    assert text.count("b0") == 1 and text.count("b1") == 2
+    assert rep["full_scale_code"] == 15 and len(rep["inl_lsb"]) == 16
+    want = _segmented_transfer_inl(lay, np.radians(rep["worst_direction_deg"]), 20.0, 0.05)
+    assert rep["inl_lsb"] == pytest.approx(want, abs=1e-3 * max(map(abs, want)))
+    assert max(map(abs, want)) == pytest.approx(rep["worst_inl_lsb"], rel=2e-3)
+    assert rep["dnl_lsb"] == pytest.approx(np.diff(want), abs=2e-3 * max(map(abs, want)))
+    # the random part: one unit source an LSB, a bridge over 15 codes
+    assert rep["random_sigma_lsb"][8] == pytest.approx(
+        s.lsb_sigma * np.sqrt(8 * 7 / 15), rel=1e-12)
+    grid = lay.grid()
+    lib = read((tmp_path / "o" / "sequence.gds").read_bytes())
+    labels = {}
+    for el, _ in flatten(lib, lib.order[-1]):
+        if el.kind == "TEXT":
+            (x, y), = el.xy
+            labels[(round(-y / 6000), round(x / 8000))] = el.text
+    want_labels = {(r, c): (f"S{v}" if v > 0 else f"B{-1 - v}")
+                   for r in range(4) for c in range(4) if (v := int(grid[r, c]))}
+    assert labels == want_labels
+    assert sorted(labels.values()).count("B1") == 2
+
+
+def _hand_gds(path, grid, pitch=(8.0, 6.0), origin=(100.0, 50.0), labels=None):
+    """A GDSII drawn here with gdstk, apart from placer's writer: a current cell drawn
+    about its corner, placed at every slot from ``origin`` (y down the rows), the label
+    of each slot (``labels`` or S<n> / B<j> from ``grid``) on layer 10/0 at the cell's
+    centre; dummy slots place a cell named EDGE_DUMMY."""
+    import gdstk
+
+    lib = gdstk.Library(unit=1e-6, precision=1e-9)
+    cur = lib.new_cell("ISRC")
+    cur.add(gdstk.rectangle((0, 0), (0.8 * pitch[0], 0.8 * pitch[1]), layer=1))
+    dum = lib.new_cell("EDGE_DUMMY")
+    dum.add(gdstk.rectangle((0, 0), (0.8 * pitch[0], 0.8 * pitch[1]), layer=1))
+    top = lib.new_cell("DAC_CORE")
+    for r, row in enumerate(grid):
+        for c, v in enumerate(row):
+            x, y = origin[0] + c * pitch[0], origin[1] - r * pitch[1]
+            top.add(gdstk.Reference(cur if v else dum, (x, y)))
+            text = (labels or {}).get((r, c), f"S{v}" if v > 0 else f"B{-1 - v}" if v else "")
+            if text:
+                top.add(gdstk.Label(text, (x + 0.4 * pitch[0], y + 0.4 * pitch[1]),
+                                    layer=10, texttype=0))
+    lib.write_gds(str(path))
+
+
+def test_an_order_read_from_gdsii_grades_as_its_grid(tmp_path):
+    """A hand-drawn GDSII of a segmented array (labels S<n> and B<j> on its cells, drawn
+    about a corner and placed from an offset origin) grades exactly as the same order
+    given as a sequence grid, and a repair from it runs."""
+    grid = [[1, -2, 2, 3], [3, -1, 1, 2], [2, 3, -2, 1], [0, 1, 3, 2]]
+    spec = spec_file(tmp_path, SEGMENTED)
+    _hand_gds(tmp_path / "hand.gds", grid)
+    text = tmp_path / "hand.txt"
+    tok = {0: ".", -1: "b0", -2: "b1"}
+    text.write_text("\n".join(" ".join(tok.get(v, str(v)) for v in row) for row in grid))
+    for name, path in (("g", tmp_path / "hand.gds"), ("t", text)):
+        res = _run([str(spec), "--grid", str(path), "--out", str(tmp_path / name)])
+        assert res.exit_code == 0, res.output
+    a = json.loads((tmp_path / "g" / "report.json").read_text())
+    b = json.loads((tmp_path / "t" / "report.json").read_text())
+    assert a["sequence"] == b["sequence"] == grid
+    assert a["worst_inl_lsb"] == b["worst_inl_lsb"]
+    rep = _run([str(spec), "--grid", str(tmp_path / "hand.gds"), "--max-swaps", "1",
+                "--out", str(tmp_path / "r")])
+    assert rep.exit_code == 0 and "exchange the slots" in rep.output
+
+
+@pytest.mark.parametrize("kind, message", [
+    ("pitch", "the layout's pitch is 9 x 6 um, the spec's 8 x 6 (set pitch_um = [9, 6]"),
+    ("label", "label 'MN3' at"),
+    ("count", "cell 1 is on 3 slots"),
+    ("size", "the units span 3 x 4 slots; the spec's core is 4 x 4"),
+])
+def test_a_bad_gdsii_order_is_one_line(tmp_path, kind, message):
+    grid = [[1, -2, 2, 3], [3, -1, 1, 2], [2, 3, -2, 1], [0, 1, 3, 2]]
+    labels = None
+    pitch = (8.0, 6.0)
+    if kind == "pitch":
+        pitch = (9.0, 6.0)
+    elif kind == "label":
+        labels = {(0, 0): "MN3"}
+    elif kind == "count":
+        grid[3][1] = 0
+    elif kind == "size":
+        grid = grid[:3]
+    spec = spec_file(tmp_path, SEGMENTED)
+    _hand_gds(tmp_path / "hand.gds", grid, pitch=pitch, labels=labels)
+    res = _run([str(spec), "--grid", str(tmp_path / "hand.gds"), "--out", str(tmp_path / "o")])
+    assert res.exit_code == 1, res.output
+    assert message in res.output and "Traceback" not in res.output
+    assert len(res.output.strip().splitlines()) == 1
+    assert not (tmp_path / "o").exists() or not any((tmp_path / "o").iterdir())

@@ -26,7 +26,7 @@ from placer.limits import MAX_DEVICES, MAX_FILE_BYTES, MAX_NAME, MAX_SLOTS, MAX_
 
 __all__ = ["Unit", "Recognised", "read_layout", "units_to_pattern", "read_csv_units",
            "hot_spot_in_pattern_frame",
-           "gds_units", "top_cell", "full_boxes", "apply_transform", "detect_format",
+           "gds_units", "top_cell", "full_boxes", "apply_transform", "detect_format", "lattice",
            "MAX_LAYOUT_BYTES"]
 
 
@@ -491,7 +491,7 @@ SNAP_TOLERANCE = 0.25
 SNAP_NOTE = 0.01
 
 
-def _lattice(values: np.ndarray) -> tuple[float, float]:
+def lattice(values: np.ndarray) -> tuple[float, float]:
     """Pitch and one grid point of coordinates on a lattice with some units a little off.
 
     Candidate pitches are the most common spacings between neighbouring coordinates;
@@ -502,9 +502,9 @@ def _lattice(values: np.ndarray) -> tuple[float, float]:
 
     Examples
     --------
-    >>> _lattice(np.array([0.0, 1.0, 2.0, 3.05, 4.0, 5.0]))
+    >>> lattice(np.array([0.0, 1.0, 2.0, 3.05, 4.0, 5.0]))
     (1.0, 0.0)
-    >>> _lattice(np.array([10.0, 12.5, 15.0, 20.0]))[0]
+    >>> lattice(np.array([10.0, 12.5, 15.0, 20.0]))[0]
     2.5
     """
     v = np.asarray(values, dtype=float)
@@ -540,7 +540,7 @@ def _lattice(values: np.ndarray) -> tuple[float, float]:
 
 def _pitch(values: np.ndarray) -> float:
     """The lattice pitch of ``values`` (0 if there is only one distinct value)."""
-    return _lattice(values)[0]
+    return lattice(values)[0]
 
 
 def units_to_pattern(units: list[Unit], source: str, notes: list[str],
@@ -550,7 +550,7 @@ def units_to_pattern(units: list[Unit], source: str, notes: list[str],
     if not units:
         raise LayoutError(f"{source}: no units")
     xy = np.array([(u.x, u.y) for u in units])
-    (px, gx), (py, gy) = _lattice(xy[:, 0]), _lattice(xy[:, 1])
+    (px, gx), (py, gy) = lattice(xy[:, 0]), lattice(xy[:, 1])
     if spec is not None:
         sx, sy = spec.array.pitch_um
         px = px or sx

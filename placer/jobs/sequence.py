@@ -13,11 +13,11 @@ from numpy.typing import NDArray
 from placer.io.unaryspec import UnarySpec
 from placer.model.unary import (
     UnaryLayout,
-    cell_errors,
+    code_inl,
+    code_sums,
     correlated_inl_sigma,
-    dnl,
-    inl,
     random_inl_sigma,
+    slot_xy,
     worst_inl,
     worst_inl_parts,
 )
@@ -38,9 +38,10 @@ class SequenceReport:
     worst_inl_lsb: float
     worst_code: int
     worst_direction_deg: float
-    inl_lsb: FloatArray              # codes 0 .. N, the gradient in its worst direction
-    dnl_lsb: FloatArray              # steps 1 .. N, the same field
-    linear_part_lsb: FloatArray      # codes 0 .. N, each in its own worst direction
+    inl_lsb: FloatArray              # codes 0 .. full scale, the gradient in its worst
+    #                                  direction
+    dnl_lsb: FloatArray              # steps 1 .. full scale, the same field
+    linear_part_lsb: FloatArray      # each code in its own worst direction
     bowl_part_lsb: FloatArray
     random_sigma_lsb: FloatArray
     correlated_sigma_lsb: FloatArray
@@ -59,7 +60,9 @@ class SequenceReport:
         """JSON-ready figures."""
         return {
             "name": self.spec.name, "cells": self.spec.cells,
-            "sub_units": self.spec.sub_units, "core": [self.spec.rows, self.spec.cols],
+            "sub_units": self.spec.sub_units, "binary_bits": self.spec.binary_bits,
+            "lsb_sub_units": self.spec.lsb_units, "full_scale_code": self.spec.full_scale,
+            "core": [self.spec.rows, self.spec.cols],
             "pitch_um": list(self.spec.pitch_um), "method": self.method,
             "worst_inl_lsb": self.worst_inl_lsb, "worst_code": self.worst_code,
             "worst_direction_deg": self.worst_direction_deg,
@@ -77,6 +80,7 @@ class SequenceReport:
                       for a, b in self.swaps],
             "worst_inl_before_repair_lsb": self.before_lsb,
             "repair_cut_by_time_limit": self.repair_cut,
+            # each slot's cell number, -(j + 1) for binary bit j, 0 a dummy
             "sequence": self.layout.grid().tolist(),
             "assumptions": {
                 "linear_ppm_per_um": self.spec.fields.linear_ppm_per_um,
@@ -84,7 +88,7 @@ class SequenceReport:
                 "correlated_sigma_ppm": self.spec.corr_sigma_ppm,
                 "correlated_length_um": self.spec.corr_length_um,
                 "kernel": self.spec.kernel, "a_param_pct_um": self.spec.a_param_pct_um,
-                "cell_sigma": self.spec.cell_sigma},
+                "cell_sigma": self.spec.cell_sigma, "lsb_sigma": self.spec.lsb_sigma},
         }
 
 
@@ -96,37 +100,34 @@ def score_sequence(spec: UnarySpec, layout: UnaryLayout, method: str,
     total = lin + np.abs(bowl)
     c = int(np.argmax(total))
     # the direction that makes code c worst: along its partial sum, signed with the bowl
-    p = layout.cells
-    from placer.model.unary import slot_xy
-
-    xy = slot_xy(layout.rows, layout.cols, layout.pitch_um)[p].mean(axis=1)
-    d = (xy - xy.mean(axis=0))[:c].sum(axis=0)
+    d = code_sums(layout, slot_xy(layout.rows, layout.cols, layout.pitch_um))[c]
     sign = 1.0 if bowl[c] >= 0 else -1.0
     theta = math.atan2(sign * d[1], sign * d[0]) if np.hypot(*d) > 0 else 0.0
-    e = cell_errors(layout, spec.fields, theta)
+    curve = code_inl(layout, spec.fields, theta)
     base: dict[str, float] = {}
     if baselines:
         for name, fn in BASELINES.items():
             try:
                 base[name] = worst_inl(fn(spec.rows, spec.cols, spec.pitch_um, spec.cells,
-                                          spec.sub_units), spec.fields)
+                                          spec.sub_units, spec.binary_bits), spec.fields)
             except ValueError:
                 continue
-    rnd = random_inl_sigma(spec.cells, spec.cell_sigma)
+    rnd = random_inl_sigma(spec.full_scale, spec.lsb_sigma)
     cor = (correlated_inl_sigma(layout, spec.corr_sigma_ppm, spec.corr_length_um,
                                 spec.kernel)
-           if spec.corr_sigma_ppm > 0 else np.zeros(spec.cells + 1))
+           if spec.corr_sigma_ppm > 0 else np.zeros(spec.full_scale + 1))
     budget = float((total + 3.0 * np.hypot(rnd, cor)).max())
     return SequenceReport(
-        spec, layout, method, float(total[c]), c, math.degrees(theta) % 360.0, inl(e),
-        dnl(e), lin, bowl, rnd, cor, base, moves, seconds, inl_3sigma_lsb=budget)
+        spec, layout, method, float(total[c]), c, math.degrees(theta) % 360.0, curve,
+        np.diff(curve), lin, bowl, rnd, cor, base, moves, seconds, inl_3sigma_lsb=budget)
 
 
 def find_sequence(spec: UnarySpec, *, seed: int = 0, time_limit_s: float = 10.0,
                   moves: int = 200_000) -> SequenceReport:
     """Search placement and order (:func:`placer.search.switching.switching_sequence`)."""
     res = switching_sequence(spec.rows, spec.cols, spec.pitch_um, spec.cells, spec.fields,
-                             sub_units=spec.sub_units, seed=seed, moves=moves,
+                             sub_units=spec.sub_units, binary_bits=spec.binary_bits,
+                             seed=seed, moves=moves,
                              time_limit_s=time_limit_s)
     how = f"search from the {res.start} order" + (", cut by the time limit" if res.cut
                                                    else "")

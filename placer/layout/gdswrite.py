@@ -139,8 +139,9 @@ def build_library(pattern: Pattern, spec: Spec, cell: UnitCell, wiring: Wiring,
 def build_sequence_library(layout: Any, name: str, layers: LayerMap) -> Any:
     """The gdstk library of a unary array's order: a placeholder cell (its outline, 0.9 of
     the pitch) referenced at every slot of a cell, a dummy cell at every other slot, and
-    at each slot's centre a label with its cell's sequence number (``S<n>``, on the label
-    layer): the pattern a layout engineer fills with the real current cell (same name)."""
+    at each slot's centre a label with its cell's sequence number (``S<n>``; ``B<j>`` for
+    binary bit j of a segmented array; on the label layer): the pattern a layout engineer
+    fills with the real current cell (same name)."""
     import gdstk
 
     px, py = layout.pitch_um
@@ -163,8 +164,9 @@ def build_sequence_library(layout: Any, name: str, layers: LayerMap) -> Any:
             x, y = snap(c * px), snap(-r * py)
             k = int(grid[r, c])
             top.add(gdstk.Reference(unit if k > 0 or dummy is None else dummy, (x, y)))
-            if k > 0:
-                top.add(gdstk.Label(f"S{k}", (x, y), layer=lab_layer, texttype=lab_type))
+            if k:
+                top.add(gdstk.Label(f"S{k}" if k > 0 else f"B{-1 - k}", (x, y),
+                                    layer=lab_layer, texttype=lab_type))
     m = snap(0.1 * min(px, py))
     _add_rect(top, Rect("outline", snap(-0.5 * px) - m, snap(-(rows - 0.5) * py) - m,
                         snap((cols - 0.5) * px) + m, snap(0.5 * py) + m), layers)

@@ -18,9 +18,20 @@ every code gives ``max_c (g |D_c| + |Q_c|)`` exactly (the maximum over direction
 commute). The quadratic field is the radial bowl of the grade's ``bowl`` column: Hessian
 ``(h / sqrt 2) I`` about the core's centre, of Frobenius norm h ppm/um^2.
 
+A segmented array adds b binary cells (:class:`placer.io.unaryspec.UnaryLayout`): code
+C = U 2^b + L turns on the first U unary cells and the binary cells of L's bits. Every
+slot is a sub-unit of equal value, k of them one LSB, so with the end points fitted
+
+    INL_C = (1 / k) sum_{s active at C} (e_s - e_bar)
+
+(e_bar the mean over every sub-unit of every cell; with no binary bits k = m and this is
+the sum above), and the closed form holds with D_C and Q_C the partial sums of the
+active sub-units' centred positions and bowl values over k.
+
 Random parts per code: independent cells of relative sigma s give
-``sigma(INL_c) = s sqrt(c (N - c) / N)`` (a bridge: the end points are fitted); a
-correlated field of covariance K gives ``w' K w`` with ``w = 1[i <= c] - c / N``.
+``sigma(INL_c) = s sqrt(c (N - c) / N)`` (a bridge: the end points are fitted; for a
+segmented array s is one LSB's sigma and N the full-scale code); a correlated field of
+covariance K over the sub-units gives ``w' K w`` with ``w_s = (1[s active] - C / C_fs) / k``.
 
 References
 ----------
@@ -36,7 +47,8 @@ from numpy.typing import NDArray
 from placer.io.unaryspec import UnaryFields, UnaryLayout
 
 __all__ = ["UnaryLayout", "UnaryFields", "slot_xy", "slot_bowl", "cell_errors", "inl", "dnl",
-           "worst_inl", "worst_inl_parts", "random_inl_sigma", "correlated_inl_sigma"]
+           "code_sums", "code_inl", "worst_inl", "worst_inl_parts", "random_inl_sigma",
+           "correlated_inl_sigma"]
 
 FloatArray = NDArray[np.float64]
 IntArray = NDArray[np.int64]
@@ -85,13 +97,50 @@ def dnl(errors: FloatArray) -> FloatArray:
     return e - e.mean()
 
 
+def _bit_table(n_bits: int) -> FloatArray:
+    """Row L: the bits of L (LSB first), shape (2^b, b)."""
+    low = np.arange(1 << n_bits)
+    return ((low[:, None] >> np.arange(n_bits)) & 1).astype(float)
+
+
+def code_sums(lay: UnaryLayout, values: FloatArray) -> FloatArray:
+    """Per code 0 .. full scale: the sum over the sub-units the code turns on of
+    ``values`` (one per slot, shape (S,) or (S, d)) less their mean over every cell's
+    sub-units, over k (the sub-units of an LSB) -- the end-point INL in LSB when
+    ``values`` are the sub-units' errors."""
+    v = np.asarray(values, dtype=float)
+    v = v - v[lay.active()].mean(axis=0)
+    pre = np.cumsum(v[lay.cells].sum(axis=1), axis=0)
+    pre = np.concatenate([np.zeros((1, *v.shape[1:])), pre])        # (N + 1, ...)
+    if lay.bits:
+        bit = np.stack([v[slots].sum(axis=0) for slots in lay.bits])  # (b, ...)
+        low = np.tensordot(_bit_table(len(lay.bits)), bit, axes=1)    # (2^b, ...)
+        pre = (pre[:, None] + low[None]).reshape(-1, *v.shape[1:])
+    return pre / lay.lsb_units
+
+
+def slot_errors(lay: UnaryLayout, fields: UnaryFields, theta: float) -> FloatArray:
+    """Each slot's relative error (fraction) under the linear gradient pointing at angle
+    ``theta`` (radians) and the bowl."""
+    xy = slot_xy(lay.rows, lay.cols, lay.pitch_um)
+    u = np.array([np.cos(theta), np.sin(theta)])
+    return 1e-6 * (fields.linear_ppm_per_um * (xy @ u)
+                   + slot_bowl(xy, fields.quadratic_ppm_per_um2))
+
+
+def code_inl(lay: UnaryLayout, fields: UnaryFields, theta: float) -> FloatArray:
+    """End-point INL (LSB) at codes 0 .. full scale under the linear gradient at angle
+    ``theta`` and the bowl (first order in the errors)."""
+    return code_sums(lay, slot_errors(lay, fields, theta))
+
+
 def worst_inl_parts(lay: UnaryLayout, fields: UnaryFields) -> tuple[FloatArray, FloatArray]:
-    """Per code 0 .. N: the linear part in its worst direction (LSB, ``g |D_c|``) and the
-    bowl's part (signed LSB)."""
-    p = _cell_xy(lay)
-    d = np.concatenate([np.zeros((1, 2)), np.cumsum(p - p.mean(axis=0), axis=0)])
+    """Per code 0 .. full scale: the linear part in its worst direction (LSB,
+    ``g |D_c|``) and the bowl's part (signed LSB)."""
+    xy = slot_xy(lay.rows, lay.cols, lay.pitch_um)
+    d = code_sums(lay, xy)
     lin = 1e-6 * fields.linear_ppm_per_um * np.hypot(d[:, 0], d[:, 1])
-    return lin, inl(1e-6 * _bowl(lay, fields.quadratic_ppm_per_um2))
+    return lin, 1e-6 * code_sums(lay, slot_bowl(xy, fields.quadratic_ppm_per_um2))
 
 
 def worst_inl(lay: UnaryLayout, fields: UnaryFields) -> float:
@@ -103,28 +152,49 @@ def worst_inl(lay: UnaryLayout, fields: UnaryFields) -> float:
 
 def random_inl_sigma(n_cells: int, cell_sigma: float) -> FloatArray:
     """Sigma of INL (LSB) at codes 0 .. N for independent cells of relative sigma
-    ``cell_sigma``: ``s sqrt(c (N - c) / N)``."""
+    ``cell_sigma``: ``s sqrt(c (N - c) / N)``. For a segmented array N is the full-scale
+    code and s one LSB's sigma (independent sub-units)."""
     c = np.arange(n_cells + 1, dtype=float)
     return cell_sigma * np.sqrt(c * (n_cells - c) / n_cells)
 
 
 def correlated_inl_sigma(lay: UnaryLayout, sigma_ppm: float, length_um: float,
                          kernel: str = "exponential") -> FloatArray:
-    """Sigma of INL (LSB) at codes 0 .. N under a correlated field of ``sigma_ppm`` and
-    correlation length ``length_um`` (``w' K w`` with K the cells' covariance)."""
+    """Sigma of INL (LSB) at codes 0 .. full scale under a correlated field of
+    ``sigma_ppm`` and correlation length ``length_um`` (``w' K w`` over the sub-units,
+    summed cell by cell first)."""
     from placer.model.variation import correlation
 
     xy = slot_xy(lay.rows, lay.cols, lay.pitch_um)
-    sub = xy[lay.cells]                                      # (N, m, 2)
-    n, m = lay.cells.shape
-    flat = sub.reshape(-1, 2)
-    dist = np.hypot(*(flat[:, None, :] - flat[None, :, :]).transpose(2, 0, 1))
-    k = correlation(dist, length_um, kernel).reshape(n, m, n, m).mean(axis=(1, 3))
-    k *= (1e-6 * sigma_ppm) ** 2
-    cum = np.cumsum(np.cumsum(k, axis=0), axis=1)            # S_c = sum_{i, j <= c} K
-    s_c = np.concatenate([[0.0], np.diag(cum)])
-    row = np.concatenate([[0.0], np.cumsum(k.sum(axis=1))])  # R_c = sum_{i <= c} sum_j K
-    total = k.sum()
-    c = np.arange(n + 1) / n
-    var = s_c - 2 * c * row + c * c * total
-    return np.sqrt(np.maximum(var, 0.0))
+    groups = [*lay.cells, *lay.bits]                  # unary cells, then binary bits
+    flat = np.concatenate(groups)
+    owner = np.repeat(np.arange(len(groups)), [len(g) for g in groups])
+    p = xy[flat]
+    dist = np.hypot(*(p[:, None, :] - p[None, :, :]).transpose(2, 0, 1))
+    k = correlation(dist, length_um, kernel) * (1e-6 * sigma_ppm) ** 2
+    # G: the covariance of the groups' sums (sub-unit covariance summed both ways)
+    g_count = len(groups)
+    half = np.zeros((g_count, len(flat)))
+    np.add.at(half, owner, k)
+    gg = np.zeros((g_count, g_count))
+    np.add.at(gg.T, owner, half.T)
+    n = lay.n_cells
+    row = gg.sum(axis=1)
+    total = row.sum()
+    # x' G x over the active groups, x' G 1 and the active sub-units, per code
+    gu = gg[:n, :n]
+    cum = np.cumsum(np.cumsum(gu, axis=0), axis=1)
+    quad = np.concatenate([[0.0], np.diag(cum)])[:, None]          # (N + 1, 1)
+    lin = np.concatenate([[0.0], np.cumsum(row[:n])])[:, None]
+    act = (np.arange(n + 1) * lay.sub_units)[:, None].astype(float)
+    if lay.bits:
+        t = _bit_table(len(lay.bits))                              # (2^b, b)
+        cross = np.concatenate([np.zeros((1, len(lay.bits))),
+                                np.cumsum(gg[:n, n:], axis=0)]) @ t.T      # (N + 1, 2^b)
+        low = np.einsum("li,ij,lj->l", t, gg[n:, n:], t)
+        quad = quad + 2.0 * cross + low[None, :]
+        lin = lin + (t @ row[n:])[None, :]
+        act = act + (t @ np.array([len(b) for b in lay.bits], dtype=float))[None, :]
+    frac = act / len(flat)
+    var = (quad - 2.0 * frac * lin + frac * frac * total).reshape(-1)
+    return np.sqrt(np.maximum(var, 0.0)) / lay.lsb_units

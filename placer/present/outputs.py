@@ -317,7 +317,8 @@ def write_sequence(out: OutputSet, rep: Any, layers: Any = None) -> None:
 
     out.write("sequence.txt", format_sequence_grid(rep.layout, [
         f"{rep.spec.name}: switching order ({rep.method}); each slot's cell number "
-        "(1 switches on first), . a dummy",
+        "(1 switches on first), " + ("b<j> binary bit j, " if rep.layout.bits else "")
+        + ". a dummy",
         f"worst |INL| {rep.worst_inl_lsb:.6g} LSB (linear gradient in its worst direction "
         "plus the bowl)"]))
     out.write("report.json", json_text(rep.to_dict()) + "\n")

@@ -657,23 +657,35 @@ def save_sequence(rep: Any, paths: Sequence[Path]) -> None:
     ax1, ax2 = fig.subplots(1, 2, width_ratios=[1.0, 1.3])
     shade = np.where(grid > 0, grid, np.nan).astype(float)
     px, py = spec.pitch_um
-    img = ax1.imshow(shade, cmap="viridis", interpolation="nearest",
-                     extent=(-0.5 * px, (cols - 0.5) * px, -(rows - 0.5) * py, 0.5 * py))
-    fig.colorbar(img, ax=ax1, fraction=0.046, pad=0.02, label="sequence number (code)")
+    extent = (-0.5 * px, (cols - 0.5) * px, -(rows - 0.5) * py, 0.5 * py)
+    img = ax1.imshow(shade, cmap="viridis", interpolation="nearest", extent=extent)
+    fig.colorbar(img, ax=ax1, fraction=0.046, pad=0.02,
+                 label="unary cell's sequence number" if lay.bits else
+                 "sequence number (code)")
+    if lay.bits:
+        # the binary cells in greys, the LSB lightest
+        nb = len(lay.bits)
+        low = np.where(grid < 0, -grid, np.nan).astype(float)
+        ax1.imshow(low, cmap="Greys", vmin=-1.0, vmax=nb + 1.0, interpolation="nearest",
+                   extent=extent)
     # the numbers, where a slot is big enough on the page to hold them
-    size = min(9.0, 260.0 / max(rows, cols) / max(1, len(str(lay.n_cells))) * 1.6)
-    if size >= 3.0:
+    width = max(len(str(lay.n_cells)), 2 if lay.bits else 1)
+    size = min(9.0, 260.0 / max(rows, cols) / width * 1.6)
+    if size >= 4.0:
+        from placer.io.unaryspec import grid_token
+
         for r in range(rows):
             for c in range(cols):
                 v = int(grid[r, c])
-                ax1.text(c * px, -r * py, "." if v == 0 else str(v), ha="center",
-                         va="center", fontsize=size,
-                         color="white" if v and v < 0.6 * lay.n_cells else "black")
+                light = (0 < v < 0.6 * lay.n_cells) or (v < 0 and -v > len(lay.bits) / 2)
+                ax1.text(c * px, -r * py, grid_token(v), ha="center", va="center",
+                         fontsize=size, color="white" if light else "black")
     ax1.set_xlabel("x (um)")
     ax1.set_ylabel("y (um)")
+    bits = (f" + binary b0..b{len(lay.bits) - 1} (greys)" if lay.bits else "")
     ax1.set_title(f"{spec.name}: {lay.n_cells} cells x {spec.sub_units} sub-unit"
-                  f"{'s' if spec.sub_units > 1 else ''} on {rows} x {cols}", fontsize=9)
-    codes = np.arange(lay.n_cells + 1)
+                  f"{'s' if spec.sub_units > 1 else ''}{bits} on {rows} x {cols}", fontsize=9)
+    codes = np.arange(len(rep.inl_lsb))
     ax2.fill_between(codes, -3 * rep.random_sigma_lsb, 3 * rep.random_sigma_lsb,
                      color=PALETTE[1], alpha=0.35, lw=0,
                      label=f"random, 3 sigma (area law): up to "

@@ -380,8 +380,13 @@ def format_sequence(rep: Any) -> str:
     """The text report of a unary array's placement and switching order."""
     s = rep.spec
     f = s.fields
+    nb = s.binary_bits
+    bits = (f" + {nb} binary cell{'s' if nb > 1 else ''} of "
+            f"{', '.join(str(s.lsb_units << j) for j in range(nb))} sub-unit"
+            f"{'s' if s.lsb_units << (nb - 1) > 1 else ''} (codes 0 to {s.full_scale})"
+            if nb else "")
     out = [f"{s.name}: {s.cells} unary cells x {s.sub_units} sub-unit"
-           f"{'s' if s.sub_units > 1 else ''} on {s.rows} x {s.cols} slots, pitch "
+           f"{'s' if s.sub_units > 1 else ''}{bits} on {s.rows} x {s.cols} slots, pitch "
            f"{s.pitch_um[0]:g} x {s.pitch_um[1]:g} um",
            f"Method: {rep.method}" + (f" ({rep.moves} moves, {rep.seconds:.2f} s)."
                                       if rep.moves else "."),
@@ -391,13 +396,16 @@ def format_sequence(rep: Any) -> str:
            f"{rep.worst_code}; linear part up to {rep.linear_part_lsb.max():.4g} LSB, bowl "
            f"part up to {abs(rep.bowl_part_lsb).max():.4g} LSB; |DNL| up to "
            f"{abs(rep.dnl_lsb).max():.4g} LSB.",
-           f"Random: a cell's sigma {100 * s.cell_sigma:.3g} % (area law, A = "
-           f"{s.a_param_pct_um:g} %um): INL sigma up to {rep.random_sigma_lsb.max():.4g} "
+           f"Random: a unary cell's sigma {100 * s.cell_sigma:.3g} % "
+           + (f"(an LSB's {100 * s.lsb_sigma:.3g} %) " if nb else "")
+           + f"(area law, A = {s.a_param_pct_um:g} %um): INL sigma up to "
+           f"{rep.random_sigma_lsb.max():.4g} "
            f"LSB at mid-scale; the correlated field ({s.corr_sigma_ppm:g} ppm, "
            f"{s.corr_length_um:g} um): up to {rep.correlated_sigma_lsb.max():.4g} LSB.",
            f"Budget: |INL| at 3 sigma up to {rep.inl_3sigma_lsb:.4g} LSB (per code, the "
            f"systematic part in its worst direction plus 3 sigma of the random and "
-           f"correlated parts together; in steps of one unary cell); within 0.5 LSB: "
+           f"correlated parts together; in steps of one "
+           f"{'LSB' if nb else 'unary cell'}); within 0.5 LSB: "
            f"{'yes' if rep.inl_3sigma_lsb <= 0.5 else 'no'}."]
     if rep.before_lsb is not None:
         tail = (":" if rep.swaps else " (the time limit came first)." if rep.repair_cut

@@ -16,13 +16,25 @@ The baselines (each a placement and an order at once):
     every cell split into four sub-units mirrored about both axes, the quadrant's slots
     in the symmetric row-column order: hierarchical symmetric switching [1]; it needs
     ``sub_units = 4`` and even rows and columns.
+``quad_quadrant_walk``
+    every cell split into sixteen sub-units, one in each sub-quadrant, mirrored at both
+    levels, the cells taking each sub-quadrant's slots in a pseudo-random walk: the
+    quad-quadrant random walk of [3] (placer's rendition; the published walk was chosen
+    with care, this one is a fixed pseudo-random order); it needs ``sub_units = 16`` and
+    rows and columns that are multiples of 4.
+
+For a segmented array (binary LSB cells among the unary ones) every baseline puts the
+binary cells on its order's first slots, largest bit first, leaves one LSB's slots spare
+where the core has room (so the binary section fills 2^b LSBs) and gives the unary cells
+the slots after: at the core's centre in the centre-out orders, as a layout engineer
+commonly does (common practice).
 
 :func:`switching_sequence` searches placement and order together for the least worst
 |INL| over every code (linear gradient in its worst direction plus the bowl,
 :func:`placer.model.unary.worst_inl`): a greedy order that keeps each partial sum of
 centred positions and bowl values small, then simulated annealing [2] on exchanges of
 two sub-units (one of them possibly a dummy slot), from the best of the greedy order and
-the baselines. A quadrant-split random walk in the manner of [3] is not built.
+the baselines; binary cells' sub-units are exchanged like the unary ones'.
 
 References
 ----------
@@ -48,6 +60,7 @@ from numpy.typing import NDArray
 from placer.model.unary import UnaryFields, UnaryLayout, slot_bowl, slot_xy, worst_inl
 
 __all__ = ["BASELINES", "row_by_row", "row_column", "centre_pairs", "quadrant_split",
+           "quad_quadrant_walk",
            "switching_sequence", "SequenceResult", "repair_sequence", "SequenceRepair"]
 
 IntArray = NDArray[np.int64]
@@ -68,30 +81,45 @@ def _centre_out(n: int) -> list[int]:
     return out
 
 
-def _cells(order: list[int], n_cells: int, sub_units: int) -> IntArray:
-    need = n_cells * sub_units
+def _assemble(rows: int, cols: int, pitch: tuple[float, float], order: list[int],
+              n_cells: int, sub_units: int, binary_bits: int) -> UnaryLayout:
+    """A layout from a slot order: the binary cells (a segmented array) on its first
+    slots, largest bit first, then -- where the core has room -- one LSB's slots left
+    spare, so that the binary section fills 2^b LSBs and the unary cells start on an
+    even footing; then the unary cells, each on consecutive slots of the order."""
+    k = sub_units >> binary_bits
+    n_bin = ((1 << binary_bits) - 1) * k
+    need = n_cells * sub_units + n_bin
     if len(order) < need:
         raise ValueError(f"{n_cells} cells of {sub_units} sub-units need {need} slots; "
                          f"the core has {len(order)}")
-    return np.array(order[:need], dtype=np.int64).reshape(n_cells, sub_units)
+    bits: list[IntArray] = []
+    at = 0
+    for j in reversed(range(binary_bits)):
+        bits.insert(0, np.array(order[at:at + (k << j)], dtype=np.int64))
+        at += k << j
+    if binary_bits and len(order) >= need + k:
+        at += k
+    cells = np.array(order[at:at + n_cells * sub_units], dtype=np.int64)
+    return UnaryLayout(rows, cols, pitch, cells.reshape(n_cells, sub_units), tuple(bits))
 
 
 def row_by_row(rows: int, cols: int, pitch: tuple[float, float], n_cells: int,
-               sub_units: int = 1) -> UnaryLayout:
+               sub_units: int = 1, binary_bits: int = 0) -> UnaryLayout:
     """Cells in reading order (a cell's sub-units on consecutive slots)."""
-    return UnaryLayout(rows, cols, pitch, _cells(list(range(rows * cols)), n_cells,
-                                                 sub_units))
+    return _assemble(rows, cols, pitch, list(range(rows * cols)), n_cells, sub_units,
+                     binary_bits)
 
 
 def row_column(rows: int, cols: int, pitch: tuple[float, float], n_cells: int,
-               sub_units: int = 1) -> UnaryLayout:
+               sub_units: int = 1, binary_bits: int = 0) -> UnaryLayout:
     """Rows from the middle out, and the columns of each row from the middle out."""
     order = [r * cols + c for r in _centre_out(rows) for c in _centre_out(cols)]
-    return UnaryLayout(rows, cols, pitch, _cells(order, n_cells, sub_units))
+    return _assemble(rows, cols, pitch, order, n_cells, sub_units, binary_bits)
 
 
 def centre_pairs(rows: int, cols: int, pitch: tuple[float, float], n_cells: int,
-                 sub_units: int = 1) -> UnaryLayout:
+                 sub_units: int = 1, binary_bits: int = 0) -> UnaryLayout:
     """Consecutive slots mirrored through the centre, nearest the centre first."""
     xy = slot_xy(rows, cols, pitch)
     n = rows * cols
@@ -104,16 +132,16 @@ def centre_pairs(rows: int, cols: int, pitch: tuple[float, float], n_cells: int,
         twin = n - 1 - s                       # the slot mirrored through the centre
         used[s] = used[twin] = True
         order += [s] if twin == s else [s, twin]
-    return UnaryLayout(rows, cols, pitch, _cells(order, n_cells, sub_units))
+    return _assemble(rows, cols, pitch, order, n_cells, sub_units, binary_bits)
 
 
 def quadrant_split(rows: int, cols: int, pitch: tuple[float, float], n_cells: int,
-                   sub_units: int = 4) -> UnaryLayout:
+                   sub_units: int = 4, binary_bits: int = 0) -> UnaryLayout:
     """Each cell on four slots mirrored about both axes, the quadrant's slots taken in the
     symmetric row-column order (nearest the centre lines first)."""
-    if sub_units != 4 or rows % 2 or cols % 2:
-        raise ValueError("the quadrant split needs 4 sub-units a cell and even rows and "
-                         "columns")
+    if sub_units != 4 or rows % 2 or cols % 2 or binary_bits:
+        raise ValueError("the quadrant split needs 4 sub-units a cell, no binary cells and "
+                         "even rows and columns")
     hr, hc = rows // 2, cols // 2
     cells = []
     for r in range(hr):
@@ -130,6 +158,39 @@ def quadrant_split(rows: int, cols: int, pitch: tuple[float, float], n_cells: in
     return UnaryLayout(rows, cols, pitch, np.array(cells[:n_cells], dtype=np.int64))
 
 
+def quad_quadrant_walk(rows: int, cols: int, pitch: tuple[float, float], n_cells: int,
+                       sub_units: int = 16, binary_bits: int = 0) -> UnaryLayout:
+    """Each cell on sixteen slots, one in each sub-quadrant (the core cut in four, each
+    quarter again in four), the sub-quadrants mirror images of one another about the
+    centre lines of the core and of its quadrants, so every cell's centroid is the core's
+    centre; within a sub-quadrant the cells take its slots in one fixed pseudo-random
+    order (a walk that jumps about the sub-quadrant, seed 1): the quad-quadrant split
+    with a random-walk order [3], placer's rendition."""
+    if sub_units != 16 or rows % 4 or cols % 4 or binary_bits:
+        raise ValueError("the quad-quadrant walk needs 16 sub-units a cell, no binary cells "
+                         "and rows and columns that are multiples of 4")
+    hr, hc = rows // 4, cols // 4
+    if n_cells > hr * hc:
+        raise ValueError(f"{n_cells} cells of 16 sub-units need sub-quadrants of {n_cells} "
+                         f"slots; {rows} x {cols} gives {hr * hc}")
+    walk = np.random.default_rng(1).permutation(hr * hc)[:n_cells]
+    cells = []
+    for w in walk.tolist():
+        i, j = divmod(w, hc)
+        slots = []
+        for sub_r in (0, 1):
+            for sub_c in (0, 1):
+                a = i if sub_r == 0 else 2 * hr - 1 - i          # in the quadrant
+                b = j if sub_c == 0 else 2 * hc - 1 - j
+                for top in (0, 1):
+                    for left in (0, 1):
+                        r = a if top == 0 else rows - 1 - a
+                        c = b if left == 0 else cols - 1 - b
+                        slots.append(r * cols + c)
+        cells.append(slots)
+    return UnaryLayout(rows, cols, pitch, np.array(cells, dtype=np.int64))
+
+
 def _quad_rank(slot: int, cols: int, hr: int, hc: int) -> tuple[int, int]:
     r, c = divmod(slot, cols)
     return (hr - 1 - r, hc - 1 - c)
@@ -140,6 +201,7 @@ BASELINES: dict[str, Callable[..., UnaryLayout]] = {
     "row-column": row_column,
     "centre pairs": centre_pairs,
     "quadrant split": quadrant_split,
+    "quad-quadrant walk": quad_quadrant_walk,
 }
 
 
@@ -156,20 +218,57 @@ class SequenceResult:
 
 
 def _cost(xy: NDArray[np.float64], bowl: NDArray[np.float64], g: float, n_cells: int,
-          m: int) -> Callable[[IntArray], float]:
+          m: int, n_bits: int = 0) -> Callable[[IntArray], float]:
     """The worst |INL| (LSB) of a permutation of slots whose first ``n_cells * m`` form the
-    cells in order (:func:`placer.model.unary.worst_inl`, on positions looked up once)."""
+    unary cells in order and the next the binary bits, LSB first
+    (:func:`placer.model.unary.worst_inl`, on positions looked up once)."""
     nm = n_cells * m
+    k = m >> n_bits
+    n_act = nm + ((1 << n_bits) - 1) * k
+    starts = np.cumsum([0] + [k << j for j in range(n_bits)])[:-1]
+    table = ((np.arange(1 << n_bits)[:, None] >> np.arange(n_bits)) & 1).astype(float)
+    vals = np.column_stack([xy, bowl])
 
     def cost(pm: IntArray) -> float:
-        cells = pm[:nm].reshape(n_cells, m)
-        p = xy[cells].mean(axis=1)
-        bb = bowl[cells].mean(axis=1)
-        d = np.cumsum(p - p.mean(axis=0), axis=0)
-        qq = np.cumsum(bb - bb.mean())
-        return float(1e-6 * (g * np.hypot(d[:, 0], d[:, 1]) + np.abs(qq)).max())
+        v = vals[pm[:n_act]]
+        v = v - v.mean(axis=0)
+        pre = np.cumsum(v[:nm].reshape(n_cells, m, 3).sum(axis=1), axis=0)
+        if n_bits:
+            low = table @ np.add.reduceat(v[nm:], starts, axis=0)
+            tot = np.concatenate([low, (pre[:, None, :] + low[None]).reshape(-1, 3)])
+        else:
+            tot = pre
+        return float(1e-6 / k * (g * np.hypot(tot[:, 0], tot[:, 1])
+                                 + np.abs(tot[:, 2])).max())
 
     return cost
+
+
+def _state(layout: UnaryLayout) -> IntArray:
+    """The permutation of slots a layout is: its cells' slots, then the dummies'."""
+    used = layout.active()
+    return np.concatenate([used, np.setdiff1d(np.arange(layout.rows * layout.cols),
+                                              used)]).astype(np.int64)
+
+
+def _from_state(perm: IntArray, like: UnaryLayout) -> UnaryLayout:
+    """The layout of permutation ``perm`` with ``like``'s cells and bits."""
+    n, m = like.cells.shape
+    at = n * m
+    bits = []
+    for b in like.bits:
+        bits.append(perm[at:at + len(b)].copy())
+        at += len(b)
+    return UnaryLayout(like.rows, like.cols, like.pitch_um, perm[:n * m].reshape(n, m).copy(),
+                       tuple(bits))
+
+
+def _owners(like: UnaryLayout) -> IntArray:
+    """Each permutation position's cell (unary cells 0 .. N-1, then the bits; -1 for a
+    dummy slot): an exchange within one cell changes nothing."""
+    sizes = [like.sub_units] * like.n_cells + [len(b) for b in like.bits]
+    own = np.repeat(np.arange(len(sizes)), sizes)
+    return np.concatenate([own, np.full(like.rows * like.cols - len(own), -1)])
 
 
 def _greedy(rows: int, cols: int, pitch: tuple[float, float], n_cells: int,
@@ -203,24 +302,27 @@ def _greedy(rows: int, cols: int, pitch: tuple[float, float], n_cells: int,
 
 
 def switching_sequence(rows: int, cols: int, pitch: tuple[float, float], n_cells: int,
-                       fields: UnaryFields, *, sub_units: int = 1, seed: int = 0,
-                       moves: int = 200_000, time_limit_s: float = 10.0) -> SequenceResult:
-    """Placement and switching order of ``n_cells`` cells of ``sub_units`` sub-units on a
-    ``rows`` x ``cols`` core for the least worst |INL| (see the module's text).
+                       fields: UnaryFields, *, sub_units: int = 1, binary_bits: int = 0,
+                       seed: int = 0, moves: int = 200_000,
+                       time_limit_s: float = 10.0) -> SequenceResult:
+    """Placement and switching order of ``n_cells`` cells of ``sub_units`` sub-units (and
+    ``binary_bits`` binary cells: a segmented array) on a ``rows`` x ``cols`` core for the
+    least worst |INL| (see the module's text).
 
     Parameters
     ----------
     rows, cols : int
-        The core; ``rows * cols`` must hold ``n_cells * sub_units`` slots.
+        The core; it must hold every cell's sub-units.
     pitch : tuple of float
         Slot pitch (x, y) in um.
     n_cells : int
         Unary cells (e.g. 63 for six thermometer bits).
     fields : UnaryFields
         The linear gradient (worst direction) and the bowl.
-    sub_units, seed, moves, time_limit_s
-        Sub-units a cell; the random seed; the annealing's move budget and its time
-        cap (the move budget makes the result repeatable when the cap is not reached).
+    sub_units, binary_bits, seed, moves, time_limit_s
+        Sub-units a unary cell; binary cells (bit j on ``2^j sub_units / 2^b`` slots);
+        the random seed; the annealing's move budget and its time cap (the move budget
+        makes the result repeatable when the cap is not reached).
 
     Returns
     -------
@@ -232,28 +334,25 @@ def switching_sequence(rows: int, cols: int, pitch: tuple[float, float], n_cells
     starts: dict[str, UnaryLayout] = {}
     for name, fn in BASELINES.items():
         try:
-            starts[name] = fn(rows, cols, pitch, n_cells, m)
+            starts[name] = fn(rows, cols, pitch, n_cells, m, binary_bits)
         except ValueError:
             continue
-    if m == 1:
+    if m == 1 and not binary_bits:
         starts["greedy"] = _greedy(rows, cols, pitch, n_cells, fields)
     if not starts:
         raise ValueError(f"{n_cells} cells of {m} sub-units do not fit {rows} x {cols}")
     scores = {k: worst_inl(v, fields) for k, v in starts.items()}
     start = min(scores, key=lambda k: (scores[k], k))
-    lay = starts[start]
-    best_f = scores[start]
-    # state: every slot in a permutation; the first N m form the cells in order
+    like = starts[start]
+    # state: every slot in a permutation; the cells' first (unary in order, then the
+    # bits), the dummies after
+    perm = _state(like)
+    owner = _owners(like)
     n = rows * cols
-    used = lay.cells.reshape(-1)
-    rest = np.setdiff1d(np.arange(n), used)
-    perm = np.concatenate([used, rest]).astype(np.int64)
+    n_act = len(like.active())
     xy = slot_xy(rows, cols, pitch)
-    bowl = slot_bowl(xy, fields.quadratic_ppm_per_um2)
-    g = fields.linear_ppm_per_um
-    nm = n_cells * m
-
-    cost = _cost(xy, bowl, g, n_cells, m)
+    cost = _cost(xy, slot_bowl(xy, fields.quadratic_ppm_per_um2), fields.linear_ppm_per_um,
+                 n_cells, m, binary_bits)
 
     rng = np.random.default_rng(seed)
     cur = cost(perm)
@@ -262,7 +361,7 @@ def switching_sequence(rows: int, cols: int, pitch: tuple[float, float], n_cells
     # temperature from the mean uphill step of a few trial moves
     ups = []
     for _ in range(64):
-        a, b = int(rng.integers(nm)), int(rng.integers(n))
+        a, b = int(rng.integers(n_act)), int(rng.integers(n))
         trial = perm.copy()
         trial[a], trial[b] = trial[b], trial[a]
         dv = cost(trial) - cur
@@ -275,8 +374,8 @@ def switching_sequence(rows: int, cols: int, pitch: tuple[float, float], n_cells
         if (it & 1023) == 0 and time.monotonic() - t0 > time_limit_s:
             cut = True
             break
-        a, b = int(rng.integers(nm)), int(rng.integers(n))
-        if a // m == b // m and b < nm:
+        a, b = int(rng.integers(n_act)), int(rng.integers(n))
+        if owner[a] == owner[b]:
             continue
         perm[a], perm[b] = perm[b], perm[a]
         new = cost(perm)
@@ -289,8 +388,7 @@ def switching_sequence(rows: int, cols: int, pitch: tuple[float, float], n_cells
         else:
             perm[a], perm[b] = perm[b], perm[a]
         done += 1
-    cells = best[:nm].reshape(n_cells, m)
-    out = UnaryLayout(rows, cols, pitch, cells.copy())
+    out = _from_state(best, like)
     return SequenceResult(out, worst_inl(out, fields), start, done, time.monotonic() - t0,
                           cut)
 
@@ -314,29 +412,25 @@ def repair_sequence(layout: UnaryLayout, fields: UnaryFields, max_swaps: int = 4
     exchange helps (or ``time_limit_s`` is spent: the best exchange of a step cut short
     is still made)."""
     t_end = time.monotonic() + time_limit_s
-    n_cells, m = layout.cells.shape
-    rows, cols = layout.rows, layout.cols
-    n = rows * cols
-    used = layout.cells.reshape(-1)
-    perm = np.concatenate([used, np.setdiff1d(np.arange(n), used)]).astype(np.int64)
-    nm = n_cells * m
-    xy = slot_xy(rows, cols, layout.pitch_um)
-    bowl = slot_bowl(xy, fields.quadratic_ppm_per_um2)
-    g = fields.linear_ppm_per_um
-
-    cost = _cost(xy, bowl, g, n_cells, m)
+    n = layout.rows * layout.cols
+    perm = _state(layout)
+    owner = _owners(layout)
+    n_act = len(layout.active())
+    xy = slot_xy(layout.rows, layout.cols, layout.pitch_um)
+    cost = _cost(xy, slot_bowl(xy, fields.quadratic_ppm_per_um2), fields.linear_ppm_per_um,
+                 layout.n_cells, layout.sub_units, len(layout.bits))
 
     before = cur = cost(perm)
     swaps: list[tuple[int, int]] = []
     cut = False
     for _ in range(max_swaps):
         best = (cur * (1 - 1e-12), -1, -1)
-        for a in range(nm):
+        for a in range(n_act):
             if time.monotonic() > t_end:
                 cut = True
                 break
             for b in range(a + 1, n):
-                if b < nm and a // m == b // m:
+                if owner[a] == owner[b]:
                     continue
                 perm[a], perm[b] = perm[b], perm[a]
                 f = cost(perm)
@@ -352,5 +446,4 @@ def repair_sequence(layout: UnaryLayout, fields: UnaryFields, max_swaps: int = 4
         if time.monotonic() > t_end and len(swaps) < max_swaps:
             cut = True
             break
-    out = UnaryLayout(rows, cols, layout.pitch_um, perm[:nm].reshape(n_cells, m).copy())
-    return SequenceRepair(out, tuple(swaps), before, cur, cut)
+    return SequenceRepair(_from_state(perm, layout), tuple(swaps), before, cur, cut)
