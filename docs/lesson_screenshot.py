@@ -3,7 +3,9 @@
     python docs/lesson_screenshot.py
 
 Writes the lesson page of samples/bias_mirror.toml, opens it, loads the clustered
-arrangement, makes two swaps through the page and saves docs/lesson.png.
+arrangement, makes two swaps through the page and saves docs/lesson.png; then the
+sequence page of samples/unary/heron_msb.toml with the centre-pairs order and one
+exchange, saved as docs/lesson-sequence.png.
 """
 
 from __future__ import annotations
@@ -33,9 +35,18 @@ def main() -> None:
                     driver.find_element("css selector",
                                         f'.slot[data-row="{r}"][data-col="{c}"]').click()
             driver.save_screenshot(str(ROOT / "docs" / "lesson.png"))
+            subprocess.run([sys.executable, "-m", "placer", "lesson",
+                            str(ROOT / "samples" / "unary" / "heron_msb.toml"), "--out", tmp,
+                            "--time-limit", "10"], check=True, capture_output=True)
+            driver.get((Path(tmp) / "heron_msb-lesson.html").as_uri())
+            driver.find_element("css selector", '[data-load="2"]').click()
+            for r, c in ((3, 3), (0, 0)):
+                driver.find_element("css selector",
+                                    f'.slot[data-row="{r}"][data-col="{c}"]').click()
+            driver.save_screenshot(str(ROOT / "docs" / "lesson-sequence.png"))
         finally:
             driver.quit()
-    print("wrote docs/lesson.png")
+    print("wrote docs/lesson.png and docs/lesson-sequence.png")
 
 
 if __name__ == "__main__":

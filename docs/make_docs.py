@@ -3,7 +3,8 @@
     python docs/make_docs.py
 
 Writes docs/bias_mirror.png (arrange's preview), docs/bias_mirror-compare.png (the
-comparison sheet) and docs/heron_msb-sequence.png (a unary array's order and INL), and
+comparison sheet), docs/heron_msb-sequence.png and docs/heron_dac10-sequence.png (unary
+and segmented arrays' orders and INL), and
 replaces the README blocks between <!-- sample:NAME --> markers with what the commands
 print, so no figure in the README is typed by hand.
 """
@@ -88,6 +89,23 @@ def main() -> None:
         grid = (t / "u" / "sequence.txt").read_text()
         blocks["sequence"] = block(grid + "\n" + section(seq, "heron_msb:", "Figures are"))
         shutil.copy(t / "u" / "sequence.png", ROOT / "docs" / "heron_msb-sequence.png")
+        # the segmented 10-bit DAC: found (the whole move budget: a repeatable order),
+        # then graded again from the GDSII it wrote
+        seg = run(["sequence", "samples/unary/heron_dac10.toml", "--out", str(t / "s"),
+                   "--time-limit", "300"])
+        graded = run(["sequence", "samples/unary/heron_dac10.toml", "--grid",
+                      str(t / "s" / "sequence.gds"), "--out", str(t / "sg")])
+        head = (t / "s" / "sequence.txt").read_text().splitlines()[:6]
+        blocks["segmented"] = block(
+            "$ placer sequence samples/unary/heron_dac10.toml --out dac10\n"
+            + section(seg, "heron_dac10:", "Figures are").rstrip()
+            + "\n\n$ head -6 dac10/sequence.txt\n" + "\n".join(head)
+            + "\n\n$ placer sequence samples/unary/heron_dac10.toml --grid dac10/sequence.gds "
+              "--out graded\n"
+            + "\n".join(ln for ln in graded.splitlines()
+                        if ln.startswith(("Read", "Method", "Worst"))).replace(str(t / "s"),
+                                                                             "dac10"))
+        shutil.copy(t / "s" / "sequence.png", ROOT / "docs" / "heron_dac10-sequence.png")
     for name, body in blocks.items():
         replace_block(f"sample:{name}", body)
 

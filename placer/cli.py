@@ -713,7 +713,8 @@ def compare(spec_path: Path, out_dir: Path, seed: int, time_limit: float, paper:
 @click.option("--out", "out_dir", type=_OUT,
               required=True, help="Folder for <name>-lesson.html.")
 @click.option("--pattern", "pattern_path", type=_FILE, default=None,
-              help="Open the page on this arrangement (a pattern of the spec's devices).")
+              help="Open the page on this arrangement (a pattern of the spec's devices; "
+                   "for a unary spec, a sequence grid or GDSII).")
 @click.option("--seed", type=_SEED, default=0, show_default=True,
               help="Seed of the optimised arrangement.")
 @click.option("--time-limit", "time_limit", type=_TIME,
@@ -728,15 +729,21 @@ def lesson(spec_path: Path, out_dir: Path, pattern_path: Path | None, seed: int,
 
     The page opens from disk in a browser (nothing to fetch); its buttons load the
     clustered, interdigitated, mirrored and optimised arrangements (and yours, with
-    --pattern), and it exports the board as pattern text for grade.
+    --pattern), and it exports the board as pattern text for grade. A unary spec (a
+    [unary] table) gets the sequence page: exchange cells of the textbook orders or
+    placer's and watch the INL against code; it exports a sequence grid.
     """
     from placer.io.pattern import check_against_spec, read_pattern
+    from placer.io.unaryspec import is_unary_spec
     from placer.jobs import workload
     from placer.jobs.arrange import baseline_patterns
     from placer.jobs.load import load_spec
     from placer.present import outputs
     from placer.present.lesson import MAX_LESSON_UNITS, LessonArrangement, lesson_data, render_page
 
+    if is_unary_spec(spec_path):
+        _sequence_lesson(spec_path, out_dir, pattern_path, seed, time_limit, force)
+        return
     spec = load_spec(spec_path)
     workload.check(spec, str(spec_path), time_limit, routed=False)
     if spec.n_units > MAX_LESSON_UNITS:
@@ -764,6 +771,41 @@ def lesson(spec_path: Path, out_dir: Path, pattern_path: Path | None, seed: int,
             items.insert(0, LessonArrangement(pattern_path.stem, f"from {pattern_path.name}",
                                               own))
         out.write(name, render_page(lesson_data(spec, items)))
+        written = out.commit()
+    click.echo(f"Wrote {written[0]}: open it in a browser (no network needed).")
+
+
+def _sequence_lesson(spec_path: Path, out_dir: Path, grid_path: Path | None, seed: int,
+                     time_limit: float, force: bool) -> None:
+    """The lesson page of a unary spec: the textbook orders, placer's and the given one."""
+    from placer.io.unaryspec import read_sequence_layout, read_unary_spec
+    from placer.jobs.sequence import find_sequence
+    from placer.present.lesson import render_sequence_page, sequence_lesson_data
+    from placer.search.switching import BASELINES
+
+    spec = read_unary_spec(spec_path)
+    given = read_sequence_layout(grid_path, spec) if grid_path is not None else None
+    sequence_lesson_data(spec, [])                       # refuses an outsize core first
+    notes = {"row-by-row": "cells in reading order",
+             "row-column": "rows from the middle out, each row's columns likewise",
+             "centre pairs": "consecutive cells on slots mirrored through the centre",
+             "quadrant split": "each cell on four slots mirrored about both axes",
+             "quad-quadrant walk": "each cell on sixteen slots, one a sub-quadrant"}
+    orders = []
+    for name, fn in BASELINES.items():
+        try:
+            orders.append((name, notes[name], fn(spec.rows, spec.cols, spec.pitch_um,
+                                                 spec.cells, spec.sub_units,
+                                                 spec.binary_bits)))
+        except ValueError:
+            continue
+    name = f"{spec.name}-lesson.html"
+    with OutputSet(out_dir, [name], force) as out:
+        rep = find_sequence(spec, seed=seed, time_limit_s=time_limit)
+        orders.append(("placer", f"placer's search: {rep.method}", rep.layout))
+        if given is not None and grid_path is not None:       # the page opens on it
+            orders.insert(0, (grid_path.stem, f"from {grid_path.name}", given))
+        out.write(name, render_sequence_page(sequence_lesson_data(spec, orders)))
         written = out.commit()
     click.echo(f"Wrote {written[0]}: open it in a browser (no network needed).")
 

@@ -114,7 +114,7 @@ def test_the_gdsii_labels_every_slot_with_its_sequence_number(tmp_path):
     from tests.streamread import flatten, read
 
     spec = spec_file(tmp_path, SMALL)
-    assert _run([str(spec), "--out", str(tmp_path / "o")]).exit_code == 0
+    assert _run([str(spec), "--out", str(tmp_path / "o"), "--time-limit", "1"]).exit_code == 0
     s = read_unary_spec(spec)
     grid = read_sequence_grid(tmp_path / "o" / "sequence.txt", s).grid()
     lib = read((tmp_path / "o" / "sequence.gds").read_bytes())
@@ -215,7 +215,7 @@ def test_a_segmented_array_is_searched_graded_and_labelled(tmp_path):
     from tests.test_unary import _segmented_transfer_inl
 
     spec = spec_file(tmp_path, SEGMENTED)
-    res = _run([str(spec), "--out", str(tmp_path / "o"), "--time-limit", "20"])
+    res = _run([str(spec), "--out", str(tmp_path / "o"), "--time-limit", "1"])
     assert res.exit_code == 0, res.output
     assert "2 binary cells of 1, 2 sub-units (codes 0 to 15)" in res.output
     rep = json.loads((tmp_path / "o" / "report.json").read_text())
@@ -315,3 +315,34 @@ def test_a_bad_gdsii_order_is_one_line(tmp_path, kind, message):
     assert message in res.output and "Traceback" not in res.output
     assert len(res.output.strip().splitlines()) == 1
     assert not (tmp_path / "o").exists() or not any((tmp_path / "o").iterdir())
+
+
+def test_the_lesson_page_of_a_unary_spec_holds_the_orders_and_opens_on_a_given_one(tmp_path):
+    """``placer lesson`` of a unary spec writes the sequence page: its data holds the
+    textbook orders, placer's and (first, with --pattern) the given grid, each as the grid
+    placer writes; an outsize core is refused in one line with nothing written."""
+    import re
+
+    from placer.search.switching import row_by_row
+
+    spec = spec_file(tmp_path, SEGMENTED)
+    s = read_unary_spec(spec)
+    given = tmp_path / "mine.txt"
+    given.write_text("1 b1 2 3\n3 b0 1 2\n2 3 b1 1\n. 1 3 2\n")
+    res = CliRunner().invoke(cli, ["lesson", str(spec), "--out", str(tmp_path / "p"),
+                                   "--pattern", str(given), "--time-limit", "1"])
+    assert res.exit_code == 0, res.output
+    html = (tmp_path / "p" / "wren_dac-lesson.html").read_text()
+    blob = re.search(r'<script type="application/json" id="lesson-data">(.*?)</script>',
+                     html, re.S).group(1)
+    data = json.loads(blob)
+    labels = [a["label"] for a in data["arrangements"]]
+    assert labels == ["mine", "row-by-row", "row-column", "centre pairs", "placer"]
+    assert data["arrangements"][0]["grid"] == read_sequence_grid(given, s).grid().tolist()
+    assert data["arrangements"][1]["grid"] == row_by_row(4, 4, s.pitch_um, 3, 4, 2).grid().tolist()
+    assert (data["binary_bits"], data["lsb_units"], data["cells"]) == (2, 1, 3)
+    big = spec_file(tmp_path, '[unary]\ncells = 4095\nrows = 65\ncolumns = 65\n', "big.toml")
+    res = CliRunner().invoke(cli, ["lesson", str(big), "--out", str(tmp_path / "q")])
+    assert res.exit_code == 1 and "handles at most 4096" in res.output
+    assert len(res.output.strip().splitlines()) == 1
+    assert not (tmp_path / "q").exists() or not any((tmp_path / "q").iterdir())

@@ -42,13 +42,13 @@ from pathlib import Path
 import numpy as np
 from numpy.typing import NDArray
 
-from placer.errors import LimitError, SpecError, shown
+from placer.errors import LimitError, PlacerError, SpecError, shown
 from placer.io.files import read_text
 from placer.io.spec import _pitch, _Reader, _safe_default_name, check_name, toml_data
 from placer.limits import MAX_EXTENT_UM
 
 __all__ = ["UnaryLayout", "UnaryFields", "UnarySpec", "read_unary_spec", "read_sequence_grid",
-           "read_sequence_layout",
+           "read_sequence_layout", "is_unary_spec",
            "format_sequence_grid", "grid_token", "MAX_CELLS", "MAX_SUB_UNITS",
            "MAX_BINARY_BITS"]
 
@@ -176,6 +176,16 @@ class UnarySpec:
     def sub_units_all(self) -> int:
         """Every sub-unit of every cell, unary and binary."""
         return self.cells * self.sub_units + ((1 << self.binary_bits) - 1) * self.lsb_units
+
+
+def is_unary_spec(path: str | Path) -> bool:
+    """Whether ``path`` reads as TOML with a ``[unary]`` table (a file that does not read
+    is left to the arrangement spec's reader to report)."""
+    try:
+        data = toml_data(read_text(Path(path), "spec", SpecError), str(path))
+    except PlacerError:
+        return False
+    return isinstance(data, dict) and "unary" in data
 
 
 def read_unary_spec(path: str | Path) -> UnarySpec:

@@ -19,11 +19,14 @@ from placer.io.pattern import Pattern
 from placer.io.spec import Spec
 from placer.kinds import KINDS
 
-__all__ = ["LessonArrangement", "lesson_data", "render_page", "spec_title", "MAX_LESSON_UNITS"]
+__all__ = ["LessonArrangement", "lesson_data", "render_page", "spec_title", "MAX_LESSON_UNITS",
+           "sequence_lesson_data", "render_sequence_page", "MAX_SEQUENCE_SLOTS"]
 
 #: The page computes the correlated sigma over every pair of units (N^2 kernel values
 #: per swap): beyond this size it would lag.
 MAX_LESSON_UNITS = 1024
+#: The sequence page draws every slot: beyond this many the board stops being readable.
+MAX_SEQUENCE_SLOTS = 4096
 
 
 @dataclass(frozen=True)
@@ -128,6 +131,37 @@ def render_page(data: dict[str, Any]) -> str:
     for key, value in (("/*STYLE*/", _asset("lesson.css")), ("/*DATA*/", blob),
                        ("/*SCRIPT*/", _asset("lesson.js")),
                        ("{{TITLE}}", f"{spec_title(data)} - placer lesson")):
+        page = page.replace(key, value)
+    return page
+
+
+def sequence_lesson_data(spec: Any, orders: list[tuple[str, str, Any]]) -> dict[str, Any]:
+    """What the sequence page computes from: a unary spec's core and fields, and the
+    orders its buttons load (label, a line on it, :class:`placer.io.unaryspec.UnaryLayout`),
+    the first the one it opens with."""
+    if spec.rows * spec.cols > MAX_SEQUENCE_SLOTS:
+        raise LimitError(f"{spec.source}: {spec.rows} x {spec.cols} slots; the sequence "
+                         f"page draws every slot and handles at most {MAX_SEQUENCE_SLOTS}")
+    return {
+        "name": spec.name, "rows": spec.rows, "cols": spec.cols,
+        "pitch_um": list(spec.pitch_um), "cells": spec.cells, "sub_units": spec.sub_units,
+        "binary_bits": spec.binary_bits, "lsb_units": spec.lsb_units,
+        "linear_ppm_per_um": spec.fields.linear_ppm_per_um,
+        "quadratic_ppm_per_um2": spec.fields.quadratic_ppm_per_um2,
+        "arrangements": [{"label": label, "note": note, "grid": lay.grid().tolist()}
+                         for label, note, lay in orders],
+    }
+
+
+def render_sequence_page(data: dict[str, Any]) -> str:
+    """The sequence page: its template with the lesson's style sheet, its script and the
+    data inlined (escaped as :func:`render_page` does)."""
+    blob = json.dumps(data, allow_nan=False, separators=(",", ":")).replace("<", "\\u003c")
+    page = _asset("sequence.html")
+    for key, value in (("/*STYLE*/", _asset("lesson.css")), ("/*DATA*/", blob),
+                       ("/*SCRIPT*/", _asset("sequence.js")),
+                       ("{{TITLE}}", f"{data['name']} ({data['cells']} unary cells) - placer "
+                                     "lesson")):
         page = page.replace(key, value)
     return page
 
