@@ -346,3 +346,49 @@ def test_the_lesson_page_of_a_unary_spec_holds_the_orders_and_opens_on_a_given_o
     assert res.exit_code == 1 and "handles at most 4096" in res.output
     assert len(res.output.strip().splitlines()) == 1
     assert not (tmp_path / "q").exists() or not any((tmp_path / "q").iterdir())
+
+
+def test_a_known_direction_and_hot_spot_are_graded(tmp_path):
+    """[gradient] direction_deg adds the INL at that direction (against the transfer curve
+    computed apart); a hot spot joins the bowl's part, and the search's order is no worse
+    under it than every baseline; a hot spot missing a key is one line."""
+    from placer.search.switching import BASELINES
+    from tests.test_unary import _segmented_transfer_inl
+
+    text = SEGMENTED + ("direction_deg = 30\n"
+                        "hot_spot = { x_um = 8, y_um = -6, ppm = 50, fall_off_um = 10 }\n")
+    spec = spec_file(tmp_path, text)
+    res = _run([str(spec), "--out", str(tmp_path / "o"), "--time-limit", "2"])
+    assert res.exit_code == 0, res.output
+    assert "At the given direction, 30 deg: worst |INL|" in res.output
+    assert "hot spot of 50 ppm at (8, -6) um" in res.output
+    rep = json.loads((tmp_path / "o" / "report.json").read_text())
+    s = read_unary_spec(spec)
+    lay = read_sequence_grid(tmp_path / "o" / "sequence.txt", s)
+    spot = np.array([50e-6 * np.exp(-np.hypot(c * 8.0 - 8.0, -r * 6.0 + 6.0) / 10.0)
+                     for r in range(4) for c in range(4)])
+    # the spot's contribution, summed by code apart from the model
+    inl0 = np.array(_segmented_transfer_inl(lay, np.radians(30.0), 20.0, 0.05))
+    on = []
+    for code in range(16):
+        u, low = divmod(code, 4)
+        slots = [int(x) for cell in lay.cells[:u] for x in cell]
+        slots += [int(x) for j in range(2) if low >> j & 1 for x in lay.bits[j]]
+        on.append(spot[slots].sum())
+    on = np.array(on)
+    spot_inl = on - np.arange(16) / 15 * on[15]          # end points fitted, first order
+    want = inl0 + spot_inl
+    assert rep["given_direction_inl_lsb"] == pytest.approx(want, abs=2e-3 * abs(want).max())
+    assert rep["given_direction_worst_inl_lsb"] == pytest.approx(abs(want).max(), rel=3e-3)
+    assert rep["assumptions"]["hot_spot"] == {"x_um": 8.0, "y_um": -6.0, "ppm": 50.0,
+                                              "fall_off_um": 10.0}
+    for name, fn in BASELINES.items():
+        try:
+            base = fn(4, 4, s.pitch_um, 3, 4, 2)
+        except ValueError:
+            continue
+        assert rep["worst_inl_lsb"] <= worst_inl(base, s.fields) * (1 + 1e-12), name
+    bad = spec_file(tmp_path, SEGMENTED + "hot_spot = { x_um = 8, ppm = 50 }\n", "bad.toml")
+    res = _run([str(bad), "--out", str(tmp_path / "b")])
+    assert res.exit_code == 1 and "y_um is missing" in res.output
+    assert len(res.output.strip().splitlines()) == 1

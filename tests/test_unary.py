@@ -321,3 +321,49 @@ def test_the_quad_quadrant_walk_cancels_the_linear_gradient_with_sixteen_sub_uni
         assert len(regions) == 16
     with pytest.raises(ValueError):
         quad_quadrant_walk(16, 12, (10.0, 7.0), 13, 16)      # 13 > 4 x 3 slots a region
+
+
+def test_a_known_hot_spot_joins_the_bowl_in_every_figure():
+    """A hot spot (peak ppm at a point given from the centre of the top-left slot, y up,
+    falling off as exp(-d / fall-off)) added to every unit source's value: the model's INL
+    at a direction and its worst over directions against the transfer curve computed
+    apart with the spot in each unit's value."""
+    from placer.io.spec import HotSpot
+
+    rng = np.random.default_rng(21)
+    g, h = 10.0, 0.03
+    hs = HotSpot(x_um=12.0, y_um=-20.0, ppm=300.0, fall_off_um=15.0)
+    lay = _random_segmented(rng, 6, 6, 3, 2, k=2)
+    fields = UnaryFields(g, h, None, hs)
+
+    def spot(s: int) -> float:
+        r, c = divmod(s, lay.cols)
+        d = math.hypot(c * lay.pitch_um[0] - hs.x_um, -r * lay.pitch_um[1] - hs.y_um)
+        return 1e-6 * hs.ppm * math.exp(-d / hs.fall_off_um)
+
+    def exact(theta: float) -> list[float]:
+        outs = []
+        nb = len(lay.bits)
+        for code in range(lay.full_scale + 1):
+            u, low = divmod(code, 2 ** nb)
+            on = [int(s) for cell in lay.cells[:u] for s in cell]
+            on += [int(s) for j in range(nb) if low >> j & 1 for s in lay.bits[j]]
+            total = 0.0
+            for s in on:
+                r, c = divmod(s, lay.cols)
+                total += 1.0 + _field((c - (lay.cols - 1) / 2) * lay.pitch_um[0],
+                                      -(r - (lay.rows - 1) / 2) * lay.pitch_um[1], theta, g,
+                                      h) + spot(s)
+            outs.append(total)
+        fs = len(outs) - 1
+        lsb = (outs[fs] - outs[0]) / fs
+        return [(outs[c] - outs[0]) / lsb - c for c in range(fs + 1)]
+
+    theta = 0.9
+    want = np.array(exact(theta))
+    assert code_inl(lay, fields, theta) == pytest.approx(want, abs=2e-3 * np.abs(want).max())
+    scan = max(max(abs(v) for v in exact(t)) for t in np.linspace(0, 2 * np.pi, 720,
+                                                                   endpoint=False))
+    assert worst_inl(lay, fields) == pytest.approx(scan, rel=5e-3)
+    # the spot matters here: without it the worst differs
+    assert abs(worst_inl(lay, UnaryFields(g, h)) - worst_inl(lay, fields)) > 0.1 * scan

@@ -791,17 +791,22 @@ def _gradient(source: str, gr: _Reader, kind: str, el: ElectricalSpec | None) ->
         linear = _num(gr, "linear_ppm_per_um", d.linear_ppm_per_um)
         described = f"{linear:g} ppm/um" + ("" if given else " (the default)")
     direction = gr.number("direction_deg", None, positive=False)
-    hot = None
-    if "hot_spot" in gr.data:
-        hs = _Reader(source, "gradient.hot_spot", gr.data["hot_spot"])
-        missing = [k for k in ("x_um", "y_um", "ppm", "fall_off_um") if k not in hs.data]
-        if missing:
-            raise hs.fail(missing[0], "is missing (x_um, y_um, ppm, fall_off_um)")
-        hot = HotSpot(*(float(hs.number(k, None, positive=k == "fall_off_um") or 0.0)
-                        for k in ("x_um", "y_um", "ppm", "fall_off_um")))
+    hot = _hot_spot(gr, source)
     return GradientSpec(linear, quad, order, vt, beta,
                         None if direction is None else float(direction) % 360.0, hot,
                         described)
+
+
+def _hot_spot(gr: _Reader, source: str) -> HotSpot | None:
+    """``[gradient] hot_spot = { x_um, y_um, ppm, fall_off_um }``, or None."""
+    if "hot_spot" not in gr.data:
+        return None
+    hs = _Reader(source, "gradient.hot_spot", gr.data["hot_spot"])
+    missing = [k for k in ("x_um", "y_um", "ppm", "fall_off_um") if k not in hs.data]
+    if missing:
+        raise hs.fail(missing[0], "is missing (x_um, y_um, ppm, fall_off_um)")
+    return HotSpot(*(float(hs.number(k, None, positive=k == "fall_off_um") or 0.0)
+                     for k in ("x_um", "y_um", "ppm", "fall_off_um")))
 
 
 def _mask(arr: _Reader, rows: int | None, columns: int | None) -> tuple[str, ...] | None:

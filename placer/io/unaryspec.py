@@ -16,7 +16,8 @@ does::
     [unit]                # one sub-unit's area, for the area law
     width_um = 4.0
     length_um = 4.0
-    [gradient]            # linear_ppm_per_um (or linear_pct_per_mm), quadratic_ppm_per_um2
+    [gradient]            # linear_ppm_per_um (or linear_pct_per_mm), quadratic_ppm_per_um2,
+                          # and a known field: direction_deg, hot_spot
     [correlated]          # sigma_ppm, length_um, kernel
     [mismatch]            # a_param_pct_um
 
@@ -44,7 +45,15 @@ from numpy.typing import NDArray
 
 from placer.errors import LimitError, PlacerError, SpecError, shown
 from placer.io.files import read_text
-from placer.io.spec import _pitch, _Reader, _safe_default_name, check_name, toml_data
+from placer.io.spec import (
+    HotSpot,
+    _hot_spot,
+    _pitch,
+    _Reader,
+    _safe_default_name,
+    check_name,
+    toml_data,
+)
 from placer.limits import MAX_EXTENT_UM
 
 __all__ = ["UnaryLayout", "UnaryFields", "UnarySpec", "read_unary_spec", "read_sequence_grid",
@@ -125,10 +134,14 @@ class UnaryLayout:
 @dataclass(frozen=True)
 class UnaryFields:
     """The systematic fields: a linear gradient (ppm/um, its worst direction) and the
-    radial bowl of Frobenius norm ``quadratic_ppm_per_um2``."""
+    radial bowl of Frobenius norm ``quadratic_ppm_per_um2``; a known field when given: a
+    gradient direction graded beside the worst one, and a hot spot (its x and y in um
+    from the centre of the top-left slot, y up, as for patterns) added to the bowl."""
 
     linear_ppm_per_um: float = 10.0
     quadratic_ppm_per_um2: float = 0.02
+    direction_deg: float | None = None
+    hot_spot: HotSpot | None = None
 
 
 @dataclass(frozen=True)
@@ -263,10 +276,11 @@ def read_unary_spec(path: str | Path) -> UnarySpec:
         assert pct is not None
         lin = 10.0 * pct                                  # 1 %/mm = 10 ppm/um
     for key in gr.data:
-        if key not in ("linear_ppm_per_um", "linear_pct_per_mm", "quadratic_ppm_per_um2"):
+        if key not in ("linear_ppm_per_um", "linear_pct_per_mm", "quadratic_ppm_per_um2",
+                       "direction_deg", "hot_spot"):
             raise SpecError(f"{src}: [gradient] {key} is not used by a unary array (it "
-                            "takes linear_ppm_per_um or linear_pct_per_mm and "
-                            "quadratic_ppm_per_um2)")
+                            "takes linear_ppm_per_um or linear_pct_per_mm, "
+                            "quadratic_ppm_per_um2, direction_deg and hot_spot)")
     quad = gr.number("quadratic_ppm_per_um2", 0.02, allow_zero=True)
     co = _Reader(src, "correlated", data.get("correlated", {}))
     mi = _Reader(src, "mismatch", data.get("mismatch", {}))
@@ -281,7 +295,10 @@ def read_unary_spec(path: str | Path) -> UnarySpec:
     a = mi.number("a_param_pct_um", 1.0, allow_zero=True)
     assert quad is not None and w is not None and h is not None and sig is not None
     assert length is not None and a is not None
-    return UnarySpec(name, src, cells, m, rows, cols, _pitch(un), UnaryFields(lin, quad),
+    direction = gr.number("direction_deg", None, positive=False)
+    fields = UnaryFields(lin, quad, None if direction is None else float(direction) % 360.0,
+                         _hot_spot(gr, src))
+    return UnarySpec(name, src, cells, m, rows, cols, _pitch(un), fields,
                      sig, length, co.choice("kernel", "exponential",
                                             ("exponential", "gaussian")), a, w * h, b)
 

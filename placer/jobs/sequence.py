@@ -55,6 +55,8 @@ class SequenceReport:
     swaps: tuple[tuple[int, int], ...] = ()
     before_lsb: float | None = None
     repair_cut: bool = False
+    #: with [gradient] direction_deg: INL at codes 0 .. full scale, the gradient at it
+    given_inl_lsb: FloatArray | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready figures."""
@@ -82,9 +84,18 @@ class SequenceReport:
             "repair_cut_by_time_limit": self.repair_cut,
             # each slot's cell number, -(j + 1) for binary bit j, 0 a dummy
             "sequence": self.layout.grid().tolist(),
+            "given_direction_deg": self.spec.fields.direction_deg,
+            "given_direction_worst_inl_lsb": (None if self.given_inl_lsb is None else
+                                              float(np.abs(self.given_inl_lsb).max())),
+            "given_direction_worst_code": (None if self.given_inl_lsb is None else
+                                           int(np.argmax(np.abs(self.given_inl_lsb)))),
+            "given_direction_inl_lsb": (None if self.given_inl_lsb is None else
+                                        self.given_inl_lsb.tolist()),
             "assumptions": {
                 "linear_ppm_per_um": self.spec.fields.linear_ppm_per_um,
                 "quadratic_ppm_per_um2": self.spec.fields.quadratic_ppm_per_um2,
+                "hot_spot": (None if self.spec.fields.hot_spot is None else
+                             vars(self.spec.fields.hot_spot)),
                 "correlated_sigma_ppm": self.spec.corr_sigma_ppm,
                 "correlated_length_um": self.spec.corr_length_um,
                 "kernel": self.spec.kernel, "a_param_pct_um": self.spec.a_param_pct_um,
@@ -117,9 +128,12 @@ def score_sequence(spec: UnarySpec, layout: UnaryLayout, method: str,
                                 spec.kernel)
            if spec.corr_sigma_ppm > 0 else np.zeros(spec.full_scale + 1))
     budget = float((total + 3.0 * np.hypot(rnd, cor)).max())
+    given = (None if spec.fields.direction_deg is None else
+             code_inl(layout, spec.fields, math.radians(spec.fields.direction_deg)))
     return SequenceReport(
         spec, layout, method, float(total[c]), c, math.degrees(theta) % 360.0, curve,
-        np.diff(curve), lin, bowl, rnd, cor, base, moves, seconds, inl_3sigma_lsb=budget)
+        np.diff(curve), lin, bowl, rnd, cor, base, moves, seconds, inl_3sigma_lsb=budget,
+        given_inl_lsb=given)
 
 
 def find_sequence(spec: UnarySpec, *, seed: int = 0, time_limit_s: float = 10.0,

@@ -16,7 +16,8 @@ position): INL_c = g u . D_c with D_c the partial sum of centred positions, so t
 direction at code c gives ``g |D_c|``, and with a field Q added the worst direction over
 every code gives ``max_c (g |D_c| + |Q_c|)`` exactly (the maximum over direction and code
 commute). The quadratic field is the radial bowl of the grade's ``bowl`` column: Hessian
-``(h / sqrt 2) I`` about the core's centre, of Frobenius norm h ppm/um^2.
+``(h / sqrt 2) I`` about the core's centre, of Frobenius norm h ppm/um^2; a known hot
+spot, when given, joins it (Q_c then sums both).
 
 A segmented array adds b binary cells (:class:`placer.io.unaryspec.UnaryLayout`): code
 C = U 2^b + L turns on the first U unary cells and the binary cells of L's bits. Every
@@ -46,7 +47,8 @@ from numpy.typing import NDArray
 
 from placer.io.unaryspec import UnaryFields, UnaryLayout
 
-__all__ = ["UnaryLayout", "UnaryFields", "slot_xy", "slot_bowl", "cell_errors", "inl", "dnl",
+__all__ = ["UnaryLayout", "UnaryFields", "slot_xy", "slot_bowl", "slot_field", "cell_errors",
+           "inl", "dnl",
            "code_sums", "code_inl", "worst_inl", "worst_inl_parts", "random_inl_sigma",
            "correlated_inl_sigma"]
 
@@ -72,9 +74,24 @@ def slot_bowl(xy: FloatArray, h: float) -> FloatArray:
     return (h / (2.0 * np.sqrt(2.0))) * (xy * xy).sum(axis=1)
 
 
-def _bowl(lay: UnaryLayout, h: float) -> FloatArray:
-    """Each cell's bowl value (ppm), averaged over its sub-units."""
-    return slot_bowl(slot_xy(lay.rows, lay.cols, lay.pitch_um), h)[lay.cells].mean(axis=1)
+def slot_field(rows: int, cols: int, pitch_um: tuple[float, float],
+               fields: UnaryFields) -> FloatArray:
+    """The field at each slot (ppm) but the linear gradient: the bowl, plus the hot spot
+    when given (peak ppm at its point, falling off as exp(-d / fall-off); its x and y from
+    the centre of the top-left slot, y up)."""
+    xy = slot_xy(rows, cols, pitch_um)
+    out = slot_bowl(xy, fields.quadratic_ppm_per_um2)
+    hs = fields.hot_spot
+    if hs is not None:
+        x = xy[:, 0] + 0.5 * (cols - 1) * pitch_um[0]
+        y = xy[:, 1] - 0.5 * (rows - 1) * pitch_um[1]
+        out = out + hs.ppm * np.exp(-np.hypot(x - hs.x_um, y - hs.y_um) / hs.fall_off_um)
+    return out
+
+
+def _bowl(lay: UnaryLayout, fields: UnaryFields) -> FloatArray:
+    """Each cell's bowl (and hot-spot) value (ppm), averaged over its sub-units."""
+    return slot_field(lay.rows, lay.cols, lay.pitch_um, fields)[lay.cells].mean(axis=1)
 
 
 def cell_errors(lay: UnaryLayout, fields: UnaryFields, theta: float) -> FloatArray:
@@ -82,7 +99,7 @@ def cell_errors(lay: UnaryLayout, fields: UnaryFields, theta: float) -> FloatArr
     ``theta`` (radians) and the bowl, in switching order."""
     p = _cell_xy(lay)
     u = np.array([np.cos(theta), np.sin(theta)])
-    return 1e-6 * (fields.linear_ppm_per_um * (p @ u) + _bowl(lay, fields.quadratic_ppm_per_um2))
+    return 1e-6 * (fields.linear_ppm_per_um * (p @ u) + _bowl(lay, fields))
 
 
 def inl(errors: FloatArray) -> FloatArray:
@@ -125,7 +142,7 @@ def slot_errors(lay: UnaryLayout, fields: UnaryFields, theta: float) -> FloatArr
     xy = slot_xy(lay.rows, lay.cols, lay.pitch_um)
     u = np.array([np.cos(theta), np.sin(theta)])
     return 1e-6 * (fields.linear_ppm_per_um * (xy @ u)
-                   + slot_bowl(xy, fields.quadratic_ppm_per_um2))
+                   + slot_field(lay.rows, lay.cols, lay.pitch_um, fields))
 
 
 def code_inl(lay: UnaryLayout, fields: UnaryFields, theta: float) -> FloatArray:
@@ -136,11 +153,11 @@ def code_inl(lay: UnaryLayout, fields: UnaryFields, theta: float) -> FloatArray:
 
 def worst_inl_parts(lay: UnaryLayout, fields: UnaryFields) -> tuple[FloatArray, FloatArray]:
     """Per code 0 .. full scale: the linear part in its worst direction (LSB,
-    ``g |D_c|``) and the bowl's part (signed LSB)."""
+    ``g |D_c|``) and the bowl's part, with the hot spot's when given (signed LSB)."""
     xy = slot_xy(lay.rows, lay.cols, lay.pitch_um)
     d = code_sums(lay, xy)
     lin = 1e-6 * fields.linear_ppm_per_um * np.hypot(d[:, 0], d[:, 1])
-    return lin, 1e-6 * code_sums(lay, slot_bowl(xy, fields.quadratic_ppm_per_um2))
+    return lin, 1e-6 * code_sums(lay, slot_field(lay.rows, lay.cols, lay.pitch_um, fields))
 
 
 def worst_inl(lay: UnaryLayout, fields: UnaryFields) -> float:

@@ -139,6 +139,8 @@ def sequence_lesson_data(spec: Any, orders: list[tuple[str, str, Any]]) -> dict[
     """What the sequence page computes from: a unary spec's core and fields, and the
     orders its buttons load (label, a line on it, :class:`placer.io.unaryspec.UnaryLayout`),
     the first the one it opens with."""
+    from placer.model.unary import slot_field
+
     if spec.rows * spec.cols > MAX_SEQUENCE_SLOTS:
         raise LimitError(f"{spec.source}: {spec.rows} x {spec.cols} slots; the sequence "
                          f"page draws every slot and handles at most {MAX_SEQUENCE_SLOTS}")
@@ -148,6 +150,9 @@ def sequence_lesson_data(spec: Any, orders: list[tuple[str, str, Any]]) -> dict[
         "binary_bits": spec.binary_bits, "lsb_units": spec.lsb_units,
         "linear_ppm_per_um": spec.fields.linear_ppm_per_um,
         "quadratic_ppm_per_um2": spec.fields.quadratic_ppm_per_um2,
+        # every slot's field but the linear gradient (the bowl, and a hot spot when
+        # given), ppm: the page sums it as it sums positions
+        "field_ppm": slot_field(spec.rows, spec.cols, spec.pitch_um, spec.fields).tolist(),
         "arrangements": [{"label": label, "note": note, "grid": lay.grid().tolist()}
                          for label, note, lay in orders],
     }

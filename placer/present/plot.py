@@ -700,7 +700,11 @@ def save_sequence(rep: Any, paths: Sequence[Path]) -> None:
     ax2.plot(codes, rep.linear_part_lsb, color=PALETTE[0], lw=1.0, ls="--",
              label="linear part, each code in its own worst direction")
     ax2.plot(codes, rep.bowl_part_lsb, color=PALETTE[5], lw=1.0, ls=":",
-             label="bowl part")
+             label="bowl and hot-spot part" if spec.fields.hot_spot else "bowl part")
+    if rep.given_inl_lsb is not None:
+        ax2.plot(codes, rep.given_inl_lsb, color="#777777", lw=1.0,
+                 label=f"at the given direction, {spec.fields.direction_deg:g} deg: worst "
+                       f"{abs(rep.given_inl_lsb).max():.3g} LSB")
     ax2.axhline(0, color="#888888", lw=0.5)
     # the scale of the systematic curves: a random band many times wider runs off it
     # (its size is in the legend)

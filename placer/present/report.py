@@ -381,6 +381,9 @@ def format_sequence(rep: Any) -> str:
     s = rep.spec
     f = s.fields
     nb = s.binary_bits
+    hs = f.hot_spot
+    hot = (f" and the hot spot of {hs.ppm:g} ppm at ({hs.x_um:g}, {hs.y_um:g}) um, fall-off "
+           f"{hs.fall_off_um:g} um" if hs else "")
     bits = (f" + {nb} binary cell{'s' if nb > 1 else ''} of "
             f"{', '.join(str(s.lsb_units << j) for j in range(nb))} sub-unit"
             f"{'s' if s.lsb_units << (nb - 1) > 1 else ''} (codes 0 to {s.full_scale})"
@@ -392,9 +395,10 @@ def format_sequence(rep: Any) -> str:
                                       if rep.moves else "."),
            f"Worst |INL| (linear gradient {f.linear_ppm_per_um:g} ppm/um in its worst "
            f"direction, {rep.worst_direction_deg:.0f} deg, plus the bowl of "
-           f"{f.quadratic_ppm_per_um2:g} ppm/um^2): {rep.worst_inl_lsb:.4g} LSB at code "
-           f"{rep.worst_code}; linear part up to {rep.linear_part_lsb.max():.4g} LSB, bowl "
-           f"part up to {abs(rep.bowl_part_lsb).max():.4g} LSB; |DNL| up to "
+           f"{f.quadratic_ppm_per_um2:g} ppm/um^2{hot}): {rep.worst_inl_lsb:.4g} LSB at code "
+           f"{rep.worst_code}; linear part up to {rep.linear_part_lsb.max():.4g} LSB, "
+           f"{'bowl and hot-spot' if hs else 'bowl'} part up to "
+           f"{abs(rep.bowl_part_lsb).max():.4g} LSB; |DNL| up to "
            f"{abs(rep.dnl_lsb).max():.4g} LSB.",
            f"Random: a unary cell's sigma {100 * s.cell_sigma:.3g} % "
            + (f"(an LSB's {100 * s.lsb_sigma:.3g} %) " if nb else "")
@@ -407,6 +411,10 @@ def format_sequence(rep: Any) -> str:
            f"correlated parts together; in steps of one "
            f"{'LSB' if nb else 'unary cell'}); within 0.5 LSB: "
            f"{'yes' if rep.inl_3sigma_lsb <= 0.5 else 'no'}."]
+    if rep.given_inl_lsb is not None:
+        g = abs(rep.given_inl_lsb)
+        out.insert(3, f"At the given direction, {f.direction_deg:g} deg: worst |INL| "
+                      f"{g.max():.4g} LSB at code {int(g.argmax())}.")
     if rep.before_lsb is not None:
         tail = (":" if rep.swaps else " (the time limit came first)." if rep.repair_cut
                 else " (no exchange helps).")

@@ -57,7 +57,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
-from placer.model.unary import UnaryFields, UnaryLayout, slot_bowl, slot_xy, worst_inl
+from placer.model.unary import UnaryFields, UnaryLayout, slot_field, slot_xy, worst_inl
 
 __all__ = ["BASELINES", "row_by_row", "row_column", "centre_pairs", "quadrant_split",
            "quad_quadrant_walk",
@@ -277,7 +277,7 @@ def _greedy(rows: int, cols: int, pitch: tuple[float, float], n_cells: int,
     the centred positions (weighted by the gradient) and bowl values smallest. The
     centre of the N cells is taken as the core's (exact when no slot is spare)."""
     xy = slot_xy(rows, cols, pitch)
-    b = slot_bowl(xy, fields.quadratic_ppm_per_um2)
+    b = slot_field(rows, cols, pitch, fields)
     # the cells' mean position and bowl, assuming the spare slots are the outermost
     n = rows * cols
     keep = np.argsort((xy * xy).sum(axis=1), kind="stable")[:n_cells]
@@ -351,7 +351,7 @@ def switching_sequence(rows: int, cols: int, pitch: tuple[float, float], n_cells
     n = rows * cols
     n_act = len(like.active())
     xy = slot_xy(rows, cols, pitch)
-    cost = _cost(xy, slot_bowl(xy, fields.quadratic_ppm_per_um2), fields.linear_ppm_per_um,
+    cost = _cost(xy, slot_field(rows, cols, pitch, fields), fields.linear_ppm_per_um,
                  n_cells, m, binary_bits)
 
     rng = np.random.default_rng(seed)
@@ -417,8 +417,8 @@ def repair_sequence(layout: UnaryLayout, fields: UnaryFields, max_swaps: int = 4
     owner = _owners(layout)
     n_act = len(layout.active())
     xy = slot_xy(layout.rows, layout.cols, layout.pitch_um)
-    cost = _cost(xy, slot_bowl(xy, fields.quadratic_ppm_per_um2), fields.linear_ppm_per_um,
-                 layout.n_cells, layout.sub_units, len(layout.bits))
+    cost = _cost(xy, slot_field(layout.rows, layout.cols, layout.pitch_um, fields),
+                 fields.linear_ppm_per_um, layout.n_cells, layout.sub_units, len(layout.bits))
 
     before = cur = cost(perm)
     swaps: list[tuple[int, int]] = []

@@ -12,15 +12,16 @@ const ROWS = D.rows, COLS = D.cols, N = D.cells, NB = D.binary_bits, K = D.lsb_u
 const state = { grid: null, history: [], selected: null, focus: 0, loaded: 0, step: 0 };
 
 // ---------------------------------------------------------------- the model
+// slot centres about the core's centre (um); b: the field but the linear gradient (the
+// bowl, and a hot spot when the spec gives one), ppm, as placer computes it
 const XY = (() => {
-  const [px, py] = D.pitch_um, hb = D.quadratic_ppm_per_um2 / (2 * Math.SQRT2);
+  const [px, py] = D.pitch_um;
   const x = new Float64Array(ROWS * COLS), y = new Float64Array(ROWS * COLS);
-  const b = new Float64Array(ROWS * COLS);
+  const b = Float64Array.from(D.field_ppm);
   for (let s = 0; s < ROWS * COLS; s++) {
     const r = Math.floor(s / COLS), c = s % COLS;
     x[s] = (c - (COLS - 1) / 2) * px;
     y[s] = -(r - (ROWS - 1) / 2) * py;
-    b[s] = hb * (x[s] * x[s] + y[s] * y[s]);
   }
   return { x, y, b };
 })();
