@@ -654,7 +654,9 @@ def save_sequence(rep: Any, paths: Sequence[Path]) -> None:
     rows, cols = grid.shape
     fig = _figure(12.0, 5.6)
     fig.set_layout_engine("constrained")
-    ax1, ax2 = fig.subplots(1, 2, width_ratios=[1.0, 1.3])
+    axes = fig.subplot_mosaic([["grid", "inl"], ["grid", "dnl"]], width_ratios=[1.0, 1.3],
+                              height_ratios=[3.0, 1.0])
+    ax1, ax2, ax3 = axes["grid"], axes["inl"], axes["dnl"]
     shade = np.where(grid > 0, grid, np.nan).astype(float)
     px, py = spec.pitch_um
     extent = (-0.5 * px, (cols - 0.5) * px, -(rows - 0.5) * py, 0.5 * py)
@@ -712,9 +714,18 @@ def save_sequence(rep: Any, paths: Sequence[Path]) -> None:
                     float(3 * rep.correlated_sigma_lsb.max()), 1e-12)
     if 3 * rep.random_sigma_lsb.max() > top:
         ax2.set_ylim(-top, 1.6 * top)
-    ax2.set_xlabel("code")
     ax2.set_ylabel("INL (LSB, end points fitted)")
     ax2.legend(fontsize=7, loc="upper left", frameon=False)
     ax2.set_title(f"{rep.method} (model estimates)", fontsize=9)
+    ax2.sharex(ax3)
+    ax2.tick_params(labelbottom=False)
+    ax3.plot(codes[1:], rep.dnl_lsb, color="black", lw=0.8)
+    ax3.axhline(0, color="#888888", lw=0.5)
+    worst = int(np.argmax(np.abs(rep.dnl_lsb)))
+    ax3.plot([worst + 1], [rep.dnl_lsb[worst]], "o", color=PALETTE[4], ms=4,
+             label=f"worst |DNL| {abs(rep.dnl_lsb[worst]):.3g} LSB at step {worst + 1}")
+    ax3.legend(fontsize=7, loc="upper left", frameon=False)
+    ax3.set_xlabel("code")
+    ax3.set_ylabel("DNL (LSB)")
     for path in paths:
         _write_figure(fig, path, 110)
