@@ -14,6 +14,9 @@ from placer.model.unary import worst_inl
 from tests.helpers import spec_file
 from tests.test_unary import _transfer_inl, _values
 
+#: a [unary] table's head with a slot pitch
+U = "[unary]\npitch_um = 10.0\n"
+
 SMALL = """name = "wren_msb"
 [unary]
 cells = 15
@@ -76,22 +79,25 @@ def test_the_same_seed_gives_the_same_order(tmp_path):
 
 @pytest.mark.parametrize("text, grid, message", [
     ('[devices]\nA = 2\n', None, "needs a [unary] table"),
-    ('[unary]\ncells = 20\nrows = 4\ncolumns = 4\n', None, "need 20 slots"),
-    ('[unary]\ncells = 15\ncolums = 4\n', None, "unknown key 'colums'"),
-    ('[unary]\ncells = 4095\nsub_units = 4\n', None, "more than the limit of 4096"),
-    ('[unary]\ncells = 15\nrows = 1000\ncolumns = 1000\n', None, "limit of 16384"),
-    ('[unary]\ncells = 15\n[gradient]\nvt_mv_per_mm = 1.0\n', None, "not used by a unary"),
-    ('[unary]\ncells = 3\nrows = 2\ncolumns = 2\n', "1 2\n2 .\n", "cell 2 is on 2 slots"),
-    ('[unary]\ncells = 3\nrows = 2\ncolumns = 2\n', "1 2\n3 x\n", "no cell number"),
-    ('[unary]\ncells = 3\nrows = 2\ncolumns = 2\n', "1 2 3\n", "the grid is 1 rows"),
-    ('[unary]\ncells = 3\nbinary_bits = 2\nsub_units = 6\n', None,
+    (U + 'cells = 20\nrows = 4\ncolumns = 4\n', None, "need 20 slots"),
+    (U + 'cells = 15\ncolums = 4\n', None, "unknown key 'colums'"),
+    (U + 'cells = 4095\nsub_units = 4\n', None, "more than the limit of 4096"),
+    (U + 'cells = 15\nrows = 1000\ncolumns = 1000\n', None, "limit of 16384"),
+    (U + 'cells = 15\n[gradient]\nvt_mv_per_mm = 1.0\n', None, "not used by a unary"),
+    (U + 'cells = 3\nrows = 2\ncolumns = 2\n', "1 2\n2 .\n", "cell 2 is on 2 slots"),
+    (U + 'cells = 3\nrows = 2\ncolumns = 2\n', "1 2\n3 x\n", "no cell number"),
+    (U + 'cells = 3\nrows = 2\ncolumns = 2\n', "1 2 3\n", "the grid is 1 rows"),
+    (U + 'cells = 3\nbinary_bits = 2\nsub_units = 6\n', None,
      "no multiple of 2^binary_bits = 4"),
-    ('[unary]\ncells = 1\nbinary_bits = 7\n', None, "binary_bits"),
-    ('[unary]\ncells = 64\nbinary_bits = 6\n', None, "and 6 binary bits are 4159 sub-units"),
-    ('[unary]\ncells = 1\nbinary_bits = 1\nrows = 2\ncolumns = 2\n', "1 b0\nb0 1\n",
+    (U + 'cells = 1\nbinary_bits = 7\n', None, "binary_bits"),
+    (U + 'cells = 64\nbinary_bits = 6\n', None, "and 6 binary bits are 4159 sub-units"),
+    (U + 'cells = 1\nbinary_bits = 1\nrows = 2\ncolumns = 2\n', "1 b0\nb0 1\n",
      "binary cell b0 is on 2 slots; it takes 1"),
-    ('[unary]\ncells = 1\nbinary_bits = 1\nrows = 2\ncolumns = 2\n', "1 b1\n. 1\n",
+    (U + 'cells = 1\nbinary_bits = 1\nrows = 2\ncolumns = 2\n', "1 b1\n. 1\n",
      "or . (a dummy)"),
+    ('[unary]\ncells = 15\n', None, "pitch_um is missing"),
+    ('[unary]\npitch_um = 3.0\ncells = 15\n[unit]\nwidth_um = 4.0\nlength_um = 2.0\n', None,
+     "does not fit its slot"),
 ])
 def test_bad_input_is_one_line_and_writes_nothing(tmp_path, text, grid, message):
     spec = spec_file(tmp_path, text)
@@ -167,7 +173,7 @@ def test_repair_of_a_given_order_finds_the_one_exchange_that_broke_it(tmp_path):
 def test_grid_tokens_that_only_look_like_numbers_are_one_line(tmp_path, token):
     """Superscripts, other scripts' digits and huge numbers are no cell numbers (the
     review found the first two ending in a traceback and the third read as 1)."""
-    spec = spec_file(tmp_path, '[unary]\ncells = 3\nrows = 2\ncolumns = 2\n')
+    spec = spec_file(tmp_path, U + 'cells = 3\nrows = 2\ncolumns = 2\n')
     g = tmp_path / "g.txt"
     g.write_text(f"{token} 2\n3 .\n")
     res = _run([str(spec), "--grid", str(g), "--out", str(tmp_path / "o")])
@@ -183,7 +189,7 @@ def test_a_core_wider_than_gdsii_holds_is_refused(tmp_path):
 
 
 def test_a_repair_cut_by_the_time_limit_says_so(tmp_path):
-    spec = spec_file(tmp_path, '[unary]\ncells = 63\nrows = 8\ncolumns = 8\n')
+    spec = spec_file(tmp_path, U + 'cells = 63\nrows = 8\ncolumns = 8\n')
     g = tmp_path / "g.txt"
     g.write_text("\n".join(" ".join(str(r * 8 + c + 1) if r * 8 + c < 63 else "."
                                     for c in range(8)) for r in range(8)) + "\n")
@@ -295,6 +301,9 @@ def test_an_order_read_from_gdsii_grades_as_its_grid(tmp_path):
     ("label", "label 'MN3' at"),
     ("count", "cell 1 is on 3 slots"),
     ("size", "the units span 3 x 4 slots; the spec's core is 4 x 4"),
+    ("layer", "15 units carry no S<n> or B<j> label on the label layer 10/0"),
+    ("truncated", "hand.gds: not a readable GDSII stream"),
+    ("empty", "hand.gds: not a readable GDSII stream"),
 ])
 def test_a_bad_gdsii_order_is_one_line(tmp_path, kind, message):
     grid = [[1, -2, 2, 3], [3, -1, 1, 2], [2, 3, -2, 1], [0, 1, 3, 2]]
@@ -308,13 +317,28 @@ def test_a_bad_gdsii_order_is_one_line(tmp_path, kind, message):
         grid[3][1] = 0
     elif kind == "size":
         grid = grid[:3]
+    elif kind == "layer":                      # labels on a layer the layer map does not name
+        labels = {(r, c): "" for r in range(4) for c in range(4)}
     spec = spec_file(tmp_path, SEGMENTED)
     _hand_gds(tmp_path / "hand.gds", grid, pitch=pitch, labels=labels)
+    data = (tmp_path / "hand.gds").read_bytes()
+    if kind == "truncated":                    # named .gds: never read as a text grid
+        (tmp_path / "hand.gds").write_bytes(data[:3])
+    elif kind == "empty":
+        (tmp_path / "hand.gds").write_bytes(b"")
     res = _run([str(spec), "--grid", str(tmp_path / "hand.gds"), "--out", str(tmp_path / "o")])
     assert res.exit_code == 1, res.output
     assert message in res.output and "Traceback" not in res.output
     assert len(res.output.strip().splitlines()) == 1
     assert not (tmp_path / "o").exists() or not any((tmp_path / "o").iterdir())
+
+
+def test_arrange_of_a_unary_spec_points_to_sequence(tmp_path):
+    res = CliRunner().invoke(cli, ["arrange", str(spec_file(tmp_path, SMALL)), "--out",
+                                   str(tmp_path / "o")])
+    assert res.exit_code == 1
+    assert "unary array spec: run placer sequence" in res.output
+    assert not (tmp_path / "o").exists()
 
 
 def test_the_lesson_page_of_a_unary_spec_holds_the_orders_and_opens_on_a_given_one(tmp_path):
@@ -341,7 +365,7 @@ def test_the_lesson_page_of_a_unary_spec_holds_the_orders_and_opens_on_a_given_o
     assert data["arrangements"][0]["grid"] == read_sequence_grid(given, s).grid().tolist()
     assert data["arrangements"][1]["grid"] == row_by_row(4, 4, s.pitch_um, 3, 4, 2).grid().tolist()
     assert (data["binary_bits"], data["lsb_units"], data["cells"]) == (2, 1, 3)
-    big = spec_file(tmp_path, '[unary]\ncells = 4095\nrows = 65\ncolumns = 65\n', "big.toml")
+    big = spec_file(tmp_path, U + 'cells = 4095\nrows = 65\ncolumns = 65\n', "big.toml")
     res = CliRunner().invoke(cli, ["lesson", str(big), "--out", str(tmp_path / "q")])
     assert res.exit_code == 1 and "handles at most 4096" in res.output
     assert len(res.output.strip().splitlines()) == 1

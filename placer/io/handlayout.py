@@ -201,8 +201,10 @@ def top_cell(lib: StreamLibrary, cell: str | None, source: str) -> str:
 
 def gds_units(lib: StreamLibrary, source: str, *, cell: str | None,
               mapping: dict[str, str], label_layer: tuple[int, int],
-              dummy_cells: set[str], mos: bool, notes: list[str]) -> list[Unit]:
-    """Units of a GDSII library, below its top cell.
+              dummy_cells: set[str], mos: bool, notes: list[str],
+              unlabelled: str = "have no label and no --map CELL=DEVICE") -> list[Unit]:
+    """Units of a GDSII library, below its top cell (``unlabelled`` says what units
+    without a device lack, in the error that lists them).
 
     Going down the hierarchy, a placed cell is a unit when one device label lies on it,
     when ``mapping`` or ``dummy_cells`` names it (or its name contains DUMMY), or when it
@@ -314,7 +316,7 @@ def gds_units(lib: StreamLibrary, source: str, *, cell: str | None,
     for (layer, dtype), k in sorted(skipped_texts.items()):
         notes.append(f"skipped {k} labels on layer {layer}/{dtype} (labels are read on "
                      f"{label_layer[0]}/{label_layer[1]})")
-    return _label_units(placed, texts, mapping, dummy_cells, mos, source, notes)
+    return _label_units(placed, texts, mapping, dummy_cells, mos, source, notes, unlabelled)
 
 
 def _check_work(cells: dict[str, Structure], top: str, has_label: Callable[[str], bool],
@@ -407,7 +409,7 @@ def apply_transform(x: float, y: float, tx: float, ty: float, refl: bool, ang: f
 def _label_units(placed: list[tuple[str, float, float, bool, float]],
                  texts: list[tuple[str, float, float]], mapping: dict[str, str],
                  dummy_cells: set[str], mos: bool, source: str,
-                 notes: list[str]) -> list[Unit]:
+                 notes: list[str], unlabelled: str) -> list[Unit]:
     if not placed:
         raise LayoutError(f"{source}: no unit references found")
     from scipy.spatial import cKDTree
@@ -466,8 +468,8 @@ def _label_units(placed: list[tuple[str, float, float, bool, float]],
         raise LayoutError(f"{source}: {len(doubles)} units carry two labels: "
                           + "; ".join(doubles[:5]))
     if unknown:
-        raise LayoutError(f"{source}: {len(unknown)} units have no label and no --map "
-                          f"CELL=DEVICE: " + "; ".join(unknown[:5]))
+        raise LayoutError(f"{source}: {len(unknown)} unit{'s' if len(unknown) != 1 else ''} "
+                          f"{unlabelled}: " + "; ".join(unknown[:5]))
     if turned:
         notes.append(f"{len(turned)} MOS fingers are turned by 90 or 270 degrees (placer's "
                      "patterns hold fingers along x): their orientation is not recorded, e.g. "

@@ -457,6 +457,9 @@ class _Reader:
         if allowed is not None:
             for key in data:
                 if key not in allowed:
+                    if table == "" and key == "unary":
+                        raise SpecError(f"{self.where} a [unary] table makes this a unary "
+                                        "array spec: run placer sequence on it")
                     near = difflib.get_close_matches(key, allowed, n=1)
                     hint = f" (did you mean {shown(near[0])}?)" if near else \
                         f" (allowed: {', '.join(allowed)})"

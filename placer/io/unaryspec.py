@@ -259,6 +259,10 @@ def read_unary_spec(path: str | Path) -> UnarySpec:
         what = f" and {b} binary bits" if b else ""
         raise SpecError(f"{src}: [unary] {cells} cells of {m} sub-units{what} need {need} "
                         f"slots; {rows} x {cols} holds {rows * cols} (give more rows or columns)")
+    if "pitch_um" not in un.data:
+        raise SpecError(f"{src}: [unary] pitch_um is missing: give the slots' pitch [x, y] in "
+                        "um (a cell's size plus its spacing; the gradient's INL scales with "
+                        "it)")
     name = data.get("name", _safe_default_name(path.stem))
     if not isinstance(name, str):
         raise SpecError(f"{src}: name must be a string")
@@ -290,6 +294,11 @@ def read_unary_spec(path: str | Path) -> UnarySpec:
     ut = _Reader(src, "unit", data.get("unit", {}))
     w = ut.number("width_um", 1.0)
     h = ut.number("length_um", 1.0)
+    assert w is not None and h is not None
+    if w > px + 1e-9 or h > py + 1e-9:
+        raise SpecError(f"{src}: [unit] a sub-unit of {w:g} x {h:g} um does not fit its slot "
+                        f"at pitch_um = [{px:g}, {py:g}] (one sub-unit a slot: make the pitch "
+                        "at least the unit's size)")
     sig = co.number("sigma_ppm", 100.0, allow_zero=True)
     length = co.number("length_um", 10.0)
     a = mi.number("a_param_pct_um", 1.0, allow_zero=True)
@@ -369,16 +378,23 @@ def read_sequence_layout(path: str | Path, spec: UnarySpec, *,
     from placer.io.handlayout import MAX_LAYOUT_BYTES, SNAP_TOLERANCE, gds_units, lattice
 
     src = str(path)
+    # a GDSII stream by its content, or by its name (so that a damaged one is reported as
+    # a damaged layout, not read as a grid)
+    named = Path(path).suffix.lower() in (".gds", ".gds2", ".gdsii", ".strm")
     with mapped(Path(path), MAX_LAYOUT_BYTES, "layout", LayoutError) as view:
-        if not is_gdsii(bytes(view[:4])):
+        if not (named or is_gdsii(bytes(view[:4]))):
             lib = None
         else:
             lib = parse_stream(view, src)
     if lib is None:
         return read_sequence_grid(path, spec)
     found: list[str] = [] if notes is None else notes
+    layer = f"{label_layer[0]}/{label_layer[1]}"
     units = gds_units(lib, src, cell=cell, mapping={}, label_layer=label_layer,
-                      dummy_cells=set(), mos=False, notes=found)
+                      dummy_cells=set(), mos=False, notes=found,
+                      unlabelled=(f"carry no S<n> or B<j> label on the label layer {layer} "
+                                  "and no DUMMY in their cell name (--layers gives another "
+                                  "label layer)"))
     scale = lib.user_in_m / 1e-6
     xy = np.array([(u.x, u.y) for u in units]) * scale
     (px, gx), (py, gy) = lattice(xy[:, 0]), lattice(xy[:, 1])

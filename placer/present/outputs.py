@@ -320,7 +320,8 @@ def write_sequence(out: OutputSet, rep: Any, layers: Any = None) -> None:
         "(1 switches on first), " + ("b<j> binary bit j, " if rep.layout.bits else "")
         + ". a dummy",
         f"worst |INL| {rep.worst_inl_lsb:.6g} LSB (linear gradient in its worst direction "
-        "plus the bowl)"]))
+        "plus the bowl" + (" and the hot spot" if rep.spec.fields.hot_spot is not None else "")
+        + ")"]))
     out.write("report.json", json_text(rep.to_dict()) + "\n")
     save_sequence(rep, [out.path("sequence.png")])
     from placer.layout.gdswrite import build_sequence_library
