@@ -73,7 +73,10 @@ def _probes(pattern: Pattern, spec) -> list[tuple[str, str, float, float]]:
         elif spec.kind == "cap":
             nets = ({"top": spec.dummy_net, "bottom": spec.dummy_net} if d == DUMMY
                     else spec.nets[d])
-            out += [(nets["top"], "metal2", x, y),
+            # the top plate a quarter of its width and length off the centre: a strap may
+            # cross the middle of a row (through a corridor cut in each dummy's plate), and
+            # the notches for the bottom plate's vias may sit in the middle of its edges
+            out += [(nets["top"], "metal2", x - w / 4, y - length / 4),
                     (nets["bottom"], "metal1", x - w / 2 - 0.05, y)]
         else:
             if d == DUMMY:

@@ -409,49 +409,83 @@ def _mos(w: float, length: float, pitch_x: float | None, r: Rules) -> UnitCell:
 
 
 def _cap(w: float, length: float, pitch_x: float | None, r: Rules) -> UnitCell:
-    """Top plate (metal2) over a larger bottom plate (metal1). Two opposite corners of the
-    top plate are notched, and in each notch a via1 may lift the bottom plate to a stub:
-    down from the lower right, up from the upper left. The top plate is drawn tall enough
-    that, less its notches, its area is at least W x L. Where the plate is tall enough, a
-    metal2 strap across the row at ``strap_y`` joins neighbouring top plates (and passes
-    through a corridor cut across each dummy's top plate); otherwise the top plate leaves
-    by a stub of its own."""
+    """Top plate (metal2) over a larger bottom plate (metal1). The top plate is notched in
+    its lower and upper edge, and in each notch a via1 may lift the bottom plate to a
+    stub: down from the lower notch, up from the upper one. The two vias stand one stub
+    pitch apart about the centre (so stubs from the rows above and below a channel never
+    need an order of tracks), and each notch is wide enough to hold the other's x too:
+    a stub that crosses a channel to a track next to the row beyond ends over that row's
+    notch, never over its top plate. So every unit's stub faces the metal of its own top
+    plate only, the same for every unit and every track, and the top plate couples to
+    each bit in proportion to its units. A plate too narrow for that has its notches in
+    two opposite corners instead. The top plate is drawn tall enough that, less its
+    notches, its area is at least W x L. Where the plate is tall enough, a metal2 strap
+    across the row at ``strap_y`` joins neighbouring top plates (and passes through a
+    corridor cut across each dummy's top plate); otherwise the top plate leaves by a stub
+    of its own."""
     pm, sw, land2, m2s = r.plate_margin, r.stub_width, r.land2, r.metal2_space
-    notch = _up(land2 + m2s)
+    notch = _up(land2 + m2s)                 # the notch's depth (and a corner notch's width)
     if w < 2 * notch + m2s:
         raise _too_small("width W", w, 2 * notch + m2s, r)
     if length < 2 * notch:
         raise _too_small("length L", length, 2 * notch, r)
-    tall = _up(length + 2 * notch * notch / w)          # area of W x L despite the notches
+    # centred notches: the vias one stub pitch apart; a notch holds its own via's landing
+    # with a metal2 space round it and reaches past the other via's x by a stub's half
+    # width; the plate beside a notch keeps a metal2 width, and every stub stays more
+    # than three spaces from the next plate
+    apart = _up(sw + m2s)
+    near = snap(apart / 2 + sw / 2 + DB_UNIT_UM)        # the notch's edge past the other x
+    far = _up(apart / 2 + land2 / 2 + m2s)              # and on its own via's side
+    centred = (w / 2 >= far + r.metal2_width + DB_UNIT_UM
+               and w / 2 > apart / 2 + sw / 2 + 2 * m2s + DB_UNIT_UM)
+    nw = near + far if centred else notch
+    tall = _up(length + 2 * nw * notch / w)          # area of W x L despite the notches
     hx, hy = snap(w / 2), snap(tall / 2)
-    ex, ey = snap(hx - land2 / 2), snap(hy - land2 / 2)   # via centres in the notches
+    ey = snap(hy - land2 / 2)                         # via centres' height in the notches
+    ex = snap(apart / 2) if centred else snap(hx - land2 / 2)
     mid = Rect("metal2", -hx, snap(-hy + notch), hx, snap(hy - notch))
-    plate = (mid,
-             Rect("metal2", -hx, -hy, snap(hx - notch), snap(-hy + notch)),
-             Rect("metal2", snap(-hx + notch), snap(hy - notch), hx, hy))
+    lower: tuple[Rect, ...]
+    upper: tuple[Rect, ...]
+    if centred:
+        n0, n1 = -near, far                           # the lower notch's x range
+        lower = (Rect("metal2", -hx, -hy, n0, snap(-hy + notch)),
+                 Rect("metal2", n1, -hy, hx, snap(-hy + notch)))
+        upper = (Rect("metal2", -hx, snap(hy - notch), -n1, hy),
+                 Rect("metal2", -n0, snap(hy - notch), hx, hy))
+    else:
+        lower = (Rect("metal2", -hx, -hy, snap(hx - notch), snap(-hy + notch)),)
+        upper = (Rect("metal2", snap(-hx + notch), snap(hy - notch), hx, hy),)
+    plate = (mid, *lower, *upper)
     bottom = Rect("metal1", snap(-hx - pm), snap(-hy - pm), snap(hx + pm), snap(hy + pm))
     shapes = (bottom, *plate)
-    terminals = (Terminal("top", mid, (Exit("down", -ex, -hy, False),
-                                       Exit("up", ex, hy, False)), plate),
+    tx = snap(hx - land2 / 2)                         # the top plate's own exits: corners
+    terminals = (Terminal("top", mid, (Exit("down", -tx, -hy, False),
+                                       Exit("up", tx, hy, False)), plate),
                  Terminal("bottom", bottom, (Exit("down", ex, -ey, True),
                                              Exit("up", -ex, ey, True))))
     min_px = _up(max(w + 2 * pm + r.metal1_space, w + m2s, w - land2 + sw + m2s))
-    # the strap: clear of both notch vias, its corridor in a dummy clear of the centre
+    # the strap: across the plate's middle, clear of both notches, so that the stubs of
+    # the upper and the lower notch stand equally far from it (its corridor in a dummy
+    # the same)
     half = sw / 2 + m2s
-    lo, hi = half + DB_UNIT_UM * 50, hy - max(land2, notch) - half
-    strap = snap((lo + hi) / 2) if hi - lo >= 0 else None
+    strap = 0.0 if hy - max(land2, notch) - half >= 0 else None
     if strap is not None:
         cut0, cut1 = snap(strap - half), snap(strap + half)
         pieces: tuple[Rect, ...] = (Rect("metal2", -hx, snap(-hy + notch), hx, cut0),
-                  Rect("metal2", -hx, -hy, snap(hx - notch), snap(-hy + notch)),
-                  Rect("metal2", -hx, cut1, hx, snap(hy - notch)),
-                  Rect("metal2", snap(-hx + notch), snap(hy - notch), hx, hy))
+                                    *lower,
+                                    Rect("metal2", -hx, cut1, hx, snap(hy - notch)),
+                                    *upper)
         pieces = tuple(p for p in pieces if p.x1 > p.x0 and p.y1 > p.y0)
-        tie_lo, tie_hi = snap((-hy + notch + cut0) / 2), snap((cut1 + hy - notch) / 2)
+        # a dummy's top plate tied to its bottom plate by a via in each half: in the
+        # middle piece, or where that is too thin, in the edge's band beside its notch
+        side = snap((hx + near) / 2) if centred else snap(hx / 2)
+        lo_xy = (0.0, snap((-hy + notch + cut0) / 2))
+        hi_xy = (snap(hx / 2), snap((cut1 + hy - notch) / 2))
         if hy - notch - cut1 < land2:
-            tie_hi = snap((cut1 + hy) / 2)
-        dummy: tuple[Rect, ...] = (bottom, *pieces, _square("via1", 0.0, tie_lo, r.via1),
-                                   _square("via1", snap(hx / 2), tie_hi, r.via1))
+            lo_xy = (-side if centred else 0.0, snap((-hy + cut0) / 2))
+            hi_xy = (side, snap((cut1 + hy) / 2))
+        dummy: tuple[Rect, ...] = (bottom, *pieces, _square("via1", *lo_xy, r.via1),
+                                   _square("via1", *hi_xy, r.via1))
         spine: tuple[float, float | None, str] | None = (snap(hx / 2), None, "metal2")
     else:
         dummy = (bottom, *plate, _square("via1", 0.0, 0.0, r.via1))

@@ -49,6 +49,7 @@ from placer.errors import RouteError
 from placer.io.pattern import DUMMY, EMPTY, Pattern
 from placer.kinds import KINDS, series_node
 from placer.layout.cells import (
+    DB_UNIT_UM,
     Exit,
     Rect,
     Rules,
@@ -61,6 +62,7 @@ from placer.layout.cells import (
     snap,
     unit_cell,
 )
+from placer.layout.parasitics import REACH
 
 if TYPE_CHECKING:
     from placer.io.spec import Spec
@@ -777,6 +779,19 @@ def _left_edge(plist: list[_Piece], before: dict[_Piece, dict[_Piece, int]], gap
         k += 1
 
 
+def _dummy_spot(cell: UnitCell, pad: Rect) -> Rect:
+    """Where a dummy's label for ``pad``'s role sits: the pad, when the dummy's own metal
+    covers its centre, else the dummy's largest shape on that role (a dummy's top plate
+    is cut by the corridor a strap passes through)."""
+    shapes = [s for s in (cell.dummy_shapes or ()) if s.role == pad.role]
+    if not shapes:
+        return pad
+    x, y = pad.centre
+    if any(s.x0 < x < s.x1 and s.y0 < y < s.y1 for s in shapes):
+        return pad
+    return max(shapes, key=lambda s: (s.x1 - s.x0) * (s.y1 - s.y0))
+
+
 def plan_tracks(pattern: Pattern, spec: Spec, rules: Rules | None = None,
                 cell: UnitCell | None = None, user: bool = False) -> int:
     """Tracks of the fullest channel between rows when ``pattern`` is routed (this does
@@ -862,6 +877,15 @@ def route(pattern: Pattern, spec: Spec, rules: Rules | None = None,
     pitch2 = ch.stub_pitch
     first_left = snap(x_lo_arr - r_.metal2_space - sw / 2)
     first_right = snap(x_hi_arr + r_.metal2_space + sw / 2)
+    if plan.kind_mode == "strap" and bool(np.any(pattern.ids[:, cols - 1] >= 0)):
+        # units' top plates in the last column: the bottom plates' trunks stand beyond the
+        # coupling reach of their metal2 and of the straps' ends, so that no bit's trunk
+        # faces the top plate
+        plate_x1 = max(s_.x1 for s_ in cell.shapes if s_.role == "metal2")
+        strap_ends = [x1 for _, x1 in plan.strap_rows.values()]
+        clear = (max([(cols - 1) * px + plate_x1, *strap_ends])
+                 + REACH * r_.metal2_space + DB_UNIT_UM)
+        first_right = max(first_right, _up(clear + sw / 2))
     trunk_x = {("left", n): snap(first_left - i * pitch2) for i, n in enumerate(left_nets)}
     trunk_x.update({("right", n): snap(first_right + i * pitch2)
                     for i, n in enumerate(right_nets)})
@@ -1035,7 +1059,8 @@ def route(pattern: Pattern, spec: Spec, rules: Rules | None = None,
             r, c = tap.slot
             flip = False
             for term in cell.terminals:
-                cx, cy = term.pad.moved(c * px, -r * py, flip).centre
+                spot = _dummy_spot(cell, term.pad).moved(c * px, -r * py, flip)
+                cx, cy = spot.centre
                 w.labels.append(Label(tap.net, term.pad.role, snap(cx), snap(cy)))
         else:
             pad = tap.pads[0]
