@@ -1,8 +1,9 @@
 """Extraction check of placer's routed layouts: the README's table and a routed-row picture.
 
 Every sample is arranged and its GDSII checked; then ``--cases`` random patterns per kind
-(1-8 devices, 1-12 rows, dummies none/ends/ring, both finger orientations, random shared
-nets, empty slots, computed and larger non-square pitches) are written and checked by
+(1-8 devices, 1-12 rows, dummies none/ends/ring, capacitor rings of strips, both finger
+orientations, random shared nets, empty slots, computed and larger non-square pitches)
+are written and checked by
 ``tests/extraction.py``, which reads only the GDSII and the layer map.
 
 Run:  python docs/wiring_check.py [--cases 1000] [--seed 0] [--update-readme]
@@ -65,16 +66,22 @@ def random_case(kind: str, rng: np.random.Generator) -> tuple[object, Pattern]:
     names = [f"D{i}" for i in range(n_dev)]
     w = float(rng.choice(SIZES[kind][0]))
     length = float(rng.choice(SIZES[kind][1]))
+    # a third of the capacitor rings: one shared top plate, the ring drawn as strips
+    strips = kind == "cap" and dummies == "ring" and length >= 3.0 and rng.random() < 1 / 3
     lines = []
     for name in names:
         nets = {t: str(rng.choice(NETS)) for t in TERMS[kind]}
+        if strips:
+            nets = {"top": "N5", "bottom": str(rng.choice(NETS[:5]))}
         if kind == "res":
             nets["join"] = str(rng.choice(["series", "parallel"]))
         lines.append(f"{name} = {{ " + ", ".join(f'{k} = "{v}"' for k, v in nets.items())
                      + " }")
     text = (f'kind = "{kind}"\n[devices]\n'
             + "".join(f"{n} = {c}\n" for n, c in zip(names, counts, strict=True))
-            + f'[array]\ndummies = "{dummies}"\ndummy_net = "{rng.choice([*NETS, "TIE"])}"\n'
+            + f'[array]\ndummies = "{dummies}"\ndummy_net = '
+            + f'"{rng.choice([*NETS[:5], "TIE"] if strips else [*NETS, "TIE"])}"\n'
+            + (f"ring_depth_um = {rng.choice([0.75, 1.0, 2.0])}\n" if strips else "")
             + f"[unit]\nwidth_um = {w}\nlength_um = {length}\n[terminals]\n"
             + "\n".join(lines) + "\n")
     spec = parse_spec(text, "random.toml")

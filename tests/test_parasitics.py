@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import math
 from collections import defaultdict
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
@@ -163,19 +164,34 @@ def test_sar_cdac_top_plate_couples_to_every_bit_alike_per_unit(tmp_path):
     block, measured = _arranged(tmp_path, "sar_cdac")
     counts = dict(zip(block.spec.devices, block.spec.counts, strict=True))
     _top_coupling_is_even(_per_unit_top_coupling(measured, counts), 0.05)
+    # in its ring of 1 um dummy strips the 6-bit sample's plates fill at least 45 % of
+    # the block (common practice: roughly half for a routed capacitor DAC); the same
+    # array in a ring of whole dummy cells cannot, its 36 dummy slots being most of it
+    assert block.spec.array.ring_depth_um == 1.0
+    area = area_of(block)
+    w, h = block.wiring.size_um
+    assert area.unit_fraction == pytest.approx(64 * 25.0 / (w * h))
+    assert area.unit_fraction >= 0.45, area
+    whole = replace(block.spec, array=replace(block.spec.array, ring_depth_um=None))
+    _, full = layout_of(block.pattern, whole)
+    assert w * h < 0.8 * full.wiring.size_um[0] * full.wiring.size_um[1]
 
 
-@pytest.mark.parametrize("seed, ring", [(3, True), (4, True), (5, False), (6, False)])
+@pytest.mark.parametrize("seed, ring", [(3, "strips"), (4, "whole"), (5, "none"),
+                                        (6, "none")])
 def test_any_order_of_the_sar_cdac_couples_every_bit_alike(tmp_path, seed, ring):
-    """Whatever the order (here seeded random ones, in the sample's ring of dummies or with
-    none), the one-unit bits included, whose stubs may land on any track of a channel:
-    the checker finds the same coupling per unit for every bit, since each stub faces its
-    own top plate only, a stub crossing a channel ends over the far row's notch, and the
-    bottom plates' trunks stand beyond the reach of the last column's top plates."""
+    """Whatever the order (here seeded random ones, in the sample's ring of dummy strips,
+    in a ring of whole dummy cells or with none), the one-unit bits included, whose stubs
+    may land on any track of a channel: the checker finds the same coupling per unit for
+    every bit, since each stub faces its own top plate only, a stub crossing a channel
+    ends over the far row's notch, and the bottom plates' trunks stand beyond the reach
+    of the last column's top plates."""
     spec = load_spec(Path("samples/sar_cdac.toml"))
+    if ring != "strips":
+        spec = replace(spec, array=replace(spec.array, ring_depth_um=None))
     units = np.repeat(np.arange(len(spec.devices)), spec.counts)
     np.random.default_rng(seed).shuffle(units)
-    if ring:
+    if ring != "none":
         ids = np.full((10, 10), -1)
         ids[1:9, 1:9] = units.reshape(8, 8)
     else:

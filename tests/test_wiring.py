@@ -48,15 +48,16 @@ def _snake(ids: np.ndarray) -> list[tuple[int, int]]:
     return out
 
 
-def _probes(pattern: Pattern, spec) -> list[tuple[str, str, float, float]]:
-    """(net, role, x, y) the spec demands at device regions, from geometry alone."""
+def _probes(pattern: Pattern, spec, dummies: bool = True) -> list[tuple[str, str, float, float]]:
+    """(net, role, x, y) the spec demands at device regions, from geometry alone (at the
+    dummies' too, unless ``dummies`` is False: a ring of strips draws only part of them)."""
     px, py = spec.array.pitch_um
     w, length = spec.unit.width_um, spec.unit.length_um
     out = []
     seen = [0] * len(spec.devices)
     for r, c in _snake(pattern.ids):
         d = int(pattern.ids[r, c])
-        if d == EMPTY:
+        if d == EMPTY or (d == DUMMY and not dummies):
             continue
         x, y = c * px, -r * py
         if spec.kind == "mos":
@@ -94,12 +95,13 @@ def _probes(pattern: Pattern, spec) -> list[tuple[str, str, float, float]]:
 
 
 def _write_and_check(tmp_path: Path, pattern: Pattern, spec, name: str = "t",
-                     probes: bool = True) -> extraction.Report:
+                     probes: bool = True, dummy_probes: bool = True) -> extraction.Report:
     lib, block = layout_of(pattern.reordered(spec.devices), spec)
     if probes:
         layers = load_layers()
         top = lib.top_level()[0]
-        for net, role, x, y in _probes(pattern.reordered(spec.devices), block.spec):
+        for net, role, x, y in _probes(pattern.reordered(spec.devices), block.spec,
+                                       dummy_probes):
             layer, dtype = layers[role]
             top.add(gdstk.Label(net, (round(x, 3), round(y, 3)), layer=layer, texttype=dtype))
     path = tmp_path / f"{name}.gds"
@@ -292,6 +294,66 @@ def test_generated_patterns_route_without_shorts_opens_strays_or_spacing(tmp_pat
 
     run()
     assert len(seen) >= CASES_PER_KIND
+
+
+def test_rings_of_dummy_strips_route_clean(tmp_path):
+    """Capacitor arrays sharing one top plate in a ring of dummy strips (``ring_depth_um``
+    from the least the template allows to more than half a cell), random bottom-plate
+    nets, rails, plate sizes and pitches: every layout extracts with no short, open, stray
+    label or spacing below the rules, the probes on every unit's plates included."""
+    rng = np.random.default_rng(11)
+    routed = 0
+    for case in range(40):
+        n_dev = int(rng.integers(1, 6))
+        counts = [int(c) for c in rng.integers(1, 6, n_dev)]
+        total = sum(counts)
+        rows = int(rng.integers(1, min(6, total) + 1))
+        cols = -(-total // rows) + int(rng.integers(0, 2))
+        seq = [d for d, n in enumerate(counts) for _ in range(n)]
+        seq += [int(rng.choice([DUMMY, EMPTY])) for _ in range(rows * cols - total)]
+        ids = np.pad(np.array(seq)[rng.permutation(rows * cols)].reshape(rows, cols), 1,
+                     constant_values=DUMMY)
+        names = [f"D{i}" for i in range(n_dev)]
+        bottoms = [str(rng.choice(["N0", "N1", "N2", "N3"])) for _ in names]
+        text = ('kind = "cap"\n[devices]\n'
+                + "".join(f"{n} = {c}\n" for n, c in zip(names, counts, strict=True))
+                + f'[array]\ndummies = "ring"\ndummy_net = "{rng.choice(["N4", "TIE"])}"\n'
+                + f"ring_depth_um = {rng.choice([0.75, 1.0, 1.7, 3.0])}\n"
+                + f"[unit]\nwidth_um = {rng.choice([2.5, 5.0])}\n"
+                + f"length_um = {rng.choice([3.0, 6.0])}\n[terminals]\n"
+                + "".join(f'{n} = {{ top = "TOP", bottom = "{b}" }}\n'
+                          for n, b in zip(names, bottoms, strict=True)))
+        spec = parse_spec(text, f"strips{case}.toml")
+        pattern = Pattern(tuple(names), ids, np.where(ids >= 0, 1, 0).astype(np.int8))
+        _assert_clean(_write_and_check(tmp_path, pattern, spec, name=f"strips{case}",
+                                       dummy_probes=False))
+        routed += 1
+    assert routed == 40
+
+
+@pytest.mark.parametrize("change, message", [
+    ("length_um = 1.3", "its plates are too short for a top-plate strap"),
+    ("ring_depth_um = 0.5", "ring_depth_um = 0.5 um is too small"),
+    ('dummies = "none"', 'it needs kind = "cap" and dummies = "ring"'),
+])
+def test_a_ring_of_strips_that_cannot_be_drawn_is_refused_in_one_line(tmp_path, change,
+                                                                     message):
+    from click.testing import CliRunner
+
+    from placer.cli import cli
+
+    text = Path("samples/sar_cdac.toml").read_text()
+    key = change.split(" = ")[0]
+    text = "\n".join(change if ln.split(" = ")[0].strip() == key else ln
+                     for ln in text.splitlines()) + "\n"
+    path = tmp_path / "s.toml"
+    path.write_text(text)
+    res = CliRunner().invoke(cli, ["arrange", str(path), "--out", str(tmp_path / "o"),
+                                   "--time-limit", "1"])
+    assert res.exit_code == 1, res.output
+    assert message in res.output and "Traceback" not in res.output
+    assert len(res.output.strip().splitlines()) == 1
+    assert not (tmp_path / "o").exists()
 
 
 # ---------------------------------------------------------------- the user's own unit cell

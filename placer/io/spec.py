@@ -81,6 +81,9 @@ class ArraySpec:
     aspect: float = 1.0
     pitch_given: bool = True
     holes: bool = True
+    # a capacitor array's ring of dummies drawn as strips this deep (um, from the side
+    # that faces the array) instead of whole unit cells; None: whole cells
+    ring_depth_um: float | None = None
 
 
 #: Symmetry a result must obey: none; mirror about a vertical axis (x: left-right), about
@@ -370,7 +373,7 @@ _SCHEMA: dict[str, tuple[str, ...]] = {
          "monte_carlo", "search", "electrical", "terminals", "routing", "pins", "groups",
          "match"),
     "array": ("rows", "columns", "dummies", "pitch_um", "aspect", "dummy_net", "holes", "mask",
-              "keep_out", "symmetry"),
+              "keep_out", "symmetry", "ring_depth_um"),
     "match": ("pairs", "nets"),
     "unit": ("width_um", "length_um"),
     "gradient": ("linear_ppm_per_um", "linear_pct_per_mm", "quadratic_ppm_per_um2", "order",
@@ -395,6 +398,7 @@ _SCHEMA: dict[str, tuple[str, ...]] = {
 # outside is refused with its key and this range.
 _RANGES: dict[tuple[str, str], tuple[float, float, str]] = {
     ("array", "aspect"): (0.01, 100.0, ""),
+    ("array", "ring_depth_um"): (0.001, 10_000.0, " um"),
     ("unit", "width_um"): (0.001, 10_000.0, " um"),
     ("unit", "length_um"): (0.001, 10_000.0, " um"),
     ("correlated", "sigma_ppm"): (0.0, 1e6, " ppm"),
@@ -641,7 +645,12 @@ def read_spec_text(text: str, source: str = "<spec>", default_name: str = "place
         raise SpecError(f"{source}: [array] {rows} x {columns} slots leave "
                         f"{rows * columns - sum(counts)} spare, but holes = false; give a "
                         "shape the units fill exactly")
-    array = ArraySpec(rows, columns, dummies, pitch, aspect, pitch_given, holes)
+    ring_depth = arr.number("ring_depth_um", None)
+    if ring_depth is not None and (dummies != "ring" or KIND_RECORDS[kind].cell != "plate"):
+        plated = [k for k, r in KIND_RECORDS.items() if r.cell == "plate"]
+        raise arr.fail("ring_depth_um", "draws a capacitor array's ring of dummies as strips: "
+                       f'it needs kind = "{plated[0]}" and dummies = "ring"')
+    array = ArraySpec(rows, columns, dummies, pitch, aspect, pitch_given, holes, ring_depth)
 
     un = _Reader(source, "unit", data.get("unit", {}))
     dw, dl = KIND_RECORDS[kind].unit_um

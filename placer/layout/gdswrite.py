@@ -97,8 +97,25 @@ def build_library(pattern: Pattern, spec: Spec, cell: UnitCell, wiring: Wiring,
         unit = lib.new_cell(cell_name(spec.name, cell.kind.upper(), taken))
         for s in cell.shapes:
             _add_rect(unit, s, layers)
+    # a ring of strips: one cell per side and corner of the ring
+    from placer.layout.cells import load_rules
+    from placer.layout.ring import ring_strips
+
+    strips = {} if user_cell is not None else ring_strips(
+        pattern, spec, cell, rules if rules is not None else load_rules(spec.kind))
+    strip_cells: dict[str, Any] = {}
+    for st in strips.values():
+        if st.side not in strip_cells:
+            sc = lib.new_cell(cell_name(spec.name, "DUMMY_" + st.side.upper().replace("-", "_"),
+                                        taken))
+            for sh in st.shapes:
+                _add_rect(sc, sh, layers)
+            _add_rect(sc, st.keep, layers)
+            strip_cells[st.side] = sc
     dummy = None
-    if np.any(pattern.ids == DUMMY):
+    whole = [(r, c) for r, c in zip(*np.nonzero(pattern.ids == DUMMY), strict=True)
+             if (int(r), int(c)) not in strips]
+    if whole:
         dummy = lib.new_cell(cell_name(spec.name, "DUMMY", taken))
         if user_cell is not None:
             dummy.add(gdstk.Reference(unit, (0, 0)))
@@ -119,6 +136,8 @@ def build_library(pattern: Pattern, spec: Spec, cell: UnitCell, wiring: Wiring,
             x, y = snap(c * px), snap(-r * py)
             mirrored = KINDS[spec.kind].fingers and int(pattern.orient[r, c]) < 0
             target = unit if d != DUMMY or dummy is None else dummy
+            if (r, c) in strips:
+                target = strip_cells[strips[r, c].side]
             top.add(gdstk.Reference(target, (x, y), rotation=np.pi if mirrored else 0.0,
                                     x_reflection=mirrored))
             if d >= 0:

@@ -63,6 +63,7 @@ from placer.layout.cells import (
     unit_cell,
 )
 from placer.layout.parasitics import REACH
+from placer.layout.ring import Strip, ring_strips
 
 if TYPE_CHECKING:
     from placer.io.spec import Spec
@@ -277,6 +278,7 @@ class _Plan:
     trunk_order: list[str]                   # MOS: the left side's order, array outwards
     matched: list[tuple[str, ...]]
     kind_mode: str
+    strips: dict[tuple[int, int], Strip] = field(default_factory=dict)   # a ring of strips
 
 
 def _abs_pads(cell: UnitCell, names: tuple[str, ...], x: float, y: float, flip: bool,
@@ -384,6 +386,14 @@ def _plan_at(pattern: Pattern, spec: Spec, rules: Rules, cell: UnitCell, user: b
             strap_rows[r] = (0.0, snap(end))
             strapped.update((r, c) for c in units)
 
+    strips = ring_strips(pattern, spec, cell, rules) if not user else {}
+    if spec.array.ring_depth_um is not None and not user and not (strap and strips):
+        why = ("its plates are too short for a top-plate strap across each row"
+               if cell.strap_y is None else
+               "its units do not share one top plate of their own" if not strap else
+               "it has no row or column of dummies only at its edges")
+        raise RouteError(f"{spec.source}: [array] ring_depth_um draws a capacitor array's ring "
+                         f"of dummies as strips, but {why} (remove ring_depth_um)")
     ends: list[_End] = []
     dummy_taps: list[Tap] = []
     for (r, c), tnets in sorted(nets.items()):
@@ -392,6 +402,9 @@ def _plan_at(pattern: Pattern, spec: Spec, rules: Rules, cell: UnitCell, user: b
         flip = KINDS[spec.kind].fingers and int(pattern.orient[r, c]) < 0
         if d == DUMMY:
             pads = _abs_pads(cell, tuple(tnets), x, 0.0, flip, True)
+            if (r, c) in strips:
+                pads = tuple(s_.moved(x, 0.0) for s_ in strips[r, c].shapes
+                             if s_.role in ("metal1", "metal2"))
             dummy_taps.append(Tap(rail, (r, c), DUMMY_DEVICE, "tie", pads))
             on_spine = c in spine_set
             in_ring_strap = strap and r in ring
@@ -417,7 +430,8 @@ def _plan_at(pattern: Pattern, spec: Spec, rules: Rules, cell: UnitCell, user: b
 
     _choose_exits(ends, spec, rows, nets, pattern)
     matched = [m.nets for m in spec.matched_sets()]
-    pieces = _pieces(ends, spec, rows, cols, px, rail, spines, cell, matched, top_net)
+    pieces = _pieces(ends, spec, rows, cols, px, rail, spines, cell, matched, top_net,
+                         strips)
     try:
         order = _assign_tracks(pieces, ends, spec, rules, matched, rows, strict=True)
     except _Cycle:
@@ -425,14 +439,15 @@ def _plan_at(pattern: Pattern, spec: Spec, rules: Rules, cell: UnitCell, user: b
         # terminal takes its first (downward) exit, which never meets a stub from below
         for e in ends:
             e.chosen = e.exits[0]
-        pieces = _pieces(ends, spec, rows, cols, px, rail, spines, cell, matched, top_net)
+        pieces = _pieces(ends, spec, rows, cols, px, rail, spines, cell, matched, top_net,
+                         strips)
         order = _assign_tracks(pieces, ends, spec, rules, matched, rows)
     tracks: dict[int, int] = defaultdict(int)
     for p in pieces:
         tracks[p.channel] = max(tracks[p.channel], p.track + 1)
     mode = ("strap" if strap else "channel") if routing == "plates" else routing
     return _Plan(ends, pieces, dict(tracks), strap_rows, ring, spines, dummy_taps, top_net,
-                 order, matched, mode)
+                 order, matched, mode, strips)
 
 
 def _choose_exits(ends: list[_End], spec: Spec, rows: int,
@@ -535,7 +550,8 @@ def _res_exits(ends: list[_End], spec: Spec, rows: int) -> None:
 
 def _pieces(ends: list[_End], spec: Spec, rows: int, cols: int, px: float, rail: str,
             spines: dict[str, tuple[int, str]], cell: UnitCell,
-            matched: list[tuple[str, ...]], top_net: str | None = None) -> list[_Piece]:
+            matched: list[tuple[str, ...]], top_net: str | None = None,
+            strips: dict[tuple[int, int], Strip] | None = None) -> list[_Piece]:
     """Track pieces per channel and net, by the kind's rule for each net (the strapped
     top plates' net, ``top_net``, has its trunk on the left)."""
     routing = KINDS[spec.kind].routing
@@ -546,8 +562,7 @@ def _pieces(ends: list[_End], spec: Spec, rows: int, cols: int, px: float, rail:
     for e in ends:
         assert e.chosen is not None
         groups[e.channel, e.net].append(e.chosen.x)
-    spine_x = {side: c * px + (cell.spine[0] if cell.spine and layer != "metal1" else 0.0)
-               for side, (c, layer) in spines.items()}
+    spine_x = _spine_xs(spines, cell, px, strips or {})
     # one trunk side per net (its pieces then join through the trunk): the side nearer to
     # most of its landings, counted in columns so that the choice (and with it the track
     # plan) is the same at every x pitch
@@ -779,6 +794,35 @@ def _left_edge(plist: list[_Piece], before: dict[_Piece, dict[_Piece, int]], gap
         k += 1
 
 
+def _spine_xs(spines: dict[str, tuple[int, str]], cell: UnitCell, px: float,
+              strips: dict[tuple[int, int], Strip]) -> dict[str, float]:
+    """The x of each side's rail spine: down the middle of a column of strips, else at the
+    dummy cell's own spine (a metal1 spine at the cell's centre)."""
+    out: dict[str, float] = {}
+    for side, (c, layer) in spines.items():
+        strip = next((st for (_, c_), st in sorted(strips.items()) if c_ == c), None)
+        if strip is not None:
+            out[side] = snap(c * px + strip.middle[0])
+        else:
+            off = cell.spine[0] if cell.spine is not None and layer != "metal1" else 0.0
+            out[side] = snap(c * px + off)
+    return out
+
+
+def _edges(strips: dict[tuple[int, int], Strip], cell: UnitCell, rows: int, cols: int,
+           px: float, py: float) -> tuple[float, float, float, float]:
+    """The array's outer edges (left, bottom, right, top) from its cells, the ring's strips
+    where they replace the outer rows' and columns' cells."""
+    x0, y0, x1, y1 = cell.extent
+    def kept(side: str) -> list[Rect]:
+        return [st.keep for st in strips.values() if side in st.side.split("-")]
+    left, right, top, bottom = kept("left"), kept("right"), kept("top"), kept("bottom")
+    return (min(k.x0 for k in left) if left else x0,
+            -(rows - 1) * py + (min(k.y0 for k in bottom) if bottom else y0),
+            (cols - 1) * px + (max(k.x1 for k in right) if right else x1),
+            max(k.y1 for k in top) if top else max(y1, cell.metal2_top))
+
+
 def _dummy_spot(cell: UnitCell, pad: Rect) -> Rect:
     """Where a dummy's label for ``pad``'s role sits: the pad, when the dummy's own metal
     covers its centre, else the dummy's largest shape on that role (a dummy's top plate
@@ -851,8 +895,8 @@ def route(pattern: Pattern, spec: Spec, rules: Rules | None = None,
         vias.append((net, snap(x), snap(y)))
 
     # array extents in x, for the trunks beside it
-    x_lo_arr = cell.extent[0]
-    x_hi_arr = (cols - 1) * px + cell.extent[2]
+    edges = _edges(plan.strips, cell, rows, cols, px, py)
+    x_lo_arr, x_hi_arr = edges[0], edges[2]
     for e in plan.ends:
         for x in (e.chosen.x,) if e.chosen else ():
             x_lo_arr = min(x_lo_arr, x - sw / 2)
@@ -921,10 +965,7 @@ def route(pattern: Pattern, spec: Spec, rules: Rules | None = None,
         add_via(e.net, ex, ty)
 
     # tracks
-    spine_x: dict[str, float] = {}
-    for side, (c, layer) in plan.spines.items():
-        off = cell.spine[0] if cell.spine is not None and layer != "metal1" else 0.0
-        spine_x[side] = snap(c * px + off)
+    spine_x = _spine_xs(plan.spines, cell, px, plan.strips)
     lowest: dict[tuple[str, str], float] = {}
     for p in plan.pieces:
         y = p.__dict__["y"]
@@ -967,7 +1008,10 @@ def route(pattern: Pattern, spec: Spec, rules: Rules | None = None,
         for r in dummy_rows:
             if via_y is not None and layer == "metal2":
                 add_via(rail, x, -r * py + via_y)
-        if layer == "metal1" or via_y is None:
+        last = plan.strips.get((max(dummy_rows), c))
+        if last is not None:                  # a strip: its lowest metal of the layer
+            low = -max(dummy_rows) * py + min(s_.y0 for s_ in last.shapes if s_.role == layer)
+        elif layer == "metal1" or via_y is None:
             low = -max(dummy_rows) * py + (cell.extent[1] if layer == "metal1"
                                            else (cell.metal2_bottom or cell.extent[1]))
         else:
@@ -976,19 +1020,27 @@ def route(pattern: Pattern, spec: Spec, rules: Rules | None = None,
         lowest[key] = min(lowest.get(key, low), low)
     if plan.kind_mode == "strap" and cell.strap_y is not None and plan.spines:
         for r in plan.ring_rows:
-            y = snap(-r * py + cell.strap_y)
+            row_strip = next((st for (r_, _), st in sorted(plan.strips.items()) if r_ == r
+                              and ("top" in st.side or "bottom" in st.side)), None)
+            # along a row of strips, down its middle (over their top plates, each tied to
+            # its bottom plate); else through the dummies' corridors at the strap's height
+            y = snap(-r * py + (row_strip.middle[1] if row_strip is not None
+                                else cell.strap_y))
             # from spine to spine, and on to every dummy of the row
             xs = [spine_x[s] for s in ("left", "right") if s in spine_x]
-            xs += [c * px for c in range(cols) if int(pattern.ids[r, c]) == DUMMY]
+            xs += [c * px + (plan.strips[r, c].middle[0] if (r, c) in plan.strips else 0.0)
+                   for c in range(cols) if int(pattern.ids[r, c]) == DUMMY]
             x0 = min(xs) - sw / 2
             x1 = max(xs) + sw / 2
             add_wire(rail, "metal2", x0, y - sw / 2, x1, y + sw / 2, "strap")
+            if row_strip is not None:
+                continue
             for c in range(cols):
                 if int(pattern.ids[r, c]) == DUMMY and snap(c * px) != spine_x.get("right"):
                     add_via(rail, c * px, y)          # onto the dummy's bottom plate
 
     # heights: the top of the block, where the pins sit
-    top_y = max(cell.extent[3], cell.metal2_top)
+    top_y = edges[3]
     ups = [p.__dict__["y"] for p in plan.pieces if p.channel < 0]
     if ups:
         top_y = max(top_y, max(ups) + max(tw, land2) / 2)
@@ -1019,6 +1071,9 @@ def route(pattern: Pattern, spec: Spec, rules: Rules | None = None,
             # the pin stands clear above the top unit's metal, so that it is the net's
             # pin and not a terminal's label (the layout contract)
             unit_top = cell.metal1_top if layer == "metal1" else cell.metal2_top
+            first = plan.strips.get((0, plan.spines[side][0]))
+            if first is not None:
+                unit_top = max(s_.y1 for s_ in first.shapes if s_.role == layer)
             top = max(top, _up(unit_top + width))
         add_wire(rail, layer, x - width / 2, lo - width / 2, x + width / 2, top, "spine")
         if header is not None and layer == "metal2":
@@ -1058,8 +1113,12 @@ def route(pattern: Pattern, spec: Spec, rules: Rules | None = None,
         if tap.device == DUMMY_DEVICE:
             r, c = tap.slot
             flip = False
+            strip = plan.strips.get((r, c))
             for term in cell.terminals:
-                spot = _dummy_spot(cell, term.pad).moved(c * px, -r * py, flip)
+                spot = (_dummy_spot(cell, term.pad) if strip is None
+                        else max((s_ for s_ in strip.shapes if s_.role == term.pad.role),
+                                 key=lambda s_: (s_.x1 - s_.x0) * (s_.y1 - s_.y0)))
+                spot = spot.moved(c * px, -r * py, flip)
                 cx, cy = spot.centre
                 w.labels.append(Label(tap.net, term.pad.role, snap(cx), snap(cy)))
         else:
@@ -1078,9 +1137,9 @@ def route(pattern: Pattern, spec: Spec, rules: Rules | None = None,
         w.shapes.append(Rect("via1", snap(x - h), snap(y - h), snap(x + h), snap(y + h)))
 
     _summaries(w, spec)
-    xs0 = [s.x0 for s in w.shapes] + [cell.extent[0]]
-    xs1 = [s.x1 for s in w.shapes] + [(cols - 1) * px + cell.extent[2]]
-    ys0 = [s.y0 for s in w.shapes] + [-(rows - 1) * py + cell.extent[1]]
+    xs0 = [s.x0 for s in w.shapes] + [edges[0]]
+    xs1 = [s.x1 for s in w.shapes] + [edges[2]]
+    ys0 = [s.y0 for s in w.shapes] + [edges[1]]
     w.bbox = (snap(min(xs0)), snap(min(ys0)), snap(max(xs1)), top_y)
     w.size_um = (snap(w.bbox[2] - w.bbox[0]), snap(w.bbox[3] - w.bbox[1]))
     return w

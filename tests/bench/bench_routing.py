@@ -36,14 +36,15 @@ from placer.layout.router import route
 SIZES = (64, 256, 1024, 4096)
 
 
-def _cap_spec(n: int, ring: bool = True):
+def _cap_spec(n: int, ring: bool = True, strips: bool = False):
     bits = int(np.log2(n))
     counts = [1, 1, *(2 ** b for b in range(1, bits))]
     names = ["CT", *(f"C{i}" for i in range(len(counts) - 1))]
     text = ('name = "bench_cap"\nkind = "cap"\n[devices]\n'
             + "".join(f"{a} = {c}\n" for a, c in zip(names, counts, strict=True))
-            + f'[array]\ndummies = "{"ring" if ring else "none"}"\n[unit]\nwidth_um = 5.0\n'
-            'length_um = 5.0\n')
+            + f'[array]\ndummies = "{"ring" if ring else "none"}"\n'
+            + ("ring_depth_um = 1.0\n" if strips else "")
+            + '[unit]\nwidth_um = 5.0\nlength_um = 5.0\n')
     return parse_spec(text, "bench_cap.toml"), counts, text
 
 
@@ -82,12 +83,15 @@ def main() -> int:
     rows = ["| block | units | fit s | route s | extract s | arrange s | layout share | "
             "block um | units fill |",
             "|---|---|---|---|---|---|---|---|---|"]
-    cases = ([("capacitor array", _cap_spec, n, True) for n in SIZES]
-             + [("capacitor array, no ring", _cap_spec, 64, False)]
-             + [("mirror 1:1:2", _mos_spec, n, True) for n in SIZES])
-    for kind, make, n, ring in cases:
-        spec, counts, text = make(n) if ring else make(n, ring=False)
-        pattern = _pattern(spec, counts, ring)
+    cases = ([("capacitor array", _cap_spec, n, "ring") for n in SIZES]
+             + [("capacitor array, ring of 1 um strips", _cap_spec, n, "strips")
+                for n in (64, 1024)]
+             + [("capacitor array, no ring", _cap_spec, 64, "none")]
+             + [("mirror 1:1:2", _mos_spec, n, "ring") for n in SIZES])
+    for kind, make, n, style in cases:
+        spec, counts, text = (make(n) if style == "ring" else
+                              make(n, ring=False) if style == "none" else make(n, strips=True))
+        pattern = _pattern(spec, counts, style != "none")
         rules = load_rules(spec.kind)
         t_fit, spec_f = _time(lambda s=spec, p=pattern, r=rules: fitted(p, s, r),
                               args.repeat)
@@ -115,7 +119,8 @@ def main() -> int:
         print(rows[-1], flush=True)
     head = (f"Machine: {platform.machine()}, {os.cpu_count()} CPUs, Python "
             f"{platform.python_version()}; `python tests/bench/bench_routing.py` (best of "
-            f"{args.repeat}; seeded random arrangements, in a ring of dummies unless marked).")
+            f"{args.repeat}; seeded random arrangements, in a ring of dummies (whole unit "
+            "cells) unless marked).")
     table = head + "\n\n" + "\n".join(rows)
     print(table)
     if args.update_readme:
