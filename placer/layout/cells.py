@@ -41,9 +41,13 @@ __all__ = [
     "down_only",
     "snap",
     "DB_UNIT_UM",
+    "REACH",
 ]
 
 DB_UNIT_UM = 1e-3          # 1 nm database unit, micrometre user unit
+#: Coupling between two nets is counted out to this many minimum spacings (the
+#: parasitics' rule); the cells and the router keep apart beyond it what must not couple.
+REACH = 3.0
 _PER_UM = 1000             # database units per micrometre
 MAX_RULE_UM = 1000.0
 
@@ -437,7 +441,8 @@ def _cap(w: float, length: float, pitch_x: float | None, r: Rules) -> UnitCell:
     near = snap(apart / 2 + sw / 2 + DB_UNIT_UM)        # the notch's edge past the other x
     far = _up(apart / 2 + land2 / 2 + m2s)              # and on its own via's side
     centred = (w / 2 >= far + r.metal2_width + DB_UNIT_UM
-               and w / 2 > apart / 2 + sw / 2 + 2 * m2s + DB_UNIT_UM)
+               # the next plate at least a metal2 space beyond this one's edge
+               and w / 2 + m2s > apart / 2 + sw / 2 + REACH * m2s + DB_UNIT_UM)
     nw = near + far if centred else notch
     tall = _up(length + 2 * nw * notch / w)          # area of W x L despite the notches
     hx, hy = snap(w / 2), snap(tall / 2)

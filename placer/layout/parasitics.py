@@ -32,7 +32,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 from numpy.typing import NDArray
 
-from placer.layout.cells import Rect
+from placer.layout.cells import REACH, Rect
 
 if TYPE_CHECKING:
     from placer.io.spec import RoutingSpec
@@ -42,8 +42,6 @@ if TYPE_CHECKING:
 __all__ = ["Network", "TapFigure", "Coupling", "NetFigures", "Parasitics", "extract",
            "effective_resistances", "node_voltages", "REACH"]
 
-#: Coupling is counted out to this many minimum spacings.
-REACH = 3.0
 #: Nets of at most this many terminal nodes get every terminal's resistance solved...
 EXACT_TAPS = 1024
 #: ... larger ones those of the terminals farthest from the pin by path resistance.

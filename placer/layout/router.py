@@ -50,6 +50,7 @@ from placer.io.pattern import DUMMY, EMPTY, Pattern
 from placer.kinds import KINDS, series_node
 from placer.layout.cells import (
     DB_UNIT_UM,
+    REACH,
     Exit,
     Rect,
     Rules,
@@ -62,7 +63,6 @@ from placer.layout.cells import (
     snap,
     unit_cell,
 )
-from placer.layout.parasitics import REACH
 from placer.layout.ring import Strip, ring_strips
 
 if TYPE_CHECKING:
