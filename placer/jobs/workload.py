@@ -13,7 +13,8 @@ The coefficients were fitted to whole runs on the reference machine (two cores; 
 every case, for anyone to refit on their own machine); a faster machine finishes sooner,
 a slower one later. They are deliberately simple: a term per unit (pictures, GDSII, the
 netlist), one per unit and net to the power 1.5 (the routing's tracks and the
-extraction's crossings), one per device and slot (the covariance fields), the cube of the
+extraction's crossings of the nets that span the array), one per series link of a
+resistor chain (a net local to two neighbouring units), one per device and slot (the covariance fields), the cube of the
 units sampled by ``[monte_carlo]`` (factorising their correlation) and the capacitor
 budget's code samples.
 """
@@ -25,7 +26,7 @@ from dataclasses import dataclass
 
 from placer.errors import LimitError
 from placer.io.spec import Spec
-from placer.kinds import KINDS
+from placer.kinds import KINDS, series_node
 
 __all__ = ["MAX_PEAK_MB", "Workload", "after_search", "allowed_seconds", "check", "estimate",
            "search_seconds"]
@@ -36,6 +37,11 @@ _BASE_S = 2.0
 _PER_UNIT_S = 1.2e-3
 #: per unit x nets^1.5: routing tracks and the extraction's crossings (seconds)
 _PER_UNIT_NET_S = 3.6e-6
+#: per series link (a net local to two neighbouring units of a resistor chain): its short
+#: link and its small network, apart from the block-wide nets (measured: a 1024-unit
+#: ladder's 1021 links routed and extracted in 2.9 s on the reference machine)
+_PER_LINK_S = 3.0e-3
+_PER_LINK_MB = 0.05
 #: per device x slot: each device's covariance field for every scored arrangement
 _PER_DEVICE_SLOT_S = 3.0e-6
 #: per sampled unit cubed: factorising the units' correlation for [monte_carlo]
@@ -81,6 +87,18 @@ def _code_samples(spec: Spec) -> int:
     return e.mc_samples * 2 ** min(max(len(spec.devices) - 1, 0), 16)
 
 
+def _nets(spec: Spec, routed: bool) -> tuple[int, int]:
+    """The block's nets that the routing spans across the array, and its series links
+    (the inner nodes of resistor chains, each joining two neighbouring units)."""
+    if not routed:
+        return 0, 0
+    links = {series_node(d, i) for d, n, j in zip(spec.devices, spec.counts, spec.joins,
+                                                   strict=True) if j == "series"
+             for i in range(1, n)}
+    names = spec.net_names()
+    return len([n for n in names if n not in links]), len([n for n in names if n in links])
+
+
 def estimate(spec: Spec, routed: bool = True) -> Workload:
     """The fixed work of arranging (or drawing) ``spec``; ``routed``: the run routes and
     extracts the block's wiring.
@@ -92,16 +110,17 @@ def estimate(spec: Spec, routed: bool = True) -> Workload:
     True
     """
     units = spec.n_units
-    nets = len(spec.net_names()) if routed else 0
+    nets, links = _nets(spec, routed)
     parts = {
         "start-up and report": _BASE_S,
         f"pictures and geometry of {units} units": _PER_UNIT_S * units,
-        f"routing and extracting {nets} nets": _PER_UNIT_NET_S * units * nets ** 1.5,
+        f"routing and extracting {nets + links} nets": (_PER_UNIT_NET_S * units * nets ** 1.5
+                                                        + _PER_LINK_S * links),
         f"covariance fields of {len(spec.devices)} devices": (
             _PER_DEVICE_SLOT_S * len(spec.devices) * _slots(spec)),
     }
     peak = (_BASE_MB + _PER_UNIT_MB * units + _PER_UNIT_NET_MB * units * nets ** 1.5
-            + _PER_DEVICE_SLOT_MB * len(spec.devices) * _slots(spec))
+            + _PER_LINK_MB * links + _PER_DEVICE_SLOT_MB * len(spec.devices) * _slots(spec))
     if spec.monte_carlo.samples > 0:
         parts["[monte_carlo] correlation"] = _PER_MC_UNIT3_S * units ** 3
         peak += _PER_MC_UNIT2_MB * units ** 2
@@ -152,9 +171,9 @@ def after_search(spec: Spec, routed: bool = True, candidates: int = 0) -> float:
     True
     """
     units = spec.n_units
-    nets = len(spec.net_names()) if routed else 0
+    nets, links = _nets(spec, routed)
     secs = (_AFTER_BASE_S + _AFTER_PER_UNIT_S * units
-            + _AFTER_PER_UNIT_NET_S * units * nets ** 1.5
+            + _AFTER_PER_UNIT_NET_S * units * nets ** 1.5 + _PER_LINK_S * links
             + _AFTER_PER_DEVICE_SLOT_S * len(spec.devices) * _slots(spec))
     if spec.electrical is not None:
         secs += _AFTER_BUDGET_S + _AFTER_PER_CODE_SAMPLE_S * _code_samples(spec)

@@ -110,8 +110,9 @@ def _terms(spec) -> list[float]:
     """The after-search model's terms of ``spec`` (see placer.jobs.workload)."""
     from placer.jobs import workload as w
 
-    units, nets = spec.n_units, len(spec.net_names())
-    return [1.0, units, units * nets ** 1.5, len(spec.devices) * w._slots(spec),
+    units, (nets, links) = spec.n_units, w._nets(spec, True)
+    return [1.0, units, units * nets ** 1.5 + links * w._PER_LINK_S / w._AFTER_PER_UNIT_NET_S,
+            len(spec.devices) * w._slots(spec),
             (units ** 3 if spec.monte_carlo.samples > 0 else 0),
             (1.0 if spec.electrical is not None else 0.0)]
 
