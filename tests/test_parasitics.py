@@ -237,6 +237,32 @@ def test_a_ten_bit_array_couples_its_top_plate_to_every_bit_alike(tmp_path):
     assert area.unit_fraction >= 0.45, area
 
 
+def test_a_256_unit_resistor_ladder_takes_a_compact_block(tmp_path):
+    """The 1:1:2 ladder of the sample at 256 units (16 x 16 in end dummies, a seeded random
+    order, every unit in a series chain): its channels hold only the links they carry, so
+    the block stays under a third of the 212.9 x 1185.7 um that a router reserving a track
+    for every net in every channel drew for it (the measurement that asked for compact
+    channels), and it still extracts clean."""
+    text = Path("samples/ref_ladder.toml").read_text()
+    text = (text.replace("RTOP = 4", "RTOP = 64").replace("RMID = 4", "RMID = 64")
+            .replace("RBOT = 8", "RBOT = 128").replace("rows = 1", "rows = 16"))
+    spec = parse_spec(text, "ladder256.toml")
+    units = np.repeat(np.arange(3), [64, 64, 128])
+    np.random.default_rng(2).shuffle(units)
+    ids = np.full((16, 18), -1)
+    ids[:, 1:17] = units.reshape(16, 16)
+    pattern = Pattern(spec.devices, ids, np.where(ids >= 0, 1, 0).astype(np.int8))
+    block, measured = _drawn(tmp_path, pattern, spec, "ladder256")
+    w, h = block.wiring.size_um
+    assert w * h < (212.9 * 1185.7) / 3, (w, h)
+    from placer.layout.cells import load_rules, spacing_rules
+    from tests import extraction
+
+    report = extraction.check(tmp_path / "ladder256.gds", LAYERS,
+                              spacing_um=spacing_rules(load_rules("res")))
+    assert report.ok(), report.summary()
+
+
 def test_no_facing_means_no_coupling_and_resistance_scales_with_sheet(tmp_path):
     """Two identities on placer's own figures: the resistance of every terminal scales
     exactly with the sheet and via resistances when all are scaled alike (a linear

@@ -398,7 +398,7 @@ def format_sequence(rep: Any) -> str:
            f"{f.quadratic_ppm_per_um2:g} ppm/um^2{hot}): {rep.worst_inl_lsb:.4g} LSB at code "
            f"{rep.worst_code}; linear part up to {rep.linear_part_lsb.max():.4g} LSB, "
            f"{'bowl and hot-spot' if hs else 'bowl'} part up to "
-           f"{abs(rep.bowl_part_lsb).max():.4g} LSB; |DNL| up to "
+           f"{abs(rep.bowl_part_lsb).max():.4g} LSB; |DNL| in that direction up to "
            f"{abs(rep.dnl_lsb).max():.4g} LSB.",
            f"Random: a unary cell's sigma {100 * s.cell_sigma:.3g} % "
            + (f"(an LSB's {100 * s.lsb_sigma:.3g} %) " if nb else "")

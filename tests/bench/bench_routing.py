@@ -1,7 +1,8 @@
 """Benchmark of routing: time and area of the routed block at 64, 256, 1024 and 4096 units.
 
 For each size: a binary-weighted capacitor array and a mirror (1:1:2) in a seeded random
-order inside a ring of dummies (and the 6-bit array without one), at the pitch its
+order inside a ring of dummies (and the 6-bit array without one and in a ring of strips,
+and a series resistor ladder of 64 and 256 units), at the pitch its
 routing needs. Times are the best of
 ``--repeat`` runs of each step (pitch fit, route, parasitic extraction); beside them the
 share of that layout work in a whole ``placer arrange`` of the same spec with
@@ -56,6 +57,16 @@ def _mos_spec(n: int):
     return parse_spec(text, "bench_mirror.toml"), counts, text
 
 
+def _res_spec(n: int):
+    counts = [n // 4, n // 4, n // 2]
+    text = (f'name = "bench_ladder"\nkind = "res"\n[devices]\nRTOP = {counts[0]}\n'
+            f'RMID = {counts[1]}\nRBOT = {counts[2]}\n[array]\ndummies = "ring"\n'
+            '[unit]\nwidth_um = 2.0\nlength_um = 16.0\n[terminals]\n'
+            'RTOP = { a = "VREF", b = "TAP2" }\nRMID = { a = "TAP2", b = "TAP1" }\n'
+            'RBOT = { a = "TAP1", b = "VSS" }\n')
+    return parse_spec(text, "bench_ladder.toml"), counts, text
+
+
 def _pattern(spec, counts, ring: bool = True):
     side = int(round(np.sqrt(sum(counts))))
     ids = np.random.default_rng(0).permutation(
@@ -87,7 +98,9 @@ def main() -> int:
              + [("capacitor array, ring of 1 um strips", _cap_spec, n, "strips")
                 for n in (64, 1024)]
              + [("capacitor array, no ring", _cap_spec, 64, "none")]
-             + [("mirror 1:1:2", _mos_spec, n, "ring") for n in SIZES])
+             + [("mirror 1:1:2", _mos_spec, n, "ring") for n in SIZES]
+             + [("resistor ladder 1:1:2 in series", _res_spec, n, "ring")
+                for n in SIZES[:2]])
     for kind, make, n, style in cases:
         spec, counts, text = (make(n) if style == "ring" else
                               make(n, ring=False) if style == "none" else make(n, strips=True))
