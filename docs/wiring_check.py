@@ -81,7 +81,7 @@ def random_case(kind: str, rng: np.random.Generator) -> tuple[object, Pattern]:
             + "".join(f"{n} = {c}\n" for n, c in zip(names, counts, strict=True))
             + f'[array]\ndummies = "{dummies}"\ndummy_net = '
             + f'"{rng.choice([*NETS[:5], "TIE"] if strips else [*NETS, "TIE"])}"\n'
-            + (f"ring_depth_um = {rng.choice([0.75, 1.0, 2.0])}\n" if strips else "")
+            + (f"ring_depth_um = {rng.choice([0.95, 1.0, 1.5])}\n" if strips else "")
             + f"[unit]\nwidth_um = {w}\nlength_um = {length}\n[terminals]\n"
             + "\n".join(lines) + "\n")
     spec = parse_spec(text, "random.toml")

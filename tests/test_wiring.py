@@ -313,12 +313,15 @@ def test_rings_of_dummy_strips_route_clean(tmp_path):
         seq += [int(rng.choice([DUMMY, EMPTY])) for _ in range(rows * cols - total)]
         ids = np.pad(np.array(seq)[rng.permutation(rows * cols)].reshape(rows, cols), 1,
                      constant_values=DUMMY)
+        if case % 4 == 0:           # a row of dummies (or nothing) across the middle
+            ids = np.insert(ids, 1 + rows // 2, DUMMY if case % 8 else EMPTY, axis=0)
+            ids[1 + rows // 2, [0, -1]] = DUMMY
         names = [f"D{i}" for i in range(n_dev)]
         bottoms = [str(rng.choice(["N0", "N1", "N2", "N3"])) for _ in names]
         text = ('kind = "cap"\n[devices]\n'
                 + "".join(f"{n} = {c}\n" for n, c in zip(names, counts, strict=True))
                 + f'[array]\ndummies = "ring"\ndummy_net = "{rng.choice(["N4", "TIE"])}"\n'
-                + f"ring_depth_um = {rng.choice([0.75, 1.0, 1.7, 3.0])}\n"
+                + f"ring_depth_um = {rng.choice([0.95, 1.0, 1.7, 2.5])}\n"
                 + f"[unit]\nwidth_um = {rng.choice([2.5, 5.0])}\n"
                 + f"length_um = {rng.choice([3.0, 6.0])}\n[terminals]\n"
                 + "".join(f'{n} = {{ top = "TOP", bottom = "{b}" }}\n'
@@ -327,13 +330,112 @@ def test_rings_of_dummy_strips_route_clean(tmp_path):
         pattern = Pattern(tuple(names), ids, np.where(ids >= 0, 1, 0).astype(np.int8))
         _assert_clean(_write_and_check(tmp_path, pattern, spec, name=f"strips{case}",
                                        dummy_probes=False))
+        _cuts_on_metal_inside_the_outline(tmp_path / f"strips{case}.gds")
         routed += 1
     assert routed == 40
+
+
+def test_a_given_pattern_without_a_ring_all_round_draws_whole_dummies_and_says_so(tmp_path):
+    """The spec asks for strips but the pattern drawn (a hand or edited one) has a unit
+    where the ring should be: its dummies are drawn as whole cells, the layout still
+    extracts clean, and the command says why in a note."""
+    from click.testing import CliRunner
+
+    from placer.cli import cli
+
+    counts = {"CT": 1, "C0": 1, "C1": 2, "C2": 4, "C3": 8, "C4": 16, "C5": 32}
+    flat = [d for d, n in counts.items() for _ in range(n)]
+    flat.remove("C4")
+    flat.append(".")                           # the unit on the ring leaves a dummy inside
+    grid = [["."] * 10 for _ in range(10)]
+    for k, d in enumerate(flat):
+        grid[1 + k // 8][1 + k % 8] = d
+    grid[0][3] = "C4"                          # a unit on the ring
+    (tmp_path / "p.txt").write_text("\n".join(" ".join(row) for row in grid) + "\n")
+    res = CliRunner().invoke(cli, ["draw", str(tmp_path / "p.txt"), "--spec",
+                                   "samples/sar_cdac.toml", "--out", str(tmp_path / "o")])
+    assert res.exit_code == 0, res.output
+    assert "Note: ring_depth_um: this arrangement has no ring of dummies all round" \
+        in res.output
+    from placer.layout.cells import load_rules, spacing_rules
+
+    gds = next((tmp_path / "o").glob("*.gds"))
+    report = extraction.check(gds, LAYERS,
+                              spacing_um=spacing_rules(load_rules("cap")))
+    assert report.ok(), report.summary()
+
+
+def test_a_ring_of_strips_with_a_cell_of_ones_own_is_refused():
+    """The strips are cut from placer's own capacitor cell; a user's cell (``user``, what
+    --unit-gds sets) keeps its own ring, and ring_depth_um is refused, not ignored."""
+    from placer.errors import RouteError
+    from placer.jobs.load import load_spec
+    from placer.layout.router import route
+
+    spec = load_spec(Path("samples/sar_cdac.toml"))
+    ids = np.full((10, 10), DUMMY)
+    ids[1:9, 1:9] = np.repeat(np.arange(7), spec.counts).reshape(8, 8)
+    pattern = Pattern(spec.devices, ids, np.where(ids >= 0, 1, 0).astype(np.int8))
+    with pytest.raises(RouteError, match="with a unit cell of your own"):
+        route(pattern, spec, user=True)
+
+
+def test_the_strip_sample_grades_and_repairs_from_its_own_gdsii(tmp_path):
+    """A ring's strip lies off its slot's centre: read back, every strip still marks its
+    own slot (a dummy may sit anywhere nearer its slot than the next), so placer grades
+    and repairs the GDSII it wrote for samples/sar_cdac.toml as the pattern it wrote."""
+    from click.testing import CliRunner
+
+    from placer.cli import cli
+    from placer.io.pattern import read_pattern
+
+    spec = "samples/sar_cdac.toml"
+    run = CliRunner()
+    assert run.invoke(cli, ["arrange", spec, "--out", str(tmp_path / "a"), "--quiet",
+                            "--time-limit", "1"]).exit_code == 0
+    graded = run.invoke(cli, ["grade", str(tmp_path / "a" / "pattern.gds"), "--spec", spec,
+                              "--json"])
+    assert graded.exit_code == 0, graded.output
+    back = run.invoke(cli, ["repair", str(tmp_path / "a" / "pattern.gds"), "--spec", spec,
+                            "--out", str(tmp_path / "r"), "--max-swaps", "1"])
+    assert back.exit_code == 0, back.output
+    wrote = read_pattern(tmp_path / "a" / "pattern.txt")
+    again = read_pattern(tmp_path / "r" / "repaired.txt")
+    # a repair swaps units, never dummies: the ring read back is the ring written
+    assert again.ids.shape == wrote.ids.shape
+    assert ((again.ids == -1) == (wrote.ids == -1)).all()
+
+
+def _cuts_on_metal_inside_the_outline(path: Path) -> None:
+    """Two facts of the GDSII alone (the layer map's roles): every via1 cut lies on metal1
+    and on metal2 (a cut on nothing joins nothing), and every shape lies inside the
+    block's outline."""
+    from shapely.geometry import box
+    from shapely.ops import unary_union
+
+    layers = load_layers()
+    flat = gdstk.read_gds(str(path)).top_level()[0].copy("flat").flatten()
+
+    def rects(role: str) -> list:
+        return [box(*p.bounding_box()[0], *p.bounding_box()[1]) for p in flat.polygons
+                if (p.layer, p.datatype) == layers[role]]
+
+    m1 = unary_union(rects("metal1")).buffer(1e-6)
+    m2 = unary_union(rects("metal2")).buffer(1e-6)
+    loose = [c.bounds for c in rects("via1") if not (m1.contains(c) and m2.contains(c))]
+    assert not loose, f"{path.name}: via1 cuts off metal: {loose[:3]}"
+    (outline,) = rects("outline")
+    edge = outline.buffer(1e-6)
+    outside = [p.bounding_box() for p in flat.polygons
+               if (p.layer, p.datatype) != layers["outline"]
+               and not edge.contains(box(*p.bounding_box()[0], *p.bounding_box()[1]))]
+    assert not outside, f"{path.name}: shapes outside the outline: {outside[:3]}"
 
 
 @pytest.mark.parametrize("change, message", [
     ("length_um = 1.3", "its plates are too short for a top-plate strap"),
     ("ring_depth_um = 0.5", "ring_depth_um = 0.5 um is too small"),
+    ("ring_depth_um = 5.4", "is a whole cell deep"),
     ('dummies = "none"', 'it needs kind = "cap" and dummies = "ring"'),
 ])
 def test_a_ring_of_strips_that_cannot_be_drawn_is_refused_in_one_line(tmp_path, change,

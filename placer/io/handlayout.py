@@ -552,7 +552,11 @@ def units_to_pattern(units: list[Unit], source: str, notes: list[str],
     if not units:
         raise LayoutError(f"{source}: no units")
     xy = np.array([(u.x, u.y) for u in units])
-    (px, gx), (py, gy) = lattice(xy[:, 0]), lattice(xy[:, 1])
+    # the grid from the devices' units; a dummy only marks its slot, so it may sit anywhere
+    # nearer its slot than the next (a ring's dummy drawn as a strip of the cell, say)
+    dev = np.array([u.device is not None for u in units])
+    base = xy[dev] if dev.any() else xy
+    (px, gx), (py, gy) = lattice(base[:, 0]), lattice(base[:, 1])
     if spec is not None:
         sx, sy = spec.array.pitch_um
         px = px or sx
@@ -567,7 +571,9 @@ def units_to_pattern(units: list[Unit], source: str, notes: list[str],
     x0 = float(np.round(gx + (np.round(fx).min()) * px, 6))
     y0 = float(np.round(gy - (np.round(fy).min()) * py, 6))
     off = np.hypot(fx - np.round(fx), fy - np.round(fy))
-    far = off > SNAP_TOLERANCE
+    far = np.where(dev, off > SNAP_TOLERANCE,
+                   np.maximum(abs(fx - np.round(fx)), abs(fy - np.round(fy))) > 0.499)
+    off = np.where(dev, off, 0.0)            # dummies snap without a note
     if far.any():
         where = "; ".join(f"({units[i].x:.4g}, {units[i].y:.4g}) um" for i in
                           np.nonzero(far)[0][:5])

@@ -14,9 +14,9 @@ every case, for anyone to refit on their own machine); a faster machine finishes
 a slower one later. They are deliberately simple: a term per unit (pictures, GDSII, the
 netlist), one per unit and net to the power 1.5 (the routing's tracks and the
 extraction's crossings of the nets that span the array), one per series link of a
-resistor chain (a net local to two neighbouring units), one per device and slot (the covariance fields), the cube of the
-units sampled by ``[monte_carlo]`` (factorising their correlation) and the capacitor
-budget's code samples.
+resistor chain (a net local to two neighbouring units), one per device and slot (the
+covariance fields), the cube of the units sampled by ``[monte_carlo]`` (factorising
+their correlation) and the capacitor budget's code samples.
 """
 
 from __future__ import annotations

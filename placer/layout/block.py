@@ -18,6 +18,7 @@ from placer.layout.cells import Rules, UnitCell, load_rules, unit_cell
 from placer.layout.layers import LayerMap, load_layers
 from placer.layout.parasitics import NetFigures, Parasitics, extract
 from placer.layout.pitch import check_pitch, estimated, fitted, for_cell
+from placer.layout.ring import ring_strips
 from placer.layout.router import NetSummary, Wiring, route
 from placer.layout.wiring_error import wiring_effect
 from placer.limits import MAX_EXTENT_UM
@@ -151,7 +152,12 @@ def area_of(block: Block) -> Area:
     w, h = block.wiring.size_um
     px, py = block.spec.array.pitch_um
     units = block.spec.n_units * block.spec.unit.width_um * block.spec.unit.length_um
-    slots = int((block.pattern.ids != EMPTY).sum()) * px * py
+    strips = (ring_strips(block.pattern, block.spec, block.cell, block.tools.rules)
+              if block.tools.user is None else {})
+    cells = int((block.pattern.ids != EMPTY).sum()) - len(strips)
+    # a ring's strip counts its own area, not a whole slot's
+    slots = cells * px * py + sum((st.keep.x1 - st.keep.x0) * (st.keep.y1 - st.keep.y0)
+                                  for st in strips.values())
     whole = w * h
     return Area(whole, units, slots, units / whole if whole > 0 else 0.0,
                 slots / whole if whole > 0 else 0.0)

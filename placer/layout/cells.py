@@ -439,11 +439,18 @@ def _cap(w: float, length: float, pitch_x: float | None, r: Rules) -> UnitCell:
     # than three spaces from the next plate
     apart = _up(sw + m2s)
     near = snap(apart / 2 + sw / 2 + DB_UNIT_UM)        # the notch's edge past the other x
-    far = _up(apart / 2 + land2 / 2 + m2s)              # and on its own via's side
+    far = _up(apart / 2 + max(land2, sw) / 2 + m2s)     # and on its own via's side
+    # deep enough that a stub crossing the channel to the track next to this plate (its
+    # end a metal2 space off the plate's edge, less what a stub wider than its landing
+    # pokes out) is beyond the coupling's reach of the notch's floor
+    reach_in = REACH * m2s - (m2s - max(0.0, (sw - land2) / 2)) + DB_UNIT_UM
+    deep = _up(max(notch, reach_in))
     centred = (w / 2 >= far + r.metal2_width + DB_UNIT_UM
                # the next plate at least a metal2 space beyond this one's edge
-               and w / 2 + m2s > apart / 2 + sw / 2 + REACH * m2s + DB_UNIT_UM)
+               and w / 2 + m2s > apart / 2 + sw / 2 + REACH * m2s + DB_UNIT_UM
+               and length > 2 * deep + r.metal2_width)
     nw = near + far if centred else notch
+    notch = deep if centred else notch
     tall = _up(length + 2 * nw * notch / w)          # area of W x L despite the notches
     hx, hy = snap(w / 2), snap(tall / 2)
     ey = snap(hy - land2 / 2)                         # via centres' height in the notches

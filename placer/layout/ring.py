@@ -48,9 +48,12 @@ class Strip:
 
 def least_depth(rules: Rules) -> float:
     """The least strip depth: the top plate inset by the plate margin on both sides still
-    holds a via1 with its metal enclosure, and is a metal2 width wide."""
+    holds a via1 with its metal enclosure and is a metal2 width wide, and a metal2 spine
+    down the strip's middle stays a metal2 space from the end of the row's top-plate
+    strap beside it."""
     via = rules.via1 + 2 * max(rules.metal1_enclosure, rules.metal2_enclosure)
-    return _up(2 * rules.plate_margin + max(via, rules.metal2_width))
+    return _up(max(2 * rules.plate_margin + max(via, rules.metal2_width),
+                   rules.stub_width + 2 * rules.metal2_space))
 
 
 def _dummy_only(line: np.ndarray) -> bool:
@@ -68,12 +71,19 @@ def ring_strips(pattern: Pattern, spec: Spec, cell: UnitCell, rules: Rules
     if depth < least - 1e-9:
         raise RouteError(f"{spec.source}: [array] ring_depth_um = {depth:g} um is too small "
                          f"for the template's plates and tie vias: use {least:g} um or more")
-    rows, cols = pattern.shape
-    edge_r = {0: "top", rows - 1: "bottom"} if rows > 2 else {}
-    edge_c = {0: "left", cols - 1: "right"} if cols > 2 else {}
-    edge_r = {r: s for r, s in edge_r.items() if _dummy_only(pattern.ids[r])}
-    edge_c = {c: s for c, s in edge_c.items() if _dummy_only(pattern.ids[:, c])}
     x0, y0, x1, y1 = cell.extent
+    if depth >= min(x1 - x0, y1 - y0):
+        raise RouteError(f"{spec.source}: [array] ring_depth_um = {depth:g} um is a whole "
+                         f"cell deep (the cell is {x1 - x0:g} x {y1 - y0:g} um): give less, "
+                         "or omit it for a ring of whole cells")
+    rows, cols = pattern.shape
+    # a ring all round: the edge rows and columns hold dummies only (or empty slots)
+    if rows < 3 or cols < 3 or not all(
+            _dummy_only(line) for line in (pattern.ids[0], pattern.ids[-1],
+                                           pattern.ids[:, 0], pattern.ids[:, -1])):
+        return {}
+    edge_r = {0: "top", rows - 1: "bottom"}
+    edge_c = {0: "left", cols - 1: "right"}
     pm = rules.plate_margin
     half = rules.stub_width / 2 + rules.metal2_space     # a strap's corridor, half width
     out: dict[tuple[int, int], Strip] = {}

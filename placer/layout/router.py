@@ -167,6 +167,7 @@ class Wiring:
     bbox: tuple[float, float, float, float] = (0.0, 0.0, 0.0, 0.0)
     matched: list[tuple[str, ...]] = field(default_factory=list)
     strapped: bool = False
+    notes: list[str] = field(default_factory=list)    # what the drawing could not do
 
 
 def _snake(ids: np.ndarray) -> list[tuple[int, int]]:
@@ -279,6 +280,7 @@ class _Plan:
     matched: list[tuple[str, ...]]
     kind_mode: str
     strips: dict[tuple[int, int], Strip] = field(default_factory=dict)   # a ring of strips
+    notes: list[str] = field(default_factory=list)
 
 
 def _abs_pads(cell: UnitCell, names: tuple[str, ...], x: float, y: float, flip: bool,
@@ -386,14 +388,23 @@ def _plan_at(pattern: Pattern, spec: Spec, rules: Rules, cell: UnitCell, user: b
             strap_rows[r] = (0.0, snap(end))
             strapped.update((r, c) for c in units)
 
+    if spec.array.ring_depth_um is not None and user:
+        raise RouteError(f"{spec.source}: [array] ring_depth_um draws placer's own capacitor "
+                         "cell's ring as strips; with a unit cell of your own (--unit-gds) the "
+                         "ring is your cell (remove ring_depth_um)")
     strips = ring_strips(pattern, spec, cell, rules) if not user else {}
-    if spec.array.ring_depth_um is not None and not user and not (strap and strips):
-        why = ("its plates are too short for a top-plate strap across each row"
-               if cell.strap_y is None else
-               "its units do not share one top plate of their own" if not strap else
-               "it has no row or column of dummies only at its edges")
-        raise RouteError(f"{spec.source}: [array] ring_depth_um draws a capacitor array's ring "
-                         f"of dummies as strips, but {why} (remove ring_depth_um)")
+    notes: list[str] = []
+    if spec.array.ring_depth_um is not None and not (strap and strips):
+        if not strap:
+            why = ("its plates are too short for a top-plate strap across each row"
+                   if cell.strap_y is None else
+                   "its units do not share one top plate of their own")
+            raise RouteError(f"{spec.source}: [array] ring_depth_um draws a capacitor array's "
+                             f"ring of dummies as strips, but {why} (remove ring_depth_um)")
+        # a given pattern (a hand layout, an edited one) without a ring all round
+        notes.append("ring_depth_um: this arrangement has no ring of dummies all round "
+                     "(rows and columns of dummies only at its four edges); its dummies are "
+                     "drawn as whole cells")
     ends: list[_End] = []
     dummy_taps: list[Tap] = []
     for (r, c), tnets in sorted(nets.items()):
@@ -447,7 +458,7 @@ def _plan_at(pattern: Pattern, spec: Spec, rules: Rules, cell: UnitCell, user: b
         tracks[p.channel] = max(tracks[p.channel], p.track + 1)
     mode = ("strap" if strap else "channel") if routing == "plates" else routing
     return _Plan(ends, pieces, dict(tracks), strap_rows, ring, spines, dummy_taps, top_net,
-                 order, matched, mode, strips)
+                 order, matched, mode, strips, notes)
 
 
 def _choose_exits(ends: list[_End], spec: Spec, rows: int,
@@ -880,7 +891,8 @@ def route(pattern: Pattern, spec: Spec, rules: Rules | None = None,
             return snap(above0 + k * ch.track_pitch)
         return snap(-channel_index * py + ch.track_y(k))
 
-    w = Wiring(strapped=plan.kind_mode == "strap", matched=list(plan.matched))
+    w = Wiring(strapped=plan.kind_mode == "strap", matched=list(plan.matched),
+               notes=list(plan.notes))
     w.tracks_per_row = [plan.tracks.get(r, 0) for r in range(rows)] + [plan.tracks.get(-1, 0)]
     w.channel_tracks = between
     vias: list[tuple[str, float, float]] = []
@@ -1036,8 +1048,13 @@ def route(pattern: Pattern, spec: Spec, rules: Rules | None = None,
             if row_strip is not None:
                 continue
             for c in range(cols):
-                if int(pattern.ids[r, c]) == DUMMY and snap(c * px) != spine_x.get("right"):
-                    add_via(rail, c * px, y)          # onto the dummy's bottom plate
+                if int(pattern.ids[r, c]) != DUMMY:
+                    continue
+                # onto the dummy's bottom plate: a whole cell's middle, a strip's spine
+                vx = snap(c * px + (plan.strips[r, c].middle[0] if (r, c) in plan.strips
+                                    else 0.0))
+                if vx != spine_x.get("right"):
+                    add_via(rail, vx, y)
 
     # heights: the top of the block, where the pins sit
     top_y = edges[3]
@@ -1062,6 +1079,7 @@ def route(pattern: Pattern, spec: Spec, rules: Rules | None = None,
         header = snap(top_y + r_.metal1_space + tw / 2)
         add_wire(rail, "metal1", spine_x["left"] - tw / 2, header - tw / 2,
                  spine_x["right"] + tw / 2, header + tw / 2, "header")
+    drawn_top = top_y                  # the spines' pins may stand above the trunks' top
     for side, (_, layer) in plan.spines.items():
         x = spine_x[side]
         lo = lowest[("spine", side)]
@@ -1071,11 +1089,15 @@ def route(pattern: Pattern, spec: Spec, rules: Rules | None = None,
             # the pin stands clear above the top unit's metal, so that it is the net's
             # pin and not a terminal's label (the layout contract)
             unit_top = cell.metal1_top if layer == "metal1" else cell.metal2_top
-            first = plan.strips.get((0, plan.spines[side][0]))
-            if first is not None:
-                unit_top = max(s_.y1 for s_ in first.shapes if s_.role == layer)
+            if plan.strips:                 # the column's topmost dummy, a strip or a cell
+                c = plan.spines[side][0]
+                r0 = min(r for r in range(rows) if int(pattern.ids[r, c]) == DUMMY)
+                first = plan.strips.get((r0, c))
+                unit_top = -r0 * py + (unit_top if first is None else
+                                       max(s_.y1 for s_ in first.shapes if s_.role == layer))
             top = max(top, _up(unit_top + width))
         add_wire(rail, layer, x - width / 2, lo - width / 2, x + width / 2, top, "spine")
+        drawn_top = max(drawn_top, top)
         if header is not None and layer == "metal2":
             add_via(rail, x, header)
         if header is None:
@@ -1140,7 +1162,7 @@ def route(pattern: Pattern, spec: Spec, rules: Rules | None = None,
     xs0 = [s.x0 for s in w.shapes] + [edges[0]]
     xs1 = [s.x1 for s in w.shapes] + [edges[2]]
     ys0 = [s.y0 for s in w.shapes] + [edges[1]]
-    w.bbox = (snap(min(xs0)), snap(min(ys0)), snap(max(xs1)), top_y)
+    w.bbox = (snap(min(xs0)), snap(min(ys0)), snap(max(xs1)), snap(max(top_y, drawn_top)))
     w.size_um = (snap(w.bbox[2] - w.bbox[0]), snap(w.bbox[3] - w.bbox[1]))
     return w
 

@@ -159,7 +159,7 @@ def layout_report(block: Block) -> dict[str, Any]:
     return {"size_um": list(w.size_um), "pitch_um": list(block.spec.array.pitch_um),
             "pitch_given": block.spec.array.pitch_given,
             "channel_tracks": w.channel_tracks, "tracks_per_row": list(w.tracks_per_row),
-            "area": asdict(area_of(block)),
+            "area": asdict(area_of(block)), "notes": list(w.notes),
             "nets": [asdict(n) for n in w.nets],
             "parasitics": {
                 "taps": [{"net": t.net, "slot": list(t.slot), "device": t.device,

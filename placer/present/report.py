@@ -324,6 +324,7 @@ def format_nets(wiring: Any, max_rows: int = 40, area: Any = None) -> str:
            "fullest channel; every net routed to a pin at the block's top edge (R: its "
            "worst terminal to the pin; C: to ground and to the other nets; from the "
            "spec's [routing] figures, illustrative by default)",
+           *(f"  Note: {n}." for n in getattr(wiring, "notes", [])),
            format_table(["net", "terminals", "units", "wire um", "vias", "R ohm", "C fF"],
                         rows)]
     if len(wiring.nets) > max_rows:
