@@ -365,6 +365,27 @@ def test_a_given_pattern_without_a_ring_all_round_draws_whole_dummies_and_says_s
     assert report.ok(), report.summary()
 
 
+@pytest.mark.parametrize("depth", [None, 1.0])
+def test_a_ring_with_empty_corners_and_gaps_joins_its_rail(tmp_path, depth):
+    """A ring of dummies whose corners and some slots are empty (a row's strap then ends
+    on the left spine with no dummy beneath): the spines reach every strap and the metal1
+    spine takes it by a via of its own, so the rail is one piece (found by a random
+    search of ring shapes, whole cells and strips alike)."""
+    ids = np.array([[-2, -1, -2, -1, -1], [-1, 1, 1, 1, -2], [-1, 1, 1, 0, -1],
+                    [-1, 2, 1, 2, -1], [-1, 2, 0, 2, -1], [-1, 0, -2, 2, -1],
+                    [-2, -1, -1, -1, -1]])
+    counts = [int((ids == k).sum()) for k in range(3)]
+    text = ('kind = "cap"\n[devices]\n' + "".join(f"C{k} = {n}\n" for k, n in enumerate(counts))
+            + '[array]\ndummies = "ring"\n'
+            + (f"ring_depth_um = {depth}\n" if depth else "")
+            + "[unit]\nwidth_um = 6.0\nlength_um = 6.0\n")
+    spec = parse_spec(text, "gaps.toml")
+    pattern = Pattern(spec.devices, ids, np.where(ids >= 0, 1, 0).astype(np.int8))
+    _assert_clean(_write_and_check(tmp_path, pattern, spec, name="gaps",
+                                   dummy_probes=depth is None))
+    _cuts_on_metal_inside_the_outline(tmp_path / "gaps.gds")
+
+
 def test_a_ring_of_strips_with_a_cell_of_ones_own_is_refused():
     """The strips are cut from placer's own capacitor cell; a user's cell (``user``, what
     --unit-gds sets) keeps its own ring, and ring_depth_um is refused, not ignored."""

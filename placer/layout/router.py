@@ -1045,6 +1045,16 @@ def route(pattern: Pattern, spec: Spec, rules: Rules | None = None,
             x0 = min(xs) - sw / 2
             x1 = max(xs) + sw / 2
             add_wire(rail, "metal2", x0, y - sw / 2, x1, y + sw / 2, "strap")
+            # the strap ends on both spines: each reaches down to it, and a metal1 spine
+            # takes it by a via on a landing of its own where no dummy stands beneath
+            for side, (c_side, layer) in plan.spines.items():
+                key = ("spine", side)
+                lowest[key] = min(lowest.get(key, y), y)
+                if layer == "metal1" and int(pattern.ids[r, c_side]) != DUMMY:
+                    sx, half1 = spine_x[side], r_.land1 / 2
+                    add_wire(rail, "metal1", sx - half1, y - half1, sx + half1, y + half1,
+                             "spine")
+                    add_via(rail, sx, y)
             if row_strip is not None:
                 continue
             for c in range(cols):
