@@ -386,6 +386,29 @@ def test_a_ring_with_empty_corners_and_gaps_joins_its_rail(tmp_path, depth):
     _cuts_on_metal_inside_the_outline(tmp_path / "gaps.gds")
 
 
+@pytest.mark.parametrize("w, length, centred, strap", [
+    (2.1, 5.0, False, True), (2.25, 5.0, True, True),     # about 2.2 um wide
+    (5.0, 1.5, False, False), (5.0, 1.7, True, False),    # about 1.6 um long
+    (5.0, 1.9, True, False), (5.0, 2.1, True, True),      # about 2 um for the strap
+])
+def test_the_cap_cells_thresholds_the_readme_quotes(w, length, centred, strap):
+    """The README's limits of the generic capacitor cell: centred notches from about
+    2.2 um wide and 1.6 um long, a strap from about 2 um long; and the least strip depth
+    of a ring of strips, 0.95 um (all from the template's rules)."""
+    from placer.layout.cells import load_rules, unit_cell
+    from placer.layout.ring import least_depth
+
+    rules = load_rules("cap")
+    cell = unit_cell("cap", w, length, None, rules)
+    down = next(t for t in cell.terminals if t.name == "bottom").exits[0]
+    assert (abs(down.x) < w / 4) == centred         # the via in the middle, not a corner
+    assert (cell.strap_y is not None) == strap
+    text = Path("README.md").read_text(encoding="utf-8")
+    assert f"({least_depth(rules):g} um in the generic template)" in text
+    assert "narrower than about 2.2 um or shorter than about 1.6 um" in text
+    assert "shorter than about 2 um has no" in text
+
+
 def test_a_ring_of_strips_with_a_cell_of_ones_own_is_refused():
     """The strips are cut from placer's own capacitor cell; a user's cell (``user``, what
     --unit-gds sets) keeps its own ring, and ring_depth_um is refused, not ignored."""
