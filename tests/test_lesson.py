@@ -257,6 +257,25 @@ def test_dac_figure_matches_grade(dac_run, key):
 
 
 
+def test_figures_read_as_people_write_them(browser, tmp_path):
+    """Exact zeros show as 0, never as the arithmetic's rounding (4.44e-16 and the like):
+    every figure whose value is under 1e-9 reads "0", every other one keeps its digits."""
+    _, page = _page(tmp_path, "bias_mirror")
+    _open(browser, page)
+    shown = [(e.get_attribute("data-value"), e.text)
+             for e in browser.find_elements("css selector", "td[data-figure]")]
+    numbers = []
+    for value, text in shown:
+        try:
+            numbers.append((float(value), text))
+        except ValueError:
+            continue                           # a range "low high" or a word
+    tiny = [(v, t) for v, t in numbers if abs(v) < 1e-9]
+    assert tiny, "the sample's page shows no zero figure to check"
+    assert all(t.split()[0] == "0" for _, t in tiny), tiny
+    assert all("e-1" not in t and "e-2" not in t for _, t in numbers), numbers
+
+
 def test_a_32_column_board_fits_a_1280_pixel_window_without_a_sideways_scroll(tmp_path):
     """At a 1280 px window an 18-slot board needed a horizontal scroll; the board now
     shrinks to its column. Checked on a 32-column board (plus its end dummies) and on

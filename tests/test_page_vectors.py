@@ -63,3 +63,26 @@ def test_the_pages_formulas_give_the_vectors_figures_without_a_browser():
         for key, value in v["figures"].items():
             # the page sums in float where Python keeps exact integers: agree to rounding
             assert shown[key] == pytest.approx(value, rel=1e-9, abs=1e-9), (v["name"], key)
+
+
+@pytest.mark.parametrize("script", ["lesson.js", "sequence.js"])
+def test_the_pages_show_the_arithmetics_rounding_as_zero(script):
+    """Both pages' number format, run in Node apart from the page: a figure under 1e-9
+    (the rounding of sums that cancel, 4.44e-16 and the like) reads 0; real figures keep
+    their digits, small ones in exponent form."""
+    import re
+
+    node = shutil.which("node") or shutil.which("nodejs")
+    if node is None:
+        if os.environ.get("PLACER_REQUIRE_NODE") == "1":
+            pytest.fail("Node.js is required here (PLACER_REQUIRE_NODE=1)")
+        pytest.skip("no Node.js here (apt-get install nodejs); CI requires it")
+    text = (ROOT / "placer" / "present" / "web" / script).read_text(encoding="utf-8")
+    fmt = re.search(r"^function fmt\(v\) \{.*?^\}", text, re.S | re.M).group(0)
+    values = [4.44e-16, -2.11e-13, 0.0, 3.2e-4, 0.00123, 1.5, -25.0, 1.234e5]
+    res = subprocess.run([node, "-e", fmt + f"\nconsole.log(JSON.stringify({values}.map(fmt)));"],
+                         capture_output=True, text=True, check=True)
+    shown = json.loads(res.stdout)
+    assert shown[:3] == ["0", "0", "0"]
+    assert all(s != "0" for s in shown[3:])
+    assert shown[4] == "0.00123" and shown[5] == "1.5" and shown[6] == "-25"

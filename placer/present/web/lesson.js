@@ -314,7 +314,8 @@ function dacBudget(sc) {
 
 // ---------------------------------------------------------------- drawing
 function fmt(v) {
-  if (v === 0) return "0";
+  // below a billionth of a ppm, um or LSB a figure is the arithmetic's rounding: show 0
+  if (Math.abs(v) < 1e-9) return "0";
   const a = Math.abs(v);
   if (a >= 1e4 || a < 1e-3) return v.toExponential(2);
   return Number(v.toPrecision(3)).toString();
