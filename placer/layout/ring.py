@@ -29,7 +29,7 @@ from placer.layout.cells import Rect, Rules, UnitCell, _square, _up, snap
 if TYPE_CHECKING:
     from placer.io.spec import Spec
 
-__all__ = ["Strip", "ring_strips", "least_depth"]
+__all__ = ["Strip", "dummy_only", "ring_strips", "least_depth"]
 
 
 @dataclass(frozen=True)
@@ -56,7 +56,8 @@ def least_depth(rules: Rules) -> float:
                    rules.stub_width + 2 * rules.metal2_space))
 
 
-def _dummy_only(line: np.ndarray) -> bool:
+def dummy_only(line: np.ndarray) -> bool:
+    """A row or column that holds dummies and nothing else (or empty slots)."""
     return bool(np.any(line == DUMMY) and np.all((line == DUMMY) | (line == EMPTY)))
 
 
@@ -79,7 +80,7 @@ def ring_strips(pattern: Pattern, spec: Spec, cell: UnitCell, rules: Rules
     rows, cols = pattern.shape
     # a ring all round: the edge rows and columns hold dummies only (or empty slots)
     if rows < 3 or cols < 3 or not all(
-            _dummy_only(line) for line in (pattern.ids[0], pattern.ids[-1],
+            dummy_only(line) for line in (pattern.ids[0], pattern.ids[-1],
                                            pattern.ids[:, 0], pattern.ids[:, -1])):
         return {}
     edge_r = {0: "top", rows - 1: "bottom"}

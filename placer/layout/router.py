@@ -63,7 +63,7 @@ from placer.layout.cells import (
     snap,
     unit_cell,
 )
-from placer.layout.ring import Strip, ring_strips
+from placer.layout.ring import Strip, dummy_only, ring_strips
 
 if TYPE_CHECKING:
     from placer.io.spec import Spec
@@ -306,8 +306,7 @@ def _spine_columns(pattern: Pattern) -> dict[str, int]:
     if cols < 2:
         return out
     for side, c in (("left", 0), ("right", cols - 1)):
-        col = pattern.ids[:, c]
-        if np.any(col == DUMMY) and np.all((col == DUMMY) | (col == EMPTY)):
+        if dummy_only(pattern.ids[:, c]):
             out[side] = c
     return out
 
@@ -316,8 +315,7 @@ def _ring_rows(pattern: Pattern) -> list[int]:
     """Rows that hold dummies and nothing else (a dummy ring's top and bottom)."""
     out = []
     for r in range(pattern.shape[0]):
-        row = pattern.ids[r]
-        if np.any(row == DUMMY) and np.all((row == DUMMY) | (row == EMPTY)):
+        if dummy_only(pattern.ids[r]):
             out.append(r)
     return out
 
@@ -834,11 +832,12 @@ def _edges(strips: dict[tuple[int, int], Strip], cell: UnitCell, rows: int, cols
             max(k.y1 for k in top) if top else max(y1, cell.metal2_top))
 
 
-def _dummy_spot(cell: UnitCell, pad: Rect) -> Rect:
+def _dummy_spot(drawn: tuple[Rect, ...], pad: Rect) -> Rect:
     """Where a dummy's label for ``pad``'s role sits: the pad, when the dummy's own metal
-    covers its centre, else the dummy's largest shape on that role (a dummy's top plate
-    is cut by the corridor a strap passes through)."""
-    shapes = [s for s in (cell.dummy_shapes or ()) if s.role == pad.role]
+    (``drawn``: a whole dummy cell's shapes, or a ring strip's) covers its centre, else
+    the dummy's largest shape on that role (a dummy's top plate is cut by the corridor a
+    strap passes through; a strip lies off the cell's centre)."""
+    shapes = [s for s in drawn if s.role == pad.role]
     if not shapes:
         return pad
     x, y = pad.centre
@@ -1147,9 +1146,8 @@ def route(pattern: Pattern, spec: Spec, rules: Rules | None = None,
             flip = False
             strip = plan.strips.get((r, c))
             for term in cell.terminals:
-                spot = (_dummy_spot(cell, term.pad) if strip is None
-                        else max((s_ for s_ in strip.shapes if s_.role == term.pad.role),
-                                 key=lambda s_: (s_.x1 - s_.x0) * (s_.y1 - s_.y0)))
+                spot = _dummy_spot(cell.dummy_shapes or () if strip is None else strip.shapes,
+                                   term.pad)
                 spot = spot.moved(c * px, -r * py, flip)
                 cx, cy = spot.centre
                 w.labels.append(Label(tap.net, term.pad.role, snap(cx), snap(cy)))
