@@ -328,7 +328,11 @@ def grade(layout: Path, spec_path: Path | None, as_json: bool, budget_plot: Path
     pat, spec, rec = _load_graded(layout, spec_path, cell=cell, mapping=mapping,
                                   dummy_cells=dummy_cells, layers_path=layers_path,
                                   echo_notes=not as_json)
-    result = grade_pattern(pat, spec)
+    from placer.jobs.load import drawn_geometry
+
+    # a pattern file is measured as placer draws it; a hand layout's own diffusion is not
+    # read, so it has no layout-dependent figures
+    result = grade_pattern(pat, spec, drawn_geometry(spec) if rec.fmt == "pattern" else None)
     worst_pair, sens = sensitivity(pat, spec.array.pitch_um, result,
                                    spec.gradient.linear_ppm_per_um, spec.gradient)
     bud = _budget(pat, spec, result, required=budget_plot is not None)
@@ -580,6 +584,8 @@ def arrange(spec_path: Path, out_dir: Path, time_limit: float, seed: int, n_cand
             with forked.aside(previews.draw if worth else None) as pictures:
                 block = (drawing.prepare(result.pattern, spec, tools) if tools is not None
                          else None)
+                if block is not None:
+                    result = replace(result, grade=drawing.graded_with_lde(result.grade, block))
                 bud = _budget(result.pattern, spec, result.grade, required=False,
                               block=block)
                 outputs.write_arrangement(out, result, block, bud, spec_path=spec_path,
@@ -633,7 +639,7 @@ def draw(pattern_path: Path, spec_path: Path | None, out_dir: Path, layers_path:
     stem = pattern_path.stem if NAME_RE.match(pattern_path.stem) else spec.name
     block = drawing.prepare(pattern, spec, tools)
     spec = block.spec                        # at the pitch its routing needs
-    grade_ = grade_pattern(pattern, spec)
+    grade_ = drawing.graded_with_lde(grade_pattern(pattern, spec), block)
     with OutputSet(out_dir, outputs.draw_names(stem), force) as out:
         outputs.write_block(block, grade_, out, stem,
                             _gradient_field(spec, grade_) if overlay else None)

@@ -35,6 +35,8 @@ __all__ = [
     "KERNELS",
     "ArraySpec",
     "UnitSpec",
+    "LdeSpec",
+    "DIFFUSION_STYLES",
     "GradientSpec",
     "CorrelatedSpec",
     "MismatchSpec",
@@ -126,6 +128,11 @@ class UnitSpec:
 
     width_um: float = 1.0
     length_um: float = 1.0
+    #: MOS fingers: "pairs" (every finger shares diffusion with one neighbour, a finger
+    #: of its own or of another device, or an end dummy, so that every finger of every
+    #: device sees the same diffusion on its two sides) or "shared" (neighbours share
+    #: diffusion wherever their facing terminals are one net)
+    diffusion: str = "pairs"
 
     @property
     def area_um2(self) -> float:
@@ -229,6 +236,37 @@ class RoutingSpec:
 
 
 @dataclass(frozen=True)
+class LdeSpec:
+    """Layout-dependent effects of MOS fingers (table [lde]): the BSIM4 stress-effect form
+    in SA, SB and L and its well-proximity form in the distance to the well edge, with
+    coefficients of the process. The defaults are illustrative, of placer's own (a few %
+    of mobility and a few mV at a diffusion a quarter micrometre long), no process's.
+    ``well_margin_um``: the well edge stands this far beyond the array's outermost
+    diffusion on every side (None: no well edge near the array, no proximity term)."""
+
+    ku0_um: float = -0.01
+    kvth0_mv_um: float = 2.0
+    saref_um: float = 1.0
+    sbref_um: float = 1.0
+    well_margin_um: float | None = None
+    scref_um: float = 1.0
+    web: float = 0.0
+    wec: float = 0.0
+    kvth0we_mv: float = 30.0
+    ku0we: float = -0.05
+
+    @property
+    def zero(self) -> bool:
+        """No coefficient left: the effects vanish exactly."""
+        return (self.ku0_um == 0 and self.kvth0_mv_um == 0
+                and (self.well_margin_um is None
+                     or (self.kvth0we_mv == 0 and self.ku0we == 0)))
+
+
+DIFFUSION_STYLES = ("pairs", "shared")
+
+
+@dataclass(frozen=True)
 class ElectricalSpec:
     """Electrical parameters for the error budget (table [electrical])."""
 
@@ -271,6 +309,7 @@ class Spec:
     dummy_net: str = "VSS"
     routing: RoutingSpec = field(default_factory=RoutingSpec)
     placement: Placement = field(default_factory=Placement)
+    lde: LdeSpec = field(default_factory=LdeSpec)
 
     @property
     def n_units(self) -> int:
@@ -371,11 +410,13 @@ def check_name(name: str, what: str) -> str:
 _SCHEMA: dict[str, tuple[str, ...]] = {
     "": ("name", "kind", "devices", "array", "unit", "gradient", "correlated", "mismatch",
          "monte_carlo", "search", "electrical", "terminals", "routing", "pins", "groups",
-         "match"),
+         "match", "lde"),
     "array": ("rows", "columns", "dummies", "pitch_um", "aspect", "dummy_net", "holes", "mask",
               "keep_out", "symmetry", "ring_depth_um"),
     "match": ("pairs", "nets"),
-    "unit": ("width_um", "length_um"),
+    "unit": ("width_um", "length_um", "diffusion"),
+    "lde": ("ku0_um", "kvth0_mv_um", "saref_um", "sbref_um", "well_margin_um", "scref_um",
+            "web", "wec", "kvth0we_mv", "ku0we"),
     "gradient": ("linear_ppm_per_um", "linear_pct_per_mm", "quadratic_ppm_per_um2", "order",
                  "vt_mv_per_mm", "beta_pct_per_mm", "direction_deg", "hot_spot"),
     "gradient.hot_spot": ("x_um", "y_um", "ppm", "fall_off_um"),
@@ -401,6 +442,16 @@ _RANGES: dict[tuple[str, str], tuple[float, float, str]] = {
     ("array", "ring_depth_um"): (0.001, 10_000.0, " um"),
     ("unit", "width_um"): (0.001, 10_000.0, " um"),
     ("unit", "length_um"): (0.001, 10_000.0, " um"),
+    ("lde", "ku0_um"): (-10.0, 10.0, " um"),
+    ("lde", "kvth0_mv_um"): (-1e4, 1e4, " mV um"),
+    ("lde", "saref_um"): (0.001, 1e4, " um"),
+    ("lde", "sbref_um"): (0.001, 1e4, " um"),
+    ("lde", "well_margin_um"): (0.001, 1e4, " um"),
+    ("lde", "scref_um"): (0.001, 1e4, " um"),
+    ("lde", "web"): (-1e6, 1e6, ""),
+    ("lde", "wec"): (-1e6, 1e6, ""),
+    ("lde", "kvth0we_mv"): (-1e4, 1e4, " mV"),
+    ("lde", "ku0we"): (-0.99, 1e3, ""),
     ("correlated", "sigma_ppm"): (0.0, 1e6, " ppm"),
     ("correlated", "length_um"): (0.001, 1e6, " um"),
     ("mismatch", "a_param_pct_um"): (0.0, 100.0, " %um"),
@@ -654,7 +705,12 @@ def read_spec_text(text: str, source: str = "<spec>", default_name: str = "place
 
     un = _Reader(source, "unit", data.get("unit", {}))
     dw, dl = KIND_RECORDS[kind].unit_um
-    unit = UnitSpec(un.number("width_um", dw) or dw, un.number("length_um", dl) or dl)
+    diffusion = un.choice("diffusion", "pairs", DIFFUSION_STYLES)
+    if "diffusion" in un.data and not KIND_RECORDS[kind].fingers:
+        raise un.fail("diffusion", "is for MOS fingers (kind = \"mos\")")
+    unit = UnitSpec(un.number("width_um", dw) or dw, un.number("length_um", dl) or dl,
+                    diffusion)
+    lde = _lde(source, data.get("lde", {}), kind)
 
     raw_el = data.get("electrical")
     if isinstance(raw_el, dict):
@@ -736,7 +792,7 @@ def read_spec_text(text: str, source: str = "<spec>", default_name: str = "place
                 unit=unit, gradient=gradient, correlated=correlated, mismatch=mismatch,
                 monte_carlo=monte_carlo, search=search, electrical=electrical, source=source,
                 nets=nets, joins=joins, dummy_net=dummy_net, routing=routing,
-                placement=placement)
+                placement=placement, lde=lde)
     _check_work(spec)
     return spec
 
@@ -1218,6 +1274,19 @@ def _kinds_with(attribute: str, value: object) -> str:
     'kind = "cap"' or 'kind = "cap" or "mim"'."""
     names = [f'"{k.name}"' for k in KIND_RECORDS.values() if getattr(k, attribute) == value]
     return "kind = " + " or ".join(names)
+
+
+def _lde(source: str, raw: Any, kind: str) -> LdeSpec:
+    """The [lde] table: coefficients of the layout-dependent effects (MOS only)."""
+    le = _Reader(source, "lde", raw)
+    if le.data and not KIND_RECORDS[kind].fingers:
+        raise SpecError(f"{source}: [lde] describes MOS fingers' diffusion and well; "
+                        f"a {kind} array has none (remove the table)")
+    d = LdeSpec()
+    out = {k: le.number(k, getattr(d, k), positive=False) for k in _SCHEMA["lde"]}
+    for k in ("saref_um", "sbref_um", "scref_um"):
+        out[k] = le.number(k, getattr(d, k))
+    return LdeSpec(**out)   # type: ignore[arg-type]
 
 
 def _num(reader: _Reader, key: str, default: float) -> float:

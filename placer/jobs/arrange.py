@@ -20,10 +20,13 @@ from placer.model.grade import Grade, grade_pattern
 from placer.model.routing_estimate import (
     FingerNets,
     Routing,
+    diffusion_joins,
+    dummy_net_id,
     estimate_routing,
     finger_terminals,
     mos_finger_nets,
     orient_row,
+    pair_row,
 )
 from placer.search import (
     Keys,
@@ -183,6 +186,7 @@ def problem_for(spec: Spec, rows: int, cols: int,
         objective=spec.search.objective, relative_tie=spec.search.relative_tie,
         open_edge=grid.open_edge(spec, rows, cols, use),
         finger_nets=mos_finger_nets(spec) if KINDS[spec.kind].fingers else None,
+        pair_dummy=_pair_dummy(spec),
         usable=None if use is None else tuple(bool(x) for x in use),
         pinned=grid.pinned_slots(spec, cols) if usable is None else (),
         pairs=tuple(spec.ranked_pairs()),
@@ -200,19 +204,27 @@ def build_pattern(spec: Spec, assign: IntArray, rows: int, cols: int) -> Pattern
     if KINDS[spec.kind].fingers:
         nets = mos_finger_nets(spec)
         tally: dict[int, int] = {}
+        pairs = spec.unit.diffusion == "pairs"
+        dummy = dummy_net_id(spec)
         for r in range(ids.shape[0]):
-            marks, _ = orient_row(ids[r], tally, nets)
+            if pairs:
+                marks, _ = pair_row(ids[r], tally, nets, dummy)
+            else:
+                marks, _ = orient_row(ids[r], tally, nets)
             orient[r] = marks
-        orient = balance_orientations(ids, orient, nets)
+        orient = balance_orientations(ids, orient, nets, dummy if pairs else None)
     return Pattern(spec.devices, ids, orient)
 
 
 def balance_orientations(ids: NDArray[np.int_], orient: NDArray[np.int8],
-                         nets: FingerNets = None) -> NDArray[np.int8]:
+                         nets: FingerNets = None, pairs_dummy: int | None = None
+                         ) -> NDArray[np.int8]:
     """Flip single fingers, or neighbouring pairs, to even out each device's > and < counts.
 
-    A flip is kept only if it adds no diffusion break and lowers the total imbalance
-    sum_d |#> - #<|, so the row stays as drawable as the DP left it.
+    A flip is kept only if it adds no diffusion break (with ``pairs_dummy``, the dummy
+    net of a spec whose diffusion goes in pairs: if it leaves as many fingers paired) and
+    lowers the total imbalance sum_d |#> - #<|, so the row stays as drawable as the DP
+    left it.
     """
     if not np.any(ids >= 0):
         return orient.copy()
@@ -224,7 +236,15 @@ def balance_orientations(ids: NDArray[np.int_], orient: NDArray[np.int8],
     n_cols = ids.shape[1]
 
     def edge_breaks(row: list[int], mk: list[int], lo: int, hi: int) -> int:
-        """Breaks between neighbours (c-1, c) for c in lo..hi of one row."""
+        """Breaks between neighbours (c-1, c) for c in lo..hi of one row (with
+        ``pairs_dummy``: fingers left unpaired in the whole row)."""
+        if pairs_dummy is not None:
+            r_ids = np.array([row]), np.array([mk], dtype=np.int8)
+            joined = diffusion_joins(r_ids[0], r_ids[1], nets, pairs_dummy, "pairs")[0]
+            paired = np.zeros(n_cols, dtype=bool)
+            paired[:-1] |= joined
+            paired[1:] |= joined
+            return int(sum(1 for x in range(n_cols) if row[x] >= 0 and not paired[x]))
         out = 0
         for c in range(max(lo, 1), min(hi, n_cols - 1) + 1):
             a, b = row[c - 1], row[c]
@@ -279,6 +299,12 @@ def baseline_pattern(spec: Spec, method: str, rows: int, cols: int,
 
 def _nets(spec: Spec) -> FingerNets:
     return mos_finger_nets(spec) if KINDS[spec.kind].fingers else None
+
+
+def _pair_dummy(spec: Spec) -> int | None:
+    """The dummy net's number when the spec's fingers go two to a diffusion island."""
+    return (dummy_net_id(spec) if KINDS[spec.kind].fingers and spec.unit.diffusion == "pairs"
+            else None)
 
 
 def _systematic(prob: Problem, keys: Keys) -> float:
@@ -505,7 +531,7 @@ def arrange(spec: Spec, *, method: str = "auto", seed: int = 0,
     spec = final
     grade = grade_pattern(pattern, spec)
     routing = estimate_routing(pattern, spec.array.pitch_um, KINDS[spec.kind].fingers,
-                               _nets(spec))
+                               _nets(spec), _pair_dummy(spec))
     cands, against = (_candidates(spec, best, n_candidates, weigh) if n_candidates
                       else ((), ""))
     return Arrangement(
@@ -606,7 +632,7 @@ def _candidates(spec: Spec, best: _Tried, k: int, weigh: Weigh | None = None
         keys = keys_of(prob, assign)
         pattern = build_pattern(spec, assign, rows, cols)
         route = estimate_routing(pattern, spec.array.pitch_um, KINDS[spec.kind].fingers,
-                                 _nets(spec))
+                                 _nets(spec), _pair_dummy(spec))
         wiring_ppm = block_um2 = None
         if weigh is not None:
             wiring_ppm, block_um2 = weigh(pattern, spec)

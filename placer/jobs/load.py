@@ -12,8 +12,9 @@ from pathlib import Path
 from placer.errors import PlacerError, SpecError
 from placer.io.spec import Spec, bare_spec, read_spec, read_spec_text
 from placer.layout.pitch import check_extent, estimated
+from placer.model.lde import FingerGeometry
 
-__all__ = ["load_spec", "parse_spec", "default_spec", "ready"]
+__all__ = ["load_spec", "parse_spec", "default_spec", "ready", "drawn_geometry"]
 
 
 def ready(spec: Spec) -> Spec:
@@ -112,3 +113,21 @@ def default_spec(name: str, devices: tuple[str, ...], counts: tuple[int, ...],
         The default spec at its estimated pitch.
     """
     return ready(bare_spec(name, devices, counts, kind))
+
+
+def drawn_geometry(spec: Spec) -> FingerGeometry | None:
+    """The MOS finger as placer's shipped cell draws it at ``spec``'s pitch (what the
+    layout-dependent figures of a pattern file are measured on), or None for another
+    kind or a pitch too small for the cell."""
+    from placer.kinds import KINDS
+    from placer.layout.block import finger_geometry
+    from placer.layout.cells import load_rules, unit_cell
+
+    if not KINDS[spec.kind].fingers:
+        return None
+    try:
+        cell = unit_cell(spec.kind, spec.unit.width_um, spec.unit.length_um,
+                         spec.array.pitch_um[0], load_rules(spec.kind))
+    except PlacerError:
+        return None
+    return finger_geometry(cell, spec)

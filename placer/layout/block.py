@@ -14,6 +14,7 @@ from typing import Any, cast
 from placer.errors import LimitError
 from placer.io.pattern import EMPTY, Pattern
 from placer.io.spec import ElectricalSpec, Spec
+from placer.kinds import KINDS
 from placer.layout.cells import Rules, UnitCell, load_rules, unit_cell
 from placer.layout.layers import LayerMap, load_layers
 from placer.layout.parasitics import NetFigures, Parasitics, extract
@@ -23,8 +24,11 @@ from placer.layout.router import NetSummary, Wiring, route
 from placer.layout.wiring_error import wiring_effect
 from placer.limits import MAX_EXTENT_UM
 from placer.model.budget import WiringEffect
+from placer.model.grade import Grade, lde_of
+from placer.model.lde import FingerGeometry
 
 __all__ = ["Area", "area_of", "Block", "Tools", "load_tools", "prepare", "library",
+           "finger_geometry", "graded_with_lde",
            "layout_of", "wiring_of"]
 
 
@@ -115,6 +119,23 @@ def prepare(pattern: Pattern, spec: Spec, tools: Tools) -> Block:
     parasitics = extract(wiring, spec.routing, tools.rules)
     wiring.nets = [_with_figures(n, parasitics.nets.get(n.name)) for n in wiring.nets]
     return Block(pattern, spec, cell, wiring, tools, parasitics)
+
+
+def finger_geometry(cell: UnitCell, spec: Spec) -> FingerGeometry | None:
+    """What the layout-dependent terms need of ``cell``'s MOS finger at ``spec``'s pitch
+    (None: another kind, or a user's cell, whose diffusion placer does not read)."""
+    if cell.diffusion is None or not KINDS[spec.kind].fingers:
+        return None
+    px, py = spec.array.pitch_um
+    return FingerGeometry(px, py, cell.diffusion[2], spec.unit.length_um, spec.unit.width_um)
+
+
+def graded_with_lde(grade: Grade, block: Block) -> Grade:
+    """``grade`` with the layout-dependent figures of the drawn ``block``."""
+    geom = finger_geometry(block.cell, block.spec)
+    if geom is None:
+        return grade
+    return replace(grade, lde=lde_of(block.pattern, block.spec, geom))
 
 
 def wiring_of(block: Block, electrical: ElectricalSpec | None = None) -> WiringEffect:

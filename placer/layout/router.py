@@ -1234,20 +1234,22 @@ def _summaries(w: Wiring, spec: Spec) -> None:
 
 def _diffusion_joins(pattern: Pattern, spec: Spec, cell: UnitCell,
                      nets: dict[tuple[int, int], dict[str, str]], w: Wiring) -> None:
-    """Join the diffusion of neighbouring fingers whose facing terminals share a net."""
+    """Join the diffusion of neighbouring fingers as the spec's ``[unit] diffusion`` style
+    says (:func:`placer.model.routing_estimate.diffusion_joins`: only where their facing
+    terminals share a net; with "pairs", two fingers to an island)."""
+    from placer.model.routing_estimate import diffusion_joins, dummy_net_id, mos_finger_nets
+
     assert cell.diffusion is not None
     x0, y0, x1, y1 = cell.diffusion
     px, py = spec.array.pitch_um
-    rows, cols = pattern.shape
-    for r in range(rows):
-        for c in range(cols - 1):
-            if (r, c) not in nets or (r, c + 1) not in nets:
-                continue
-            left_right = _facing(pattern, nets, r, c)[1]
-            right_left = _facing(pattern, nets, r, c + 1)[0]
-            if left_right == right_left:
-                w.shapes.append(Rect("diffusion", snap(c * px + x1), snap(-r * py + y0),
-                                     snap((c + 1) * px + x0), snap(-r * py + y1)))
+    joins = diffusion_joins(pattern.ids, pattern.orient, mos_finger_nets(spec),
+                            dummy_net_id(spec), spec.unit.diffusion)
+    for r, c in zip(*np.nonzero(joins), strict=True):
+        r, c = int(r), int(c)
+        # the same rule on the drawn nets: a join never ties two nets
+        assert _facing(pattern, nets, r, c)[1] == _facing(pattern, nets, r, c + 1)[0]
+        w.shapes.append(Rect("diffusion", snap(c * px + x1), snap(-r * py + y0),
+                             snap((c + 1) * px + x0), snap(-r * py + y1)))
 
 
 def _facing(pattern: Pattern, nets: dict[tuple[int, int], dict[str, str]], r: int, c: int

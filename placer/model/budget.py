@@ -37,6 +37,7 @@ from placer.io.spec import ElectricalSpec, Spec
 from placer.kinds import KINDS
 from placer.model import variation
 from placer.model.grade import Grade
+from placer.model.lde import relative_current
 
 __all__ = [
     "MirrorLine",
@@ -202,6 +203,9 @@ class MirrorLine:
     cure: str
     mc_std_pct: float | None = None
     wiring_pct: float | None = None     # None: not routed (grade of a pattern alone)
+    #: layout-dependent effects (diffusion length, well proximity) of MOS fingers
+    #: (None: no drawn geometry, or another kind)
+    lde_pct: float | None = None
 
 
 @dataclass(frozen=True)
@@ -252,6 +256,8 @@ _CURES = {
     "gradient": "a better arrangement (common centroid, finer interdigitation)",
     "clm": "a longer channel (lower lambda) or a cascode that equalises the drain voltages",
     "random": "more area (larger W x L per unit, or more units in parallel)",
+    "lde": "the same diffusion on both sides of every finger ([unit] diffusion = \"pairs\", "
+           "end dummies) and fingers farther from the well edge",
 }
 
 
@@ -340,12 +346,18 @@ def _ratio_budget(pattern: Pattern, spec: Spec, grade: Grade, e: ElectricalSpec,
             # follows); res: resistances add, so the ratio is exact
             a, b = wiring.relative[name], wiring.relative[ref]
             wire = 100.0 * ((a - b) if mos else (1.0 + a) / (1.0 + b) - 1.0)
-        fixed = clm + (wire or 0.0)          # signed systematic parts
+        lde = None
+        if mos and grade.lde is not None:
+            # each device's current is the sum over its fingers: the ratio is exact
+            ea = relative_current(grade.lde.device(name), e.gm_id_per_v)
+            eb = relative_current(grade.lde.device(ref), e.gm_id_per_v)
+            lde = 100.0 * ((1.0 + ea) / (1.0 + eb) - 1.0)
+        fixed = clm + (wire or 0.0) + (lde or 0.0)        # signed systematic parts
         low = fixed - grad - quad - k * sigma
         high = fixed + grad + quad + k * sigma
         offset = abs(fixed) + grad + quad
         terms = {"gradient": grad + quad, "clm": abs(clm), "random": k * sigma,
-                 "wiring": abs(wire or 0.0)}
+                 "wiring": abs(wire or 0.0), "lde": abs(lde or 0.0)}
         dominant = max(terms, key=lambda t: terms[t])
         lines.append(MirrorLine(
             device=name, ideal_ratio=count[name] / count[ref], gradient_pct=grad,
@@ -353,6 +365,7 @@ def _ratio_budget(pattern: Pattern, spec: Spec, grade: Grade, e: ElectricalSpec,
             random_sigma_pct=sigma, total_low_pct=low, total_high_pct=high,
             within_tolerance=within_tolerance(offset, sigma, e.tolerance_pct),
             dominant=dominant, cure=_CURES[dominant], mc_std_pct=mc_std, wiring_pct=wire,
+            lde_pct=lde,
         ))
     assumptions: dict[str, Any] = {"k_sigma": e.k_sigma, "tolerance_pct": e.tolerance_pct,
                                    "gradient": spec.gradient.described,
@@ -368,6 +381,9 @@ def _ratio_budget(pattern: Pattern, spec: Spec, grade: Grade, e: ElectricalSpec,
         })
     else:
         assumptions.update({"a_param_pct_um": spec.mismatch.a_param_pct_um})
+    if mos and grade.lde is not None:
+        assumptions.update({"lde": dict(grade.lde.coefficients),
+                            "diffusion": grade.lde.style})
     if wiring is not None:
         assumptions.update({"wiring": wiring.counted, "wiring_missing": wiring.missing,
                             "wiring_notes": list(wiring.notes),

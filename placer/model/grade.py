@@ -12,8 +12,9 @@ from placer.io.pattern import Pattern, unit_positions
 from placer.io.spec import Spec
 from placer.model import variation
 from placer.model.exact_moments import grid_sums, pair_linear, pair_second
+from placer.model.lde import FingerGeometry, LdeFigures
 
-__all__ = ["DeviceScore", "PairScore", "MonteCarloSummary", "Grade", "grade_pattern",
+__all__ = ["DeviceScore", "PairScore", "MonteCarloSummary", "Grade", "grade_pattern", "lde_of",
            "assumptions"]
 
 
@@ -79,6 +80,9 @@ class Grade:
     pairs: tuple[PairScore, ...]
     assumptions: dict[str, Any]
     monte_carlo: MonteCarloSummary | None = None
+    #: MOS fingers drawn by placer's cell: each device's diffusion-length (SA/SB) and
+    #: well-proximity figures (None: another kind, or no drawn geometry to measure)
+    lde: LdeFigures | None = None
 
     def worst(self, field: str, group: str | None = None) -> PairScore | None:
         """The pair with the largest value of ``field`` (absolute), or None; with
@@ -124,7 +128,8 @@ def assumptions(spec: Spec) -> dict[str, Any]:
     }
 
 
-def grade_pattern(pattern: Pattern, spec: Spec) -> Grade:
+def grade_pattern(pattern: Pattern, spec: Spec, geometry: FingerGeometry | None = None
+                  ) -> Grade:
     """Compute every figure of ``pattern``.
 
     Parameters
@@ -134,6 +139,9 @@ def grade_pattern(pattern: Pattern, spec: Spec) -> Grade:
         (:func:`placer.io.pattern.check_against_spec`).
     spec : Spec
         Pitch and model assumptions: gradients, correlated field, mismatch.
+    geometry : FingerGeometry, optional
+        MOS fingers as drawn (placer's cell at the spec's pitch): with it, the
+        layout-dependent figures (diffusion length, well proximity) too.
 
     Returns
     -------
@@ -222,7 +230,26 @@ def grade_pattern(pattern: Pattern, spec: Spec) -> Grade:
         name=spec.name, kind=spec.kind, shape=pattern.shape, pitch_um=spec.array.pitch_um,
         centre_um=(float(centre[0]), float(centre[1])), devices=tuple(devices),
         pairs=tuple(pairs), assumptions=assumptions(spec), monte_carlo=mc,
+        lde=lde_of(pattern, spec, geometry) if geometry is not None else None,
     )
+
+
+def lde_of(pattern: Pattern, spec: Spec, geometry: FingerGeometry) -> LdeFigures | None:
+    """The layout-dependent figures of a MOS ``pattern`` drawn with ``geometry`` (its
+    diffusion joined as the spec's ``[unit] diffusion`` style joins it), or None for
+    another kind."""
+    from placer.kinds import KINDS
+    from placer.model.lde import lde_figures
+    from placer.model.routing_estimate import diffusion_joins, dummy_net_id, mos_finger_nets
+
+    if not KINDS[spec.kind].fingers or pattern.ids.shape[1] < 1:
+        return None
+    nets = mos_finger_nets(spec) if tuple(spec.devices) == tuple(pattern.devices) else None
+    joins = diffusion_joins(pattern.ids, pattern.orient, nets,
+                            dummy_net_id(spec) if nets is not None else -1,
+                            spec.unit.diffusion)
+    return lde_figures(pattern.ids, joins, pattern.devices, geometry, spec.lde,
+                       spec.unit.diffusion)
 
 
 def _monte_carlo(spec: Spec, xy_c: np.ndarray, dev: np.ndarray, n_dev: int, pr: np.ndarray,

@@ -11,7 +11,8 @@ from numpy.typing import NDArray
 from placer.io.pattern import Pattern, unit_positions
 
 __all__ = ["Routing", "estimate_routing", "row_tracks", "diffusion_breaks", "orient_row",
-           "finger_terminals", "FingerNets", "mos_finger_nets"]
+           "finger_terminals", "FingerNets", "mos_finger_nets", "dummy_net_id", "facing",
+           "diffusion_joins", "pair_row", "NO_NET"]
 
 #: (source net, drain net) of each MOS device as integers; None: a mirror's nets (shared
 #: source, own drain).
@@ -57,6 +58,186 @@ def mos_finger_nets(spec: Any) -> FingerNets:
     ids: dict[str, int] = {}
     return tuple((ids.setdefault(n["source"], len(ids)), ids.setdefault(n["drain"], len(ids)))
                  for n in spec.nets)
+
+
+def dummy_net_id(spec: Any) -> int:
+    """The dummy net's number among :func:`mos_finger_nets`' (a new one when no device
+    terminal's diffusion is on it).
+
+    Examples
+    --------
+    >>> from placer.jobs.load import parse_spec
+    >>> dummy_net_id(parse_spec("[devices]\\nA = 2\\nB = 2\\n"))
+    0
+    """
+    ids: dict[str, int] = {}
+    for n in spec.nets:
+        ids.setdefault(n["source"], len(ids))
+        ids.setdefault(n["drain"], len(ids))
+    return ids.get(spec.dummy_net, len(ids))
+
+
+#: The net of an empty slot's sides: equal to no net, not even its own kind.
+NO_NET = -(10**9)
+
+
+def facing(ids: NDArray[np.int_], orient: NDArray[np.int8], nets: FingerNets,
+           dummy: int) -> tuple[NDArray[np.int_], NDArray[np.int_]]:
+    """(left, right) diffusion net of every slot: a finger's by its orientation, a dummy's
+    ``dummy`` on both sides (every terminal of a dummy is on the dummy net), an empty
+    slot's ``NO_NET`` (and a second, different one on its right) so that it joins nothing.
+
+    Examples
+    --------
+    >>> left, right = facing(np.array([[-1, 0, 1, -2]]), np.array([[0, -1, 1, 0]]), None, -1)
+    >>> left.tolist(), right[0, :3].tolist()
+    ([[-1, 0, -1, -1000000000]], [-1, -1, 1])
+    """
+    left = np.full(ids.shape, NO_NET, dtype=np.int64)
+    right = np.full(ids.shape, NO_NET - 1, dtype=np.int64)
+    for (r, c), d in np.ndenumerate(ids):
+        if d >= 0:
+            left[r, c], right[r, c] = finger_terminals(int(d), int(orient[r, c]), nets)
+        elif d == -1:                                   # DUMMY
+            left[r, c] = right[r, c] = dummy
+    return left, right
+
+
+def _edge_weight(a: int, b: int) -> tuple[int, int]:
+    """(active fingers covered, active pairs) of joining neighbours with ids a and b."""
+    n = (a >= 0) + (b >= 0)
+    return (n, 1) if n == 2 else (n, 0)
+
+
+def diffusion_joins(ids: NDArray[np.int_], orient: NDArray[np.int8], nets: FingerNets,
+                    dummy: int, style: str) -> NDArray[np.bool_]:
+    """Which neighbours (c, c+1) of each row share diffusion: ``joins[r, c]``.
+
+    ``"shared"``: wherever their facing terminals are one net (two dummies too).
+    ``"pairs"``: every diffusion island holds two fingers, so that each finger sees the
+    same diffusion on its two sides as every other (its partner's the mirror image): of
+    the neighbours that may share, the most active fingers are paired (with a finger or
+    an end dummy), then the most active pairs; the rest stand alone.
+
+    Examples
+    --------
+    >>> ids = np.array([[-1, 1, 0, 0, 1, -1]])
+    >>> orient = np.array([[0, -1, 1, -1, 1, 0]])
+    >>> diffusion_joins(ids, orient, None, -1, "shared").astype(int).tolist()
+    [[0, 1, 1, 1, 0]]
+    >>> diffusion_joins(ids, orient, None, -1, "pairs").astype(int).tolist()
+    [[0, 1, 0, 1, 0]]
+    """
+    left, right = facing(ids, orient, nets, dummy)
+    can = right[:, :-1] == left[:, 1:]
+    if style == "shared":
+        return can
+    out = np.zeros(can.shape, dtype=bool)
+    for r in range(ids.shape[0]):
+        row = [int(v) for v in ids[r]]
+        n = len(row)
+        # best[c]: (covered, pairs) over slots 0..c-1; took[c]: edge (c-2, c-1) taken
+        best: list[tuple[int, int]] = [(0, 0)] * (n + 1)
+        took = [False] * (n + 1)
+        for c in range(2, n + 1):
+            best[c], took[c] = best[c - 1], False
+            if can[r, c - 2] and (row[c - 2] >= 0 or row[c - 1] >= 0):
+                w = _edge_weight(row[c - 2], row[c - 1])
+                cand = (best[c - 2][0] + w[0], best[c - 2][1] + w[1])
+                if cand > best[c]:
+                    best[c], took[c] = cand, True
+        c = n
+        while c >= 2:
+            if took[c]:
+                out[r, c - 2] = True
+                c -= 2
+            else:
+                c -= 1
+    return out
+
+
+def pair_row(row: NDArray[np.int_], balance: dict[int, int] | None = None,
+             nets: FingerNets = None, dummy: int = -1) -> tuple[list[int], int]:
+    """Orientations (+1 '>', -1 '<') for one MOS row that let the most fingers share
+    diffusion with exactly one neighbour (:func:`diffusion_joins` with ``"pairs"``), and
+    the number of active fingers left alone.
+
+    A dummy pairs with a finger whose facing terminal is on the dummy net. Among equally
+    good choices the one that evens out each device's count of '>' and '<' (running tally
+    in ``balance``) wins.
+
+    Examples
+    --------
+    >>> pair_row(np.array([0, 1, 1, 0]))
+    ([-1, 1, -1, 1], 0)
+    >>> pair_row(np.array([-1, 0, 0, 0, -1]))[1]
+    0
+    """
+    balance = {} if balance is None else balance
+    ids = [int(v) for v in row]
+    n = len(ids)
+
+    def sides(i: int, o: int) -> tuple[int, int]:
+        d = ids[i]
+        if d >= 0:
+            return finger_terminals(d, 1 if o else -1, nets)
+        return (dummy, dummy) if d == -1 else (NO_NET, NO_NET - 1)
+
+    opts = [(0, 1) if d >= 0 else (1,) for d in ids]
+    Score = tuple[int, int]
+    # val[i][(o, m)]: best (covered, pairs) over slots 0..i with slot i in orientation o
+    # (0 '<', 1 '>') joined to slot i-1 (m = 1) or not (m = 0)
+    val: list[dict[tuple[int, int], Score]] = []
+    back: list[dict[tuple[int, int], tuple[int, int] | None]] = []
+    for i in range(n):
+        v: dict[tuple[int, int], Score] = {}
+        b: dict[tuple[int, int], tuple[int, int] | None] = {}
+        for o in opts[i]:
+            if i == 0:
+                v[o, 0], b[o, 0] = (0, 0), None
+                continue
+            prev = val[i - 1]
+            key = max(prev, key=lambda k: prev[k])
+            v[o, 0], b[o, 0] = prev[key], key
+            left = sides(i, o)[0]
+            w = _edge_weight(ids[i - 1], ids[i])
+            if w[0] == 0:
+                continue
+            for (po, pm), pv in prev.items():
+                if pm == 0 and sides(i - 1, po)[1] == left:
+                    cand = (pv[0] + w[0], pv[1] + w[1])
+                    if (o, 1) not in v or cand > v[o, 1]:
+                        v[o, 1], b[o, 1] = cand, (po, pm)
+        val.append(v)
+        back.append(b)
+    # trace back; at a tie, the orientation that evens out the device's tally
+    last = val[-1]
+    top = max(last.values())
+
+    def pick(cands: list[tuple[int, int]], i: int) -> tuple[int, int]:
+        d = ids[i]
+        if d < 0 or len(cands) == 1:
+            return cands[0]
+        want = 1 if balance.get(d, 0) <= 0 else 0
+        return next((k for k in cands if k[0] == want), cands[0])
+
+    state = pick([k for k, s in last.items() if s == top], n - 1)
+    marks = [0] * n
+    for i in range(n - 1, -1, -1):
+        if ids[i] >= 0:
+            marks[i] = 1 if state[0] else -1
+            balance[ids[i]] = balance.get(ids[i], 0) + marks[i]
+        prev_state = back[i][state]
+        if prev_state is None:
+            break
+        if i >= 1 and state[1] == 0:
+            # not joined: any best state of the slot before will do; even out its tally
+            before = val[i - 1]
+            good = max(before.values())
+            prev_state = pick([k for k, s in before.items() if s == good], i - 1)
+        state = prev_state
+    n_active = sum(d >= 0 for d in ids)
+    return marks, n_active - top[0]
 
 
 def finger_terminals(device: int, mark: int, nets: FingerNets = None) -> tuple[int, int]:
@@ -194,8 +375,10 @@ def spanning_tree_length(pts: NDArray[np.float64]) -> float:
 
 
 def estimate_routing(pattern: Pattern, pitch_um: tuple[float, float], mos: bool,
-                     nets: FingerNets = None) -> Routing:
-    """Tracks per row, half-perimeter and spanning-tree length per device, breaks for MOS."""
+                     nets: FingerNets = None, pair_dummy: int | None = None) -> Routing:
+    """Tracks per row, half-perimeter and spanning-tree length per device, breaks for MOS
+    (with ``pair_dummy``, the dummy net of fingers drawn two to an island: the breaks
+    drawn between neighbouring device fingers)."""
     xy, dev = unit_positions(pattern, pitch_um)
     tracks = row_tracks(pattern.ids)
     hp: dict[str, float] = {}
@@ -208,5 +391,15 @@ def estimate_routing(pattern: Pattern, pitch_um: tuple[float, float], mos: bool,
     return Routing(
         row_tracks=tuple(int(t) for t in tracks), total_tracks=int(tracks.sum()),
         half_perimeter_um=hp, tree_length_um=tree, total_tree_um=float(sum(tree.values())),
-        diffusion_breaks=diffusion_breaks(pattern.ids, pattern.orient, nets) if mos else None,
+        diffusion_breaks=(None if not mos else
+                          diffusion_breaks(pattern.ids, pattern.orient, nets)
+                          if pair_dummy is None else
+                          _drawn_breaks(pattern, nets, pair_dummy)),
     )
+
+
+def _drawn_breaks(pattern: Pattern, nets: FingerNets, dummy: int) -> int:
+    """Neighbouring device fingers whose diffusion is not joined, fingers two to an island."""
+    joins = diffusion_joins(pattern.ids, pattern.orient, nets, dummy, "pairs")
+    both = (pattern.ids[:, :-1] >= 0) & (pattern.ids[:, 1:] >= 0)
+    return int(np.sum(both & ~joins))

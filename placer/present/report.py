@@ -169,6 +169,7 @@ def format_grade(grade: Grade, max_pairs: int = 40, origin_um: tuple[float, floa
             out.append(f"Monte Carlo ({mc.samples} samples, seed {mc.seed}), {p.a}/{p.b}: "
                        f"std {_f(mc.std_ppm[worst])} ppm (exact {_f(mc.exact_std_ppm[worst])}),"
                        f" |error| 99th percentile {_f(mc.abs_p99_ppm[worst])} ppm")
+    out += format_lde(grade.lde)
     out.append("")
     out.append(
         "Assumptions: linear gradient {desc} (worst direction); Hessian norm {q:g} "
@@ -182,6 +183,30 @@ def format_grade(grade: Grade, max_pairs: int = 40, origin_um: tuple[float, floa
             ua=a["unit_area_um2"], src=a["spec"]))
     out.append(CAUTION)
     return "\n".join(out)
+
+
+def format_lde(lde: Any) -> list[str]:
+    """The layout-dependent figures of MOS fingers: each device's SA/SB spread and its
+    stress and well terms (no lines without them)."""
+    if lde is None:
+        return []
+    well = lde.coefficients.get("well_margin_um") is not None
+    rows = [[d.device, str(d.fingers), f"{d.sa_um[0]:.4g}..{d.sa_um[1]:.4g}",
+             f"{d.sb_um[0]:.4g}..{d.sb_um[1]:.4g}", f"{d.inv_od_per_um:.5g}",
+             f"{d.inv_od_range[0]:.4g}..{d.inv_od_range[1]:.4g}",
+             *([f"{d.sca:.4g}"] if well else []), _f(d.dvt_mv, 4), _f(100 * d.dmu_rel, 4)]
+            for d in lde.devices]
+    terms = [d.inv_od_per_um for d in lde.devices]
+    spread = (max(terms) - min(terms)) / max(terms) if terms and max(terms) > 0 else 0.0
+    how = ("two fingers to a diffusion island" if lde.style == "pairs"
+           else "diffusion shared wherever facing terminals are one net")
+    return ["", f"Diffusion and well (MOS fingers as drawn, {how}; SA/SB = gate edge to each "
+            "end of its diffusion in um; inv_od = mean of 1/(SA+L/2) + 1/(SB+L/2) per um, "
+            "BSIM4 stress form" + ("; SCA = mean well-proximity integral" if well else "")
+            + "; dVT in mV and dmu in % from the [lde] coefficients)",
+            format_table(["device", "fingers", "SA", "SB", "inv_od", "range",
+                          *(["SCA"] if well else []), "dVT", "dmu %"], rows),
+            f"Stress term spread between devices: {_f(100 * spread)} %"]
 
 
 def format_arrangement(result: Arrangement, spec: Spec) -> str:
@@ -236,10 +261,13 @@ def format_arrangement(result: Arrangement, spec: Spec) -> str:
                                   if n != result.method)]:
         rows.append([name, _f(b.linear_um, 4), _f(b.quadratic_ppm), _f(b.sigma_ppm),
                      f"{b.edge_imbalance:.2f}", str(b.tracks), *([str(b.breaks)] if mos else [])])
+    paired = spec.unit.diffusion == "pairs"
     out.append("Worst pair on the same core (linear um, quadratic ppm, correlated sigma ppm, "
-               "edge-share gap, row tracks" + (", diffusion breaks)" if mos else ")"))
+               "edge-share gap, row tracks"
+               + ((", fingers of the core without a diffusion partner)" if paired
+                   else ", diffusion breaks)") if mos else ")"))
     out.append(format_table(["arrangement", "linear", "quad", "sigma", "edge", "tracks",
-                             *(["breaks"] if mos else [])], rows))
+                             *([("unpaired" if paired else "breaks")] if mos else [])], rows))
     out.append("")
     out.append(format_grade(result.grade))
     out.append("The pattern is a starting point, not a design-rule-clean layout.")
@@ -282,14 +310,17 @@ def format_budget(b: Any) -> str:
                 "ratio to budget.")
     rows = []
     wired = any(ln.wiring_pct is not None for ln in b.lines)
+    lde = any(ln.lde_pct is not None for ln in b.lines)
     for ln in b.lines:
         rows.append([ln.device, f"{ln.ideal_ratio:g}", _f(ln.gradient_pct),
                      _f(ln.quadratic_pct), *([_f(ln.clm_pct)] if mos else []),
                      *([_f(ln.wiring_pct or 0.0)] if wired else []),
+                     *([_f(ln.lde_pct or 0.0)] if lde else []),
                      _f(ln.random_sigma_pct), f"{ln.total_low_pct:+.3g} .. "
                      f"{ln.total_high_pct:+.3g}", f"{100 * ln.within_tolerance:.1f}%"])
     head = [kind.device_label, "ratio", "grad %", "quad %",
             *(["clm %"] if mos else []), *(["wire %"] if wired else []),
+            *(["lde %"] if lde else []),
             "sigma %", f"total at {b.k_sigma:g} sigma %", f"within +-{b.tolerance_pct:g}%"]
     out = [f"Electrical budget against {b.reference} (error of I/I_{b.reference}, % of the "
            "ideal ratio; grad = linear gradient in its worst direction, quad = curvature, "
@@ -303,6 +334,10 @@ def format_budget(b: Any) -> str:
         out.append(f"  wire = the drawn wiring: {b.assumptions.get('wiring', '')}"
                    + (f" (not counted: give {missing})" if missing else ""))
         out += [f"  {note}" for note in b.assumptions.get("wiring_notes", [])]
+    if lde:
+        out.append("  lde = layout-dependent effects: diffusion length (stress) and well "
+                   "proximity of each finger as drawn, BSIM4 forms with the [lde] "
+                   "coefficients (illustrative unless the spec gives the process's)")
     for ln in b.lines:
         out.append(f"  {ln.device}: {ln.dominant} dominates; cure: {ln.cure}.")
     return "\n".join(out)

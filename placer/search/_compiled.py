@@ -237,12 +237,15 @@ def total_row_tracks(prob: Problem, assign: IntArray) -> int:
 
 
 def mos_breaks(prob: Problem, assign: IntArray) -> int:
-    """Fewest diffusion breaks the MOS rows need (0 for other kinds)."""
+    """Fewest diffusion breaks the MOS rows need (0 for other kinds); with fingers two to
+    an island (``prob.pair_dummy``), the fewest fingers left without a partner."""
     if prob.finger_nets is None:
         return 0
-    from placer.model.routing_estimate import orient_row
+    from placer.model.routing_estimate import orient_row, pair_row
 
     grid = assign.reshape(prob.rows, prob.cols)
+    if prob.pair_dummy is not None:
+        return sum(pair_row(row, None, prob.finger_nets, prob.pair_dummy)[1] for row in grid)
     return sum(orient_row(row, None, prob.finger_nets)[1] for row in grid)
 
 

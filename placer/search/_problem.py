@@ -65,6 +65,10 @@ class Problem:
     relative_tie: float = DEFAULT_RELATIVE_TIE
     open_edge: tuple[bool, ...] | None = None
     finger_nets: tuple[tuple[int, int], ...] | None = None
+    #: the dummy net's number when MOS fingers go two to a diffusion island: the
+    #: fingers a row leaves unpaired (whose diffusion differs) take the place of the
+    #: diffusion breaks in the last key
+    pair_dummy: int | None = None
     usable: tuple[bool, ...] | None = None
     pinned: tuple[tuple[int, int], ...] = ()
     pairs: tuple[tuple[int, int], ...] | None = None
