@@ -249,7 +249,7 @@ def test_given_row_measured_from_the_gdsii_agrees_with_the_report(tmp_path, styl
         assert _within(measured, 0.05)
     else:
         assert not _within(measured, 0.05)
-        assert measured["MB"] > measured["MA"]
+        assert measured["MB"] > 2 * measured["MA"]      # the README: "more than twice"
 
 
 MIRROR_256 = """
