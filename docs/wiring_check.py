@@ -77,12 +77,16 @@ def random_case(kind: str, rng: np.random.Generator) -> tuple[object, Pattern]:
             nets["join"] = str(rng.choice(["series", "parallel"]))
         lines.append(f"{name} = {{ " + ", ".join(f'{k} = "{v}"' for k, v in nets.items())
                      + " }")
+    # a third of the MOS blocks in a guard ring, NMOS or PMOS (then in a well)
+    guard = kind == "mos" and rng.random() < 1 / 3
     text = (f'kind = "{kind}"\n[devices]\n'
             + "".join(f"{n} = {c}\n" for n, c in zip(names, counts, strict=True))
             + f'[array]\ndummies = "{dummies}"\ndummy_net = '
             + f'"{rng.choice([*NETS[:5], "TIE"] if strips else [*NETS, "TIE"])}"\n'
             + (f"ring_depth_um = {rng.choice([0.95, 1.0, 1.5])}\n" if strips else "")
-            + f"[unit]\nwidth_um = {w}\nlength_um = {length}\n[terminals]\n"
+            + ("guard_ring = true\n" if guard else "")
+            + f"[unit]\nwidth_um = {w}\nlength_um = {length}\n"
+            + (f'polarity = "{rng.choice(["n", "p"])}"\n' if guard else "") + "[terminals]\n"
             + "\n".join(lines) + "\n")
     spec = parse_spec(text, "random.toml")
     pattern = Pattern(tuple(names), ids, orient)

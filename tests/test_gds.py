@@ -137,7 +137,9 @@ def _shipped_layers() -> str:
      r"must be \[layer, datatype\]"),
     (lambda t: t.replace("diffusion = [1, 0]", "difusion = [1, 0]"), "unknown role 'difusion'"),
     (lambda t: t.replace("metal2    = [5, 0]", "metal2    = [4, 0]"), "share 4/0"),
-    (lambda t: t.replace('"metal1", "metal2"]\n', '"metal1"]\n'), r"\[connect\] must state"),
+    (lambda t: t.replace('"metal1", "metal2", "well"]\n', '"metal1", "metal2"]\n'),
+     r"\[connect\] must state"),
+    (lambda t: t.replace("well      = [15, 0]", ""), "well and the tap implant come together"),
 ])
 def test_bad_layer_maps_are_refused(tmp_path, edit, match):
     path = tmp_path / "layers.toml"
@@ -152,8 +154,9 @@ def test_the_generic_layer_map_states_the_contract_exactly():
 
     data = tomllib.loads(_shipped_layers())
     assert data["connect"] == {
-        "conductors": ["diffusion", "gate", "metal1", "metal2"],
-        "cuts": {"contact": ["diffusion", "gate", "metal1"], "via1": ["metal1", "metal2"]},
+        "conductors": ["diffusion", "gate", "metal1", "metal2", "well"],
+        "cuts": {"contact": ["diffusion", "gate", "metal1"], "via1": ["metal1", "metal2"],
+                 "tap": ["diffusion", "well"]},
         "splits": {"gate": ["diffusion"]}}
 
 

@@ -258,10 +258,15 @@ def _cases(draw, kind: str):
                      + " }")
     dummy_net = draw(st.sampled_from([*NET_POOL, "TIE"]))
     extra = draw(st.sampled_from([None, (0.3, 0.0), (0.0, 1.1), (0.75, 2.3)]))
+    # a MOS block may have a guard ring, and then be PMOS in a well
+    ring = kind == "mos" and draw(st.booleans())
+    polarity = draw(st.sampled_from(["n", "p"])) if ring else "n"
     text = (f'kind = "{kind}"\n[devices]\n'
             + "".join(f"{n} = {c}\n" for n, c in zip(names, counts, strict=True))
             + f'[array]\ndummies = "{dummies}"\ndummy_net = "{dummy_net}"\n'
-            + f"[unit]\nwidth_um = {w}\nlength_um = {length}\n[terminals]\n"
+            + ("guard_ring = true\n" if ring else "")
+            + f"[unit]\nwidth_um = {w}\nlength_um = {length}\n"
+            + (f'polarity = "{polarity}"\n' if ring else "") + "[terminals]\n"
             + "\n".join(lines) + "\n")
     spec = parse_spec(text, "gen.toml")
     pattern = Pattern(tuple(names), ids, orient)
@@ -277,7 +282,8 @@ def _cases(draw, kind: str):
 @pytest.mark.parametrize("kind", ["mos", "cap", "res"])
 def test_generated_patterns_route_without_shorts_opens_strays_or_spacing(tmp_path, kind):
     """300 generated patterns per kind: 1-8 devices, 1-12 rows, dummies none/ends/ring, both
-    finger orientations, random nets shared across terminals and devices (diode
+    finger orientations, MOS blocks with and without a guard ring (NMOS, or PMOS in a
+    well), random nets shared across terminals and devices (diode
     connections, common sources, resistor chains in series or parallel), empty slots,
     computed and larger non-square pitches. Each layout must extract with 0 shorts,
     0 opens, 0 stray labels and no spacing below the template's rules."""

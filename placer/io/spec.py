@@ -86,6 +86,9 @@ class ArraySpec:
     # a capacitor array's ring of dummies drawn as strips this deep (um, from the side
     # that faces the array) instead of whole unit cells; None: whole cells
     ring_depth_um: float | None = None
+    #: MOS: a ring of tap diffusion around the routed block on the body net (with the
+    #: well of a PMOS block around it)
+    guard_ring: bool = False
 
 
 #: Symmetry a result must obey: none; mirror about a vertical axis (x: left-right), about
@@ -133,6 +136,8 @@ class UnitSpec:
     #: device sees the same diffusion on its two sides) or "shared" (neighbours share
     #: diffusion wherever their facing terminals are one net)
     diffusion: str = "pairs"
+    #: MOS: "n" (in the substrate) or "p" (in a well the guard ring ties)
+    polarity: str = "n"
 
     @property
     def area_um2(self) -> float:
@@ -412,9 +417,9 @@ _SCHEMA: dict[str, tuple[str, ...]] = {
          "monte_carlo", "search", "electrical", "terminals", "routing", "pins", "groups",
          "match", "lde"),
     "array": ("rows", "columns", "dummies", "pitch_um", "aspect", "dummy_net", "holes", "mask",
-              "keep_out", "symmetry", "ring_depth_um"),
+              "keep_out", "symmetry", "ring_depth_um", "guard_ring"),
     "match": ("pairs", "nets"),
-    "unit": ("width_um", "length_um", "diffusion"),
+    "unit": ("width_um", "length_um", "diffusion", "polarity"),
     "lde": ("ku0_um", "kvth0_mv_um", "saref_um", "sbref_um", "well_margin_um", "scref_um",
             "web", "wec", "kvth0we_mv", "ku0we"),
     "gradient": ("linear_ppm_per_um", "linear_pct_per_mm", "quadratic_ppm_per_um2", "order",
@@ -701,15 +706,21 @@ def read_spec_text(text: str, source: str = "<spec>", default_name: str = "place
         plated = [k for k, r in KIND_RECORDS.items() if r.cell == "plate"]
         raise arr.fail("ring_depth_um", "draws a capacitor array's ring of dummies as strips: "
                        f'it needs kind = "{plated[0]}" and dummies = "ring"')
-    array = ArraySpec(rows, columns, dummies, pitch, aspect, pitch_given, holes, ring_depth)
+    guard = arr.flag("guard_ring", False)
+    if guard and not KIND_RECORDS[kind].fingers:
+        raise arr.fail("guard_ring", "ties MOS fingers' body (kind = \"mos\")")
+    array = ArraySpec(rows, columns, dummies, pitch, aspect, pitch_given, holes, ring_depth,
+                      guard)
 
     un = _Reader(source, "unit", data.get("unit", {}))
     dw, dl = KIND_RECORDS[kind].unit_um
     diffusion = un.choice("diffusion", "pairs", DIFFUSION_STYLES)
-    if "diffusion" in un.data and not KIND_RECORDS[kind].fingers:
-        raise un.fail("diffusion", "is for MOS fingers (kind = \"mos\")")
+    polarity = un.choice("polarity", "n", ("n", "p"))
+    for key in ("diffusion", "polarity"):
+        if key in un.data and not KIND_RECORDS[kind].fingers:
+            raise un.fail(key, "is for MOS fingers (kind = \"mos\")")
     unit = UnitSpec(un.number("width_um", dw) or dw, un.number("length_um", dl) or dl,
-                    diffusion)
+                    diffusion, polarity)
     lde = _lde(source, data.get("lde", {}), kind)
 
     raw_el = data.get("electrical")

@@ -61,6 +61,9 @@ RULES = {
     "plate": _COMMON + ("plate_margin",),
     "strip": _COMMON + ("gate_enclosure", "gate_space"),
 }
+#: Rules a template may give and must give only for what uses them: a MOS block's guard
+#: ring (:mod:`placer.layout.guard`).
+OPTIONAL_RULES = {"finger": ("guard_space", "tap_enclosure", "well_enclosure")}
 
 
 
@@ -277,6 +280,7 @@ def load_rules(kind: str, path: Path | None = None) -> Rules:
 
     data, src = read_toml(path, KINDS[kind].template)
     names = RULES[KINDS[kind].cell]
+    optional = OPTIONAL_RULES.get(KINDS[kind].cell, ())
     for key in data:
         if key not in ("kind", "rules"):
             raise TemplateError(f"{src}: unknown key {shown(key)} (allowed: kind, rules)")
@@ -288,14 +292,16 @@ def load_rules(kind: str, path: Path | None = None) -> Rules:
         raise TemplateError(f"{src}: needs a [rules] table")
     values: dict[str, float] = {}
     for key in raw:
-        if key not in names:
+        if key not in names + optional:
             import difflib
 
-            near = difflib.get_close_matches(key, names, n=1)
+            near = difflib.get_close_matches(key, names + optional, n=1)
             hint = f" (did you mean {shown(near[0])}?)" if near else ""
             raise TemplateError(f"{src}: [rules] unknown rule {shown(key)}{hint}")
-    for key in names:
+    for key in names + optional:
         if key not in raw:
+            if key in optional:
+                continue
             raise TemplateError(f"{src}: [rules] missing {key} (micrometres)")
         v = raw[key]
         if (isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v)

@@ -79,8 +79,10 @@ def netlist(spec: Spec, par: Parasitics) -> str:
         lam = e.lambda_per_v if e is not None else 0.0
         vov = 2.0 / gm_id
         kp = 2.0 * amps * length / (w * vov * vov)
-        lines += [f".model placer_unit nmos (level=1 vto={VTO_V:g} kp={kp:.6g} "
-                  f"lambda={lam:.6g})",
+        # a PMOS block's unit: the same square law, threshold and currents negative
+        ptype = spec.unit.polarity == "p"
+        lines += [f".model placer_unit {'pmos' if ptype else 'nmos'} (level=1 "
+                  f"vto={-VTO_V if ptype else VTO_V:g} kp={kp:.6g} lambda={lam:.6g})",
                   f".subckt {sub} d g s",
                   f"M1 d g s s placer_unit W={_value(w, 'u')} L={_value(length, 'u')}",
                   f".ends {sub}"]

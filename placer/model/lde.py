@@ -48,6 +48,9 @@ class FingerGeometry:
     diffusion_half_um: float
     gate_um: float
     width_um: float
+    #: the drawn well (x0, y0, x1, y1) in the slot frame (slot (r, c) at c px, -r py);
+    #: None: the spec's well_margin_um, if any
+    well_box: tuple[float, float, float, float] | None = None
 
 
 @dataclass(frozen=True)
@@ -175,12 +178,14 @@ def lde_figures(ids: NDArray[np.int_], joins: NDArray[np.bool_], devices: tuple[
     dvt = lde.kvth0_mv_um * (inv - inv_ref)
     rows, cols = np.nonzero(ids >= 0)
     sca = np.zeros(ids.shape)
-    if lde.well_margin_um is not None:
+    if lde.well_margin_um is not None or geom.well_box is not None:
         drawn = np.argwhere(ids != -2)                   # fingers and dummies: not EMPTY
         px, py = geom.pitch_x_um, geom.pitch_y_um
-        m, xd, hw = lde.well_margin_um, geom.diffusion_half_um, geom.width_um / 2
-        box = (drawn[:, 1].min() * px - xd - m, -drawn[:, 0].max() * py - hw - m,
-               drawn[:, 1].max() * px + xd + m, -drawn[:, 0].min() * py + hw + m)
+        box = geom.well_box
+        if box is None:
+            m, xd, hw = lde.well_margin_um, geom.diffusion_half_um, geom.width_um / 2
+            box = (drawn[:, 1].min() * px - xd - m, -drawn[:, 0].max() * py - hw - m,
+                   drawn[:, 1].max() * px + xd + m, -drawn[:, 0].min() * py + hw + m)
         xy = np.column_stack([cols * px, -rows * py]).astype(float)
         terms = _well_terms(xy, geom, box, lde.scref_um)
         eff = terms[:, 0] + lde.web * terms[:, 1] + lde.wec * terms[:, 2]
@@ -203,6 +208,8 @@ def lde_figures(ids: NDArray[np.int_], joins: NDArray[np.bool_], devices: tuple[
     coeffs = {k: getattr(lde, k) for k in ("ku0_um", "kvth0_mv_um", "saref_um", "sbref_um",
                                            "well_margin_um", "scref_um", "web", "wec",
                                            "kvth0we_mv", "ku0we")}
+    if geom.well_box is not None:
+        coeffs["well_box_um"] = list(geom.well_box)      # the drawn well, not a margin
     return LdeFigures(style, tuple(out), coeffs)
 
 

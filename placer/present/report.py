@@ -190,7 +190,8 @@ def format_lde(lde: Any) -> list[str]:
     stress and well terms (no lines without them)."""
     if lde is None:
         return []
-    well = lde.coefficients.get("well_margin_um") is not None
+    well = (lde.coefficients.get("well_margin_um") is not None
+            or lde.coefficients.get("well_box_um") is not None)
     rows = [[d.device, str(d.fingers), f"{d.sa_um[0]:.4g}..{d.sa_um[1]:.4g}",
              f"{d.sb_um[0]:.4g}..{d.sb_um[1]:.4g}", f"{d.inv_od_per_um:.5g}",
              f"{d.inv_od_range[0]:.4g}..{d.inv_od_range[1]:.4g}",

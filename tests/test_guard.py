@@ -1,0 +1,172 @@
+"""The guard ring (body tie) and a PMOS block's well, checked on the written GDSII by the
+independent connectivity checker (tests/extraction.py, written from the layout contract
+alone): every tie on its net, no short, the well tied through the ring's tap implant.
+The well-proximity figures the report gives for the drawn well are recomputed here from
+the GDSII's own shapes, with scipy quadrature of BSIM4's distribution function."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import gdstk
+import numpy as np
+import pytest
+
+from tests import extraction
+from tests.helpers import ROOT, refused, run_placer, spec_file
+from tests.lde_extract import lod_by_device
+
+LAYERS = ROOT / "templates" / "layers.toml"
+
+PLOAD = """
+name = "pload"
+kind = "mos"
+[devices]
+MLA = 4
+MLB = 4
+[array]
+rows = 2
+columns = 4
+dummies = "ends"
+guard_ring = true
+[unit]
+width_um = 2.0
+length_um = 1.0
+polarity = "p"
+[terminals]
+MLA = { gate = "PG", source = "VDD", drain = "OUTA", bulk = "VDD" }
+MLB = { gate = "PG", source = "VDD", drain = "OUTB", bulk = "VDD" }
+[lde]
+kvth0we_mv = 30.0
+"""
+
+
+def _arrange(tmp: Path, text: str) -> Path:
+    spec = spec_file(tmp, text)
+    res = run_placer(["arrange", str(spec), "--out", "o", "--time-limit", "10"], cwd=tmp)
+    assert res.returncode == 0, res.stderr
+    return tmp / "o"
+
+
+def _polygons(gds: Path, layer: int) -> list[np.ndarray]:
+    top = gdstk.read_gds(str(gds)).top_level()[0].copy("flat").flatten()
+    return [p.points for p in top.polygons if p.layer == layer]
+
+
+@pytest.mark.parametrize("case", ["pmos_well", "nmos_own_body", "bias_mirror"])
+def test_guard_ring_extracts_clean_with_every_tie_on_its_net(tmp_path, case):
+    """The ring and (PMOS) the well join the body net and nothing else: VDD by a via onto
+    its metal2 trunk (PMOS load), VSUB by its own metal1 rail (an NMOS block whose bulk
+    and dummies are on VSUB), VSS of samples/bias_mirror.toml; the well carries a label of
+    its net, so a well the ring did not tie would be an open."""
+    if case == "pmos_well":
+        out = _arrange(tmp_path, PLOAD)
+    elif case == "nmos_own_body":
+        out = _arrange(tmp_path, PLOAD.replace('bulk = "VDD"', 'bulk = "VSUB"')
+                       .replace('polarity = "p"', 'polarity = "n"'))
+    else:
+        text = (ROOT / "samples" / "bias_mirror.toml").read_text()
+        out = _arrange(tmp_path, text.replace('dummies = "ends"',
+                                              'dummies = "ends"\nguard_ring = true'))
+    gds = out / "pattern.gds"
+    found = extraction.check(gds, LAYERS)
+    assert not found.shorts and not found.opens and not found.stray_labels, found
+    wells = _polygons(gds, 15)
+    assert len(wells) == (1 if case == "pmos_well" else 0)
+    assert len(_polygons(gds, 16)) == 4                    # the tap implant, four sides
+    if case == "pmos_well":
+        # the well holds every finger's channel (the PMOS devices sit in it)
+        (w,) = wells
+        rep = lod_by_device(gds, LAYERS)
+        for dev in rep.devices.values():
+            for f in dev.fingers:
+                assert w[:, 0].min() < f.x < w[:, 0].max() and w[:, 1].min() < f.y < w[:, 1].max()
+
+
+def test_a_well_without_its_tie_is_an_open(tmp_path):
+    """Mutation of the written layout: the same PMOS block with its tap implant removed
+    leaves the well on a node of its own, which the checker reports as an open of VDD
+    (so the clean result above rests on the tie, not on the label alone)."""
+    out = _arrange(tmp_path, PLOAD)
+    lib = gdstk.read_gds(str(out / "pattern.gds"))
+    for cell in lib.cells:
+        for p in [p for p in cell.polygons if p.layer == 16]:
+            cell.remove(p)
+    cut = tmp_path / "untied.gds"
+    lib.write_gds(str(cut))
+    found = extraction.check(cut, LAYERS)
+    assert "VDD" in found.opens
+
+
+def test_well_proximity_uses_the_drawn_well(tmp_path):
+    """The report's mean SCA per device equals the BSIM4 integral (mean of SCref^2/x^2
+    over the channel's distances x from each of the four well edges: across W for the
+    edges above and below, across L for the left and right ones; SCref = 1 um),
+    computed here by scipy quadrature from the well polygon and the channels the
+    independent SA/SB checker finds in the GDSII."""
+    from scipy.integrate import quad
+
+    out = _arrange(tmp_path, PLOAD)
+    gds = out / "pattern.gds"
+    (w,) = _polygons(gds, 15)
+    x0, x1, y0, y1 = w[:, 0].min(), w[:, 0].max(), w[:, 1].min(), w[:, 1].max()
+    report = json.loads((out / "report.json").read_text())
+    sca = {d["device"]: d["sca"] for d in report["grade"]["lde"]["devices"]}
+    for name, dev in lod_by_device(gds, LAYERS).devices.items():
+        vals = []
+        for f in dev.fingers:
+            top, bottom = y1 - (f.y + f.w_um / 2), (f.y - f.w_um / 2) - y0
+            left, right = (f.x - f.l_um / 2) - x0, x1 - (f.x + f.l_um / 2)
+            total = 0.0
+            for sc, span in ((top, f.w_um), (bottom, f.w_um), (left, f.l_um),
+                             (right, f.l_um)):
+                total += quad(lambda x: 1.0 / x ** 2, sc, sc + span)[0] / span
+            vals.append(total)
+        assert sca[name] == pytest.approx(float(np.mean(vals)), rel=1e-6)
+        assert sca[name] > 0
+
+
+def test_old_layer_map_still_loads_and_a_ring_needs_its_roles(tmp_path):
+    """A layer map written before the well and tap roles (its [connect] without them) is
+    still accepted; a block with a guard ring drawn with it is refused in one line naming
+    the missing role; a template without the ring's rules likewise."""
+    text = LAYERS.read_text()
+    old = (text.replace('well      = [15, 0]', '#').replace('tap       = [16, 0]', '#')
+           .replace(', tap = ["diffusion", "well"]', '').replace(', "well"]', ']'))
+    (tmp_path / "old.toml").write_text(old)
+    spec = spec_file(tmp_path, PLOAD.replace("guard_ring = true", "guard_ring = false"))
+    res = run_placer(["arrange", str(spec), "--out", "a", "--layers", "old.toml"],
+                     cwd=tmp_path)
+    assert res.returncode == 0, res.stderr
+    spec = spec_file(tmp_path, PLOAD, name="ring.toml")
+    refused(run_placer(["arrange", str(spec), "--out", "b", "--layers", "old.toml"],
+                       cwd=tmp_path), "old.toml", "no", "role")
+    assert not (tmp_path / "b").exists()
+    tmpl = (ROOT / "templates" / "mos_finger.toml").read_text()
+    tmpl = "\n".join(ln for ln in tmpl.splitlines()
+                     if not ln.startswith(("guard_space", "tap_enclosure", "well_enclosure")))
+    (tmp_path / "t.toml").write_text(tmpl)
+    refused(run_placer(["arrange", str(spec), "--out", "c", "--template", "t.toml"],
+                       cwd=tmp_path), "guard ring needs the rules", "guard_space")
+
+
+def test_guard_ring_and_polarity_refused_for_other_kinds(tmp_path):
+    """guard_ring and polarity describe MOS blocks: a capacitor array's spec that gives
+    them is refused in one line."""
+    cap = 'kind = "cap"\n[devices]\nC0 = 1\nC1 = 1\n'
+    (tmp_path / "x.txt").write_text("C0 C1\n")
+    for extra, word in (("[array]\nguard_ring = true\n", "guard_ring"),
+                        ('[unit]\npolarity = "p"\n', "polarity")):
+        spec = spec_file(tmp_path, cap + extra)
+        refused(run_placer(["grade", "x.txt", "--spec", str(spec)], cwd=tmp_path), word,
+                "MOS")
+
+
+def test_pmos_block_netlist_uses_a_pmos_unit(tmp_path):
+    """The illustrative netlist of a PMOS block models its unit as a PMOS (negative
+    threshold), not an NMOS."""
+    out = _arrange(tmp_path, PLOAD)
+    text = (out / "pattern.sp").read_text()
+    model = next(ln for ln in text.splitlines() if ln.startswith(".model placer_unit"))
+    assert " pmos " in model and "vto=-" in model
