@@ -483,3 +483,28 @@ def test_the_field_controls_move_every_figure_as_a_direct_calculation_says(brows
     want = _expected(g2)
     assert all(_agree(k, back[k], want[k], g2) for k in back), \
         {k: (back[k], want[k]) for k in back if not _agree(k, back[k], want[k], g2)}
+
+
+def test_every_slot_but_the_empty_ones_keeps_its_shade_through_swaps(browser, tmp_path):
+    """The sample L-shaped array has empty slots (a keep-out corner): they carry no shade,
+    every other slot does. A dummy swapped onto an empty slot takes a shade there and
+    leaves none behind, and a unit onto an empty slot too (the centre of the units moves,
+    so every shade is taken afresh); the shades stay the field less its mean over the
+    units, the mean of the units' shades stays 0 (a property of the definition)."""
+    _, page = _page(tmp_path, "lshape_cdac")
+    _open(browser, page)
+    read = ("return [...document.querySelectorAll('.slot')].map(s => [s.getAttribute("
+            "'aria-label').split(': ')[1], s.dataset.field === undefined ? null"
+            " : +s.dataset.field]);")
+
+    def check():
+        slots = browser.execute_script(read)
+        assert all((v is None) == (what == "empty") for what, v in slots), slots
+        units = [v for what, v in slots if what not in ("empty", "dummy")]
+        assert abs(np.mean(units)) <= 1e-9 * max(abs(v) for v in units)
+
+    check()
+    _swap_by_clicks(browser, (0, 1), (0, 7))        # a dummy onto an empty slot
+    check()
+    _swap_by_clicks(browser, (1, 1), (0, 8))        # a unit onto an empty slot
+    check()

@@ -559,7 +559,8 @@ function paintSlot(r, c) {
   parts.push(el("rect", { x: x + 1, y: y + 1, width: w - 2, height: h - 2,
     fill: d === EMPTY ? "none" : state.shade ? b.shade[s] : fill,
     stroke: d === EMPTY ? "#ddd" : state.shade ? "#777" : "#222", "stroke-width": state.shade ? 0.5 : 0.8,
-    "stroke-dasharray": d === EMPTY ? "3 2" : "none", class: "frame" }, null, SVGNS));
+    // an empty slot (no fill) takes clicks over its whole area too
+    "stroke-dasharray": d === EMPTY ? "3 2" : "none", class: "frame", "pointer-events": "all" }, null, SVGNS));
   const [kx, ky] = state.shade && d !== EMPTY ? b.inset : [1, 1];
   const inner = { x: x + kx, y: y + ky, width: Math.max(1, w - 2 * kx), height: Math.max(1, h - 2 * ky) };
   if (d !== EMPTY) {
