@@ -961,13 +961,20 @@ const STEPS = [
      "so two devices differ by the gradient times the distance between their centroids.",
      "Load <b>clustered</b>: the circles (centroids) sit apart and the linear error is large; the curve on the right " +
      "shows the error for every direction the gradient might take. Now swap units until the circles meet: " +
-     "the linear error falls to zero in every direction at once."]],
+     "the linear error falls to zero in every direction at once.",
+     "The shading round the units is the field itself (blue below the units' mean, red above). Turn it with " +
+     "the <b>direction</b> slider: the error along the set direction (the red mark on the curve) changes, the " +
+     "worst-direction figure does not; the <b>gradient</b> slider scales both."]],
   ["2. When centroids agree: curvature",
     ["With the centroids together, a curved field (temperature around a hot block, stress near an edge) still " +
      "separates devices whose units are spread differently: one sits more in the middle, the other further out. " +
      "That is the quadratic error, set by the difference of the devices' second moments.",
      "Compare <b>interdigitated</b> and <b>mirrored</b>: both may cancel the linear term, but the quadratic one differs. " +
-     "Try swapping an inner unit of one device with an outer unit of another and watch it move."]],
+     "Try swapping an inner unit of one device with an outer unit of another and watch it move.",
+     "Set the <b>gradient</b> to 0 and the shading shows the bowl alone. Move its centre with the hot spot " +
+     "sliders (or <b>Place hot spot</b> and click a slot): a bowl off the centre is the bowl at the centre " +
+     "plus a linear tilt, so devices whose centroids meet keep the same bowl error wherever the hot spot " +
+     "sits, and devices whose centroids are apart do not."]],
   ["3. Dispersion and the random field",
     ["Part of the variation is random but correlated over short distances. Units of one device that huddle " +
      "together see the same local deviation; units spread among the others average it out.",
