@@ -32,6 +32,8 @@ function load(k) {
   state.reference = figures(state.refModel, state.field);
   drawControls();
   buildBoard();
+  document.getElementById("field-col").max = state.ids[0].length - 1;
+  document.getElementById("field-row").max = state.ids.length - 1;
   update(true);
   say(`Loaded ${a.label}: ${a.note}`);
 }
@@ -289,7 +291,7 @@ function figures(m, f = specField()) {
   for (const key of ["linear", "along", "quadratic", "bowl", "field", "corr", "white"]) {
     worst[key] = worstOf(key);
   }
-  return { pairs, worst, devices, centre, spot, field: f, n: m.n.slice() };
+  return { pairs, worst, devices, centre, spot, field: f };
 }
 
 // every figure of an arrangement, from scratch
@@ -809,12 +811,12 @@ function drawPolar(sc) {
 // sliders for the gradient's direction and strength, the curvature and its centre (in
 // slot coordinates); a button that puts the centre on the next slot clicked
 function fieldControls() {
-  const spec = specField(), rows = D.arrangements[0].ids.length, cols = D.arrangements[0].ids[0].length;
+  const spec = specField();
   const top = (v, dflt) => 4 * (v > 0 ? v : dflt);
   const ranges = {
     "field-angle": [0, 359, 1], "field-g": [0, top(spec.g, 10), top(spec.g, 10) / 400],
     "field-h": [0, top(spec.h, 0.05), top(spec.h, 0.05) / 400],
-    "field-col": [0, cols - 1, 0.5], "field-row": [0, rows - 1, 0.5],
+    "field-col": [0, 1, 0.5], "field-row": [0, 1, 0.5],       // the board's size: load()
   };
   for (const [id, [lo, hi, step]] of Object.entries(ranges)) {
     const input = document.getElementById(id);
@@ -823,7 +825,8 @@ function fieldControls() {
   }
   document.getElementById("field-shade").addEventListener("change", (ev) => {
     state.shade = ev.target.checked;
-    for (let r = 0; r < rows; r++) for (let c = 0; c < cols; c++) paintSlot(r, c);
+    const b = state.board;
+    for (let r = 0; r < b.rows; r++) for (let c = 0; c < b.cols; c++) paintSlot(r, c);
   });
   document.getElementById("field-reset").addEventListener("click", () => {
     setField(specField());
