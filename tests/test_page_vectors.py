@@ -36,6 +36,10 @@ def test_the_vectors_cover_every_kind_both_kernels_and_both_fits():
     assert {v["kind"] for v in _stored()} == {"mos", "res", "cap"}
     assert {n.split("/")[1] for n in names} == {"exponential", "gaussian"}
     assert {"dac_best_fit/gaussian", "dac_endpoint/exponential"} <= names
+    # the shaded field's figures: the bowl everywhere, the known direction's error where
+    # a spec gives a direction (the ladder and the capacitor array)
+    assert all("bowl_ppm" in v["figures"] for v in _stored())
+    assert {v["kind"] for v in _stored() if "along_ppm" in v["figures"]} == {"res", "cap"}
 
 
 def test_the_vectors_are_what_python_computes_now():
