@@ -1,4 +1,5 @@
-// placer lesson page: swap units, recompute every figure with grade's formulas.
+// placer lesson page: swap units, turn the field, watch every figure follow (grade's
+// formulas, updated from each swap's two slots).
 // The formulas mirror placer/model/exact_moments.py (exact integer moments, here in BigInt),
 // placer/model/variation.py (worst linear and quadratic errors, the correlated field, the area
 // law) and placer/model/budget.py (ratio budget, capacitor-array INL and DNL).
