@@ -6,7 +6,8 @@
 // the board again from scratch (boardModel) and compares: the integer sums and the edge
 // counts exactly, the correlated pair sums to a relative 1e-12; after each whole swap
 // also every figure (under a field drawn at random each time) to 1e-12, and the budget
-// every 20 swaps. Prints a JSON summary.
+// every 20 swaps; at the end, a copy made before the first swap (copyModel) still
+// equals the board as loaded. Prints a JSON summary.
 "use strict";
 const fs = require("fs");
 const vm = require("vm");
@@ -69,6 +70,8 @@ const ids = D.arrangements[0].ids.map((row) => row.slice());
 const rows = ids.length, cols = ids[0].length;
 const [px, py] = D.pitch_um;
 const model = ctx.boardModel(ids);
+// the page keeps a copy as loaded (its "was" figures): no swap may reach it
+const loaded = ctx.copyModel(model), loadedIds = ids.map((row) => row.slice());
 const swaps = Number(swapsArg);
 let changed = 0;
 for (let step = 1; step <= swaps; step++) {
@@ -111,5 +114,6 @@ for (let step = 1; step <= swaps; step++) {
     for (const k of Object.keys(bw)) close(`budget ${k} at ${step}`, bg[k], bw[k], 1e-9 * bscale);
   }
 }
+sameSums(loaded, ctx.boardModel(loadedIds), "the copy as loaded, after every swap");
 process.stdout.write(JSON.stringify({ swaps, changed, worst, failures: failures.slice(0, 20),
   n_failures: failures.length }));

@@ -28,7 +28,7 @@ function load(k) {
   state.selected = null;
   state.loaded = k;
   state.model = boardModel(state.ids);
-  state.refModel = boardModel(state.ids);
+  state.refModel = copyModel(state.model);
   if (state.field === null) state.field = specField();
   state.reference = figures(state.refModel, state.field);
   drawControls();
@@ -79,7 +79,6 @@ function setField(changes) {
   Object.assign(state.field, changes);
   state.reference = figures(state.refModel, state.field);
   update(true);
-  showField();
 }
 
 function say(text) { document.getElementById("status").textContent = text; }
@@ -144,6 +143,12 @@ function boardModel(ids) {
   }
   for (const s of list) if (isEdge(m, s)) m.edge[dev[s]] += 1;
   return m;
+}
+
+// a model of its own (the look-up table of kernel values is shared: it never changes)
+function copyModel(m) {
+  return { ...m, dev: m.dev.slice(), n: m.n.slice(), sums: m.sums.map((t) => t.slice()),
+           cov: m.cov.slice(), edge: m.edge.slice() };
 }
 
 // per device, as BigInt: n, sum u, sum v, sum uu, sum uv, sum vv with u = column, v = -row
@@ -858,7 +863,7 @@ function showField() {
     if (document.activeElement !== input) input.value = v;
     document.getElementById(`${id}-out`).textContent = text;
   };
-  put("field-angle", f.theta, `${fmt(f.theta)} deg`);
+  put("field-angle", ((f.theta % 360) + 360) % 360, `${fmt(f.theta)} deg`);
   put("field-g", f.g, `${fmt(f.g)} ppm/um`);
   put("field-h", f.h, `${fmt(f.h)} ppm/um2`);
   put("field-col", sc.spot[0] / px, fmt(sc.spot[0] / px));
