@@ -23,7 +23,10 @@ for (const v of JSON.parse(fs.readFileSync(vectors, "utf8")).vectors) {
   const fig = {
     linear_ppm: sc.worst.linear.value, quadratic_ppm: sc.worst.quadratic.value,
     correlated_sigma_ppm: sc.worst.corr.value, white_sigma_ppm: sc.worst.white.value,
+    bowl_ppm: sc.worst.bowl.value,
   };
+  // grade gives the error along a direction only where the spec gives one
+  if (v.data.direction_deg !== null && v.data.direction_deg !== undefined) fig.along_ppm = sc.worst.along.value;
   for (const dv of sc.devices) {
     fig[`centroid_x:${dv.name}`] = dv.centroid[0];
     fig[`centroid_y:${dv.name}`] = dv.centroid[1];

@@ -111,6 +111,7 @@ def _expected(g: dict) -> dict[str, float]:
         out[f"centroid_y:{d['name']}"] = d["centroid_um"][1]
         out[f"offset_um:{d['name']}"] = d["offset_um"]
         out[f"edge_units:{d['name']}"] = d["edge_units"]
+    out.update(_field_expected(g))
     b = g["budget"]
     if b is not None and "lines" in b:
         for ln in b["lines"]:
@@ -123,6 +124,30 @@ def _expected(g: dict) -> dict[str, float]:
         for key in ("worst_gradient_inl_lsb", "worst_gradient_dnl_lsb", "quadratic_inl_lsb",
                     "quadratic_dnl_lsb"):
             out[key] = b[key]
+    return out
+
+
+def _field_expected(g: dict) -> dict[str, float]:
+    """The figures of the field the page shades, at the spec's own values (its gradient
+    along its known direction, else +x; its curvature as a bowl about the centre of all
+    device units), from grade's centroids, second moments and bowl_ppm. A device's mean
+    field less the mean over all units is g u.(c_d - c) + h/(2 sqrt 2)(tr_d - tr_all)."""
+    a = g["assumptions"]
+    lin, h = a["linear_gradient_ppm_per_um"], a["quadratic_hessian_norm_ppm_per_um2"]
+    theta = np.radians(a["known_direction_deg"] or 0.0)
+    u = np.array([np.cos(theta), np.sin(theta)])
+    centre = np.array(g["centre_um"])
+    cen = {d["name"]: np.array(d["centroid_um"]) for d in g["devices"]}
+    tr = {d["name"]: d["second_moment_um2"][0] + d["second_moment_um2"][2] for d in g["devices"]}
+    n = {d["name"]: d["units"] for d in g["devices"]}
+    tr_all = sum(n[k] * tr[k] for k in n) / sum(n.values())
+    along = [lin * float(u @ (cen[p["a"]] - cen[p["b"]])) for p in g["pairs"]]
+    bowl = [p["bowl_ppm"] for p in g["pairs"]]
+    out = {"along_ppm": max(abs(v) for v in along), "bowl_ppm": max(abs(v) for v in bowl),
+           "field_ppm": max(abs(x + y) for x, y in zip(along, bowl, strict=True))}
+    for k in cen:
+        out[f"field_mean:{k}"] = (lin * float(u @ (cen[k] - centre))
+                                  + h / (2 * np.sqrt(2)) * (tr[k] - tr_all))
     return out
 
 
@@ -143,6 +168,10 @@ def _scale(key: str, g: dict) -> float:
     and numpy sum positions in different orders), every other figure's is its own."""
     if key.startswith(("centroid", "offset")):
         return min(g["pitch_um"])
+    if key.startswith(("along", "bowl", "field")):     # sums of the field that cancel
+        a, pitch = g["assumptions"], max(g["pitch_um"])
+        return (a["linear_gradient_ppm_per_um"] * pitch
+                + a["quadratic_hessian_norm_ppm_per_um2"] * pitch ** 2)
     return 0.0
 
 
@@ -189,6 +218,7 @@ def test_three_swaps_changed_the_board(mirror_run):
 
 
 MIRROR_KEYS = ["linear_ppm", "quadratic_ppm", "correlated_sigma_ppm", "white_sigma_ppm",
+               "along_ppm", "bowl_ppm", "field_ppm", "field_mean:MOUTA",
                "centroid_x:MOUTA", "centroid_y:MOUTB", "offset_um:MREF", "edge_units:MREF",
                "gradient_pct:MOUTA", "quadratic_pct:MOUTB", "clm_pct:MOUTA",
                "random_sigma_pct:MOUTB", "range_low:MOUTA", "range_high:MOUTB",
@@ -251,6 +281,7 @@ def dac_run(browser, tmp_path_factory):
 
 
 DAC_KEYS = ["linear_ppm", "quadratic_ppm", "correlated_sigma_ppm", "white_sigma_ppm",
+            "along_ppm", "bowl_ppm", "field_mean:C3",
             "centroid_x:C5", "offset_um:CT", "edge_units:C4", "worst_gradient_inl_lsb",
             "worst_gradient_dnl_lsb", "quadratic_inl_lsb", "quadratic_dnl_lsb"]
 
@@ -347,3 +378,139 @@ def test_the_printed_handout_holds_the_board_figures_and_every_step(tmp_path):
         assert pdf.startswith(b"%PDF") and pdf.count(b"/Type /Page") >= 1
     finally:
         driver.quit()
+
+
+def _units_by_hand(pattern: Path, devices: list[str], pitch: tuple[float, float]):
+    """Every device unit's position (x = column * pitch x, y = -row * pitch y, as placer
+    places slots) and device, read from exported pattern text without placer."""
+    rows = [ln.split() for ln in pattern.read_text().splitlines()
+            if ln.strip() and not ln.startswith("#")]
+    xy, dev = [], []
+    for r, row in enumerate(rows):
+        for c, tok in enumerate(row):
+            name = tok.rstrip("<>")
+            if name in devices:
+                xy.append((c * pitch[0], -r * pitch[1]))
+                dev.append(devices.index(name))
+    return np.array(xy), np.array(dev), (len(rows), len(rows[0]))
+
+
+def _set_control(driver, control: str, value: float) -> None:
+    """Move a range control as a hand would: set its value, fire its input event."""
+    driver.execute_script("const e = document.getElementById(arguments[0]);"
+                          "e.value = arguments[1];"
+                          "e.dispatchEvent(new Event('input', {bubbles: true}));",
+                          control, value)
+
+
+def test_the_field_controls_move_every_figure_as_a_direct_calculation_says(browser, tmp_path):
+    """Turn the gradient to 30 deg at 2.5 times its strength, give the curvature 0.05
+    ppm/um2 about a hot spot at row 0, column 1 (sliders), then about a clicked slot:
+    the figures the page shows follow a direct numpy calculation on the exported board.
+
+    The calculation, from the definitions alone (no placer code): a device's value under a
+    field f is the mean of f over its units; for a linear f = g u.r that is f at the
+    device's first moment (its centroid: an identity, the mean is linear), so a pair's
+    common-centroid error is g u.(c_a - c_b) and the worst direction's g |c_a - c_b|;
+    the bowl of Hessian norm h is h/(2 sqrt 2)|r - p|^2 (H = h/sqrt 2 I, the bowl of
+    grade's bowl_ppm), and a pair's bowl error is the difference of the two devices'
+    means of it, here summed unit by unit. Every slot's shade value is f less the mean
+    of f over the units."""
+    spec, page = _page(tmp_path, "bias_mirror")
+    _open(browser, page)
+    _swap_by_clicks(browser, (0, 1), (1, 6))
+    g = _grade(_exported(browser, tmp_path, "before.txt"), spec)
+    devices = [d["name"] for d in g["devices"]]
+    pitch = tuple(g["pitch_um"])
+    pairs = [(devices.index(p["a"]), devices.index(p["b"])) for p in g["pairs"]]
+    lin0 = g["assumptions"]["linear_gradient_ppm_per_um"]
+
+    def by_hand(lin, theta_deg, h, spot_rc):
+        xy, dev, shape = _units_by_hand(tmp_path / "now.txt", devices, pitch)
+        cen = np.array([xy[dev == d].mean(axis=0) for d in range(len(devices))])
+        u = np.array([np.cos(np.radians(theta_deg)), np.sin(np.radians(theta_deg))])
+        p = (xy.mean(axis=0) if spot_rc is None
+             else np.array([spot_rc[1] * pitch[0], -spot_rc[0] * pitch[1]]))
+
+        def field(pts):
+            return lin * pts @ u + h / (2 * np.sqrt(2)) * np.sum((pts - p) ** 2, axis=-1)
+
+        mean_f = np.array([field(xy[dev == d]).mean() for d in range(len(devices))])
+        along = [lin * u @ (cen[a] - cen[b]) for a, b in pairs]
+        bowl = [(mean_f[a] - mean_f[b]) - along[i] for i, (a, b) in enumerate(pairs)]
+        grid = np.array([[c * pitch[0], -r * pitch[1]] for r in range(shape[0])
+                         for c in range(shape[1])])
+        want = {"linear_ppm": max(lin * np.hypot(*(cen[a] - cen[b])) for a, b in pairs),
+                "along_ppm": max(abs(v) for v in along), "bowl_ppm": max(abs(v) for v in bowl),
+                "field_ppm": max(abs(mean_f[a] - mean_f[b]) for a, b in pairs)}
+        all_mean = field(xy).mean()
+        for d, name in enumerate(devices):
+            want[f"field_mean:{name}"] = mean_f[d] - all_mean
+        return want, (field(grid) - all_mean).reshape(shape)
+
+    def check(lin, theta, h, spot_rc):
+        _exported(browser, tmp_path, "now.txt")
+        want, shade = by_hand(lin, theta, h, spot_rc)
+        shown = _shown(_figures(browser))
+        scale = lin * max(pitch) + h * max(pitch) ** 2
+        for key, value in want.items():
+            assert abs(shown[key] - value) <= REL * max(abs(value), scale), (key, shown[key], value)
+        slots = browser.execute_script(
+            "return [...document.querySelectorAll('.slot[data-field]')].map(s => "
+            "[+s.dataset.row, +s.dataset.col, +s.dataset.field]);")
+        assert len(slots) == shade.size             # the sample has no empty slot
+        for r, c, v in slots:
+            assert abs(v - shade[r, c]) <= REL * max(abs(shade[r, c]), scale), (r, c, v)
+        return shown
+
+    at_spec = check(lin0, 0.0, 0.02, None)
+    _set_control(browser, "field-angle", 30)
+    _set_control(browser, "field-g", 2.5 * lin0)
+    turned = check(2.5 * lin0, 30.0, 0.02, None)
+    assert turned["along_ppm"] != pytest.approx(at_spec["along_ppm"], rel=1e-3)
+    # the budget takes the strength too: its gradient line is the worst pair's linear error
+    budget_pair = next(p for p in g["pairs"] if {p["a"], p["b"]} == {"MOUTA", "MREF"})
+    assert turned["gradient_pct:MOUTA"] == pytest.approx(
+        2.5 * 1e-4 * budget_pair["linear_ppm"], rel=1e-9)
+    _set_control(browser, "field-h", 0.05)
+    _set_control(browser, "field-row", 0)
+    _set_control(browser, "field-col", 1)
+    check(2.5 * lin0, 30.0, 0.05, (0, 1))
+    # a swap under the moved field, then the hot spot placed by a click on a slot
+    _swap_by_clicks(browser, (0, 3), (1, 2))
+    check(2.5 * lin0, 30.0, 0.05, (0, 1))
+    browser.find_element("id", "field-place").click()
+    _slot(browser, 1, 7).click()
+    check(2.5 * lin0, 30.0, 0.05, (1, 7))
+    # the spec's field again: grade's own figures
+    browser.find_element("id", "field-reset").click()
+    back = _shown(_figures(browser))
+    g2 = _grade(_exported(browser, tmp_path, "after.txt"), spec)
+    want = _expected(g2)
+    assert all(_agree(k, back[k], want[k], g2) for k in back), \
+        {k: (back[k], want[k]) for k in back if not _agree(k, back[k], want[k], g2)}
+
+
+def test_every_slot_but_the_empty_ones_keeps_its_shade_through_swaps(browser, tmp_path):
+    """The sample L-shaped array has empty slots (a keep-out corner): they carry no shade,
+    every other slot does. A dummy swapped onto an empty slot takes a shade there and
+    leaves none behind, and a unit onto an empty slot too (the centre of the units moves,
+    so every shade is taken afresh); the shades stay the field less its mean over the
+    units, the mean of the units' shades stays 0 (a property of the definition)."""
+    _, page = _page(tmp_path, "lshape_cdac")
+    _open(browser, page)
+    read = ("return [...document.querySelectorAll('.slot')].map(s => [s.getAttribute("
+            "'aria-label').split(': ')[1], s.dataset.field === undefined ? null"
+            " : +s.dataset.field]);")
+
+    def check():
+        slots = browser.execute_script(read)
+        assert all((v is None) == (what == "empty") for what, v in slots), slots
+        units = [v for what, v in slots if what not in ("empty", "dummy")]
+        assert abs(np.mean(units)) <= 1e-9 * max(abs(v) for v in units)
+
+    check()
+    _swap_by_clicks(browser, (0, 1), (0, 7))        # a dummy onto an empty slot
+    check()
+    _swap_by_clicks(browser, (1, 1), (0, 8))        # a unit onto an empty slot
+    check()

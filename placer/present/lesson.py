@@ -22,8 +22,8 @@ from placer.kinds import KINDS
 __all__ = ["LessonArrangement", "lesson_data", "render_page", "spec_title", "MAX_LESSON_UNITS",
            "sequence_lesson_data", "render_sequence_page", "MAX_SEQUENCE_SLOTS"]
 
-#: The page computes the correlated sigma over every pair of units (N^2 kernel values
-#: per swap): beyond this size it would lag.
+#: The page builds the correlated sums over every pair of units when it loads an
+#: arrangement (N^2 kernel values; a swap then costs N): beyond this size loading lags.
 MAX_LESSON_UNITS = 1024
 #: The sequence page draws every slot: beyond this many the board stops being readable.
 MAX_SEQUENCE_SLOTS = 4096
@@ -61,6 +61,8 @@ def lesson_data(spec: Spec, arrangements: list[LessonArrangement]) -> dict[str, 
         "linear_ppm_per_um": g.linear_ppm_per_um,
         "quadratic_ppm_per_um2": g.quadratic_ppm_per_um2,
         "gradient_described": g.described,
+        # the page's field controls start from the spec's direction (else +x)
+        "direction_deg": g.direction_deg,
         "correlated": {"sigma_ppm": c.sigma_ppm, "length_um": c.length_um,
                        "kernel": c.kernel},
         "white": {"a_param_pct_um": spec.mismatch.a_param_pct_um, "unit_area_um2": area},

@@ -59,6 +59,7 @@ rows = 2
 [gradient]
 linear_ppm_per_um = 40.0
 quadratic_ppm_per_um2 = 2.5
+direction_deg = 35.0
 [correlated]
 sigma_ppm = 150.0
 length_um = 10.0
@@ -80,6 +81,7 @@ rows = 2
 [gradient]
 linear_ppm_per_um = 80.0
 quadratic_ppm_per_um2 = 6.0
+direction_deg = -120.0
 [correlated]
 sigma_ppm = 200.0
 length_um = 8.0
@@ -103,6 +105,11 @@ def python_figures(grade: Any, bud: Any) -> dict[str, float]:
     pairs = g["pairs"]
     out = {key: max(abs(p[key]) for p in pairs)
            for key in ("linear_ppm", "quadratic_ppm", "correlated_sigma_ppm", "white_sigma_ppm")}
+    # the field the page shades, at the spec's values: the bowl about the centre, and the
+    # gradient along the spec's known direction where it gives one
+    out["bowl_ppm"] = max(abs(p["bowl_ppm"]) for p in pairs)
+    if pairs[0]["known_direction_ppm"] is not None:
+        out["along_ppm"] = max(abs(p["known_direction_ppm"]) for p in pairs)
     for d in g["devices"]:
         out[f"centroid_x:{d['name']}"] = d["centroid_um"][0]
         out[f"centroid_y:{d['name']}"] = d["centroid_um"][1]

@@ -1,4 +1,5 @@
-// placer lesson page: swap units, recompute every figure with grade's formulas.
+// placer lesson page: swap units, turn the field, watch every figure follow (grade's
+// formulas, updated from each swap's two slots).
 // The formulas mirror placer/model/exact_moments.py (exact integer moments, here in BigInt),
 // placer/model/variation.py (worst linear and quadratic errors, the correlated field, the area
 // law) and placer/model/budget.py (ratio budget, capacitor-array INL and DNL).
@@ -9,9 +10,12 @@ const DUMMY = -1, EMPTY = -2;
 const SVGNS = "http://www.w3.org/2000/svg";
 
 // ---------------------------------------------------------------- state
+// ids/orient: the board as the trainee sees it; model: its figures' parts, kept up to date
+// swap by swap; refModel: the arrangement as loaded; field: the controls' field
 const state = {
   ids: null, orient: null, history: [], selected: null, focus: [0, 0],
-  loaded: 0, reference: null, step: 0,
+  loaded: 0, step: 0, model: null, refModel: null, reference: null, sc: null,
+  field: null, shade: true, placing: false, board: null,
 };
 
 function copyGrid(g) { return g.map((row) => row.slice()); }
@@ -23,59 +27,196 @@ function load(k) {
   state.history = [];
   state.selected = null;
   state.loaded = k;
-  state.reference = score(state.ids);
-  render();
+  state.model = boardModel(state.ids);
+  state.refModel = copyModel(state.model);
+  if (state.field === null) state.field = specField();
+  state.reference = figures(state.refModel, state.field);
+  drawControls();
+  buildBoard();
+  document.getElementById("field-col").max = state.ids[0].length - 1;
+  document.getElementById("field-row").max = state.ids.length - 1;
+  update(true);
   say(`Loaded ${a.label}: ${a.note}`);
 }
 
-function swap(a, b) {
+// swap the contents of slots a and b ([row, column]); the figures follow from the change
+function swap(a, b, record = true) {
   const [r1, c1] = a, [r2, c2] = b;
-  if (state.ids[r1][c1] === state.ids[r2][c2] && state.orient[r1][c1] === state.orient[r2][c2]) {
+  const ids = state.ids;
+  if (ids[r1][c1] === ids[r2][c2] && state.orient[r1][c1] === state.orient[r2][c2]) {
     say("Both slots hold the same thing: nothing to swap.");
     return;
   }
-  state.history.push([copyGrid(state.ids), copyGrid(state.orient)]);
-  for (const g of [state.ids, state.orient]) {
+  // a unit onto a dummy or an empty slot moves the centre of all units, and an empty
+  // slot has no shade: shade anew
+  const [x1, x2] = [ids[r1][c1], ids[r2][c2]];
+  const moved = (x1 >= 0) !== (x2 >= 0) || x1 === EMPTY || x2 === EMPTY;
+  for (const g of [ids, state.orient]) {
     const t = g[r1][c1]; g[r1][c1] = g[r2][c2]; g[r2][c2] = t;
   }
-  render();
-  const s = score(state.ids);
-  say(`Swapped row ${r1}, column ${c1} with row ${r2}, column ${c2}. ` +
-      `Worst linear error now ${fmt(s.worst.linear.value)} ppm.`);
+  const cols = ids[0].length;
+  swapSlots(state.model, r1 * cols + c1, r2 * cols + c2);
+  if (record) state.history.push([a, b]);
+  paintSlot(r1, c1);
+  paintSlot(r2, c2);
+  update(moved);
+  if (record) {
+    say(`Swapped row ${r1}, column ${c1} with row ${r2}, column ${c2}. ` +
+        `Worst linear error now ${fmt(state.sc.worst.linear.value)} ppm.`);
+  }
 }
 
 function undo() {
   if (!state.history.length) { say("Nothing to undo."); return; }
-  [state.ids, state.orient] = state.history.pop();
-  state.selected = null;
-  render();
+  select(null);
+  const [a, b] = state.history.pop();
+  swap(a, b, false);
   say("Undone.");
+}
+
+// a control of the field moved: every figure, the curve and the shading follow
+function setField(changes) {
+  Object.assign(state.field, changes);
+  state.reference = figures(state.refModel, state.field);
+  update(true);
 }
 
 function say(text) { document.getElementById("status").textContent = text; }
 
 // ---------------------------------------------------------------- the model
-function units(ids) {
-  const out = [];
-  ids.forEach((row, r) => row.forEach((d, c) => { if (d >= 0) out.push([r, c, d]); }));
-  return out;
+// A board model holds the device of every slot and what the figures are made of: per
+// device the exact integer sums of the slot grid (placer/model/exact_moments.py), the
+// correlated field's sums over every ordered pair of units, and the edge units. A swap
+// changes two slots, and setSlot brings those parts up to date from the change alone;
+// boardModel builds them from scratch (tests/page_swaps.js holds the two together).
+// figures() turns a model into every figure under a field (strength, direction,
+// curvature and its centre), in time independent of the number of units.
+
+function kernel(d) {
+  const u = d / D.correlated.length_um;
+  return D.correlated.kernel === "exponential" ? Math.exp(-u) : Math.exp(-(u * u));
+}
+
+// the spec's own field: its gradient (along its known direction, else +x), its
+// curvature about the centre of all device units (spot null)
+function specField() {
+  const dir = D.direction_deg === undefined || D.direction_deg === null ? 0 : D.direction_deg;
+  return { g: D.linear_ppm_per_um, theta: dir, h: D.quadratic_ppm_per_um2, spot: null };
+}
+
+function boardModel(ids) {
+  const rows = ids.length, cols = ids[0].length, nDev = D.devices.length;
+  const [px, py] = D.pitch_um;
+  const dev = new Int32Array(rows * cols);
+  ids.forEach((row, r) => row.forEach((d, c) => { dev[r * cols + c] = d; }));
+  // the kernel of every grid offset (|row step|, |column step|): one look-up per unit pair
+  const ktab = new Float64Array(rows * cols);
+  for (let dr = 0; dr < rows; dr++) {
+    for (let dc = 0; dc < cols; dc++) ktab[dr * cols + dc] = kernel(Math.hypot(dc * px, dr * py));
+  }
+  const m = {
+    rows, cols, nDev, dev, ktab, corr: D.correlated.sigma_ppm > 0,
+    n: new Array(nDev).fill(0),
+    sums: Array.from({ length: nDev }, () => [0n, 0n, 0n, 0n, 0n, 0n]),
+    // sum of the kernel over every ordered pair of units (i, j), i of device a and j of
+    // device b, i = j included: the covariance of the device means times n_a n_b
+    cov: new Float64Array(nDev * nDev),
+    edge: new Array(nDev).fill(0),
+  };
+  const list = [];
+  for (let s = 0; s < dev.length; s++) {
+    if (dev[s] < 0) continue;
+    list.push(s);
+    m.n[dev[s]] += 1;
+    addSums(m, s, dev[s], 1n);
+  }
+  if (m.corr) {
+    for (let x = 0; x < list.length; x++) {
+      const i = list[x], di = dev[i], ri = Math.floor(i / cols), ci = i - ri * cols;
+      m.cov[di * nDev + di] += 1;                       // distance 0: correlation 1
+      for (let y = x + 1; y < list.length; y++) {
+        const j = list[y], rj = Math.floor(j / cols), cj = j - rj * cols;
+        const k = ktab[Math.abs(ri - rj) * cols + Math.abs(ci - cj)], dj = dev[j];
+        m.cov[di * nDev + dj] += k; m.cov[dj * nDev + di] += k;
+      }
+    }
+  }
+  for (const s of list) if (isEdge(m, s)) m.edge[dev[s]] += 1;
+  return m;
+}
+
+// a model of its own (the look-up table of kernel values is shared: it never changes)
+function copyModel(m) {
+  return { ...m, dev: m.dev.slice(), n: m.n.slice(), sums: m.sums.map((t) => t.slice()),
+           cov: m.cov.slice(), edge: m.edge.slice() };
 }
 
 // per device, as BigInt: n, sum u, sum v, sum uu, sum uv, sum vv with u = column, v = -row
-function gridSums(us, nDev) {
-  const s = Array.from({ length: nDev }, () => [0n, 0n, 0n, 0n, 0n, 0n]);
-  for (const [r, c, d] of us) {
-    const u = BigInt(c), v = BigInt(-r);
-    const t = s[d];
-    t[0] += 1n; t[1] += u; t[2] += v; t[3] += u * u; t[4] += u * v; t[5] += v * v;
-  }
-  return s;
+function addSums(m, s, d, sign) {
+  const r = Math.floor(s / m.cols);
+  const u = BigInt(s - r * m.cols), v = BigInt(-r), t = m.sums[d];
+  t[0] += sign; t[1] += sign * u; t[2] += sign * v;
+  t[3] += sign * u * u; t[4] += sign * u * v; t[5] += sign * v * v;
 }
 
-function pairTerms(s, a, b, px, py) {
+// a unit with an open side: a neighbour off the grid or an empty slot (edge_units)
+function isEdge(m, s) {
+  const r = Math.floor(s / m.cols), c = s - r * m.cols, dev = m.dev;
+  return r === 0 || r === m.rows - 1 || c === 0 || c === m.cols - 1 ||
+    dev[s - m.cols] === EMPTY || dev[s + m.cols] === EMPTY ||
+    dev[s - 1] === EMPTY || dev[s + 1] === EMPTY;
+}
+
+// slot s and its four neighbours: the units whose edge count a change at s can move
+function around(m, s) {
+  const r = Math.floor(s / m.cols), c = s - r * m.cols, out = [s];
+  if (r > 0) out.push(s - m.cols);
+  if (r < m.rows - 1) out.push(s + m.cols);
+  if (c > 0) out.push(s - 1);
+  if (c < m.cols - 1) out.push(s + 1);
+  return out;
+}
+
+// put device d (or a dummy or an empty slot) at slot s: the sums lose the old unit's
+// terms and gain the new one's; the correlated sums lose and gain slot s's row of kernel
+// values by device (an exact rank update of the pair sums, O(units))
+function setSlot(m, s, d) {
+  const old = m.dev[s];
+  if (old === d) return;
+  const near = around(m, s);
+  for (const t of near) if (m.dev[t] >= 0 && isEdge(m, t)) m.edge[m.dev[t]] -= 1;
+  if (m.corr && (old >= 0 || d >= 0)) {
+    const nd = m.nDev, cols = m.cols, row = new Float64Array(nd);
+    const rs = Math.floor(s / cols), cs = s - rs * cols;
+    for (let t = 0, r = 0, c = 0; t < m.dev.length; t++, c++) {
+      if (c === cols) { c = 0; r++; }
+      const dt = m.dev[t];
+      if (dt < 0 || t === s) continue;
+      row[dt] += m.ktab[Math.abs(r - rs) * cols + Math.abs(c - cs)];
+    }
+    for (const [a, sign] of [[old, -1], [d, 1]]) {
+      if (a < 0) continue;
+      for (let b = 0; b < nd; b++) {
+        m.cov[a * nd + b] += sign * row[b];
+        m.cov[b * nd + a] += sign * row[b];
+      }
+      m.cov[a * nd + a] += sign;                        // the unit with itself
+    }
+  }
+  if (old >= 0) { m.n[old] -= 1; addSums(m, s, old, -1n); }
+  m.dev[s] = d;
+  if (d >= 0) { m.n[d] += 1; addSums(m, s, d, 1n); }
+  for (const t of near) if (m.dev[t] >= 0 && isEdge(m, t)) m.edge[m.dev[t]] += 1;
+}
+
+function swapSlots(m, i, j) {
+  const a = m.dev[i], b = m.dev[j];
+  setSlot(m, i, b);
+  setSlot(m, j, a);
+}
+
+function pairTerms(s, tot, a, b, px, py) {
   const na = s[a][0], nb = s[b][0];
-  const tot = [0n, 0n, 0n, 0n, 0n, 0n];
-  for (const t of s) for (let k = 0; k < 6; k++) tot[k] += t[k];
   const d1 = [nb * s[a][1] - na * s[b][1], nb * s[a][2] - na * s[b][2]];
   const den = Number(na * nb);
   const dc = [Number(d1[0]) * px / den, Number(d1[1]) * py / den];
@@ -90,93 +231,83 @@ function pairTerms(s, a, b, px, py) {
   return { dc, dm2 };
 }
 
-function kernel(d) {
-  const u = d / D.correlated.length_um;
-  return D.correlated.kernel === "exponential" ? Math.exp(-u) : Math.exp(-(u * u));
-}
-
-function score(ids) {
+// every figure of a model under field f: {g ppm/um, theta deg, h ppm/um2, spot [x, y] um
+// or null for the centre of all device units}
+function figures(m, f = specField()) {
   const [px, py] = D.pitch_um;
-  const nDev = D.devices.length;
-  const us = units(ids);
-  const s = gridSums(us, nDev);
-  const xy = us.map(([r, c]) => [c * px, -r * py]);
-  let cx = 0, cy = 0;
-  for (const p of xy) { cx += p[0]; cy += p[1]; }
-  cx /= xy.length; cy /= xy.length;
-  const n = new Array(nDev).fill(0), sx = new Array(nDev).fill(0), sy = new Array(nDev).fill(0);
-  us.forEach(([, , d], i) => { n[d] += 1; sx[d] += xy[i][0]; sy[d] += xy[i][1]; });
-  const cen = sx.map((v, d) => [v / n[d], sy[d] / n[d]]);
-  // correlated field: covariance of device means, every pair of units
-  const cov = Array.from({ length: nDev }, () => new Array(nDev).fill(0));
-  if (D.correlated.sigma_ppm > 0) {
-    for (let i = 0; i < us.length; i++) {
-      const di = us[i][2];
-      cov[di][di] += 1;                       // distance 0: correlation 1
-      for (let j = i + 1; j < us.length; j++) {
-        const k = kernel(Math.hypot(xy[i][0] - xy[j][0], xy[i][1] - xy[j][1]));
-        const dj = us[j][2];
-        cov[di][dj] += k; cov[dj][di] += k;
-      }
-    }
-    for (let a = 0; a < nDev; a++) for (let b = 0; b < nDev; b++) cov[a][b] /= n[a] * n[b];
+  const nDev = m.nDev, s = m.sums;
+  const tot = [0n, 0n, 0n, 0n, 0n, 0n];
+  for (const t of s) for (let k = 0; k < 6; k++) tot[k] += t[k];
+  const [nAll, tu, tv] = tot;
+  const N = Number(nAll);
+  const centre = [Number(tu) / N * px, Number(tv) / N * py];
+  const spot = f.spot === null ? centre : f.spot;
+  const dir = [Math.cos(f.theta * Math.PI / 180), Math.sin(f.theta * Math.PI / 180)];
+  const hb = f.h / (2 * Math.SQRT2);          // the bowl h/(2 sqrt 2) |r - spot|^2, norm h
+  const sc = [spot[0] - centre[0], spot[1] - centre[1]];
+  // per device, from the integer sums: the centroid, its offset from the centre
+  // (N S1 - n T) / (n N) (an exact zero stays zero), the second moments about the centre
+  // (N^2 S2 - 2 N S1 T + n T^2) / (n N^2)
+  const devices = D.devices.map((name, d) => {
+    const t = s[d], nd = t[0], n = Number(nd);
+    const den = Number(nd * nAll), den2 = Number(nd * nAll * nAll);
+    const rel = den ? [Number(nAll * t[1] - nd * tu) / den * px,
+      Number(nAll * t[2] - nd * tv) / den * py] : [0, 0];
+    const m2 = den ? [
+      Number(nAll * nAll * t[3] - 2n * nAll * t[1] * tu + nd * tu * tu) / den2 * px * px,
+      Number(nAll * nAll * t[4] - nAll * (t[1] * tv + t[2] * tu) + nd * tu * tv) / den2 * px * py,
+      Number(nAll * nAll * t[5] - 2n * nAll * t[2] * tv + nd * tv * tv) / den2 * py * py] : [0, 0, 0];
+    return { name, units: n, centroid: [Number(t[1]) / n * px, Number(t[2]) / n * py],
+             rel, m2, offset: Math.hypot(rel[0], rel[1]), edge: m.edge[d] };
+  });
+  // each device's mean of the field less the mean over all device units:
+  // g dir.(c_d - c) + hb (tr_d - tr_all - 2 (spot - c).(c_d - c))
+  let trAll = 0;
+  devices.forEach((dv) => { trAll += dv.units * (dv.m2[0] + dv.m2[2]); });
+  trAll /= N;
+  for (const dv of devices) {
+    dv.field = f.g * (dir[0] * dv.rel[0] + dir[1] * dv.rel[1]) +
+      hb * (dv.m2[0] + dv.m2[2] - trAll - 2 * (sc[0] * dv.rel[0] + sc[1] * dv.rel[1]));
   }
-  const g = D.linear_ppm_per_um, h = D.quadratic_ppm_per_um2;
+  const cov = (a, b) => m.cov[a * nDev + b] / (m.n[a] * m.n[b]);
   const pairs = D.pairs.map(([a, b]) => {
-    const t = pairTerms(s, a, b, px, py);
+    const t = pairTerms(s, tot, a, b, px, py);
     const dist = Math.hypot(t.dc[0], t.dc[1]);
     let angle = dist > 0 ? Math.atan2(t.dc[1], t.dc[0]) * 180 / Math.PI : 0;
     angle = ((angle % 360) + 360) % 360;
     const norm = Math.sqrt(t.dm2[0] * t.dm2[0] + 2 * (t.dm2[1] * t.dm2[1]) + t.dm2[2] * t.dm2[2]);
-    const variance = Math.max(cov[a][a] + cov[b][b] - 2 * cov[a][b], 0);
-    const area = (d) => n[d] * D.white.unit_area_um2;
+    const variance = m.corr ? Math.max(cov(a, a) + cov(b, b) - 2 * cov(a, b), 0) : 0;
+    const area = (d) => m.n[d] * D.white.unit_area_um2;
     const white = 1e4 * D.white.a_param_pct_um * Math.sqrt((1 / area(a) + 1 / area(b)) / 2);
+    const along = f.g * (dir[0] * t.dc[0] + dir[1] * t.dc[1]);
+    const bowl = hb * (t.dm2[0] + t.dm2[2] - 2 * (sc[0] * t.dc[0] + sc[1] * t.dc[1]));
     return {
-      a, b, dc: t.dc, linear: g * dist, angle, quadratic: 0.5 * h * norm,
+      a, b, dc: t.dc, linear: f.g * dist, angle, quadratic: 0.5 * f.h * norm,
+      along, bowl, field: along + bowl,
       corr: D.correlated.sigma_ppm * Math.sqrt(variance), white,
     };
   });
+  // the worst pair of a figure: the largest size, shown as a size
   const worstOf = (key) => {
     let best = null;
     for (const p of pairs) if (best === null || Math.abs(p[key]) > Math.abs(best[key])) best = p;
-    return best === null ? { value: 0, pair: null } : { value: best[key], pair: best };
+    return best === null ? { value: 0, pair: null } : { value: Math.abs(best[key]), pair: best };
   };
-  const worst = {
-    linear: worstOf("linear"), quadratic: worstOf("quadratic"),
-    corr: worstOf("corr"), white: worstOf("white"),
-  };
-  // each centroid's offset from the centre of all device units, from the integer sums
-  // (N S1_d - n_d T) / (n_d N): an exact zero stays zero, with no float noise
-  const nAll = s.reduce((acc, t) => acc + t[0], 0n);
-  const tu = s.reduce((acc, t) => acc + t[1], 0n), tv = s.reduce((acc, t) => acc + t[2], 0n);
-  const devices = D.devices.map((name, d) => {
-    const den = Number(s[d][0] * nAll);
-    const du = den ? Number(nAll * s[d][1] - s[d][0] * tu) / den * px : 0;
-    const dv = den ? Number(nAll * s[d][2] - s[d][0] * tv) / den * py : 0;
-    return { name, units: n[d], centroid: cen[d], offset: Math.hypot(du, dv),
-             edge: edgeUnits(ids, d) };
-  });
-  return { pairs, worst, devices, centre: [cx, cy], cen, xy, us, n };
-}
-
-function edgeUnits(ids, d) {
-  const rows = ids.length, cols = ids[0].length;
-  const filled = (r, c) => r >= 0 && r < rows && c >= 0 && c < cols && ids[r][c] !== EMPTY;
-  let count = 0;
-  for (let r = 0; r < rows; r++) for (let c = 0; c < cols; c++) {
-    if (ids[r][c] !== d) continue;
-    if (!(filled(r - 1, c) && filled(r + 1, c) && filled(r, c - 1) && filled(r, c + 1))) count++;
+  const worst = {};
+  for (const key of ["linear", "along", "quadratic", "bowl", "field", "corr", "white"]) {
+    worst[key] = worstOf(key);
   }
-  return count;
+  return { pairs, worst, devices, centre, spot, field: f };
 }
 
-// worst pair ratio error under a linear gradient pointing at angle theta
+// every figure of an arrangement, from scratch
+function score(ids, f = specField()) { return figures(boardModel(ids), f); }
+
+// worst pair ratio error under the gradient g pointing at angle theta
 function directionError(sc, theta) {
   let worst = 0;
-  for (const p of sc.pairs) {
-    worst = Math.max(worst, Math.abs(D.linear_ppm_per_um *
-      (Math.cos(theta) * p.dc[0] + Math.sin(theta) * p.dc[1])));
-  }
+  const c = Math.cos(theta), s = Math.sin(theta);
+  for (const p of sc.pairs) worst = Math.max(worst, Math.abs(sc.field.g * (c * p.dc[0] + s * p.dc[1])));
   return worst;
 }
 
@@ -235,75 +366,77 @@ function ratioBudget(sc) {
 
 // INL and DNL (LSB) from each level's deviation from the ideal, as placer's budget
 // computes them (dac_inl_dnl): d = (E W - I E_T) / (W (W + E_T)), the fitted line is the
-// ideal one plus the line fitted to d (slope s), LSB = 1/W + s
-function dacInlDnl(weights, termWeight, err, errTerm, fit) {
+// ideal one plus the line fitted to d (slope s), LSB = 1/W + s.
+// dacLine keeps each code's numerator n = E W - I E_T and fits the line to n itself:
+// n, its line's slope S and residuals R and the steps' departures are all linear in the
+// device errors, and only the common denominator W (W + E_T) is not; then
+// INL_k = R_k / (W + E_T + S) and DNL_k likewise.
+function dacLine(err) {
+  const B = D.budget, weights = B.weights, fit = B.fit;
   const nb = weights.length, codes = 1 << nb;
-  let total = termWeight;
+  let total = B.termination_weight;
   for (const w of weights) total += w;
-  const we = weights.map((w, b) => err[b] * w);
-  let eTotal = termWeight * errTerm;
+  const we = B.index.map((d, b) => err[d] * weights[b]);
+  let eTotal = B.termination_weight * (B.termination === null ? 0 : err[B.termination]);
   { let s = 0; for (const v of we) s += v; eTotal = s + eTotal; }
-  const ideal = new Array(codes), dev = new Array(codes);
-  for (let k = 0; k < codes; k++) {
-    let i = 0, e = 0;
-    for (let b = 0; b < nb; b++) if ((k >> b) & 1) { i += weights[b]; e += we[b]; }
-    ideal[k] = i;
-    dev[k] = (e * total - i * eTotal) / (total * (total + eTotal));
+  // each code's sums from the code without its highest bit: the bits are added in
+  // ascending order, as a loop over the bits would add them
+  const ideal = new Float64Array(codes), esum = new Float64Array(codes), num = new Float64Array(codes);
+  for (let k = 1; k < codes; k++) {
+    const top = 31 - Math.clz32(k), rest = k ^ (1 << top);
+    ideal[k] = ideal[rest] + weights[top];
+    esum[k] = esum[rest] + we[top];
   }
+  for (let k = 0; k < codes; k++) num[k] = esum[k] * total - ideal[k] * eTotal;
   let slope;
-  const resid = new Array(codes);
+  const resid = new Float64Array(codes);
   if (fit === "endpoint") {
-    slope = (dev[codes - 1] - dev[0]) / (ideal[codes - 1] - ideal[0]);
-    for (let k = 0; k < codes; k++) resid[k] = dev[k] - dev[0] - (ideal[k] - ideal[0]) * slope;
+    slope = (num[codes - 1] - num[0]) / (ideal[codes - 1] - ideal[0]);
+    for (let k = 0; k < codes; k++) resid[k] = num[k] - num[0] - (ideal[k] - ideal[0]) * slope;
   } else {
     let mi = 0, md = 0;
-    for (let k = 0; k < codes; k++) { mi += ideal[k]; md += dev[k]; }
+    for (let k = 0; k < codes; k++) { mi += ideal[k]; md += num[k]; }
     mi /= codes; md /= codes;
     let sdi = 0, sii = 0;
-    for (let k = 0; k < codes; k++) { sdi += (dev[k] - md) * (ideal[k] - mi); sii += (ideal[k] - mi) ** 2; }
+    for (let k = 0; k < codes; k++) { sdi += (num[k] - md) * (ideal[k] - mi); sii += (ideal[k] - mi) ** 2; }
     slope = sdi / sii;
-    for (let k = 0; k < codes; k++) resid[k] = (dev[k] - md) - (ideal[k] - mi) * slope;
+    for (let k = 0; k < codes; k++) resid[k] = (num[k] - md) - (ideal[k] - mi) * slope;
   }
-  const lsb = 1 / total + slope;
-  const inl = resid.map((r) => r / lsb);
-  const dnl = [];
-  for (let k = 0; k + 1 < codes; k++) dnl.push(((dev[k + 1] - dev[k]) - slope * (ideal[k + 1] - ideal[k])) / lsb);
-  return [inl, dnl];
+  const step = new Float64Array(codes - 1);
+  for (let k = 0; k + 1 < codes; k++) step[k] = (num[k + 1] - num[k]) - slope * (ideal[k + 1] - ideal[k]);
+  return { total, eTotal, slope, resid, step };
+}
+
+function dacInlDnl(err) {
+  const L = dacLine(err), q = L.total + L.eTotal + L.slope;
+  return [L.resid.map((r) => r / q), L.step.map((v) => v / q)];
 }
 
 function dacBudget(sc) {
-  const B = D.budget;
-  const inlOf = (err) => dacInlDnl(B.weights, B.termination_weight, B.index.map((d) => err[d]),
-    B.termination === null ? 0 : err[B.termination], B.fit);
-  const maxAbs = (a) => a.reduce((m, v) => Math.max(m, Math.abs(v)), 0);
-  const [cx, cy] = sc.centre;
-  // centroids of the positions about the centre (as placer computes them)
-  const nDev = D.devices.length;
-  const cen = Array.from({ length: nDev }, () => [0, 0]);
-  sc.us.forEach(([, , d], i) => { cen[d][0] += sc.xy[i][0] - cx; cen[d][1] += sc.xy[i][1] - cy; });
-  cen.forEach((c, d) => { c[0] /= sc.n[d]; c[1] /= sc.n[d]; });
-  const g = D.linear_ppm_per_um * 1e-6;
+  // centroids and second moments about the centre of all device units (as placer's)
+  const g = sc.field.g * 1e-6;
+  // a gradient at angle t: err = cos t X + sin t Y, so each direction's INL and DNL are
+  // the same combination of the two lines' residuals over its own denominator
+  const X = dacLine(sc.devices.map((dv) => g * dv.rel[0]));
+  const Y = dacLine(sc.devices.map((dv) => g * dv.rel[1]));
   let best = -1, bestInl = 0, bestDnl = 0, bestAngle = 0;
   for (let deg = 0; deg < 360; deg++) {
-    const t = deg * (Math.PI / 180);
-    const err = cen.map(([x, y]) => g * (Math.cos(t) * x + Math.sin(t) * y));
-    const [inl, dnl] = inlOf(err);
-    const w = maxAbs(inl);
+    const t = deg * (Math.PI / 180), c = Math.cos(t), s = Math.sin(t);
+    const q = Math.abs(X.total + (c * X.eTotal + s * Y.eTotal) + (c * X.slope + s * Y.slope));
+    let wi = 0, wd = 0;
+    for (let k = 0; k < X.resid.length; k++) wi = Math.max(wi, Math.abs(c * X.resid[k] + s * Y.resid[k]));
+    for (let k = 0; k < X.step.length; k++) wd = Math.max(wd, Math.abs(c * X.step[k] + s * Y.step[k]));
+    const w = wi / q;
     if (w > best) { best = w; bestInl = w; bestAngle = deg; }
-    bestDnl = Math.max(bestDnl, maxAbs(dnl));       // the worst DNL over every direction
+    bestDnl = Math.max(bestDnl, wd / q);              // the worst DNL over every direction
   }
-  // the worst Hessian of the spec's norm (as placer's budget): one field per component
+  // the worst Hessian of the norm (as placer's budget): one field per component
   // (a Mxx/2, b Mxy, c Myy/2 at the norm), then per code sqrt(Ia^2 + Ib^2/2 + Ic^2)
-  const hq = D.quadratic_ppm_per_um2 * 1e-6;
+  const hq = sc.field.h * 1e-6;
   let qinl = 0, qdnl = 0;
   if (hq > 0) {
-    const m = Array.from({ length: nDev }, () => [0, 0, 0]);
-    sc.us.forEach(([, , d], i) => {
-      const x = sc.xy[i][0] - cx, y = sc.xy[i][1] - cy;
-      m[d][0] += x * x; m[d][1] += x * y; m[d][2] += y * y;
-    });
-    const parts = [0, 1, 2].map((j) => inlOf(m.map((v, d) =>
-      hq * (j === 1 ? 1 : 0.5) * v[j] / sc.n[d])));
+    const parts = [0, 1, 2].map((j) => dacInlDnl(sc.devices.map((dv) =>
+      hq * (j === 1 ? 1 : 0.5) * dv.m2[j])));
     const comb = (k, idx) => Math.sqrt(parts[0][k][idx] ** 2 + parts[1][k][idx] ** 2 / 2 +
                                        parts[2][k][idx] ** 2);
     for (let i = 0; i < parts[0][0].length; i++) qinl = Math.max(qinl, comb(0, i));
@@ -352,7 +485,23 @@ function patterns(svg) {
   svg.appendChild(defs);
 }
 
-function drawArray(sc) {
+// the field's value (ppm) at a point: the gradient along its direction plus the bowl
+// about the hot spot, h/(2 sqrt 2) |r - spot|^2 (a Hessian of norm h, as bowl_ppm)
+function fieldAt(f, spot, x, y) {
+  const t = f.theta * Math.PI / 180;
+  return f.g * (Math.cos(t) * x + Math.sin(t) * y) +
+    f.h / (2 * Math.SQRT2) * ((x - spot[0]) ** 2 + (y - spot[1]) ** 2);
+}
+
+// blue below the units' mean field, white at it, red above (strongest: the darkest)
+function shadeColour(t) {
+  const lo = [49, 99, 179], mid = [250, 250, 250], hi = [196, 48, 43];
+  const end = t < 0 ? lo : hi, a = Math.min(1, Math.abs(t));
+  const c = mid.map((v, k) => Math.round(v + (end[k] - v) * a));
+  return `rgb(${c[0]},${c[1]},${c[2]})`;
+}
+
+function buildBoard() {
   const ids = state.ids, rows = ids.length, cols = ids[0].length;
   const [px, py] = D.pitch_um;
   // true pitch, at most 560 x 520 px and 90 px a slot, but at least 14 px a slot (a
@@ -366,84 +515,179 @@ function drawArray(sc) {
     "aria-label": `Array of ${rows} rows and ${cols} columns`,
   }, null, SVGNS);
   patterns(svg);
-  const big = w >= 26 && h >= 18;
+  const b = { svg, w, h, m, rows, cols, big: w >= 26 && h >= 18, slots: [],
+    shade: new Array(rows * cols).fill("none"),
+    // the shade shows as a frame round each unit, a fifth of the slot on each side
+    inset: [Math.max(2, 0.2 * w), Math.max(2, 0.2 * h)] };
+  state.board = b;
   for (let r = 0; r < rows; r++) {
     const rowG = el("g", { role: "row" }, null, SVGNS);
     for (let c = 0; c < cols; c++) {
-      const d = ids[r][c], o = state.orient[r][c];
-      const x = m + c * w, y = m + r * h;
-      const what = d >= 0 ? D.devices[d] : d === DUMMY ? "dummy" : "empty";
-      const mark = o > 0 ? ">" : o < 0 ? "<" : "";
-      const g = el("g", {
-        class: "slot", role: "gridcell", "data-row": r, "data-col": c,
-        tabindex: r === state.focus[0] && c === state.focus[1] ? 0 : -1,
-        "aria-label": `row ${r}, column ${c}: ${what}${mark ? ", finger " + (o > 0 ? "right" : "left") : ""}`,
-      }, null, SVGNS);
-      if (state.selected && state.selected[0] === r && state.selected[1] === c) {
-        g.classList.add("selected");
-        g.setAttribute("aria-selected", "true");
-      }
-      const fill = d >= 0 ? D.colours[d][0] : d === DUMMY ? D.dummy_colour : "none";
-      g.appendChild(el("rect", { x: x + 1, y: y + 1, width: w - 2, height: h - 2, fill,
-        stroke: d === EMPTY ? "#ddd" : "#222", "stroke-width": 0.8,
-        "stroke-dasharray": d === EMPTY ? "3 2" : "none", class: "frame" }, null, SVGNS));
-      const hatch = d === DUMMY ? "dummy" : d >= 0 ? HATCH_SHAPES[D.colours[d][1]] : null;
-      if (hatch) {
-        g.appendChild(el("rect", { x: x + 1, y: y + 1, width: w - 2, height: h - 2,
-          fill: `url(#hatch-${hatch})`, "pointer-events": "none" }, null, SVGNS));
-      }
-      if (big && d >= 0) {
-        g.appendChild(el("text", { x: x + w / 2, y: y + h * 0.42, "text-anchor": "middle",
-          "font-size": Math.min(12, w / (0.62 * D.devices[d].length + 1)), "pointer-events": "none" },
-        D.devices[d], SVGNS));
-      }
-      if (big && mark) {
-        g.appendChild(el("text", { x: x + w / 2, y: y + h * 0.8, "text-anchor": "middle",
-          "font-size": 11, "pointer-events": "none" }, mark, SVGNS));
-      }
+      const g = el("g", { class: "slot", role: "gridcell", "data-row": r, "data-col": c,
+        tabindex: r === state.focus[0] && c === state.focus[1] ? 0 : -1 }, null, SVGNS);
       g.addEventListener("click", () => pick(r, c));
+      b.slots.push(g);
       rowG.appendChild(g);
     }
     svg.appendChild(rowG);
   }
-  // centroids and the centre of all device units
-  const toX = (xu) => m + (xu / px + 0.5) * w, toY = (yu) => m + (-yu / py + 0.5) * h;
-  const [ccx, ccy] = sc.centre;
-  svg.appendChild(el("path", { d: `M${toX(ccx) - 9},${toY(ccy)}h18M${toX(ccx)},${toY(ccy) - 9}v18`,
-    stroke: "#000", "stroke-width": 2.5, "pointer-events": "none" }, null, SVGNS));
-  const rad = Math.max(3, Math.min(5.5, 0.3 * Math.min(w, h) + 2));
-  sc.devices.forEach((dv, d) => {
-    svg.appendChild(el("circle", { cx: toX(dv.centroid[0]), cy: toY(dv.centroid[1]), r: rad + 2,
-      fill: "#fff", stroke: "none", "pointer-events": "none" }, null, SVGNS));
-    svg.appendChild(el("circle", { cx: toX(dv.centroid[0]), cy: toY(dv.centroid[1]), r: rad,
-      fill: D.colours[d][0], stroke: "#000", "stroke-width": 1.2, "pointer-events": "none" },
-    null, SVGNS)).appendChild(el("title", {}, `${dv.name} centroid`, SVGNS));
+  // the centre of all device units, each device's centroid, the hot spot
+  const marks = el("g", { "pointer-events": "none" }, null, SVGNS);
+  b.cross = marks.appendChild(el("path", { stroke: "#000", "stroke-width": 2.5 }, null, SVGNS));
+  b.rad = Math.max(3, Math.min(5.5, 0.3 * Math.min(w, h) + 2));
+  b.spot = marks.appendChild(el("g", {}, null, SVGNS));
+  b.spot.appendChild(el("circle", { r: b.rad + 3, fill: "none", stroke: "#fff", "stroke-width": 4 }, null, SVGNS));
+  b.spot.appendChild(el("circle", { r: b.rad + 3, fill: "none", stroke: "#000", "stroke-width": 1.6,
+    "stroke-dasharray": "3 2" }, null, SVGNS));
+  b.spot.appendChild(el("title", {}, "hot spot: the centre of the curvature", SVGNS));
+  b.dots = D.devices.map((name, d) => {
+    const dot = marks.appendChild(el("g", {}, null, SVGNS));
+    dot.appendChild(el("circle", { r: b.rad + 2, fill: "#fff", stroke: "none" }, null, SVGNS));
+    dot.appendChild(el("circle", { r: b.rad, fill: D.colours[d][0], stroke: "#000", "stroke-width": 1.2 }, null, SVGNS));
+    dot.appendChild(el("title", {}, `${name} centroid`, SVGNS));
+    return dot;
   });
-  const holder = document.getElementById("array");
-  holder.replaceChildren(svg);
+  svg.appendChild(marks);
+  for (let r = 0; r < rows; r++) for (let c = 0; c < cols; c++) paintSlot(r, c);
+  document.getElementById("array").replaceChildren(svg);
   svg.addEventListener("keydown", keys);
 }
 
+// one slot drawn as it now stands: the field's shade round the unit, the unit's colour
+// and hatch inside, its name and finger mark on a large board
+function paintSlot(r, c) {
+  const b = state.board, s = r * b.cols + c, g = b.slots[s];
+  const d = state.ids[r][c], o = state.orient[r][c];
+  const x = b.m + c * b.w, y = b.m + r * b.h, w = b.w, h = b.h;
+  const what = d >= 0 ? D.devices[d] : d === DUMMY ? "dummy" : "empty";
+  const mark = o > 0 ? ">" : o < 0 ? "<" : "";
+  g.setAttribute("aria-label", `row ${r}, column ${c}: ${what}${mark ? ", finger " + (o > 0 ? "right" : "left") : ""}`);
+  const fill = d >= 0 ? D.colours[d][0] : d === DUMMY ? D.dummy_colour : "none";
+  const parts = [];
+  parts.push(el("rect", { x: x + 1, y: y + 1, width: w - 2, height: h - 2,
+    fill: d === EMPTY ? "none" : state.shade ? b.shade[s] : fill,
+    stroke: d === EMPTY ? "#ddd" : state.shade ? "#777" : "#222", "stroke-width": state.shade ? 0.5 : 0.8,
+    // an empty slot (no fill) takes clicks over its whole area too
+    "stroke-dasharray": d === EMPTY ? "3 2" : "none", class: "frame", "pointer-events": "all" }, null, SVGNS));
+  const [kx, ky] = state.shade && d !== EMPTY ? b.inset : [1, 1];
+  const inner = { x: x + kx, y: y + ky, width: Math.max(1, w - 2 * kx), height: Math.max(1, h - 2 * ky) };
+  if (d !== EMPTY) {
+    parts.push(el("rect", { ...inner, fill, stroke: state.shade && b.big ? "#444" : "none", "stroke-width": 0.5,
+      "pointer-events": "none" }, null, SVGNS));
+  }
+  const hatch = d === DUMMY ? "dummy" : d >= 0 ? HATCH_SHAPES[D.colours[d][1]] : null;
+  if (hatch) {
+    parts.push(el("rect", { ...inner, fill: `url(#hatch-${hatch})`, "pointer-events": "none" }, null, SVGNS));
+  }
+  if (b.big && d >= 0) {
+    parts.push(el("text", { x: x + w / 2, y: y + h * 0.42, "text-anchor": "middle",
+      "font-size": Math.min(12, w / (0.62 * D.devices[d].length + 1)), "pointer-events": "none" },
+    D.devices[d], SVGNS));
+  }
+  if (b.big && mark) {
+    parts.push(el("text", { x: x + w / 2, y: y + h * 0.8, "text-anchor": "middle",
+      "font-size": 11, "pointer-events": "none" }, mark, SVGNS));
+  }
+  g.replaceChildren(...parts);
+}
+
+// the field's shade of every slot, relative to the mean over the device units (each
+// slot's group carries the value as data-field, ppm)
+function shadeField(sc) {
+  const b = state.board, f = state.field, ids = state.ids;
+  const [px, py] = D.pitch_um;
+  const vals = new Float64Array(b.rows * b.cols);
+  let mean = 0, n = 0;
+  for (let r = 0; r < b.rows; r++) {
+    for (let c = 0; c < b.cols; c++) {
+      const v = fieldAt(f, sc.spot, c * px, -r * py);
+      vals[r * b.cols + c] = v;
+      if (ids[r][c] >= 0) { mean += v; n++; }
+    }
+  }
+  mean /= n;
+  let top = 0;
+  for (let s = 0; s < vals.length; s++) {
+    vals[s] -= mean;
+    if (ids[Math.floor(s / b.cols)][s % b.cols] !== EMPTY) top = Math.max(top, Math.abs(vals[s]));
+  }
+  let lo = 0, hi = 0;
+  for (let s = 0; s < vals.length; s++) {
+    const r = Math.floor(s / b.cols), c = s - r * b.cols;
+    if (ids[r][c] === EMPTY) { b.slots[s].removeAttribute("data-field"); continue; }
+    lo = Math.min(lo, vals[s]); hi = Math.max(hi, vals[s]);
+    b.shade[s] = shadeColour(top > 0 ? vals[s] / top : 0);
+    b.slots[s].setAttribute("data-field", String(vals[s]));
+    const frame = b.slots[s].firstChild;
+    if (frame && state.shade) frame.setAttribute("fill", b.shade[s]);
+  }
+  document.getElementById("field-scale").replaceChildren(
+    el("span", { class: "scale-bar" }),
+    document.createTextNode(top > 0 ? ` ${fmt(lo)} .. +${fmt(hi)} ppm about the units' mean`
+      : " no field"));
+}
+
+function drawMarkers(sc) {
+  const b = state.board, [px, py] = D.pitch_um;
+  const toX = (xu) => b.m + (xu / px + 0.5) * b.w, toY = (yu) => b.m + (-yu / py + 0.5) * b.h;
+  const [cx, cy] = [toX(sc.centre[0]), toY(sc.centre[1])];
+  b.cross.setAttribute("d", `M${cx - 9},${cy}h18M${cx},${cy - 9}v18`);
+  sc.devices.forEach((dv, d) => {
+    b.dots[d].setAttribute("transform", `translate(${toX(dv.centroid[0])},${toY(dv.centroid[1])})`);
+  });
+  b.spot.setAttribute("transform", `translate(${toX(sc.spot[0])},${toY(sc.spot[1])})`);
+  b.spot.style.display = state.field.h > 0 ? "" : "none";
+}
+
+function select(rc) {
+  const b = state.board;
+  if (state.selected) {
+    const g = b.slots[state.selected[0] * b.cols + state.selected[1]];
+    g.classList.remove("selected");
+    g.removeAttribute("aria-selected");
+  }
+  state.selected = rc;
+  if (rc) {
+    const g = b.slots[rc[0] * b.cols + rc[1]];
+    g.classList.add("selected");
+    g.setAttribute("aria-selected", "true");
+  }
+}
+
 function pick(r, c) {
-  state.focus = [r, c];
+  setFocus(r, c);
+  if (state.placing) {                      // the hot spot goes to this slot's centre
+    const [px, py] = D.pitch_um;
+    state.placing = false;
+    document.getElementById("field-place").setAttribute("aria-pressed", "false");
+    setField({ spot: [c * px, -r * py] });
+    say(`Hot spot at row ${r}, column ${c}.`);
+    focusSlot();
+    return;
+  }
   if (state.selected === null) {
-    state.selected = [r, c];
-    render();
+    select([r, c]);
     say(`Selected row ${r}, column ${c}; pick the slot to swap it with.`);
     focusSlot();
     return;
   }
   const [r0, c0] = state.selected;
-  state.selected = null;
-  if (r0 === r && c0 === c) { render(); say("Selection cleared."); focusSlot(); return; }
+  select(null);
+  if (r0 === r && c0 === c) { say("Selection cleared."); focusSlot(); return; }
   swap([r0, c0], [r, c]);
   focusSlot();
 }
 
+function setFocus(r, c) {
+  const b = state.board, [r0, c0] = state.focus;
+  b.slots[r0 * b.cols + c0].setAttribute("tabindex", -1);
+  b.slots[r * b.cols + c].setAttribute("tabindex", 0);
+  state.focus = [r, c];
+}
+
 function focusSlot() {
-  const [r, c] = state.focus;
-  const s = document.querySelector(`.slot[data-row="${r}"][data-col="${c}"]`);
-  if (s) s.focus();
+  const b = state.board, [r, c] = state.focus;
+  b.slots[r * b.cols + c].focus();
 }
 
 function keys(ev) {
@@ -453,17 +697,14 @@ function keys(ev) {
   if (moves[ev.key]) {
     r = Math.min(rows - 1, Math.max(0, r + moves[ev.key][0]));
     c = Math.min(cols - 1, Math.max(0, c + moves[ev.key][1]));
-    state.focus = [r, c];
-    document.querySelectorAll(".slot").forEach((s) => s.setAttribute("tabindex", -1));
+    setFocus(r, c);
     focusSlot();
-    const s = document.querySelector(`.slot[data-row="${r}"][data-col="${c}"]`);
-    if (s) s.setAttribute("tabindex", 0);
     ev.preventDefault();
   } else if (ev.key === "Enter" || ev.key === " ") {
     pick(r, c);
     ev.preventDefault();
   } else if (ev.key === "Escape") {
-    state.selected = null; render(); focusSlot();
+    select(null); focusSlot();
   } else if (ev.key === "u" || ev.key === "z") {
     undo(); focusSlot();
   }
@@ -483,18 +724,22 @@ function pairName(p) { return p ? `${D.devices[p.a]}/${D.devices[p.b]}` : ""; }
 function drawFigures(sc) {
   const t = document.getElementById("worst");
   t.replaceChildren();
-  const ref = state.reference;
+  const ref = state.reference, f = state.field;
   const was = (key) => ref ? ` (was ${fmt(ref.worst[key].value)} as loaded)` : "";
-  figureRow(t, "linear error", sc.worst.linear.value, "ppm", "linear_ppm",
-    pairName(sc.worst.linear.pair) + was("linear"));
-  figureRow(t, "quadratic error", sc.worst.quadratic.value, "ppm", "quadratic_ppm",
-    pairName(sc.worst.quadratic.pair) + was("quadratic"));
-  figureRow(t, "correlated sigma", sc.worst.corr.value, "ppm", "correlated_sigma_ppm",
-    pairName(sc.worst.corr.pair) + was("corr"));
+  const row = (label, key, fig) => figureRow(t, label, sc.worst[key].value, "ppm", fig,
+    pairName(sc.worst[key].pair) + was(key));
+  row("linear error, worst direction", "linear", "linear_ppm");
+  row(`linear error at ${fmt(f.theta)} deg`, "along", "along_ppm");
+  row("quadratic error, worst curvature", "quadratic", "quadratic_ppm");
+  row("bowl about the hot spot", "bowl", "bowl_ppm");
+  row("the shaded field (both)", "field", "field_ppm");
+  row("correlated sigma", "corr", "correlated_sigma_ppm");
   figureRow(t, "white sigma (area law)", sc.worst.white.value, "ppm", "white_sigma_ppm",
     pairName(sc.worst.white.pair));
-  const note = el("caption", {}, `${D.gradient_described}; curvature ` +
-    `${D.quadratic_ppm_per_um2} ppm/um2; correlated ${D.correlated.sigma_ppm} ppm over ` +
+  const spec = specField();
+  const note = el("caption", {}, `gradient ${fmt(f.g)} ppm/um at ${fmt(f.theta)} deg ` +
+    `(the spec: ${D.gradient_described}); curvature ${fmt(f.h)} ppm/um2 (the spec: ` +
+    `${fmt(spec.h)}) about ${spotName(sc)}; correlated ${D.correlated.sigma_ppm} ppm over ` +
     `${D.correlated.length_um} um (${D.correlated.kernel})`);
   note.style.captionSide = "bottom"; note.style.fontSize = "0.8em"; note.style.textAlign = "left";
   t.appendChild(note);
@@ -502,20 +747,28 @@ function drawFigures(sc) {
   const dt = document.getElementById("devices");
   dt.replaceChildren();
   const head = el("tr");
-  for (const hname of ["device", "units", "centroid x", "centroid y", "offset um", "edge units"]) head.appendChild(el("th", { scope: "col" }, hname));
+  for (const hname of ["device", "units", "centroid x", "centroid y", "offset um", "field ppm", "edge units"]) head.appendChild(el("th", { scope: "col" }, hname));
   dt.appendChild(head);
   sc.devices.forEach((dv) => {
     const tr = el("tr");
+    const cell = (key, v, text = fmt(v)) => tr.appendChild(el("td", { "data-figure": `${key}:${dv.name}`, "data-value": String(v) }, text));
     tr.appendChild(el("td", {}, dv.name));
     tr.appendChild(el("td", {}, String(dv.units)));
-    tr.appendChild(el("td", { "data-figure": `centroid_x:${dv.name}`, "data-value": String(dv.centroid[0]) }, fmt(dv.centroid[0])));
-    tr.appendChild(el("td", { "data-figure": `centroid_y:${dv.name}`, "data-value": String(dv.centroid[1]) }, fmt(dv.centroid[1])));
-    tr.appendChild(el("td", { "data-figure": `offset_um:${dv.name}`, "data-value": String(dv.offset) }, fmt(dv.offset)));
-    tr.appendChild(el("td", { "data-figure": `edge_units:${dv.name}`, "data-value": String(dv.edge) }, String(dv.edge)));
+    cell("centroid_x", dv.centroid[0]);
+    cell("centroid_y", dv.centroid[1]);
+    cell("offset_um", dv.offset);
+    cell("field_mean", dv.field);
+    cell("edge_units", dv.edge, String(dv.edge));
     dt.appendChild(tr);
   });
   drawPolar(sc);
   drawBudget(sc);
+}
+
+function spotName(sc) {
+  const [px, py] = D.pitch_um;
+  const where = `row ${fmt(-sc.spot[1] / py)}, column ${fmt(sc.spot[0] / px)}`;
+  return state.field.spot === null ? `the centre of the units (${where})` : where;
 }
 
 function drawPolar(sc) {
@@ -546,11 +799,78 @@ function drawPolar(sc) {
     }).join("");
     svg.appendChild(el("path", { d, fill: "none", stroke: colour, "stroke-width": width, "stroke-dasharray": dash }, null, SVGNS));
   });
+  // the direction the controls set, and the board's error along it
+  const t = state.field.theta * Math.PI / 180, v = sc.worst.along.value;
+  const rr = top > 0 ? R * v / top : 0;
+  svg.appendChild(el("line", { x1: c0, y1: c0, x2: c0 + R * Math.cos(t), y2: c0 - R * Math.sin(t),
+    stroke: "#C4302B", "stroke-width": 1.5, "stroke-dasharray": "2 2" }, null, SVGNS));
+  svg.appendChild(el("circle", { cx: c0 + rr * Math.cos(t), cy: c0 - rr * Math.sin(t), r: 4,
+    fill: "#C4302B" }, null, SVGNS)).appendChild(el("title", {}, `${fmt(v)} ppm at ${fmt(state.field.theta)} deg`, SVGNS));
   svg.appendChild(el("text", { x: 4, y: size + 12, "font-size": 10 },
-    "solid: the board now; dashed: as loaded", SVGNS));
+    "solid: now; dashed: as loaded; red: the set direction", SVGNS));
   svg.appendChild(el("text", { x: 4, y: size + 25, "font-size": 10 },
     "direction of the gradient: 0 deg = +x, counter-clockwise", SVGNS));
   document.getElementById("polar").replaceChildren(svg);
+}
+
+// ---------------------------------------------------------------- the field's controls
+// sliders for the gradient's direction and strength, the curvature and its centre (in
+// slot coordinates); a button that puts the centre on the next slot clicked
+function fieldControls() {
+  const spec = specField();
+  const top = (v, dflt) => 4 * (v > 0 ? v : dflt);
+  const ranges = {
+    "field-angle": [0, 359, 1], "field-g": [0, top(spec.g, 10), top(spec.g, 10) / 400],
+    "field-h": [0, top(spec.h, 0.05), top(spec.h, 0.05) / 400],
+    "field-col": [0, 1, 0.5], "field-row": [0, 1, 0.5],       // the board's size: load()
+  };
+  for (const [id, [lo, hi, step]] of Object.entries(ranges)) {
+    const input = document.getElementById(id);
+    input.min = lo; input.max = hi; input.step = step;
+    input.addEventListener("input", () => fieldInput(id, Number(input.value)));
+  }
+  document.getElementById("field-shade").addEventListener("change", (ev) => {
+    state.shade = ev.target.checked;
+    const b = state.board;
+    for (let r = 0; r < b.rows; r++) for (let c = 0; c < b.cols; c++) paintSlot(r, c);
+  });
+  document.getElementById("field-reset").addEventListener("click", () => {
+    setField(specField());
+    say("The field as the spec gives it.");
+  });
+  document.getElementById("field-centre").addEventListener("click", () => setField({ spot: null }));
+  document.getElementById("field-place").addEventListener("click", (ev) => {
+    state.placing = !state.placing;
+    ev.target.setAttribute("aria-pressed", String(state.placing));
+    say(state.placing ? "Click the slot where the hot spot should sit." : "");
+  });
+}
+
+function fieldInput(id, v) {
+  const [px, py] = D.pitch_um, sc = state.sc;
+  if (id === "field-angle") setField({ theta: v });
+  else if (id === "field-g") setField({ g: v });
+  else if (id === "field-h") setField({ h: v });
+  else if (id === "field-col") setField({ spot: [v * px, sc.spot[1]] });
+  else setField({ spot: [sc.spot[0], -v * py] });
+}
+
+// the sliders and their read-outs as the field stands
+function showField() {
+  const f = state.field, sc = state.sc, [px, py] = D.pitch_um;
+  const put = (id, v, text) => {
+    const input = document.getElementById(id);
+    if (document.activeElement !== input) input.value = v;
+    document.getElementById(`${id}-out`).textContent = text;
+  };
+  put("field-angle", ((f.theta % 360) + 360) % 360, `${fmt(f.theta)} deg`);
+  put("field-g", f.g, `${fmt(f.g)} ppm/um`);
+  put("field-h", f.h, `${fmt(f.h)} ppm/um2`);
+  put("field-col", sc.spot[0] / px, fmt(sc.spot[0] / px));
+  put("field-row", -sc.spot[1] / py, fmt(-sc.spot[1] / py));
+  document.getElementById("compass-arrow").setAttribute("transform",
+    `rotate(${-f.theta} 14 14)`);
+  document.getElementById("compass").setAttribute("aria-label", `gradient rising towards ${fmt(f.theta)} deg`);
 }
 
 function drawBudget(sc) {
@@ -650,13 +970,20 @@ const STEPS = [
      "so two devices differ by the gradient times the distance between their centroids.",
      "Load <b>clustered</b>: the circles (centroids) sit apart and the linear error is large; the curve on the right " +
      "shows the error for every direction the gradient might take. Now swap units until the circles meet: " +
-     "the linear error falls to zero in every direction at once."]],
+     "the linear error falls to zero in every direction at once.",
+     "The shading round the units is the field itself (blue below the units' mean, red above). Turn it with " +
+     "the <b>direction</b> slider: the error along the set direction (the red mark on the curve) changes, the " +
+     "worst-direction figure does not; the <b>gradient</b> slider scales both."]],
   ["2. When centroids agree: curvature",
     ["With the centroids together, a curved field (temperature around a hot block, stress near an edge) still " +
      "separates devices whose units are spread differently: one sits more in the middle, the other further out. " +
      "That is the quadratic error, set by the difference of the devices' second moments.",
      "Compare <b>interdigitated</b> and <b>mirrored</b>: both may cancel the linear term, but the quadratic one differs. " +
-     "Try swapping an inner unit of one device with an outer unit of another and watch it move."]],
+     "Try swapping an inner unit of one device with an outer unit of another and watch it move.",
+     "Set the <b>gradient</b> to 0 and the shading shows the bowl alone. Move its centre with the hot spot " +
+     "sliders (or <b>Place hot spot</b> and click a slot): a bowl off the centre is the bowl at the centre " +
+     "plus a linear tilt, so devices whose centroids meet keep the same bowl error wherever the hot spot " +
+     "sits, and devices whose centroids are apart do not."]],
   ["3. Dispersion and the random field",
     ["Part of the variation is random but correlated over short distances. Units of one device that huddle " +
      "together see the same local deviation; units spread among the others average it out.",
@@ -696,11 +1023,15 @@ function drawHandout() {
 }
 
 // ---------------------------------------------------------------- wiring up
-function render() {
-  const sc = score(state.ids);
-  drawArray(sc);
+// the figures, the board's marks and (after a control moved or a unit went onto a dummy
+// or an empty slot) the shading, from the model as it stands
+function update(reshade) {
+  const sc = figures(state.model, state.field);
+  state.sc = sc;
+  if (reshade) shadeField(sc);
+  drawMarkers(sc);
   drawFigures(sc);
-  drawControls();
+  showField();
   document.body.dataset.swaps = String(state.history.length);
 }
 
@@ -713,5 +1044,6 @@ document.getElementById("print").addEventListener("click", () => window.print())
 drawLegend();
 drawStep();
 drawHandout();
+fieldControls();
 load(0);
 document.body.dataset.ready = "true";
