@@ -631,7 +631,7 @@ def draw(pattern_path: Path, spec_path: Path | None, out_dir: Path, layers_path:
     from placer.layout import block as drawing
     from placer.model.grade import grade_pattern
     from placer.present import outputs
-    from placer.present.report import format_nets
+    from placer.present.report import format_lde, format_nets
 
     pattern, spec, _ = _load_graded(pattern_path, spec_path)
     workload.check(spec, str(pattern_path), None)     # memory only: draw has no limit
@@ -645,6 +645,8 @@ def draw(pattern_path: Path, spec_path: Path | None, out_dir: Path, layers_path:
                             _gradient_field(spec, grade_) if overlay else None)
         written = out.commit()
     click.echo(format_nets(block.wiring, area=drawing.area_of(block)))
+    for line in format_lde(grade_.lde):
+        click.echo(line)
     click.echo("Wrote " + ", ".join(str(p) for p in written))
     click.echo("The GDSII is a starting pattern, not a design-rule-clean layout.")
 

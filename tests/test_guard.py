@@ -170,3 +170,23 @@ def test_pmos_block_netlist_uses_a_pmos_unit(tmp_path):
     text = (out / "pattern.sp").read_text()
     model = next(ln for ln in text.splitlines() if ln.startswith(".model placer_unit"))
     assert " pmos " in model and "vto=-" in model
+
+
+def test_a_ring_on_a_net_no_terminal_names_says_so_and_differing_bulks_are_refused(tmp_path):
+    """Loads that give no bulk and whose sources differ (VDDA, VDDB) leave the ring no net
+    of theirs: it falls back to VDD (PMOS), the report says no terminal names it, and the
+    layout still extracts clean. Devices whose bulks differ are refused at once, before
+    any search, in one line."""
+    text = (PLOAD.replace(', bulk = "VDD"', "")
+            .replace('source = "VDD", drain = "OUTA"', 'source = "VDDA", drain = "OUTA"')
+            .replace('source = "VDD", drain = "OUTB"', 'source = "VDDB", drain = "OUTB"')
+            .replace("guard_ring = true", 'guard_ring = true\ndummy_net = "VDDA"'))
+    out_text = run_placer(["arrange", str(spec_file(tmp_path, text)), "--out", "o",
+                           "--time-limit", "10"], cwd=tmp_path)
+    assert out_text.returncode == 0, out_text.stderr
+    assert "guard ring: on VDD, a net no terminal names" in out_text.stdout
+    found = extraction.check(tmp_path / "o" / "pattern.gds", LAYERS)
+    assert not found.shorts and not found.opens and not found.stray_labels
+    text = PLOAD.replace('drain = "OUTB", bulk = "VDD"', 'drain = "OUTB", bulk = "VDDB"')
+    refused(run_placer(["arrange", str(spec_file(tmp_path, text, name="b.toml")), "--out",
+                        "b"], cwd=tmp_path), "guard_ring", "bulk")

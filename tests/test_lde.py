@@ -92,7 +92,10 @@ def test_pair_row_pairs_as_many_fingers_as_any_orientation_can():
         paired = np.zeros(n, dtype=bool)
         paired[:-1] |= joins
         paired[1:] |= joins
-        assert sum(1 for i, d in enumerate(row) if d >= 0 and not paired[i]) == unpaired
+        if unpaired:                # one finger alone: every finger alone, all alike
+            assert not joins.any()
+        else:
+            assert all(paired[i] for i, d in enumerate(row) if d >= 0)
 
 
 # ---------------------------------------------------------------------- the formulas
@@ -128,7 +131,9 @@ def _grade(tmp: Path, spec_text: str, pattern: str) -> dict:
     return json.loads(res.stdout)
 
 
-ONE_TWO = MIRROR.replace("MA = 2", "MA = 1")
+# fingers drawn where nets allow: MA alone, MB's two sharing (pairs would leave every
+# finger alone here, MA having no partner)
+ONE_TWO = MIRROR.replace("MA = 2", "MA = 1") + 'diffusion = "shared"\n'
 ELECTRICAL = """
 [electrical]
 reference = "MA"
@@ -141,8 +146,8 @@ MB = 1.0
 
 
 def test_budget_lde_term_by_hand(tmp_path):
-    """`MA> MB> MB<` (no dummies): MA's right is its drain, MB's left a source, so MA
-    stands alone
+    """`MA> MB> MB<` (no dummies, diffusion shared where nets allow): MA's right is its
+    drain, MB's left a source, so MA stands alone
     (SA = SB = the cell's reach 0.95 - L/2 = 0.45 um) and MB's two fingers share their
     drain (SA 0.45, SB 0.45 + 2.3 = 2.75 um, pitch 2.3). By hand, BSIM4 forms with
     ku0 = -0.01 um, kvth0 = 2 mV um, SAref = SBref = 1 um, L = 1 um:
@@ -202,7 +207,7 @@ def test_well_terms_weigh_scb_and_scc(tmp_path):
     from scipy.integrate import quad
 
     g = _grade(tmp_path, MIRROR.replace("MA = 2\nMB = 2", "MA = 1") +
-               "[lde]\nwell_margin_um = 0.05\nweb = 50\nwec = 200\nkvth0_mv_um = 0\n",
+               "[lde]\nwell_margin_um = 0.05\nweb = 50\nwec = 200\nkvth0_mv_um = 0\nku0we = 0\n",
                "MA>\n")
     d = g["lde"]["devices"][0]
     terms = []
@@ -220,6 +225,11 @@ def _terms(gds: Path) -> dict[str, float]:
     rep = lod_by_device(gds, LAYERS)
     assert not rep.stray and not rep.conflicts and not rep.irregular
     return {name: dev.mean_term for name, dev in rep.devices.items()}
+
+
+def rep_islands(gds: Path) -> int:
+    """Diffusion islands the checker finds in ``gds``."""
+    return lod_by_device(gds, LAYERS).islands
 
 
 def _within(terms: dict[str, float], rel: float) -> bool:
@@ -269,13 +279,14 @@ length_um = 1.0
 """
 
 
-@pytest.mark.parametrize("case", ["bias_mirror", "mirror_256"])
+@pytest.mark.parametrize("case", ["bias_mirror", "mirror_256", "split_mirror"])
 def test_arranged_mirror_keeps_the_stress_term_equal(tmp_path, case):
-    """samples/bias_mirror.toml and a 256-unit mirror, arranged and drawn: every device's
-    mean stress term, measured from the GDSII by the independent checker, is within 5 %
-    of the others' (the issue's tolerance) and equals report.json's; the layout extracts
-    clean (tests/extraction.py)."""
-    spec = (ROOT / "samples" / "bias_mirror.toml" if case == "bias_mirror"
+    """samples/bias_mirror.toml, a 256-unit mirror and samples/split_mirror.toml (whose
+    devices share no diffusion net, so not every finger can pair and each stands alone),
+    arranged and drawn: every device's mean stress term, measured from the GDSII by the
+    independent checker, is within 5 % of the others' (the issue's tolerance) and equals
+    report.json's; the layout extracts clean (tests/extraction.py)."""
+    spec = (ROOT / "samples" / f"{case}.toml" if case != "mirror_256"
             else spec_file(tmp_path, MIRROR_256))
     res = run_placer(["arrange", str(spec), "--out", "o", "--time-limit", "20"], cwd=tmp_path)
     assert res.returncode == 0, res.stderr
@@ -284,7 +295,11 @@ def test_arranged_mirror_keeps_the_stress_term_equal(tmp_path, case):
     assert _within(measured, 0.05), measured
     report = json.loads((tmp_path / "o" / "report.json").read_text())
     assert measured == pytest.approx(_reported(report["grade"]["lde"]), rel=1e-9)
-    assert "Diffusion and well" in res.stdout and "lde %" in res.stdout or case != "bias_mirror"
+    assert "Diffusion and well" in res.stdout
+    if case == "split_mirror":
+        assert "every finger its own diffusion island" in res.stdout
+        assert rep_islands(gds) == sum(len(d.fingers) for d in lod_by_device(gds, LAYERS)
+                                       .devices.values()) + lod_by_device(gds, LAYERS).dummies
     found = extraction.check(gds, LAYERS)
     assert not found.shorts and not found.opens and not found.stray_labels
 
@@ -306,3 +321,29 @@ def test_lde_table_and_diffusion_refused_where_they_mean_nothing(tmp_path):
         parse_spec("[devices]\nA = 1\n[lde]\nkvth0 = 1\n")
     with pytest.raises(Exception, match="pairs"):
         parse_spec('[devices]\nA = 1\n[unit]\ndiffusion = "both"\n')
+
+
+def test_pmos_threshold_shift_turns_the_current_term(tmp_path):
+    """BSIM4 adds the stress shift to the signed threshold (ngspice b4temp.c: vth0 +=
+    dvth0_lod, with a PMOS VTH0 negative), so a positive dVT lowers a PMOS finger's |VT|
+    and raises its current: for the row of test_budget_lde_term_by_hand drawn as PMOS the
+    current term is mu'/mu - 1 + (gm/ID) dVT (hand calculation as there)."""
+    g = _grade(tmp_path, ONE_TWO.replace("length_um = 1.0", 'length_um = 1.0\npolarity = "p"')
+               + ELECTRICAL, "MA> MB> MB<\n")
+    ref = 2 / 1.5
+
+    def eps(inv: float) -> float:
+        return (1 - 0.01 * inv) / (1 - 0.01 * ref) - 1 + 10.0 * 2.0e-3 * (inv - ref)
+
+    e_ma, e_mb = eps(2 / 0.95), eps(1 / 0.95 + 1 / 3.25)
+    line = g["budget"]["lines"][0]
+    assert line["lde_pct"] == pytest.approx(100 * ((1 + e_mb) / (1 + e_ma) - 1), rel=1e-9)
+
+
+def test_a_mobility_coefficient_that_would_make_it_negative_is_refused(tmp_path):
+    """ku0_um = -0.75 within its range, but 1 + KU0 inv_od <= 0 at the drawn diffusion
+    (inv_od 1.36 /um): one line naming the file, no traceback."""
+    spec = spec_file(tmp_path, MIRROR + "[lde]\nku0_um = -0.75\n")
+    (tmp_path / "p.txt").write_text(". MA> MB< MB> MA< .\n")
+    refused(run_placer(["grade", "p.txt", "--spec", str(spec)], cwd=tmp_path), str(spec),
+            "ku0_um", "negative")

@@ -260,12 +260,6 @@ class LdeSpec:
     kvth0we_mv: float = 30.0
     ku0we: float = -0.05
 
-    @property
-    def zero(self) -> bool:
-        """No coefficient left: the effects vanish exactly."""
-        return (self.ku0_um == 0 and self.kvth0_mv_um == 0
-                and (self.well_margin_um is None
-                     or (self.kvth0we_mv == 0 and self.ku0we == 0)))
 
 
 DIFFUSION_STYLES = ("pairs", "shared")
@@ -775,6 +769,10 @@ def read_spec_text(text: str, source: str = "<spec>", default_name: str = "place
 
     nets, joins, dummy_net = _terminals(source, data.get("terminals", {}), kind, names,
                                         counts, arr.data.get("dummy_net"))
+    bulks = {n.get("bulk") for n in nets}
+    if guard and len(bulks) > 1:
+        raise arr.fail("guard_ring", "ties one body net, but the devices' bulk terminals "
+                       "differ; give every device the same bulk in [terminals]")
 
     raw_ro = data.get("routing", {})
     if isinstance(raw_ro, dict):

@@ -20,13 +20,13 @@ from placer.model.grade import Grade, grade_pattern
 from placer.model.routing_estimate import (
     FingerNets,
     Routing,
-    diffusion_joins,
     dummy_net_id,
     estimate_routing,
     finger_terminals,
     mos_finger_nets,
     orient_row,
     pair_row,
+    unpaired_in_row,
 )
 from placer.search import (
     Keys,
@@ -239,12 +239,7 @@ def balance_orientations(ids: NDArray[np.int_], orient: NDArray[np.int8],
         """Breaks between neighbours (c-1, c) for c in lo..hi of one row (with
         ``pairs_dummy``: fingers left unpaired in the whole row)."""
         if pairs_dummy is not None:
-            r_ids = np.array([row]), np.array([mk], dtype=np.int8)
-            joined = diffusion_joins(r_ids[0], r_ids[1], nets, pairs_dummy, "pairs")[0]
-            paired = np.zeros(n_cols, dtype=bool)
-            paired[:-1] |= joined
-            paired[1:] |= joined
-            return int(sum(1 for x in range(n_cols) if row[x] >= 0 and not paired[x]))
+            return unpaired_in_row(row, mk, nets, pairs_dummy)
         out = 0
         for c in range(max(lo, 1), min(hi, n_cols - 1) + 1):
             a, b = row[c - 1], row[c]

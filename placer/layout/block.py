@@ -122,7 +122,10 @@ def prepare(pattern: Pattern, spec: Spec, tools: Tools) -> Block:
     wiring.nets = [_with_figures(n, parasitics.nets.get(n.name)) for n in wiring.nets]
     guard = None
     if spec.array.guard_ring:
-        guard = guard_ring(wiring, tools.rules, body_net(spec), spec.unit.polarity == "p")
+        net, note = body_net(spec)
+        guard = guard_ring(wiring, tools.rules, net, spec.unit.polarity == "p")
+        if note:
+            wiring.notes.append(note)
         for role in {s.role for s in guard.shapes}:
             tools.layers[role]              # a map without the ring's roles: one line now
         with_guard(wiring, guard)

@@ -6,7 +6,8 @@ metal1 ring over it: the body tie of every finger (the substrate of an NMOS bloc
 well of a PMOS block) and a shield around the block. A PMOS block (``[unit] polarity =
 "p"``) sits in one well (the ``well`` role) that encloses the ring's tap diffusion by
 ``well_enclosure``; the ring, tapping the well, ties it. The ring is on the body net: the
-devices' shared ``bulk`` net, else VSS (NMOS) or VDD (PMOS). Where the router gave that net
+devices' shared ``bulk`` net, else their shared source, else VSS (NMOS) or VDD (PMOS)
+with a note. Where the router gave that net
 a pin, a stub on the pin's metal runs from the pin up to the ring (through a via onto the
 ring for metal2); else the ring carries the net's label and is the net's pin.
 
@@ -17,8 +18,9 @@ before it is drawn and leaves it out.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
-from placer.errors import TemplateError
+from placer.errors import SpecError, TemplateError
 from placer.layout.cells import Rect, Rules, snap
 from placer.layout.router import Label, Wiring
 
@@ -39,12 +41,27 @@ class Guard:
     well: tuple[float, float, float, float] | None
 
 
-def body_net(spec: object) -> str:
-    """The net of the ring: the devices' shared bulk, else VSS (n) or VDD (p)."""
-    bulks = {n.get("bulk") for n in spec.nets}                     # type: ignore[attr-defined]
+def body_net(spec: Any) -> tuple[str, str]:
+    """The net of the ring and a note when it is a guess: the devices' shared bulk; else
+    their shared source (a mirror's rail); else VSS (NMOS) or VDD (PMOS), a net no
+    terminal names, said in the note. Devices whose bulks differ cannot share one ring."""
+    bulks = {n.get("bulk") for n in spec.nets}
     if len(bulks) == 1 and None not in bulks:
-        return str(bulks.pop())
-    return "VDD" if spec.unit.polarity == "p" else "VSS"           # type: ignore[attr-defined]
+        return str(bulks.pop()), ""
+    if len(bulks - {None}) > 1 or (None in bulks and len(bulks) > 1):
+        given = sorted(str(b) for b in bulks - {None})
+        raise SpecError(f"{spec.source}: [array] guard_ring ties one body net, but the "
+                        f"devices' bulk terminals differ ({', '.join(given)}"
+                        f"{' and unset' if None in bulks else ''}); give every device the "
+                        "same bulk")
+    sources = {n.get("source") for n in spec.nets}
+    if len(sources) == 1 and None not in sources:
+        return str(sources.pop()), ""
+    net = "VDD" if spec.unit.polarity == "p" else "VSS"
+    if any(net in n.values() for n in spec.nets) or net == spec.dummy_net:
+        return net, ""
+    return net, (f"guard ring: on {net}, a net no terminal names (the devices give no "
+                 "bulk and share no source); give each device's bulk in [terminals]")
 
 
 def _need(rules: Rules) -> dict[str, float]:

@@ -248,8 +248,13 @@ def lde_of(pattern: Pattern, spec: Spec, geometry: FingerGeometry) -> LdeFigures
     joins = diffusion_joins(pattern.ids, pattern.orient, nets,
                             dummy_net_id(spec) if nets is not None else -1,
                             spec.unit.diffusion)
-    return lde_figures(pattern.ids, joins, pattern.devices, geometry, spec.lde,
-                       spec.unit.diffusion)
+    from placer.errors import SpecError
+
+    try:
+        return lde_figures(pattern.ids, joins, pattern.devices, geometry, spec.lde,
+                           spec.unit.diffusion, spec.unit.polarity)
+    except SpecError as err:
+        raise SpecError(f"{spec.source}: {err}") from None
 
 
 def _monte_carlo(spec: Spec, xy_c: np.ndarray, dev: np.ndarray, n_dev: int, pr: np.ndarray,

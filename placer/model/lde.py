@@ -76,6 +76,9 @@ class LdeFigures:
     style: str
     devices: tuple[LdeDevice, ...]
     coefficients: dict[str, Any]
+    #: "n" or "p": BSIM4 adds the shifts to the signed threshold, so a positive dVT
+    #: raises an NMOS finger's |VT| and lowers a PMOS finger's
+    polarity: str = "n"
 
     def device(self, name: str) -> LdeDevice:
         """The figures of ``name``."""
@@ -165,15 +168,28 @@ def _well_terms(xy: NDArray[np.float64], geom: FingerGeometry, box: tuple[float,
 
 
 def lde_figures(ids: NDArray[np.int_], joins: NDArray[np.bool_], devices: tuple[str, ...],
-                geom: FingerGeometry, lde: Any, style: str) -> LdeFigures:
+                geom: FingerGeometry, lde: Any, style: str, polarity: str = "n"
+                ) -> LdeFigures:
     """Every device's stress and well-proximity figures for fingers at ``ids`` (rows of
     slots, row 0 on top) whose diffusion joins as ``joins`` says; ``lde`` is the spec's
-    :class:`placer.io.spec.LdeSpec`."""
+    :class:`placer.io.spec.LdeSpec`. Raises SpecError when a coefficient makes a mobility
+    factor zero or negative at the drawn geometry."""
+    from placer.errors import SpecError
+
     sa, sb = sa_sb(ids, joins, geom)
     L = geom.gate_um
     inv = inv_od(sa, sb, L)
     inv_ref = float(inv_od(lde.saref_um, lde.sbref_um, L))
     rho_ref = lde.ku0_um * inv_ref
+    worst = float(np.nanmin(1.0 + lde.ku0_um * inv)) if np.any(ids >= 0) else 1.0
+    if min(worst, 1.0 + rho_ref) <= 0:
+        raise SpecError(f"[lde] ku0_um = {lde.ku0_um:g} makes the mobility factor "
+                        "1 + KU0/(SA + L/2) + KU0/(SB + L/2) zero or negative at the drawn "
+                        f"diffusion (inv_od up to {float(np.nanmax(inv)):.4g} /um, reference "
+                        f"{inv_ref:.4g} /um); give |ku0_um| below "
+                        f"{1.0 / max(float(np.nanmax(inv)), inv_ref):.3g} um")
+    if style == "pairs" and not joins.any():
+        style = "alone"                       # not every finger could pair: none does
     dmu = (1.0 + lde.ku0_um * inv) / (1.0 + rho_ref) - 1.0
     dvt = lde.kvth0_mv_um * (inv - inv_ref)
     rows, cols = np.nonzero(ids >= 0)
@@ -189,6 +205,11 @@ def lde_figures(ids: NDArray[np.int_], joins: NDArray[np.bool_], devices: tuple[
         xy = np.column_stack([cols * px, -rows * py]).astype(float)
         terms = _well_terms(xy, geom, box, lde.scref_um)
         eff = terms[:, 0] + lde.web * terms[:, 1] + lde.wec * terms[:, 2]
+        if np.any(1.0 + lde.ku0we * eff <= 0):
+            raise SpecError(f"[lde] ku0we = {lde.ku0we:g} makes the mobility factor "
+                            "1 + KU0WE (SCA + WEB SCB + WEC SCC) zero or negative at the "
+                            f"well edge (SCA + ... up to {float(eff.max()):.4g}); give a "
+                            "smaller |ku0we| or a larger well margin")
         sca[rows, cols] = terms[:, 0]
         dvt[rows, cols] += lde.kvth0we_mv * eff
         dmu[rows, cols] = (1.0 + dmu[rows, cols]) * (1.0 + lde.ku0we * eff) - 1.0
@@ -210,10 +231,13 @@ def lde_figures(ids: NDArray[np.int_], joins: NDArray[np.bool_], devices: tuple[
                                            "kvth0we_mv", "ku0we")}
     if geom.well_box is not None:
         coeffs["well_box_um"] = list(geom.well_box)      # the drawn well, not a margin
-    return LdeFigures(style, tuple(out), coeffs)
+    return LdeFigures(style, tuple(out), coeffs, polarity)
 
 
-def relative_current(dev: LdeDevice, gm_id_per_v: float) -> float:
+def relative_current(dev: LdeDevice, gm_id_per_v: float, polarity: str = "n") -> float:
     """A device's relative current change from its layout-dependent figures: the mean of
-    its fingers' ``mu'/mu - 1 - (gm/ID) dVT`` (their sum is the device's current)."""
-    return dev.dmu_rel - gm_id_per_v * dev.dvt_mv * 1e-3
+    its fingers' ``mu'/mu - 1 -+ (gm/ID) dVT`` (their sum is the device's current); the
+    shift is to the signed threshold (BSIM4), so it lowers an NMOS finger's current and
+    raises a PMOS finger's."""
+    sign = 1.0 if polarity == "n" else -1.0
+    return dev.dmu_rel - sign * gm_id_per_v * dev.dvt_mv * 1e-3

@@ -12,7 +12,8 @@ from placer.io.pattern import Pattern, unit_positions
 
 __all__ = ["Routing", "estimate_routing", "row_tracks", "diffusion_breaks", "orient_row",
            "finger_terminals", "FingerNets", "mos_finger_nets", "dummy_net_id", "facing",
-           "diffusion_joins", "pair_row", "NO_NET"]
+           "diffusion_joins", "pair_row", "NO_NET", "all_paired",
+           "unpaired_in_row"]
 
 #: (source net, drain net) of each MOS device as integers; None: a mirror's nets (shared
 #: source, own drain).
@@ -117,7 +118,10 @@ def diffusion_joins(ids: NDArray[np.int_], orient: NDArray[np.int8], nets: Finge
     ``"pairs"``: every diffusion island holds two fingers, so that each finger sees the
     same diffusion on its two sides as every other (its partner's the mirror image): of
     the neighbours that may share, the most active fingers are paired (with a finger or
-    an end dummy), then the most active pairs; the rest stand alone.
+    an end dummy), then the most active pairs. When some finger finds no partner (a
+    device whose source and drain no neighbour shares, a row of odd length without an
+    end dummy on the dummy net), no finger shares: each stands alone in an island of
+    its own, which keeps them all alike too.
 
     Examples
     --------
@@ -134,26 +138,54 @@ def diffusion_joins(ids: NDArray[np.int_], orient: NDArray[np.int8], nets: Finge
         return can
     out = np.zeros(can.shape, dtype=bool)
     for r in range(ids.shape[0]):
-        row = [int(v) for v in ids[r]]
-        n = len(row)
-        # best[c]: (covered, pairs) over slots 0..c-1; took[c]: edge (c-2, c-1) taken
-        best: list[tuple[int, int]] = [(0, 0)] * (n + 1)
-        took = [False] * (n + 1)
-        for c in range(2, n + 1):
-            best[c], took[c] = best[c - 1], False
-            if can[r, c - 2] and (row[c - 2] >= 0 or row[c - 1] >= 0):
-                w = _edge_weight(row[c - 2], row[c - 1])
-                cand = (best[c - 2][0] + w[0], best[c - 2][1] + w[1])
-                if cand > best[c]:
-                    best[c], took[c] = cand, True
-        c = n
-        while c >= 2:
-            if took[c]:
-                out[r, c - 2] = True
-                c -= 2
-            else:
-                c -= 1
+        out[r] = _row_pairs([int(v) for v in ids[r]], can[r])
+    if not all_paired(ids, out):
+        return np.zeros(can.shape, dtype=bool)      # every finger alone: all alike
     return out
+
+
+def _row_pairs(row: list[int], can: NDArray[np.bool_]) -> NDArray[np.bool_]:
+    """The joins of one row that pair the most active fingers, then the most active
+    pairs (a DP over the row: the neighbours ``can`` share)."""
+    n = len(row)
+    out = np.zeros(max(n - 1, 0), dtype=bool)
+    # best[c]: (covered, pairs) over slots 0..c-1; took[c]: edge (c-2, c-1) taken
+    best: list[tuple[int, int]] = [(0, 0)] * (n + 1)
+    took = [False] * (n + 1)
+    for c in range(2, n + 1):
+        best[c], took[c] = best[c - 1], False
+        if can[c - 2] and (row[c - 2] >= 0 or row[c - 1] >= 0):
+            w = _edge_weight(row[c - 2], row[c - 1])
+            cand = (best[c - 2][0] + w[0], best[c - 2][1] + w[1])
+            if cand > best[c]:
+                best[c], took[c] = cand, True
+    c = n
+    while c >= 2:
+        if took[c]:
+            out[c - 2] = True
+            c -= 2
+        else:
+            c -= 1
+    return out
+
+
+def unpaired_in_row(row: list[int], marks: list[int], nets: FingerNets, dummy: int) -> int:
+    """Active fingers of one row (orientations ``marks``) that find no partner."""
+    ids = np.array([row])
+    left, right = facing(ids, np.array([marks], dtype=np.int8), nets, dummy)
+    joins = _row_pairs(row, (right[0, :-1] == left[0, 1:]))
+    paired = np.zeros(len(row), dtype=bool)
+    paired[:-1] |= joins
+    paired[1:] |= joins
+    return int(sum(1 for x, d in enumerate(row) if d >= 0 and not paired[x]))
+
+
+def all_paired(ids: NDArray[np.int_], joins: NDArray[np.bool_]) -> bool:
+    """Whether every device finger shares its diffusion with a neighbour."""
+    paired = np.zeros(ids.shape, dtype=bool)
+    paired[:, :-1] |= joins
+    paired[:, 1:] |= joins
+    return bool(np.all(paired[ids >= 0]))
 
 
 def pair_row(row: NDArray[np.int_], balance: dict[int, int] | None = None,

@@ -199,12 +199,17 @@ def format_lde(lde: Any) -> list[str]:
             for d in lde.devices]
     terms = [d.inv_od_per_um for d in lde.devices]
     spread = (max(terms) - min(terms)) / max(terms) if terms and max(terms) > 0 else 0.0
-    how = ("two fingers to a diffusion island" if lde.style == "pairs"
-           else "diffusion shared wherever facing terminals are one net")
+    how = {"pairs": "two fingers to a diffusion island",
+           "alone": "every finger its own diffusion island, since not every finger could "
+                    "share with a neighbour",
+           "shared": "diffusion shared wherever facing terminals are one net"}[lde.style]
+    pmos = lde.polarity == "p"
     return ["", f"Diffusion and well (MOS fingers as drawn, {how}; SA/SB = gate edge to each "
             "end of its diffusion in um; inv_od = mean of 1/(SA+L/2) + 1/(SB+L/2) per um, "
             "BSIM4 stress form" + ("; SCA = mean well-proximity integral" if well else "")
-            + "; dVT in mV and dmu in % from the [lde] coefficients)",
+            + "; dVT in mV (added to the signed threshold" + (", so it lowers a PMOS |VT|"
+                                                                 if pmos else "")
+            + ") and dmu in % from the [lde] coefficients)",
             format_table(["device", "fingers", "SA", "SB", "inv_od", "range",
                           *(["SCA"] if well else []), "dVT", "dmu %"], rows),
             f"Stress term spread between devices: {_f(100 * spread)} %"]
@@ -356,8 +361,11 @@ def format_nets(wiring: Any, max_rows: int = 40, area: Any = None) -> str:
                      f"{n.capacitance_ff:.3g}"])
     eff = (f"; units fill {100 * area.unit_fraction:.1f}% of it"
            if area is not None else "")
+    ringed = any(s.role == "tap" for s in wiring.shapes)
+    where = ("the routed array's top edge, inside the guard ring (reach them over the "
+             "ring's metal1)" if ringed else "the block's top edge")
     out = [f"Layout: {w:.4g} x {h:.4g} um{eff}; {wiring.channel_tracks} tracks in the "
-           "fullest channel; every net routed to a pin at the block's top edge (R: its "
+           f"fullest channel; every net routed to a pin at {where} (R: its "
            "worst terminal to the pin; C: to ground and to the other nets; from the "
            "spec's [routing] figures, illustrative by default)",
            *(f"  Note: {n}." for n in getattr(wiring, "notes", [])),
