@@ -85,6 +85,13 @@ def main() -> None:
             blocks[name] = block("\n".join(ln for ln in pattern if not ln.startswith("#"))
                                  + "\n\n" + section(out, "Linear:", "Routing:") + "\n"
                                  + section(out, "Layout:", "Wrote").rstrip())
+        # the five-transistor amplifier: n and p rows, a well with its tie, a guard ring
+        out = run(["arrange", "samples/ota5.toml", "--out", str(t / "ota5"), "--quiet"])
+        pattern = (t / "ota5" / "pattern.txt").read_text().splitlines()
+        blocks["ota5"] = block("\n".join(ln for ln in pattern if not ln.startswith("#"))
+                               + "\n\n" + section(out, "Diffusion and well", "Assumptions")
+                               .rstrip() + "\n\n" + section(out, "Electrical budget",
+                                                             "Wrote").rstrip())
         seq = run(["sequence", "samples/unary/heron_msb.toml", "--out", str(t / "u")])
         grid = (t / "u" / "sequence.txt").read_text()
         blocks["sequence"] = block("$ placer sequence samples/unary/heron_msb.toml --out msb\n"

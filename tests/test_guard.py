@@ -54,7 +54,8 @@ def _polygons(gds: Path, layer: int) -> list[np.ndarray]:
     return [p.points for p in top.polygons if p.layer == layer]
 
 
-@pytest.mark.parametrize("case", ["pmos_well", "nmos_own_body", "bias_mirror"])
+@pytest.mark.parametrize("case", ["pmos_well", "nmos_own_body",
+                                  pytest.param("bias_mirror", marks=pytest.mark.slow)])
 def test_guard_ring_extracts_clean_with_every_tie_on_its_net(tmp_path, case):
     """The ring and (PMOS) the well join the body net and nothing else: VDD by a via onto
     its metal2 trunk (PMOS load), VSUB by its own metal1 rail (an NMOS block whose bulk
@@ -127,6 +128,7 @@ def test_well_proximity_uses_the_drawn_well(tmp_path):
         assert sca[name] > 0
 
 
+@pytest.mark.slow
 def test_old_layer_map_still_loads_and_a_ring_needs_its_roles(tmp_path):
     """A layer map written before the well and tap roles (its [connect] without them) is
     still accepted; a block with a guard ring drawn with it is refused in one line naming
@@ -190,3 +192,103 @@ def test_a_ring_on_a_net_no_terminal_names_says_so_and_differing_bulks_are_refus
     text = PLOAD.replace('drain = "OUTB", bulk = "VDD"', 'drain = "OUTB", bulk = "VDDB"')
     refused(run_placer(["arrange", str(spec_file(tmp_path, text, name="b.toml")), "--out",
                         "b"], cwd=tmp_path), "guard_ring", "bulk")
+
+
+@pytest.fixture(scope="module")
+def ota5(tmp_path_factory):
+    """samples/ota5.toml arranged once for the tests below: its output folder."""
+    tmp = tmp_path_factory.mktemp("ota5")
+    res = run_placer(["arrange", str(ROOT / "samples" / "ota5.toml"), "--out", "o",
+                      "--time-limit", "20"], cwd=tmp)
+    assert res.returncode == 0, res.stderr
+    return tmp / "o"
+
+
+def test_five_transistor_amplifier_sample(ota5):
+    """samples/ota5.toml (NMOS pair, PMOS mirror load in a well of its own, NMOS tail, one
+    block): it arranges, draws the load's well with its tie strip and the guard ring, and
+    the independent checker finds it clean with every tie on its net (the well labelled
+    VDD, the ring VSS); every finger's stress term is equal (SA/SB checker), and the load
+    mirror's layout-dependent term is 0 (the well symmetric about the array)."""
+    gds = ota5 / "pattern.gds"
+    found = extraction.check(gds, LAYERS)
+    assert not found.shorts and not found.opens and not found.stray_labels, found
+    wells = _polygons(gds, 15)
+    assert len(wells) == 1                                  # the load's row
+    lib = gdstk.read_gds(str(gds)).top_level()[0].copy("flat").flatten()
+    texts = {(lb.text, lb.layer) for lb in lib.labels}
+    assert ("VDD", 15) in texts and ("VSS", 4) in texts     # well on VDD, ring on VSS
+    rep = lod_by_device(gds, LAYERS)
+    (w,) = wells
+    for name, dev in rep.devices.items():                   # p fingers in, n fingers out
+        inside = [w[:, 1].min() < f.y < w[:, 1].max() for f in dev.fingers]
+        assert all(inside) if name in ("MLA", "MLB") else not any(inside), name
+    terms = [d.mean_term for d in rep.devices.values()]
+    assert max(terms) - min(terms) <= 1e-9 * max(terms)
+    report = json.loads((ota5 / "report.json").read_text())
+    assert report["budget"]["lines"][0]["lde_pct"] == pytest.approx(0.0, abs=1e-9)
+
+
+@pytest.mark.slow
+def test_five_transistor_amplifier_netlist_simulates_at_its_bias(tmp_path, ota5):
+    """The sample's netlist in ngspice (an independent simulator; Debian's, as CI
+    installs): VDD 1.8 V, inputs at 0.9 V, the tail's gate at VTO + V_ov = 0.7 V. Each
+    finger is the square-law unit sized for 10 uA at V_ov = 0.2 V, so the 8-finger tail
+    carries 80 uA (lambda 0.1/V at V_DS ~ 0.2 V: within a few %), split evenly, and the
+    diode-connected 4-finger PMOS load sits at V_SG = 0.5 + 0.2 V: OUTN = 1.1 V (hand
+    calculation from the square law)."""
+    import os
+    import re
+    import shutil
+    import subprocess
+
+    exe = shutil.which("ngspice")
+    if exe is None:
+        if os.environ.get("PLACER_REQUIRE_NGSPICE"):
+            pytest.fail("ngspice is required here (apt-get install ngspice)")
+        pytest.skip("no ngspice here (apt-get install ngspice); CI requires it")
+    text = (ota5 / "pattern.sp").read_text()
+    (tmp_path / "o").mkdir()
+    (tmp_path / "o" / "pattern.sp").write_text(text)
+    ports = re.search(r"^\.subckt OTA5_ARRAY (.*)$", text, re.M).group(1).split()
+    bench = "\n".join([
+        "* ota5 at its bias", ".include o/pattern.sp", f"XA {' '.join(ports)} OTA5_ARRAY",
+        "VDD VDD 0 DC 1.8", "VSS VSS 0 DC 0", "VP INP 0 DC 0.9", "VN INN 0 DC 0.9",
+        "VB VBN 0 DC 0.7", ".control", "op", "print v(OUTN)", "print i(VDD)", ".endc",
+        ".end", ""])
+    (tmp_path / "bench.sp").write_text(bench)
+    run = subprocess.run([exe, "-b", "bench.sp"], cwd=tmp_path, capture_output=True,
+                         text=True, timeout=120)
+    outn = float(re.search(r"v\(outn\)\s*=\s*([-+0-9.eE]+)", run.stdout).group(1))
+    supply = -float(re.search(r"i\(vdd\)\s*=\s*([-+0-9.eE]+)", run.stdout).group(1))
+    assert outn == pytest.approx(1.1, abs=0.03), run.stdout
+    assert supply == pytest.approx(80e-6, rel=0.05), run.stdout
+
+
+@pytest.mark.parametrize("edit, words", [
+    (lambda t: t.replace("rows = [0]\npolarity", "polarity"), ("MLA", "group with rows")),
+    (lambda t: t.replace("devices = [\"MINP\", \"MINN\"]\nrows = [1]",
+                         "devices = [\"MINP\", \"MINN\"]\nrows = [0, 1]"),
+     ("row 0", "other polarity")),
+    (lambda t: t.replace("guard_ring = true", "guard_ring = false"), ("guard_ring = true",)),
+    (lambda t: t.replace('polarity = "p"', 'polarity = "q"'), ("polarity", '"n" or "p"')),
+    pytest.param(None, ("well", "row pitch of at least"), marks=pytest.mark.slow),
+])
+def test_a_mixed_block_that_cannot_be_drawn_is_refused_in_one_line(tmp_path, edit, words):
+    """A block of n and p devices: each in a group with rows of its polarity, no row
+    shared, a guard ring given, a row pitch whose channel leaves the well its enclosure
+    and its spacing to the next row's n diffusion (a template asking 3 um of well_space);
+    otherwise one line, nothing written."""
+    text = (ROOT / "samples" / "ota5.toml").read_text()
+    extra = []
+    if edit is None:
+        tmpl = (ROOT / "templates" / "mos_finger.toml").read_text()
+        (tmp_path / "wide.toml").write_text(tmpl.replace("well_space = 1.0", "well_space = 3.0"))
+        extra = ["--template", "wide.toml"]
+    else:
+        text = edit(text)
+    spec = spec_file(tmp_path, text)
+    res = run_placer(["arrange", str(spec), "--out", "o", "--time-limit", "5", *extra],
+                     cwd=tmp_path)
+    refused(res, *words)
+    assert not (tmp_path / "o").exists()

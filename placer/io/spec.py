@@ -106,6 +106,8 @@ class GroupSpec:
     name: str
     devices: tuple[str, ...]
     rows: tuple[int, ...] | None = None
+    #: MOS: the group's polarity ("n" or "p"; None: the spec's [unit] polarity)
+    polarity: str | None = None
 
 
 @dataclass(frozen=True)
@@ -354,6 +356,28 @@ class Spec:
                   or [list(self.devices)])
         return default_matched_sets(self.kind, groups, dict(zip(self.devices, self.nets,
                                                                 strict=True)), self.dummy_net)
+
+    def polarity_of(self, device: str) -> str:
+        """A MOS device's polarity: its group's, else the spec's [unit] polarity."""
+        for g in self.placement.groups:
+            if device in g.devices and g.polarity is not None:
+                return g.polarity
+        return self.unit.polarity
+
+    @property
+    def mixed(self) -> bool:
+        """Whether the block holds devices of both polarities."""
+        return len({self.polarity_of(d) for d in self.devices}) > 1
+
+    def core_row_polarity(self, rows: int) -> list[str]:
+        """The polarity of each core row: its groups' (a mixed block gives each group of a
+        polarity its rows), else the spec's [unit] polarity."""
+        out = [self.unit.polarity] * rows
+        for g in self.placement.groups:
+            for r in g.rows or ():
+                if r < rows:
+                    out[r] = self.polarity_of(g.devices[0])
+        return out
 
     def group_of(self) -> dict[str, str]:
         """Group name of every device ('' when the spec names no groups)."""
@@ -769,10 +793,6 @@ def read_spec_text(text: str, source: str = "<spec>", default_name: str = "place
 
     nets, joins, dummy_net = _terminals(source, data.get("terminals", {}), kind, names,
                                         counts, arr.data.get("dummy_net"))
-    bulks = {n.get("bulk") for n in nets}
-    if guard and len(bulks) > 1:
-        raise arr.fail("guard_ring", "ties one body net, but the devices' bulk terminals "
-                       "differ; give every device the same bulk in [terminals]")
 
     raw_ro = data.get("routing", {})
     if isinstance(raw_ro, dict):
@@ -802,8 +822,47 @@ def read_spec_text(text: str, source: str = "<spec>", default_name: str = "place
                 monte_carlo=monte_carlo, search=search, electrical=electrical, source=source,
                 nets=nets, joins=joins, dummy_net=dummy_net, routing=routing,
                 placement=placement, lde=lde)
+    _check_polarity(spec)
     _check_work(spec)
     return spec
+
+
+def _check_polarity(spec: Spec) -> None:
+    """A block of two polarities: every device in a group of its own polarity's rows, no
+    row shared by both, a guard ring to tie the substrate and the wells."""
+    src = spec.source
+    given = [g for g in spec.placement.groups if g.polarity is not None]
+    if given and not KIND_RECORDS[spec.kind].fingers:
+        raise SpecError(f"{src}: [groups.{given[0].name}] polarity is for MOS fingers "
+                        "(kind = \"mos\")")
+    if spec.array.guard_ring:
+        for pol in ("n", "p"):
+            bulks = {n.get("bulk") for d, n in zip(spec.devices, spec.nets, strict=True)
+                     if spec.polarity_of(d) == pol}
+            if len(bulks) > 1:
+                raise SpecError(f"{src}: [array] guard_ring ties one body net per polarity, "
+                                f"but the {pol} devices' bulk terminals differ; give them "
+                                "the same bulk in [terminals]")
+    if not spec.mixed:
+        return
+    group = {d: g for g in spec.placement.groups for d in g.devices}
+    for d in spec.devices:
+        if d not in group or group[d].rows is None:
+            raise SpecError(f"{src}: the block holds n and p devices, so each must sit in a "
+                            f"group with rows (its polarity's band of rows); {shown(d)} has "
+                            "none: give [groups.NAME] devices, rows and polarity")
+    owner: dict[int, str] = {}
+    for g in spec.placement.groups:
+        pol = spec.polarity_of(g.devices[0])
+        for r in g.rows or ():
+            if owner.setdefault(r, pol) != pol:
+                raise SpecError(f"{src}: [groups.{g.name}] row {r} also holds devices of the "
+                                "other polarity; n and p devices need rows of their own "
+                                "(each p band sits in its own well)")
+    if not spec.array.guard_ring:
+        raise SpecError(f"{src}: the block holds n and p devices: give [array] guard_ring = "
+                        "true (the ring ties the substrate, each p band's well gets a tie of "
+                        "its own)")
 
 
 def _check_work(spec: Spec) -> None:
@@ -987,10 +1046,14 @@ def _placement(source: str, data: dict[str, Any], names: list[str], counts: list
         if not isinstance(g, dict):
             raise SpecError(f"{where} must be a table with devices = [...]")
         for key in g:
-            if key not in ("devices", "rows"):
+            if key not in ("devices", "rows", "polarity"):
                 hint = (" (one kind per spec: every group shares the spec's unit cell)"
                         if key == "kind" else "")
-                raise SpecError(f"{where} unknown key {shown(key)} (allowed: devices, rows){hint}")
+                raise SpecError(f"{where} unknown key {shown(key)} (allowed: devices, rows, "
+                                f"polarity){hint}")
+        gpol = g.get("polarity")
+        if gpol is not None and gpol not in ("n", "p"):
+            raise SpecError(f"{where} polarity must be \"n\" or \"p\", got {shown(gpol)}")
         devs = g.get("devices")
         if not isinstance(devs, list) or not devs or not all(isinstance(d, str) for d in devs):
             raise SpecError(f"{where} devices must be a list of device names")
@@ -1017,7 +1080,8 @@ def _placement(source: str, data: dict[str, Any], names: list[str], counts: list
             if columns is not None and need > cap:
                 raise SpecError(f"{where} needs {need} slots, its rows hold {cap}")
             grows = sorted(set(grows))
-        groups.append(GroupSpec(gname, tuple(devs), None if grows is None else tuple(grows)))
+        groups.append(GroupSpec(gname, tuple(devs), None if grows is None else tuple(grows),
+                                gpol))
     banded = [g.name for g in groups if g.rows is not None]
     if banded and len(names) > MAX_BANDED_DEVICES - 1:
         raise LimitError(f"{source}: [groups] row bands (rows = [...] of group "

@@ -16,7 +16,7 @@ from placer.io.pattern import EMPTY, Pattern
 from placer.io.spec import ElectricalSpec, Spec
 from placer.kinds import KINDS
 from placer.layout.cells import Rules, UnitCell, load_rules, unit_cell
-from placer.layout.guard import Guard, body_net, guard_ring, with_guard
+from placer.layout.guard import Guard, body_net, guard_ring, mixed_guard, with_guard
 from placer.layout.layers import LayerMap, load_layers
 from placer.layout.parasitics import NetFigures, Parasitics, extract
 from placer.layout.pitch import check_pitch, estimated, fitted, for_cell
@@ -122,18 +122,22 @@ def prepare(pattern: Pattern, spec: Spec, tools: Tools) -> Block:
     wiring.nets = [_with_figures(n, parasitics.nets.get(n.name)) for n in wiring.nets]
     guard = None
     if spec.array.guard_ring:
-        net, note = body_net(spec)
-        guard = guard_ring(wiring, tools.rules, net, spec.unit.polarity == "p")
-        if note:
-            wiring.notes.append(note)
+        if spec.mixed:
+            guard = mixed_guard(pattern, spec, cell, wiring, tools.rules)
+        else:
+            net, note = body_net(spec)
+            guard = guard_ring(wiring, tools.rules, net, spec.unit.polarity == "p")
+            if note:
+                wiring.notes.append(note)
         for role in {s.role for s in guard.shapes}:
             tools.layers[role]              # a map without the ring's roles: one line now
         with_guard(wiring, guard)
     return Block(pattern, spec, cell, wiring, tools, parasitics, guard)
 
 
-def finger_geometry(cell: UnitCell, spec: Spec, well: tuple[float, float, float, float]
-                    | None = None) -> FingerGeometry | None:
+def finger_geometry(cell: UnitCell, spec: Spec,
+                    wells: tuple[tuple[float, float, float, float], ...] = ()
+                    ) -> FingerGeometry | None:
     """What the layout-dependent terms need of ``cell``'s MOS finger at ``spec``'s pitch,
     with the drawn ``well`` (None: another kind, or a user's cell, whose diffusion placer
     does not read)."""
@@ -141,14 +145,14 @@ def finger_geometry(cell: UnitCell, spec: Spec, well: tuple[float, float, float,
         return None
     px, py = spec.array.pitch_um
     return FingerGeometry(px, py, cell.diffusion[2], spec.unit.length_um, spec.unit.width_um,
-                          well)
+                          wells)
 
 
 def graded_with_lde(grade: Grade, block: Block) -> Grade:
     """``grade`` with the layout-dependent figures of the drawn ``block`` (its own well's
     edges, when it draws one)."""
     geom = finger_geometry(block.cell, block.spec,
-                           block.guard.well if block.guard is not None else None)
+                           block.guard.wells if block.guard is not None else ())
     if geom is None:
         return grade
     return replace(grade, lde=lde_of(block.pattern, block.spec, geom))

@@ -63,7 +63,7 @@ RULES = {
 }
 #: Rules a template may give and must give only for what uses them: a MOS block's guard
 #: ring (:mod:`placer.layout.guard`).
-OPTIONAL_RULES = {"finger": ("guard_space", "tap_enclosure", "well_enclosure")}
+OPTIONAL_RULES = {"finger": ("guard_space", "tap_enclosure", "well_enclosure", "well_space")}
 
 
 

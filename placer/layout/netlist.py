@@ -79,13 +79,17 @@ def netlist(spec: Spec, par: Parasitics) -> str:
         lam = e.lambda_per_v if e is not None else 0.0
         vov = 2.0 / gm_id
         kp = 2.0 * amps * length / (w * vov * vov)
-        # a PMOS block's unit: the same square law, threshold and currents negative
-        ptype = spec.unit.polarity == "p"
-        lines += [f".model placer_unit {'pmos' if ptype else 'nmos'} (level=1 "
-                  f"vto={-VTO_V if ptype else VTO_V:g} kp={kp:.6g} lambda={lam:.6g})",
-                  f".subckt {sub} d g s",
-                  f"M1 d g s s placer_unit W={_value(w, 'u')} L={_value(length, 'u')}",
-                  f".ends {sub}"]
+        # a PMOS unit: the same square law, threshold and currents negative; a block of
+        # both polarities has a unit of each
+        for pol in sorted({spec.polarity_of(d) for d in spec.devices}):
+            ptype = pol == "p"
+            name, model = (f"{sub}_p", "placer_unit_p") if ptype and spec.mixed else (
+                sub, "placer_unit")
+            lines += [f".model {model} {'pmos' if ptype else 'nmos'} (level=1 "
+                      f"vto={-VTO_V if ptype else VTO_V:g} kp={kp:.6g} lambda={lam:.6g})",
+                      f".subckt {name} d g s",
+                      f"M1 d g s s {model} W={_value(w, 'u')} L={_value(length, 'u')}",
+                      f".ends {name}"]
     elif kind.quantity == "capacitance":
         cu = e.unit_cap_ff if e is not None and e.unit_cap_ff is not None else 1.0
         lines += [f".subckt {sub} top bottom", f"C1 top bottom {_value(cu, 'f')}",
@@ -106,7 +110,8 @@ def netlist(spec: Spec, par: Parasitics) -> str:
     slots = sorted({(t.slot, t.device) for t in par.taps if t.device in spec.devices})
     for (r, c), dev in slots:
         nodes = [term_node.get(((r, c), t), "0") for t in order]
-        lines.append(f"X{dev}_r{r}c{c} " + " ".join(nodes) + f" {sub}")
+        own = f"{sub}_p" if spec.mixed and spec.polarity_of(dev) == "p" else sub
+        lines.append(f"X{dev}_r{r}c{c} " + " ".join(nodes) + f" {own}")
     # wiring
     k = 0
     for net, nw in par.networks.items():

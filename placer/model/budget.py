@@ -349,9 +349,8 @@ def _ratio_budget(pattern: Pattern, spec: Spec, grade: Grade, e: ElectricalSpec,
         lde = None
         if mos and grade.lde is not None:
             # each device's current is the sum over its fingers: the ratio is exact
-            pol = grade.lde.polarity
-            ea = relative_current(grade.lde.device(name), e.gm_id_per_v, pol)
-            eb = relative_current(grade.lde.device(ref), e.gm_id_per_v, pol)
+            ea = relative_current(grade.lde.device(name), e.gm_id_per_v)
+            eb = relative_current(grade.lde.device(ref), e.gm_id_per_v)
             lde = 100.0 * ((1.0 + ea) / (1.0 + eb) - 1.0)
         fixed = clm + (wire or 0.0) + (lde or 0.0)        # signed systematic parts
         low = fixed - grad - quad - k * sigma

@@ -252,7 +252,8 @@ def lde_of(pattern: Pattern, spec: Spec, geometry: FingerGeometry) -> LdeFigures
 
     try:
         return lde_figures(pattern.ids, joins, pattern.devices, geometry, spec.lde,
-                           spec.unit.diffusion, spec.unit.polarity)
+                           spec.unit.diffusion,
+                           tuple(spec.polarity_of(d) for d in pattern.devices))
     except SpecError as err:
         raise SpecError(f"{spec.source}: {err}") from None
 

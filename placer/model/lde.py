@@ -48,9 +48,10 @@ class FingerGeometry:
     diffusion_half_um: float
     gate_um: float
     width_um: float
-    #: the drawn well (x0, y0, x1, y1) in the slot frame (slot (r, c) at c px, -r py);
-    #: None: the spec's well_margin_um, if any
-    well_box: tuple[float, float, float, float] | None = None
+    #: the drawn wells (x0, y0, x1, y1) in the slot frame (slot (r, c) at c px, -r py): a
+    #: finger takes the one around it (none: no well edge near it); with none drawn, the
+    #: spec's well_margin_um, if any, around the whole array
+    wells: tuple[tuple[float, float, float, float], ...] = ()
 
 
 @dataclass(frozen=True)
@@ -66,6 +67,7 @@ class LdeDevice:
     sca: float                          # mean SCA (0 without a well edge)
     dvt_mv: float                       # mean threshold shift, stress + well
     dmu_rel: float                      # mean relative mobility change, stress + well
+    polarity: str = "n"                 # the shift is to the signed threshold (BSIM4)
 
 
 @dataclass(frozen=True)
@@ -76,8 +78,8 @@ class LdeFigures:
     style: str
     devices: tuple[LdeDevice, ...]
     coefficients: dict[str, Any]
-    #: "n" or "p": BSIM4 adds the shifts to the signed threshold, so a positive dVT
-    #: raises an NMOS finger's |VT| and lowers a PMOS finger's
+    #: "n", "p" or "mixed": BSIM4 adds the shifts to the signed threshold, so a positive
+    #: dVT raises an NMOS finger's |VT| and lowers a PMOS finger's
     polarity: str = "n"
 
     def device(self, name: str) -> LdeDevice:
@@ -168,12 +170,13 @@ def _well_terms(xy: NDArray[np.float64], geom: FingerGeometry, box: tuple[float,
 
 
 def lde_figures(ids: NDArray[np.int_], joins: NDArray[np.bool_], devices: tuple[str, ...],
-                geom: FingerGeometry, lde: Any, style: str, polarity: str = "n"
-                ) -> LdeFigures:
+                geom: FingerGeometry, lde: Any, style: str,
+                polarity: str | tuple[str, ...] = "n") -> LdeFigures:
     """Every device's stress and well-proximity figures for fingers at ``ids`` (rows of
     slots, row 0 on top) whose diffusion joins as ``joins`` says; ``lde`` is the spec's
-    :class:`placer.io.spec.LdeSpec`. Raises SpecError when a coefficient makes a mobility
-    factor zero or negative at the drawn geometry."""
+    :class:`placer.io.spec.LdeSpec`; ``polarity`` the block's, or each device's. Raises
+    SpecError when a coefficient makes a mobility factor zero or negative at the drawn
+    geometry."""
     from placer.errors import SpecError
 
     sa, sb = sa_sb(ids, joins, geom)
@@ -194,16 +197,21 @@ def lde_figures(ids: NDArray[np.int_], joins: NDArray[np.bool_], devices: tuple[
     dvt = lde.kvth0_mv_um * (inv - inv_ref)
     rows, cols = np.nonzero(ids >= 0)
     sca = np.zeros(ids.shape)
-    if lde.well_margin_um is not None or geom.well_box is not None:
+    if lde.well_margin_um is not None or geom.wells:
         drawn = np.argwhere(ids != -2)                   # fingers and dummies: not EMPTY
         px, py = geom.pitch_x_um, geom.pitch_y_um
-        box = geom.well_box
-        if box is None:
+        boxes = geom.wells
+        if not boxes:
             m, xd, hw = lde.well_margin_um, geom.diffusion_half_um, geom.width_um / 2
-            box = (drawn[:, 1].min() * px - xd - m, -drawn[:, 0].max() * py - hw - m,
-                   drawn[:, 1].max() * px + xd + m, -drawn[:, 0].min() * py + hw + m)
+            boxes = ((drawn[:, 1].min() * px - xd - m, -drawn[:, 0].max() * py - hw - m,
+                      drawn[:, 1].max() * px + xd + m, -drawn[:, 0].min() * py + hw + m),)
         xy = np.column_stack([cols * px, -rows * py]).astype(float)
-        terms = _well_terms(xy, geom, box, lde.scref_um)
+        terms = np.zeros((len(xy), 3))
+        for box in boxes:               # each finger in the well around it, if any
+            inside = ((xy[:, 0] > box[0]) & (xy[:, 0] < box[2]) & (xy[:, 1] > box[1])
+                      & (xy[:, 1] < box[3]))
+            if inside.any():
+                terms[inside] = _well_terms(xy[inside], geom, box, lde.scref_um)
         eff = terms[:, 0] + lde.web * terms[:, 1] + lde.wec * terms[:, 2]
         if np.any(1.0 + lde.ku0we * eff <= 0):
             raise SpecError(f"[lde] ku0we = {lde.ku0we:g} makes the mobility factor "
@@ -213,6 +221,7 @@ def lde_figures(ids: NDArray[np.int_], joins: NDArray[np.bool_], devices: tuple[
         sca[rows, cols] = terms[:, 0]
         dvt[rows, cols] += lde.kvth0we_mv * eff
         dmu[rows, cols] = (1.0 + dmu[rows, cols]) * (1.0 + lde.ku0we * eff) - 1.0
+    pols = (polarity,) * len(devices) if isinstance(polarity, str) else polarity
     out = []
     for d, name in enumerate(devices):
         mine = ids == d
@@ -225,19 +234,20 @@ def lde_figures(ids: NDArray[np.int_], joins: NDArray[np.bool_], devices: tuple[
             inv_od_per_um=float(inv[mine].mean()),
             inv_od_range=(float(inv[mine].min()), float(inv[mine].max())),
             sca=float(sca[mine].mean()), dvt_mv=float(dvt[mine].mean()),
-            dmu_rel=float(dmu[mine].mean())))
+            dmu_rel=float(dmu[mine].mean()), polarity=pols[d]))
     coeffs = {k: getattr(lde, k) for k in ("ku0_um", "kvth0_mv_um", "saref_um", "sbref_um",
                                            "well_margin_um", "scref_um", "web", "wec",
                                            "kvth0we_mv", "ku0we")}
-    if geom.well_box is not None:
-        coeffs["well_box_um"] = list(geom.well_box)      # the drawn well, not a margin
-    return LdeFigures(style, tuple(out), coeffs, polarity)
+    if geom.wells:
+        coeffs["well_box_um"] = [list(b) for b in geom.wells]    # drawn, not a margin
+    block = pols[0] if len(set(pols)) == 1 else "mixed"
+    return LdeFigures(style, tuple(out), coeffs, block)
 
 
-def relative_current(dev: LdeDevice, gm_id_per_v: float, polarity: str = "n") -> float:
+def relative_current(dev: LdeDevice, gm_id_per_v: float) -> float:
     """A device's relative current change from its layout-dependent figures: the mean of
     its fingers' ``mu'/mu - 1 -+ (gm/ID) dVT`` (their sum is the device's current); the
     shift is to the signed threshold (BSIM4), so it lowers an NMOS finger's current and
     raises a PMOS finger's."""
-    sign = 1.0 if polarity == "n" else -1.0
+    sign = 1.0 if dev.polarity == "n" else -1.0
     return dev.dmu_rel - sign * gm_id_per_v * dev.dvt_mv * 1e-3

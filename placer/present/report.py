@@ -203,7 +203,7 @@ def format_lde(lde: Any) -> list[str]:
            "alone": "every finger its own diffusion island, since not every finger could "
                     "share with a neighbour",
            "shared": "diffusion shared wherever facing terminals are one net"}[lde.style]
-    pmos = lde.polarity == "p"
+    pmos = lde.polarity != "n"
     return ["", f"Diffusion and well (MOS fingers as drawn, {how}; SA/SB = gate edge to each "
             "end of its diffusion in um; inv_od = mean of 1/(SA+L/2) + 1/(SB+L/2) per um, "
             "BSIM4 stress form" + ("; SCA = mean well-proximity integral" if well else "")
