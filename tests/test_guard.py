@@ -292,3 +292,21 @@ def test_a_mixed_block_that_cannot_be_drawn_is_refused_in_one_line(tmp_path, edi
                      cwd=tmp_path)
     refused(res, *words)
     assert not (tmp_path / "o").exists()
+
+
+def test_a_ring_on_its_own_net(tmp_path):
+    """[array] guard_net puts the ring on a net of its own (its own pin, the ring's
+    label): the checker finds it a node apart from every routed net, with no open; the
+    key without a ring is refused in one line."""
+    text = PLOAD.replace('polarity = "p"', 'polarity = "n"').replace(
+        "guard_ring = true", 'guard_ring = true\nguard_net = "GRD"')
+    out = _arrange(tmp_path, text)
+    gds = out / "pattern.gds"
+    found = extraction.check(gds, LAYERS)
+    assert not found.shorts and not found.opens and not found.stray_labels
+    top = gdstk.read_gds(str(gds)).top_level()[0]
+    assert any(lb.text == "GRD" and lb.layer == 4 for lb in top.labels)
+    spec = spec_file(tmp_path, text.replace("guard_ring = true", "guard_ring = false"),
+                     name="b.toml")
+    refused(run_placer(["arrange", str(spec), "--out", "b"], cwd=tmp_path), "guard_net",
+            "guard_ring = true")

@@ -89,6 +89,8 @@ class ArraySpec:
     #: MOS: a ring of tap diffusion around the routed block on the body net (with the
     #: well of a PMOS block around it)
     guard_ring: bool = False
+    #: the ring's own net (None: the body net: the devices' bulk, else their source)
+    guard_net: str | None = None
 
 
 #: Symmetry a result must obey: none; mirror about a vertical axis (x: left-right), about
@@ -435,7 +437,7 @@ _SCHEMA: dict[str, tuple[str, ...]] = {
          "monte_carlo", "search", "electrical", "terminals", "routing", "pins", "groups",
          "match", "lde"),
     "array": ("rows", "columns", "dummies", "pitch_um", "aspect", "dummy_net", "holes", "mask",
-              "keep_out", "symmetry", "ring_depth_um", "guard_ring"),
+              "keep_out", "symmetry", "ring_depth_um", "guard_ring", "guard_net"),
     "match": ("pairs", "nets"),
     "unit": ("width_um", "length_um", "diffusion", "polarity"),
     "lde": ("ku0_um", "kvth0_mv_um", "saref_um", "sbref_um", "well_margin_um", "scref_um",
@@ -727,8 +729,13 @@ def read_spec_text(text: str, source: str = "<spec>", default_name: str = "place
     guard = arr.flag("guard_ring", False)
     if guard and not KIND_RECORDS[kind].fingers:
         raise arr.fail("guard_ring", "ties MOS fingers' body (kind = \"mos\")")
+    guard_net = None
+    if "guard_net" in arr.data:
+        if not guard:
+            raise arr.fail("guard_net", "names the guard ring's net: give guard_ring = true")
+        guard_net = _net_name(f"{source}: [array]", "guard_net", arr.data["guard_net"])
     array = ArraySpec(rows, columns, dummies, pitch, aspect, pitch_given, holes, ring_depth,
-                      guard)
+                      guard, guard_net)
 
     un = _Reader(source, "unit", data.get("unit", {}))
     dw, dl = KIND_RECORDS[kind].unit_um

@@ -125,7 +125,8 @@ def prepare(pattern: Pattern, spec: Spec, tools: Tools) -> Block:
         if spec.mixed:
             guard = mixed_guard(pattern, spec, cell, wiring, tools.rules)
         else:
-            net, note = body_net(spec)
+            net, note = ((spec.array.guard_net, "") if spec.array.guard_net is not None
+                         else body_net(spec))
             guard = guard_ring(wiring, tools.rules, net, spec.unit.polarity == "p")
             if note:
                 wiring.notes.append(note)

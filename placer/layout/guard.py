@@ -273,9 +273,9 @@ def mixed_guard(pattern: Any, spec: Any, cell: Any, wiring: Wiring, rules: Rules
                                                                        for b in wells))),
              snap(max(bx1 + gs, well_x1 + space)),
              snap(max(by1 + gs, y_h + m1 / 2 + gs, *(b[3] + space for b in wells))))
-    ring = guard_ring(wiring, rules, n_net, False, inner)
-    notes = [n for n in (p_note, n_note) if n]
+    ring = guard_ring(wiring, rules, spec.array.guard_net or n_net, False, inner)
+    notes = [n for n in (p_note, "" if spec.array.guard_net else n_note) if n]
     for n in notes:
         wiring.notes.append(n)
-    return Guard(n_net, ring.shapes + tuple(shapes), ring.labels + tuple(labels), ring.outer,
-                 tuple(wells))
+    return Guard(ring.net, ring.shapes + tuple(shapes), ring.labels + tuple(labels),
+                 ring.outer, tuple(wells))
