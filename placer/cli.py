@@ -270,9 +270,10 @@ def _load_graded(path: Path, spec_path: Path | None, *, cell: str | None = None,
         return rec.pattern, spec, rec
     spec = hot_spot_in_pattern_frame(spec, rec)
     if rec.fmt != "pattern" and tuple(rec.pitch_um) != tuple(spec.array.pitch_um):
-        click.echo(f"Note: {path} has pitch {rec.pitch_um[0]:g} x {rec.pitch_um[1]:g} um; "
-                   f"grading with it, not the spec's {spec.array.pitch_um[0]:g} x "
-                   f"{spec.array.pitch_um[1]:g} um", err=True)
+        if spec.array.pitch_given:      # a spec without pitch_um has only an estimate
+            click.echo(f"Note: {path} has pitch {rec.pitch_um[0]:g} x {rec.pitch_um[1]:g} "
+                       f"um; grading with it, not the spec's {spec.array.pitch_um[0]:g} x "
+                       f"{spec.array.pitch_um[1]:g} um", err=True)
         spec = pitch.given(spec, rec.pitch_um)
     pattern = check_against_spec(rec.pattern, spec, str(path))
     if not spec.array.pitch_given:
@@ -308,6 +309,8 @@ def grade(layout: Path, spec_path: Path | None, as_json: bool, budget_plot: Path
     in the spec, also the electrical budget: mirror current error, capacitor-array
     INL/DNL or resistor ratio error.
     """
+    from dataclasses import replace
+
     from placer.jobs.repair import sensitivity
     from placer.model.grade import grade_pattern
     from placer.present.report import (
@@ -333,6 +336,12 @@ def grade(layout: Path, spec_path: Path | None, as_json: bool, budget_plot: Path
     # a pattern file is measured as placer draws it; a hand layout's own diffusion is not
     # read, so it has no layout-dependent figures
     result = grade_pattern(pat, spec, drawn_geometry(spec) if rec.fmt == "pattern" else None)
+    if result.lde is not None and spec.array.guard_ring and (
+            spec.mixed or spec.unit.polarity == "p"):
+        result = replace(result, lde=replace(result.lde, note=(
+            "the well a guard ring draws is not measured here (grade draws no ring): "
+            "the well term comes from [lde] well_margin_um only; arrange and draw "
+            "measure the drawn well")))
     worst_pair, sens = sensitivity(pat, spec.array.pitch_um, result,
                                    spec.gradient.linear_ppm_per_um, spec.gradient)
     bud = _budget(pat, spec, result, required=budget_plot is not None)

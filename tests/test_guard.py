@@ -310,3 +310,22 @@ def test_a_ring_on_its_own_net(tmp_path):
                      name="b.toml")
     refused(run_placer(["arrange", str(spec), "--out", "b"], cwd=tmp_path), "guard_net",
             "guard_ring = true")
+
+
+@pytest.mark.slow
+def test_a_mixed_block_keeps_to_the_nets_it_names(tmp_path, ota5):
+    """A block of n and p devices whose bulks are AGND and AVDD: its dummies default to
+    the n devices' bulk (no VSS appears that the spec never named), the layout extracts
+    clean; and grade of a pattern text says the drawn well is not measured there."""
+    text = ((ROOT / "samples" / "ota5.toml").read_text()
+            .replace('"VSS"', '"AGND"').replace('"VDD"', '"AVDD"'))
+    out = _arrange(tmp_path, text)
+    report = json.loads((out / "report.json").read_text())
+    nets = {n["name"] for n in report["layout"]["nets"]}
+    assert "VSS" not in nets and "AGND" in nets and "AVDD" in nets
+    found = extraction.check(out / "pattern.gds", LAYERS)
+    assert not found.shorts and not found.opens and not found.stray_labels
+    res = run_placer(["grade", str(ota5 / "pattern.txt"), "--spec",
+                      str(ROOT / "samples" / "ota5.toml")], cwd=tmp_path)
+    assert res.returncode == 0, res.stderr
+    assert "the well a guard ring draws is not measured here" in res.stdout

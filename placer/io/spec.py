@@ -5,7 +5,7 @@ from __future__ import annotations
 import difflib
 import re
 import tomllib
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -829,6 +829,13 @@ def read_spec_text(text: str, source: str = "<spec>", default_name: str = "place
                 monte_carlo=monte_carlo, search=search, electrical=electrical, source=source,
                 nets=nets, joins=joins, dummy_net=dummy_net, routing=routing,
                 placement=placement, lde=lde)
+    if spec.mixed and "dummy_net" not in arr.data:
+        # n and p devices: the dummies (every terminal on one net, no current whichever
+        # their polarity) go on the n devices' shared bulk, the substrate's net
+        n_bulks = {n.get("bulk") for d, n in zip(names, nets, strict=True)
+                   if spec.polarity_of(d) == "n"}
+        if len(n_bulks) == 1 and None not in n_bulks:
+            spec = replace(spec, dummy_net=str(n_bulks.pop()))
     _check_polarity(spec)
     _check_work(spec)
     return spec

@@ -156,7 +156,11 @@ def graded_with_lde(grade: Grade, block: Block) -> Grade:
                            block.guard.wells if block.guard is not None else ())
     if geom is None:
         return grade
-    return replace(grade, lde=lde_of(block.pattern, block.spec, geom))
+    lde = lde_of(block.pattern, block.spec, geom)
+    if lde is not None and geom.wells and block.spec.lde.well_margin_um is not None:
+        lde = replace(lde, note="[lde] well_margin_um not used: the block's drawn well "
+                                "gives the well edges")
+    return replace(grade, lde=lde)
 
 
 def wiring_of(block: Block, electrical: ElectricalSpec | None = None) -> WiringEffect:

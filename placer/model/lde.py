@@ -81,6 +81,8 @@ class LdeFigures:
     #: "n", "p" or "mixed": BSIM4 adds the shifts to the signed threshold, so a positive
     #: dVT raises an NMOS finger's |VT| and lowers a PMOS finger's
     polarity: str = "n"
+    #: what the figures leave out, for the report ("" when nothing)
+    note: str = ""
 
     def device(self, name: str) -> LdeDevice:
         """The figures of ``name``."""

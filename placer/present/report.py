@@ -212,7 +212,8 @@ def format_lde(lde: Any) -> list[str]:
             + ") and dmu in % from the [lde] coefficients)",
             format_table(["device", "fingers", "SA", "SB", "inv_od", "range",
                           *(["SCA"] if well else []), "dVT", "dmu %"], rows),
-            f"Stress term spread between devices: {_f(100 * spread)} %"]
+            f"Stress term spread between devices: {_f(100 * spread)} %",
+            *([f"  Note: {lde.note}."] if lde.note else [])]
 
 
 def format_arrangement(result: Arrangement, spec: Spec) -> str:
@@ -270,7 +271,8 @@ def format_arrangement(result: Arrangement, spec: Spec) -> str:
     paired = spec.unit.diffusion == "pairs"
     out.append("Worst pair on the same core (linear um, quadratic ppm, correlated sigma ppm, "
                "edge-share gap, row tracks"
-               + ((", fingers of the core without a diffusion partner)" if paired
+               + ((", fingers the core alone leaves without a diffusion partner: end "
+                   "dummies may pair them)" if paired
                    else ", diffusion breaks)") if mos else ")"))
     out.append(format_table(["arrangement", "linear", "quad", "sigma", "edge", "tracks",
                              *([("unpaired" if paired else "breaks")] if mos else [])], rows))
