@@ -94,7 +94,23 @@ def _grade(pattern: Path, spec: Path) -> dict:
                          cwd=pattern.parent)
         assert res.returncode == 0, res.stderr
         _GRADED[key] = json.loads(res.stdout)
+        _GRADED[key]["_routing"] = _routing(pattern, spec, _GRADED[key]["pitch_um"])
     return _GRADED[key]
+
+
+def _routing(pattern: Path, spec_path: Path, pitch_um: list[float]) -> dict:
+    """The routing estimate placer makes of an exported pattern (estimate_routing, as arrange
+    calls it) at the pitch grade reports: the figures of the page's routing table and
+    devices' wire column."""
+    from dataclasses import replace
+
+    from placer.io.pattern import check_against_spec, read_pattern
+    from placer.jobs.load import load_spec
+    from tests.test_page_routing import placer_routing
+
+    spec = load_spec(spec_path)
+    spec = replace(spec, array=replace(spec.array, pitch_um=tuple(pitch_um)))
+    return placer_routing(check_against_spec(read_pattern(pattern), spec, str(pattern)), spec)
 
 
 def _expected(g: dict) -> dict[str, float]:
@@ -112,6 +128,15 @@ def _expected(g: dict) -> dict[str, float]:
         out[f"offset_um:{d['name']}"] = d["offset_um"]
         out[f"edge_units:{d['name']}"] = d["edge_units"]
     out.update(_field_expected(g))
+    rt = g["_routing"]
+    out["row_tracks"] = rt["tracks"]
+    out["total_tree_um"] = rt["total"]
+    for d, v in zip(g["devices"], rt["tree"], strict=True):
+        out[f"tree_um:{d['name']}"] = v
+    if rt["breaks"] is not None:
+        out["diffusion_breaks"] = rt["breaks"]
+    if rt["unpaired"] is not None:
+        out["unpaired_fingers"] = rt["unpaired"]
     b = g["budget"]
     if b is not None and "lines" in b:
         for ln in b["lines"]:
@@ -222,7 +247,8 @@ MIRROR_KEYS = ["linear_ppm", "quadratic_ppm", "correlated_sigma_ppm", "white_sig
                "centroid_x:MOUTA", "centroid_y:MOUTB", "offset_um:MREF", "edge_units:MREF",
                "gradient_pct:MOUTA", "quadratic_pct:MOUTB", "clm_pct:MOUTA",
                "random_sigma_pct:MOUTB", "range_low:MOUTA", "range_high:MOUTB",
-               "within_tolerance:MOUTA"]
+               "within_tolerance:MOUTA", "row_tracks", "total_tree_um", "tree_um:MOUTB",
+               "diffusion_breaks", "unpaired_fingers"]
 
 
 @pytest.mark.parametrize("state", ["loaded", "swapped"])
@@ -283,7 +309,8 @@ def dac_run(browser, tmp_path_factory):
 DAC_KEYS = ["linear_ppm", "quadratic_ppm", "correlated_sigma_ppm", "white_sigma_ppm",
             "along_ppm", "bowl_ppm", "field_mean:C3",
             "centroid_x:C5", "offset_um:CT", "edge_units:C4", "worst_gradient_inl_lsb",
-            "worst_gradient_dnl_lsb", "quadratic_inl_lsb", "quadratic_dnl_lsb"]
+            "worst_gradient_dnl_lsb", "quadratic_inl_lsb", "quadratic_dnl_lsb",
+            "row_tracks", "total_tree_um", "tree_um:C5"]
 
 
 @pytest.mark.parametrize("key", DAC_KEYS)

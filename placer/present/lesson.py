@@ -71,8 +71,22 @@ def lesson_data(spec: Spec, arrangements: list[LessonArrangement]) -> dict[str, 
                           "ids": a.pattern.ids.tolist(),
                           "orient": a.pattern.orient.tolist()} for a in arrangements],
         "budget": _budget_data(spec),
+        "routing": _routing_data(spec),
     }
     return data
+
+
+def _routing_data(spec: Spec) -> dict[str, Any]:
+    """What the page's routing cost needs beyond the board: for MOS fingers the
+    (source, drain) net numbers of each device, the dummy net's, and whether fingers go
+    two to a diffusion island (as ``estimate_routing`` is called for an arrangement)."""
+    from placer.model.routing_estimate import dummy_net_id, mos_finger_nets
+
+    if not KINDS[spec.kind].fingers:
+        return {"fingers": False, "nets": None, "dummy_net": None, "pairs": False}
+    nets = mos_finger_nets(spec)
+    return {"fingers": True, "nets": [list(n) for n in nets] if nets else None,
+            "dummy_net": dummy_net_id(spec), "pairs": spec.unit.diffusion == "pairs"}
 
 
 def _budget_data(spec: Spec) -> dict[str, Any] | None:
