@@ -16,6 +16,8 @@ const state = {
   ids: null, orient: null, history: [], selected: null, focus: [0, 0],
   loaded: 0, step: 0, model: null, refModel: null, reference: null, sc: null,
   field: null, shade: true, placing: false, board: null, route: null, refRoute: null,
+  // an exercise: placer's arrangement revealed, hints shown, the best's figures
+  revealed: false, hints: 0, best: null,
 };
 
 function copyGrid(g) { return g.map((row) => row.slice()); }
@@ -456,6 +458,42 @@ function routingFigures(rm) {
   if (R.fingers) breaks = !R.pairs || unpaired === 0 ? joinedBreaks : adjacent;
   return { tracks, rowTracks: Array.from(rm.tracks), widest: wide, tree: Array.from(rm.tree),
            total, breaks, unpaired: R.fingers && R.pairs ? unpaired : null };
+}
+
+// ---------------------------------------------------------------- the exercise's score
+// An exercise (placer/io/exercise.py) bounds some figures of the board, at the spec's own
+// field, and allows a number of swaps. goalValues reads those figures; exerciseScore says
+// how the board stands: every goal met within the swaps allowed ("met"), met with too
+// many swaps ("over"), not yet ("open"), or placer's arrangement revealed ("revealed").
+// A figure within a billionth of its bound (the arithmetic's rounding) meets it.
+function goalValues(goals, sc, rt) {
+  const of = {
+    linear_ppm: sc.worst.linear.value, quadratic_ppm: sc.worst.quadratic.value,
+    correlated_sigma_ppm: sc.worst.corr.value, total_tree_um: rt.total, row_tracks: rt.tracks,
+    diffusion_breaks: rt.breaks, unpaired_fingers: rt.unpaired,
+  };
+  return goals.map((g) => of[g.figure]);
+}
+
+function exerciseScore(E, values, swaps, revealed) {
+  const met = E.goals.map((g, k) => values[k] <= g.at_most + 1e-9 * Math.max(1, g.at_most));
+  const nMet = met.filter(Boolean).length, all = nMet === met.length;
+  let verdict, text;
+  if (revealed) {
+    verdict = "revealed";
+    text = "Revealed: placer's arrangement, its figures against the goals. Start again to try once more.";
+  } else if (all && swaps <= E.max_swaps) {
+    verdict = "met";
+    text = `Goal met in ${swaps} ${swaps === 1 ? "swap" : "swaps"} (${E.max_swaps} allowed).`;
+  } else if (all) {
+    verdict = "over";
+    text = `Every goal met, but in ${swaps} swaps; ${E.max_swaps} are allowed: Undo or Start again.`;
+  } else {
+    verdict = "open";
+    text = `${nMet} of ${met.length} ${met.length === 1 ? "goal" : "goals"} met; ` +
+      `${swaps} of ${E.max_swaps} swaps used.`;
+  }
+  return { verdict, met, text, nMet };
 }
 
 // ---------------------------------------------------------------- the budget
@@ -1079,7 +1117,7 @@ function drawBudget(sc) {
 function drawControls() {
   const bar = document.getElementById("controls");
   bar.replaceChildren();
-  D.arrangements.forEach((a, k) => {
+  if (!D.exercise) D.arrangements.forEach((a, k) => {
     const b = el("button", { type: "button", "data-load": k, "aria-pressed": String(k === state.loaded), title: a.note }, a.label);
     b.addEventListener("click", () => load(k));
     bar.appendChild(b);
@@ -1106,6 +1144,67 @@ function drawLegend() {
   s.appendChild(sw);
   s.appendChild(document.createTextNode("dummy; circles: centroids; cross: centre of all device units"));
   lg.appendChild(s);
+}
+
+// ---------------------------------------------------------------- the exercise
+function startExercise() {
+  const E = D.exercise;
+  document.getElementById("exercise").hidden = false;
+  document.getElementById("ex-title").textContent = `Exercise: ${E.title}`;
+  document.getElementById("ex-task").textContent = E.task;
+  const b = D.arrangements[E.best];
+  state.best = goalValues(E.goals, score(b.ids), routingFigures(routingModel(b.ids, b.orient)));
+  document.getElementById("ex-restart").addEventListener("click", () => {
+    state.revealed = false;
+    load(E.start);
+    say("The exercise's start again: swaps count from here.");
+  });
+  document.getElementById("ex-reveal").addEventListener("click", () => {
+    state.revealed = true;
+    load(E.best);
+    say(`Revealed placer's arrangement: ${D.arrangements[E.best].note}.`);
+  });
+  const hint = document.getElementById("ex-hint");
+  hint.disabled = E.hints.length === 0;
+  hint.addEventListener("click", showHint);
+}
+
+function showHint() {
+  const E = D.exercise;
+  if (state.hints >= E.hints.length) return;
+  const li = el("li", { "data-hint": state.hints }, E.hints[state.hints]);
+  document.getElementById("ex-hints").appendChild(li);
+  state.hints += 1;
+  const b = document.getElementById("ex-hint");
+  b.textContent = state.hints < E.hints.length ? `Another hint (${state.hints} of ${E.hints.length} shown)` : "Every hint shown";
+  b.disabled = state.hints >= E.hints.length;
+}
+
+// the goals against the board, at the spec's own field whatever the controls show
+function drawExercise(rt) {
+  const E = D.exercise;
+  const now = goalValues(E.goals, figures(state.model, specField()), rt);
+  const s = exerciseScore(E, now, state.history.length, state.revealed);
+  const t = document.getElementById("ex-goals");
+  t.replaceChildren();
+  const head = el("tr");
+  for (const h of ["goal", "now", "placer's best", ""]) head.appendChild(el("th", { scope: "col" }, h));
+  t.appendChild(head);
+  E.goals.forEach((g, k) => {
+    const tr = el("tr");
+    const u = g.unit ? ` ${g.unit}` : "";
+    tr.appendChild(el("td", {}, `${g.label} \u2264 ${fmt(g.at_most)}${u}`));
+    tr.appendChild(el("td", { "data-goal": g.figure, "data-value": String(now[k]) }, `${fmt(now[k])}${u}`));
+    tr.appendChild(el("td", {}, `${fmt(state.best[k])}${u}`));
+    tr.appendChild(el("td", { class: s.met[k] ? "good" : "bad" },
+      s.met[k] ? "met" : `${fmt(now[k] - g.at_most)}${u} over`));
+    t.appendChild(tr);
+  });
+  const p = document.getElementById("ex-score");
+  p.textContent = s.text;
+  p.className = s.verdict === "met" ? "met" : "";
+  p.dataset.score = s.verdict;
+  p.dataset.swaps = String(state.history.length);
 }
 
 // ---------------------------------------------------------------- export
@@ -1198,7 +1297,9 @@ function update(reshade) {
   if (reshade) shadeField(sc);
   drawMarkers(sc);
   drawFigures(sc);
-  drawRouting(routingFigures(state.route));
+  const rt = routingFigures(state.route);
+  drawRouting(rt);
+  if (D.exercise) drawExercise(rt);
   showField();
   document.body.dataset.swaps = String(state.history.length);
 }
@@ -1213,5 +1314,6 @@ drawLegend();
 drawStep();
 drawHandout();
 fieldControls();
-load(0);
+if (D.exercise) startExercise();
+load(D.exercise ? D.exercise.start : 0);
 document.body.dataset.ready = "true";

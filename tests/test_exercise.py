@@ -1,0 +1,213 @@
+"""Exercise files of the lesson page: the format read and written, every bad value one
+clear line before anything is written, the starter's goals from placer's best
+arrangement, and the swaps between two boards."""
+
+from __future__ import annotations
+
+import itertools
+import tomllib
+
+import numpy as np
+import pytest
+
+from placer.errors import ExerciseError
+from placer.io.exercise import Exercise, Goal, exercise_text, parse_exercise
+from placer.jobs.exercise import round_up, swaps_between
+from placer.jobs.load import load_spec, parse_spec
+from tests.helpers import ROOT, refused, run_placer
+
+COURSE = ROOT / "samples" / "course"
+
+GOOD = '''[exercise]
+block = "duo"
+title = "Two devices"
+task = "Cancel the linear error."
+start = "clustered"
+max_swaps = 3
+hints = ["one", "two"]
+
+[[goal]]
+figure = "linear_ppm"
+at_most = 0.5
+'''
+
+
+@pytest.fixture(scope="module")
+def duo():
+    return parse_spec('name = "duo"\n[devices]\nA = 4\nB = 4\n[array]\nrows = 2\n', "duo")
+
+
+def test_a_good_exercise_reads_and_writes_back_the_same(duo):
+    ex = parse_exercise(GOOD, "ex.toml", duo)
+    assert ex == Exercise("duo", "Two devices", "Cancel the linear error.", "clustered", 3,
+                          (Goal("linear_ppm", 0.5),), ("one", "two"))
+    odd = Exercise("duo", 'A "quoted" title \\ with a backslash', "line one\nline two",
+                   "mirrored", 7, (Goal("linear_ppm", 1.25), Goal("diffusion_breaks", 2.0)),
+                   ("hint",))
+    assert parse_exercise(exercise_text(odd, "a comment\nof two lines"), "x.toml", duo) == odd
+
+
+@pytest.mark.parametrize("change, words", [
+    (("block = \"duo\"", "block = \"trio\""),
+     "[exercise] block is 'trio', but the spec's name is 'duo'"),
+    (("start = \"clustered\"", "start = \"random\""), "[exercise] start must be one of"),
+    (("max_swaps = 3", "max_swaps = 0"),
+     "[exercise] max_swaps must be a whole number from 1 to 1000, got 0"),
+    (("max_swaps = 3", "max_swaps = 2.5"), "max_swaps must be a whole number"),
+    (("max_swaps = 3", "max_swaps = true"), "max_swaps must be a whole number"),
+    (("max_swaps = 3\n", ""), "max_swaps must be a whole number from 1 to 1000, got nothing"),
+    (("hints = [\"one\", \"two\"]", "hints = [\"one\", 2]"),
+     "[exercise] hints[1] must be a non-empty string"),
+    (("hints = [\"one\", \"two\"]", "hints = \"one\""), "hints must be an array of at most 12"),
+    (("title = \"Two devices\"", "title = \"\""), "[exercise] title must be a non-empty string"),
+    (("title = \"Two devices\"", "titel = \"Two\""),
+     "[exercise] unknown key 'titel'; allowed: block"),
+    (("figure = \"linear_ppm\"", "figure = \"linear\""),
+     "[[goal]] 1 figure must be one of linear_ppm"),
+    (("figure = \"linear_ppm\"", "figure = \"diffusion_breaks\"\nkind = 1"),
+     "[[goal]] 1 unknown key 'kind'"),
+    (("at_most = 0.5", "at_most = -1"),
+     "[[goal]] 1 at_most must be a number of at least 0, got -1"),
+    (("at_most = 0.5", "at_most = nan"), "at_most must be a number of at least 0, got nan"),
+    (("at_most = 0.5", "at_most = \"low\""), "at_most must be a number of at least 0, got 'low'"),
+    (("[[goal]]\nfigure = \"linear_ppm\"\nat_most = 0.5\n", ""), "give 1 to 8 [[goal]] tables"),
+    (("at_most = 0.5", "at_most = 0.5\n[[goal]]\nfigure = \"linear_ppm\"\nat_most = 1"),
+     "[[goal]] 2 bounds linear_ppm a second time"),
+    (("[exercise]", "[exercise]\n[extra]"), "unknown table or key 'extra'"),
+    (("task = ", "task = = "), "invalid TOML"),
+])
+def test_every_bad_value_is_one_line_naming_the_file_and_key(duo, change, words):
+    text = GOOD.replace(*change)
+    assert text != GOOD
+    with pytest.raises(ExerciseError) as err:
+        parse_exercise(text, "ex.toml", duo)
+    msg = str(err.value)
+    assert msg.startswith("ex.toml:") and "\n" not in msg
+    assert words in msg, msg
+
+
+def test_mos_figures_are_refused_for_another_kind_and_unpaired_needs_pairs():
+    cap = parse_spec('name = "duo"\nkind = "cap"\n[devices]\nA = 4\nB = 4\n', "duo")
+    text = GOOD.replace('figure = "linear_ppm"', 'figure = "diffusion_breaks"')
+    with pytest.raises(ExerciseError, match="counts MOS fingers, and the spec's kind is 'cap'"):
+        parse_exercise(text, "ex.toml", cap)
+    shared = parse_spec('name = "duo"\n[devices]\nA = 4\nB = 4\n[unit]\ndiffusion = "shared"\n',
+                        "duo")
+    with pytest.raises(ExerciseError, match="unpaired_fingers needs fingers two"):
+        parse_exercise(text.replace("diffusion_breaks", "unpaired_fingers"), "ex.toml", shared)
+
+
+def _fewest_swaps(a: list[int], b: list[int]) -> int:
+    """The fewest swaps from a to b, by breadth-first search over the boards."""
+    seen, frontier, depth = {tuple(a)}, [tuple(a)], 0
+    while tuple(b) not in seen:
+        nxt = []
+        for board in frontier:
+            for i, j in itertools.combinations(range(len(board)), 2):
+                if board[i] != board[j]:
+                    t = list(board)
+                    t[i], t[j] = t[j], t[i]
+                    if tuple(t) not in seen:
+                        seen.add(tuple(t))
+                        nxt.append(tuple(t))
+        frontier, depth = nxt, depth + 1
+    return depth
+
+
+def test_swaps_between_boards_turns_one_into_the_other_and_is_at_worst_one_over_the_fewest():
+    """Every arrangement of a few small multisets against a fixed target: the count is
+    never below the fewest (breadth-first search), equals it wherever every wrong slot
+    lies on a two-cycle, and stays within the greedy's slack on the rest."""
+    rng = np.random.default_rng(20261205)
+    for units in ([0, 0, 1, 1, -1, 2], [0, 0, 0, 1, 1, 2, -1], [0, 1, 2, 3, 3, 1]):
+        target = list(units)
+        for _ in range(30):
+            start = [int(v) for v in rng.permutation(units)]
+            got = swaps_between(np.array(start), np.array(target))
+            best = _fewest_swaps(start, target)
+            assert best <= got <= best + 1, (start, target, got, best)
+    assert swaps_between(np.array([0, 0, 0, 0, 1, 1, 1, 1]),
+                         np.array([0, 1, 1, 0, 1, 0, 0, 1])) == 2
+    with pytest.raises(ValueError):
+        swaps_between(np.array([0, 1]), np.array([0, 0]))
+
+
+def test_round_up_keeps_two_digits_and_never_goes_below():
+    for v in (0.01234, 57.01, 8.4, 123456.0, 1e-7):
+        r = round_up(v)
+        assert r >= v and r <= v * 1.1 + 1e-12
+        assert len(f"{r:.15g}".replace(".", "").replace("-", "").strip("0").split("e")[0]) <= 2
+
+
+@pytest.mark.parametrize("name", ["row_pair", "common_centroid", "odd_ratio", "cap_ring"])
+def test_the_course_samples_are_valid_exercises_placer_can_meet(name):
+    """Each sample exercise reads against its spec, and placer's own arrangement (a short
+    search) meets every goal in at most the swaps allowed from the start."""
+    from placer.jobs.arrange import arrange, baseline_patterns
+    from placer.model.grade import grade_pattern
+    from placer.present.lesson import LessonArrangement, lesson_data
+
+    spec = load_spec(COURSE / f"{name}.toml")
+    ex = parse_exercise((COURSE / f"{name}-exercise.toml").read_text(), name, spec)
+    best = arrange(spec, seed=0, time_limit_s=10)
+    spec = best.spec or spec
+    start = dict(baseline_patterns(spec, *best.core_shape))[ex.start]
+    assert swaps_between(start.ids, best.pattern.ids) <= ex.max_swaps
+    g = grade_pattern(best.pattern, spec)
+    for goal in ex.goals:
+        assert max(abs(getattr(p, goal.figure)) for p in g.pairs) <= goal.at_most
+    data = lesson_data(spec, [LessonArrangement(ex.start, "", start),
+                              LessonArrangement("optimised", "", best.pattern)], ex)
+    assert data["exercise"]["start"] == 0 and data["exercise"]["best"] == 1
+
+
+def test_a_bad_exercise_stops_the_command_before_anything_is_written(tmp_path):
+    spec = tmp_path / "duo.toml"
+    spec.write_text('name = "duo"\n[devices]\nA = 4\nB = 4\n[array]\nrows = 2\n')
+    ex = tmp_path / "ex.toml"
+    ex.write_text(GOOD.replace("max_swaps = 3", "max_swaps = -2"))
+    out = tmp_path / "out"
+    res = run_placer(["lesson", str(spec), "--exercise", str(ex), "--out", str(out)],
+                     cwd=tmp_path)
+    refused(res, f"{ex}: [exercise] max_swaps must be a whole number")
+    assert not out.exists() or not any(out.iterdir())
+    both = run_placer(["lesson", str(spec), "--exercise", str(ex), "--write-exercise",
+                       "--out", str(out)], cwd=tmp_path)
+    refused(both, "not both", code=2)
+
+
+def test_a_starter_exercise_is_written_from_placers_best_and_reads_back(tmp_path):
+    """--write-exercise: the file reads back with --exercise; its linear goal lies between
+    placer's best and the start's worst linear error (a tenth of the way), and the swaps
+    allowed are those that turn the start into placer's arrangement."""
+    import json
+    import re
+
+    spec = COURSE / "common_centroid.toml"
+    res = run_placer(["lesson", str(spec), "--write-exercise", "--out", str(tmp_path / "a"),
+                      "--time-limit", "5"], cwd=tmp_path)
+    assert res.returncode == 0, res.stderr
+    written = tmp_path / "a" / "plover_mirror-exercise.toml"
+    data = tomllib.loads(written.read_text())
+    page = (tmp_path / "a" / "plover_mirror-lesson.html").read_text()
+    blob = re.search(r'<script type="application/json" id="lesson-data">(.*?)</script>',
+                     page, re.S).group(1)
+    d = json.loads(blob)
+    start = np.array(d["arrangements"][d["exercise"]["start"]]["ids"])
+    best = np.array(d["arrangements"][d["exercise"]["best"]]["ids"])
+    assert data["exercise"]["max_swaps"] == swaps_between(start, best) >= 1
+    lin = data["goal"][0]
+    assert lin["figure"] == "linear_ppm"
+
+    def linear(ids: np.ndarray) -> float:        # the worst direction: g |c_a - c_b|
+        px, py = d["pitch_um"]
+        r, c = np.nonzero(ids >= 0)
+        cen = [np.array([c[ids[r, c] == k].mean() * px, -r[ids[r, c] == k].mean() * py])
+               for k in range(2)]
+        return d["linear_ppm_per_um"] * float(np.hypot(*(cen[0] - cen[1])))
+
+    lo, hi = linear(best), linear(start)
+    assert lo + 0.1 * (hi - lo) <= lin["at_most"] <= (lo + 0.1 * (hi - lo)) * 1.1 + 1e-9
+    again = run_placer(["lesson", str(spec), "--exercise", str(written), "--out",
+                        str(tmp_path / "b"), "--time-limit", "5"], cwd=tmp_path)
+    assert again.returncode == 0, again.stderr
