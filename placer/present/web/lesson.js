@@ -357,17 +357,18 @@ function treeLength(rm, d) {
   const n = xs.length;
   if (n < 2) return 0;
   const best = new Float64Array(n), done = new Uint8Array(n);
-  for (let i = 0; i < n; i++) best[i] = Math.hypot(xs[i] - xs[0], ys[i] - ys[0]);
+  // squared distances while choosing (sqrt is monotone), lengths summed at the end
+  for (let i = 0; i < n; i++) best[i] = (xs[i] - xs[0]) ** 2 + (ys[i] - ys[0]) ** 2;
   done[0] = 1;
   let total = 0;
   for (let step = 1; step < n; step++) {
     let k = -1, low = Infinity;
     for (let i = 0; i < n; i++) if (!done[i] && best[i] < low) { low = best[i]; k = i; }
-    total += low; done[k] = 1;
+    total += Math.sqrt(low); done[k] = 1;
     const x = xs[k], y = ys[k];
     for (let i = 0; i < n; i++) {
       if (done[i]) continue;
-      const v = Math.hypot(xs[i] - x, ys[i] - y);
+      const dx = xs[i] - x, dy = ys[i] - y, v = dx * dx + dy * dy;
       if (v < best[i]) best[i] = v;
     }
   }
