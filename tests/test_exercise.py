@@ -241,3 +241,49 @@ def test_a_starter_exercise_is_written_from_placers_best_and_reads_back(tmp_path
     again = run_placer(["lesson", str(spec), "--exercise", str(written), "--out",
                         str(tmp_path / "b"), "--time-limit", "5"], cwd=tmp_path)
     assert again.returncode == 0, again.stderr
+
+
+def test_the_pages_score_says_met_over_open_and_revealed():
+    """The page's own scoring (lesson.js, run in Node without a page): every goal met
+    within the swaps allowed is "met", met with more swaps "over", a goal missed "open"
+    (a figure over its bound by a thousandth misses, one over it by the arithmetic's
+    rounding meets it), and placer's arrangement revealed "revealed" whatever the
+    figures."""
+    import json
+    import os
+    import shutil
+    import subprocess
+
+    node = shutil.which("node") or shutil.which("nodejs")
+    if node is None:
+        if os.environ.get("PLACER_REQUIRE_NODE") == "1":
+            pytest.fail("Node.js is required here (PLACER_REQUIRE_NODE=1)")
+        pytest.skip("no Node.js here (apt-get install nodejs); CI requires it")
+    text = (ROOT / "placer" / "present" / "web" / "lesson.js").read_text()
+    rule = "// " + "-" * 64 + " "
+    start, end = text.index(rule + "the exercise's score"), text.index(rule + "the budget")
+    E = {"max_swaps": 3, "goals": [{"figure": "linear_ppm", "at_most": 0.5},
+                                   {"figure": "total_tree_um", "at_most": 40.0}]}
+    cases = [([0.0, 40.0], 3, False), ([0.0, 40.0 + 1e-12], 2, False), ([0.0, 40.0], 4, False),
+             ([0.5005, 12.0], 1, False), ([9.0, 99.0], 0, True)]
+    script = (text[start:end] + f"\nconst E = {json.dumps(E)};\n" +
+              f"console.log(JSON.stringify({json.dumps(cases)}.map(([v, n, r]) => "
+              "exerciseScore(E, v, n, r))));")
+    res = subprocess.run([node, "-e", script], capture_output=True, text=True, check=True)
+    got = json.loads(res.stdout)
+    assert [g["verdict"] for g in got] == ["met", "met", "over", "open", "revealed"]
+    assert got[0]["text"] == "Goal met in 3 swaps (3 allowed)."
+    assert got[3]["met"] == [False, True] and got[3]["text"].startswith("1 of 2 goals met; 1 of 3")
+    # and the figures a goal reads are the ones the page shows under the same names
+    values = subprocess.run([node, "-e", text[start:end] + (
+        "\nconst sc = {worst: {linear: {value: 1}, quadratic: {value: 2}, corr: {value: 3}}};"
+        "\nconst rt = {total: 4, tracks: 5, breaks: 6, unpaired: 7};"
+        "\nconst keys = ['linear_ppm', 'quadratic_ppm', 'correlated_sigma_ppm',"
+        " 'total_tree_um', 'row_tracks', 'diffusion_breaks', 'unpaired_fingers'];"
+        "\nconsole.log(JSON.stringify(goalValues(keys.map((figure) => ({figure})), sc, rt)));")],
+        capture_output=True, text=True, check=True)
+    assert json.loads(values.stdout) == [1, 2, 3, 4, 5, 6, 7]
+    from placer.io.exercise import FIGURES
+    assert list(FIGURES) == ["linear_ppm", "quadratic_ppm", "correlated_sigma_ppm",
+                             "total_tree_um", "row_tracks", "diffusion_breaks",
+                             "unpaired_fingers"]

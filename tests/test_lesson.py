@@ -578,6 +578,9 @@ def test_an_exercise_driven_to_its_score_then_revealed(browser, tmp_path):
         return score.get_attribute("data-score"), score.text, goals
 
     assert browser.find_element("id", "ex-title").text.endswith(ex["exercise"]["title"])
+    handout = browser.execute_script(
+        "return document.getElementById('handout-exercise').textContent")
+    assert ex["exercise"]["task"] in handout and "within 2 swaps from the clustered" in handout
     # no arrangement buttons in an exercise: the board opens on the exercise's start
     assert browser.find_elements("css selector", "#controls button[data-load]") == []
     verdict, text, goals = now()

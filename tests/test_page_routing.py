@@ -75,7 +75,9 @@ def _agree(page: dict, want: dict) -> None:
     assert page["total"] == pytest.approx(want["total"], rel=1e-9)
 
 
-@pytest.mark.parametrize("board", sorted(_BOARDS))
+@pytest.mark.parametrize("board", [
+    pytest.param(b, marks=pytest.mark.slow) if b == "wide_cap" else b    # 1 s: CI runs it
+    for b in sorted(_BOARDS)])
 def test_the_pages_routing_cost_is_placers_estimate_before_and_after_swaps(board, tmp_path):
     from placer.io.pattern import Pattern
     from placer.jobs.arrange import baseline_patterns, candidate_shapes

@@ -1168,6 +1168,14 @@ function startExercise() {
   const hint = document.getElementById("ex-hint");
   hint.disabled = E.hints.length === 0;
   hint.addEventListener("click", showHint);
+  // the handout states the task and its goals (the hints stay on the page)
+  const box = document.getElementById("handout-exercise");
+  box.appendChild(el("h3", {}, `Exercise: ${E.title}`));
+  box.appendChild(el("p", {}, E.task));
+  const list = el("ul");
+  for (const g of E.goals) list.appendChild(el("li", {}, `${g.label} \u2264 ${fmt(g.at_most)}${g.unit ? " " + g.unit : ""}`));
+  list.appendChild(el("li", {}, `within ${E.max_swaps} ${E.max_swaps === 1 ? "swap" : "swaps"} from the ${D.arrangements[E.start].label} arrangement`));
+  box.appendChild(list);
 }
 
 function showHint() {
