@@ -719,7 +719,8 @@ def compare(spec_path: Path, out_dir: Path, seed: int, time_limit: float, paper:
 @cli.command()
 @click.argument("spec_path", metavar="SPEC", type=_FILE)
 @click.option("--out", "out_dir", type=_OUT,
-              required=True, help="Folder for <name>-lesson.html.")
+              required=True, help="Folder for <name>-lesson.html (and "
+                                  "<name>-exercise.toml with --write-exercise).")
 @click.option("--pattern", "pattern_path", type=_FILE, default=None,
               help="Open the page on this arrangement (a pattern of the spec's devices; "
                    "for a unary spec, a sequence grid or GDSII).")
