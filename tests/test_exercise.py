@@ -14,7 +14,7 @@ from placer.errors import ExerciseError
 from placer.io.exercise import Exercise, Goal, exercise_text, parse_exercise
 from placer.jobs.exercise import round_up, swaps_between
 from placer.jobs.load import load_spec, parse_spec
-from tests.helpers import ROOT, refused, run_placer
+from tests.helpers import ROOT
 
 COURSE = ROOT / "samples" / "course"
 
@@ -191,32 +191,39 @@ def test_the_course_samples_are_valid_exercises_that_can_be_met(spec_name, ex_na
     assert data["exercise"]["start"] == 0 and data["exercise"]["best"] == 1
 
 
-def test_a_bad_exercise_stops_the_command_before_anything_is_written(tmp_path):
+def test_a_bad_exercise_stops_the_command_before_anything_is_written(tmp_path, runner):
+    from placer.cli import cli
+
     spec = tmp_path / "duo.toml"
     spec.write_text('name = "duo"\n[devices]\nA = 4\nB = 4\n[array]\nrows = 2\n')
     ex = tmp_path / "ex.toml"
     ex.write_text(GOOD.replace("max_swaps = 3", "max_swaps = -2"))
     out = tmp_path / "out"
-    res = run_placer(["lesson", str(spec), "--exercise", str(ex), "--out", str(out)],
-                     cwd=tmp_path)
-    refused(res, f"{ex}: [exercise] max_swaps must be a whole number")
+    res = runner.invoke(cli, ["lesson", str(spec), "--exercise", str(ex), "--out", str(out)])
+    assert res.exit_code == 1, res.output
+    assert "Traceback" not in res.output
+    lines = [ln for ln in res.output.splitlines() if ln.strip()]
+    assert lines == [f"Error: {ex}: [exercise] max_swaps must be a whole number from 1 to "
+                     "1000, got -2"], res.output
     assert not out.exists() or not any(out.iterdir())
-    both = run_placer(["lesson", str(spec), "--exercise", str(ex), "--write-exercise",
-                       "--out", str(out)], cwd=tmp_path)
-    refused(both, "not both", code=2)
+    both = runner.invoke(cli, ["lesson", str(spec), "--exercise", str(ex), "--write-exercise",
+                               "--out", str(out)])
+    assert both.exit_code == 2 and "not both" in both.output
 
 
-def test_a_starter_exercise_is_written_from_placers_best_and_reads_back(tmp_path):
+def test_a_starter_exercise_is_written_from_placers_best_and_reads_back(tmp_path, runner):
     """--write-exercise: the file reads back with --exercise; its linear goal lies between
     placer's best and the start's worst linear error (a tenth of the way), and the swaps
     allowed are those that turn the start into placer's arrangement."""
     import json
     import re
 
+    from placer.cli import cli
+
     spec = COURSE / "common_centroid.toml"
-    res = run_placer(["lesson", str(spec), "--write-exercise", "--out", str(tmp_path / "a"),
-                      "--time-limit", "5"], cwd=tmp_path)
-    assert res.returncode == 0, res.stderr
+    res = runner.invoke(cli, ["lesson", str(spec), "--write-exercise", "--out",
+                              str(tmp_path / "a"), "--time-limit", "5"])
+    assert res.exit_code == 0, res.output
     written = tmp_path / "a" / "plover_mirror-exercise.toml"
     data = tomllib.loads(written.read_text())
     page = (tmp_path / "a" / "plover_mirror-lesson.html").read_text()
@@ -238,9 +245,10 @@ def test_a_starter_exercise_is_written_from_placers_best_and_reads_back(tmp_path
 
     lo, hi = linear(best), linear(start)
     assert lo + 0.1 * (hi - lo) <= lin["at_most"] <= (lo + 0.1 * (hi - lo)) * 1.1 + 1e-9
-    again = run_placer(["lesson", str(spec), "--exercise", str(written), "--out",
-                        str(tmp_path / "b"), "--time-limit", "5"], cwd=tmp_path)
-    assert again.returncode == 0, again.stderr
+    again = runner.invoke(cli, ["lesson", str(spec), "--exercise", str(written), "--out",
+                                str(tmp_path / "b"), "--time-limit", "5"])
+    assert again.exit_code == 0, again.output
+    assert (tmp_path / "b" / "plover_mirror-lesson.html").exists()
 
 
 def test_the_pages_score_says_met_over_open_and_revealed():
