@@ -5,7 +5,9 @@
 Writes the lesson page of samples/bias_mirror.toml, opens it, loads the clustered
 arrangement, makes two swaps through the page and saves docs/lesson.png; then the
 sequence page of samples/unary/heron_msb.toml with the centre-pairs order and one
-exchange, saved as docs/lesson-sequence.png.
+exchange, saved as docs/lesson-sequence.png; then the course's wire exercise
+(samples/course) after the four swaps that meet it, with a hint shown, saved as
+docs/lesson-exercise.png.
 """
 
 from __future__ import annotations
@@ -44,9 +46,20 @@ def main() -> None:
                 driver.find_element("css selector",
                                     f'.slot[data-row="{r}"][data-col="{c}"]').click()
             driver.save_screenshot(str(ROOT / "docs" / "lesson-sequence.png"))
+            course = ROOT / "samples" / "course"
+            subprocess.run([sys.executable, "-m", "placer", "lesson",
+                            str(course / "common_centroid.toml"), "--exercise",
+                            str(course / "common_centroid-wire-exercise.toml"), "--out", tmp,
+                            "--time-limit", "10"], check=True, capture_output=True)
+            driver.get((Path(tmp) / "plover_mirror-lesson.html").as_uri())
+            for r, c in ((0, 3), (2, 3), (0, 4), (2, 4), (1, 1), (3, 1), (1, 2), (3, 2)):
+                driver.find_element("css selector",
+                                    f'.slot[data-row="{r}"][data-col="{c}"]').click()
+            driver.find_element("id", "ex-hint").click()
+            driver.save_screenshot(str(ROOT / "docs" / "lesson-exercise.png"))
         finally:
             driver.quit()
-    print("wrote docs/lesson.png and docs/lesson-sequence.png")
+    print("wrote docs/lesson.png, docs/lesson-sequence.png and docs/lesson-exercise.png")
 
 
 if __name__ == "__main__":

@@ -728,7 +728,8 @@ def compare(spec_path: Path, out_dir: Path, seed: int, time_limit: float, paper:
 @cli.command()
 @click.argument("spec_path", metavar="SPEC", type=_FILE)
 @click.option("--out", "out_dir", type=_OUT,
-              required=True, help="Folder for <name>-lesson.html.")
+              required=True, help="Folder for <name>-lesson.html (and "
+                                  "<name>-exercise.toml with --write-exercise).")
 @click.option("--pattern", "pattern_path", type=_FILE, default=None,
               help="Open the page on this arrangement (a pattern of the spec's devices; "
                    "for a unary spec, a sequence grid or GDSII).")
@@ -738,10 +739,17 @@ def compare(spec_path: Path, out_dir: Path, seed: int, time_limit: float, paper:
               default=60.0, show_default=True,
               help="Safety cap on the search in seconds (work estimated far past it is "
                    "refused at once, as for arrange).")
+@click.option("--exercise", "exercise_path", type=_FILE, default=None,
+              help="Open the page on this exercise file (TOML: its start, goals, swaps "
+                   "allowed and hints); the page scores the board against it.")
+@click.option("--write-exercise", "write_exercise", is_flag=True,
+              help="Also write <name>-exercise.toml, a starter exercise whose goals come "
+                   "from placer's best arrangement, and open the page on it.")
 @click.option("--force", is_flag=True, help="Overwrite files already in --out.")
 @_user_errors
 def lesson(spec_path: Path, out_dir: Path, pattern_path: Path | None, seed: int,
-           time_limit: float, force: bool) -> None:
+           time_limit: float, exercise_path: Path | None, write_exercise: bool,
+           force: bool) -> None:
     """One self-contained HTML page for teaching: swap units and watch every figure.
 
     The page opens from disk in a browser (nothing to fetch); its buttons load the
@@ -749,6 +757,10 @@ def lesson(spec_path: Path, out_dir: Path, pattern_path: Path | None, seed: int,
     --pattern), and it exports the board as pattern text for grade. A unary spec (a
     [unary] table) gets the sequence page: exchange cells of the textbook orders or
     placer's and watch the INL against code; it exports a sequence grid.
+
+    With --exercise (or --write-exercise for a starter), the page sets the trainee a
+    task: a start arrangement, goals on its figures within a number of swaps, hints one
+    at a time, a live score, and a reveal of placer's best arrangement.
     """
     from placer.io.pattern import check_against_spec, read_pattern
     from placer.io.unaryspec import is_unary_spec
@@ -758,7 +770,15 @@ def lesson(spec_path: Path, out_dir: Path, pattern_path: Path | None, seed: int,
     from placer.present import outputs
     from placer.present.lesson import MAX_LESSON_UNITS, LessonArrangement, lesson_data, render_page
 
+    if exercise_path is not None and write_exercise:
+        raise click.UsageError("give --exercise or --write-exercise, not both")
+    if pattern_path is not None and (exercise_path is not None or write_exercise):
+        raise click.UsageError("--pattern cannot go with an exercise: an exercise opens on "
+                               "its own start arrangement")
     if is_unary_spec(spec_path):
+        if exercise_path is not None or write_exercise:
+            raise click.UsageError("exercises are for arrays of devices; a unary spec's "
+                                   "page has none")
         _sequence_lesson(spec_path, out_dir, pattern_path, seed, time_limit, force)
         return
     spec = load_spec(spec_path)
@@ -770,8 +790,13 @@ def lesson(spec_path: Path, out_dir: Path, pattern_path: Path | None, seed: int,
     own = None
     if pattern_path is not None:
         own = check_against_spec(read_pattern(pattern_path), spec, str(pattern_path))
+    exercise = None
+    if exercise_path is not None:           # checked before any search or file
+        from placer.io.exercise import read_exercise
+        exercise = read_exercise(exercise_path, spec)
     name = outputs.lesson_name(spec)
-    with OutputSet(out_dir, [name], force) as out:
+    ex_name = f"{spec.name}-exercise.toml"
+    with OutputSet(out_dir, [name, ex_name] if write_exercise else [name], force) as out:
         best = run_arrange(spec, seed=seed, time_limit_s=time_limit)
         if best.stopped == "interrupted":
             raise KeyboardInterrupt
@@ -787,9 +812,21 @@ def lesson(spec_path: Path, out_dir: Path, pattern_path: Path | None, seed: int,
         if own is not None and pattern_path is not None:      # the page opens on it
             items.insert(0, LessonArrangement(pattern_path.stem, f"from {pattern_path.name}",
                                               own))
-        out.write(name, render_page(lesson_data(spec, items)))
-        written = out.commit()
-    click.echo(f"Wrote {written[0]}: open it in a browser (no network needed).")
+        if write_exercise:
+            from placer.io.exercise import exercise_text
+            from placer.jobs.exercise import starter_exercise
+            exercise = starter_exercise(spec, "clustered", items[0].pattern, best.pattern)
+            out.write(ex_name, exercise_text(
+                exercise, f"Exercise for {spec_path.name}, written by placer lesson "
+                          f"--write-exercise (seed {seed}).\nEdit the text, goals, swaps "
+                          f"and hints, then: placer lesson {spec_path.name} --exercise "
+                          f"{ex_name} --out DIR"))
+        out.write(name, render_page(lesson_data(spec, items, exercise)))
+        written = {p.name: p for p in out.commit()}
+    click.echo(f"Wrote {written[name]}: open it in a browser (no network needed).")
+    if write_exercise:
+        click.echo(f"Wrote {written[ex_name]}: edit its goals and hints, then give it to "
+                   "--exercise.")
 
 
 def _sequence_lesson(spec_path: Path, out_dir: Path, grid_path: Path | None, seed: int,

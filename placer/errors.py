@@ -13,10 +13,12 @@ handler catches them all::
     +-- RouteError         a pattern that cannot be wired at its pitch
     +-- OutputError        an output folder or file that cannot be written as asked
     +-- CoreMissing        the compiled search core is not installed
+    +-- ExerciseError      a lesson page's exercise file
 """
 
 __all__ = ["PlacerError", "SpecError", "PatternError", "LayoutError", "TemplateError",
-           "LimitError", "InfeasibleError", "RouteError", "OutputError", "CoreMissing", "shown"]
+           "LimitError", "InfeasibleError", "RouteError", "OutputError", "CoreMissing",
+           "ExerciseError", "shown"]
 
 
 class PlacerError(ValueError):
@@ -57,6 +59,10 @@ class OutputError(PlacerError):
 
 class CoreMissing(PlacerError):
     """The compiled search core was not built with this installation."""
+
+
+class ExerciseError(PlacerError):
+    """An exercise file of the lesson page is malformed or does not fit its spec."""
 
 
 def shown(value: object, limit: int = 40) -> str:

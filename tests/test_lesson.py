@@ -94,7 +94,23 @@ def _grade(pattern: Path, spec: Path) -> dict:
                          cwd=pattern.parent)
         assert res.returncode == 0, res.stderr
         _GRADED[key] = json.loads(res.stdout)
+        _GRADED[key]["_routing"] = _routing(pattern, spec, _GRADED[key]["pitch_um"])
     return _GRADED[key]
+
+
+def _routing(pattern: Path, spec_path: Path, pitch_um: list[float]) -> dict:
+    """The routing estimate placer makes of an exported pattern (estimate_routing, as arrange
+    calls it) at the pitch grade reports: the figures of the page's routing table and
+    devices' wire column."""
+    from dataclasses import replace
+
+    from placer.io.pattern import check_against_spec, read_pattern
+    from placer.jobs.load import load_spec
+    from tests.test_page_routing import placer_routing
+
+    spec = load_spec(spec_path)
+    spec = replace(spec, array=replace(spec.array, pitch_um=tuple(pitch_um)))
+    return placer_routing(check_against_spec(read_pattern(pattern), spec, str(pattern)), spec)
 
 
 def _expected(g: dict) -> dict[str, float]:
@@ -112,6 +128,15 @@ def _expected(g: dict) -> dict[str, float]:
         out[f"offset_um:{d['name']}"] = d["offset_um"]
         out[f"edge_units:{d['name']}"] = d["edge_units"]
     out.update(_field_expected(g))
+    rt = g["_routing"]
+    out["row_tracks"] = rt["tracks"]
+    out["total_tree_um"] = rt["total"]
+    for d, v in zip(g["devices"], rt["tree"], strict=True):
+        out[f"tree_um:{d['name']}"] = v
+    if rt["breaks"] is not None:
+        out["diffusion_breaks"] = rt["breaks"]
+    if rt["unpaired"] is not None:
+        out["unpaired_fingers"] = rt["unpaired"]
     b = g["budget"]
     if b is not None and "lines" in b:
         for ln in b["lines"]:
@@ -222,7 +247,8 @@ MIRROR_KEYS = ["linear_ppm", "quadratic_ppm", "correlated_sigma_ppm", "white_sig
                "centroid_x:MOUTA", "centroid_y:MOUTB", "offset_um:MREF", "edge_units:MREF",
                "gradient_pct:MOUTA", "quadratic_pct:MOUTB", "clm_pct:MOUTA",
                "random_sigma_pct:MOUTB", "range_low:MOUTA", "range_high:MOUTB",
-               "within_tolerance:MOUTA"]
+               "within_tolerance:MOUTA", "row_tracks", "total_tree_um", "tree_um:MOUTB",
+               "diffusion_breaks", "unpaired_fingers"]
 
 
 @pytest.mark.parametrize("state", ["loaded", "swapped"])
@@ -283,7 +309,8 @@ def dac_run(browser, tmp_path_factory):
 DAC_KEYS = ["linear_ppm", "quadratic_ppm", "correlated_sigma_ppm", "white_sigma_ppm",
             "along_ppm", "bowl_ppm", "field_mean:C3",
             "centroid_x:C5", "offset_um:CT", "edge_units:C4", "worst_gradient_inl_lsb",
-            "worst_gradient_dnl_lsb", "quadratic_inl_lsb", "quadratic_dnl_lsb"]
+            "worst_gradient_dnl_lsb", "quadratic_inl_lsb", "quadratic_dnl_lsb",
+            "row_tracks", "total_tree_um", "tree_um:C5"]
 
 
 @pytest.mark.parametrize("key", DAC_KEYS)
@@ -514,3 +541,89 @@ def test_every_slot_but_the_empty_ones_keeps_its_shade_through_swaps(browser, tm
     check()
     _swap_by_clicks(browser, (1, 1), (0, 8))        # a unit onto an empty slot
     check()
+
+
+def _page_data(page: Path) -> dict:
+    """The data the page was written with (its JSON element, read back)."""
+    import re
+
+    blob = re.search(r'<script type="application/json" id="lesson-data">(.*?)</script>',
+                     page.read_text(), re.S).group(1)
+    return json.loads(blob)
+
+
+def test_an_exercise_driven_to_its_score_then_revealed(browser, tmp_path):
+    """The one-row sample exercise (samples/course): two swaps of the middle units turn
+    the clustered row into A B B A B A A B, and the score says the goal is met within the
+    swaps allowed; one more swap and it is not, Undo and it is again. A hint is shown
+    when asked, the file's first. The reveal loads placer's arrangement (the page's
+    "optimised" one, exported exactly), and every figure the page shows then, the goals'
+    values and the routing cost among them, equals ``placer grade --json`` (and placer's
+    routing estimate) of that export."""
+    import tomllib
+
+    course = ROOT / "samples" / "course"
+    spec, ex_path = course / "row_pair.toml", course / "row_pair-exercise.toml"
+    ex = tomllib.loads(ex_path.read_text())
+    res = run_placer(["lesson", str(spec), "--exercise", str(ex_path), "--out", str(tmp_path),
+                      "--time-limit", "5"], cwd=tmp_path)
+    assert res.returncode == 0, res.stderr
+    page = tmp_path / "tern_pair-lesson.html"
+    _open(browser, page)
+    score = browser.find_element("id", "ex-score")
+
+    def now() -> tuple[str, str, dict[str, float]]:
+        goals = {e.get_attribute("data-goal"): float(e.get_attribute("data-value"))
+                 for e in browser.find_elements("css selector", "[data-goal]")}
+        return score.get_attribute("data-score"), score.text, goals
+
+    assert browser.find_element("id", "ex-title").text.endswith(ex["exercise"]["title"])
+    handout = browser.execute_script(
+        "return document.getElementById('handout-exercise').textContent")
+    assert ex["exercise"]["task"] in handout and "within 2 swaps from the clustered" in handout
+    # no arrangement buttons in an exercise: the board opens on the exercise's start
+    assert browser.find_elements("css selector", "#controls button[data-load]") == []
+    verdict, text, goals = now()
+    assert verdict == "open" and "1 of 2 goals met; 0 of 2 swaps used" in text
+    assert goals["linear_ppm"] > 0.5
+    _swap_by_clicks(browser, (0, 2), (0, 6))
+    assert now()[0] == "open"
+    browser.find_element("id", "ex-hint").click()
+    hints = browser.find_elements("css selector", "#ex-hints li")
+    assert [h.text for h in hints] == ex["exercise"]["hints"][:1]
+    _swap_by_clicks(browser, (0, 3), (0, 7))
+    verdict, text, goals = now()
+    assert verdict == "met" and text.startswith("Goal met in 2 swaps (2 allowed)"), text
+    met = _exported(browser, tmp_path, "met.txt")
+    assert met.read_text().splitlines()[1].split() == [
+        ".", "QA<", "QB>", "QB<", "QA>", "QB<", "QA>", "QA<", "QB>", "."]
+    g = _grade(met, spec)
+    want = _expected(g)
+    for key, value in goals.items():
+        assert value <= next(x["at_most"] for x in ex["goal"] if x["figure"] == key)
+        assert _agree(key, value, want[key], g), (key, value, want[key])
+    _swap_by_clicks(browser, (0, 1), (0, 2))            # a third swap: over the limit
+    assert now()[0] in ("open", "over")
+    browser.find_element("id", "undo").click()
+    assert now()[0] == "met"
+    # the reveal: placer's arrangement, and its figures are grade's
+    browser.find_element("id", "ex-reveal").click()
+    verdict, text, goals = now()
+    assert verdict == "revealed"
+    shown_best = _exported(browser, tmp_path, "revealed.txt")
+    data = _page_data(page)
+    best = data["arrangements"][data["exercise"]["best"]]
+    assert best["label"] == "optimised"
+    rows = [ln.split() for ln in shown_best.read_text().splitlines()[1:]]
+    ids = [[-1 if t == "." else -2 if t == "-" else data["devices"].index(t.rstrip("<>"))
+            for t in row] for row in rows]
+    assert ids == best["ids"]
+    g = _grade(shown_best, spec)
+    want, figs = _expected(g), _shown(_figures(browser))
+    assert {"linear_ppm", "quadratic_ppm", "row_tracks", "total_tree_um",
+            "diffusion_breaks", "unpaired_fingers"} <= set(figs)
+    bad = {k: (figs[k], want[k]) for k in figs if not _agree(k, figs[k], want[k], g)}
+    assert not bad
+    assert all(_agree(k, v, want[k], g) for k, v in goals.items())
+    ARTEFACTS.mkdir(parents=True, exist_ok=True)
+    browser.save_screenshot(str(ARTEFACTS / "lesson-exercise.png"))

@@ -15,6 +15,7 @@ from importlib import resources
 from typing import Any
 
 from placer.errors import LimitError
+from placer.io.exercise import FIGURES, Exercise
 from placer.io.pattern import Pattern
 from placer.io.spec import Spec
 from placer.kinds import KINDS
@@ -39,9 +40,11 @@ class LessonArrangement:
     pattern: Pattern
 
 
-def lesson_data(spec: Spec, arrangements: list[LessonArrangement]) -> dict[str, Any]:
+def lesson_data(spec: Spec, arrangements: list[LessonArrangement],
+                exercise: Exercise | None = None) -> dict[str, Any]:
     """Everything the page computes from, as JSON-ready values; the first arrangement is
-    the one the page opens with."""
+    the one the page opens with, unless an ``exercise`` names its start (then the page
+    opens on that, and its reveal loads the arrangement labelled "optimised")."""
     from placer.present.plot import DUMMY_COLOUR, device_colours
 
     if spec.n_units > MAX_LESSON_UNITS:
@@ -71,8 +74,34 @@ def lesson_data(spec: Spec, arrangements: list[LessonArrangement]) -> dict[str, 
                           "ids": a.pattern.ids.tolist(),
                           "orient": a.pattern.orient.tolist()} for a in arrangements],
         "budget": _budget_data(spec),
+        "routing": _routing_data(spec),
+        "exercise": None if exercise is None else _exercise_data(exercise, arrangements),
     }
     return data
+
+
+def _exercise_data(ex: Exercise, arrangements: list[LessonArrangement]) -> dict[str, Any]:
+    """The exercise as the page shows and scores it: the arrangements it starts from and
+    reveals by their index among the page's."""
+    labels = [a.label for a in arrangements]
+    return {"title": ex.title, "task": ex.task, "start": labels.index(ex.start),
+            "best": labels.index("optimised"), "max_swaps": ex.max_swaps,
+            "goals": [{"figure": g.figure, "at_most": g.at_most, "label": FIGURES[g.figure][0],
+                       "unit": FIGURES[g.figure][1]} for g in ex.goals],
+            "hints": list(ex.hints)}
+
+
+def _routing_data(spec: Spec) -> dict[str, Any]:
+    """What the page's routing cost needs beyond the board: for MOS fingers the
+    (source, drain) net numbers of each device, the dummy net's, and whether fingers go
+    two to a diffusion island (as ``estimate_routing`` is called for an arrangement)."""
+    from placer.model.routing_estimate import dummy_net_id, mos_finger_nets
+
+    if not KINDS[spec.kind].fingers:
+        return {"fingers": False, "nets": None, "dummy_net": None, "pairs": False}
+    nets = mos_finger_nets(spec)
+    return {"fingers": True, "nets": [list(n) for n in nets] if nets else None,
+            "dummy_net": dummy_net_id(spec), "pairs": spec.unit.diffusion == "pairs"}
 
 
 def _budget_data(spec: Spec) -> dict[str, Any] | None:

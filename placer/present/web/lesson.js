@@ -15,7 +15,9 @@ const SVGNS = "http://www.w3.org/2000/svg";
 const state = {
   ids: null, orient: null, history: [], selected: null, focus: [0, 0],
   loaded: 0, step: 0, model: null, refModel: null, reference: null, sc: null,
-  field: null, shade: true, placing: false, board: null,
+  field: null, shade: true, placing: false, board: null, route: null, refRoute: null,
+  // an exercise: placer's arrangement revealed, hints shown, the best's figures
+  revealed: false, hints: 0, best: null,
 };
 
 function copyGrid(g) { return g.map((row) => row.slice()); }
@@ -29,6 +31,8 @@ function load(k) {
   state.loaded = k;
   state.model = boardModel(state.ids);
   state.refModel = copyModel(state.model);
+  state.route = routingModel(state.ids, state.orient);
+  state.refRoute = routingFigures(state.route);
   if (state.field === null) state.field = specField();
   state.reference = figures(state.refModel, state.field);
   drawControls();
@@ -56,6 +60,7 @@ function swap(a, b, record = true) {
   }
   const cols = ids[0].length;
   swapSlots(state.model, r1 * cols + c1, r2 * cols + c2);
+  routingSwap(state.route, r1 * cols + c1, r2 * cols + c2);
   if (record) state.history.push([a, b]);
   paintSlot(r1, c1);
   paintSlot(r2, c2);
@@ -309,6 +314,187 @@ function directionError(sc, theta) {
   const c = Math.cos(theta), s = Math.sin(theta);
   for (const p of sc.pairs) worst = Math.max(worst, Math.abs(sc.field.g * (c * p.dc[0] + s * p.dc[1])));
   return worst;
+}
+
+// ---------------------------------------------------------------- the routing cost
+// placer/model/routing_estimate.py's estimate of an arrangement's wiring: one track per
+// device net in each row (row_tracks), each device's Euclidean minimum spanning tree over
+// its units (spanning_tree_length) and, for MOS fingers, the diffusion breaks between
+// neighbouring fingers (diffusion_breaks; fingers two to an island: diffusion_joins with
+// "pairs", every finger alone when one finds no partner). A swap changes two slots: only
+// their rows and their two devices are counted again.
+const NO_NET = -1e9;
+
+function routingModel(ids, orient) {
+  const rows = ids.length, cols = ids[0].length, nDev = D.devices.length;
+  const rm = { rows, cols, nDev, dev: new Int32Array(rows * cols), ori: new Int8Array(rows * cols),
+    tracks: new Int32Array(rows), tree: new Float64Array(nDev),
+    // per row: breaks between neighbouring fingers (joined as drawn), fingers without
+    // a partner, neighbouring finger pairs
+    breaks: new Int32Array(rows), unpaired: new Int32Array(rows), adjacent: new Int32Array(rows) };
+  ids.forEach((row, r) => row.forEach((d, c) => {
+    rm.dev[r * cols + c] = d; rm.ori[r * cols + c] = orient[r][c];
+  }));
+  for (let r = 0; r < rows; r++) routingRow(rm, r);
+  for (let d = 0; d < nDev; d++) rm.tree[d] = treeLength(rm, d);
+  return rm;
+}
+
+function copyRouting(rm) {
+  return { ...rm, dev: rm.dev.slice(), ori: rm.ori.slice(), tracks: rm.tracks.slice(),
+           tree: rm.tree.slice(), breaks: rm.breaks.slice(), unpaired: rm.unpaired.slice(),
+           adjacent: rm.adjacent.slice() };
+}
+
+// Prim's algorithm on every pairwise distance (as _prim, Cormen et al. sec. 23.2)
+function treeLength(rm, d) {
+  const [px, py] = D.pitch_um, xs = [], ys = [];
+  for (let s = 0; s < rm.dev.length; s++) {
+    if (rm.dev[s] !== d) continue;
+    const r = Math.floor(s / rm.cols);
+    xs.push((s - r * rm.cols) * px); ys.push(-r * py);
+  }
+  const n = xs.length;
+  if (n < 2) return 0;
+  const best = new Float64Array(n), done = new Uint8Array(n);
+  // squared distances while choosing (sqrt is monotone), lengths summed at the end
+  for (let i = 0; i < n; i++) best[i] = (xs[i] - xs[0]) ** 2 + (ys[i] - ys[0]) ** 2;
+  done[0] = 1;
+  let total = 0;
+  for (let step = 1; step < n; step++) {
+    let k = -1, low = Infinity;
+    for (let i = 0; i < n; i++) if (!done[i] && best[i] < low) { low = best[i]; k = i; }
+    total += Math.sqrt(low); done[k] = 1;
+    const x = xs[k], y = ys[k];
+    for (let i = 0; i < n; i++) {
+      if (done[i]) continue;
+      const dx = xs[i] - x, dy = ys[i] - y, v = dx * dx + dy * dy;
+      if (v < best[i]) best[i] = v;
+    }
+  }
+  return total;
+}
+
+// (left, right) diffusion net of a slot (facing): a finger's by its orientation, a
+// dummy's the dummy net, an empty slot's two nets equal to nothing
+function facingNets(rm, s) {
+  const d = rm.dev[s], R = D.routing;
+  if (d >= 0) {
+    const [src, drn] = R.nets === null ? [-1, d] : R.nets[d];
+    return rm.ori[s] >= 0 ? [src, drn] : [drn, src];
+  }
+  if (d === DUMMY) return [R.dummy_net, R.dummy_net];
+  return [NO_NET, NO_NET - 1];
+}
+
+function routingRow(rm, r) {
+  const cols = rm.cols, base = r * cols, seen = new Uint8Array(rm.nDev);
+  let tracks = 0;
+  for (let c = 0; c < cols; c++) {
+    const d = rm.dev[base + c];
+    if (d >= 0 && !seen[d]) { seen[d] = 1; tracks++; }
+  }
+  rm.tracks[r] = tracks;
+  if (!D.routing.fingers) return;
+  const nets = [];
+  for (let c = 0; c < cols; c++) nets.push(facingNets(rm, base + c));
+  const active = (c) => rm.dev[base + c] >= 0;
+  let adjacent = 0, breaks = 0, unpaired = 0;
+  if (!D.routing.pairs) {
+    for (let c = 1; c < cols; c++) {
+      if (active(c - 1) && active(c) && nets[c - 1][1] !== nets[c][0]) breaks++;
+    }
+    rm.breaks[r] = breaks;
+    return;
+  }
+  // the joins that pair the most active fingers, then the most active pairs (_row_pairs)
+  const bestCov = new Array(cols + 1).fill(0), bestPairs = new Array(cols + 1).fill(0);
+  const took = new Uint8Array(cols + 1);
+  for (let c = 2; c <= cols; c++) {
+    bestCov[c] = bestCov[c - 1]; bestPairs[c] = bestPairs[c - 1];
+    const a = active(c - 2), b = active(c - 1);
+    if (nets[c - 2][1] === nets[c - 1][0] && (a || b)) {
+      const cov = bestCov[c - 2] + a + b, pairs = bestPairs[c - 2] + (a && b ? 1 : 0);
+      if (cov > bestCov[c] || (cov === bestCov[c] && pairs > bestPairs[c])) {
+        bestCov[c] = cov; bestPairs[c] = pairs; took[c] = 1;
+      }
+    }
+  }
+  const joined = new Uint8Array(Math.max(cols - 1, 0)), paired = new Uint8Array(cols);
+  for (let c = cols; c >= 2;) {
+    if (took[c]) { joined[c - 2] = 1; paired[c - 2] = 1; paired[c - 1] = 1; c -= 2; } else c -= 1;
+  }
+  for (let c = 0; c < cols; c++) if (active(c) && !paired[c]) unpaired++;
+  for (let c = 1; c < cols; c++) {
+    if (active(c - 1) && active(c)) { adjacent++; if (!joined[c - 1]) breaks++; }
+  }
+  rm.breaks[r] = breaks; rm.unpaired[r] = unpaired; rm.adjacent[r] = adjacent;
+}
+
+// slots i and j exchange their contents (unit and orientation)
+function routingSwap(rm, i, j) {
+  const a = rm.dev[i], b = rm.dev[j];
+  rm.dev[i] = b; rm.dev[j] = a;
+  const o = rm.ori[i]; rm.ori[i] = rm.ori[j]; rm.ori[j] = o;
+  const ri = Math.floor(i / rm.cols), rj = Math.floor(j / rm.cols);
+  routingRow(rm, ri);
+  if (rj !== ri) routingRow(rm, rj);
+  if (a !== b) {
+    if (a >= 0) rm.tree[a] = treeLength(rm, a);
+    if (b >= 0) rm.tree[b] = treeLength(rm, b);
+  }
+}
+
+// the routing figures of a routing model: estimate_routing's, and the fingers that find
+// no partner when fingers go two to an island
+function routingFigures(rm) {
+  let total = 0, tracks = 0, wide = 0, unpaired = 0, joinedBreaks = 0, adjacent = 0;
+  for (let d = 0; d < rm.nDev; d++) total += rm.tree[d];
+  for (let r = 0; r < rm.rows; r++) {
+    tracks += rm.tracks[r]; wide = Math.max(wide, rm.tracks[r]);
+    unpaired += rm.unpaired[r]; joinedBreaks += rm.breaks[r]; adjacent += rm.adjacent[r];
+  }
+  const R = D.routing;
+  let breaks = null;
+  if (R.fingers) breaks = !R.pairs || unpaired === 0 ? joinedBreaks : adjacent;
+  return { tracks, rowTracks: Array.from(rm.tracks), widest: wide, tree: Array.from(rm.tree),
+           total, breaks, unpaired: R.fingers && R.pairs ? unpaired : null };
+}
+
+// ---------------------------------------------------------------- the exercise's score
+// An exercise (placer/io/exercise.py) bounds some figures of the board, at the spec's own
+// field, and allows a number of swaps. goalValues reads those figures; exerciseScore says
+// how the board stands: every goal met within the swaps allowed ("met"), met with too
+// many swaps ("over"), not yet ("open"), or placer's arrangement revealed ("revealed").
+// A figure within a billionth of its bound (the arithmetic's rounding) meets it.
+function goalValues(goals, sc, rt) {
+  const of = {
+    linear_ppm: sc.worst.linear.value, quadratic_ppm: sc.worst.quadratic.value,
+    correlated_sigma_ppm: sc.worst.corr.value, total_tree_um: rt.total, row_tracks: rt.tracks,
+    diffusion_breaks: rt.breaks, unpaired_fingers: rt.unpaired,
+  };
+  return goals.map((g) => of[g.figure]);
+}
+
+function exerciseScore(E, values, swaps, revealed) {
+  const met = E.goals.map((g, k) => values[k] <= g.at_most + 1e-9 * Math.max(1, g.at_most));
+  const nMet = met.filter(Boolean).length, all = nMet === met.length;
+  let verdict, text;
+  if (revealed) {
+    verdict = "revealed";
+    text = "Revealed: placer's arrangement, its figures against the goals. Start again to try once more.";
+  } else if (all && swaps <= E.max_swaps) {
+    verdict = "met";
+    text = `Goal met in ${swaps} ${swaps === 1 ? "swap" : "swaps"} (${E.max_swaps} allowed).`;
+  } else if (all) {
+    verdict = "over";
+    text = `Every goal met, but in ${swaps} swaps; ${E.max_swaps} are allowed: Undo or Start again.`;
+  } else {
+    verdict = "open";
+    text = `${nMet} of ${met.length} ${met.length === 1 ? "goal" : "goals"} met; ` +
+      `${swaps} of ${E.max_swaps} swaps used.`;
+  }
+  return { verdict, met, text, nMet };
 }
 
 // ---------------------------------------------------------------- the budget
@@ -747,9 +933,9 @@ function drawFigures(sc) {
   const dt = document.getElementById("devices");
   dt.replaceChildren();
   const head = el("tr");
-  for (const hname of ["device", "units", "centroid x", "centroid y", "offset um", "field ppm", "edge units"]) head.appendChild(el("th", { scope: "col" }, hname));
+  for (const hname of ["device", "units", "centroid x", "centroid y", "offset um", "field ppm", "edge units", "wire um"]) head.appendChild(el("th", { scope: "col" }, hname));
   dt.appendChild(head);
-  sc.devices.forEach((dv) => {
+  sc.devices.forEach((dv, d) => {
     const tr = el("tr");
     const cell = (key, v, text = fmt(v)) => tr.appendChild(el("td", { "data-figure": `${key}:${dv.name}`, "data-value": String(v) }, text));
     tr.appendChild(el("td", {}, dv.name));
@@ -759,10 +945,30 @@ function drawFigures(sc) {
     cell("offset_um", dv.offset);
     cell("field_mean", dv.field);
     cell("edge_units", dv.edge, String(dv.edge));
+    cell("tree_um", state.route.tree[d]);
     dt.appendChild(tr);
   });
   drawPolar(sc);
   drawBudget(sc);
+}
+
+// the routing cost beside the error figures: tracks, wire, and for MOS the diffusion
+function drawRouting(rt) {
+  const t = document.getElementById("routing");
+  t.replaceChildren();
+  const ref = state.refRoute;
+  const was = (v) => ref ? ` (was ${fmt(v)} as loaded)` : "";
+  const rows = rt.rowTracks.length <= 12 ? `per row ${rt.rowTracks.join(" ")}`
+    : `widest row ${rt.widest}`;
+  figureRow(t, "row tracks, all rows", rt.tracks, "", "row_tracks", rows + was(ref.tracks));
+  figureRow(t, "spanning-tree wire, all devices", rt.total, "um", "total_tree_um", was(ref.total));
+  if (rt.breaks !== null) {
+    figureRow(t, "diffusion breaks", rt.breaks, "", "diffusion_breaks", was(ref.breaks));
+  }
+  if (rt.unpaired !== null) {
+    figureRow(t, "fingers without a partner", rt.unpaired, "", "unpaired_fingers",
+      was(ref.unpaired));
+  }
 }
 
 function spotName(sc) {
@@ -912,7 +1118,7 @@ function drawBudget(sc) {
 function drawControls() {
   const bar = document.getElementById("controls");
   bar.replaceChildren();
-  D.arrangements.forEach((a, k) => {
+  if (!D.exercise) D.arrangements.forEach((a, k) => {
     const b = el("button", { type: "button", "data-load": k, "aria-pressed": String(k === state.loaded), title: a.note }, a.label);
     b.addEventListener("click", () => load(k));
     bar.appendChild(b);
@@ -939,6 +1145,75 @@ function drawLegend() {
   s.appendChild(sw);
   s.appendChild(document.createTextNode("dummy; circles: centroids; cross: centre of all device units"));
   lg.appendChild(s);
+}
+
+// ---------------------------------------------------------------- the exercise
+function startExercise() {
+  const E = D.exercise;
+  document.getElementById("exercise").hidden = false;
+  document.getElementById("ex-title").textContent = `Exercise: ${E.title}`;
+  document.getElementById("ex-task").textContent = E.task;
+  const b = D.arrangements[E.best];
+  state.best = goalValues(E.goals, score(b.ids), routingFigures(routingModel(b.ids, b.orient)));
+  document.getElementById("ex-restart").addEventListener("click", () => {
+    state.revealed = false;
+    load(E.start);
+    say("The exercise's start again: swaps count from here.");
+  });
+  document.getElementById("ex-reveal").addEventListener("click", () => {
+    state.revealed = true;
+    load(E.best);
+    say(`Revealed placer's arrangement: ${D.arrangements[E.best].note}.`);
+  });
+  const hint = document.getElementById("ex-hint");
+  hint.disabled = E.hints.length === 0;
+  hint.addEventListener("click", showHint);
+  // the handout states the task and its goals (the hints stay on the page)
+  const box = document.getElementById("handout-exercise");
+  box.appendChild(el("h3", {}, `Exercise: ${E.title}`));
+  box.appendChild(el("p", {}, E.task));
+  const list = el("ul");
+  for (const g of E.goals) list.appendChild(el("li", {}, `${g.label} \u2264 ${fmt(g.at_most)}${g.unit ? " " + g.unit : ""}`));
+  list.appendChild(el("li", {}, `within ${E.max_swaps} ${E.max_swaps === 1 ? "swap" : "swaps"} from the ${D.arrangements[E.start].label} arrangement`));
+  box.appendChild(list);
+}
+
+function showHint() {
+  const E = D.exercise;
+  if (state.hints >= E.hints.length) return;
+  const li = el("li", { "data-hint": state.hints }, E.hints[state.hints]);
+  document.getElementById("ex-hints").appendChild(li);
+  state.hints += 1;
+  const b = document.getElementById("ex-hint");
+  b.textContent = state.hints < E.hints.length ? `Another hint (${state.hints} of ${E.hints.length} shown)` : "Every hint shown";
+  b.disabled = state.hints >= E.hints.length;
+}
+
+// the goals against the board, at the spec's own field whatever the controls show
+function drawExercise(rt) {
+  const E = D.exercise;
+  const now = goalValues(E.goals, figures(state.model, specField()), rt);
+  const s = exerciseScore(E, now, state.history.length, state.revealed);
+  const t = document.getElementById("ex-goals");
+  t.replaceChildren();
+  const head = el("tr");
+  for (const h of ["goal", "now", "placer's best", ""]) head.appendChild(el("th", { scope: "col" }, h));
+  t.appendChild(head);
+  E.goals.forEach((g, k) => {
+    const tr = el("tr");
+    const u = g.unit ? ` ${g.unit}` : "";
+    tr.appendChild(el("td", {}, `${g.label} \u2264 ${fmt(g.at_most)}${u}`));
+    tr.appendChild(el("td", { "data-goal": g.figure, "data-value": String(now[k]) }, `${fmt(now[k])}${u}`));
+    tr.appendChild(el("td", {}, `${fmt(state.best[k])}${u}`));
+    tr.appendChild(el("td", { class: s.met[k] ? "good" : "bad" },
+      s.met[k] ? "met" : `${fmt(now[k] - g.at_most)}${u} over`));
+    t.appendChild(tr);
+  });
+  const p = document.getElementById("ex-score");
+  p.textContent = s.text;
+  p.className = s.verdict === "met" ? "met" : "";
+  p.dataset.score = s.verdict;
+  p.dataset.swaps = String(state.history.length);
 }
 
 // ---------------------------------------------------------------- export
@@ -1031,6 +1306,9 @@ function update(reshade) {
   if (reshade) shadeField(sc);
   drawMarkers(sc);
   drawFigures(sc);
+  const rt = routingFigures(state.route);
+  drawRouting(rt);
+  if (D.exercise) drawExercise(rt);
   showField();
   document.body.dataset.swaps = String(state.history.length);
 }
@@ -1045,5 +1323,6 @@ drawLegend();
 drawStep();
 drawHandout();
 fieldControls();
-load(0);
+if (D.exercise) startExercise();
+load(D.exercise ? D.exercise.start : 0);
 document.body.dataset.ready = "true";
