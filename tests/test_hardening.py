@@ -149,6 +149,7 @@ def test_a_budget_problem_stops_the_run_before_any_file(tmp_path):
     assert not (tmp_path / "o").exists()
 
 
+@pytest.mark.slow          # several seconds: CI runs it (PLACER_SLOW=1)
 def test_force_replaces_the_whole_previous_set(tmp_path):
     spec = spec_file(tmp_path, MIRROR)
     first = run_placer(["arrange", str(spec), "--out", "o", "--time-limit", "2", "--quiet",

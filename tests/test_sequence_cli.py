@@ -68,6 +68,7 @@ def test_search_writes_the_grid_report_and_picture_and_the_grid_grades_alike(tmp
     assert "Budget: |INL| at 3 sigma" in res.output
 
 
+@pytest.mark.slow          # several seconds: CI runs it (PLACER_SLOW=1)
 def test_the_same_seed_gives_the_same_order(tmp_path):
     spec = spec_file(tmp_path, SMALL)
     for name in ("a", "b"):
@@ -139,6 +140,7 @@ def test_the_gdsii_labels_every_slot_with_its_sequence_number(tmp_path):
     assert len(dummy_refs) == int((grid == 0).sum()) == 1
 
 
+@pytest.mark.slow          # several seconds: CI runs it (PLACER_SLOW=1)
 def test_repair_of_a_given_order_finds_the_one_exchange_that_broke_it(tmp_path):
     """Row by row along one row of 8 cells (and a dummy) is far from the best order;
     exchanging two cells of a good order and repairing with one exchange restores an
