@@ -76,8 +76,46 @@ def lesson_data(spec: Spec, arrangements: list[LessonArrangement],
         "budget": _budget_data(spec),
         "routing": _routing_data(spec),
         "exercise": None if exercise is None else _exercise_data(exercise, arrangements),
+        "editor": _editor_data(spec, arrangements, exercise),
     }
     return data
+
+
+def _editor_data(spec: Spec, arrangements: list[LessonArrangement],
+                 exercise: Exercise | None) -> dict[str, Any]:
+    """What the page's new-board controls need: the core the page opened on, the dummy
+    style's padding, the limits, the budget's count-independent parts, or why the page
+    cannot build a board itself (it repeats only the baselines' unconstrained deal and
+    leaves fingers unmarked, so constraints and MOS orientations stay with placer)."""
+    from placer.model.grid import PAD
+
+    why = None
+    p = spec.placement
+    if exercise is not None:
+        why = "an exercise keeps its own board"
+    elif KINDS[spec.kind].fingers:
+        why = ("MOS fingers take orientations that only placer works out: run placer lesson "
+               "on a spec with the counts and shape you want")
+    elif p.mask is not None or p.pins or p.symmetry != "none" or any(
+            g.rows is not None for g in p.groups):
+        why = ("this spec constrains the core (mask, keep-outs, pins, symmetry or row "
+               "bands): run placer lesson on a spec with the counts and shape you want")
+    pr, pc = PAD[spec.array.dummies]
+    shape = arrangements[0].pattern.ids.shape
+    names = list(spec.devices)
+    budget: dict[str, Any] | None = None
+    e = spec.electrical
+    if e is not None:
+        covered = [names.index(n) for n in spec.budget_devices()]
+        if KINDS[spec.kind].budget == "dac":
+            term = e.termination
+            budget = {"kind": "dac", "switched": [d for d in covered if names[d] != term]}
+        else:
+            budget = {"kind": "ratio", "reference": names.index(e.reference or names[0]),
+                      "devices": covered}
+    return {"why": why, "rows": int(shape[0]) - 2 * pr, "cols": int(shape[1]) - 2 * pc,
+            "pad": [pr, pc], "dummies": spec.array.dummies, "max_units": MAX_LESSON_UNITS,
+            "budget": budget}
 
 
 def _exercise_data(ex: Exercise, arrangements: list[LessonArrangement]) -> dict[str, Any]:

@@ -1120,7 +1120,9 @@ function drawControls() {
   bar.replaceChildren();
   if (!D.exercise) D.arrangements.forEach((a, k) => {
     const b = el("button", { type: "button", "data-load": k, "aria-pressed": String(k === state.loaded), title: a.note }, a.label);
-    b.addEventListener("click", () => load(k));
+    // placer's own arrangement is for the spec's counts only: not on a board made here
+    if (a.ids === null) b.disabled = true;
+    else b.addEventListener("click", () => load(k));
     bar.appendChild(b);
   });
   const u = el("button", { type: "button", id: "undo", title: "Undo the last swap (key u)" }, "Undo");
@@ -1237,6 +1239,167 @@ function exportPattern() {
   say("Pattern text below; save it and run placer grade on it.");
 }
 
+// ---------------------------------------------------------------- a new board
+// The trainee sets each device's unit count and the core's rows and columns; the page
+// builds the textbook arrangements for them itself, as placer/search/baselines.py deals
+// them on a core without constraints (clustered, interdigitated, mirrored) and as
+// placer/model/grid.py puts the dummies round it, then every figure follows the new
+// board. placer's own search ran for the spec's counts only: its button waits for a
+// placer lesson run on a spec with the new ones.
+
+// deal(): at each position the device furthest behind its share, ties to the lowest index
+function dealSequence(counts) {
+  let total = 0;
+  for (const c of counts) total += c;
+  const given = counts.map(() => 0), out = [];
+  for (let i = 0; i < total; i++) {
+    let d = -1, top = -Infinity;
+    counts.forEach((want, k) => {
+      const lag = given[k] < want ? (i + 1) * want / total - given[k] : -1e9;
+      if (lag > top) { top = lag; d = k; }
+    });
+    given[d] += 1;
+    out.push(d);
+  }
+  return out;
+}
+
+// the three arrangements' cores (reading order; -1 a spare slot) for counts on n slots
+function textbookCores(counts, n) {
+  const fill = (seq) => { const a = new Array(n).fill(DUMMY); seq.forEach((d, i) => { a[i] = d; }); return a; };
+  const clustered = [];
+  counts.forEach((c, d) => { for (let k = 0; k < c; k++) clustered.push(d); });
+  const left = counts.slice(), inter = [];
+  while (left.some((c) => c > 0)) {
+    for (let d = 0; d < left.length; d++) if (left[d]) { inter.push(d); left[d] -= 1; }
+  }
+  // half of each device dealt over the first half, reflected through the centre; the
+  // odd units left over on the free slots nearest the middle
+  const mirror = new Array(n).fill(DUMMY);
+  dealSequence(counts.map((c) => Math.floor(c / 2))).forEach((d, i) => {
+    mirror[i] = d; mirror[n - 1 - i] = d;
+  });
+  const rest = [];
+  counts.forEach((c, d) => { if (c % 2) rest.push(d); });
+  const order = Array.from({ length: n }, (_, k) => k);
+  order.sort((a, b) => Math.abs(a - (n - 1) / 2) - Math.abs(b - (n - 1) / 2) || a - b);
+  const free = order.filter((k) => mirror[k] < 0);
+  rest.forEach((d, i) => { mirror[free[i]] = d; });
+  return { clustered: fill(clustered), interdigitated: fill(inter), mirrored: mirror };
+}
+
+// a core in reading order -> the whole board: dummies by the spec's style around it
+// (ring: the border all round; ends: a column at each end of every row), spares dummies
+function fullBoard(core, rows, cols) {
+  const [pr, pc] = D.editor.pad;
+  const ids = [];
+  for (let r = 0; r < rows + 2 * pr; r++) {
+    const row = [];
+    for (let c = 0; c < cols + 2 * pc; c++) {
+      const rr = r - pr, cc = c - pc;
+      row.push(rr >= 0 && rr < rows && cc >= 0 && cc < cols ? core[rr * cols + cc] : DUMMY);
+    }
+    ids.push(row);
+  }
+  return ids;
+}
+
+// what is wrong with a request for a new board, or null
+function boardProblem(counts, rows, cols) {
+  const E = D.editor, whole = (v) => Number.isInteger(v);
+  for (let d = 0; d < counts.length; d++) {
+    if (!whole(counts[d]) || counts[d] < 1) {
+      return `${D.devices[d]} needs a whole number of units, at least 1 (got ${Number.isNaN(counts[d]) ? "nothing" : counts[d]}).`;
+    }
+  }
+  if (!whole(rows) || !whole(cols) || rows < 1 || cols < 1) {
+    return "Rows and columns must be whole numbers, at least 1.";
+  }
+  let units = 0;
+  for (const c of counts) units += c;
+  if (rows * cols > E.max_units) {
+    return `${rows} x ${cols} = ${rows * cols} slots: the page handles a core of at most ` +
+      `${E.max_units} slots.`;
+  }
+  if (units > rows * cols) {
+    return `${units} units do not fit ${rows} x ${cols} = ${rows * cols} slots.`;
+  }
+  return null;
+}
+
+// the budget's parts for new counts (as present/lesson.py's _budget_data makes them)
+function budgetFor(counts) {
+  const B = D.editor.budget;
+  if (!B || !D.budget) return D.budget;
+  if (B.kind === "dac") {
+    const index = B.switched.slice().sort((a, b) => counts[a] - counts[b] || a - b);
+    const term = D.budget.termination;
+    return { ...D.budget, bits: index.map((d) => D.devices[d]), index,
+      weights: index.map((d) => counts[d]), termination_weight: term === null ? 0 : counts[term] };
+  }
+  const area = (d) => counts[d] * D.white.unit_area_um2, ref = B.reference;
+  const old = new Map(D.budget.lines.map((ln) => [ln.device, ln]));
+  const lines = B.devices.filter((d) => d !== ref).map((d) => ({
+    ...old.get(D.devices[d]), device: D.devices[d], pair: [d, ref],
+    white_pct: D.white.a_param_pct_um * Math.sqrt((1 / area(d) + 1 / area(ref)) / 2),
+  }));
+  return { ...D.budget, lines };
+}
+
+function makeBoard(counts, rows, cols) {
+  const problem = boardProblem(counts, rows, cols);
+  const msg = document.getElementById("edit-message");
+  if (problem) {
+    msg.textContent = problem; msg.className = "bad";
+    return false;
+  }
+  const cores = textbookCores(counts, rows * cols);
+  const shape = `${rows} x ${cols} core, built in the page`;
+  const notes = { clustered: "each device's units side by side",
+    interdigitated: "devices alternating along the rows",
+    mirrored: "each row mirrored about the array's centre" };
+  D.counts = counts.slice();
+  D.budget = budgetFor(counts);
+  D.arrangements = ["clustered", "interdigitated", "mirrored"].map((m) => {
+    const ids = fullBoard(cores[m], rows, cols);
+    return { label: m, note: `${notes[m]} (${shape})`, ids, orient: ids.map((r) => r.map(() => 0)) };
+  });
+  D.arrangements.push({ label: "optimised", note: "placer's search ran for the spec's own " +
+    "counts: run placer lesson on a spec with these counts and this shape for it", ids: null });
+  state.field = null;
+  state.focus = [0, 0];
+  drawTitle();
+  drawLegend();
+  load(0);
+  msg.textContent = `A new board: ${counts.map((c, d) => `${D.devices[d]} = ${c}`).join(", ")} ` +
+    `on ${rows} x ${cols} slots.`;
+  msg.className = "good";
+  return true;
+}
+
+function editorControls() {
+  const E = D.editor, box = document.getElementById("editor");
+  if (E.why) {
+    box.replaceChildren(el("legend", {}, "A new board"), el("p", { class: "hint", id: "edit-message" },
+      `Counts and shape are fixed here: ${E.why}.`));
+    return;
+  }
+  const grid = document.getElementById("edit-inputs");
+  const num = (id, label, value) => {
+    const span = grid.appendChild(el("span", { class: "edit-field" }));
+    span.appendChild(el("label", { for: id }, label));
+    span.appendChild(el("input", { type: "number", id, min: 1, step: 1, value: String(value) }));
+  };
+  D.devices.forEach((name, d) => num(`edit-count-${d}`, name, D.counts[d]));
+  num("edit-rows", "rows", E.rows);
+  num("edit-cols", "columns", E.cols);
+  const read = (id) => { const v = document.getElementById(id).value.trim(); return v === "" ? NaN : Number(v); };
+  document.getElementById("edit-make").addEventListener("click", () => {
+    makeBoard(D.devices.map((_, d) => read(`edit-count-${d}`)), read("edit-rows"), read("edit-cols"));
+  });
+  document.getElementById("edit-dummies").textContent = `dummies: ${E.dummies} (the spec's)`;
+}
+
 // ---------------------------------------------------------------- guided steps
 const STEPS = [
   ["1. A gradient and two centroids",
@@ -1313,8 +1476,12 @@ function update(reshade) {
   document.body.dataset.swaps = String(state.history.length);
 }
 
-document.getElementById("title").textContent =
-  `${D.name}: ${D.devices.map((n, d) => `${n} = ${D.counts[d]}`).join(", ")}`;
+function drawTitle() {
+  document.getElementById("title").textContent =
+    `${D.name}: ${D.devices.map((n, d) => `${n} = ${D.counts[d]}`).join(", ")}`;
+}
+
+drawTitle();
 document.getElementById("step-back").addEventListener("click", () => { state.step = Math.max(0, state.step - 1); drawStep(); });
 document.getElementById("step-next").addEventListener("click", () => { state.step = Math.min(STEPS.length - 1, state.step + 1); drawStep(); });
 document.getElementById("export").addEventListener("click", exportPattern);
@@ -1323,6 +1490,7 @@ drawLegend();
 drawStep();
 drawHandout();
 fieldControls();
+editorControls();
 if (D.exercise) startExercise();
 load(D.exercise ? D.exercise.start : 0);
 document.body.dataset.ready = "true";
