@@ -631,6 +631,7 @@ def test_an_exercise_driven_to_its_score_then_revealed(browser, tmp_path):
 
 # ---------------------------------------------------------------- a new board in the page
 NEW_BOARD_SPECS = {
+    # (spec, new counts, new core shape, new dummy style)
     # a capacitor array in a ring of dummies: the bits re-sort by their new counts
     "cap": ('name = "tern_dac"\nkind = "cap"\n[devices]\nCT = 1\nC0 = 1\nC1 = 2\nC2 = 4\n'
             '[array]\nrows = 2\ncolumns = 4\ndummies = "ring"\npitch_um = [6.0, 7.0]\n'
@@ -639,7 +640,7 @@ NEW_BOARD_SPECS = {
             '[correlated]\nsigma_ppm = 50.0\nlength_um = 20.0\n'
             '[mismatch]\na_param_pct_um = 0.5\n'
             '[electrical]\ntermination = "CT"\nfit = "endpoint"\n',
-            {"CT": 2, "C0": 1, "C1": 7, "C2": 3}, (3, 5)),
+            {"CT": 2, "C0": 1, "C1": 7, "C2": 3}, (3, 5), "ends"),
     # a resistor divider with end dummies: the ratio budget's random part follows the counts
     "res": ('name = "tern_ladder"\nkind = "res"\n[devices]\nRA = 3\nRB = 5\nRC = 4\n'
             '[array]\nrows = 2\ncolumns = 6\ndummies = "ends"\npitch_um = [3.0, 17.0]\n'
@@ -647,26 +648,28 @@ NEW_BOARD_SPECS = {
             '[gradient]\nlinear_ppm_per_um = 20.0\nquadratic_ppm_per_um2 = 0.02\n'
             '[correlated]\nsigma_ppm = 30.0\nlength_um = 25.0\n'
             '[electrical]\nreference = "RC"\ntolerance_pct = 0.1\n',
-            {"RA": 5, "RB": 2, "RC": 6}, (2, 7)),
+            {"RA": 5, "RB": 2, "RC": 6}, (2, 7), "ring"),
 }
 
 
-def _with_counts(text: str, counts: dict[str, int], shape: tuple[int, int]) -> str:
-    """The spec text with new unit counts and a new core shape."""
+def _with_counts(text: str, counts: dict[str, int], shape: tuple[int, int],
+                 dummies: str) -> str:
+    """The spec text with new unit counts, core shape and dummy style."""
     import re
 
     for name, n in counts.items():
         text = re.sub(rf"(?m)^{name} = \d+$", f"{name} = {n}", text)
+    text = re.sub(r'(?m)^dummies = "\w+"$', f'dummies = "{dummies}"', text)
     text = re.sub(r"(?m)^rows = \d+$", f"rows = {shape[0]}", text)
     return re.sub(r"(?m)^columns = \d+$", f"columns = {shape[1]}", text)
 
 
-def _make_board(driver, counts: list, shape: tuple) -> str:
-    """Fill the page's new-board fields with counts and a shape (in one script call: a
-    round trip per key press costs seconds) and press its button; the message the page
-    gives."""
+def _make_board(driver, counts: list, shape: tuple, dummies: str = "ring") -> str:
+    """Fill the page's new-board fields with counts, a shape and a dummy style (in one
+    script call: a round trip per key press costs seconds) and press its button; the
+    message the page gives."""
     values = {f"edit-count-{d}": n for d, n in enumerate(counts)}
-    values.update({"edit-rows": shape[0], "edit-cols": shape[1]})
+    values.update({"edit-rows": shape[0], "edit-cols": shape[1], "edit-dummies": dummies})
     driver.execute_script("for (const [id, v] of Object.entries(arguments[0])) "
                           "document.getElementById(id).value = String(v);", values)
     driver.find_element("id", "edit-make").click()
@@ -683,21 +686,22 @@ def _open_new_board_page(browser, tmp: Path, kind: str) -> None:
 
 
 def _new_board_checked(browser, tmp: Path, kind: str, graded: tuple[str, ...]) -> None:
-    """On the open page of one spec, make a board with other counts and another shape,
+    """On the open page of one spec, make a board with other counts, another shape and
+    another dummy style,
     and hold each textbook arrangement the page builds to placer's baselines for a spec
-    with those counts and that shape (the exported pattern text, token by token), and
+    with those counts, shape and dummies (the exported pattern text, token by token), and
     every figure of those in ``graded`` to ``placer grade --json`` of the export."""
     from placer.io.pattern import format_pattern
     from placer.jobs.arrange import baseline_patterns
     from placer.jobs.load import load_spec
 
-    text, counts, shape = NEW_BOARD_SPECS[kind]
-    said = _make_board(browser, list(counts.values()), shape)
+    text, counts, shape, dummies = NEW_BOARD_SPECS[kind]
+    said = _make_board(browser, list(counts.values()), shape, dummies)
     assert said.startswith("A new board"), said
     assert browser.find_element("css selector", 'button[data-load="3"]').get_attribute(
         "disabled") == "true"                                 # optimised: not for these counts
     new = tmp / f"{kind}-new.toml"
-    new.write_text(_with_counts(text, counts, shape))
+    new.write_text(_with_counts(text, counts, shape, dummies))
     spec = load_spec(new)
     for k, (method, pattern) in enumerate(baseline_patterns(spec, *shape)):
         browser.find_element("css selector", f'button[data-load="{k}"]').click()
@@ -737,11 +741,11 @@ def test_a_new_board_made_in_the_page_is_placers_baselines(browser, tmp_path):
 @pytest.mark.slow
 @pytest.mark.parametrize("kind", ["cap", "res"])
 def test_every_figure_of_a_new_board_is_grades(browser, tmp_path, kind):
-    """A board made in the page, for a capacitor array in a ring of dummies (its budget's
-    bits re-sorted by the new counts) and a resistor divider with end dummies (its ratio
-    budget's random part from the new areas): each textbook arrangement is placer's
-    baseline, and every figure the page shows on it is ``placer grade --json``'s of the
-    export, the routing cost placer's estimate."""
+    """A board made in the page, for a capacitor array from a ring of dummies to end
+    dummies (its budget's bits re-sorted by the new counts) and a resistor divider from
+    end dummies to a ring (its ratio budget's random part from the new areas): each
+    textbook arrangement is placer's baseline, and every figure the page shows on it is
+    ``placer grade --json``'s of the export, the routing cost placer's estimate."""
     _open_new_board_page(browser, tmp_path, kind)
     _new_board_checked(browser, tmp_path, kind, ("clustered", "interdigitated", "mirrored"))
 

@@ -83,8 +83,8 @@ def lesson_data(spec: Spec, arrangements: list[LessonArrangement],
 
 def _editor_data(spec: Spec, arrangements: list[LessonArrangement],
                  exercise: Exercise | None) -> dict[str, Any]:
-    """What the page's new-board controls need: the core the page opened on, the dummy
-    style's padding, the limits, the budget's count-independent parts, or why the page
+    """What the page's new-board controls need: the core the page opened on and its
+    dummy style, the limit, the budget's count-independent parts, or why the page
     cannot build a board itself (it repeats only the baselines' unconstrained deal and
     leaves fingers unmarked, so constraints and MOS orientations stay with placer)."""
     from placer.model.grid import PAD
@@ -114,7 +114,7 @@ def _editor_data(spec: Spec, arrangements: list[LessonArrangement],
             budget = {"kind": "ratio", "reference": names.index(e.reference or names[0]),
                       "devices": covered}
     return {"why": why, "rows": int(shape[0]) - 2 * pr, "cols": int(shape[1]) - 2 * pc,
-            "pad": [pr, pc], "dummies": spec.array.dummies, "max_units": MAX_LESSON_UNITS,
+            "dummies": spec.array.dummies, "max_units": MAX_LESSON_UNITS,
             "budget": budget}
 
 

@@ -1288,10 +1288,13 @@ function textbookCores(counts, n) {
   return { clustered: fill(clustered), interdigitated: fill(inter), mirrored: mirror };
 }
 
-// a core in reading order -> the whole board: dummies by the spec's style around it
-// (ring: the border all round; ends: a column at each end of every row), spares dummies
-function fullBoard(core, rows, cols) {
-  const [pr, pc] = D.editor.pad;
+// a core in reading order -> the whole board: dummies by a style around it (ring: the
+// border all round, corners too; ends: a column at each end of every row; none), as
+// grid.full_pattern_ids puts them round a core without a mask; spare slots dummies
+const DUMMY_PAD = { none: [0, 0], ends: [0, 1], ring: [1, 1] };
+
+function fullBoard(core, rows, cols, style) {
+  const [pr, pc] = DUMMY_PAD[style];
   const ids = [];
   for (let r = 0; r < rows + 2 * pr; r++) {
     const row = [];
@@ -1346,7 +1349,7 @@ function budgetFor(counts) {
   return { ...D.budget, lines };
 }
 
-function makeBoard(counts, rows, cols) {
+function makeBoard(counts, rows, cols, style) {
   const problem = boardProblem(counts, rows, cols);
   const msg = document.getElementById("edit-message");
   if (problem) {
@@ -1354,14 +1357,14 @@ function makeBoard(counts, rows, cols) {
     return false;
   }
   const cores = textbookCores(counts, rows * cols);
-  const shape = `${rows} x ${cols} core, built in the page`;
+  const shape = `${rows} x ${cols} core, dummies ${style}, built in the page`;
   const notes = { clustered: "each device's units side by side",
     interdigitated: "devices alternating along the rows",
     mirrored: "each row mirrored about the array's centre" };
   D.counts = counts.slice();
   D.budget = budgetFor(counts);
   D.arrangements = ["clustered", "interdigitated", "mirrored"].map((m) => {
-    const ids = fullBoard(cores[m], rows, cols);
+    const ids = fullBoard(cores[m], rows, cols, style);
     return { label: m, note: `${notes[m]} (${shape})`, ids, orient: ids.map((r) => r.map(() => 0)) };
   });
   D.arrangements.push({ label: "optimised", note: "placer's search ran for the spec's own " +
@@ -1372,7 +1375,7 @@ function makeBoard(counts, rows, cols) {
   drawLegend();
   load(0);
   msg.textContent = `A new board: ${counts.map((c, d) => `${D.devices[d]} = ${c}`).join(", ")} ` +
-    `on ${rows} x ${cols} slots.`;
+    `on ${rows} x ${cols} slots, dummies ${style}.`;
   msg.className = "good";
   return true;
 }
@@ -1384,20 +1387,21 @@ function editorControls() {
       `Counts and shape are fixed here: ${E.why}.`));
     return;
   }
-  const grid = document.getElementById("edit-inputs");
-  const num = (id, label, value) => {
-    const span = grid.appendChild(el("span", { class: "edit-field" }));
+  const num = (id, label, value, holder = "edit-inputs") => {
+    const span = document.getElementById(holder).appendChild(el("span", { class: "edit-field" }));
     span.appendChild(el("label", { for: id }, label));
     span.appendChild(el("input", { type: "number", id, min: 1, step: 1, value: String(value) }));
   };
   D.devices.forEach((name, d) => num(`edit-count-${d}`, name, D.counts[d]));
-  num("edit-rows", "rows", E.rows);
-  num("edit-cols", "columns", E.cols);
+  num("edit-rows", "rows", E.rows, "edit-shape");
+  num("edit-cols", "columns", E.cols, "edit-shape");
   const read = (id) => { const v = document.getElementById(id).value.trim(); return v === "" ? NaN : Number(v); };
+  const style = document.getElementById("edit-dummies");
+  style.value = E.dummies;
   document.getElementById("edit-make").addEventListener("click", () => {
-    makeBoard(D.devices.map((_, d) => read(`edit-count-${d}`)), read("edit-rows"), read("edit-cols"));
+    makeBoard(D.devices.map((_, d) => read(`edit-count-${d}`)), read("edit-rows"), read("edit-cols"),
+      style.value);
   });
-  document.getElementById("edit-dummies").textContent = `dummies: ${E.dummies} (the spec's)`;
 }
 
 // ---------------------------------------------------------------- guided steps
