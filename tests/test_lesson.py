@@ -649,6 +649,30 @@ NEW_BOARD_SPECS = {
             '[correlated]\nsigma_ppm = 30.0\nlength_um = 25.0\n'
             '[electrical]\nreference = "RC"\ntolerance_pct = 0.1\n',
             {"RA": 5, "RB": 2, "RC": 6}, (2, 7), "ring"),
+    # a MOS mirror whose fingers go two to a diffusion island: each board's orientations
+    # (pair_row, balance_orientations) and its current budget follow the counts
+    "mos": ('name = "tern_mirror"\nkind = "mos"\n[devices]\nMR = 2\nMA = 4\nMB = 6\n'
+            '[array]\nrows = 2\ncolumns = 6\ndummies = "ends"\npitch_um = [4.0, 6.0]\n'
+            '[unit]\nwidth_um = 2.0\nlength_um = 1.0\n'
+            '[terminals]\nMR = { gate = "VB", source = "VSS", drain = "VB" }\n'
+            'MA = { gate = "VB", source = "VSS", drain = "IA" }\n'
+            'MB = { gate = "VB", source = "VSS", drain = "IB" }\n'
+            '[gradient]\nlinear_ppm_per_um = 10.0\nquadratic_ppm_per_um2 = 0.02\n'
+            '[correlated]\nsigma_ppm = 100.0\nlength_um = 10.0\n'
+            '[electrical]\nreference = "MR"\nvov_v = 0.2\nlambda_per_v = 0.1\n'
+            'a_vt_mv_um = 5.0\na_beta_pct_um = 1.0\ntolerance_pct = 2.0\n'
+            '[electrical.vds_v]\nMR = 0.7\nMA = 1.5\nMB = 1.5\n',
+            {"MR": 3, "MA": 5, "MB": 7}, (3, 6), "ring"),
+    # the same mirror with shared diffusion: orient_row's fewest breaks
+    "mos-shared": ('name = "tern_shared"\nkind = "mos"\n[devices]\nMR = 2\nMA = 4\nMB = 6\n'
+                   '[array]\nrows = 2\ncolumns = 6\ndummies = "ends"\n'
+                   'pitch_um = [4.0, 6.0]\n'
+                   '[unit]\nwidth_um = 2.0\nlength_um = 1.0\ndiffusion = "shared"\n'
+                   '[terminals]\nMR = { gate = "VB", source = "VSS", drain = "VB" }\n'
+                   'MA = { gate = "VB", source = "VSS", drain = "IA" }\n'
+                   'MB = { gate = "VB", source = "VSS", drain = "IB" }\n'
+                   '[gradient]\nlinear_ppm_per_um = 10.0\n',
+                   {"MR": 1, "MA": 6, "MB": 4}, (2, 6), "ends"),
 }
 
 
@@ -720,26 +744,27 @@ def _new_board_checked(browser, tmp: Path, kind: str, graded: tuple[str, ...]) -
 
 
 def test_a_new_board_made_in_the_page_is_placers_baselines(browser, tmp_path):
-    """New counts and shape typed into the page: its clustered, interdigitated and
-    mirrored boards are placer's baselines for a spec with those counts and that shape
-    (placer/search/baselines.py); the test below grades them. Before that, a zero count,
+    """New counts, shape and dummies typed into the page of a MOS mirror: its clustered,
+    interdigitated and mirrored boards, fingers' orientations too, are placer's
+    baselines for a spec with those counts and that shape (placer/search/baselines.py,
+    build_pattern); the test below grades them. Before that, a zero count,
     more units than slots and a core beyond the page's limit are each refused with a
     message naming the problem, and the board stays as it was."""
-    _open_new_board_page(browser, tmp_path, "cap")
+    _open_new_board_page(browser, tmp_path, "mos")
     before = _exported(browser, tmp_path, "before.txt").read_text()
-    for counts, shape, words in (([1, 0, 2, 4], (2, 4), "C0 needs a whole number"),
-                                 ([1, 1, 2, 9], (3, 4), "13 units do not fit 3 x 4"),
-                                 ([1, 1, 2, 4], (40, 40), "at most 1024 slots")):
+    for counts, shape, words in (([3, 0, 4], (2, 6), "MA needs a whole number"),
+                                 ([3, 5, 9], (2, 6), "17 units do not fit 2 x 6"),
+                                 ([2, 4, 6], (40, 40), "at most 1024 slots")):
         said = _make_board(browser, counts, shape)
         assert words in said, said
         assert _exported(browser, tmp_path, "after.txt").read_text() == before
-    _new_board_checked(browser, tmp_path, "cap", ())
+    _new_board_checked(browser, tmp_path, "mos", ())
     errors = [e for e in browser.get_log("browser") if e["level"] == "SEVERE"]
     assert not errors, errors
 
 
 @pytest.mark.slow
-@pytest.mark.parametrize("kind", ["cap", "res"])
+@pytest.mark.parametrize("kind", ["cap", "res", "mos", "mos-shared"])
 def test_every_figure_of_a_new_board_is_grades(browser, tmp_path, kind):
     """A board made in the page, for a capacitor array from a ring of dummies to end
     dummies (its budget's bits re-sorted by the new counts) and a resistor divider from

@@ -85,17 +85,14 @@ def _editor_data(spec: Spec, arrangements: list[LessonArrangement],
                  exercise: Exercise | None) -> dict[str, Any]:
     """What the page's new-board controls need: the core the page opened on and its
     dummy style, the limit, the budget's count-independent parts, or why the page
-    cannot build a board itself (it repeats only the baselines' unconstrained deal and
-    leaves fingers unmarked, so constraints and MOS orientations stay with placer)."""
+    cannot build a board itself (it repeats only the baselines' deal on a core without
+    constraints)."""
     from placer.model.grid import PAD
 
     why = None
     p = spec.placement
     if exercise is not None:
         why = "an exercise keeps its own board"
-    elif KINDS[spec.kind].fingers:
-        why = ("MOS fingers take orientations that only placer works out: run placer lesson "
-               "on a spec with the counts and shape you want")
     elif p.mask is not None or p.pins or p.symmetry != "none" or any(
             g.rows is not None for g in p.groups):
         why = ("this spec constrains the core (mask, keep-outs, pins, symmetry or row "
@@ -111,8 +108,12 @@ def _editor_data(spec: Spec, arrangements: list[LessonArrangement],
             term = e.termination
             budget = {"kind": "dac", "switched": [d for d in covered if names[d] != term]}
         else:
+            current = None
+            if KINDS[spec.kind].quantity == "current":
+                current = {"a_beta_pct_um": e.a_beta_pct_um, "a_vt_mv_um": e.a_vt_mv_um,
+                           "gm_id_per_v": e.gm_id_per_v}
             budget = {"kind": "ratio", "reference": names.index(e.reference or names[0]),
-                      "devices": covered}
+                      "devices": covered, "current": current}
     return {"why": why, "rows": int(shape[0]) - 2 * pr, "cols": int(shape[1]) - 2 * pc,
             "dummies": spec.array.dummies, "max_units": MAX_LESSON_UNITS,
             "budget": budget}

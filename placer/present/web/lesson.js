@@ -1307,6 +1307,170 @@ function fullBoard(core, rows, cols, style) {
   return ids;
 }
 
+// ---- MOS fingers: each board's orientations as placer's build_pattern marks them
+// (placer/model/routing_estimate.py orient_row and pair_row, row by row with one running
+// tally of each device's '>' less '<', then placer/jobs/arrange.py balance_orientations);
+// ties are broken in the same order as there.
+function fingerEnds(d, mark) {
+  const [src, drn] = D.routing.nets === null ? [-1, d] : D.routing.nets[d];
+  return mark >= 0 ? [src, drn] : [drn, src];
+}
+
+// orient_row: the fewest diffusion breaks between neighbouring fingers
+function orientRow(ids, balance) {
+  const n = ids.length, cost = ids.map(() => [0, 0]), back = ids.map(() => [-1, -1]);
+  for (let i = 1; i < n; i++) {
+    const d = ids[i], [c0, c1] = cost[i - 1], arg = c0 <= c1 ? 0 : 1;
+    if (d < 0 || ids[i - 1] < 0) {
+      const best = arg === 0 ? c0 : c1;
+      cost[i] = [best, best]; back[i] = [arg, arg];
+      continue;
+    }
+    const r0 = fingerEnds(ids[i - 1], -1)[1], r1 = fingerEnds(ids[i - 1], 1)[1];
+    for (const o of [0, 1]) {
+      const left = fingerEnds(d, o ? 1 : -1)[0];
+      const opt0 = c0 + (r0 !== left ? 1 : 0), opt1 = c1 + (r1 !== left ? 1 : 0);
+      const p = opt0 <= opt1 ? 0 : 1;
+      cost[i][o] = p === 0 ? opt0 : opt1; back[i][o] = p;
+    }
+  }
+  const marks = new Array(n).fill(0), last = cost[n - 1];
+  let o = last[0] <= last[1] ? 0 : 1;
+  if (last[0] === last[1] && ids[n - 1] >= 0) o = (balance.get(ids[n - 1]) || 0) <= 0 ? 1 : 0;
+  for (let i = n - 1; i >= 0; i--) {
+    if (ids[i] >= 0) {
+      marks[i] = o ? 1 : -1;
+      balance.set(ids[i], (balance.get(ids[i]) || 0) + marks[i]);
+    }
+    o = back[i][o] >= 0 ? back[i][o] : 0;
+  }
+  return marks;
+}
+
+// (covered, pairs) compared as Python compares tuples
+const tupleMore = (a, b) => a[0] > b[0] || (a[0] === b[0] && a[1] > b[1]);
+const tupleSame = (a, b) => a[0] === b[0] && a[1] === b[1];
+function tupleMax(values) {
+  let top = null;
+  for (const v of values) if (top === null || tupleMore(v, top)) top = v;
+  return top;
+}
+const edgeWeight = (a, b) => { const n = (a >= 0 ? 1 : 0) + (b >= 0 ? 1 : 0); return [n, n === 2 ? 1 : 0]; };
+
+// pair_row: the most fingers sharing diffusion with exactly one neighbour
+function pairRow(ids, balance) {
+  const n = ids.length, dummy = D.routing.dummy_net;
+  const sides = (i, o) => {
+    const d = ids[i];
+    if (d >= 0) return fingerEnds(d, o ? 1 : -1);
+    return d === DUMMY ? [dummy, dummy] : [NO_NET, NO_NET - 1];
+  };
+  // val[i]: Map "o,m" -> [covered, pairs] (insertion order as the Python dict's)
+  const val = [], back = [];
+  for (let i = 0; i < n; i++) {
+    const v = new Map(), b = new Map();
+    for (const o of ids[i] >= 0 ? [0, 1] : [1]) {
+      if (i === 0) { v.set(`${o},0`, [0, 0]); b.set(`${o},0`, null); continue; }
+      const prev = val[i - 1];
+      let key = null;
+      for (const [k, pv] of prev) if (key === null || tupleMore(pv, prev.get(key))) key = k;
+      v.set(`${o},0`, prev.get(key)); b.set(`${o},0`, key);
+      const left = sides(i, o)[0], w = edgeWeight(ids[i - 1], ids[i]);
+      if (w[0] === 0) continue;
+      for (const [k, pv] of prev) {
+        const [po, pm] = k.split(",").map(Number);
+        if (pm === 0 && sides(i - 1, po)[1] === left) {
+          const cand = [pv[0] + w[0], pv[1] + w[1]];
+          if (!v.has(`${o},1`) || tupleMore(cand, v.get(`${o},1`))) { v.set(`${o},1`, cand); b.set(`${o},1`, k); }
+        }
+      }
+    }
+    val.push(v); back.push(b);
+  }
+  const pick = (cands, i) => {
+    const d = ids[i];
+    if (d < 0 || cands.length === 1) return cands[0];
+    const want = (balance.get(d) || 0) <= 0 ? 1 : 0;
+    return cands.find((k) => Number(k.split(",")[0]) === want) || cands[0];
+  };
+  const best = (m) => { const top = tupleMax(m.values()); return [...m].filter(([, s]) => tupleSame(s, top)).map(([k]) => k); };
+  let state = pick(best(val[n - 1]), n - 1);
+  const marks = new Array(n).fill(0);
+  for (let i = n - 1; i >= 0; i--) {
+    const [o, m] = state.split(",").map(Number);
+    if (ids[i] >= 0) {
+      marks[i] = o ? 1 : -1;
+      balance.set(ids[i], (balance.get(ids[i]) || 0) + marks[i]);
+    }
+    let prev = back[i].get(state);
+    if (prev === null) break;
+    if (i >= 1 && m === 0) prev = pick(best(val[i - 1]), i - 1);
+    state = prev;
+  }
+  return marks;
+}
+
+// active fingers of a row left without a partner (unpaired_in_row)
+function unpairedInRow(row, mk) {
+  const rm = { dev: row, ori: mk, nDev: D.devices.length, cols: row.length, rows: 1,
+    tracks: new Int32Array(1), breaks: new Int32Array(1), unpaired: new Int32Array(1),
+    adjacent: new Int32Array(1) };
+  routingRow(rm, 0);
+  return rm.unpaired[0];
+}
+
+// balance_orientations: flip single fingers or neighbouring pairs while that evens out
+// each device's '>' and '<' and adds no break (with pairs: leaves no more unpaired)
+function balanceOrientations(ids, orient) {
+  const pairs = D.routing.pairs, nCols = ids[0].length;
+  const tally = new Array(D.devices.length).fill(0);
+  ids.forEach((row, r) => row.forEach((d, c) => { if (d >= 0) tally[d] += orient[r][c]; }));
+  const edgeBreaks = (row, mk, lo, hi) => {
+    if (pairs) return unpairedInRow(row, mk);
+    let out = 0;
+    for (let c = Math.max(lo, 1); c <= Math.min(hi, nCols - 1); c++) {
+      const a = row[c - 1], b = row[c];
+      if (a >= 0 && b >= 0 && fingerEnds(a, mk[c - 1])[1] !== fingerEnds(b, mk[c])[0]) out++;
+    }
+    return out;
+  };
+  let improved = true;
+  while (improved) {
+    improved = false;
+    ids.forEach((row, r) => {
+      const mk = orient[r];
+      for (let c = 0; c < nCols; c++) {
+        for (const width of [1, 2]) {
+          if (c + width > nCols || row.slice(c, c + width).some((d) => d < 0)) continue;
+          const change = new Map();
+          for (let x = c; x < c + width; x++) change.set(row[x], (change.get(row[x]) || 0) - 2 * mk[x]);
+          let after = 0, now = 0;
+          for (const [d, dt] of change) { after += Math.abs(tally[d] + dt); now += Math.abs(tally[d]); }
+          if (after >= now) continue;
+          const before = edgeBreaks(row, mk, c, c + width);
+          for (let x = c; x < c + width; x++) mk[x] = -mk[x];
+          if (edgeBreaks(row, mk, c, c + width) <= before) {
+            for (const [d, dt] of change) tally[d] += dt;
+            improved = true;
+          } else {
+            for (let x = c; x < c + width; x++) mk[x] = -mk[x];
+          }
+        }
+      }
+    });
+  }
+  return orient;
+}
+
+// the orientations of a whole board: zero without fingers
+function boardOrientations(ids) {
+  const orient = ids.map((row) => row.map(() => 0));
+  if (!D.routing.fingers) return orient;
+  const balance = new Map();
+  ids.forEach((row, r) => { orient[r] = D.routing.pairs ? pairRow(row, balance) : orientRow(row, balance); });
+  return ids.some((row) => row.some((d) => d >= 0)) ? balanceOrientations(ids, orient) : orient;
+}
+
 // what is wrong with a request for a new board, or null
 function boardProblem(counts, rows, cols) {
   const E = D.editor, whole = (v) => Number.isInteger(v);
@@ -1342,9 +1506,15 @@ function budgetFor(counts) {
   }
   const area = (d) => counts[d] * D.white.unit_area_um2, ref = B.reference;
   const old = new Map(D.budget.lines.map((ln) => [ln.device, ln]));
+  // the area law, sigma = A sqrt((1/area_a + 1/area_b) / 2); a current's from beta and
+  // VT (current_sigma), any other ratio's from the spec's matching coefficient
+  const law = (a, d) => a * Math.sqrt((1 / area(d) + 1 / area(ref)) / 2);
+  const white = (d) => B.current
+    ? Math.sqrt(law(B.current.a_beta_pct_um, d) ** 2 +
+                (B.current.gm_id_per_v * 0.1 * law(B.current.a_vt_mv_um, d)) ** 2)
+    : law(D.white.a_param_pct_um, d);
   const lines = B.devices.filter((d) => d !== ref).map((d) => ({
-    ...old.get(D.devices[d]), device: D.devices[d], pair: [d, ref],
-    white_pct: D.white.a_param_pct_um * Math.sqrt((1 / area(d) + 1 / area(ref)) / 2),
+    ...old.get(D.devices[d]), device: D.devices[d], pair: [d, ref], white_pct: white(d),
   }));
   return { ...D.budget, lines };
 }
@@ -1365,7 +1535,7 @@ function makeBoard(counts, rows, cols, style) {
   D.budget = budgetFor(counts);
   D.arrangements = ["clustered", "interdigitated", "mirrored"].map((m) => {
     const ids = fullBoard(cores[m], rows, cols, style);
-    return { label: m, note: `${notes[m]} (${shape})`, ids, orient: ids.map((r) => r.map(() => 0)) };
+    return { label: m, note: `${notes[m]} (${shape})`, ids, orient: boardOrientations(ids) };
   });
   D.arrangements.push({ label: "optimised", note: "placer's search ran for the spec's own " +
     "counts: run placer lesson on a spec with these counts and this shape for it", ids: null });
