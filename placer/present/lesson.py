@@ -98,7 +98,10 @@ def _editor_data(spec: Spec, arrangements: list[LessonArrangement],
         why = ("this spec constrains the core (mask, keep-outs, pins, symmetry or row "
                "bands): run placer lesson on a spec with the counts and shape you want")
     pr, pc = PAD[spec.array.dummies]
-    shape = arrangements[0].pattern.ids.shape
+    # the core of placer's clustered board (the first one may be the user's own pattern,
+    # of any shape)
+    first = next((a for a in arrangements if a.label == "clustered"), arrangements[0])
+    shape = first.pattern.ids.shape
     names = list(spec.devices)
     budget: dict[str, Any] | None = None
     e = spec.electrical
@@ -114,7 +117,8 @@ def _editor_data(spec: Spec, arrangements: list[LessonArrangement],
                            "gm_id_per_v": e.gm_id_per_v}
             budget = {"kind": "ratio", "reference": names.index(e.reference or names[0]),
                       "devices": covered, "current": current}
-    return {"why": why, "rows": int(shape[0]) - 2 * pr, "cols": int(shape[1]) - 2 * pc,
+    return {"why": why, "rows": max(1, int(shape[0]) - 2 * pr),
+            "cols": max(1, int(shape[1]) - 2 * pc),
             "dummies": spec.array.dummies, "max_units": MAX_LESSON_UNITS,
             "budget": budget}
 
