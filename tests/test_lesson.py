@@ -749,7 +749,8 @@ def test_a_new_board_made_in_the_page_is_placers_baselines(browser, tmp_path):
     baselines for a spec with those counts and that shape (placer/search/baselines.py,
     build_pattern); the test below grades them. Before that, a zero count,
     more units than slots and a core beyond the page's limit are each refused with a
-    message naming the problem, and the board stays as it was."""
+    message naming the problem, and the board stays as it was; after it, the spec's own
+    board comes back with placer's arrangement."""
     _open_new_board_page(browser, tmp_path, "mos")
     before = _exported(browser, tmp_path, "before.txt").read_text()
     for counts, shape, words in (([3, 0, 4], (2, 6), "MA needs a whole number"),
@@ -759,6 +760,9 @@ def test_a_new_board_made_in_the_page_is_placers_baselines(browser, tmp_path):
         assert words in said, said
         assert _exported(browser, tmp_path, "after.txt").read_text() == before
     _new_board_checked(browser, tmp_path, "mos", ())
+    browser.find_element("id", "edit-back").click()          # the spec's board again
+    assert _exported(browser, tmp_path, "back.txt").read_text() == before
+    assert browser.find_element("css selector", 'button[data-load="3"]').is_enabled()
     errors = [e for e in browser.get_log("browser") if e["level"] == "SEVERE"]
     assert not errors, errors
 

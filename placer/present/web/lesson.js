@@ -1567,6 +1567,23 @@ function editorControls() {
   num("edit-cols", "columns", E.cols, "edit-shape");
   const read = (id) => { const v = document.getElementById(id).value.trim(); return v === "" ? NaN : Number(v); };
   const style = document.getElementById("edit-dummies");
+  // the spec's own board (placer's optimised arrangement among them) kept to go back to
+  const spec = { counts: D.counts, budget: D.budget, arrangements: D.arrangements };
+  document.getElementById("edit-back").addEventListener("click", () => {
+    Object.assign(D, spec);
+    D.devices.forEach((_, d) => { document.getElementById(`edit-count-${d}`).value = String(D.counts[d]); });
+    document.getElementById("edit-rows").value = String(E.rows);
+    document.getElementById("edit-cols").value = String(E.cols);
+    style.value = E.dummies;
+    state.field = null;
+    state.focus = [0, 0];
+    drawTitle();
+    drawLegend();
+    load(0);
+    const msg = document.getElementById("edit-message");
+    msg.textContent = "The spec's own board again, placer's arrangement with it.";
+    msg.className = "good";
+  });
   style.value = E.dummies;
   document.getElementById("edit-make").addEventListener("click", () => {
     makeBoard(D.devices.map((_, d) => read(`edit-count-${d}`)), read("edit-rows"), read("edit-cols"),
