@@ -581,8 +581,15 @@ def test_an_exercise_driven_to_its_score_then_revealed(browser, tmp_path):
     handout = browser.execute_script(
         "return document.getElementById('handout-exercise').textContent")
     assert ex["exercise"]["task"] in handout and "within 2 swaps from the clustered" in handout
-    # no arrangement buttons in an exercise: the board opens on the exercise's start
+    # no arrangement buttons in an exercise: the board opens on the exercise's start,
+    # and the guided steps do not ask for them
     assert browser.find_elements("css selector", "#controls button[data-load]") == []
+    steps = ""
+    for _ in range(4):
+        steps += browser.find_element("id", "step-text").text
+        browser.find_element("id", "step-next").click()
+    assert "Load clustered" not in steps and "Compare interdigitated" not in steps
+    assert "On a clustered start" in steps
     verdict, text, goals = now()
     assert verdict == "open" and "1 of 2 goals met; 0 of 2 swaps used" in text
     assert goals["linear_ppm"] > 0.5

@@ -138,13 +138,14 @@ def estimate(spec: Spec, routed: bool = True) -> Workload:
 #: electrical budget (its picture), fitted to the time from the search's end to the
 #: process's end (``tests/bench/bench_workload.py --fit``); a candidate's grade and picture
 #: are assumed, not fitted.
-_AFTER_BASE_S = 0.48
-_AFTER_PER_UNIT_S = 4.2e-4
-_AFTER_PER_UNIT_NET_S = 2.44e-6
-_AFTER_PER_DEVICE_SLOT_S = 0.0         # the fit gives it no weight since the previews are
-                                       # drawn aside (placer/io/forked.py)
-_AFTER_PER_MC_UNIT3_S = 1.07e-10
-_AFTER_BUDGET_S = 0.12
+#: (refitted when MOS fingers went two to a diffusion island and the layout-dependent
+#: figures joined the grade: the orientation and pairing passes, the guard ring's check)
+_AFTER_BASE_S = 0.549
+_AFTER_PER_UNIT_S = 5.13e-4
+_AFTER_PER_UNIT_NET_S = 1.99e-6
+_AFTER_PER_DEVICE_SLOT_S = 1.81e-5     # the pairing and balance passes per device and slot
+_AFTER_PER_MC_UNIT3_S = 1.54e-10
+_AFTER_BUDGET_S = 0.0433
 #: a capacitor budget's code samples (mc_samples x 2^bits), measured apart: samples/
 #: sar_cdac.toml at 2000, 20 000 and 100 000 samples (the fit's cases hold too few)
 _AFTER_PER_CODE_SAMPLE_S = 7.5e-8

@@ -1597,7 +1597,8 @@ const STEPS = [
     ["A process gradient makes every unit a little stronger on one side of the die than on the other. " +
      "Under a linear gradient a device behaves like one unit at its centroid, the mean position of its units, " +
      "so two devices differ by the gradient times the distance between their centroids.",
-     "Load <b>clustered</b>: the circles (centroids) sit apart and the linear error is large; the curve on the right " +
+     (D.exercise ? "On a clustered start" : "Load <b>clustered</b>") +
+     ": the circles (centroids) sit apart and the linear error is large; the curve on the right " +
      "shows the error for every direction the gradient might take. Now swap units until the circles meet: " +
      "the linear error falls to zero in every direction at once.",
      "The shading round the units is the field itself (blue below the units' mean, red above). Turn it with " +
@@ -1607,7 +1608,9 @@ const STEPS = [
     ["With the centroids together, a curved field (temperature around a hot block, stress near an edge) still " +
      "separates devices whose units are spread differently: one sits more in the middle, the other further out. " +
      "That is the quadratic error, set by the difference of the devices' second moments.",
-     "Compare <b>interdigitated</b> and <b>mirrored</b>: both may cancel the linear term, but the quadratic one differs. " +
+     (D.exercise ? "Interdigitated and mirrored orders (outside an exercise, their buttons load them) "
+                 : "Compare <b>interdigitated</b> and <b>mirrored</b>: both") +
+     " may cancel the linear term, but the quadratic one differs. " +
      "Try swapping an inner unit of one device with an outer unit of another and watch it move.",
      "Set the <b>gradient</b> to 0 and the shading shows the bowl alone. Move its centre with the hot spot " +
      "sliders (or <b>Place hot spot</b> and click a slot): a bowl off the centre is the bowl at the centre " +
