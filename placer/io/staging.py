@@ -229,18 +229,21 @@ class OutputSet:
     def __exit__(self, exc_type: type[BaseException] | None, exc: BaseException | None,
                  tb: TracebackType | None) -> None:
         stage = str(self.stage) if self.stage is not None else None
-        if self.stage is not None:
-            shutil.rmtree(self.stage, ignore_errors=True)
-            self.stage = None
-        if not self.committed and not self.locked_out:
-            # folders made by this run go (while its lock is held); a run refused by the
-            # lock leaves them to the run that holds it
-            for folder in self.created:
-                try:
-                    folder.rmdir()
-                except OSError:
-                    break
-        self._drop_lock()
+        # the clean-up itself is held too: an interrupt that lands just after the move-in
+        # (or during a failure's clean-up) must not leave the staging folder behind
+        with signals_held():
+            if self.stage is not None:
+                shutil.rmtree(self.stage, ignore_errors=True)
+                self.stage = None
+            if not self.committed and not self.locked_out:
+                # folders made by this run go (while its lock is held); a run refused by
+                # the lock leaves them to the run that holds it
+                for folder in self.created:
+                    try:
+                        folder.rmdir()
+                    except OSError:
+                        break
+            self._drop_lock()
         if exc_type is None or tb is None or self.committed:
             return                   # after the commit a failure is not about these files
         if isinstance(exc, OSError):
@@ -294,11 +297,12 @@ class FileSet:
 
     def __exit__(self, exc_type: type[BaseException] | None, exc: BaseException | None,
                  tb: TracebackType | None) -> None:
-        for staged in self.staged.values():
-            try:
-                os.unlink(staged)
-            except OSError:
-                pass
+        with signals_held():            # an interrupt now must not leave a staged file
+            for staged in self.staged.values():
+                try:
+                    os.unlink(staged)
+                except OSError:
+                    pass
         if isinstance(exc, PlacerError) and not self.committed:
             text = str(exc)
             for target, staged in self.staged.items():
