@@ -22,6 +22,21 @@ def run_placer(args: list[str] | tuple[str, ...], cwd: Path, env: dict[str, str]
                           env={**os.environ, "PYTHONPATH": path, **(env or {})})
 
 
+def node_or_skip() -> str:
+    """The Node.js executable for the page tests; skipped without one, failed when
+    ``PLACER_REQUIRE_NODE=1`` (as CI sets it)."""
+    import shutil
+
+    import pytest
+
+    node = shutil.which("node") or shutil.which("nodejs")
+    if node is None:
+        if os.environ.get("PLACER_REQUIRE_NODE") == "1":
+            pytest.fail("Node.js is required here (PLACER_REQUIRE_NODE=1)")
+        pytest.skip("no Node.js here (apt-get install nodejs); CI requires it")
+    return node
+
+
 def refused(res: subprocess.CompletedProcess[str], *words: str, code: int = 1) -> None:
     """``res`` ended with one ``Error:`` line holding ``words``, exit ``code``, no traceback."""
     assert res.returncode == code, (res.returncode, res.stderr)

@@ -14,7 +14,7 @@ from placer.errors import ExerciseError
 from placer.io.exercise import Exercise, Goal, exercise_text, parse_exercise
 from placer.jobs.exercise import round_up, swaps_between
 from placer.jobs.load import load_spec, parse_spec
-from tests.helpers import ROOT
+from tests.helpers import ROOT, node_or_skip
 
 COURSE = ROOT / "samples" / "course"
 
@@ -258,15 +258,9 @@ def test_the_pages_score_says_met_over_open_and_revealed():
     rounding meets it), and placer's arrangement revealed "revealed" whatever the
     figures."""
     import json
-    import os
-    import shutil
     import subprocess
 
-    node = shutil.which("node") or shutil.which("nodejs")
-    if node is None:
-        if os.environ.get("PLACER_REQUIRE_NODE") == "1":
-            pytest.fail("Node.js is required here (PLACER_REQUIRE_NODE=1)")
-        pytest.skip("no Node.js here (apt-get install nodejs); CI requires it")
+    node = node_or_skip()
     text = (ROOT / "placer" / "present" / "web" / "lesson.js").read_text()
     rule = "// " + "-" * 64 + " "
     start, end = text.index(rule + "the exercise's score"), text.index(rule + "the budget")

@@ -14,15 +14,12 @@ counts and that shape, ids and orientations alike. The browser test
 from __future__ import annotations
 
 import json
-import os
 import random
-import shutil
 import subprocess
 
 import numpy as np
-import pytest
 
-from tests.helpers import ROOT
+from tests.helpers import ROOT, node_or_skip
 
 SCRIPT = ROOT / "placer" / "present" / "web" / "lesson.js"
 
@@ -32,15 +29,6 @@ KINDS = {
     "mos-shared": 'kind = "mos"\n[unit]\ndiffusion = "shared"\n',
     "mos-own": 'kind = "mos"\n',        # each device its own source: few joins
 }
-
-
-def _node() -> str:
-    node = shutil.which("node") or shutil.which("nodejs")
-    if node is None:
-        if os.environ.get("PLACER_REQUIRE_NODE") == "1":
-            pytest.fail("Node.js is required here (PLACER_REQUIRE_NODE=1)")
-        pytest.skip("no Node.js here (apt-get install nodejs); CI requires it")
-    return node
 
 
 def _spec_text(kind: str, counts: list[int], rows: int, cols: int, style: str) -> str:
@@ -75,7 +63,7 @@ def test_the_pages_new_boards_are_placers_baselines(tmp_path):
     from placer.jobs.load import parse_spec
     from placer.present.lesson import _routing_data
 
-    node = _node()
+    node = node_or_skip()
     cases, specs = [], []
     for kind, counts, rows, cols, style in _cases(7, 200):
         spec = parse_spec(_spec_text(kind, counts, rows, cols, style), f"{kind}.toml")

@@ -12,14 +12,12 @@ a rebuild after each one. Here each of those boards is held to
 from __future__ import annotations
 
 import json
-import os
-import shutil
 import subprocess
 
 import numpy as np
 import pytest
 
-from tests.helpers import ROOT
+from tests.helpers import ROOT, node_or_skip
 
 SCRIPT = ROOT / "placer" / "present" / "web" / "lesson.js"
 
@@ -34,15 +32,6 @@ _BOARDS = {
     "shared_mos": ('name = "shared_mos"\n[devices]\nMA = 6\nMB = 6\n[array]\nrows = 2\n'
                    'dummies = "ends"\n[unit]\ndiffusion = "shared"\n'),
 }
-
-
-def _node() -> str:
-    node = shutil.which("node") or shutil.which("nodejs")
-    if node is None:
-        if os.environ.get("PLACER_REQUIRE_NODE") == "1":
-            pytest.fail("Node.js is required here (PLACER_REQUIRE_NODE=1)")
-        pytest.skip("no Node.js here (apt-get install nodejs); CI requires it")
-    return node
 
 
 def placer_routing(pattern, spec) -> dict:
@@ -92,7 +81,7 @@ def test_the_pages_routing_cost_is_placers_estimate_before_and_after_swaps(board
     data = tmp_path / "data.json"
     data.write_text(json.dumps(lesson_data(spec, [LessonArrangement(m, m, p)
                                                   for m, p in pats])))
-    res = subprocess.run([_node(), str(ROOT / "tests" / "page_routing.js"), str(SCRIPT),
+    res = subprocess.run([node_or_skip(), str(ROOT / "tests" / "page_routing.js"), str(SCRIPT),
                           str(data), "200", "3"], capture_output=True, text=True, timeout=300)
     assert res.returncode == 0, res.stderr
     out = json.loads(res.stdout)

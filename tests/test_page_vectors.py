@@ -15,14 +15,12 @@ The browser tests (tests/test_lesson.py) check the same agreement on the drawn p
 from __future__ import annotations
 
 import json
-import os
-import shutil
 import subprocess
 
 import pytest
 
 from tests.golden.make_page_vectors import OUT, vectors
-from tests.helpers import ROOT
+from tests.helpers import ROOT, node_or_skip
 
 SCRIPT = ROOT / "placer" / "present" / "web" / "lesson.js"
 
@@ -52,11 +50,7 @@ def test_the_vectors_are_what_python_computes_now():
 
 
 def test_the_pages_formulas_give_the_vectors_figures_without_a_browser():
-    node = shutil.which("node") or shutil.which("nodejs")
-    if node is None:
-        if os.environ.get("PLACER_REQUIRE_NODE") == "1":
-            pytest.fail("Node.js is required here (PLACER_REQUIRE_NODE=1)")
-        pytest.skip("no Node.js here (apt-get install nodejs); CI requires it")
+    node = node_or_skip()
     res = subprocess.run([node, str(ROOT / "tests" / "page_model.js"), str(SCRIPT), str(OUT)],
                          capture_output=True, text=True, timeout=120)
     assert res.returncode == 0, res.stderr
@@ -76,11 +70,7 @@ def test_the_pages_show_the_arithmetics_rounding_as_zero(script):
     their digits, small ones in exponent form."""
     import re
 
-    node = shutil.which("node") or shutil.which("nodejs")
-    if node is None:
-        if os.environ.get("PLACER_REQUIRE_NODE") == "1":
-            pytest.fail("Node.js is required here (PLACER_REQUIRE_NODE=1)")
-        pytest.skip("no Node.js here (apt-get install nodejs); CI requires it")
+    node = node_or_skip()
     text = (ROOT / "placer" / "present" / "web" / script).read_text(encoding="utf-8")
     fmt = re.search(r"^function fmt\(v\) \{.*?^\}", text, re.S | re.M).group(0)
     values = [4.44e-16, -2.11e-13, 0.0, 3.2e-4, 0.00123, 1.5, -25.0, 1.234e5]
@@ -115,11 +105,7 @@ def test_the_pages_swap_by_swap_model_equals_its_rebuild_after_every_swap(board,
     counts exactly, pair sums and every figure under a random field to 1e-12 relative,
     the budget too (tests/page_swaps.js). The from-scratch build is the one held to
     ``placer grade`` by the golden vectors and the browser tests."""
-    node = shutil.which("node") or shutil.which("nodejs")
-    if node is None:
-        if os.environ.get("PLACER_REQUIRE_NODE") == "1":
-            pytest.fail("Node.js is required here (PLACER_REQUIRE_NODE=1)")
-        pytest.skip("no Node.js here (apt-get install nodejs); CI requires it")
+    node = node_or_skip()
     from placer.jobs.arrange import baseline_patterns, candidate_shapes
     from placer.jobs.load import load_spec, parse_spec
     from placer.present.lesson import LessonArrangement, lesson_data
